@@ -1,0 +1,455 @@
+"""Rule deck: a TOML file naming exposure set-ups and the layers they print.
+
+The deck is validated with pydantic models that forbid unknown keys and use
+strict types, so a typo or a wrong type is reported with the file and the
+dotted key path (``layers[1].source``) instead of being silently ignored.
+
+All lengths in a deck are in nanometres at wafer scale.  A layout drawn at
+mask scale declares ``drawn_scale = "mask"`` and its ``reduction``; pitches
+are then divided by the reduction before any optics is applied.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import tomllib
+from pathlib import Path
+from typing import Annotated, Literal
+
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
+
+from pitchguard.errors import DeckError
+
+SEVERITIES = ("fail", "risk", "marginal")
+"""Finding severities, worst first."""
+
+_LAYER_SPEC = re.compile(r"^\s*(\d+)\s*/\s*(\d+)\s*$")
+_MAX_GDS_LAYER = 65535
+
+
+def parse_layer_spec(text: str) -> tuple[int, int]:
+    """Parse ``"L/D"`` into ``(layer, datatype)``; raise ValueError otherwise."""
+    m = _LAYER_SPEC.match(text)
+    if not m:
+        raise ValueError(f'expected "LAYER/DATATYPE" such as "7/0", got {text!r}')
+    layer, datatype = int(m.group(1)), int(m.group(2))
+    if layer > _MAX_GDS_LAYER or datatype > _MAX_GDS_LAYER:
+        raise ValueError(f"layer and datatype must be 0..{_MAX_GDS_LAYER}, got {text!r}")
+    return layer, datatype
+
+
+class _Model(BaseModel):
+    model_config = ConfigDict(extra="forbid", strict=True, frozen=True)
+
+
+Sigma = Annotated[float, Field(ge=0.0, le=1.0)]
+
+
+class Coherent(_Model):
+    """A single on-axis source point (sigma = 0)."""
+
+    shape: Literal["coherent"]
+
+
+class Conventional(_Model):
+    """A uniform disc of radius ``sigma`` (in units of NA)."""
+
+    shape: Literal["conventional"]
+    sigma: Annotated[float, Field(gt=0.0, le=1.0)]
+
+
+class _Ring(_Model):
+    sigma_inner: Sigma
+    sigma_outer: Annotated[float, Field(gt=0.0, le=1.0)]
+
+    @model_validator(mode="after")
+    def _inner_below_outer(self):
+        if self.sigma_inner >= self.sigma_outer:
+            raise ValueError(
+                f"sigma_inner ({self.sigma_inner}) must be below sigma_outer ({self.sigma_outer})"
+            )
+        return self
+
+
+class Annular(_Ring):
+    """A uniform ring between ``sigma_inner`` and ``sigma_outer``."""
+
+    shape: Literal["annular"]
+
+
+class Dipole(_Ring):
+    """Two ring sectors of ``opening_deg`` centred on the x or y axis.
+
+    A dipole on x (poles left and right of the pupil centre) images lines
+    that run along y (pitch along x), and does little for lines along x.
+    """
+
+    shape: Literal["dipole"]
+    opening_deg: Annotated[float, Field(gt=0.0, le=180.0)]
+    axis: Literal["x", "y"]
+
+
+class Quadrupole(_Ring):
+    """Four ring sectors of ``opening_deg``.
+
+    ``rotation_deg`` places the first pole: 45 (the default) puts the poles on
+    the diagonals, which serves lines along x and along y alike; 0 puts them
+    on the axes.
+    """
+
+    shape: Literal["quadrupole"]
+    opening_deg: Annotated[float, Field(gt=0.0, le=90.0)]
+    rotation_deg: float = 45.0
+
+
+Illumination = Annotated[
+    Coherent | Conventional | Annular | Dipole | Quadrupole, Field(discriminator="shape")
+]
+
+
+def sigma_max(illumination: Illumination) -> float:
+    """Largest source radius in units of NA."""
+    if isinstance(illumination, Coherent):
+        return 0.0
+    if isinstance(illumination, Conventional):
+        return illumination.sigma
+    return illumination.sigma_outer
+
+
+class BinaryMask(_Model):
+    """Chrome on glass: opaque amplitude 0, clear amplitude 1."""
+
+    kind: Literal["binary"]
+
+
+class AttenuatedMask(_Model):
+    """Attenuated phase shift: dark areas pass ``transmission`` (intensity) at 180 degrees."""
+
+    kind: Literal["attenuated"]
+    transmission: Annotated[float, Field(gt=0.0, lt=1.0)]
+
+
+Mask = Annotated[BinaryMask | AttenuatedMask, Field(discriminator="kind")]
+
+
+class Exposure(_Model):
+    """One scanner set-up: wavelength, numerical aperture, source and mask."""
+
+    wavelength_nm: Annotated[float, Field(gt=1.0, le=1000.0)]
+    na: Annotated[float, Field(gt=0.0, le=2.0)]
+    immersion_index: Annotated[float, Field(ge=1.0, le=2.0)] = 1.0
+    illumination: Illumination
+    mask: Mask = BinaryMask(kind="binary")
+
+    @model_validator(mode="after")
+    def _na_below_index(self):
+        if self.na >= self.immersion_index:
+            raise ValueError(
+                f"na ({self.na}) must be below immersion_index ({self.immersion_index}); "
+                "set immersion_index for an immersion scanner"
+            )
+        return self
+
+    @property
+    def lambda_over_na_nm(self) -> float:
+        return self.wavelength_nm / self.na
+
+    @property
+    def sigma_max(self) -> float:
+        return sigma_max(self.illumination)
+
+    @property
+    def cutoff_pitch_nm(self) -> float:
+        """Smallest pitch any source point can image: lambda / (NA (1 + sigma_max))."""
+        return self.wavelength_nm / (self.na * (1.0 + self.sigma_max))
+
+
+class Limits(_Model):
+    """Per-layer limits.  Every key may be set in ``[layer_defaults]`` or on a layer.
+
+    Defaults (common practice, see docs/checks.md):
+
+    * ``k1_risk_below = 0.30``: below this the pitch needs strong off-axis
+      illumination and resolution enhancement.
+    * ``k1_marginal_below = 0.40``: between the two bands the pitch is demanding.
+    * ``min_run_nm``: edges shorter than this are 2-D (line ends, jogs) and are
+      counted, not judged.  Default 0.5 lambda/NA of the layer's exposure.
+    * ``ambit_nm``: how far from an edge neighbours are looked for.  Beyond it
+      an edge counts as isolated.  Default 3 lambda/NA.
+    * ``pitch_tolerance_nm = 1.0``: sites whose pitch differs by less than this
+      belong to one pitch class (one region).
+    * ``dense_min_lines = 5``: a region of at least this many lines is a dense
+      array; 2 up to this is semi-isolated; 1 is isolated.
+    """
+
+    k1_risk_below: Annotated[float, Field(gt=0.0, lt=2.0)] | None = None
+    k1_marginal_below: Annotated[float, Field(gt=0.0, lt=2.0)] | None = None
+    min_run_nm: Annotated[float, Field(gt=0.0)] | None = None
+    ambit_nm: Annotated[float, Field(gt=0.0)] | None = None
+    pitch_tolerance_nm: Annotated[float, Field(gt=0.0)] | None = None
+    dense_min_lines: Annotated[int, Field(ge=2)] | None = None
+
+
+LIMIT_DEFAULTS = {
+    "k1_risk_below": 0.30,
+    "k1_marginal_below": 0.40,
+    "pitch_tolerance_nm": 1.0,
+    "dense_min_lines": 5,
+}
+"""Limit defaults that do not depend on the exposure (single source of truth)."""
+
+MIN_RUN_LAMBDA_NA = 0.5
+AMBIT_LAMBDA_NA = 3.0
+
+
+class LayerEntry(Limits):
+    """One ``[[layers]]`` entry of a deck."""
+
+    name: Annotated[str, Field(min_length=1, max_length=64, pattern=r"^[A-Za-z0-9_.+-]+$")]
+    source: str
+    exposure: str
+    field: Literal["clear", "dark"]
+
+    @field_validator("source")
+    @classmethod
+    def _source_is_layer_spec(cls, v: str) -> str:
+        parse_layer_spec(v)
+        return v
+
+
+class Markers(_Model):
+    """Marker layout layer/datatype per severity."""
+
+    fail: str = "700/1"
+    risk: str = "700/2"
+    marginal: str = "700/3"
+
+    @field_validator("fail", "risk", "marginal")
+    @classmethod
+    def _is_layer_spec(cls, v: str) -> str:
+        parse_layer_spec(v)
+        return v
+
+
+class DeckInfo(_Model):
+    name: str = ""
+    description: str = ""
+    drawn_scale: Literal["wafer", "mask"] = "wafer"
+    reduction: Annotated[float, Field(ge=1.0, le=10.0)] = 4.0
+
+
+class DeckFile(_Model):
+    """The whole deck as written in TOML."""
+
+    deck: DeckInfo = DeckInfo()
+    exposures: dict[str, Exposure] = Field(min_length=1)
+    layer_defaults: Limits = Limits()
+    layers: list[LayerEntry] = Field(min_length=1)
+    markers: Markers = Markers()
+
+    @model_validator(mode="after")
+    def _cross_checks(self):
+        seen_names: set[str] = set()
+        seen_sources: dict[tuple[int, int], str] = {}
+        for i, layer in enumerate(self.layers):
+            if layer.exposure not in self.exposures:
+                known = ", ".join(sorted(self.exposures)) or "none"
+                raise _KeyedError(
+                    f"layers[{i}].exposure",
+                    f"unknown exposure {layer.exposure!r} (defined: {known})",
+                )
+            if layer.name in seen_names:
+                raise _KeyedError(f"layers[{i}].name", f"duplicate layer name {layer.name!r}")
+            seen_names.add(layer.name)
+            spec = parse_layer_spec(layer.source)
+            if spec in seen_sources:
+                raise _KeyedError(
+                    f"layers[{i}].source",
+                    f"{layer.source!r} is already used by layer {seen_sources[spec]!r}",
+                )
+            seen_sources[spec] = layer.name
+        marks = {s: parse_layer_spec(getattr(self.markers, s)) for s in SEVERITIES}
+        if len(set(marks.values())) != len(marks):
+            raise _KeyedError("markers", "each severity needs its own layer/datatype")
+        return self
+
+
+class _KeyedError(ValueError):
+    """A cross-field error that knows the key it belongs to."""
+
+    def __init__(self, key: str, message: str):
+        super().__init__(message)
+        self.key = key
+
+
+# --------------------------------------------------------------------------- resolved deck
+
+
+class LayerRule:
+    """A deck layer with its exposure and every limit resolved to a number."""
+
+    __slots__ = (
+        "name", "layer", "datatype", "exposure_name", "exposure", "field",
+        "k1_risk_below", "k1_marginal_below", "min_run_nm", "ambit_nm",
+        "pitch_tolerance_nm", "dense_min_lines",
+    )  # fmt: skip
+
+    def __init__(self, entry: LayerEntry, exposure: Exposure, defaults: Limits):
+        self.name = entry.name
+        self.layer, self.datatype = parse_layer_spec(entry.source)
+        self.exposure_name = entry.exposure
+        self.exposure = exposure
+        self.field = entry.field
+
+        def pick(key: str, fallback: float) -> float:
+            own = getattr(entry, key)
+            if own is not None:
+                return own
+            shared = getattr(defaults, key)
+            return shared if shared is not None else fallback
+
+        self.k1_risk_below = pick("k1_risk_below", LIMIT_DEFAULTS["k1_risk_below"])
+        self.k1_marginal_below = pick("k1_marginal_below", LIMIT_DEFAULTS["k1_marginal_below"])
+        self.min_run_nm = pick("min_run_nm", MIN_RUN_LAMBDA_NA * exposure.lambda_over_na_nm)
+        self.ambit_nm = pick("ambit_nm", AMBIT_LAMBDA_NA * exposure.lambda_over_na_nm)
+        self.pitch_tolerance_nm = pick("pitch_tolerance_nm", LIMIT_DEFAULTS["pitch_tolerance_nm"])
+        self.dense_min_lines = int(pick("dense_min_lines", LIMIT_DEFAULTS["dense_min_lines"]))
+
+    @property
+    def source(self) -> str:
+        return f"{self.layer}/{self.datatype}"
+
+    def __repr__(self) -> str:
+        return f"LayerRule({self.name!r}, {self.source}, exposure={self.exposure_name!r})"
+
+
+class Deck:
+    """A validated deck: layers with resolved limits, markers, scale."""
+
+    def __init__(self, raw: DeckFile, path: Path | None = None):
+        self.raw = raw
+        self.path = path
+        self.name = raw.deck.name or (path.stem if path else "deck")
+        self.drawn_scale = raw.deck.drawn_scale
+        self.reduction = raw.deck.reduction
+        self.exposures = dict(raw.exposures)
+        self.layers = [
+            LayerRule(e, raw.exposures[e.exposure], raw.layer_defaults) for e in raw.layers
+        ]
+        for i, rule in enumerate(self.layers):
+            if rule.k1_risk_below > rule.k1_marginal_below:
+                raise DeckError(
+                    f"{self._where()}: layers[{i}]: k1_risk_below ({rule.k1_risk_below}) "
+                    f"must not exceed k1_marginal_below ({rule.k1_marginal_below})"
+                )
+        self.markers = {s: parse_layer_spec(getattr(raw.markers, s)) for s in SEVERITIES}
+
+    def _where(self) -> str:
+        return str(self.path) if self.path else "<deck>"
+
+    @property
+    def scale_to_wafer(self) -> float:
+        """Factor from drawn layout length to wafer length."""
+        return 1.0 / self.reduction if self.drawn_scale == "mask" else 1.0
+
+    def layer(self, name: str) -> LayerRule:
+        for rule in self.layers:
+            if rule.name == name:
+                return rule
+        known = ", ".join(r.name for r in self.layers)
+        raise DeckError(f"{self._where()}: no layer named {name!r} (deck has: {known})")
+
+
+def _format_loc(loc: tuple) -> str:
+    out = ""
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            out += ("." if out else "") + str(part)
+    return out
+
+
+def _format_validation_error(path: str, err: ValidationError, data: dict) -> str:
+    first = err.errors()[0]
+    loc = tuple(first["loc"])
+    ctx = first.get("ctx") or {}
+    inner = ctx.get("error")
+    if isinstance(inner, _KeyedError):
+        return f"{path}: {inner.key}: {inner}"
+    # Drop discriminator tags pydantic inserts into the location (e.g. 'conventional').
+    clean = []
+    node = data
+    for part in loc:
+        if isinstance(node, dict) and part in node:
+            clean.append(part)
+            node = node[part]
+        elif isinstance(node, list) and isinstance(part, int) and part < len(node):
+            clean.append(part)
+            node = node[part]
+        elif first["type"] == "extra_forbidden" and part == loc[-1]:
+            clean.append(part)
+        elif first["type"] == "missing" and part == loc[-1]:
+            clean.append(part)
+    key = _format_loc(tuple(clean)) or "(top level)"
+    msg = first["msg"]
+    kind = first["type"]
+    if kind == "extra_forbidden":
+        msg = "unknown key"
+    elif kind == "missing":
+        msg = "required key is missing"
+    elif kind == "union_tag_invalid":
+        expected = ctx.get("expected_tags", "")
+        msg = f"unknown value {ctx.get('tag')!r} (expected one of {expected})"
+    elif kind == "union_tag_not_found":
+        msg = f"missing {ctx.get('discriminator', 'tag')} key"
+    elif msg.startswith("Value error, "):
+        msg = msg[len("Value error, ") :]
+    elif kind.endswith("_type") and "input" in first:
+        msg = f"{msg}, got {type(first['input']).__name__} {first['input']!r}"
+    elif isinstance(first.get("input"), int | float | str) and not isinstance(
+        first.get("input"), bool
+    ):
+        msg = f"{msg}, got {first['input']!r}"
+    return f"{path}: {key}: {msg}"
+
+
+def parse_deck(text: str, path: Path | None = None) -> Deck:
+    """Parse and validate deck text.  Raises DeckError with a one-line message."""
+    where = str(path) if path else "<deck>"
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise DeckError(f"{where}: not valid TOML: {exc}") from None
+    try:
+        raw = DeckFile.model_validate(data)
+    except ValidationError as exc:
+        raise DeckError(_format_validation_error(where, exc, data)) from None
+    for name, exp in raw.exposures.items():
+        if not math.isfinite(exp.wavelength_nm) or not math.isfinite(exp.na):
+            raise DeckError(f"{where}: exposures.{name}: values must be finite")
+    return Deck(raw, path)
+
+
+def load_deck(path: str | Path) -> Deck:
+    """Read and validate a deck file.  Raises DeckError with a one-line message."""
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise DeckError(f"{p}: deck file not found") from None
+    except IsADirectoryError:
+        raise DeckError(f"{p}: is a directory, not a deck file") from None
+    except UnicodeDecodeError:
+        raise DeckError(f"{p}: not a text (UTF-8) file") from None
+    except OSError as exc:
+        raise DeckError(f"{p}: cannot read deck: {exc.strerror}") from None
+    return parse_deck(text, p)

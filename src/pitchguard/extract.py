@@ -1,0 +1,558 @@
+"""Extract 1-D line/space sites from the polygons of one layer.
+
+Pipeline (all in nm, as drawn):
+
+1. **Features.**  Shapes whose bounding boxes touch are grouped through an
+   R-tree; groups of more than one shape are merged with a boolean OR, so a
+   line drawn as two abutting rectangles is one feature.  Edges that come back
+   twice in opposite directions (the cut lines that join a hole to its outer
+   boundary) are dropped, and collinear edges that meet end to end are joined.
+2. **Edges.**  Every boundary is oriented with the material on its left, so
+   the outward normal of an edge with unit direction ``d`` is ``(d_y, -d_x)``.
+   Edges shorter than ``min_run_nm`` are 2-D (line ends, jogs): counted, not
+   judged.
+3. **Facing edges.**  For every long edge an R-tree query returns the edges
+   within ``ambit_nm`` on either side.  Going outward from an edge the first
+   boundary crossed is the facing edge of the neighbour (the *space*); going
+   inward it is the feature's own far side (the *width*).  Both are
+   antiparallel to the edge.  Where one neighbour faces the whole edge and no
+   other edge is nearer (the usual case in arrays) this is decided with numpy
+   for all edges at once; elsewhere the edge is cut into pieces, each with its
+   own nearest facing edge.  A piece whose nearest neighbour is not parallel,
+   or that is shorter than ``min_run_nm``, is 2-D.
+
+A *site* is one such piece: an edge interval with its width and space.  Its
+pitch is ``width + space``.  A space or width with nothing within the ambit
+is ``inf`` (isolated edge, or edge of a wide feature).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import rtree
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+
+from pitchguard.layout import PolygonSet
+
+PARALLEL_SIN = math.sin(math.radians(1.0))
+"""Edges within 1 degree of parallel count as parallel (grid snapping of
+rotated geometry tilts short edges by a fraction of a degree)."""
+
+QUERY_CHUNK = 100_000
+"""Edges queried against the R-tree per numpy batch (bounds peak memory)."""
+
+
+def _rtree(mins: np.ndarray, maxs: np.ndarray) -> rtree.index.Index:
+    ids = np.arange(len(mins), dtype=np.int64)
+    return rtree.index.Index((ids, np.ascontiguousarray(mins), np.ascontiguousarray(maxs)))
+
+
+def _query_pairs(index, mins, maxs) -> tuple[np.ndarray, np.ndarray]:
+    """All (query, hit) pairs of a bulk R-tree query, as two int64 arrays."""
+    hits, counts = index.intersection_v(np.ascontiguousarray(mins), np.ascontiguousarray(maxs))
+    q = np.repeat(np.arange(len(mins), dtype=np.int64), counts.astype(np.int64))
+    return q, hits.astype(np.int64)
+
+
+# --------------------------------------------------------------------------- features
+
+
+@dataclass(frozen=True)
+class Edges:
+    """Boundary edges of the merged features of one layer (material on the left)."""
+
+    a: np.ndarray  # (n, 2) start points
+    b: np.ndarray  # (n, 2) end points
+    feature: np.ndarray  # (n,) feature id
+    n_features: int
+
+    def __len__(self) -> int:
+        return len(self.feature)
+
+    @property
+    def length(self) -> np.ndarray:
+        return np.hypot(*(self.b - self.a).T)
+
+
+def _signed_areas(ps: PolygonSet) -> np.ndarray:
+    p = ps.points
+    s = ps.starts[:-1]
+    nxt = np.arange(len(p)) + 1
+    nxt[ps.starts[1:] - 1] = s  # last vertex of each polygon wraps to its first
+    cross = p[:, 0] * p[nxt, 1] - p[nxt, 0] * p[:, 1]
+    return 0.5 * np.add.reduceat(cross, s)
+
+
+def _ring_edges(ps: PolygonSet, ring_feature: np.ndarray, reverse: np.ndarray):
+    """Edges of every ring of ``ps``; rings flagged in ``reverse`` are walked backwards."""
+    p = ps.points
+    starts = ps.starts
+    sizes = np.diff(starts)
+    owner = np.repeat(np.arange(len(sizes)), sizes)
+    nxt = np.arange(len(p)) + 1
+    nxt[starts[1:] - 1] = starts[:-1]
+    a = p
+    b = p[nxt]
+    flip = reverse[owner]
+    a2 = np.where(flip[:, None], b, a)
+    b2 = np.where(flip[:, None], a, b)
+    return a2, b2, ring_feature[owner]
+
+
+def _drop_cut_lines(a, b, grid_nm):
+    """Drop edge pairs that run over the same segment in opposite directions."""
+    q = 1.0 / max(grid_nm * 1e-3, 1e-9)
+    fa = np.round(a * q).astype(np.int64)
+    fb = np.round(b * q).astype(np.int64)
+    fwd = np.hstack([fa, fb])
+    rev = np.hstack([fb, fa])
+    dtype = np.dtype((np.void, fwd.dtype.itemsize * 4))
+    fwd_v = np.ascontiguousarray(fwd).view(dtype).ravel()
+    rev_v = np.ascontiguousarray(rev).view(dtype).ravel()
+    return ~np.isin(fwd_v, rev_v)
+
+
+def _join_straight(a, b, feat, grid_nm):
+    """Join consecutive edges of one feature that continue in a straight line.
+
+    Edge ``k`` is joined to the edge that starts where it ends when both point
+    the same way and the shared vertex lies within 0.75 grid of the chord (grid
+    snapping after rotation, or a vertex left where a hole's cut line was
+    removed, would otherwise split one long edge into pieces).
+    """
+    q = 1.0 / max(grid_nm * 1e-3, 1e-9)
+    ka = np.round(a * q).astype(np.int64)
+    kb = np.round(b * q).astype(np.int64)
+    dtype = np.dtype((np.void, ka.dtype.itemsize * 2))
+    sa = np.ascontiguousarray(ka).view(dtype).ravel()
+    sb = np.ascontiguousarray(kb).view(dtype).ravel()
+    order = np.argsort(sa, kind="stable")
+    sa_sorted = sa[order]
+    pos = np.searchsorted(sa_sorted, sb)
+    pos_c = np.minimum(pos, len(sa) - 1)
+    found = sa_sorted[pos_c] == sb
+    # Only a vertex where exactly one edge starts is unambiguous.
+    unique_start = np.ones(len(sa), dtype=bool)
+    dup = np.concatenate([[False], sa_sorted[1:] == sa_sorted[:-1]])
+    dup_any = dup | np.concatenate([dup[1:], [False]])
+    unique_start[order] = ~dup_any
+    nxt = np.where(found, order[pos_c], -1)
+    ok = (nxt >= 0) & (nxt != np.arange(len(a)))
+    ok[ok] &= unique_start[nxt[ok]] & (feat[nxt[ok]] == feat[ok])
+    if not ok.any():
+        return a, b, feat
+    idx = np.flatnonzero(ok)
+    da = b[idx] - a[idx]
+    dn = b[nxt[idx]] - a[nxt[idx]]
+    chord = b[nxt[idx]] - a[idx]
+    clen = np.hypot(chord[:, 0], chord[:, 1])
+    dev = np.abs(chord[:, 0] * da[:, 1] - chord[:, 1] * da[:, 0]) / np.maximum(clen, 1e-12)
+    straight = (np.einsum("ij,ij->i", da, dn) > 0) & (dev <= 0.75 * grid_nm)
+    link = np.full(len(a), -1, dtype=np.int64)
+    link[idx[straight]] = nxt[idx[straight]]
+    if (link < 0).all():
+        return a, b, feat
+    has_in = np.zeros(len(a), dtype=bool)
+    has_in[link[link >= 0]] = True
+    keep_a, keep_b, keep_f = [], [], []
+    done = np.zeros(len(a), dtype=bool)
+    heads = np.flatnonzero((link >= 0) & ~has_in).tolist()
+    tol = 0.75 * grid_nm
+    for h in heads:
+        start = a[h]
+        cur = h
+        verts = [a[h]]
+        done[h] = True
+        while link[cur] >= 0 and not done[link[cur]]:
+            cand = link[cur]
+            chord = b[cand] - start
+            clen = math.hypot(chord[0], chord[1])
+            inner = np.array(verts[1:] + [b[cur]]) - start
+            devs = np.abs(chord[0] * inner[:, 1] - chord[1] * inner[:, 0]) / max(clen, 1e-12)
+            if devs.max() > tol:
+                break
+            verts.append(b[cur])
+            cur = cand
+            done[cur] = True
+        keep_a.append(start)
+        keep_b.append(b[cur])
+        keep_f.append(feat[h])
+        if link[cur] >= 0 and not done[link[cur]]:
+            heads.append(int(link[cur]))  # chain broke: the rest starts a new chain
+            has_in[link[cur]] = False
+    rest = ~done
+    a2 = np.concatenate([a[rest], np.array(keep_a).reshape(-1, 2)])
+    b2 = np.concatenate([b[rest], np.array(keep_b).reshape(-1, 2)])
+    f2 = np.concatenate([feat[rest], np.array(keep_f, dtype=feat.dtype)])
+    return a2, b2, f2
+
+
+def build_features(ps: PolygonSet, grid_nm: float) -> Edges:
+    """Merge touching shapes into features and return their oriented edges."""
+    import gdstk
+
+    n = len(ps)
+    if n == 0:
+        z = np.zeros((0, 2))
+        return Edges(z, z, np.zeros(0, dtype=np.int64), 0)
+    boxes = ps.bounding_boxes()
+    eps = grid_nm * 0.25
+    index = _rtree(boxes[:, :2] - eps, boxes[:, 2:] + eps)
+    qi, qj = _query_pairs(index, boxes[:, :2] - eps, boxes[:, 2:] + eps)
+    keep = qi < qj
+    qi, qj = qi[keep], qj[keep]
+    graph = coo_matrix((np.ones(len(qi), dtype=np.int8), (qi, qj)), shape=(n, n))
+    n_comp, label = connected_components(graph, directed=False)
+    comp_size = np.bincount(label, minlength=n_comp)
+    single = comp_size[label] == 1
+
+    # Shapes that touch nothing are features as drawn; orient them counter-clockwise.
+    singles = ps.select(single)
+    area = _signed_areas(singles) if len(singles) else np.zeros(0)
+    ok = np.abs(area) > 0
+    if not ok.all():
+        singles = singles.select(ok)
+        area = area[ok]
+    a1, b1, f1 = _ring_edges(singles, np.arange(len(singles), dtype=np.int64), area < 0)
+
+    # Groups of touching shapes are merged; the result is oriented (outer CCW, holes CW).
+    multi_idx = np.flatnonzero(~single)
+    parts = [a1[:0]], [b1[:0]], [f1[:0]]
+    n_features = len(singles)
+    if len(multi_idx):
+        merged = gdstk.boolean(
+            [gdstk.Polygon(ps.polygon(k)) for k in multi_idx], [], "or", precision=grid_nm
+        )
+        mset = PolygonSet.from_arrays(q.points for q in merged)
+        marea = _signed_areas(mset)
+        a2, b2, f2 = _ring_edges(
+            mset, np.arange(len(mset), dtype=np.int64) + n_features, marea < 0
+        )
+        n_features += len(mset)
+        parts = [a1, a2], [b1, b2], [f1, f2]
+    else:
+        parts = [a1], [b1], [f1]
+    a = np.concatenate(parts[0])
+    b = np.concatenate(parts[1])
+    feat = np.concatenate(parts[2])
+    nonzero = np.hypot(*(b - a).T) > grid_nm * 1e-3
+    a, b, feat = a[nonzero], b[nonzero], feat[nonzero]
+    keep = _drop_cut_lines(a, b, grid_nm)
+    a, b, feat = a[keep], b[keep], feat[keep]
+    if len(a):
+        a, b, feat = _join_straight(a, b, feat, grid_nm)
+    return Edges(a, b, feat, n_features)
+
+
+# --------------------------------------------------------------------------- sites
+
+
+@dataclass
+class Sites:
+    """1-D sites of one layer, one row per edge piece (struct of arrays)."""
+
+    edge: np.ndarray  # index into Edges
+    feature: np.ndarray
+    u0: np.ndarray  # piece start along the edge, nm from the edge start
+    u1: np.ndarray
+    origin: np.ndarray  # (n, 2) edge start point
+    direction: np.ndarray  # (n, 2) unit direction of the edge (material on the left)
+    width: np.ndarray  # nm, inf when the far side is beyond the ambit
+    space: np.ndarray  # nm, inf when no neighbour within the ambit
+
+    def __len__(self) -> int:
+        return len(self.edge)
+
+    @property
+    def pitch(self) -> np.ndarray:
+        return self.width + self.space
+
+    @property
+    def run(self) -> np.ndarray:
+        return self.u1 - self.u0
+
+    @property
+    def normal(self) -> np.ndarray:
+        """Outward unit normal (towards the space)."""
+        return np.stack([self.direction[:, 1], -self.direction[:, 0]], axis=1)
+
+    @property
+    def orientation_deg(self) -> np.ndarray:
+        """Direction of the lines in degrees, 0 <= angle < 180 (0: lines along x)."""
+        ang = np.degrees(np.arctan2(self.direction[:, 1], self.direction[:, 0])) % 180.0
+        return np.where(ang >= 180.0 - 1e-9, 0.0, ang)
+
+    def corners(self) -> np.ndarray:
+        """``(n, 4, 2)``: the rectangle from the far side of the line to the neighbour.
+
+        Infinite width or space is clipped to zero (the rectangle then covers
+        only the finite side).
+        """
+        w = np.where(np.isfinite(self.width), self.width, 0.0)
+        s = np.where(np.isfinite(self.space), self.space, 0.0)
+        d, nrm, o = self.direction, self.normal, self.origin
+        p0 = o + d * self.u0[:, None]
+        p1 = o + d * self.u1[:, None]
+        return np.stack(
+            [p0 - nrm * w[:, None], p1 - nrm * w[:, None], p1 + nrm * s[:, None],
+             p0 + nrm * s[:, None]],
+            axis=1,
+        )  # fmt: skip
+
+    def midpoints(self) -> np.ndarray:
+        return self.origin + self.direction * (0.5 * (self.u0 + self.u1))[:, None]
+
+    def take(self, idx) -> Sites:
+        return Sites(*(getattr(self, f)[idx] for f in _SITE_FIELDS))
+
+    @classmethod
+    def concat(cls, parts: list[Sites]) -> Sites:
+        return cls(*(np.concatenate([getattr(p, f) for p in parts]) for f in _SITE_FIELDS))
+
+    @classmethod
+    def empty(cls) -> Sites:
+        z = np.zeros(0)
+        zi = np.zeros(0, dtype=np.int64)
+        return cls(zi, zi, z, z, np.zeros((0, 2)), np.zeros((0, 2)), z, z)
+
+
+_SITE_FIELDS = ("edge", "feature", "u0", "u1", "origin", "direction", "width", "space")
+
+
+@dataclass
+class ExtractStats:
+    """Counts a scan reports besides its findings."""
+
+    shapes: int = 0
+    features: int = 0
+    edges: int = 0
+    short_edges: int = 0  # edges below min_run: 2-D, not judged
+    pieces_2d: int = 0  # pieces of long edges that are 2-D (non-parallel neighbour, short)
+    sites: int = 0
+    isolated_sites: int = 0  # no neighbour within the ambit
+    extra: dict = field(default_factory=dict)
+
+    def add(self, other: ExtractStats) -> None:
+        for k in ("shapes", "features", "edges", "short_edges", "pieces_2d", "sites",
+                  "isolated_sites"):  # fmt: skip
+            setattr(self, k, getattr(self, k) + getattr(other, k))
+
+
+_INF = math.inf
+
+
+def _envelope(length: float, cands: list[tuple], eps: float) -> list[tuple]:
+    """Nearest candidate along an edge, as pieces ``(u0, u1, dist, facing, j)``.
+
+    ``cands`` rows are ``(lo, hi, dist, facing, j)``: candidate ``j`` covers
+    ``[lo, hi]`` of the edge at distance ``dist``; ``facing`` is False for an
+    edge that is not antiparallel (a 2-D blocker).
+    """
+    cuts = {0.0, length}
+    for lo, hi, *_ in cands:
+        cuts.add(min(max(lo, 0.0), length))
+        cuts.add(min(max(hi, 0.0), length))
+    pts = sorted(cuts)
+    out: list[tuple] = []
+    for u0, u1 in zip(pts[:-1], pts[1:], strict=True):
+        if u1 - u0 <= eps:
+            continue
+        mid = 0.5 * (u0 + u1)
+        best = (_INF, True, -1)
+        for lo, hi, dist, facing, j in cands:
+            if lo <= mid <= hi and dist < best[0]:
+                best = (dist, facing, j)
+        if out and out[-1][2:] == best and abs(out[-1][1] - u0) <= eps:
+            out[-1] = (out[-1][0], u1, *best)
+        else:
+            out.append((u0, u1, *best))
+    return out
+
+
+def find_sites(
+    edges: Edges, min_run_nm: float, ambit_nm: float, grid_nm: float
+) -> tuple[Sites, ExtractStats]:
+    """Sites of all long edges: width, space and run length per edge piece."""
+    stats = ExtractStats(features=edges.n_features, edges=len(edges))
+    if len(edges) == 0:
+        return Sites.empty(), stats
+    a, b = edges.a, edges.b
+    vec = b - a
+    length = np.hypot(vec[:, 0], vec[:, 1])
+    d = vec / length[:, None]
+    nrm = np.stack([d[:, 1], -d[:, 0]], axis=1)
+    long_ = length >= min_run_nm
+    stats.short_edges = int((~long_).sum())
+    eps = grid_nm * 0.5
+
+    emin = np.minimum(a, b) - eps
+    emax = np.maximum(a, b) + eps
+    index = _rtree(emin, emax)
+    long_idx = np.flatnonzero(long_)
+
+    simple_parts: list[Sites] = []
+    complex_rows: dict[int, list] = {}
+
+    for c0 in range(0, len(long_idx), QUERY_CHUNK):
+        ids = long_idx[c0 : c0 + QUERY_CHUNK]
+        sweep = nrm[ids] * ambit_nm
+        corners = np.stack([a[ids] + sweep, a[ids] - sweep, b[ids] + sweep, b[ids] - sweep])
+        qmin = corners.min(axis=0)
+        qmax = corners.max(axis=0)
+        qk, j = _query_pairs(index, qmin, qmax)
+        i = ids[qk]
+        other = j != i
+        i, j = i[other], j[other]
+
+        di, ni, ai = d[i], nrm[i], a[i]
+        pa = a[j] - ai
+        pb = b[j] - ai
+        ua = np.einsum("ij,ij->i", pa, di)
+        ub = np.einsum("ij,ij->i", pb, di)
+        va = np.einsum("ij,ij->i", pa, ni)
+        vb = np.einsum("ij,ij->i", pb, ni)
+        li = length[i]
+        lo = np.maximum(np.minimum(ua, ub), 0.0)
+        hi = np.minimum(np.maximum(ua, ub), li)
+        overlap = hi - lo > eps
+        # v of edge j at the ends of the overlap (linear along j).
+        du = ub - ua
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t_lo = np.where(np.abs(du) > 1e-12, (lo - ua) / du, 0.0)
+            t_hi = np.where(np.abs(du) > 1e-12, (hi - ua) / du, 1.0)
+        v_lo = va + t_lo * (vb - va)
+        v_hi = va + t_hi * (vb - va)
+        v_mid = 0.5 * (v_lo + v_hi)
+        side = np.where(v_mid > 0, 1, -1)  # +1: space side, -1: width side
+        same_sign = np.sign(v_lo) == np.sign(v_hi)
+        dist = np.where(same_sign, np.minimum(np.abs(v_lo), np.abs(v_hi)), 0.0)
+        cross = di[:, 0] * d[j, 1] - di[:, 1] * d[j, 0]
+        dot = np.einsum("ij,ij->i", di, d[j])
+        parallel = np.abs(cross) < PARALLEL_SIN
+        facing = parallel & (dot < 0)
+        # Same-direction parallel edges can never be the first boundary crossed.
+        relevant = overlap & (dist <= ambit_nm) & ~(parallel & (dot > 0)) & (np.abs(v_mid) > eps)
+        # A parallel edge at distance ~0 is collinear with i (an edge of the next
+        # feature along the line, or a grid artefact); it bounds nothing across.
+        relevant &= ~(parallel & (dist <= eps))
+        i, j, lo, hi, dist, side, facing = (
+            x[relevant] for x in (i, j, lo, hi, dist, side, facing)
+        )
+        # Facing parallel edges use their mean distance (robust to tiny tilts).
+        dist = np.where(facing, np.abs(v_mid[relevant]), dist)
+
+        # Per (edge, side): nearest candidate; simple when it is facing,
+        # covers the whole edge, and nothing else is nearer.
+        key = i * 2 + (side > 0)
+        order = np.lexsort((~facing, dist, key))
+        key_s, dist_s, fac_s = key[order], dist[order], facing[order]
+        lo_s, hi_s = lo[order], hi[order]
+        first = np.concatenate([[True], key_s[1:] != key_s[:-1]])
+        fk = key_s[first]
+        slack = 4 * eps  # snapped rotated geometry may end a grid short of the corner
+        covers = fac_s[first] & (lo_s[first] <= slack) & (hi_s[first] >= length[fk // 2] - slack)
+        nearest = dist_s[first]
+        # Second-nearest must not tie with a non-facing blocker at the same distance.
+        simple_key = fk[covers]
+        simple_dist = nearest[covers]
+
+        nq = len(ids)
+        local = {int(e): k for k, e in enumerate(ids)}
+        width = np.full(nq, _INF)
+        space = np.full(nq, _INF)
+        good_w = np.zeros(nq, dtype=bool)
+        good_s = np.zeros(nq, dtype=bool)
+        loc_idx = np.searchsorted(ids, simple_key // 2)
+        is_space = (simple_key % 2) == 1
+        space[loc_idx[is_space]] = simple_dist[is_space]
+        width[loc_idx[~is_space]] = simple_dist[~is_space]
+        good_s[loc_idx[is_space]] = True
+        good_w[loc_idx[~is_space]] = True
+        # A side with no candidate at all is simple too (nothing within the ambit).
+        has = np.zeros(2 * nq, dtype=bool)
+        has[np.searchsorted(ids, fk // 2) * 2 + (fk % 2)] = True
+        good_s |= ~has[1::2]
+        good_w |= ~has[0::2]
+        simple = good_s & good_w
+        del local
+
+        sid = ids[simple]
+        simple_parts.append(
+            Sites(
+                edge=sid,
+                feature=edges.feature[sid],
+                u0=np.zeros(len(sid)),
+                u1=length[sid],
+                origin=a[sid],
+                direction=d[sid],
+                width=width[simple],
+                space=space[simple],
+            )
+        )
+        # Everything else is resolved piece by piece.
+        hard = np.zeros(len(length), dtype=bool)
+        hard[ids[~simple]] = True
+        sel = hard[i]
+        for row in zip(
+            i[sel].tolist(), side[sel].tolist(), lo[sel].tolist(), hi[sel].tolist(),
+            dist[sel].tolist(), facing[sel].tolist(), j[sel].tolist(), strict=True,
+        ):  # fmt: skip
+            complex_rows.setdefault(row[0], []).append(row[1:])
+        for e in ids[~simple].tolist():
+            complex_rows.setdefault(e, [])
+
+    pieces = _resolve_complex(complex_rows, length, min_run_nm, eps, stats)
+    if pieces:
+        e_arr = np.array([p[0] for p in pieces], dtype=np.int64)
+        simple_parts.append(
+            Sites(
+                edge=e_arr,
+                feature=edges.feature[e_arr],
+                u0=np.array([p[1] for p in pieces]),
+                u1=np.array([p[2] for p in pieces]),
+                origin=a[e_arr],
+                direction=d[e_arr],
+                width=np.array([p[3] for p in pieces]),
+                space=np.array([p[4] for p in pieces]),
+            )
+        )
+    sites = Sites.concat(simple_parts) if simple_parts else Sites.empty()
+    stats.sites = len(sites)
+    stats.isolated_sites = int(np.isinf(sites.space).sum())
+    return sites, stats
+
+
+def _resolve_complex(rows: dict, length, min_run_nm, eps, stats) -> list[tuple]:
+    """Cut edges with several nearest neighbours into pieces (pure Python, rare)."""
+    out = []
+    for e, cands in rows.items():
+        L = float(length[e])
+        space_c = [(lo, hi, dist, fac, j) for s, lo, hi, dist, fac, j in cands if s > 0]
+        width_c = [(lo, hi, dist, fac, j) for s, lo, hi, dist, fac, j in cands if s < 0]
+        sp = _envelope(L, space_c, eps)
+        wp = _envelope(L, width_c, eps)
+        cuts = sorted({p[0] for p in sp} | {p[1] for p in sp} | {p[0] for p in wp}
+                      | {p[1] for p in wp})  # fmt: skip
+        merged: list[list] = []
+        for u0, u1 in zip(cuts[:-1], cuts[1:], strict=True):
+            if u1 - u0 <= eps:
+                continue
+            mid = 0.5 * (u0 + u1)
+            s = next((p for p in sp if p[0] <= mid <= p[1]), (0, 0, _INF, True, -1))
+            w = next((p for p in wp if p[0] <= mid <= p[1]), (0, 0, _INF, True, -1))
+            one_d = s[3] and w[3]
+            tag = (one_d, w[2], s[2], w[4], s[4])
+            if merged and merged[-1][2] == tag and abs(merged[-1][1] - u0) <= eps:
+                merged[-1][1] = u1
+            else:
+                merged.append([u0, u1, tag])
+        for u0, u1, (one_d, wd, sd, _, _) in merged:
+            if one_d and u1 - u0 >= min_run_nm:
+                out.append((e, u0, u1, wd, sd))
+            elif u1 - u0 > 4 * eps:  # slivers of a grid or two are snapping noise
+                stats.pieces_2d += 1
+    return out

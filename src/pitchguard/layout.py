@@ -1,0 +1,291 @@
+"""Read GDSII / OASIS layouts into flat, packed polygons per deck layer.
+
+Geometry leaves this module as :class:`PolygonSet`: all vertices of all
+polygons of one layer in one ``(n, 2)`` float64 array (nanometres, as drawn)
+plus start offsets.  Packed arrays are cheap to pickle, so a region of a layout
+can be shipped to another process as is.
+
+gdstk does the format work: the whole hierarchy is flattened by
+``Cell.get_polygons`` (references with rotation, x-reflection and
+magnification, arrays, OASIS repetitions on references and on polygons, paths
+turned into polygons).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import tempfile
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from pitchguard.errors import LayoutError
+
+GDS_MAGIC = b"\x00\x06\x00\x02"
+OASIS_MAGIC = b"%SEMI-OASIS\r\n"
+
+DEFAULT_MAX_SHAPES = 20_000_000
+"""Refuse to flatten more shapes than this (about 5 GB of polygons)."""
+
+
+@dataclass(frozen=True)
+class PolygonSet:
+    """Polygons of one layer, packed.
+
+    ``points[starts[k]:starts[k + 1]]`` are the vertices of polygon ``k`` in nm.
+    """
+
+    points: np.ndarray
+    starts: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.starts) - 1
+
+    @classmethod
+    def empty(cls) -> PolygonSet:
+        return cls(np.zeros((0, 2)), np.zeros(1, dtype=np.int64))
+
+    @classmethod
+    def from_arrays(cls, polygons: Iterable[np.ndarray], scale: float = 1.0) -> PolygonSet:
+        polys = [np.asarray(p, dtype=np.float64) for p in polygons]
+        if not polys:
+            return cls.empty()
+        sizes = np.fromiter((len(p) for p in polys), dtype=np.int64, count=len(polys))
+        starts = np.zeros(len(polys) + 1, dtype=np.int64)
+        np.cumsum(sizes, out=starts[1:])
+        points = np.concatenate(polys, axis=0)
+        if scale != 1.0:
+            points *= scale
+        return cls(points, starts)
+
+    def polygon(self, k: int) -> np.ndarray:
+        return self.points[self.starts[k] : self.starts[k + 1]]
+
+    def __iter__(self) -> Iterator[np.ndarray]:
+        for k in range(len(self)):
+            yield self.polygon(k)
+
+    def bounding_boxes(self) -> np.ndarray:
+        """``(n, 4)`` array of ``x0, y0, x1, y1`` per polygon."""
+        if len(self) == 0:
+            return np.zeros((0, 4))
+        s = self.starts[:-1]
+        mins = np.minimum.reduceat(self.points, s, axis=0)
+        maxs = np.maximum.reduceat(self.points, s, axis=0)
+        return np.hstack([mins, maxs])
+
+    def select(self, keep: np.ndarray) -> PolygonSet:
+        """The polygons whose index is in the boolean mask ``keep``."""
+        idx = np.flatnonzero(keep)
+        if len(idx) == len(self):
+            return self
+        return PolygonSet.from_arrays((self.polygon(k) for k in idx))
+
+
+@dataclass(frozen=True)
+class Layout:
+    """What a scan needs from a layout file."""
+
+    path: Path
+    format: str  # "gds" or "oas"
+    unit_m: float  # user unit in metres
+    grid_nm: float  # database unit in nanometres
+    cells: tuple[str, ...]  # the top cells scanned
+    layers: dict[tuple[int, int], PolygonSet]
+
+    @property
+    def nm_per_user_unit(self) -> float:
+        return self.unit_m * 1e9
+
+    @property
+    def shape_count(self) -> int:
+        return sum(len(p) for p in self.layers.values())
+
+
+def sniff_format(path: Path) -> str:
+    """Return "gds" or "oas" from the file's first bytes."""
+    try:
+        with path.open("rb") as fh:
+            head = fh.read(len(OASIS_MAGIC))
+    except FileNotFoundError:
+        raise LayoutError(f"{path}: layout file not found") from None
+    except IsADirectoryError:
+        raise LayoutError(f"{path}: is a directory, not a layout file") from None
+    except OSError as exc:
+        raise LayoutError(f"{path}: cannot read layout: {exc.strerror}") from None
+    if head.startswith(OASIS_MAGIC):
+        return "oas"
+    if head.startswith(GDS_MAGIC):
+        return "gds"
+    if not head:
+        raise LayoutError(f"{path}: file is empty")
+    raise LayoutError(f"{path}: not a GDSII or OASIS file (unrecognised header)")
+
+
+@contextlib.contextmanager
+def captured_stderr() -> Iterator[list[str]]:
+    """Capture what C code writes straight to file descriptor 2.
+
+    gdstk prints ``[GDSTK] ...`` warnings there, sometimes with bytes that are
+    not UTF-8; they are collected as text lines instead.
+    """
+    lines: list[str] = []
+    try:
+        fd = os.dup(2)
+    except OSError:  # no stderr at all
+        yield lines
+        return
+    with tempfile.TemporaryFile() as tmp:
+        os.dup2(tmp.fileno(), 2)
+        try:
+            yield lines
+        finally:
+            os.dup2(fd, 2)
+            os.close(fd)
+            tmp.seek(0)
+            text = tmp.read().decode("utf-8", errors="replace")
+            lines.extend(line for line in text.splitlines() if line.strip())
+
+
+def _find_cycle(cells) -> list[str] | None:
+    """A reference cycle among ``cells`` as a list of names, or None."""
+    graph = {c.name: [d.name for d in c.dependencies(False) if hasattr(d, "name")] for c in cells}
+    state: dict[str, int] = {}
+    stack: list[str] = []
+
+    def visit(name: str) -> list[str] | None:
+        state[name] = 1
+        stack.append(name)
+        for nxt in graph.get(name, ()):
+            if state.get(nxt) == 1:
+                return stack[stack.index(nxt) :] + [nxt]
+            if nxt not in state:
+                found = visit(nxt)
+                if found:
+                    return found
+        stack.pop()
+        state[name] = 2
+        return None
+
+    for name in graph:
+        if name not in state:
+            found = visit(name)
+            if found:
+                return found
+    return None
+
+
+def _count_shapes(cell, wanted: set[tuple[int, int]], memo: dict) -> int:
+    """Number of polygons ``cell`` flattens to on ``wanted`` layers, without flattening."""
+    key = cell.name
+    if key in memo:
+        return memo[key]
+    n = 0
+    for p in list(cell.polygons) + list(cell.paths):
+        layers = zip(p.layers, p.datatypes, strict=True) if hasattr(p, "layers") else [
+            (p.layer, p.datatype)
+        ]
+        hits = sum(1 for ld in layers if ld in wanted)
+        if hits:
+            rep = p.repetition.size if p.repetition.size else 1
+            n += hits * rep
+    for ref in cell.references:
+        if isinstance(ref.cell, str) or ref.cell is None:
+            continue  # an unresolved reference (rawcell or missing): nothing to flatten
+        rep = ref.repetition.size if ref.repetition.size else 1
+        n += rep * _count_shapes(ref.cell, wanted, memo)
+    memo[key] = n
+    return n
+
+
+def read_layout(
+    path: str | Path,
+    layers: Iterable[tuple[int, int]],
+    cell: str | None = None,
+    max_shapes: int = DEFAULT_MAX_SHAPES,
+    warnings: list[str] | None = None,
+) -> Layout:
+    """Read ``path`` and flatten the given ``(layer, datatype)`` pairs to nm polygons.
+
+    Parameters
+    ----------
+    path
+        GDSII or OASIS file; the format is taken from the file's header.
+    layers
+        Only these layer/datatype pairs are loaded (the rest is ignored).
+    cell
+        Top cell to scan; by default every top-level cell.
+    max_shapes
+        Refuse (LayoutError) a layout that would flatten to more polygons.
+    warnings
+        If given, library warnings met while reading are appended to it.
+    """
+    import gdstk
+
+    p = Path(path)
+    fmt = sniff_format(p)
+    wanted = set(layers)
+    with captured_stderr() as noise:
+        try:
+            if fmt == "gds":
+                lib = gdstk.read_gds(str(p), filter=wanted or None)
+            else:
+                lib = gdstk.read_oas(str(p))
+        except (OSError, RuntimeError, MemoryError, ValueError) as exc:
+            what = str(exc) or type(exc).__name__
+            raise LayoutError(f"{p}: cannot read {fmt.upper()} file: {what}") from None
+    if warnings is not None:
+        warnings.extend(noise)
+
+    cycle = _find_cycle(lib.cells)
+    if cycle:
+        raise LayoutError(f"{p}: cell reference cycle: {' -> '.join(cycle)}")
+
+    if cell is not None:
+        tops = [c for c in lib.cells if c.name == cell]
+        if not tops:
+            raise LayoutError(f"{p}: no cell named {cell!r}")
+    else:
+        tops = lib.top_level()
+        tops = [c for c in tops if isinstance(c, gdstk.Cell)]
+        if not tops:
+            raise LayoutError(f"{p}: layout has no top cell")
+
+    memo: dict = {}
+    total = sum(_count_shapes(c, wanted, memo) for c in tops)
+    if total > max_shapes:
+        raise LayoutError(
+            f"{p}: deck layers flatten to {total:,} shapes, over the limit of {max_shapes:,} "
+            "(raise --max-shapes or scan a --region)"
+        )
+
+    scale = lib.unit * 1e9
+    out: dict[tuple[int, int], PolygonSet] = {}
+    with captured_stderr() as noise:
+        for ld in sorted(wanted):
+            polys = []
+            for top in tops:
+                polys.extend(
+                    q.points
+                    for q in top.get_polygons(
+                        apply_repetitions=True,
+                        include_paths=True,
+                        depth=None,
+                        layer=ld[0],
+                        datatype=ld[1],
+                    )
+                )
+            out[ld] = PolygonSet.from_arrays(polys, scale)
+    if warnings is not None:
+        warnings.extend(noise)
+    return Layout(
+        path=p,
+        format=fmt,
+        unit_m=lib.unit,
+        grid_nm=lib.precision * 1e9,
+        cells=tuple(c.name for c in tops),
+        layers=out,
+    )

@@ -1,0 +1,118 @@
+"""The whole chain for one layout: read -> extract -> classify.
+
+:func:`scan_polygons` is a pure function of the polygons of a region, so a
+layout can later be cut into tiles and scanned in parallel.  :func:`scan_layout`
+reads a file and calls it.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from pitchguard.classify import Finding, classify_layer
+from pitchguard.deck import Deck
+from pitchguard.extract import ExtractStats, build_features, find_sites
+from pitchguard.layout import DEFAULT_MAX_SHAPES, Layout, PolygonSet, read_layout
+
+Progress = Callable[[str, int, int], None]
+"""``progress(stage, done, total)``: called as layers are processed."""
+
+
+@dataclass
+class LayerStats:
+    """What one layer of a scan counted."""
+
+    name: str
+    source: str
+    shapes: int = 0
+    extract: ExtractStats = field(default_factory=ExtractStats)
+    seconds: float = 0.0
+
+
+@dataclass
+class ScanResult:
+    findings: list[Finding]
+    layers: list[LayerStats]
+    layout: Layout | None = None
+    warnings: list[str] = field(default_factory=list)
+    seconds: float = 0.0
+
+
+def _in_region(ps: PolygonSet, region_nm, margin: float) -> PolygonSet:
+    if region_nm is None or len(ps) == 0:
+        return ps
+    x0, y0, x1, y1 = region_nm
+    bb = ps.bounding_boxes()
+    keep = (bb[:, 2] >= x0 - margin) & (bb[:, 0] <= x1 + margin)
+    keep &= (bb[:, 3] >= y0 - margin) & (bb[:, 1] <= y1 + margin)
+    return ps.select(keep)
+
+
+def scan_polygons(
+    polygons: dict[tuple[int, int], PolygonSet],
+    deck: Deck,
+    grid_nm: float,
+    region_nm: tuple[float, float, float, float] | None = None,
+    progress: Progress | None = None,
+) -> tuple[list[Finding], list[LayerStats]]:
+    """Scan the deck's layers in ``polygons`` (nm, as drawn).
+
+    With ``region_nm`` only sites whose midpoint lies in the region are judged;
+    shapes up to one ambit outside it are still seen as neighbours.
+    """
+    findings: list[Finding] = []
+    stats: list[LayerStats] = []
+    scale = deck.scale_to_wafer
+    for k, rule in enumerate(deck.layers):
+        t0 = time.perf_counter()
+        if progress:
+            progress(rule.name, k, len(deck.layers))
+        # Deck lengths are wafer-scale; the geometry is as drawn.
+        ambit = rule.ambit_nm / scale
+        min_run = rule.min_run_nm / scale
+        ps = polygons.get((rule.layer, rule.datatype), PolygonSet.empty())
+        ps = _in_region(ps, region_nm, 2 * ambit)
+        edges = build_features(ps, grid_nm)
+        sites, ex = find_sites(edges, min_run, ambit, grid_nm)
+        ex.shapes = len(ps)
+        if region_nm is not None and len(sites):
+            mid = sites.midpoints()
+            x0, y0, x1, y1 = region_nm
+            inside = (mid[:, 0] >= x0) & (mid[:, 0] < x1) & (mid[:, 1] >= y0) & (mid[:, 1] < y1)
+            sites = sites.take(np.flatnonzero(inside))
+        findings.extend(classify_layer(sites, rule, scale))
+        stats.append(
+            LayerStats(rule.name, rule.source, len(ps), ex, time.perf_counter() - t0)
+        )
+    if progress:
+        progress("done", len(deck.layers), len(deck.layers))
+    return findings, stats
+
+
+def scan_layout(
+    path: str | Path,
+    deck: Deck,
+    cell: str | None = None,
+    region_um: tuple[float, float, float, float] | None = None,
+    max_shapes: int = DEFAULT_MAX_SHAPES,
+    progress: Progress | None = None,
+) -> ScanResult:
+    """Read ``path`` and scan it with ``deck``."""
+    t0 = time.perf_counter()
+    warnings: list[str] = []
+    layout = read_layout(
+        path,
+        [(r.layer, r.datatype) for r in deck.layers],
+        cell=cell,
+        max_shapes=max_shapes,
+        warnings=warnings,
+    )
+    region_nm = tuple(v * 1000.0 for v in region_um) if region_um else None
+    findings, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
+    findings.sort(key=lambda f: (f.severity_rank, f.k1, f.layer, f.bbox_nm))
+    return ScanResult(findings, stats, layout, warnings, time.perf_counter() - t0)
