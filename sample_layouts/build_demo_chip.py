@@ -1,0 +1,149 @@
+"""Rebuild the demo chip layouts (demo_chip.gds and demo_chip.oas).
+
+Scenario (invented for the demo): "Wren-3", a small mixed-signal test chip.
+Its front end is checked with ``rules/demo_chip.toml``: active on a KrF annular
+tool, poly on a dry ArF tool, metal1 (dark field) on an ArF immersion tool with
+an x dipole.  Every layer carries line/space arrays comfortably inside, near
+and past what its tool resolves, placed through the hierarchy the checker must
+see through: arrays of references, rotated (90 and 45 degrees), mirrored and
+magnified references, lines drawn as abutting pieces, paths, and (in the OASIS
+copy) polygon repetitions.  A layer the deck does not name (63/0, annotation)
+holds shapes at an impossible pitch that the scan must ignore.
+
+Usage::
+
+    python sample_layouts/build_demo_chip.py [OUTPUT_DIR]
+
+All dimensions are in nm at wafer scale; the layout unit is 1 um with a 1 nm
+grid.  Expected verdicts with the demo deck are listed in EXPECTED below.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import gdstk
+
+UM = 1e-3  # nm -> um (layout user unit)
+
+ACTIVE = (1, 0)
+POLY = (7, 0)
+METAL1 = (17, 0)
+ANNOTATION = (63, 0)  # not in the deck: must be ignored
+
+# (block, layer, drawn pitch nm, expected severity with rules/demo_chip.toml)
+EXPECTED = [
+    ("active relaxed, pitch 400", "active", 400, None),
+    ("active rotated 90, pitch 220", "active", 220, "marginal"),
+    ("active, pitch 180", "active", 180, "risk"),
+    ("active magnified x2, pitch 160", "active", 160, "fail"),
+    ("poly paths, pitch 300", "poly", 300, None),
+    ("poly split in pieces, pitch 150", "poly", 150, "marginal"),
+    ("poly rotated 45, pitch 120", "poly", 120, "risk"),
+    ("poly mirrored array, pitch 110", "poly", 110, "fail"),
+    ("metal1 relaxed, pitch 180", "metal1", 180, None),
+    ("metal1 vertical arrayed, pitch 80", "metal1", 80, "risk"),
+    ("metal1 vertical, pitch 100", "metal1", 100, "marginal"),
+    ("metal1 horizontal, pitch 100 (dipole on x)", "metal1", 100, "fail"),
+    ("metal1 vertical, pitch 70", "metal1", 70, "fail"),
+]
+
+
+def line_cell(
+    lib: gdstk.Library,
+    name: str,
+    layer: tuple[int, int],
+    pitch: float,
+    width: float,
+    count: int,
+    length: float,
+    pieces: int = 1,
+) -> gdstk.Cell:
+    """A cell with ``count`` vertical lines (along y), each drawn as ``pieces`` abutting rectangles."""
+    cell = lib.new_cell(name)
+    for k in range(count):
+        x0 = k * pitch
+        for p in range(pieces):
+            y0 = length * p / pieces
+            y1 = length * (p + 1) / pieces
+            cell.add(
+                gdstk.rectangle(
+                    (x0 * UM, y0 * UM), ((x0 + width) * UM, y1 * UM),
+                    layer=layer[0], datatype=layer[1],
+                )  # fmt: skip
+            )
+    return cell
+
+
+def build() -> gdstk.Library:
+    lib = gdstk.Library("WREN3", unit=1e-6, precision=1e-9)
+    top = lib.new_cell("WREN3_TOP")
+
+    # ------------------------------------------------------------ active (KrF annular)
+    relaxed = line_cell(lib, "ACT_RELAXED", ACTIVE, 400, 200, 12, 4000)
+    top.add(gdstk.Reference(relaxed, (0, 0)))
+    act220 = line_cell(lib, "ACT_P220", ACTIVE, 220, 110, 16, 3000)
+    top.add(gdstk.Reference(act220, (10, 0.5), rotation=1.5707963267948966))  # 90 deg: lines along x
+    act180 = line_cell(lib, "ACT_P180", ACTIVE, 180, 90, 16, 3000)
+    top.add(gdstk.Reference(act180, (12, 0)))
+    # Drawn at pitch 80 and placed with magnification 2: pitch 160 in the chip.
+    act_small = line_cell(lib, "ACT_P80_HALF", ACTIVE, 80, 40, 12, 1500)
+    top.add(gdstk.Reference(act_small, (18, 0), magnification=2.0))
+    # An isolated wide line and a pad: nothing to flag.
+    top.add(gdstk.rectangle((24, 0), (24.6, 4), layer=ACTIVE[0], datatype=ACTIVE[1]))
+    top.add(gdstk.rectangle((26, 0), (29, 3), layer=ACTIVE[0], datatype=ACTIVE[1]))
+
+    # ------------------------------------------------------------ poly (dry ArF)
+    poly_paths = lib.new_cell("POLY_PATHS_P300")
+    for k in range(10):
+        x = (k * 300 + 75) * UM
+        poly_paths.add(
+            gdstk.FlexPath([(x, 0), (x, 3)], 0.15, layer=POLY[0], datatype=POLY[1])
+        )
+    top.add(gdstk.Reference(poly_paths, (0, 8)))
+    poly150 = line_cell(lib, "POLY_P150_PIECES", POLY, 150, 75, 16, 3000, pieces=3)
+    top.add(gdstk.Reference(poly150, (5, 8)))
+    poly120 = line_cell(lib, "POLY_P120", POLY, 120, 60, 14, 2500)
+    top.add(gdstk.Reference(poly120, (11, 8), rotation=0.7853981633974483))  # 45 deg
+    poly110 = line_cell(lib, "POLY_P110", POLY, 110, 55, 10, 1500)
+    # Mirrored (x reflection: lines stay vertical) and arrayed three times along y.
+    top.add(
+        gdstk.Reference(
+            poly110, (16, 14.5), x_reflection=True, columns=1, rows=3, spacing=(0, 2.2)
+        )
+    )
+
+    # ------------------------------------------------------------ metal1 (immersion, dipole x)
+    m1_relaxed = lib.new_cell("M1_P180")
+    line = gdstk.rectangle((0, 0), (0.09, 4), layer=METAL1[0], datatype=METAL1[1])
+    line.repetition = gdstk.Repetition(columns=12, rows=1, spacing=(0.18, 0))  # OASIS keeps it compact
+    m1_relaxed.add(line)
+    top.add(gdstk.Reference(m1_relaxed, (0, 18)))
+    m1_80 = line_cell(lib, "M1_P80", METAL1, 80, 40, 10, 1200)
+    top.add(gdstk.Reference(m1_80, (4, 18), columns=3, rows=2, spacing=(1.2, 1.6)))
+    m1_100v = line_cell(lib, "M1_P100", METAL1, 100, 50, 12, 2000)
+    top.add(gdstk.Reference(m1_100v, (9, 18)))
+    top.add(gdstk.Reference(m1_100v, (16, 18.5), rotation=1.5707963267948966))  # horizontal
+    m1_70 = line_cell(lib, "M1_P70", METAL1, 70, 35, 12, 1500)
+    top.add(gdstk.Reference(m1_70, (20, 18)))
+
+    # ------------------------------------------------------------ ignored layer
+    notes = line_cell(lib, "NOTES_P20", ANNOTATION, 20, 10, 20, 1000)
+    top.add(gdstk.Reference(notes, (24, 18)))
+    top.add(gdstk.Label("WREN-3 demo chip", (0, -1), layer=ANNOTATION[0]))
+    return lib
+
+
+def main(argv: list[str]) -> int:
+    out = Path(argv[1]) if len(argv) > 1 else Path(__file__).resolve().parent
+    out.mkdir(parents=True, exist_ok=True)
+    lib = build()
+    lib.write_gds(str(out / "demo_chip.gds"))
+    lib.write_oas(str(out / "demo_chip.oas"))
+    print(f"wrote {out / 'demo_chip.gds'} and {out / 'demo_chip.oas'}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main(sys.argv))

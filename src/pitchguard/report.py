@@ -1,0 +1,302 @@
+"""Render scan results: exit code, JSON, marker layout, terminal table.
+
+Every format renders the same :class:`~pitchguard.classify.Finding` records;
+none recomputes physics.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import tempfile
+from collections import Counter
+from pathlib import Path
+
+from pitchguard import __version__
+from pitchguard.classify import Finding
+from pitchguard.deck import SEVERITIES, Deck
+from pitchguard.errors import EXIT_FINDINGS, EXIT_OK, OutputError
+from pitchguard.scan import ScanResult
+
+CAUTION = (
+    "pitchguard is a screening aid built on a scalar thin-mask optical model; "
+    "sign-off stays with the fab's calibrated models and processes."
+)
+
+FAIL_ON_CHOICES = (*SEVERITIES, "never")
+
+
+def exit_code(findings: list[Finding], fail_on: str) -> int:
+    """0 when no finding is at or above ``fail_on``, else 1 (the one place this is decided)."""
+    if fail_on == "never":
+        return EXIT_OK
+    limit = SEVERITIES.index(fail_on)
+    return EXIT_FINDINGS if any(f.severity_rank <= limit for f in findings) else EXIT_OK
+
+
+def severity_counts(findings: list[Finding]) -> dict[str, int]:
+    c = Counter(f.severity for f in findings)
+    return {s: c.get(s, 0) for s in SEVERITIES}
+
+
+# --------------------------------------------------------------------------- JSON
+
+
+def _num(x: float) -> float | None:
+    return x if math.isfinite(x) else None
+
+
+def finding_to_dict(f: Finding) -> dict:
+    return {
+        "layer": f.layer,
+        "source": f.source,
+        "exposure": f.exposure,
+        "check": f.check,
+        "severity": f.severity,
+        "pitch_nm": f.pitch_nm,
+        "pitch_max_nm": f.pitch_max_nm,
+        "width_nm": _num(f.width_nm),
+        "space_nm": _num(f.space_nm),
+        "wafer_pitch_nm": f.wafer_pitch_nm,
+        "k1": f.k1,
+        "orientation_deg": f.orientation_deg,
+        "bbox_um": list(f.bbox_um),
+        "centre_um": list(f.centre_um),
+        "outline_um": [[round(x / 1000.0, 6), round(y / 1000.0, 6)] for x, y in f.outline_nm],
+        "orders": list(f.orders),
+        "orders_on_axis": list(f.orders_on_axis),
+        "two_beam_fraction": f.two_beam_fraction,
+        "cutoff_pitch_nm": f.cutoff_pitch_nm,
+        "lines": f.lines,
+        "periodicity": f.periodicity,
+        "sites": f.sites,
+        "run_nm": f.run_nm,
+        "limit": f.limit,
+        "message": f.message,
+        "hint": f.hint,
+    }
+
+
+def to_json(result: ScanResult, deck: Deck, fail_on: str) -> dict:
+    lay = result.layout
+    by_layer = {}
+    for st in result.layers:
+        counts = severity_counts([f for f in result.findings if f.layer == st.name])
+        ex = st.extract
+        by_layer[st.name] = {
+            "source": st.source,
+            **counts,
+            "shapes": st.shapes,
+            "features": ex.features,
+            "edges": ex.edges,
+            "sites": ex.sites,
+            "edges_2d": ex.short_edges,
+            "pieces_2d": ex.pieces_2d,
+            "isolated_edges": ex.isolated_sites,
+            "seconds": round(st.seconds, 3),
+        }
+    return {
+        "tool": {"name": "pitchguard", "version": __version__},
+        "caution": CAUTION,
+        "layout": {
+            "path": str(lay.path) if lay else None,
+            "format": lay.format if lay else None,
+            "cells": list(lay.cells) if lay else [],
+            "unit_m": lay.unit_m if lay else None,
+            "grid_nm": lay.grid_nm if lay else None,
+        },
+        "deck": {
+            "path": str(deck.path) if deck.path else None,
+            "name": deck.name,
+            "drawn_scale": deck.drawn_scale,
+            "reduction": deck.reduction,
+        },
+        "findings": [finding_to_dict(f) for f in result.findings],
+        "summary": {
+            "findings": len(result.findings),
+            "by_severity": severity_counts(result.findings),
+            "by_layer": by_layer,
+            "fail_on": fail_on,
+            "exit_code": exit_code(result.findings, fail_on),
+            "seconds": round(result.seconds, 3),
+            "warnings": result.warnings,
+        },
+    }
+
+
+# --------------------------------------------------------------------------- files
+
+
+def _check_not_input(out: Path, inputs: list[Path]) -> None:
+    for p in inputs:
+        try:
+            if out.exists() and p.exists() and out.samefile(p):
+                raise OutputError(f"{out}: refusing to overwrite an input file")
+        except OSError:
+            continue
+        if out.resolve() == p.resolve():
+            raise OutputError(f"{out}: refusing to overwrite an input file")
+
+
+def atomic_write(out: Path, write, inputs: list[Path]) -> None:
+    """Write via a temporary file in the same folder, then rename over ``out``.
+
+    ``write(tmp_path)`` produces the content.  A failure leaves any existing
+    ``out`` untouched; ``out`` may never be one of ``inputs``.
+    """
+    out = Path(out)
+    _check_not_input(out, inputs)
+    folder = out.parent if str(out.parent) else Path(".")
+    if not folder.is_dir():
+        raise OutputError(f"{out}: folder {folder} does not exist")
+    if out.is_dir():
+        raise OutputError(f"{out}: is a directory")
+    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=out.suffix, dir=folder)
+    os.close(fd)
+    try:
+        write(Path(tmp))
+        os.replace(tmp, out)
+    except OSError as exc:
+        raise OutputError(f"{out}: cannot write: {exc.strerror or exc}") from None
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def write_json(out: Path, payload: dict, inputs: list[Path]) -> None:
+    def w(tmp: Path) -> None:
+        tmp.write_text(json.dumps(payload, indent=2, allow_nan=False) + "\n", encoding="utf-8")
+
+    atomic_write(out, w, inputs)
+
+
+MARKER_CELL = "PITCHGUARD_MARKERS"
+_INT32 = 2**31 - 1
+
+
+def marker_label(f: Finding) -> str:
+    return f"{f.severity} {f.check} {f.layer} p={f.pitch_nm:.1f}nm k1={f.k1:.3f}"
+
+
+def write_markers(out: Path, result: ScanResult, deck: Deck, inputs: list[Path]) -> None:
+    """Marker layout: one polygon and one text label per finding, a layer per severity.
+
+    Units (user unit and database grid) are copied from the scanned layout so
+    the markers overlay it exactly.  The format follows the extension.
+    """
+    import gdstk
+
+    out = Path(out)
+    ext = out.suffix.lower()
+    if ext not in (".gds", ".gds2", ".gdsii", ".oas", ".oasis"):
+        raise OutputError(f"{out}: marker file must end in .gds or .oas")
+    lay = result.layout
+    unit_m = lay.unit_m if lay else 1e-6
+    grid_m = (lay.grid_nm if lay else 1.0) * 1e-9
+    per_unit = unit_m * 1e9  # nm per user unit
+    lib = gdstk.Library("PITCHGUARD", unit=unit_m, precision=grid_m)
+    cell = lib.new_cell(MARKER_CELL)
+    limit_nm = _INT32 * grid_m * 1e9
+    for f in result.findings:
+        layer, datatype = deck.markers[f.severity]
+        pts = [(x / per_unit, y / per_unit) for x, y in f.outline_nm]
+        if any(abs(c) > limit_nm / per_unit for p in pts for c in p):
+            raise OutputError(f"{out}: marker coordinates exceed the 32-bit range of the grid")
+        cell.add(gdstk.Polygon(pts, layer=layer, datatype=datatype))
+        cx = sum(p[0] for p in pts) / 4
+        cy = sum(p[1] for p in pts) / 4
+        cell.add(gdstk.Label(marker_label(f), (cx, cy), layer=layer, texttype=datatype))
+
+    def w(tmp: Path) -> None:
+        if ext in (".oas", ".oasis"):
+            lib.write_oas(str(tmp))
+        else:
+            lib.write_gds(str(tmp))
+
+    atomic_write(out, w, inputs)
+
+
+# --------------------------------------------------------------------------- terminal
+
+SEVERITY_STYLE = {"fail": "bold red", "risk": "bold yellow", "marginal": "magenta"}
+
+
+def _orders_text(orders: tuple[int, ...]) -> str:
+    if not orders:
+        return "-"
+    if orders == tuple(range(orders[0], orders[-1] + 1)) and orders[0] == -orders[-1]:
+        return f"0, ±1..{orders[-1]}" if orders[-1] > 1 else ("0, ±1" if orders[-1] else "0")
+    return ", ".join(f"{o:+d}" if o else "0" for o in orders)
+
+
+def one_line_summary(result: ScanResult, fail_on: str) -> str:
+    c = severity_counts(result.findings)
+    code = exit_code(result.findings, fail_on)
+    verdict = "FAILED" if code else "passed"
+    shapes = sum(s.shapes for s in result.layers)
+    return (
+        f"pitchguard: {verdict} (fail-on {fail_on}): {c['fail']} fail, {c['risk']} risk, "
+        f"{c['marginal']} marginal in {len(result.layers)} layers, {shapes:,} shapes, "
+        f"{result.seconds:.1f} s"
+    )
+
+
+def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> None:
+    """Counts per layer and severity, then the worst regions."""
+    from rich.table import Table
+
+    counts = Table(title="Findings per layer", title_justify="left", show_edge=False)
+    counts.add_column("layer")
+    counts.add_column("source")
+    for s in SEVERITIES:
+        counts.add_column(s, justify="right", style=SEVERITY_STYLE[s])
+    counts.add_column("sites", justify="right")
+    counts.add_column("isolated", justify="right")
+    counts.add_column("2-D edges", justify="right")
+    counts.add_column("shapes", justify="right")
+    for st in result.layers:
+        c = severity_counts([f for f in result.findings if f.layer == st.name])
+        ex = st.extract
+        counts.add_row(
+            st.name, st.source, *(str(c[s]) for s in SEVERITIES), f"{ex.sites:,}",
+            f"{ex.isolated_sites:,}", f"{ex.short_edges + ex.pieces_2d:,}", f"{st.shapes:,}",
+        )  # fmt: skip
+    console.print(counts)
+
+    if result.findings:
+        shown = result.findings[:top]
+        worst = Table(
+            title=f"Worst regions ({len(shown)} of {len(result.findings)})",
+            title_justify="left",
+            show_edge=False,
+        )
+        for col, just in (
+            ("#", "right"), ("severity", "left"), ("layer", "left"), ("centre x, y (µm)", "right"),
+            ("pitch nm", "right"), ("w / s nm", "right"), ("k1", "right"), ("orders", "left"),
+            ("lines", "right"), ("check", "left"),
+        ):  # fmt: skip
+            worst.add_column(col, justify=just)
+        for k, f in enumerate(shown, 1):
+            cx, cy = f.centre_um
+            worst.add_row(
+                str(k),
+                f"[{SEVERITY_STYLE[f.severity]}]{f.severity}[/]",
+                f.layer,
+                f"{cx:.3f}, {cy:.3f}",
+                f"{f.pitch_nm:.1f}",
+                f"{f.width_nm:.0f} / {f.space_nm:.0f}",
+                f"{f.k1:.3f}",
+                _orders_text(f.orders),
+                str(f.lines),
+                f.check,
+            )
+        console.print()
+        console.print(worst)
+        if len(result.findings) > top:
+            console.print(f"  … {len(result.findings) - top} more (see --json / --markers)")
+    for w in result.warnings[:5]:
+        console.print(f"[dim]layout library: {w}[/]")
+    console.print()
+    console.print(one_line_summary(result, fail_on))
+    console.print(f"[dim]{CAUTION}[/]")
