@@ -339,7 +339,7 @@ def worker_baseline(args) -> dict:
     t0 = time.perf_counter()
     out["shapes"] = _flatten_pack(lib, [LAYER])
     out["baseline"] = time.perf_counter() - t0
-    if args.gds:
+    if args.write_gds:
         with tempfile.TemporaryDirectory(prefix="pitchguard-bench-") as tmp:
             path = Path(tmp) / f"gen_{args.size}.gds"
             t0 = time.perf_counter()
@@ -402,6 +402,7 @@ def main(argv=None) -> int:
     ap.add_argument("--file", help=argparse.SUPPRESS)
     ap.add_argument("--deck", help=argparse.SUPPRESS)
     ap.add_argument("--trace", action="store_true", help=argparse.SUPPRESS)
+    ap.add_argument("--write-gds", action="store_true", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
 
     if args.worker:
@@ -430,10 +431,8 @@ def main(argv=None) -> int:
     for label, extra in jobs:
         print(f"  running {label} ...", flush=True)
         ex = run_worker("extract", extra, args.timeout)
-        base_extra = extra + ([] if args.gds or "--file" in extra else [])
-        if "--file" not in extra and args.gds:
-            base_extra = extra + ["--gds"]
-        bl = run_worker("baseline", base_extra, args.timeout)
+        gds = ["--write-gds"] if args.gds and "--file" not in extra else []
+        bl = run_worker("baseline", extra + gds, args.timeout)
         tr = run_worker("extract", extra + ["--trace"], args.timeout) if args.trace_pass else {}
         for r in (ex, bl, tr):
             if "error" in r:

@@ -1,6 +1,6 @@
 """Judge sites against a layer's rules and merge them into regions (findings).
 
-Checks (stable identifiers; see docs/checks.md):
+Checks (stable identifiers; see "Checks" in README.md):
 
 ``unresolvable-pitch`` (severity ``fail``)
     No source point sends the 0th and a 1st diffraction order through the

@@ -175,7 +175,7 @@ class Exposure(_Model):
 class Limits(_Model):
     """Per-layer limits.  Every key may be set in ``[layer_defaults]`` or on a layer.
 
-    Defaults (common practice, see docs/checks.md):
+    Defaults (common practice, see "Checks" in README.md):
 
     * ``k1_risk_below = 0.30``: below this the pitch needs strong off-axis
       illumination and resolution enhancement.

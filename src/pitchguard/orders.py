@@ -1,6 +1,6 @@
 """Diffraction orders through the pupil, and k1, for a line/space pitch.
 
-Scalar, thin-mask picture (see docs/physics.md):
+Scalar, thin-mask picture (see "Physics model" in README.md):
 
 * A grating of pitch ``p`` diffracts into orders at spatial frequency
   ``f_n = n / p`` along the pitch direction.  The projection lens passes
