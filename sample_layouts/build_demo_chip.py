@@ -20,6 +20,7 @@ grid.  Expected verdicts with the demo deck are listed in EXPECTED below.
 
 from __future__ import annotations
 
+import datetime
 import sys
 from pathlib import Path
 
@@ -32,21 +33,22 @@ POLY = (7, 0)
 METAL1 = (17, 0)
 ANNOTATION = (63, 0)  # not in the deck: must be ignored
 
-# (block, layer, drawn pitch nm, expected severity with rules/demo_chip.toml)
+# (block, layer, drawn pitch nm, line direction deg, expected severity with
+# rules/demo_chip.toml; None: no finding).  Lines along y are 90 degrees.
 EXPECTED = [
-    ("active relaxed, pitch 400", "active", 400, None),
-    ("active rotated 90, pitch 220", "active", 220, "marginal"),
-    ("active, pitch 180", "active", 180, "risk"),
-    ("active magnified x2, pitch 160", "active", 160, "fail"),
-    ("poly paths, pitch 300", "poly", 300, None),
-    ("poly split in pieces, pitch 150", "poly", 150, "marginal"),
-    ("poly rotated 45, pitch 120", "poly", 120, "risk"),
-    ("poly mirrored array, pitch 110", "poly", 110, "fail"),
-    ("metal1 relaxed, pitch 180", "metal1", 180, None),
-    ("metal1 vertical arrayed, pitch 80", "metal1", 80, "risk"),
-    ("metal1 vertical, pitch 100", "metal1", 100, "marginal"),
-    ("metal1 horizontal, pitch 100 (dipole on x)", "metal1", 100, "fail"),
-    ("metal1 vertical, pitch 70", "metal1", 70, "fail"),
+    ("active relaxed, pitch 400", "active", 400, 90, None),
+    ("active rotated 90, pitch 220", "active", 220, 0, "marginal"),
+    ("active, pitch 180", "active", 180, 90, "risk"),
+    ("active magnified x2, pitch 160", "active", 160, 90, "fail"),
+    ("poly paths, pitch 300", "poly", 300, 90, None),
+    ("poly split in pieces, pitch 150", "poly", 150, 90, "marginal"),
+    ("poly rotated 45, pitch 120", "poly", 120, 135, "risk"),
+    ("poly mirrored array, pitch 110", "poly", 110, 90, "fail"),
+    ("metal1 relaxed, pitch 180", "metal1", 180, 90, None),
+    ("metal1 vertical arrayed, pitch 80", "metal1", 80, 90, "risk"),
+    ("metal1 vertical, pitch 100", "metal1", 100, 90, "marginal"),
+    ("metal1 horizontal, pitch 100 (dipole on x)", "metal1", 100, 0, "fail"),
+    ("metal1 vertical, pitch 70", "metal1", 70, 90, "fail"),
 ]
 
 
@@ -139,7 +141,9 @@ def main(argv: list[str]) -> int:
     out = Path(argv[1]) if len(argv) > 1 else Path(__file__).resolve().parent
     out.mkdir(parents=True, exist_ok=True)
     lib = build()
-    lib.write_gds(str(out / "demo_chip.gds"))
+    # A fixed timestamp keeps the file byte-identical from one rebuild to the next.
+    stamp = datetime.datetime(2026, 1, 1, 0, 0, 0)
+    lib.write_gds(str(out / "demo_chip.gds"), timestamp=stamp)
     lib.write_oas(str(out / "demo_chip.oas"))
     print(f"wrote {out / 'demo_chip.gds'} and {out / 'demo_chip.oas'}")
     return 0

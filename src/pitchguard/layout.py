@@ -236,7 +236,8 @@ def read_layout(
                 lib = gdstk.read_oas(str(p))
         except (OSError, RuntimeError, MemoryError, ValueError) as exc:
             what = str(exc) or type(exc).__name__
-            raise LayoutError(f"{p}: cannot read {fmt.upper()} file: {what}") from None
+            label = "GDSII" if fmt == "gds" else "OASIS"
+            raise LayoutError(f"{p}: cannot read {label} file: {what}") from None
     if warnings is not None:
         warnings.extend(noise)
 

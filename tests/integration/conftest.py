@@ -1,0 +1,67 @@
+"""Shared helpers for whole-scan tests."""
+
+from __future__ import annotations
+
+import textwrap
+from pathlib import Path
+
+import gdstk
+import pytest
+
+from pitchguard.cli import main
+
+REPO = Path(__file__).resolve().parents[2]
+SAMPLE_GDS = REPO / "sample_layouts" / "demo_chip.gds"
+SAMPLE_OAS = REPO / "sample_layouts" / "demo_chip.oas"
+DEMO_DECK = REPO / "rules" / "demo_chip.toml"
+
+# Dry ArF, conventional sigma 0.8: cutoff = 193 / (0.93 * 1.8) = 115.29 nm
+# (lambda / (NA (1 + sigma_max)), arithmetic); k1 = 0.6 at pitch 249.0 nm.
+DRY_ARF_DECK = textwrap.dedent(
+    """
+    [exposures.arf]
+    wavelength_nm = 193.0
+    na = 0.93
+    illumination = { shape = "conventional", sigma = 0.8 }
+    mask = { kind = "binary" }
+
+    [[layers]]
+    name = "poly"
+    source = "7/0"
+    exposure = "arf"
+    field = "clear"
+    """
+)
+DRY_ARF_CUTOFF_NM = 193.0 / (0.93 * 1.8)
+
+
+def run_cli(capsys, *argv: str) -> tuple[int, str, str]:
+    """Run the command line in-process; return (exit code, stdout, stderr)."""
+    code = main([str(a) for a in argv])
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def line_array_cell(
+    lib: gdstk.Library, name: str, layer: tuple[int, int], pitch_nm: float, width_nm: float,
+    count: int, length_nm: float, pieces: int = 1,
+) -> gdstk.Cell:  # fmt: skip
+    """Vertical lines (along y) in a 1 um / 1 nm library."""
+    cell = lib.new_cell(name)
+    for k in range(count):
+        x = k * pitch_nm * 1e-3
+        for p in range(pieces):
+            y0 = length_nm * 1e-3 * p / pieces
+            y1 = length_nm * 1e-3 * (p + 1) / pieces
+            cell.add(
+                gdstk.rectangle((x, y0), (x + width_nm * 1e-3, y1), layer=layer[0],
+                                datatype=layer[1])  # fmt: skip
+            )
+    return cell
+
+
+@pytest.fixture
+def dry_deck(tmp_path: Path) -> Path:
+    p = tmp_path / "dry.toml"
+    p.write_text(DRY_ARF_DECK)
+    return p

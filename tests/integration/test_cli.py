@@ -1,0 +1,264 @@
+"""The command line as a user meets it: exit codes, outputs, bad input."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import gdstk
+import pytest
+
+from pitchguard.deck import load_deck
+from pitchguard.report import CAUTION
+
+from .conftest import DEMO_DECK, REPO, SAMPLE_GDS, SAMPLE_OAS, run_cli
+
+sys.path.insert(0, str(REPO / "sample_layouts"))
+from build_demo_chip import EXPECTED  # noqa: E402
+
+
+@pytest.fixture(scope="module")
+def demo_json(tmp_path_factory) -> dict:
+    out = tmp_path_factory.mktemp("demo") / "f.json"
+    from pitchguard.cli import main
+
+    assert main(["scan", str(SAMPLE_GDS), "--rules", str(DEMO_DECK), "--json", str(out),
+                 "--quiet"]) == 1  # fmt: skip
+    return json.loads(out.read_text())
+
+
+def test_sample_scan_shows_every_severity(demo_json):
+    sev = demo_json["summary"]["by_severity"]
+    assert sev["fail"] > 0 and sev["risk"] > 0 and sev["marginal"] > 0
+    assert demo_json["caution"] == CAUTION
+
+
+@pytest.mark.parametrize(("block", "layer", "pitch", "angle", "severity"), EXPECTED)
+def test_sample_blocks_get_their_expected_verdict(demo_json, block, layer, pitch, angle, severity):
+    """Each block of the demo chip, as listed by its build script."""
+    found = {
+        f["severity"]
+        for f in demo_json["findings"]
+        if f["layer"] == layer
+        and abs(f["pitch_nm"] - pitch) <= 1.0
+        and abs(f["orientation_deg"] - angle) < 0.5
+    }
+    if severity is None:
+        assert found == set(), block
+    else:
+        assert found == {severity}, block
+
+
+def test_sample_ignores_layer_not_in_deck(demo_json):
+    # Layer 63/0 holds a 20 nm pitch the deck does not name.
+    assert all(f["pitch_nm"] > 50 for f in demo_json["findings"])
+    assert set(demo_json["summary"]["by_layer"]) == {"active", "poly", "metal1"}
+
+
+def test_json_finding_fields(demo_json):
+    f = demo_json["findings"][0]
+    for key in ("layer", "severity", "pitch_nm", "width_nm", "space_nm", "k1",
+                "orientation_deg", "bbox_um", "orders"):  # fmt: skip
+        assert key in f
+    assert f["severity"] in ("fail", "risk", "marginal")
+    x0, y0, x1, y1 = f["bbox_um"]
+    assert x0 < x1 and y0 < y1
+    # Findings are sorted worst first.
+    ranks = [("fail", "risk", "marginal").index(g["severity"]) for g in demo_json["findings"]]
+    assert ranks == sorted(ranks)
+
+
+def test_json_coordinates_are_micrometres_whatever_the_unit(tmp_path, capsys, dry_deck):
+    """The same array in a 1 nm-unit library and a 1 um-unit library: same bbox_um."""
+    boxes = []
+    for unit in (1e-6, 1e-9):
+        lib = gdstk.Library(unit=unit, precision=1e-9)
+        cell = lib.new_cell("TOP")
+        s = 1e-9 / unit  # nm -> user units
+        for k in range(8):
+            x = (1000 + k * 110) * s
+            cell.add(gdstk.rectangle((x, 2000 * s), (x + 55 * s, 3000 * s), layer=7))
+        path = tmp_path / f"u{unit:g}.gds"
+        lib.write_gds(str(path))
+        out = tmp_path / f"u{unit:g}.json"
+        code, _, _ = run_cli(capsys, "scan", path, "--rules", dry_deck, "--json", out, "-q")
+        assert code == 1
+        boxes.append(json.loads(out.read_text())["findings"][0]["bbox_um"])
+    assert boxes[0] == pytest.approx(boxes[1])
+    assert boxes[0] == pytest.approx([1.0, 2.0, 1.825, 3.0])  # 7 pitches + one width
+
+
+@pytest.mark.parametrize("ext", [".gds", ".oas"])
+def test_markers_one_polygon_and_label_per_finding(tmp_path, capsys, ext, demo_json):
+    out = tmp_path / f"markers{ext}"
+    code, _, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--markers", out, "-q")
+    assert code == 1
+    lib = gdstk.read_gds(str(out)) if ext == ".gds" else gdstk.read_oas(str(out))
+    (cell,) = lib.cells
+    assert len(cell.polygons) == len(demo_json["findings"])
+    assert len(cell.labels) == len(demo_json["findings"])
+    deck = load_deck(DEMO_DECK)
+    by_layer = {}
+    for p in cell.polygons:
+        by_layer.setdefault((p.layer, p.datatype), 0)
+        by_layer[(p.layer, p.datatype)] += 1
+    expected = {deck.markers[s]: n for s, n in demo_json["summary"]["by_severity"].items() if n}
+    assert by_layer == expected
+    assert any(lbl.text.startswith("fail unresolvable-pitch") for lbl in cell.labels)
+    assert lib.unit == pytest.approx(1e-6) and lib.precision == pytest.approx(1e-9)
+
+
+def test_oasis_sample_gives_same_findings_as_gdsii(tmp_path, capsys, demo_json):
+    out = tmp_path / "oas.json"
+    code, _, _ = run_cli(capsys, "scan", SAMPLE_OAS, "--rules", DEMO_DECK, "--json", out, "-q")
+    assert code == 1
+    oas = json.loads(out.read_text())
+    key = lambda f: (f["layer"], f["severity"], f["pitch_nm"], tuple(f["bbox_um"]))  # noqa: E731
+    assert sorted(map(key, oas["findings"])) == sorted(map(key, demo_json["findings"]))
+
+
+@pytest.mark.parametrize(
+    ("fail_on", "code"), [("fail", 1), ("risk", 1), ("marginal", 1), ("never", 0)]
+)
+def test_fail_on_sets_exit_code(capsys, fail_on, code):
+    got, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--fail-on",
+                          fail_on, "-q")  # fmt: skip
+    assert got == code
+    assert out.startswith("pitchguard: ")
+
+
+def test_relaxed_only_layout_exits_zero(tmp_path, capsys, dry_deck):
+    lib = gdstk.Library()
+    cell = lib.new_cell("TOP")
+    for k in range(10):
+        cell.add(gdstk.rectangle((k * 0.26, 0), (k * 0.26 + 0.13, 2), layer=7))
+    path = tmp_path / "relaxed.gds"
+    lib.write_gds(str(path))
+    code, out, _ = run_cli(capsys, "scan", path, "--rules", dry_deck, "--fail-on", "marginal")
+    assert code == 0
+    assert "0 fail, 0 risk, 0 marginal" in out
+
+
+def test_quiet_prints_one_line(capsys):
+    code, out, err = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q")
+    assert code == 1
+    assert out.count("\n") == 1
+    assert out.startswith("pitchguard: FAILED (fail-on fail): ")
+
+
+def test_table_lists_layers_and_worst_regions(capsys):
+    code, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--top", "3")
+    assert code == 1
+    assert "Findings per layer" in out and "Worst regions (3 of" in out
+    for layer in ("active", "poly", "metal1"):
+        assert layer in out
+    assert "sign-off stays with the fab" in out
+
+
+# ----------------------------------------------------------------------------- bad input
+
+
+def _one_line_error(code: int, err: str, *needles: str) -> None:
+    assert code == 2
+    lines = err.strip().splitlines()
+    assert len(lines) == 1, err
+    assert lines[0].startswith("pitchguard: error: ")
+    assert "Traceback" not in err
+    for n in needles:
+        assert n in lines[0]
+
+
+def test_missing_layout(tmp_path, capsys):
+    code, _, err = run_cli(capsys, "scan", tmp_path / "nope.gds", "--rules", DEMO_DECK)
+    _one_line_error(code, err, "nope.gds", "not found")
+
+
+def test_not_a_layout(tmp_path, capsys):
+    bad = tmp_path / "notes.gds"
+    bad.write_text("this is not a layout\n")
+    code, _, err = run_cli(capsys, "scan", bad, "--rules", DEMO_DECK)
+    _one_line_error(code, err, "notes.gds", "not a GDSII or OASIS file")
+
+
+@pytest.mark.parametrize("src", [SAMPLE_GDS, SAMPLE_OAS])
+def test_truncated_layout(tmp_path, capsys, src):
+    bad = tmp_path / f"cut{src.suffix}"
+    bad.write_bytes(src.read_bytes()[:100])
+    code, _, err = run_cli(capsys, "scan", bad, "--rules", DEMO_DECK)
+    _one_line_error(code, err, bad.name, "cannot read")
+
+
+def test_bad_deck_one_line(tmp_path, capsys):
+    deck = tmp_path / "bad.toml"
+    deck.write_text(DEMO_DECK.read_text().replace('source = "7/0"', 'source = "7-0"'))
+    code, _, err = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", deck)
+    _one_line_error(code, err, "bad.toml", "layers[1].source")
+
+
+def test_rules_check_ok_and_bad(tmp_path, capsys):
+    code, out, _ = run_cli(capsys, "rules", "check", DEMO_DECK)
+    assert code == 0 and "valid deck" in out
+    deck = tmp_path / "bad.toml"
+    deck.write_text(DEMO_DECK.read_text().replace("na = 1.35", "na = 1.50"))
+    code, _, err = run_cli(capsys, "rules", "check", deck)
+    _one_line_error(code, err, "exposures.arf_imm_dipole_x", "immersion_index")
+
+
+def test_missing_cell(capsys):
+    code, _, err = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--cell", "NOPE")
+    _one_line_error(code, err, "no cell named 'NOPE'")
+
+
+def test_output_may_not_overwrite_input(tmp_path, capsys):
+    layout = tmp_path / "chip.gds"
+    layout.write_bytes(SAMPLE_GDS.read_bytes())
+    before = layout.read_bytes()
+    code, _, err = run_cli(capsys, "scan", layout, "--rules", DEMO_DECK, "--markers", layout)
+    _one_line_error(code, err, "refusing to overwrite an input file")
+    assert layout.read_bytes() == before
+
+
+def test_bad_marker_extension(tmp_path, capsys):
+    code, _, err = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--markers",
+                           tmp_path / "m.txt")  # fmt: skip
+    _one_line_error(code, err, "must end in .gds or .oas")
+
+
+def test_reference_cycle_is_refused(tmp_path, capsys):
+    lib = gdstk.Library()
+    a = lib.new_cell("A")
+    b = lib.new_cell("B")
+    a.add(gdstk.rectangle((0, 0), (1, 1), layer=7))
+    a.add(gdstk.Reference(b))
+    b.add(gdstk.Reference(a))
+    path = tmp_path / "cycle.gds"
+    lib.write_gds(str(path))
+    code, _, err = run_cli(capsys, "scan", path, "--rules", DEMO_DECK, "--cell", "A")
+    _one_line_error(code, err, "cycle")
+
+
+def test_too_many_shapes_is_refused(capsys):
+    code, _, err = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--max-shapes", "10")
+    _one_line_error(code, err, "over the limit of 10")
+
+
+def test_usage_error_exit_2(capsys):
+    code = None
+    with pytest.raises(SystemExit) as exc:
+        run_cli(capsys, "scan", SAMPLE_GDS)  # --rules missing
+    code = exc.value.code
+    assert code == 2
+
+
+def test_console_script_runs_without_traceback(tmp_path):
+    """The installed entry point, in a real process (exit codes as the shell sees them)."""
+    exe = Path(sys.executable).parent / "pitchguard"
+    assert exe.exists(), "console script not installed"
+    ok = subprocess.run([exe, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q"],
+                        capture_output=True, text=True)  # fmt: skip
+    assert ok.returncode == 1 and ok.stdout.startswith("pitchguard: FAILED")
+    bad = subprocess.run([exe, "scan", tmp_path / "missing.oas", "--rules", DEMO_DECK],
+                         capture_output=True, text=True)  # fmt: skip
+    assert bad.returncode == 2 and "Traceback" not in bad.stderr

@@ -1,0 +1,390 @@
+"""Unit tests for diffraction orders, cutoff pitch and k1 (pitchguard.orders).
+
+Every expected value is computed here from a closed-form result of scalar
+grating optics, with its source named beside it:
+
+* order n of pitch p sits at spatial frequency n/p; the lens passes
+  |f| <= NA/lambda; a source point at sigma shifts every order by
+  sigma NA/lambda (grating equation and pupil cutoff, any Fourier-optics text,
+  e.g. Goodman, Introduction to Fourier Optics);
+* cutoff pitch lambda / (NA (1 + reach)), reach being how far the source
+  extends along the pitch direction (domain.md; arithmetic from the above);
+* k1 = (p/2) NA / lambda (domain.md, half-pitch form);
+* plane geometry for the reach of ring sectors and for the area of the
+  intersection of two discs.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from pitchguard.deck import Exposure
+from pitchguard.orders import analyse_pitch, cutoff_pitch, pitch_direction
+
+PRECISION = 1e-9  # relative: closed-form quantities the code computes exactly
+REACH_PRECISION = 1e-3  # relative: sector reach found from a boundary sampled every 0.25 deg
+FRACTION_TOL = 0.005  # absolute: source fractions come from a 0.02-sigma grid
+MARGIN = 0.01  # 1 % either side of a cutoff: far beyond any sampling error
+
+# Wavelengths and NAs of real scanner families (common practice, domain.md).
+ARF_NM = 193.0
+KRF_NM = 248.0
+I_LINE_NM = 365.0
+EUV_NM = 13.5
+DRY_ARF_NA = 0.93
+IMMERSION_NA = 1.35
+WATER_INDEX = 1.44  # water at 193 nm (common practice)
+
+
+def exposure(illumination: dict, wavelength_nm=ARF_NM, na=DRY_ARF_NA, index=1.0) -> Exposure:
+    return Exposure.model_validate(
+        {
+            "wavelength_nm": wavelength_nm,
+            "na": na,
+            "immersion_index": index,
+            "illumination": illumination,
+        }
+    )
+
+
+COHERENT = {"shape": "coherent"}
+CONVENTIONAL_07 = {"shape": "conventional", "sigma": 0.7}
+ANNULAR_05_08 = {"shape": "annular", "sigma_inner": 0.5, "sigma_outer": 0.8}
+
+
+def dipole(opening_deg: float, axis: str = "x", inner: float = 0.6, outer: float = 0.9) -> dict:
+    return {
+        "shape": "dipole",
+        "sigma_inner": inner,
+        "sigma_outer": outer,
+        "opening_deg": opening_deg,
+        "axis": axis,
+    }
+
+
+def quadrupole(opening_deg: float, inner: float = 0.6, outer: float = 0.9, **extra) -> dict:
+    return {
+        "shape": "quadrupole",
+        "sigma_inner": inner,
+        "sigma_outer": outer,
+        "opening_deg": opening_deg,
+        **extra,
+    }
+
+
+def cutoff_formula(wavelength_nm: float, na: float, reach: float) -> float:
+    """lambda / (NA (1 + reach)): domain.md, from the grating equation."""
+    return wavelength_nm / (na * (1.0 + reach))
+
+
+# --------------------------------------------------------------------------- (a) orders on axis
+
+
+@pytest.mark.parametrize("orientation_deg", [0.0, 90.0, 45.0])
+def test_250nm_pitch_at_193nm_na093_passes_orders_0_and_pm1_on_axis(orientation_deg):
+    # Common practice: dry ArF, 250 nm pitch -> p NA / lambda = 1.205, so an
+    # on-axis (coherent) beam passes orders 0 and +-1 and no second order.
+    res = analyse_pitch(exposure(COHERENT), 250.0, orientation_deg)
+    assert res.orders_on_axis == (-1, 0, 1)
+    assert res.orders == (-1, 0, 1)  # coherent: the on-axis point is the whole source
+    assert res.resolvable
+
+
+@pytest.mark.parametrize(
+    ("pitch_nm", "expected"),
+    [
+        (150.0, (0,)),  # p NA / lambda = 0.72 < 1: only the 0th order
+        (250.0, (-1, 0, 1)),  # 1.20
+        (450.0, (-2, -1, 0, 1, 2)),  # 2.17
+        (700.0, (-3, -2, -1, 0, 1, 2, 3)),  # 3.37
+    ],
+)
+def test_orders_on_axis_are_floor_of_p_na_over_lambda(pitch_nm, expected):
+    # Grating equation: |n| <= p NA / lambda on axis (Goodman; domain.md).
+    n_max = math.floor(pitch_nm * DRY_ARF_NA / ARF_NM)
+    assert expected == tuple(range(-n_max, n_max + 1))  # the table agrees with the formula
+    res = analyse_pitch(exposure(CONVENTIONAL_07), pitch_nm, 90.0)
+    assert res.orders_on_axis == expected
+
+
+# --------------------------------------------------------------------------- (b) cutoff pitch
+
+
+@pytest.mark.parametrize(
+    ("illumination", "reach"),
+    [
+        (CONVENTIONAL_07, 0.7),  # disc: reach = sigma in every direction
+        ({"shape": "conventional", "sigma": 1.0}, 1.0),  # full disc: lambda / (2 NA)
+        (ANNULAR_05_08, 0.8),  # ring: reach = sigma_outer in every direction
+        ({"shape": "annular", "sigma_inner": 0.0, "sigma_outer": 0.3}, 0.3),  # ring from centre
+    ],
+)
+@pytest.mark.parametrize("orientation_deg", [0.0, 90.0, 45.0, 30.0, 137.0])
+def test_cutoff_pitch_of_round_sources(illumination, reach, orientation_deg):
+    # domain.md (arithmetic): p_min = lambda / (NA (1 + sigma_max)).
+    exp = exposure(illumination)
+    p_cut = cutoff_formula(ARF_NM, DRY_ARF_NA, reach)
+    assert exp.cutoff_pitch_nm == pytest.approx(p_cut, rel=PRECISION)
+    assert cutoff_pitch(exp, orientation_deg) == pytest.approx(p_cut, rel=PRECISION)
+    below = analyse_pitch(exp, p_cut * (1.0 - MARGIN), orientation_deg)
+    above = analyse_pitch(exp, p_cut * (1.0 + MARGIN), orientation_deg)
+    assert not below.resolvable
+    assert below.two_beam_fraction == 0.0
+    assert 0 in below.orders
+    assert 1 not in below.orders
+    assert -1 not in below.orders
+    assert above.resolvable
+    assert above.two_beam_fraction > 0.0
+    assert above.cutoff_pitch_nm == pytest.approx(p_cut, rel=PRECISION)
+
+
+# --------------------------------------------------------------------------- (c) k1
+
+
+@pytest.mark.parametrize(
+    ("wavelength_nm", "na", "index", "pitch_nm", "k1"),
+    [
+        (ARF_NM, IMMERSION_NA, WATER_INDEX, 100.0, 0.35),  # 50 * 1.35 / 193 (arithmetic)
+        (ARF_NM, DRY_ARF_NA, 1.0, 250.0, 0.6023316062),  # 125 * 0.93 / 193 (arithmetic)
+        (KRF_NM, 0.8, 1.0, 310.0, 0.5),  # 155 * 0.8 / 248 (arithmetic)
+        (EUV_NM, 0.33, 1.0, 32.0, 0.3911111111),  # 16 * 0.33 / 13.5 (arithmetic)
+    ],
+)
+def test_k1_is_half_pitch_times_na_over_lambda(wavelength_nm, na, index, pitch_nm, k1):
+    # domain.md: k1 = (p / 2) NA / lambda.
+    exp = exposure(CONVENTIONAL_07, wavelength_nm, na, index)
+    assert analyse_pitch(exp, pitch_nm, 90.0).k1 == pytest.approx(k1, rel=1e-9)
+
+
+def test_k1_quarter_at_193nm_na135_is_a_35_7nm_half_pitch():
+    # domain.md (arithmetic): k1 = 0.25 at 193 nm / NA 1.35 gives half pitch 35.7 nm.
+    half_pitch_nm = 0.25 * ARF_NM / IMMERSION_NA
+    assert half_pitch_nm == pytest.approx(35.7, abs=0.05)
+    exp = exposure({"shape": "conventional", "sigma": 1.0}, ARF_NM, IMMERSION_NA, WATER_INDEX)
+    res = analyse_pitch(exp, 2.0 * half_pitch_nm, 90.0)
+    assert res.k1 == pytest.approx(0.25, rel=PRECISION)
+    # k1 = 0.25 is the single-exposure floor: it is the cutoff of a sigma = 1 source.
+    assert res.cutoff_pitch_nm == pytest.approx(2.0 * half_pitch_nm, rel=PRECISION)
+    assert analyse_pitch(exp, 2.0 * half_pitch_nm * (1.0 + MARGIN), 90.0).resolvable
+    assert not analyse_pitch(exp, 2.0 * half_pitch_nm * (1.0 - MARGIN), 90.0).resolvable
+
+
+# --------------------------------------------------------------------------- (d) dipole
+
+
+@pytest.mark.parametrize(
+    "opening_deg",
+    [
+        20.0,  # narrow poles: y-reach 0.9 sin 10 deg = 0.156
+        40.0,  # y-reach 0.9 sin 20 deg = 0.308
+        90.0,  # y-reach 0.9 sin 45 deg = 0.636
+    ],
+)
+def test_dipole_on_x_images_vertical_lines_not_horizontal(opening_deg):
+    # domain.md: a dipole on x images vertical lines (pitch along x) and hurts
+    # horizontal ones.  Geometry: a pole of half-opening a centred on the x axis
+    # reaches sigma_outer along x and sigma_outer sin(a) along y.
+    outer = 0.9
+    exp = exposure(dipole(opening_deg, "x", outer=outer))
+    y_reach = outer * math.sin(math.radians(opening_deg / 2))
+    p_vertical = cutoff_formula(ARF_NM, DRY_ARF_NA, outer)
+    p_horizontal = cutoff_formula(ARF_NM, DRY_ARF_NA, y_reach)
+    assert cutoff_pitch(exp, 90.0) == pytest.approx(p_vertical, rel=REACH_PRECISION)
+    assert cutoff_pitch(exp, 0.0) == pytest.approx(p_horizontal, rel=REACH_PRECISION)
+    between = math.sqrt(p_vertical * p_horizontal)  # a pitch between the two cutoffs
+    assert analyse_pitch(exp, between, 90.0).resolvable  # vertical lines
+    assert not analyse_pitch(exp, between, 0.0).resolvable  # horizontal lines
+    assert analyse_pitch(exp, between, 0.0).two_beam_fraction == 0.0
+    assert analyse_pitch(exp, between, 90.0).two_beam_fraction > 0.0
+
+
+def test_dipole_on_y_is_the_dipole_on_x_turned_by_90_degrees():
+    # Symmetry: turning source and lines together by 90 degrees changes nothing.
+    on_x = exposure(dipole(40.0, "x"))
+    on_y = exposure(dipole(40.0, "y"))
+    for orientation in (0.0, 30.0, 90.0):
+        assert cutoff_pitch(on_y, orientation) == pytest.approx(
+            cutoff_pitch(on_x, (orientation + 90.0) % 180.0), rel=PRECISION
+        )
+
+
+# --------------------------------------------------------------------------- (e) quadrupole
+
+
+@pytest.mark.parametrize(
+    "opening_deg",
+    [
+        20.0,  # poles span 35..55 deg: x-reach 0.9 cos 35 deg
+        30.0,  # poles span 30..60 deg: x-reach 0.9 cos 30 deg
+        60.0,  # poles span 15..75 deg: x-reach 0.9 cos 15 deg
+    ],
+)
+def test_quadrupole_default_rotation_serves_x_and_y_lines_alike(opening_deg):
+    outer = 0.9
+    exp = exposure(quadrupole(opening_deg, outer=outer))  # rotation_deg left out: 45
+    assert exp.illumination.rotation_deg == 45.0
+    along_x_lines = cutoff_pitch(exp, 0.0)
+    along_y_lines = cutoff_pitch(exp, 90.0)
+    assert along_x_lines == pytest.approx(along_y_lines, rel=PRECISION)
+    # Geometry: a sector spanning [45 - a, 45 + a] deg reaches sigma_outer cos(45 - a)
+    # along x and along y.
+    reach = outer * math.cos(math.radians(45.0 - opening_deg / 2))
+    assert along_x_lines == pytest.approx(
+        cutoff_formula(ARF_NM, DRY_ARF_NA, reach), rel=REACH_PRECISION
+    )
+    # Diagonal lines (pitch along a pole) get the full sigma_outer.
+    assert cutoff_pitch(exp, 45.0) == pytest.approx(
+        cutoff_formula(ARF_NM, DRY_ARF_NA, outer), rel=REACH_PRECISION
+    )
+
+
+# --------------------------------------------------------------------------- (f) coherent
+
+
+@pytest.mark.parametrize(
+    ("wavelength_nm", "na", "index"),
+    [
+        (ARF_NM, DRY_ARF_NA, 1.0),  # dry ArF (common practice)
+        (ARF_NM, IMMERSION_NA, WATER_INDEX),  # water immersion ArF (common practice)
+        (KRF_NM, 0.8, 1.0),  # KrF (common practice)
+        (I_LINE_NM, 0.6, 1.0),  # i-line (common practice)
+        (EUV_NM, 0.33, 1.0),  # EUV NA 0.33 (common practice)
+    ],
+)
+@pytest.mark.parametrize(
+    ("factor", "resolvable"),
+    [
+        (0.5, False),  # far below lambda/NA
+        (0.999, False),  # just below
+        (1.0, True),  # exactly lambda/NA: the first order sits on the pupil edge
+        (1.001, True),  # just above
+        (3.0, True),  # far above
+    ],
+)
+def test_coherent_source_resolves_iff_pitch_at_least_lambda_over_na(
+    wavelength_nm, na, index, factor, resolvable
+):
+    # Grating equation (Goodman; domain.md): on axis the first order passes iff
+    # 1/p <= NA/lambda.
+    exp = exposure(COHERENT, wavelength_nm, na, index)
+    lam_na = wavelength_nm / na
+    res = analyse_pitch(exp, factor * lam_na, 90.0)
+    assert res.resolvable is resolvable
+    assert res.cutoff_pitch_nm == pytest.approx(lam_na, rel=PRECISION)
+    assert res.two_beam_fraction == (1.0 if resolvable else 0.0)
+
+
+# --------------------------------------------------------------------------- (g) source fraction
+
+SWEEP_PITCHES_NM = np.linspace(100.0, 500.0, 41)  # 10 nm steps through the cutoff region
+ALL_SOURCES = [
+    COHERENT,
+    CONVENTIONAL_07,
+    ANNULAR_05_08,
+    dipole(40.0, "x"),
+    quadrupole(30.0),
+    quadrupole(30.0, rotation_deg=0.0),
+]
+
+
+@pytest.mark.parametrize("illumination", ALL_SOURCES, ids=lambda d: d["shape"])
+@pytest.mark.parametrize("orientation_deg", [0.0, 90.0, 45.0])
+def test_two_beam_fraction_is_a_fraction(illumination, orientation_deg):
+    exp = exposure(illumination)
+    for pitch in SWEEP_PITCHES_NM:
+        res = analyse_pitch(exp, float(pitch), orientation_deg)
+        assert 0.0 <= res.two_beam_fraction <= 1.0
+        # A positive fraction means some source point sends the two beams.
+        if res.two_beam_fraction > 0.0:
+            assert res.resolvable
+
+
+@pytest.mark.parametrize(
+    ("wavelength_nm", "na"),
+    [
+        (ARF_NM, DRY_ARF_NA),  # lambda/NA = 207.5 nm
+        (KRF_NM, 0.8),  # lambda/NA = 310 nm
+    ],
+)
+def test_two_beam_fraction_of_coherent_source_is_one_from_lambda_over_na(wavelength_nm, na):
+    exp = exposure(COHERENT, wavelength_nm, na)
+    for pitch in SWEEP_PITCHES_NM * 2.0:
+        res = analyse_pitch(exp, float(pitch), 90.0)
+        expected = 1.0 if pitch * na / wavelength_nm >= 1.0 else 0.0
+        assert res.two_beam_fraction == expected
+
+
+@pytest.mark.parametrize("sigma", [0.3, 0.5, 0.7, 1.0])
+def test_two_beam_fraction_grows_with_pitch_for_a_conventional_source(sigma):
+    # Geometry: for a source point s, |s -+ q e| <= 1 holds for every q below a
+    # threshold, so the set of points sending two beams only grows as the
+    # first-order shift q = lambda / (p NA) shrinks.
+    exp = exposure({"shape": "conventional", "sigma": sigma})
+    fractions = [analyse_pitch(exp, float(p), 90.0).two_beam_fraction for p in SWEEP_PITCHES_NM]
+    assert all(b >= a for a, b in zip(fractions[:-1], fractions[1:], strict=True))
+    assert fractions[0] == 0.0  # 100 nm is below lambda / (NA (1 + sigma)) for sigma <= 1
+    assert fractions[-1] == 1.0  # 500 nm: q = 0.415, every point passes both beams
+    assert len(set(fractions)) > 3  # it grows through several values, not one step
+
+
+def _disc_overlap_area(r: float, big_r: float, d: float) -> float:
+    """Area shared by discs of radii r and R whose centres are d apart.
+
+    Plane geometry (circle-circle intersection area; e.g. Weisstein, MathWorld,
+    "Circle-Circle Intersection").
+    """
+    if d >= r + big_r:
+        return 0.0
+    if d <= abs(big_r - r):
+        return math.pi * min(r, big_r) ** 2
+    a = r * r * math.acos((d * d + r * r - big_r * big_r) / (2 * d * r))
+    b = big_r * big_r * math.acos((d * d + big_r * big_r - r * r) / (2 * d * big_r))
+    c = 0.5 * math.sqrt((-d + r + big_r) * (d + r - big_r) * (d - r + big_r) * (d + r + big_r))
+    return a + b - c
+
+
+@pytest.mark.parametrize(
+    ("sigma", "q"),
+    [
+        (0.5, 1.0),  # first order on the pupil edge for the on-axis point
+        (0.5, 1.2),
+        (0.5, 1.4),  # close to the cutoff q = 1 + sigma
+        (0.8, 1.1),
+        (0.8, 1.5),
+        (1.0, 1.05),
+        (1.0, 1.5),
+        (1.0, 1.9),
+    ],
+)
+def test_two_beam_fraction_of_a_disc_matches_the_lens_area(sigma, q):
+    # With q >= 1 the pupil copies centred at +-q (NA/lambda units) do not overlap,
+    # so the two-beam part of a disc source of radius sigma is two disc-disc lenses.
+    exp = exposure({"shape": "conventional", "sigma": sigma})
+    pitch = ARF_NM / (DRY_ARF_NA * q)
+    expected = 2.0 * _disc_overlap_area(sigma, 1.0, q) / (math.pi * sigma**2)
+    res = analyse_pitch(exp, pitch, 90.0)
+    assert res.two_beam_fraction == pytest.approx(expected, abs=FRACTION_TOL)
+
+
+# --------------------------------------------------------------------------- conventions
+
+
+@pytest.mark.parametrize(
+    ("orientation_deg", "expected"),
+    [
+        (0.0, (0.0, 1.0)),  # lines along x: pitch along y
+        (90.0, (-1.0, 0.0)),  # lines along y: pitch along x (sign is immaterial)
+        (45.0, (-math.sqrt(0.5), math.sqrt(0.5))),
+    ],
+)
+def test_pitch_direction_is_perpendicular_to_the_lines(orientation_deg, expected):
+    assert pitch_direction(orientation_deg) == pytest.approx(expected, abs=1e-12)
+
+
+def test_infinite_pitch_is_an_isolated_edge_and_resolvable():
+    res = analyse_pitch(exposure(ANNULAR_05_08), math.inf, 0.0)
+    assert res.resolvable
+    assert res.orders == (0,)
