@@ -62,7 +62,7 @@ def line_cell(
     length: float,
     pieces: int = 1,
 ) -> gdstk.Cell:
-    """A cell with ``count`` vertical lines (along y), each drawn as ``pieces`` abutting rectangles."""
+    """A cell of ``count`` lines along y, each drawn as ``pieces`` abutting rectangles."""
     cell = lib.new_cell(name)
     for k in range(count):
         x0 = k * pitch
@@ -86,7 +86,8 @@ def build() -> gdstk.Library:
     relaxed = line_cell(lib, "ACT_RELAXED", ACTIVE, 400, 200, 12, 4000)
     top.add(gdstk.Reference(relaxed, (0, 0)))
     act220 = line_cell(lib, "ACT_P220", ACTIVE, 220, 110, 16, 3000)
-    top.add(gdstk.Reference(act220, (10, 0.5), rotation=1.5707963267948966))  # 90 deg: lines along x
+    # Turned 90 degrees: lines along x.
+    top.add(gdstk.Reference(act220, (10, 0.5), rotation=1.5707963267948966))
     act180 = line_cell(lib, "ACT_P180", ACTIVE, 180, 90, 16, 3000)
     top.add(gdstk.Reference(act180, (12, 0)))
     # Drawn at pitch 80 and placed with magnification 2: pitch 160 in the chip.
@@ -119,14 +120,16 @@ def build() -> gdstk.Library:
     # ------------------------------------------------------------ metal1 (immersion, dipole x)
     m1_relaxed = lib.new_cell("M1_P180")
     line = gdstk.rectangle((0, 0), (0.09, 4), layer=METAL1[0], datatype=METAL1[1])
-    line.repetition = gdstk.Repetition(columns=12, rows=1, spacing=(0.18, 0))  # OASIS keeps it compact
+    # A polygon repetition: OASIS keeps it compact, GDSII writes every copy.
+    line.repetition = gdstk.Repetition(columns=12, rows=1, spacing=(0.18, 0))
     m1_relaxed.add(line)
     top.add(gdstk.Reference(m1_relaxed, (0, 18)))
     m1_80 = line_cell(lib, "M1_P80", METAL1, 80, 40, 10, 1200)
     top.add(gdstk.Reference(m1_80, (4, 18), columns=3, rows=2, spacing=(1.2, 1.6)))
     m1_100v = line_cell(lib, "M1_P100", METAL1, 100, 50, 12, 2000)
     top.add(gdstk.Reference(m1_100v, (9, 18)))
-    top.add(gdstk.Reference(m1_100v, (16, 18.5), rotation=1.5707963267948966))  # horizontal
+    # The same cell turned to horizontal lines: the x dipole cannot image them.
+    top.add(gdstk.Reference(m1_100v, (16, 18.5), rotation=1.5707963267948966))
     m1_70 = line_cell(lib, "M1_P70", METAL1, 70, 35, 12, 1500)
     top.add(gdstk.Reference(m1_70, (20, 18)))
 

@@ -62,7 +62,7 @@ def build_parser() -> argparse.ArgumentParser:
     scan.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK",
                       help="rule deck (TOML)")  # fmt: skip
     scan.add_argument("--markers", type=Path, metavar="PATH",
-                      help="write a marker layout (.gds or .oas) of the flagged regions")  # fmt: skip
+                      help="write a marker layout (.gds or .oas) of flagged regions")  # fmt: skip
     scan.add_argument("--json", type=Path, metavar="PATH", help="write findings as JSON")
     scan.add_argument(
         "--fail-on", choices=FAIL_ON_CHOICES, default="fail",
@@ -73,8 +73,10 @@ def build_parser() -> argparse.ArgumentParser:
                       help="scan only sites inside this window (µm, as drawn)")  # fmt: skip
     scan.add_argument("--top", type=_positive_int, default=20, metavar="N",
                       help="worst regions listed in the terminal (default: 20)")  # fmt: skip
-    scan.add_argument("--max-shapes", type=_positive_int, default=None, metavar="N",
-                      help="refuse layouts that flatten to more shapes (default: 20 million)")  # fmt: skip
+    scan.add_argument(
+        "--max-shapes", type=_positive_int, default=None, metavar="N",
+        help="refuse layouts that flatten to more shapes (default: 20 million)",
+    )  # fmt: skip
     scan.add_argument("--quiet", "-q", action="store_true",
                       help="print only the one-line summary")  # fmt: skip
     scan.add_argument("--debug", action="store_true", help="show tracebacks")
@@ -94,8 +96,9 @@ def _progress_callback(console, quiet: bool):
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
     bar = Progress(
-        TextColumn("scanning {task.description:<12}"), BarColumn(), TextColumn("{task.completed}/{task.total} layers"),
-        TimeElapsedColumn(), console=console, transient=True,
+        TextColumn("scanning {task.description:<12}"), BarColumn(),
+        TextColumn("{task.completed}/{task.total} layers"), TimeElapsedColumn(),
+        console=console, transient=True,
     )  # fmt: skip
     task = bar.add_task("", total=1)
 

@@ -389,15 +389,12 @@ def _format_validation_error(path: str, err: ValidationError, data: dict) -> str
     clean = []
     node = data
     for part in loc:
-        if isinstance(node, dict) and part in node:
+        in_dict = isinstance(node, dict) and part in node
+        in_list = isinstance(node, list) and isinstance(part, int) and part < len(node)
+        if in_dict or in_list:
             clean.append(part)
             node = node[part]
-        elif isinstance(node, list) and isinstance(part, int) and part < len(node):
-            clean.append(part)
-            node = node[part]
-        elif first["type"] == "extra_forbidden" and part == loc[-1]:
-            clean.append(part)
-        elif first["type"] == "missing" and part == loc[-1]:
+        elif first["type"] in ("extra_forbidden", "missing") and part == loc[-1]:
             clean.append(part)
     key = _format_loc(tuple(clean)) or "(top level)"
     msg = first["msg"]

@@ -82,7 +82,7 @@ class PolygonSet:
         idx = np.flatnonzero(keep)
         if len(idx) == len(self):
             return self
-        return PolygonSet.from_arrays((self.polygon(k) for k in idx))
+        return PolygonSet.from_arrays(self.polygon(k) for k in idx)
 
 
 @dataclass(frozen=True)

@@ -87,10 +87,7 @@ class SourceSampling:
 def _boundary(ill: Illumination) -> np.ndarray:
     if isinstance(ill, Coherent):
         return np.zeros((1, 2))
-    if isinstance(ill, Conventional):
-        radii = [ill.sigma]
-    else:
-        radii = [ill.sigma_inner, ill.sigma_outer]
+    radii = [ill.sigma] if isinstance(ill, Conventional) else [ill.sigma_inner, ill.sigma_outer]
     t = np.linspace(-math.pi, math.pi, BOUNDARY_POINTS, endpoint=False)
     pts = [np.stack([r * np.cos(t), r * np.sin(t)], axis=1) for r in radii if r > 0]
     centres = _sector_centres(ill)
