@@ -96,8 +96,7 @@ def _progress_callback(console, quiet: bool):
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
     bar = Progress(
-        TextColumn("scanning {task.description:<12}"), BarColumn(),
-        TextColumn("{task.completed}/{task.total} layers"), TimeElapsedColumn(),
+        TextColumn("scanning {task.description:<24}"), BarColumn(), TimeElapsedColumn(),
         console=console, transient=True,
     )  # fmt: skip
     task = bar.add_task("", total=1)

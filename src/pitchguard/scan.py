@@ -20,7 +20,8 @@ from pitchguard.extract import ExtractStats, build_features, find_sites
 from pitchguard.layout import DEFAULT_MAX_SHAPES, Layout, PolygonSet, read_layout
 
 Progress = Callable[[str, int, int], None]
-"""``progress(stage, done, total)``: called as layers are processed."""
+"""``progress(label, done, total)``: called before each stage of each layer
+(three stages a layer: features, sites, classify)."""
 
 
 @dataclass
@@ -68,16 +69,22 @@ def scan_polygons(
     findings: list[Finding] = []
     stats: list[LayerStats] = []
     scale = deck.scale_to_wafer
+    total = 3 * len(deck.layers)
+
+    def tick(label: str, done: int) -> None:
+        if progress:
+            progress(label, done, total)
+
     for k, rule in enumerate(deck.layers):
         t0 = time.perf_counter()
-        if progress:
-            progress(rule.name, k, len(deck.layers))
+        tick(f"{rule.name}: features", 3 * k)
         # Deck lengths are wafer-scale; the geometry is as drawn.
         ambit = rule.ambit_nm / scale
         min_run = rule.min_run_nm / scale
         ps = polygons.get((rule.layer, rule.datatype), PolygonSet.empty())
         ps = _in_region(ps, region_nm, 2 * ambit)
         edges = build_features(ps, grid_nm)
+        tick(f"{rule.name}: sites", 3 * k + 1)
         sites, ex = find_sites(edges, min_run, ambit, grid_nm)
         ex.shapes = len(ps)
         if region_nm is not None and len(sites):
@@ -85,12 +92,12 @@ def scan_polygons(
             x0, y0, x1, y1 = region_nm
             inside = (mid[:, 0] >= x0) & (mid[:, 0] < x1) & (mid[:, 1] >= y0) & (mid[:, 1] < y1)
             sites = sites.take(np.flatnonzero(inside))
+        tick(f"{rule.name}: classify", 3 * k + 2)
         findings.extend(classify_layer(sites, rule, scale))
         stats.append(
             LayerStats(rule.name, rule.source, len(ps), ex, time.perf_counter() - t0)
         )
-    if progress:
-        progress("done", len(deck.layers), len(deck.layers))
+    tick("done", total)
     return findings, stats
 
 
