@@ -9,7 +9,8 @@ A script, not a pytest test.  Run it with the project's interpreter::
 
 Rows
     * ``sample``: every ``sample_layouts/*.gds`` scanned with ``rules/demo.toml``
-      (skipped, with a note, when either is missing).
+      (or, failing that, ``rules/<layout stem>.toml``); skipped with a note when
+      the layout or the deck is missing.
     * ``gen N``: about N rectangles generated as numpy arrays straight into a
       :class:`pitchguard.layout.PolygonSet`: dense line arrays at several pitches
       and at 0, 90, 45 and 135 degrees, lines drawn as abutting pieces, isolated
@@ -65,6 +66,14 @@ import numpy as np
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLE_DIR = ROOT / "sample_layouts"
 SAMPLE_DECK = ROOT / "rules" / "demo.toml"
+
+
+def sample_deck(layout: Path) -> Path | None:
+    """Deck for a bundled sample: rules/demo.toml, else rules/<layout stem>.toml."""
+    for cand in (SAMPLE_DECK, ROOT / "rules" / f"{layout.stem}.toml"):
+        if cand.is_file():
+            return cand
+    return None
 
 GRID_NM = 1.0  # database unit of the generated layouts
 LAYER = (1, 0)
@@ -377,9 +386,11 @@ def run_worker(mode: str, extra: list[str], timeout: float) -> dict:
     return {"error": f"{mode}: exit {proc.returncode}: " + " | ".join(err)}
 
 
-def _f(x, fmt="{:.2f}", none="-"):
+def _f(x, fmt=None, none="-"):
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
         return none
+    if fmt is None:  # seconds: three decimals below 10 s
+        fmt = "{:.3f}" if x < 10 else "{:.1f}"
     return fmt.format(x)
 
 
@@ -394,8 +405,11 @@ def main(argv=None) -> int:
     ap.add_argument("--no-gds", dest="gds", action="store_false",
                     help="skip writing/reading the generated layouts as GDSII")  # fmt: skip
     ap.add_argument("--no-trace", dest="trace_pass", action="store_false",
-                    help="skip the tracemalloc pass (halves the run time)")  # fmt: skip
-    ap.add_argument("--timeout", type=float, default=900.0, help="seconds per worker")
+                    help="skip the tracemalloc pass entirely")  # fmt: skip
+    ap.add_argument("--trace-max", type=float, default=1e5,
+                    help="tracemalloc pass only for generated sizes up to this (default 1e5; "
+                    "the traced run is 2-4x slower than the timed one)")  # fmt: skip
+    ap.add_argument("--timeout", type=float, default=3600.0, help="seconds per worker process")
     # Internal: one measurement in a fresh process.
     ap.add_argument("--worker", choices=["extract", "baseline"], help=argparse.SUPPRESS)
     ap.add_argument("--size", type=int, help=argparse.SUPPRESS)
@@ -417,23 +431,27 @@ def main(argv=None) -> int:
     samples = sorted(SAMPLE_DIR.glob("*.gds")) if SAMPLE_DIR.is_dir() else []
     if not samples:
         print(f"note: no sample layout ({SAMPLE_DIR.relative_to(ROOT)}/*.gds): sample row skipped")
-    elif not SAMPLE_DECK.is_file():
-        print(f"note: {SAMPLE_DECK.relative_to(ROOT)} missing: sample row skipped")
-        samples = []
     for p in samples:
-        jobs.append((p.name, ["--file", str(p), "--deck", str(SAMPLE_DECK)]))
+        deck = sample_deck(p)
+        if deck is None:
+            print(f"note: no deck for {p.name} (rules/demo.toml or rules/{p.stem}.toml): skipped")
+            continue
+        print(f"sample: {p.relative_to(ROOT)} with {deck.relative_to(ROOT)}")
+        jobs.append((p.name, ["--file", str(p), "--deck", str(deck)], True))
     for n in sizes:
-        jobs.append((f"gen {n:.0e}".replace("+0", ""), ["--size", str(n)]))
+        jobs.append((f"gen {n:.0e}".replace("+0", ""), ["--size", str(n)], n <= args.trace_max))
 
     print(f"python {sys.version.split()[0]}, numpy {np.__version__}, {os.cpu_count()} cpus; "
           f"each row in fresh processes ({'with' if args.trace_pass else 'no'} tracemalloc pass)")  # fmt: skip
     rows = []
-    for label, extra in jobs:
+    for label, extra, traced in jobs:
         print(f"  running {label} ...", flush=True)
         ex = run_worker("extract", extra, args.timeout)
         gds = ["--write-gds"] if args.gds and "--file" not in extra else []
         bl = run_worker("baseline", extra + gds, args.timeout)
-        tr = run_worker("extract", extra + ["--trace"], args.timeout) if args.trace_pass else {}
+        tr = {}
+        if args.trace_pass and traced:
+            tr = run_worker("extract", extra + ["--trace"], args.timeout)
         for r in (ex, bl, tr):
             if "error" in r:
                 print(f"    {label}: {r['error']}")
@@ -459,7 +477,8 @@ def main(argv=None) -> int:
         total = sum(s.values())
         n = ex["shapes"]
         read = ex.get("read", bl.get("read"))
-        scaling = (total / (n * math.log2(n))) / ref[1] if ref and n > 1 else None
+        gen = label.startswith("gen")
+        scaling = (total / (n * math.log2(n))) / ref[1] if gen and ref and n > 1 else None
         base = bl.get("baseline")
         py = tr.get("py_peak", {})
         table.append([
@@ -479,10 +498,12 @@ def main(argv=None) -> int:
     print()
     print("seconds per stage; total = build + sites + classify (read not included);")
     print("read = read_layout of the GDSII (generated rows: written to a temp file and read back);")
-    print("nlogn = (total / n log2 n) relative to the smallest generated size (~1: n log n);")
+    print("nlogn = (total / n log2 n) relative to the smallest generated size (~1: n log n,")
+    print("        ~10x per decade: n^2); generated rows only;")
     print("baseline = gdstk get_polygons + PolygonSet.from_arrays; x base = total / baseline;")
     print("rss0 = RSS with the polygons loaded, peakRSS = ru_maxrss of the extraction process;")
-    print("py-peak = tracemalloc peak per stage build/sites/classify (separate traced run).")
+    print("py-peak = tracemalloc peak per stage build/sites/classify, MB (separate traced run;")
+    print(f"          '-' = not traced: sizes above --trace-max {args.trace_max:.0e}).")
     extra_lines = []
     for label, ex, bl, tr in rows:
         if "error" in ex:

@@ -199,15 +199,28 @@ def _explain(rule: LayerRule, code: int, res: OrderResult, pitch_drawn: float, s
     )
 
 
-def classify_layer(sites: Sites, rule: LayerRule, scale_to_wafer: float) -> list[Finding]:
-    """Findings (one per region) for the sites of one layer."""
+SNAP_PITCH_SPREAD = 2.0 * math.sqrt(2.0)
+"""Two sites of one array may differ in pitch by up to this many grid steps once
+rotated geometry is snapped to the grid (each of the two edges that bound a
+pitch moves by up to 0.5 (|cos| + |sin|) <= 0.71 grid)."""
+
+
+def classify_layer(
+    sites: Sites, rule: LayerRule, scale_to_wafer: float, grid_nm: float = 1.0
+) -> list[Finding]:
+    """Findings (one per region) for the sites of one layer.
+
+    Sites merge into a region when their pitches differ by at most
+    ``max(pitch_tolerance_nm, SNAP_PITCH_SPREAD * grid_nm)`` (drawn nm).
+    """
     severity, results, which = judge_sites(sites, rule, scale_to_wafer)
     flagged = np.flatnonzero(severity < OK)
     if len(flagged) == 0:
         return []
     fs = sites.take(flagged)
     sev = severity[flagged]
-    labels = _regions(fs, sev, rule.pitch_tolerance_nm)
+    tol = max(rule.pitch_tolerance_nm / scale_to_wafer, SNAP_PITCH_SPREAD * grid_nm)
+    labels = _regions(fs, sev, tol)
     order = np.argsort(labels, kind="stable")
     bounds = np.flatnonzero(np.diff(labels[order])) + 1
     corners_all = fs.corners()

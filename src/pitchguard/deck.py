@@ -11,6 +11,7 @@ are then divided by the reduction before any optics is applied.
 
 from __future__ import annotations
 
+import json
 import math
 import re
 import tomllib
@@ -46,8 +47,20 @@ def parse_layer_spec(text: str) -> tuple[int, int]:
     return layer, datatype
 
 
+class _KeyedError(ValueError):
+    """A cross-field error that knows the key it belongs to.
+
+    ``key`` is relative to the model that raises it (the location pydantic
+    reports is put in front of it).
+    """
+
+    def __init__(self, key: str, message: str):
+        super().__init__(message)
+        self.key = key
+
+
 class _Model(BaseModel):
-    model_config = ConfigDict(extra="forbid", strict=True, frozen=True)
+    model_config = ConfigDict(extra="forbid", strict=True, frozen=True, allow_inf_nan=False)
 
 
 Sigma = Annotated[float, Field(ge=0.0, le=1.0)]
@@ -73,8 +86,9 @@ class _Ring(_Model):
     @model_validator(mode="after")
     def _inner_below_outer(self):
         if self.sigma_inner >= self.sigma_outer:
-            raise ValueError(
-                f"sigma_inner ({self.sigma_inner}) must be below sigma_outer ({self.sigma_outer})"
+            raise _KeyedError(
+                "sigma_inner",
+                f"{self.sigma_inner} must be below sigma_outer ({self.sigma_outer})",
             )
         return self
 
@@ -152,9 +166,10 @@ class Exposure(_Model):
     @model_validator(mode="after")
     def _na_below_index(self):
         if self.na >= self.immersion_index:
-            raise ValueError(
-                f"na ({self.na}) must be below immersion_index ({self.immersion_index}); "
-                "set immersion_index for an immersion scanner"
+            raise _KeyedError(
+                "na",
+                f"{self.na} must be below immersion_index ({self.immersion_index}); "
+                "set immersion_index for an immersion scanner",
             )
         return self
 
@@ -282,14 +297,6 @@ class DeckFile(_Model):
         return self
 
 
-class _KeyedError(ValueError):
-    """A cross-field error that knows the key it belongs to."""
-
-    def __init__(self, key: str, message: str):
-        super().__init__(message)
-        self.key = key
-
-
 # --------------------------------------------------------------------------- resolved deck
 
 
@@ -344,11 +351,13 @@ class Deck:
         self.layers = [
             LayerRule(e, raw.exposures[e.exposure], raw.layer_defaults) for e in raw.layers
         ]
-        for i, rule in enumerate(self.layers):
+        for i, (rule, entry) in enumerate(zip(self.layers, raw.layers, strict=True)):
             if rule.k1_risk_below > rule.k1_marginal_below:
+                own = entry.k1_risk_below is not None or entry.k1_marginal_below is not None
+                key = f"layers[{i}]" if own else "layer_defaults"
                 raise DeckError(
-                    f"{self._where()}: layers[{i}]: k1_risk_below ({rule.k1_risk_below}) "
-                    f"must not exceed k1_marginal_below ({rule.k1_marginal_below})"
+                    f"{self._where()}: {key}.k1_risk_below: {rule.k1_risk_below} must not "
+                    f"exceed k1_marginal_below ({rule.k1_marginal_below}) for layer {rule.name!r}"
                 )
         self.markers = {s: parse_layer_spec(getattr(raw.markers, s)) for s in SEVERITIES}
 
@@ -368,13 +377,20 @@ class Deck:
         raise DeckError(f"{self._where()}: no layer named {name!r} (deck has: {known})")
 
 
+_BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
+
+
 def _format_loc(loc: tuple) -> str:
+    """``('layers', 1, 'source')`` -> ``layers[1].source``; odd keys are quoted."""
     out = ""
     for part in loc:
         if isinstance(part, int):
             out += f"[{part}]"
         else:
-            out += ("." if out else "") + str(part)
+            text = str(part)
+            if not _BARE_KEY.match(text):
+                text = json.dumps(text, ensure_ascii=True)
+            out += ("." if out else "") + text
     return out
 
 
@@ -383,8 +399,7 @@ def _format_validation_error(path: str, err: ValidationError, data: dict) -> str
     loc = tuple(first["loc"])
     ctx = first.get("ctx") or {}
     inner = ctx.get("error")
-    if isinstance(inner, _KeyedError):
-        return f"{path}: {inner.key}: {inner}"
+    keyed = inner if isinstance(inner, _KeyedError) else None
     # Drop discriminator tags pydantic inserts into the location (e.g. 'conventional').
     clean = []
     node = data
@@ -396,6 +411,12 @@ def _format_validation_error(path: str, err: ValidationError, data: dict) -> str
             node = node[part]
         elif first["type"] in ("extra_forbidden", "missing") and part == loc[-1]:
             clean.append(part)
+    if keyed is not None:
+        where = _format_loc(tuple(clean))
+        key = f"{where}.{keyed.key}" if where and not keyed.key.startswith("[") else (
+            where + keyed.key if where else keyed.key
+        )
+        return f"{path}: {key}: {keyed}"
     key = _format_loc(tuple(clean)) or "(top level)"
     msg = first["msg"]
     kind = first["type"]

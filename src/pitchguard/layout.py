@@ -279,7 +279,13 @@ def read_layout(
                         datatype=ld[1],
                     )
                 )
-            out[ld] = PolygonSet.from_arrays(polys, scale)
+            ps = PolygonSet.from_arrays(polys, scale)
+            # Back onto the database grid: nm conversion and transforms leave
+            # float noise (199.9999999 for 200); the mask writer snaps anyway.
+            grid_nm = lib.precision * 1e9
+            np.round(ps.points / grid_nm, out=ps.points)
+            np.multiply(ps.points, grid_nm, out=ps.points)
+            out[ld] = ps
     if warnings is not None:
         warnings.extend(noise)
     return Layout(

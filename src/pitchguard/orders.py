@@ -150,17 +150,28 @@ def pitch_direction(orientation_deg: float) -> np.ndarray:
 
 
 def cutoff_pitch(exposure: Exposure, orientation_deg: float) -> float:
-    """Smallest pitch imaged in this direction: lambda / (NA (1 + reach)).
+    """Smallest pitch imaged in this direction: ``lambda / (NA q_max)``.
 
-    ``reach`` is how far the source extends along the pitch direction (in
-    sigma units); for a disc or ring it is ``sigma_max``.
+    Notes
+    -----
+    In units of NA/lambda, a source point ``s`` sends the 0th order through
+    when ``|s| <= 1`` (always, sigma <= 1) and the +1st order when
+    ``|s + q e| <= 1``, i.e. ``q <= -s.e + sqrt(1 - (s.e_perp)^2)``.  By the
+    symmetry of every source shape here (s -> -s), the largest first-order
+    shift any point admits is ``q_max = max_s (s.e + sqrt(1 - (s.e_perp)^2))``.
+    For a disc or ring, or a pole centred on the pitch axis, this is
+    ``1 + sigma_max`` (the textbook ``lambda / (NA (1 + sigma))``); a pole off
+    the axis reaches less far because its point also sits across ``e``.
     """
     ill = exposure.illumination
     e = pitch_direction(orientation_deg)
+    e_perp = np.array([-e[1], e[0]])
     samp = sample_source(ill)
     pts = np.concatenate([samp.boundary, samp.grid, _extreme_points(ill, e)])
-    reach = float(np.max(np.abs(pts @ e)))
-    return exposure.wavelength_nm / (exposure.na * (1.0 + reach))
+    along = pts @ e
+    across = pts @ e_perp
+    reach = np.abs(along) + np.sqrt(np.clip(1.0 - across**2, 0.0, None))
+    return exposure.wavelength_nm / (exposure.na * float(np.max(reach)))
 
 
 def analyse_pitch(exposure: Exposure, pitch_nm: float, orientation_deg: float) -> OrderResult:

@@ -93,7 +93,7 @@ def scan_polygons(
             inside = (mid[:, 0] >= x0) & (mid[:, 0] < x1) & (mid[:, 1] >= y0) & (mid[:, 1] < y1)
             sites = sites.take(np.flatnonzero(inside))
         tick(f"{rule.name}: classify", 3 * k + 2)
-        findings.extend(classify_layer(sites, rule, scale))
+        findings.extend(classify_layer(sites, rule, scale, grid_nm))
         stats.append(
             LayerStats(rule.name, rule.source, len(ps), ex, time.perf_counter() - t0)
         )

@@ -10,8 +10,8 @@ grating optics, with its source named beside it:
 * cutoff pitch lambda / (NA (1 + reach)), reach being how far the source
   extends along the pitch direction (domain.md; arithmetic from the above);
 * k1 = (p/2) NA / lambda (domain.md, half-pitch form);
-* plane geometry for the reach of ring sectors and for the area of the
-  intersection of two discs.
+* plane geometry and calculus for how far ring sectors (dipole and quadrupole
+  poles) reach, and for the area of the intersection of two discs.
 """
 
 from __future__ import annotations
@@ -147,7 +147,7 @@ def test_cutoff_pitch_of_round_sources(illumination, reach, orientation_deg):
 @pytest.mark.parametrize(
     ("wavelength_nm", "na", "index", "pitch_nm", "k1"),
     [
-        (ARF_NM, IMMERSION_NA, WATER_INDEX, 100.0, 0.35),  # 50 * 1.35 / 193 (arithmetic)
+        (ARF_NM, IMMERSION_NA, WATER_INDEX, 100.0, 0.3497409326),  # 50 * 1.35 / 193 (arithmetic)
         (ARF_NM, DRY_ARF_NA, 1.0, 250.0, 0.6023316062),  # 125 * 0.93 / 193 (arithmetic)
         (KRF_NM, 0.8, 1.0, 310.0, 0.5),  # 155 * 0.8 / 248 (arithmetic)
         (EUV_NM, 0.33, 1.0, 32.0, 0.3911111111),  # 16 * 0.33 / 13.5 (arithmetic)
@@ -175,30 +175,111 @@ def test_k1_quarter_at_193nm_na135_is_a_35_7nm_half_pitch():
 # --------------------------------------------------------------------------- (d) dipole
 
 
+def sector_reach_2d(inner: float, outer: float, theta_max_deg: float) -> float:
+    """Largest first-order shift q (units of NA/lambda) a ring sector can still image.
+
+    Pitch along y; the sector spans angles up to ``theta_max_deg`` (0..90) from
+    the x axis.  From the pupil condition of domain.md, a source point
+    (r cos t, r sin t) passes the 0th order and the order shifted by -q along y
+    iff (r sin t - q)^2 + (r cos t)^2 <= 1, i.e. q <= f(r, t) = r sin t +
+    sqrt(1 - r^2 cos^2 t).  f grows with t on (0, 90 deg), and is concave in r
+    with its peak at r = tan t (calculus), so the maximum over the sector is
+    f(clip(tan t_max, inner, outer), t_max).  With the pole on the pitch axis
+    (t_max = 90 deg) this is 1 + outer, the familiar lambda / (NA (1 + sigma)).
+    """
+    t = math.radians(theta_max_deg)
+    if abs(math.cos(t)) < 1e-15:
+        return 1.0 + outer
+    r = min(max(math.tan(t), inner), outer)
+    return r * math.sin(t) + math.sqrt(1.0 - (r * math.cos(t)) ** 2)
+
+
+@pytest.mark.parametrize(
+    ("inner", "outer", "theta_max_deg"),
+    [
+        (0.6, 0.9, 10.0),  # narrow x-dipole pole, maximum at the inner corner
+        (0.6, 0.9, 45.0),  # wide pole, maximum on the pole edge between the corners
+        (0.6, 0.9, 60.0),  # quadrupole pole at 45 +- 15 deg, maximum at the outer corner
+        (0.0, 0.7, 90.0),  # a disc: 1 + sigma
+    ],
+)
+def test_sector_reach_helper_agrees_with_brute_force(inner, outer, theta_max_deg):
+    # Check of the test helper itself: a dense scan of the same pupil condition.
+    r = np.linspace(inner, outer, 401)[:, None]
+    t = np.radians(np.linspace(0.0, theta_max_deg, 401))[None, :]
+    f = r * np.sin(t) + np.sqrt(np.clip(1.0 - (r * np.cos(t)) ** 2, 0.0, None))
+    assert sector_reach_2d(inner, outer, theta_max_deg) == pytest.approx(f.max(), rel=1e-4)
+
+
 @pytest.mark.parametrize(
     "opening_deg",
     [
-        20.0,  # narrow poles: y-reach 0.9 sin 10 deg = 0.156
-        40.0,  # y-reach 0.9 sin 20 deg = 0.308
-        90.0,  # y-reach 0.9 sin 45 deg = 0.636
+        20.0,  # narrow poles: y-extent 0.9 sin 10 deg = 0.156
+        40.0,  # y-extent 0.9 sin 20 deg = 0.308
+        90.0,  # y-extent 0.9 sin 45 deg = 0.636
     ],
 )
 def test_dipole_on_x_images_vertical_lines_not_horizontal(opening_deg):
     # domain.md: a dipole on x images vertical lines (pitch along x) and hurts
-    # horizontal ones.  Geometry: a pole of half-opening a centred on the x axis
-    # reaches sigma_outer along x and sigma_outer sin(a) along y.
+    # horizontal ones.
     outer = 0.9
     exp = exposure(dipole(opening_deg, "x", outer=outer))
-    y_reach = outer * math.sin(math.radians(opening_deg / 2))
+    # Vertical lines: the poles sit on the pitch axis, reach sigma_outer.
     p_vertical = cutoff_formula(ARF_NM, DRY_ARF_NA, outer)
-    p_horizontal = cutoff_formula(ARF_NM, DRY_ARF_NA, y_reach)
     assert cutoff_pitch(exp, 90.0) == pytest.approx(p_vertical, rel=REACH_PRECISION)
-    assert cutoff_pitch(exp, 0.0) == pytest.approx(p_horizontal, rel=REACH_PRECISION)
-    between = math.sqrt(p_vertical * p_horizontal)  # a pitch between the two cutoffs
-    assert analyse_pitch(exp, between, 90.0).resolvable  # vertical lines
-    assert not analyse_pitch(exp, between, 0.0).resolvable  # horizontal lines
-    assert analyse_pitch(exp, between, 0.0).two_beam_fraction == 0.0
-    assert analyse_pitch(exp, between, 90.0).two_beam_fraction > 0.0
+    # Horizontal lines: a pole reaches only sigma_outer sin(opening / 2) along y
+    # (geometry), so lambda / (NA (1 + y-extent)) bounds the cutoff from below:
+    # no source point can shift the first order further than that.
+    y_extent = outer * math.sin(math.radians(opening_deg / 2))
+    p_horizontal_bound = cutoff_formula(ARF_NM, DRY_ARF_NA, y_extent)
+    assert p_horizontal_bound > p_vertical
+    between = math.sqrt(p_vertical * p_horizontal_bound)  # between the two
+    vertical = analyse_pitch(exp, between, 90.0)
+    horizontal = analyse_pitch(exp, between, 0.0)
+    assert vertical.resolvable
+    assert vertical.two_beam_fraction > 0.0
+    assert not horizontal.resolvable
+    assert horizontal.two_beam_fraction == 0.0
+    assert cutoff_pitch(exp, 0.0) >= p_horizontal_bound * (1.0 - REACH_PRECISION)
+
+
+# Dipole / quadrupole cases whose farthest pole point along the pitch sits off the
+# pitch axis.  Each row: illumination, line orientation, largest pole angle from
+# the line direction (deg) used by sector_reach_2d.
+OFF_AXIS_POLES = [
+    pytest.param(dipole(20.0, "x"), 0.0, 10.0, id="x-dipole-20deg-horizontal-lines"),
+    pytest.param(dipole(40.0, "x"), 0.0, 20.0, id="x-dipole-40deg-horizontal-lines"),
+    pytest.param(dipole(90.0, "x"), 0.0, 45.0, id="x-dipole-90deg-horizontal-lines"),
+    pytest.param(dipole(40.0, "y"), 90.0, 20.0, id="y-dipole-40deg-vertical-lines"),
+    pytest.param(quadrupole(30.0), 0.0, 60.0, id="quadrupole-45-30deg-horizontal-lines"),
+    pytest.param(quadrupole(30.0), 90.0, 60.0, id="quadrupole-45-30deg-vertical-lines"),
+]
+
+
+@pytest.mark.parametrize(("illumination", "orientation_deg", "theta_max_deg"), OFF_AXIS_POLES)
+def test_off_axis_poles_resolve_from_the_2d_pupil_cutoff(
+    illumination, orientation_deg, theta_max_deg
+):
+    # domain.md pupil condition, maximised over the pole (sector_reach_2d).
+    exp = exposure(illumination)
+    ill = exp.illumination
+    q_max = sector_reach_2d(ill.sigma_inner, ill.sigma_outer, theta_max_deg)
+    p_cut = ARF_NM / (DRY_ARF_NA * q_max)
+    assert not analyse_pitch(exp, p_cut * (1.0 - MARGIN), orientation_deg).resolvable
+    assert analyse_pitch(exp, p_cut * (1.0 + MARGIN), orientation_deg).resolvable
+
+
+@pytest.mark.parametrize(("illumination", "orientation_deg", "theta_max_deg"), OFF_AXIS_POLES)
+def test_cutoff_pitch_of_off_axis_poles_is_the_2d_pupil_cutoff(
+    illumination, orientation_deg, theta_max_deg
+):
+    exp = exposure(illumination)
+    ill = exp.illumination
+    q_max = sector_reach_2d(ill.sigma_inner, ill.sigma_outer, theta_max_deg)
+    p_cut = ARF_NM / (DRY_ARF_NA * q_max)
+    assert cutoff_pitch(exp, orientation_deg) == pytest.approx(p_cut, rel=REACH_PRECISION)
+    res = analyse_pitch(exp, p_cut * (1.0 + MARGIN / 2), orientation_deg)
+    assert res.cutoff_pitch_nm <= p_cut * (1.0 + MARGIN / 2)  # consistent with `resolvable`
 
 
 def test_dipole_on_y_is_the_dipole_on_x_turned_by_90_degrees():
@@ -206,9 +287,15 @@ def test_dipole_on_y_is_the_dipole_on_x_turned_by_90_degrees():
     on_x = exposure(dipole(40.0, "x"))
     on_y = exposure(dipole(40.0, "y"))
     for orientation in (0.0, 30.0, 90.0):
+        turned = (orientation + 90.0) % 180.0
         assert cutoff_pitch(on_y, orientation) == pytest.approx(
-            cutoff_pitch(on_x, (orientation + 90.0) % 180.0), rel=PRECISION
+            cutoff_pitch(on_x, turned), rel=PRECISION
         )
+        for pitch in (130.0, 170.0, 210.0, 250.0):
+            assert (
+                analyse_pitch(on_y, pitch, orientation).resolvable
+                == analyse_pitch(on_x, pitch, turned).resolvable
+            )
 
 
 # --------------------------------------------------------------------------- (e) quadrupole
@@ -217,28 +304,32 @@ def test_dipole_on_y_is_the_dipole_on_x_turned_by_90_degrees():
 @pytest.mark.parametrize(
     "opening_deg",
     [
-        20.0,  # poles span 35..55 deg: x-reach 0.9 cos 35 deg
-        30.0,  # poles span 30..60 deg: x-reach 0.9 cos 30 deg
-        60.0,  # poles span 15..75 deg: x-reach 0.9 cos 15 deg
+        20.0,  # poles span 35..55 deg
+        30.0,  # poles span 30..60 deg
+        60.0,  # poles span 15..75 deg
     ],
 )
 def test_quadrupole_default_rotation_serves_x_and_y_lines_alike(opening_deg):
     outer = 0.9
     exp = exposure(quadrupole(opening_deg, outer=outer))  # rotation_deg left out: 45
     assert exp.illumination.rotation_deg == 45.0
-    along_x_lines = cutoff_pitch(exp, 0.0)
-    along_y_lines = cutoff_pitch(exp, 90.0)
-    assert along_x_lines == pytest.approx(along_y_lines, rel=PRECISION)
-    # Geometry: a sector spanning [45 - a, 45 + a] deg reaches sigma_outer cos(45 - a)
-    # along x and along y.
-    reach = outer * math.cos(math.radians(45.0 - opening_deg / 2))
-    assert along_x_lines == pytest.approx(
-        cutoff_formula(ARF_NM, DRY_ARF_NA, reach), rel=REACH_PRECISION
-    )
-    # Diagonal lines (pitch along a pole) get the full sigma_outer.
-    assert cutoff_pitch(exp, 45.0) == pytest.approx(
+    # Mirror symmetry of the source about the 45 deg diagonal.
+    assert cutoff_pitch(exp, 0.0) == pytest.approx(cutoff_pitch(exp, 90.0), rel=PRECISION)
+    for pitch in np.linspace(100.0, 160.0, 13):
+        x_lines = analyse_pitch(exp, float(pitch), 0.0)
+        y_lines = analyse_pitch(exp, float(pitch), 90.0)
+        assert x_lines.resolvable == y_lines.resolvable
+        assert x_lines.two_beam_fraction == pytest.approx(y_lines.two_beam_fraction, abs=1e-12)
+    # Diagonal lines (pitch along a pole centre) get the full sigma_outer.
+    assert cutoff_pitch(exp, 135.0) == pytest.approx(
         cutoff_formula(ARF_NM, DRY_ARF_NA, outer), rel=REACH_PRECISION
     )
+    # Rotated to 0 the poles sit on the axes: x and y lines get the full sigma_outer.
+    on_axes = exposure(quadrupole(opening_deg, outer=outer, rotation_deg=0.0))
+    for orientation in (0.0, 90.0):
+        assert cutoff_pitch(on_axes, orientation) == pytest.approx(
+            cutoff_formula(ARF_NM, DRY_ARF_NA, outer), rel=REACH_PRECISION
+        )
 
 
 # --------------------------------------------------------------------------- (f) coherent
@@ -326,7 +417,12 @@ def test_two_beam_fraction_grows_with_pitch_for_a_conventional_source(sigma):
     fractions = [analyse_pitch(exp, float(p), 90.0).two_beam_fraction for p in SWEEP_PITCHES_NM]
     assert all(b >= a for a, b in zip(fractions[:-1], fractions[1:], strict=True))
     assert fractions[0] == 0.0  # 100 nm is below lambda / (NA (1 + sigma)) for sigma <= 1
-    assert fractions[-1] == 1.0  # 500 nm: q = 0.415, every point passes both beams
+    # Every point passes both beams iff the worst point (0, sigma) does: q^2 + sigma^2 <= 1.
+    q_last = ARF_NM / (SWEEP_PITCHES_NM[-1] * DRY_ARF_NA)  # 0.415
+    if q_last**2 + sigma**2 <= 1.0:
+        assert fractions[-1] == 1.0
+    else:
+        assert 0.5 < fractions[-1] < 1.0
     assert len(set(fractions)) > 3  # it grows through several values, not one step
 
 
@@ -351,7 +447,7 @@ def _disc_overlap_area(r: float, big_r: float, d: float) -> float:
     [
         (0.5, 1.0),  # first order on the pupil edge for the on-axis point
         (0.5, 1.2),
-        (0.5, 1.4),  # close to the cutoff q = 1 + sigma
+        (0.5, 1.3),  # a quarter of the source left: nearing the cutoff q = 1 + sigma
         (0.8, 1.1),
         (0.8, 1.5),
         (1.0, 1.05),
