@@ -19,11 +19,11 @@ from pathlib import Path
 from typing import Annotated, Literal
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     ConfigDict,
     Field,
     ValidationError,
-    field_validator,
     model_validator,
 )
 
@@ -45,6 +45,15 @@ def parse_layer_spec(text: str) -> tuple[int, int]:
     if layer > _MAX_GDS_LAYER or datatype > _MAX_GDS_LAYER:
         raise ValueError(f"layer and datatype must be 0..{_MAX_GDS_LAYER}, got {text!r}")
     return layer, datatype
+
+
+def _layer_spec_text(v: str) -> str:
+    parse_layer_spec(v)
+    return v
+
+
+LayerSpec = Annotated[str, AfterValidator(_layer_spec_text)]
+"""A ``"LAYER/DATATYPE"`` string, checked when the deck is read."""
 
 
 class _KeyedError(ValueError):
@@ -229,29 +238,17 @@ class LayerEntry(Limits):
     """One ``[[layers]]`` entry of a deck."""
 
     name: Annotated[str, Field(min_length=1, max_length=64, pattern=r"^[A-Za-z0-9_.+-]+$")]
-    source: str
+    source: LayerSpec
     exposure: str
     field: Literal["clear", "dark"]
-
-    @field_validator("source")
-    @classmethod
-    def _source_is_layer_spec(cls, v: str) -> str:
-        parse_layer_spec(v)
-        return v
 
 
 class Markers(_Model):
     """Marker layout layer/datatype per severity."""
 
-    fail: str = "700/1"
-    risk: str = "700/2"
-    marginal: str = "700/3"
-
-    @field_validator("fail", "risk", "marginal")
-    @classmethod
-    def _is_layer_spec(cls, v: str) -> str:
-        parse_layer_spec(v)
-        return v
+    fail: LayerSpec = "700/1"
+    risk: LayerSpec = "700/2"
+    marginal: LayerSpec = "700/3"
 
 
 class DeckInfo(_Model):
