@@ -225,6 +225,8 @@ def classify_layer(
     bounds = np.flatnonzero(np.diff(labels[order])) + 1
     corners_all = fs.corners()
     pitch_all = fs.pitch
+    angle_all = fs.orientation_deg
+    run_all = fs.run
     out = []
     for members in np.split(order, bounds):
         worst = members[np.argmin(pitch_all[members])]
@@ -260,7 +262,7 @@ def classify_layer(
                 space_nm=round(float(fs.space[worst]), 3),
                 wafer_pitch_nm=round(pitch_drawn * scale_to_wafer, 3),
                 k1=round(res.k1, 4),
-                orientation_deg=round(float(fs.orientation_deg[worst]), 3),
+                orientation_deg=round(float(angle_all[worst]), 3),
                 orders=res.orders,
                 orders_on_axis=res.orders_on_axis,
                 two_beam_fraction=round(res.two_beam_fraction, 4),
@@ -268,7 +270,7 @@ def classify_layer(
                 lines=lines,
                 periodicity=_periodicity(lines, rule.dense_min_lines),
                 sites=len(members),
-                run_nm=round(float(fs.run[members].max()), 3),
+                run_nm=round(float(run_all[members].max()), 3),
                 bbox_nm=bbox,
                 outline_nm=outline,
                 limit=limit,
