@@ -112,6 +112,8 @@ def scan_layout(
     """Read ``path`` and scan it with ``deck``."""
     t0 = time.perf_counter()
     warnings: list[str] = []
+    if progress:
+        progress("reading layout", 0, 3 * len(deck.layers))
     layout = read_layout(
         path,
         [(r.layer, r.datatype) for r in deck.layers],
