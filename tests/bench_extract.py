@@ -6,6 +6,7 @@ A script, not a pytest test.  Run it with the project's interpreter::
     python tests/bench_extract.py                 # 1e4, 1e5, 1e6 rectangles (+ sample)
     python tests/bench_extract.py --quick         # 1e4, 1e5 only
     python tests/bench_extract.py --sizes 2e4,2e5 --no-gds
+    python tests/bench_extract.py --trace-max 1e6 # tracemalloc pass at 1e6 too
 
 Rows
     * ``sample``: every ``sample_layouts/*.gds`` scanned with ``rules/demo.toml``
@@ -33,7 +34,14 @@ Memory
     another fresh interpreter repeats the stages under ``tracemalloc`` (which
     slows Python allocation, so its times are not used) to get the peak of
     Python/numpy allocations per stage (``py-peak``; memory held by rtree, gdstk
-    and scipy's C code is not traced).
+    and scipy's C code is not traced).  The traced pass is 2-4x slower, so by
+    default it runs only for sizes up to ``--trace-max`` (1e5); pass
+    ``--trace-max 1e6`` to trace 10^6 too (about 3 more minutes on 2 cores).
+
+Robustness
+    Workers report after every stage and print progress on stderr, so a worker
+    that is killed or exceeds ``--timeout`` still shows what it finished (DIED
+    marks the stage it died in, ``>`` a lower bound).
 
 Scaling
     ``nlogn`` = (total / (n log2 n)) divided by the same for the smallest
@@ -43,7 +51,8 @@ Scaling
 Baseline
     What any scan pays anyway: flattening the cell with gdstk
     ``Cell.get_polygons`` and packing the points with ``PolygonSet.from_arrays``
-    (what read_layout does after parsing).  ``x base`` = total / baseline.
+    (what read_layout does after parsing); best of three runs, as single runs
+    vary by up to 2x.  ``x base`` = total / baseline.
 """
 
 from __future__ import annotations
@@ -74,6 +83,7 @@ def sample_deck(layout: Path) -> Path | None:
         if cand.is_file():
             return cand
     return None
+
 
 GRID_NM = 1.0  # database unit of the generated layouts
 LAYER = (1, 0)
@@ -224,51 +234,72 @@ def maxrss_mb() -> float:
     return r / 2**20 if sys.platform == "darwin" else r / 1024.0
 
 
-class Stages:
-    """Times (and, under tracemalloc, Python peaks) of consecutive stages."""
+def emit(res: dict) -> None:
+    """Hand a (possibly partial) result to the driver on stdout; the last one wins."""
+    sys.stdout.write(RESULT_TAG + json.dumps(res) + "\n")
+    sys.stdout.flush()
 
-    def __init__(self, trace: bool):
+
+def note(text: str) -> None:
+    """Progress on stderr (passed through to the terminal by the driver)."""
+    sys.stderr.write(f"    [{time.strftime('%H:%M:%S')}] {text}\n")
+    sys.stderr.flush()
+
+
+class Stages:
+    """Times (and, under tracemalloc, Python peaks) of consecutive stages.
+
+    After every stage the result so far is emitted, so a run that is killed or
+    times out still reports the stages it finished.
+    """
+
+    def __init__(self, trace: bool, out: dict, label: str):
         self.trace = trace
-        self.seconds: dict[str, float] = {}
-        self.py_peak: dict[str, float] = {}
+        self.out = out
+        self.label = label
+        self.seconds: dict[str, float] = out.setdefault("seconds", {})
+        self.py_peak: dict[str, float] = out.setdefault("py_peak", {})
 
     def run(self, name, fn, *args):
         gc.collect()
         if self.trace:
             tracemalloc.reset_peak()
             base = tracemalloc.get_traced_memory()[0]
+        self.out["running"] = name
+        emit(self.out)
         t0 = time.perf_counter()
-        out = fn(*args)
-        self.seconds[name] = self.seconds.get(name, 0.0) + time.perf_counter() - t0
+        res = fn(*args)
+        dt = time.perf_counter() - t0
+        self.seconds[name] = self.seconds.get(name, 0.0) + dt
         if self.trace:
             peak = (tracemalloc.get_traced_memory()[1] - base) / 2**20
             self.py_peak[name] = max(self.py_peak.get(name, 0.0), peak)
-        return out
+        self.out["running"] = None
+        self.out["maxrss"] = maxrss_mb()
+        emit(self.out)
+        note(f"{self.label}: {name} {dt:.2f} s, peak RSS so far {self.out['maxrss']:.0f} MB")
+        return res
 
 
-def extract_layers(layers, deck, grid_nm, trace: bool) -> dict:
-    """build_features -> find_sites -> classify_layer for every deck layer."""
+def extract_layers(layers, deck, grid_nm, trace: bool, out: dict, label: str) -> dict:
+    """build_features -> find_sites -> classify_layer for every deck layer, into ``out``."""
     from pitchguard.classify import classify_layer
     from pitchguard.extract import build_features, find_sites
     from pitchguard.layout import PolygonSet
 
-    st = Stages(trace)
+    st = Stages(trace, out, label)
     scale = deck.scale_to_wafer
-    shapes = sites_n = findings_n = edges_n = 0
+    out.update(shapes=sum(len(p) for p in layers.values()), edges=0, sites=0, findings=0)
     for rule in deck.layers:
         ps = layers.get((rule.layer, rule.datatype), PolygonSet.empty())
         edges = st.run("build", build_features, ps, grid_nm)
+        out["edges"] += len(edges)
         sites, _ = st.run("sites", find_sites, edges, rule.min_run_nm / scale,
                           rule.ambit_nm / scale, grid_nm)  # fmt: skip
+        out["sites"] += len(sites)
         found = st.run("classify", classify_layer, sites, rule, scale)
-        shapes += len(ps)
-        edges_n += len(edges)
-        sites_n += len(sites)
-        findings_n += len(found)
-    return {
-        "shapes": shapes, "edges": edges_n, "sites": sites_n, "findings": findings_n,
-        "seconds": st.seconds, "py_peak": st.py_peak,
-    }  # fmt: skip
+        out["findings"] += len(found)
+    return out
 
 
 def _bench_deck():
@@ -299,8 +330,11 @@ def worker_extract(args) -> dict:
         grid = GRID_NM
     gc.collect()
     out["rss0"] = rss_mb()
-    out.update(extract_layers(layers, deck, grid, args.trace))
+    label = Path(args.file).name if args.file else f"gen {args.size}"
+    label += " (traced)" if args.trace else ""
+    extract_layers(layers, deck, grid, args.trace, out, label)
     out["maxrss"] = maxrss_mb()
+    out["done"] = True
     return out
 
 
@@ -316,12 +350,29 @@ def _flatten_pack(lib, layers):
             pts.extend(
                 q.points
                 for q in top.get_polygons(
-                    apply_repetitions=True, include_paths=True, depth=None,
-                    layer=ld[0], datatype=ld[1],
+                    apply_repetitions=True,
+                    include_paths=True,
+                    depth=None,
+                    layer=ld[0],
+                    datatype=ld[1],
                 )  # fmt: skip
             )
         n += len(PolygonSet.from_arrays(pts, lib.unit * 1e9))
     return n
+
+
+BASELINE_REPEATS = 3
+
+
+def _timed_baseline(lib, layers) -> tuple[int, float, list[float]]:
+    """Shape count and best-of-N seconds of flatten + pack (single runs vary ~2x)."""
+    runs = []
+    for _ in range(BASELINE_REPEATS):
+        gc.collect()
+        t0 = time.perf_counter()
+        n = _flatten_pack(lib, layers)
+        runs.append(time.perf_counter() - t0)
+    return n, min(runs), runs
 
 
 def worker_baseline(args) -> dict:
@@ -336,18 +387,15 @@ def worker_baseline(args) -> dict:
         deck = load_deck(args.deck)
         wanted = {(r.layer, r.datatype) for r in deck.layers}
         lib = gdstk.read_gds(args.file, filter=wanted)
-        t0 = time.perf_counter()
-        out["shapes"] = _flatten_pack(lib, sorted(wanted))
-        out["baseline"] = time.perf_counter() - t0
+        out["shapes"], out["baseline"], out["baseline_runs"] = _timed_baseline(lib, sorted(wanted))
+        out["maxrss"] = maxrss_mb()
         return out
     rects = generate(args.size) / 1000.0  # nm -> um (library unit)
     lib = gdstk.Library(unit=1e-6, precision=GRID_NM * 1e-9)
     cell = lib.new_cell("TOP")
     cell.add(*(gdstk.Polygon(r, layer=LAYER[0], datatype=LAYER[1]) for r in rects))
     del rects
-    t0 = time.perf_counter()
-    out["shapes"] = _flatten_pack(lib, [LAYER])
-    out["baseline"] = time.perf_counter() - t0
+    out["shapes"], out["baseline"], out["baseline_runs"] = _timed_baseline(lib, [LAYER])
     if args.write_gds:
         with tempfile.TemporaryDirectory(prefix="pitchguard-bench-") as tmp:
             path = Path(tmp) / f"gen_{args.size}.gds"
@@ -369,28 +417,38 @@ def worker_baseline(args) -> dict:
 
 
 def run_worker(mode: str, extra: list[str], timeout: float) -> dict:
+    """Run one measurement in a fresh interpreter; return its last (maybe partial) result."""
     cmd = [sys.executable, str(Path(__file__).resolve()), "--worker", mode, *extra]
     t0 = time.perf_counter()
+    # stderr is not captured: progress (and gdstk's warnings) go to the terminal.
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE)
+    status = None
     try:
-        proc = subprocess.run(cmd, capture_output=True, timeout=timeout, check=False)
+        stdout, _ = proc.communicate(timeout=timeout)
     except subprocess.TimeoutExpired:
-        return {"error": f"{mode}: timed out after {timeout:.0f} s"}
-    wall = time.perf_counter() - t0
-    text = proc.stdout.decode("utf-8", "replace")
-    for line in text.splitlines():
+        proc.kill()
+        stdout, _ = proc.communicate()
+        status = f"timed out after {timeout:.0f} s"
+    if status is None and proc.returncode != 0:
+        rc = proc.returncode
+        status = f"killed by signal {-rc}" if rc < 0 else f"exit status {rc}"
+    res: dict = {}
+    for line in stdout.decode("utf-8", "replace").splitlines():
         if line.startswith(RESULT_TAG):
-            res = json.loads(line[len(RESULT_TAG):])
-            res["wall"] = wall
-            return res
-    err = proc.stderr.decode("utf-8", "replace").strip().splitlines()[-5:]
-    return {"error": f"{mode}: exit {proc.returncode}: " + " | ".join(err)}
+            res = json.loads(line[len(RESULT_TAG) :])
+    res["wall"] = time.perf_counter() - t0
+    if status:
+        where = f" during {res['running']}" if res.get("running") else ""
+        name = "traced extract" if "--trace" in extra else mode
+        res["error"] = f"{name} worker {status}{where} after {res['wall']:.0f} s"
+    return res
 
 
 def _f(x, fmt=None, none="-"):
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
         return none
-    if fmt is None:  # seconds: three decimals below 10 s
-        fmt = "{:.3f}" if x < 10 else "{:.1f}"
+    if fmt is None:  # seconds: 1-2 significant digits more for small values
+        fmt = "{:.4f}" if x < 0.01 else "{:.3f}" if x < 10 else "{:.1f}"
     return fmt.format(x)
 
 
@@ -421,9 +479,7 @@ def main(argv=None) -> int:
 
     if args.worker:
         fn = worker_extract if args.worker == "extract" else worker_baseline
-        res = fn(args)
-        sys.stdout.write(RESULT_TAG + json.dumps(res) + "\n")
-        sys.stdout.flush()
+        emit(fn(args))
         return 0
 
     sizes = [10_000, 100_000] if args.quick else _sizes(args.sizes)
@@ -441,51 +497,68 @@ def main(argv=None) -> int:
     for n in sizes:
         jobs.append((f"gen {n:.0e}".replace("+0", ""), ["--size", str(n)], n <= args.trace_max))
 
-    print(f"python {sys.version.split()[0]}, numpy {np.__version__}, {os.cpu_count()} cpus; "
-          f"each row in fresh processes ({'with' if args.trace_pass else 'no'} tracemalloc pass)")  # fmt: skip
+    traced_txt = "with" if args.trace_pass else "no"
+    print(
+        f"python {sys.version.split()[0]}, numpy {np.__version__}, {os.cpu_count()} cpus; "
+        f"each row in fresh processes ({traced_txt} tracemalloc pass)"
+    )
     rows = []
     for label, extra, traced in jobs:
         print(f"  running {label} ...", flush=True)
-        ex = run_worker("extract", extra, args.timeout)
         gds = ["--write-gds"] if args.gds and "--file" not in extra else []
         bl = run_worker("baseline", extra + gds, args.timeout)
+        ex = run_worker("extract", extra, args.timeout)
         tr = {}
         if args.trace_pass and traced:
             tr = run_worker("extract", extra + ["--trace"], args.timeout)
-        for r in (ex, bl, tr):
+        for r in (bl, ex, tr):
             if "error" in r:
                 print(f"    {label}: {r['error']}")
         rows.append((label, ex, bl, tr))
 
-    # n log n reference: smallest generated size that ran.
+    # n log n reference: smallest generated size that ran to the end.
     ref = None
     for label, ex, _, _ in rows:
-        if label.startswith("gen") and "error" not in ex and ex["shapes"] > 1:
+        if label.startswith("gen") and ex.get("done") and ex["shapes"] > 1:
             t = sum(ex["seconds"].values())
             cand = (ex["shapes"], t / (ex["shapes"] * math.log2(ex["shapes"])))
             if ref is None or cand[0] < ref[0]:
                 ref = cand
 
     head = ["layout", "shapes", "sites", "read", "build", "sites", "classify", "total",
-            "us/shape", "nlogn", "baseline", "x base", "rss0 MB", "peakRSS", "py-peak MB"]  # fmt: skip
+            "us/shape", "nlogn", "baseline", "x base", "rss0 MB", "peakRSS",
+            "py-peak MB"]  # fmt: skip
     table = []
     for label, ex, bl, tr in rows:
-        if "error" in ex:
-            table.append([label] + ["err"] * (len(head) - 1))
-            continue
-        s = ex["seconds"]
-        total = sum(s.values())
-        n = ex["shapes"]
+        s = ex.get("seconds", {})
+        done = bool(ex.get("done"))
+        total = sum(s.values()) if s else None
+        n = ex.get("shapes", bl.get("shapes"))
         read = ex.get("read", bl.get("read"))
-        gen = label.startswith("gen")
-        scaling = (total / (n * math.log2(n))) / ref[1] if gen and ref and n > 1 else None
         base = bl.get("baseline")
+
+        def stage(k, s=s, ex=ex):
+            if k in s:
+                return _f(s[k])
+            return "DIED" if ex.get("running") == k else "-"
+
+        if done:
+            tot = _f(total)
+            per = _f(1e6 * total / n, "{:.1f}")
+            gen = label.startswith("gen")
+            scaling = (total / (n * math.log2(n))) / ref[1] if gen and ref and n > 1 else None
+            ratio = _f(total / base if base else None, "{:.0f}x")
+        else:  # killed or timed out: what it did finish is a lower bound
+            tot = f">{_f(total)}" if total else "-"
+            per = f">{1e6 * total / n:.1f}" if total and n else "-"
+            scaling = None
+            ratio = f">{total / base:.0f}x" if total and base else "-"
         py = tr.get("py_peak", {})
         table.append([
-            label, f"{n:,}", f"{ex['sites']:,}", _f(read), _f(s.get("build")),
-            _f(s.get("sites")), _f(s.get("classify")), _f(total), _f(1e6 * total / n, "{:.1f}"),
-            _f(scaling), _f(base), _f(total / base if base else None, "{:.0f}x"),
-            _f(ex["rss0"], "{:.0f}"), _f(ex["maxrss"], "{:.0f}"),
+            label, f"{n:,}" if n else "?", f"{ex['sites']:,}" if done else "-", _f(read),
+            stage("build"), stage("sites"), stage("classify"), tot, per, _f(scaling), _f(base),
+            ratio, _f(ex.get("rss0"), "{:.0f}"),
+            _f(ex.get("maxrss"), "{:.0f}") + ("" if done else "+"),
             "/".join(_f(py.get(k), "{:.0f}") for k in ("build", "sites", "classify")) if py
             else "-",
         ])  # fmt: skip
@@ -500,20 +573,28 @@ def main(argv=None) -> int:
     print("read = read_layout of the GDSII (generated rows: written to a temp file and read back);")
     print("nlogn = (total / n log2 n) relative to the smallest generated size (~1: n log n,")
     print("        ~10x per decade: n^2); generated rows only;")
-    print("baseline = gdstk get_polygons + PolygonSet.from_arrays; x base = total / baseline;")
+    print("baseline = gdstk get_polygons + PolygonSet.from_arrays, best of 3;")
+    print("           x base = total / baseline;")
     print("rss0 = RSS with the polygons loaded, peakRSS = ru_maxrss of the extraction process;")
     print("py-peak = tracemalloc peak per stage build/sites/classify, MB (separate traced run;")
     print(f"          '-' = not traced: sizes above --trace-max {args.trace_max:.0e}).")
+    print("DIED = the worker was killed or timed out in this stage; '>' = lower bound.")
     extra_lines = []
     for label, ex, bl, tr in rows:
-        if "error" in ex:
-            continue
-        bits = [f"{label}: {ex['edges']:,} edges, {ex['findings']:,} findings"]
+        bits = [label + ":"]
+        if ex.get("done"):
+            bits[0] += f" {ex['edges']:,} edges, {ex['findings']:,} findings"
+        for r in (bl, ex, tr):
+            if "error" in r:
+                bits.append(r["error"])
         if "generate" in ex:
             bits.append(f"generate {ex['generate']:.2f} s")
         if "write" in bl:
             bits.append(f"GDSII write {bl['write']:.2f} s ({bl['gds_mb']:.0f} MB), "
                         f"read back {bl['read_shapes']:,} shapes")  # fmt: skip
+        if "baseline_runs" in bl:
+            runs = "/".join(f"{t:.3f}" for t in bl["baseline_runs"])
+            bits.append(f"baseline runs {runs} s")
         if "maxrss" in bl:
             bits.append(f"baseline/read process peakRSS {bl['maxrss']:.0f} MB")
         if tr and "seconds" in tr:
