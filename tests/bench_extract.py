@@ -340,25 +340,10 @@ def worker_extract(args) -> dict:
 
 def _flatten_pack(lib, layers):
     """The baseline: what flattening + packing costs (read_layout's tail)."""
-    from pitchguard.layout import PolygonSet
+    from pitchguard.layout import flatten_layer
 
     tops = [c for c in lib.top_level() if hasattr(c, "get_polygons")]
-    n = 0
-    for ld in layers:
-        pts = []
-        for top in tops:
-            pts.extend(
-                q.points
-                for q in top.get_polygons(
-                    apply_repetitions=True,
-                    include_paths=True,
-                    depth=None,
-                    layer=ld[0],
-                    datatype=ld[1],
-                )  # fmt: skip
-            )
-        n += len(PolygonSet.from_arrays(pts, lib.unit * 1e9))
-    return n
+    return sum(len(flatten_layer(tops, ld, lib.unit * 1e9)) for ld in layers)
 
 
 BASELINE_REPEATS = 3

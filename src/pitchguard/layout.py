@@ -201,6 +201,25 @@ def _count_shapes(cell, wanted: set[tuple[int, int]], memo: dict) -> int:
     return n
 
 
+def flatten_layer(tops, layer_datatype: tuple[int, int], scale: float) -> PolygonSet:
+    """All polygons of one layer/datatype under ``tops``, flattened and packed.
+
+    ``scale`` converts user units to nm.  References (rotation, reflection,
+    magnification, arrays) and repetitions are applied; paths become polygons.
+    """
+    layer, datatype = layer_datatype
+    polys = []
+    for top in tops:
+        polys.extend(
+            q.points
+            for q in top.get_polygons(
+                apply_repetitions=True, include_paths=True, depth=None,
+                layer=layer, datatype=datatype,
+            )  # fmt: skip
+        )
+    return PolygonSet.from_arrays(polys, scale)
+
+
 def read_layout(
     path: str | Path,
     layers: Iterable[tuple[int, int]],
@@ -267,19 +286,7 @@ def read_layout(
     out: dict[tuple[int, int], PolygonSet] = {}
     with captured_stderr() as noise:
         for ld in sorted(wanted):
-            polys = []
-            for top in tops:
-                polys.extend(
-                    q.points
-                    for q in top.get_polygons(
-                        apply_repetitions=True,
-                        include_paths=True,
-                        depth=None,
-                        layer=ld[0],
-                        datatype=ld[1],
-                    )
-                )
-            ps = PolygonSet.from_arrays(polys, scale)
+            ps = flatten_layer(tops, ld, scale)
             # Back onto the database grid: nm conversion and transforms leave
             # float noise (199.9999999 for 200); the mask writer snaps anyway.
             grid_nm = lib.precision * 1e9

@@ -435,7 +435,7 @@ def test_parse_deck_without_a_file_says_deck():
     assert str(info.value) == "<deck>: colour: unknown key"
 
 
-# --------------------------------------------------------------------------- formerly open bugs, now fixed
+# ------------------------------------------------------------- regressions (bugs fixed once)
 
 
 def test_message_stays_one_line_for_a_key_with_a_newline(tmp_path):
