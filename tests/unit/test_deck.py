@@ -121,7 +121,7 @@ def test_unnamed_deck_takes_the_file_stem(tmp_path):
 
 
 def test_k1_bands_default_to_030_and_040(tmp_path):
-    # Bands are common practice (domain.md): k1 < ~0.3 needs strong RET, 0.3-0.4 demanding.
+    # Bands are common practice (common practice): k1 < ~0.3 needs strong RET, 0.3-0.4 demanding.
     deck = load_deck(write_deck(tmp_path, VALID_DECK))
     m1 = deck.layer("M1")
     assert m1.k1_risk_below == 0.30

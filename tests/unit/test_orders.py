@@ -8,8 +8,8 @@ grating optics, with its source named beside it:
   sigma NA/lambda (grating equation and pupil cutoff, any Fourier-optics text,
   e.g. Goodman, Introduction to Fourier Optics);
 * cutoff pitch lambda / (NA (1 + reach)), reach being how far the source
-  extends along the pitch direction (domain.md; arithmetic from the above);
-* k1 = (p/2) NA / lambda (domain.md, half-pitch form);
+  extends along the pitch direction (Goodman, Fourier optics; arithmetic from the above);
+* k1 = (p/2) NA / lambda (half-pitch form of the process factor: common practice);
 * plane geometry and calculus for how far ring sectors (dipole and quadrupole
   poles) reach, and for the area of the intersection of two discs.
 """
@@ -29,7 +29,7 @@ REACH_PRECISION = 1e-3  # relative: sector reach found from a boundary sampled e
 FRACTION_TOL = 0.005  # absolute: source fractions come from a 0.02-sigma grid
 MARGIN = 0.01  # 1 % either side of a cutoff: far beyond any sampling error
 
-# Wavelengths and NAs of real scanner families (common practice, domain.md).
+# Wavelengths and NAs of real scanner families (common practice).
 ARF_NM = 193.0
 KRF_NM = 248.0
 I_LINE_NM = 365.0
@@ -76,7 +76,7 @@ def quadrupole(opening_deg: float, inner: float = 0.6, outer: float = 0.9, **ext
 
 
 def cutoff_formula(wavelength_nm: float, na: float, reach: float) -> float:
-    """lambda / (NA (1 + reach)): domain.md, from the grating equation."""
+    """lambda / (NA (1 + reach)): Goodman, Fourier optics, from the grating equation."""
     return wavelength_nm / (na * (1.0 + reach))
 
 
@@ -103,7 +103,7 @@ def test_250nm_pitch_at_193nm_na093_passes_orders_0_and_pm1_on_axis(orientation_
     ],
 )
 def test_orders_on_axis_are_floor_of_p_na_over_lambda(pitch_nm, expected):
-    # Grating equation: |n| <= p NA / lambda on axis (Goodman; domain.md).
+    # Grating equation: |n| <= p NA / lambda on axis (Goodman, Fourier optics).
     n_max = math.floor(pitch_nm * DRY_ARF_NA / ARF_NM)
     assert expected == tuple(range(-n_max, n_max + 1))  # the table agrees with the formula
     res = analyse_pitch(exposure(CONVENTIONAL_07), pitch_nm, 90.0)
@@ -124,7 +124,7 @@ def test_orders_on_axis_are_floor_of_p_na_over_lambda(pitch_nm, expected):
 )
 @pytest.mark.parametrize("orientation_deg", [0.0, 90.0, 45.0, 30.0, 137.0])
 def test_cutoff_pitch_of_round_sources(illumination, reach, orientation_deg):
-    # domain.md (arithmetic): p_min = lambda / (NA (1 + sigma_max)).
+    # Goodman, Fourier optics (arithmetic): p_min = lambda / (NA (1 + sigma_max)).
     exp = exposure(illumination)
     p_cut = cutoff_formula(ARF_NM, DRY_ARF_NA, reach)
     assert exp.cutoff_pitch_nm == pytest.approx(p_cut, rel=PRECISION)
@@ -154,13 +154,13 @@ def test_cutoff_pitch_of_round_sources(illumination, reach, orientation_deg):
     ],
 )
 def test_k1_is_half_pitch_times_na_over_lambda(wavelength_nm, na, index, pitch_nm, k1):
-    # domain.md: k1 = (p / 2) NA / lambda.
+    # Common practice (half-pitch form of the process factor): k1 = (p / 2) NA / lambda.
     exp = exposure(CONVENTIONAL_07, wavelength_nm, na, index)
     assert analyse_pitch(exp, pitch_nm, 90.0).k1 == pytest.approx(k1, rel=1e-9)
 
 
 def test_k1_quarter_at_193nm_na135_is_a_35_7nm_half_pitch():
-    # domain.md (arithmetic): k1 = 0.25 at 193 nm / NA 1.35 gives half pitch 35.7 nm.
+    # Arithmetic from k1 = (p/2) NA / lambda: k1 = 0.25 at 193 nm / NA 1.35 is half pitch 35.7 nm.
     half_pitch_nm = 0.25 * ARF_NM / IMMERSION_NA
     assert half_pitch_nm == pytest.approx(35.7, abs=0.05)
     exp = exposure({"shape": "conventional", "sigma": 1.0}, ARF_NM, IMMERSION_NA, WATER_INDEX)
@@ -179,7 +179,7 @@ def sector_reach_2d(inner: float, outer: float, theta_max_deg: float) -> float:
     """Largest first-order shift q (units of NA/lambda) a ring sector can still image.
 
     Pitch along y; the sector spans angles up to ``theta_max_deg`` (0..90) from
-    the x axis.  From the pupil condition of domain.md, a source point
+    the x axis.  From the pupil condition (Goodman, Fourier optics), a source point
     (r cos t, r sin t) passes the 0th order and the order shifted by -q along y
     iff (r sin t - q)^2 + (r cos t)^2 <= 1, i.e. q <= f(r, t) = r sin t +
     sqrt(1 - r^2 cos^2 t).  f grows with t on (0, 90 deg), and is concave in r
@@ -220,7 +220,7 @@ def test_sector_reach_helper_agrees_with_brute_force(inner, outer, theta_max_deg
     ],
 )
 def test_dipole_on_x_images_vertical_lines_not_horizontal(opening_deg):
-    # domain.md: a dipole on x images vertical lines (pitch along x) and hurts
+    # Pupil condition (Goodman, Fourier optics): a dipole on x images vertical lines (pitch along x) and hurts
     # horizontal ones.
     outer = 0.9
     exp = exposure(dipole(opening_deg, "x", outer=outer))
@@ -260,7 +260,7 @@ OFF_AXIS_POLES = [
 def test_off_axis_poles_resolve_from_the_2d_pupil_cutoff(
     illumination, orientation_deg, theta_max_deg
 ):
-    # domain.md pupil condition, maximised over the pole (sector_reach_2d).
+    # Pupil condition (Goodman, Fourier optics), maximised over the pole (sector_reach_2d).
     exp = exposure(illumination)
     ill = exp.illumination
     q_max = sector_reach_2d(ill.sigma_inner, ill.sigma_outer, theta_max_deg)
@@ -358,7 +358,7 @@ def test_quadrupole_default_rotation_serves_x_and_y_lines_alike(opening_deg):
 def test_coherent_source_resolves_iff_pitch_at_least_lambda_over_na(
     wavelength_nm, na, index, factor, resolvable
 ):
-    # Grating equation (Goodman; domain.md): on axis the first order passes iff
+    # Grating equation (Goodman, Fourier optics): on axis the first order passes iff
     # 1/p <= NA/lambda.
     exp = exposure(COHERENT, wavelength_nm, na, index)
     lam_na = wavelength_nm / na
