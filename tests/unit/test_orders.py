@@ -220,8 +220,8 @@ def test_sector_reach_helper_agrees_with_brute_force(inner, outer, theta_max_deg
     ],
 )
 def test_dipole_on_x_images_vertical_lines_not_horizontal(opening_deg):
-    # Pupil condition (Goodman, Fourier optics): a dipole on x images vertical lines (pitch along x) and hurts
-    # horizontal ones.
+    # Pupil condition (Goodman, Fourier optics): a dipole on x images vertical
+    # lines (pitch along x) and hurts horizontal ones.
     outer = 0.9
     exp = exposure(dipole(opening_deg, "x", outer=outer))
     # Vertical lines: the poles sit on the pitch axis, reach sigma_outer.
