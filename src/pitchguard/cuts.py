@@ -1,0 +1,213 @@
+"""1-D cuts through sites: the real neighbourhood each site is imaged with.
+
+For a site, the cut is the line through the middle of its edge piece along
+the outward normal, from ``-ambit`` to ``+ambit``.  Where it crosses feature
+boundaries gives the drawn profile: the site's own feature ``[-width, 0]``,
+the space ``[0, space]``, then whatever lies beyond (the next lines of an
+array, or nothing for its last line).
+
+Cuts are made canonical (positions relative to the feature centre, quantised
+to the database grid, and the smaller of the profile and its mirror image) so
+that identical neighbourhoods, and the two sides of one line, are imaged
+once.  Every illumination shape here is point-symmetric (s -> -s), so a
+mirrored profile images as the mirror image.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from pitchguard.extract import Edges, Sites, _EdgeFrames, _query_pairs
+
+
+@dataclass(frozen=True)
+class Cut:
+    """A canonical drawn profile: boundaries (nm, relative to the feature centre).
+
+    ``bounds`` are sorted; material (drawn shape) lies between ``bounds[0]``
+    and ``bounds[1]``, ``bounds[2]`` and ``bounds[3]``, ... The profile is
+    clipped to ``[-reach, reach]``; the site's own feature is the interval
+    containing 0.
+    """
+
+    bounds: tuple[float, ...]
+    reach: float
+
+    @property
+    def feature(self) -> tuple[float, float]:
+        b = self.bounds
+        for k in range(0, len(b) - 1, 2):
+            if b[k] <= 0.0 <= b[k + 1]:
+                return b[k], b[k + 1]
+        raise ValueError("cut has no feature at its centre")
+
+    @property
+    def search(self) -> tuple[float, float]:
+        """Where the feature's printed edges may lie: to the middle of each neighbouring space."""
+        left, right = self.feature
+        b = list(self.bounds)
+        k = b.index(left)
+        lo = 0.5 * (left + b[k - 1]) if k >= 1 else -self.reach
+        hi = 0.5 * (right + b[k + 2]) if k + 2 < len(b) else self.reach
+        return lo, hi
+
+
+def site_cuts(
+    edges: Edges,
+    sites: Sites,
+    ambit_nm: float,
+    grid_nm: float,
+) -> tuple[np.ndarray, list[Cut], np.ndarray]:
+    """Canonical cut of every site with a finite width.
+
+    Returns ``(which, cuts, valid)``: ``cuts[which[k]]`` is the cut of site
+    ``k`` (``which[k] = -1`` where the site has no cut: infinite width or an
+    inconsistent crossing pattern), ``valid`` marks sites with a cut.
+    """
+    n = len(sites)
+    which = np.full(n, -1, dtype=np.int64)
+    if n == 0 or len(edges) == 0:
+        return which, [], np.zeros(n, dtype=bool)
+    a, b = edges.a, edges.b
+    vec = b - a
+    length = np.hypot(vec[:, 0], vec[:, 1])
+    d = vec / length[:, None]
+    eps = grid_nm * 0.25
+    frames = _EdgeFrames(a, b, d, eps)
+
+    mid = sites.midpoints()
+    nrm = sites.normal
+    todo = np.flatnonzero(np.isfinite(sites.width) & (sites.width <= ambit_nm))
+    keys: dict[tuple, int] = {}
+    cuts: list[Cut] = []
+    q = grid_nm
+    chunk = 50_000
+    for c0 in range(0, len(todo), chunk):
+        ids = todo[c0 : c0 + chunk]
+        p0 = mid[ids] - nrm[ids] * ambit_nm
+        p1 = mid[ids] + nrm[ids] * ambit_nm
+        qk, j = _segment_pairs(frames, p0, p1, sites.direction[ids])
+        # Intersection of cut k (mid + t n, |t| <= ambit) with edge j.
+        m, nn = mid[ids][qk], nrm[ids][qk]
+        e0, ev = a[j], vec[j]
+        den = nn[:, 0] * ev[:, 1] - nn[:, 1] * ev[:, 0]
+        ok = np.abs(den) > 1e-12
+        r = e0 - m
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = (r[:, 0] * ev[:, 1] - r[:, 1] * ev[:, 0]) / den
+            u = (r[:, 0] * nn[:, 1] - r[:, 1] * nn[:, 0]) / den
+        ok &= (u >= -1e-9) & (u <= 1 + 1e-9) & (np.abs(t) <= ambit_nm)
+        own = j == sites.edge[ids][qk]
+        ok &= ~own
+        # Entering material when moving against the edge's outward normal.
+        out_j = np.stack([d[j, 1], -d[j, 0]], axis=1)
+        entering = np.einsum("ij,ij->i", nn, out_j) < 0
+        qk, t, entering = qk[ok], t[ok], entering[ok]
+        order = np.lexsort((t, qk))
+        qk, t, entering = qk[order], t[order], entering[order]
+        starts = np.searchsorted(qk, np.arange(len(ids)))
+        ends = np.searchsorted(qk, np.arange(len(ids)), side="right")
+        t_l, ent_l = t.tolist(), entering.tolist()
+        for k, site in enumerate(ids.tolist()):
+            ts = t_l[starts[k] : ends[k]]
+            en = ent_l[starts[k] : ends[k]]
+            bounds = _bounds(ts, en, ambit_nm, q)
+            if bounds is None:
+                continue
+            w = float(sites.width[site])
+            centre = -0.5 * w
+            rel = tuple(round((x - centre) / q) for x in bounds)
+            mirrored = tuple(-v for v in reversed(rel))
+            key = min(rel, mirrored)
+            idx = keys.get(key)
+            if idx is None:
+                idx = len(cuts)
+                keys[key] = idx
+                cuts.append(Cut(tuple(v * q for v in key), ambit_nm))
+            which[site] = idx
+    return which, cuts, which >= 0
+
+
+def _segment_pairs(frames: _EdgeFrames, p0, p1, line_dir):
+    """Candidate edges for cut segments p0-p1 (grouped by the site's orientation)."""
+    ang = np.degrees(np.arctan2(line_dir[:, 1], line_dir[:, 0])) % 90.0
+    key = np.round(ang * 2.0).astype(np.int64) % 180
+    group = np.where(np.isin(key, list(frames.turn)), key, 0)
+    out_k, out_j = [], []
+    for g in np.unique(group).tolist():
+        sel = np.flatnonzero(group == g)
+        th = frames.turn[g]
+        ends = np.stack([p0[sel], p1[sel]])
+        ends = frames._rotated(th, ends.reshape(-1, 2)).reshape(ends.shape)
+        qk, j = _query_pairs(frames._tree(g), ends.min(axis=0), ends.max(axis=0))
+        out_k.append(sel[qk])
+        out_j.append(j)
+    return np.concatenate(out_k), np.concatenate(out_j)
+
+
+def _bounds(ts: list[float], entering: list[bool], reach: float, q: float) -> list[float] | None:
+    """Material boundaries along one cut, or None when the crossings are inconsistent.
+
+    At ``t = 0-`` the cut is inside the site's feature and at ``0+`` in its
+    space.  Walking outward, crossings must alternate; a vertex hit twice
+    (two edges meeting on the cut) is merged.
+    """
+    neg = [(t, e) for t, e in zip(ts, entering, strict=True) if t < 0][::-1]  # outward
+    pos = [(t, e) for t, e in zip(ts, entering, strict=True) if t > 0]
+    out_neg: list[float] = []
+    inside = True  # walking towards -t from inside the feature
+    for t, ent in _dedupe(neg, q):
+        # Walking backwards along the cut, "entering" (forward) means leaving.
+        if inside != ent:
+            return None
+        inside = not inside
+        out_neg.append(t)
+    out_pos: list[float] = []
+    inside = False
+    for t, ent in _dedupe(pos, q):
+        if inside == ent:
+            return None
+        inside = not inside
+        out_pos.append(t)
+    lo = [-reach] if len(out_neg) % 2 == 0 else []  # material runs past the cut's end
+    hi = [reach] if len(out_pos) % 2 == 1 else []
+    bounds = lo + out_neg[::-1] + [0.0] + out_pos + hi
+    if len(bounds) % 2:
+        return None
+    return bounds
+
+
+def _dedupe(cross: list[tuple[float, bool]], q: float):
+    """Drop a crossing repeated at the same place with the same sense (a shared vertex)."""
+    out: list[tuple[float, bool]] = []
+    for t, e in cross:
+        if out and abs(out[-1][0] - t) <= 0.25 * q and out[-1][1] == e:
+            continue
+        out.append((t, e))
+    return out
+
+
+def cut_segments(cut: Cut, period_nm: float) -> tuple[np.ndarray, np.ndarray]:
+    """Period ``[-P/2, P/2)`` split at the cut's boundaries: ``(edges, is_material)``."""
+    half = period_nm / 2
+    b = [min(max(v, -half), half) for v in cut.bounds]
+    edges = [-half]
+    material = []
+    state = False
+    for v in b:
+        if v > edges[-1]:
+            edges.append(v)
+            material.append(state)
+        state = not state
+    if edges[-1] < half:
+        edges.append(half)
+        material.append(state)
+    return np.array(edges), np.array(material, dtype=bool)
+
+
+def window_period(ambit_nm: float, lambda_over_na_nm: float) -> float:
+    """Image period of a cut: the cut (2 ambit) plus one lambda/NA of padding each side."""
+    return 2.0 * ambit_nm + 2.0 * lambda_over_na_nm
+
