@@ -37,18 +37,25 @@ ANNOTATION = (63, 0)  # not in the deck: must be ignored
 # rules/demo_chip.toml; None: no finding).  Lines along y are 90 degrees.
 EXPECTED = [
     ("active relaxed, pitch 400", "active", 400, 90, None),
-    ("active rotated 90, pitch 220", "active", 220, 0, "marginal"),
+    # k1 0.355 is marginal; its image (NILS 1.3 at the drawn edges) makes it a risk.
+    ("active rotated 90, pitch 220", "active", 220, 0, "risk"),
     ("active, pitch 180", "active", 180, 90, "risk"),
     ("active magnified x2, pitch 160", "active", 160, 90, "fail"),
     ("poly paths, pitch 300", "poly", 300, 90, None),
     ("poly split in pieces, pitch 150", "poly", 150, 90, "marginal"),
     ("poly rotated 45, pitch 120", "poly", 120, 135, "risk"),
     ("poly mirrored array, pitch 110", "poly", 110, 90, "fail"),
-    ("metal1 relaxed, pitch 180", "metal1", 180, 90, None),
+    # Relaxed by k1, but 90 nm trenches print 12 % wide at the dose anchored on
+    # the 80 nm pitch (iso-dense bias): a CD-error risk.
+    ("metal1 relaxed, pitch 180", "metal1", 180, 90, "risk"),
     ("metal1 vertical arrayed, pitch 80", "metal1", 80, 90, "risk"),
-    ("metal1 vertical, pitch 100", "metal1", 100, 90, "marginal"),
+    # k1 0.35 is marginal; NILS 1.3 at the array's edge lines makes it a risk.
+    ("metal1 vertical, pitch 100", "metal1", 100, 90, "risk"),
     ("metal1 horizontal, pitch 100 (dipole on x)", "metal1", 100, 0, "fail"),
     ("metal1 vertical, pitch 70", "metal1", 70, 90, "fail"),
+    # k1 0.49 passes the k1 bands, but 40 nm trenches at this pitch do not print
+    # at the anchored dose under the dipole: flagged on image grounds only.
+    ("metal1 narrow trenches, pitch 140", "metal1", 140, 90, "fail"),
 ]
 
 
@@ -133,9 +140,12 @@ def build() -> gdstk.Library:
     m1_70 = line_cell(lib, "M1_P70", METAL1, 70, 35, 12, 1500)
     top.add(gdstk.Reference(m1_70, (20, 18)))
 
+    m1_140 = line_cell(lib, "M1_P140_NARROW", METAL1, 140, 40, 10, 1500)
+    top.add(gdstk.Reference(m1_140, (23, 18)))
+
     # ------------------------------------------------------------ ignored layer
     notes = line_cell(lib, "NOTES_P20", ANNOTATION, 20, 10, 20, 1000)
-    top.add(gdstk.Reference(notes, (24, 18)))
+    top.add(gdstk.Reference(notes, (27, 18)))
     top.add(gdstk.Label("WREN-3 demo chip", (0, -1), layer=ANNOTATION[0]))
     return lib
 

@@ -8,6 +8,13 @@ Checks (stable identifiers; see "Checks" in README.md):
 ``low-k1`` (severity ``risk`` or ``marginal``)
     k1 = (p / 2) NA / lambda lies below the layer's ``k1_risk_below`` or
     ``k1_marginal_below`` band.
+``feature-not-printed`` / ``features-bridged`` (``fail``)
+    In the aerial image of the site's real cut, at best focus and nominal
+    dose, the feature has no threshold crossing, or it runs into its
+    neighbour.
+``low-nils`` (``risk`` / ``marginal``), ``low-exposure-latitude``,
+``low-depth-of-focus``, ``cd-error`` (``risk``)
+    Image metrics below the layer's limits (see printing.py).
 
 Adjacent sites of one layer with the same orientation, pitch class (within
 ``pitch_tolerance_nm``) and severity are merged into one region; one finding
@@ -18,6 +25,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from scipy.sparse import coo_matrix
@@ -26,6 +34,7 @@ from scipy.sparse.csgraph import connected_components
 from pitchguard.deck import SEVERITIES, LayerRule
 from pitchguard.extract import Sites, _query_pairs, _rtree
 from pitchguard.orders import OrderResult, analyse_pitch
+from pitchguard.printing import Metrics
 
 OK = len(SEVERITIES)
 """Severity code of a site that passes (codes 0.. are indexes into SEVERITIES)."""
@@ -33,13 +42,35 @@ OK = len(SEVERITIES)
 CHECKS = {
     "unresolvable-pitch": "No source point sends the 0th and a 1st diffraction order "
     "through the pupil: the pitch cannot image.",
+    "feature-not-printed": "At best focus and nominal dose the feature's image never "
+    "crosses the threshold: it does not print.",
+    "features-bridged": "At best focus and nominal dose the printed feature runs into "
+    "its neighbour.",
     "low-k1": "k1 = (pitch/2) NA / lambda is below the layer's k1 band.",
+    "low-nils": "The normalised image log-slope at the drawn edges is below the layer's "
+    "NILS band.",
+    "low-exposure-latitude": "The dose range holding CD within tolerance is below el_min_pct.",
+    "low-depth-of-focus": "The focus range holding CD within tolerance with el_min_pct "
+    "exposure latitude is below dof_min_nm.",
+    "cd-error": "At the anchored dose the printed CD is off the drawn CD by more than "
+    "cd_tolerance_pct.",
 }
 """Check identifiers and one-line descriptions (stable: baselines refer to them)."""
 
 ORIENTATION_TOL_DEG = 0.5
 """Sites whose lines differ in direction by less than this may share a region (grid
 snapping tilts the edges of rotated geometry by a few hundredths of a degree)."""
+
+
+@dataclass(frozen=True)
+class Violation:
+    """One limit a site breaks: which check, how bad, the value against the limit."""
+
+    check: str
+    severity: str
+    value: float
+    limit: float
+    message: str
 
 
 @dataclass(frozen=True)
@@ -71,6 +102,14 @@ class Finding:
     limit: str
     message: str
     hint: str
+    # Image metrics of the worst site (nan when not imaged); CDs in wafer nm.
+    contrast: float = math.nan
+    nils: float = math.nan
+    cd_nm: float = math.nan
+    cd_error_pct: float = math.nan
+    el_pct: float = math.nan
+    dof_nm: float = math.nan
+    violations: tuple[Violation, ...] = ()
 
     @property
     def bbox_um(self) -> tuple[float, float, float, float]:
@@ -86,27 +125,98 @@ class Finding:
         return SEVERITIES.index(self.severity)
 
 
-def _judge(rule: LayerRule, res: OrderResult) -> int:
-    if not res.resolvable:
-        return 0
-    if res.k1 < rule.k1_risk_below:
-        return 1
-    if res.k1 < rule.k1_marginal_below:
-        return 2
-    return OK
+def _fmt(x: float) -> str:
+    return f"{x:.1f}"
+
+
+def violations(
+    rule: LayerRule, res: OrderResult, metrics: Metrics | None, pitch_wafer: float
+) -> list[Violation]:
+    """Every limit a site breaks, worst first."""
+    out: list[Violation] = []
+    if math.isfinite(pitch_wafer) and not res.resolvable:
+        out.append(Violation(
+            "unresolvable-pitch", "fail", pitch_wafer, res.cutoff_pitch_nm,
+            f"pitch {_fmt(pitch_wafer)} nm (wafer) is below the {_fmt(res.cutoff_pitch_nm)} nm "
+            "this exposure can image in this direction: no source point sends a 1st order "
+            "through the pupil",
+        ))  # fmt: skip
+    m = metrics
+    if m is not None:
+        if m.lost:
+            out.append(Violation(
+                "feature-not-printed", "fail", m.contrast, 0.0,
+                f"the feature does not print at best focus and nominal dose "
+                f"(image contrast {m.contrast:.3f})",
+            ))  # fmt: skip
+        elif m.bridged:
+            out.append(Violation(
+                "features-bridged", "fail", m.contrast, 0.0,
+                "the printed feature runs into its neighbour at best focus and nominal dose",
+            ))  # fmt: skip
+    if math.isfinite(pitch_wafer):
+        k1_bands = (("risk", rule.k1_risk_below, "k1_risk_below"),
+                    ("marginal", rule.k1_marginal_below, "k1_marginal_below"))  # fmt: skip
+        for sev, band, key in k1_bands:
+            if res.k1 < band:
+                out.append(Violation(
+                    "low-k1", sev, res.k1, band,
+                    f"k1 {res.k1:.3f} is below {band:g} ({key}) at pitch "
+                    f"{_fmt(pitch_wafer)} nm (wafer)",
+                ))  # fmt: skip
+                break
+    if m is not None and not (m.lost or m.bridged):
+        nils_bands = (("risk", rule.nils_risk_below, "nils_risk_below"),
+                      ("marginal", rule.nils_marginal_below, "nils_marginal_below"))  # fmt: skip
+        for sev, band, key in nils_bands:
+            if m.nils < band:
+                out.append(Violation(
+                    "low-nils", sev, m.nils, band,
+                    f"NILS {m.nils:.2f} at the drawn edges is below {band:g} ({key})",
+                ))  # fmt: skip
+                break
+        if m.el_pct < rule.el_min_pct:
+            out.append(Violation(
+                "low-exposure-latitude", "risk", m.el_pct, rule.el_min_pct,
+                f"exposure latitude {m.el_pct:.1f} % is below {rule.el_min_pct:g} % "
+                f"(CD within +-{rule.cd_tolerance_pct:g} %)",
+            ))  # fmt: skip
+        if m.dof_nm < rule.dof_min_nm:
+            out.append(Violation(
+                "low-depth-of-focus", "risk", m.dof_nm, rule.dof_min_nm,
+                f"depth of focus {m.dof_nm:.0f} nm is below {rule.dof_min_nm:.0f} nm "
+                f"(at {rule.el_min_pct:g} % exposure latitude)",
+            ))  # fmt: skip
+        if math.isfinite(m.cd_error_pct) and abs(m.cd_error_pct) > rule.cd_tolerance_pct:
+            out.append(Violation(
+                "cd-error", "risk", m.cd_error_pct, rule.cd_tolerance_pct,
+                f"printed CD {m.cd_nm:.1f} nm is {m.cd_error_pct:+.1f} % off drawn at the "
+                f"anchored dose (tolerance +-{rule.cd_tolerance_pct:g} %)",
+            ))  # fmt: skip
+    out.sort(key=lambda v: SEVERITIES.index(v.severity))
+    return out
+
+
+def _code(vs: list[Violation]) -> int:
+    return SEVERITIES.index(vs[0].severity) if vs else OK
 
 
 def judge_sites(
-    sites: Sites, rule: LayerRule, scale_to_wafer: float
-) -> tuple[np.ndarray, list[OrderResult], np.ndarray]:
-    """Severity code per site, plus the order analysis of each unique pitch.
+    sites: Sites,
+    rule: LayerRule,
+    scale_to_wafer: float,
+    metrics: list[Metrics] | None = None,
+    which_cut: np.ndarray | None = None,
+) -> tuple[np.ndarray, list[OrderResult], np.ndarray, dict]:
+    """Severity code per site, with the analyses behind it.
 
-    Returns ``(severity, results, which)`` where ``results[which[k]]`` is the
-    analysis of site ``k`` (identical pitch/orientation pairs are analysed once).
+    Returns ``(severity, results, which, found)``: ``results[which[k]]`` is
+    the order analysis of site ``k`` (identical pitch/orientation pairs are
+    analysed once) and ``found[(which[k], which_cut[k])]`` its violations.
     """
     n = len(sites)
     if n == 0:
-        return np.zeros(0, dtype=np.int8), [], np.zeros(0, dtype=np.int64)
+        return np.zeros(0, dtype=np.int8), [], np.zeros(0, dtype=np.int64), {}
     pitch = sites.pitch * scale_to_wafer
     finite = np.isfinite(pitch)
     key = np.stack(
@@ -118,13 +228,23 @@ def judge_sites(
     )
     uniq, which = np.unique(key, axis=0, return_inverse=True)
     which = which.ravel()
-    results = []
-    codes = np.empty(len(uniq), dtype=np.int8)
-    for k, (p, ang) in enumerate(uniq):
-        res = analyse_pitch(rule.exposure, p if p > 0 else math.inf, float(ang))
-        results.append(res)
-        codes[k] = _judge(rule, res) if p > 0 else OK
-    return codes[which], results, which
+    results = [
+        analyse_pitch(rule.exposure, p if p > 0 else math.inf, float(ang)) for p, ang in uniq
+    ]
+    if which_cut is None:
+        which_cut = np.full(n, -1, dtype=np.int64)
+    pair = which.astype(np.int64) * (len(metrics or []) + 1) + (which_cut + 1)
+    upair, inv = np.unique(pair, return_inverse=True)
+    found: dict = {}
+    codes = np.empty(len(upair), dtype=np.int8)
+    for k, pv in enumerate(upair.tolist()):
+        w, c = divmod(pv, len(metrics or []) + 1)
+        p = uniq[w][0]
+        m = metrics[c - 1] if (metrics and c > 0) else None
+        vs = violations(rule, results[w], m, p if p > 0 else math.inf)
+        found[(w, c - 1)] = vs
+        codes[k] = _code(vs)
+    return codes[inv.ravel()], results, which, found
 
 
 def _periodicity(lines: int, dense_min: int) -> str:
@@ -136,7 +256,14 @@ def _periodicity(lines: int, dense_min: int) -> str:
 
 
 def _regions(sites: Sites, severity: np.ndarray, pitch_tol: float) -> np.ndarray:
-    """Region label per flagged site (adjacent, same severity, orientation and pitch class)."""
+    """Region label per flagged site: adjacent sites of one orientation and pitch class.
+
+    Severity does not split a region (the last lines of an array often image
+    worse than its middle: one finding, with the worst severity).  A site with
+    no neighbour within the ambit (infinite pitch: the outer side of an
+    array's last line) joins whatever it touches.
+    """
+    del severity  # kept in the signature: callers pass it, regions ignore it
     n = len(sites)
     corners = sites.corners()
     mins = corners.min(axis=1)
@@ -149,8 +276,11 @@ def _regions(sites: Sites, severity: np.ndarray, pitch_tol: float) -> np.ndarray
     dang = np.abs(ang[qi] - ang[qj])
     dang = np.minimum(dang, 180.0 - dang)
     pitch = sites.pitch
-    ok = (severity[qi] == severity[qj]) & (dang < ORIENTATION_TOL_DEG)
-    ok &= np.abs(pitch[qi] - pitch[qj]) <= pitch_tol
+    ok = dang < ORIENTATION_TOL_DEG
+    with np.errstate(invalid="ignore"):
+        same_pitch = np.abs(pitch[qi] - pitch[qj]) <= pitch_tol
+    same_pitch |= np.isinf(pitch[qi]) | np.isinf(pitch[qj])
+    ok &= same_pitch
     qi, qj = qi[ok], qj[ok]
     # Exact overlap test in the frame of site qi (both rectangles share it).
     d = sites.direction[qi]
@@ -168,57 +298,97 @@ def _regions(sites: Sites, severity: np.ndarray, pitch_tol: float) -> np.ndarray
     return labels
 
 
-def _fmt(x: float) -> str:
-    return f"{x:.1f}"
-
-
-def _explain(rule: LayerRule, code: int, res: OrderResult, pitch_drawn: float, scale: float):
-    """(check, limit, message, hint) for a flagged site; hint pitches are as drawn."""
-    lam, na = rule.exposure.wavelength_nm, rule.exposure.na
-    pitch_w = pitch_drawn * scale
-    if code == 0:
-        need = res.cutoff_pitch_nm / scale
-        return (
-            "unresolvable-pitch",
-            f"cutoff {res.cutoff_pitch_nm:.1f} nm (wafer)",
-            f"pitch {_fmt(pitch_drawn)} nm is below the {_fmt(need)} nm this exposure can "
-            f"image in this direction: no source point sends a 1st order through the pupil",
-            f"widen the pitch to at least {math.ceil(need * 10) / 10:.1f} nm, or use "
-            "illumination that reaches further along the pitch direction",
-        )
-    band = rule.k1_risk_below if code == 1 else rule.k1_marginal_below
-    key = "k1_risk_below" if code == 1 else "k1_marginal_below"
-    clear = rule.k1_marginal_below
-    need = 2.0 * clear * lam / na / scale
-    return (
-        "low-k1",
-        f"{key} = {band:g}",
-        f"k1 {res.k1:.3f} is below {band:g} ({key}) at pitch {_fmt(pitch_drawn)} nm "
-        f"({_fmt(pitch_w)} nm on the wafer)",
-        f"a pitch of at least {math.ceil(need * 10) / 10:.1f} nm reaches k1 {clear:g}",
-    )
-
-
 SNAP_PITCH_SPREAD = 2.0 * math.sqrt(2.0)
 """Two sites of one array may differ in pitch by up to this many grid steps once
 rotated geometry is snapped to the grid (each of the two edges that bound a
 pitch moves by up to 0.5 (|cos| + |sin|) <= 0.71 grid)."""
 
 
+IMAGE_CHECKS = ("feature-not-printed", "features-bridged", "low-nils",
+                "low-exposure-latitude", "low-depth-of-focus", "cd-error")  # fmt: skip
+HINT_RANGE = (0.6, 2.0)
+"""Pitches tried for a fix hint, as fractions of the flagged pitch."""
+
+
+@lru_cache(maxsize=4096)
+def _grating_passes(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
+    """True when an ideal grating of this CD and pitch (wafer nm) breaks no limit."""
+    from pitchguard.measure import grating_metrics
+
+    cd, pitch, angle = cd_q * quantum, pitch_q * quantum, angle_q / 10.0
+    res = analyse_pitch(rule.exposure, pitch, (angle - 90.0) % 180.0)
+    if violations(rule, res, None, pitch):  # orders and k1 first: no image needed
+        return False
+    m = None
+    if rule.image_checks:
+        m, _, _ = grating_metrics(rule, pitch, cd, angle)
+    return not violations(rule, res, m, pitch)
+
+
+def passing_pitch(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: float) -> float:
+    """Nearest pitch (wafer nm) at this CD whose ideal grating breaks no limit, or nan.
+
+    ``angle_deg`` is the pitch direction.  Pitches are tried on a grid of
+    lambda/NA / 40 between 0.6x and 2x the flagged pitch, nearest first.
+    """
+    quantum = rule.exposure.lambda_over_na_nm / 40.0
+    cd_q = int(round(cd_nm / quantum))
+    angle_q = int(round((angle_deg % 180.0) * 10))
+    lo = max(int(math.ceil(HINT_RANGE[0] * pitch_nm / quantum)), int(cd_q * 1.05) + 1)
+    hi = int(HINT_RANGE[1] * pitch_nm / quantum)
+    here = pitch_nm / quantum
+    for q in sorted(range(lo, hi + 1), key=lambda q: (abs(q - here), q)):
+        if _grating_passes(rule, cd_q, q, angle_q, quantum):
+            return q * quantum
+    return math.nan
+
+
+def _hint(rule: LayerRule, vs: list[Violation], res: OrderResult, cd_w: float, pitch_w: float,
+          angle: float, scale: float) -> str:  # fmt: skip
+    """What to change, in drawn nm."""
+    first = vs[0].check
+    feature = "line" if rule.field == "clear" else "opening"
+    if first == "unresolvable-pitch":
+        need = res.cutoff_pitch_nm / scale
+        return (f"widen the pitch to at least {math.ceil(need * 10) / 10:.1f} nm, or use "
+                "illumination that reaches further along the pitch direction")  # fmt: skip
+    if all(v.check == "low-k1" for v in vs):
+        need = 2.0 * rule.k1_marginal_below * rule.exposure.lambda_over_na_nm / scale
+        return f"a pitch of at least {math.ceil(need * 10) / 10:.1f} nm reaches k1 " \
+            f"{rule.k1_marginal_below:g}"  # fmt: skip
+    if not math.isfinite(cd_w) or not math.isfinite(pitch_w):
+        return f"widen the {feature} or give it neighbours at a regular pitch"
+    ok = passing_pitch(rule, cd_w, pitch_w, angle)
+    if math.isnan(ok):
+        return f"no pitch between {HINT_RANGE[0]:g}x and {HINT_RANGE[1]:g}x passes at this " \
+            f"{feature} width: change the width or the exposure"  # fmt: skip
+    p_d, s_d = ok / scale, (ok - cd_w) / scale
+    return f"at this {feature} width, pitch {p_d:.1f} nm (space {s_d:.1f} nm) passes every limit"
+
+
 def classify_layer(
-    sites: Sites, rule: LayerRule, scale_to_wafer: float, grid_nm: float = 1.0
+    sites: Sites,
+    rule: LayerRule,
+    scale_to_wafer: float,
+    grid_nm: float = 1.0,
+    metrics: list[Metrics] | None = None,
+    which_cut: np.ndarray | None = None,
 ) -> list[Finding]:
     """Findings (one per region) for the sites of one layer.
 
-    Sites merge into a region when their pitches differ by at most
+    ``metrics[which_cut[k]]`` are the image metrics of site ``k`` (-1: not
+    imaged).  Sites merge into a region when their pitches differ by at most
     ``max(pitch_tolerance_nm, SNAP_PITCH_SPREAD * grid_nm)`` (drawn nm).
     """
-    severity, results, which = judge_sites(sites, rule, scale_to_wafer)
+    severity, results, which, found = judge_sites(
+        sites, rule, scale_to_wafer, metrics, which_cut
+    )
     flagged = np.flatnonzero(severity < OK)
     if len(flagged) == 0:
         return []
     fs = sites.take(flagged)
     sev = severity[flagged]
+    cut_of = which_cut[flagged] if which_cut is not None else np.full(len(flagged), -1)
     tol = max(rule.pitch_tolerance_nm / scale_to_wafer, SNAP_PITCH_SPREAD * grid_nm)
     labels = _regions(fs, sev, tol)
     order = np.argsort(labels, kind="stable")
@@ -227,11 +397,17 @@ def classify_layer(
     pitch_all = fs.pitch
     angle_all = fs.orientation_deg
     run_all = fs.run
+    normal_all = fs.normal
     out = []
     for members in np.split(order, bounds):
-        worst = members[np.argmin(pitch_all[members])]
+        # The worst site: most severe, then smallest pitch (finite pitches first).
+        rank = np.lexsort((pitch_all[members], sev[members]))
+        worst = members[rank[0]]
         code = int(sev[worst])
-        res = results[which[flagged[worst]]]
+        w_idx, c_idx = int(which[flagged[worst]]), int(cut_of[worst])
+        res = results[w_idx]
+        vs = found[(w_idx, c_idx)]
+        m = metrics[c_idx] if (metrics and c_idx >= 0) else None
         d = fs.direction[worst]
         nrm = np.array([d[1], -d[0]])
         pts = corners_all[members].reshape(-1, 2)
@@ -248,17 +424,22 @@ def classify_layer(
         )  # fmt: skip
         lines = len(np.unique(fs.feature[members]))
         pitch_drawn = float(pitch_all[worst])
-        check, limit, message, hint = _explain(rule, code, res, pitch_drawn, scale_to_wafer)
+        width_drawn = float(fs.width[worst])
+        top = vs[0]
+        pitch_angle = math.degrees(math.atan2(normal_all[worst][1], normal_all[worst][0]))
+        hint = _hint(rule, vs, res, width_drawn * scale_to_wafer,
+                     pitch_drawn * scale_to_wafer, pitch_angle, scale_to_wafer)  # fmt: skip
+        limit = f"{top.check}: {top.value:.4g} against {top.limit:.4g}"
         out.append(
             Finding(
                 layer=rule.name,
                 source=rule.source,
                 exposure=rule.exposure_name,
-                check=check,
+                check=top.check,
                 severity=SEVERITIES[code],
                 pitch_nm=round(pitch_drawn, 3),
                 pitch_max_nm=round(float(pitch_all[members].max()), 3),
-                width_nm=round(float(fs.width[worst]), 3),
+                width_nm=round(width_drawn, 3),
                 space_nm=round(float(fs.space[worst]), 3),
                 wafer_pitch_nm=round(pitch_drawn * scale_to_wafer, 3),
                 k1=round(res.k1, 4),
@@ -274,8 +455,15 @@ def classify_layer(
                 bbox_nm=bbox,
                 outline_nm=outline,
                 limit=limit,
-                message=message,
+                message=top.message,
                 hint=hint,
+                contrast=round(m.contrast, 4) if m else math.nan,
+                nils=round(m.nils, 3) if m else math.nan,
+                cd_nm=round(m.cd_nm, 2) if m and math.isfinite(m.cd_nm) else math.nan,
+                cd_error_pct=round(m.cd_error_pct, 2) if m else math.nan,
+                el_pct=round(m.el_pct, 2) if m else math.nan,
+                dof_nm=round(m.dof_nm, 1) if m else math.nan,
+                violations=tuple(vs),
             )
         )
     out.sort(key=lambda f: (f.severity_rank, f.k1, f.bbox_nm))

@@ -59,17 +59,21 @@ def site_cuts(
     sites: Sites,
     ambit_nm: float,
     grid_nm: float,
-) -> tuple[np.ndarray, list[Cut], np.ndarray]:
+    turn_source: bool = True,
+) -> tuple[np.ndarray, list[Cut], list[float]]:
     """Canonical cut of every site with a finite width.
 
-    Returns ``(which, cuts, valid)``: ``cuts[which[k]]`` is the cut of site
+    Returns ``(which, cuts, angles)``: ``cuts[which[k]]`` is the cut of site
     ``k`` (``which[k] = -1`` where the site has no cut: infinite width or an
-    inconsistent crossing pattern), ``valid`` marks sites with a cut.
+    inconsistent crossing pattern); ``angles[c]`` is the pitch direction of
+    cut ``c`` in degrees mod 180 (0 for every cut when ``turn_source`` is
+    False: a source that turning does not change).
     """
     n = len(sites)
     which = np.full(n, -1, dtype=np.int64)
+    angles: list[float] = []
     if n == 0 or len(edges) == 0:
-        return which, [], np.zeros(n, dtype=bool)
+        return which, [], angles
     a, b = edges.a, edges.b
     vec = b - a
     length = np.hypot(vec[:, 0], vec[:, 1])
@@ -79,6 +83,9 @@ def site_cuts(
 
     mid = sites.midpoints()
     nrm = sites.normal
+    pitch_angle = np.degrees(np.arctan2(nrm[:, 1], nrm[:, 0])) % 180.0
+    angle_key = np.round(pitch_angle * 10).astype(np.int64) % 1800 if turn_source \
+        else np.zeros(n, dtype=np.int64)  # fmt: skip
     todo = np.flatnonzero(np.isfinite(sites.width) & (sites.width <= ambit_nm))
     keys: dict[tuple, int] = {}
     cuts: list[Cut] = []
@@ -120,14 +127,16 @@ def site_cuts(
             centre = -0.5 * w
             rel = tuple(round((x - centre) / q) for x in bounds)
             mirrored = tuple(-v for v in reversed(rel))
-            key = min(rel, mirrored)
+            prof = min(rel, mirrored)
+            key = (int(angle_key[site]), prof)
             idx = keys.get(key)
             if idx is None:
                 idx = len(cuts)
                 keys[key] = idx
-                cuts.append(Cut(tuple(v * q for v in key), ambit_nm))
+                cuts.append(Cut(tuple(v * q for v in prof), ambit_nm))
+                angles.append(key[0] / 10.0)
             which[site] = idx
-    return which, cuts, which >= 0
+    return which, cuts, angles
 
 
 def _segment_pairs(frames: _EdgeFrames, p0, p1, line_dir):

@@ -24,6 +24,7 @@ from pydantic import (
     ConfigDict,
     Field,
     ValidationError,
+    field_validator,
     model_validator,
 )
 
@@ -196,6 +197,19 @@ class Exposure(_Model):
         return self.wavelength_nm / (self.na * (1.0 + self.sigma_max))
 
 
+class Anchor(_Model):
+    """The feature printed on size at the nominal dose: a grating of this pitch and CD."""
+
+    pitch_nm: Annotated[float, Field(gt=0.0)]
+    cd_nm: Annotated[float, Field(gt=0.0)]
+
+    @model_validator(mode="after")
+    def _cd_inside_pitch(self):
+        if self.cd_nm >= self.pitch_nm:
+            raise _KeyedError("cd_nm", f"{self.cd_nm} must be below pitch_nm ({self.pitch_nm})")
+        return self
+
+
 class Limits(_Model):
     """Per-layer limits.  Every key may be set in ``[layer_defaults]`` or on a layer.
 
@@ -212,6 +226,23 @@ class Limits(_Model):
       belong to one pitch class (one region).
     * ``dense_min_lines = 5``: a region of at least this many lines is a dense
       array; 2 up to this is semi-isolated; 1 is isolated.
+
+    Aerial-image limits (judged on the image of each site's real cut):
+
+    * ``image_checks = true``: image every site (false: orders and k1 only).
+    * ``nils_risk_below = 1.5``, ``nils_marginal_below = 2.0``: NILS at the
+      drawn edges (common practice: ~1.5 is a usual floor, >= 2 comfortable).
+    * ``el_min_pct = 5.0``: smallest exposure latitude (common practice).
+    * ``cd_tolerance_pct = 10.0``: CD window for EL and DOF, and the largest
+      CD error at the anchored dose (common practice).
+    * ``dof_min_nm``: smallest depth of focus at ``el_min_pct``.  Default
+      0.5 n lambda / NA^2 (Rayleigh form with k2 = 0.5; an order of magnitude,
+      set it from your process).
+    * ``focus_half_range_nm``: focus is sampled over +- this.  Default
+      0.5 n lambda / NA^2.  ``focus_steps = 9`` samples (odd: includes 0).
+    * ``anchor = { pitch_nm, cd_nm }``: the feature printed on size at the
+      nominal dose (dose-to-size).  Without it every site is sized at its own
+      dose and the through-pitch CD error is not judged.
     """
 
     k1_risk_below: Annotated[float, Field(gt=0.0, lt=2.0)] | None = None
@@ -220,6 +251,22 @@ class Limits(_Model):
     ambit_nm: Annotated[float, Field(gt=0.0)] | None = None
     pitch_tolerance_nm: Annotated[float, Field(gt=0.0)] | None = None
     dense_min_lines: Annotated[int, Field(ge=2)] | None = None
+    image_checks: bool | None = None
+    nils_risk_below: Annotated[float, Field(ge=0.0, lt=20.0)] | None = None
+    nils_marginal_below: Annotated[float, Field(ge=0.0, lt=20.0)] | None = None
+    el_min_pct: Annotated[float, Field(ge=0.0, lt=100.0)] | None = None
+    cd_tolerance_pct: Annotated[float, Field(gt=0.0, lt=100.0)] | None = None
+    dof_min_nm: Annotated[float, Field(ge=0.0)] | None = None
+    focus_half_range_nm: Annotated[float, Field(ge=0.0)] | None = None
+    focus_steps: Annotated[int, Field(ge=1, le=41)] | None = None
+    anchor: Anchor | None = None
+
+    @field_validator("focus_steps")
+    @classmethod
+    def _odd(cls, v: int | None) -> int | None:
+        if v is not None and v % 2 == 0:
+            raise ValueError(f"{v} must be odd (the samples include best focus)")
+        return v
 
 
 LIMIT_DEFAULTS = {
@@ -227,11 +274,19 @@ LIMIT_DEFAULTS = {
     "k1_marginal_below": 0.40,
     "pitch_tolerance_nm": 1.0,
     "dense_min_lines": 5,
+    "image_checks": True,
+    "nils_risk_below": 1.5,
+    "nils_marginal_below": 2.0,
+    "el_min_pct": 5.0,
+    "cd_tolerance_pct": 10.0,
+    "focus_steps": 9,
 }
 """Limit defaults that do not depend on the exposure (single source of truth)."""
 
 MIN_RUN_LAMBDA_NA = 0.5
 AMBIT_LAMBDA_NA = 3.0
+DOF_RAYLEIGH_K2 = 0.5
+"""Default DOF floor and focus half range: 0.5 n lambda / NA^2."""
 
 
 class LayerEntry(Limits):
@@ -303,7 +358,9 @@ class LayerRule:
     __slots__ = (
         "name", "layer", "datatype", "exposure_name", "exposure", "field",
         "k1_risk_below", "k1_marginal_below", "min_run_nm", "ambit_nm",
-        "pitch_tolerance_nm", "dense_min_lines",
+        "pitch_tolerance_nm", "dense_min_lines", "image_checks", "nils_risk_below",
+        "nils_marginal_below", "el_min_pct", "cd_tolerance_pct", "dof_min_nm",
+        "focus_half_range_nm", "focus_steps", "anchor",
     )  # fmt: skip
 
     def __init__(self, entry: LayerEntry, exposure: Exposure, defaults: Limits):
@@ -326,6 +383,22 @@ class LayerRule:
         self.ambit_nm = pick("ambit_nm", AMBIT_LAMBDA_NA * exposure.lambda_over_na_nm)
         self.pitch_tolerance_nm = pick("pitch_tolerance_nm", LIMIT_DEFAULTS["pitch_tolerance_nm"])
         self.dense_min_lines = int(pick("dense_min_lines", LIMIT_DEFAULTS["dense_min_lines"]))
+        for key in ("image_checks", "nils_risk_below", "nils_marginal_below", "el_min_pct",
+                    "cd_tolerance_pct", "focus_steps"):  # fmt: skip
+            setattr(self, key, pick(key, LIMIT_DEFAULTS[key]))
+        rayleigh = exposure.immersion_index * exposure.wavelength_nm / exposure.na**2
+        self.dof_min_nm = pick("dof_min_nm", DOF_RAYLEIGH_K2 * rayleigh)
+        self.focus_half_range_nm = pick("focus_half_range_nm", DOF_RAYLEIGH_K2 * rayleigh)
+        self.anchor = pick("anchor", None)
+
+    @property
+    def focus_nm(self) -> tuple[float, ...]:
+        """Focus values sampled for the image checks (nm, symmetric, includes 0)."""
+        n = self.focus_steps
+        if n == 1 or self.focus_half_range_nm == 0:
+            return (0.0,)
+        h = self.focus_half_range_nm
+        return tuple(-h + 2 * h * k / (n - 1) for k in range(n))
 
     @property
     def source(self) -> str:

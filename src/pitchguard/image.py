@@ -223,9 +223,10 @@ class CoherentSystems:
         fn = np.arange(-self.n_max, self.n_max + 1) / self.period_nm
         x = np.atleast_2d(x_nm)
         basis = np.exp(2j * np.pi * fn[None, :, None] * x[:, None, :])  # (m|1, N, X)
-        field = np.einsum("kmn,mnx->kmx", coef, np.broadcast_to(basis, (coef.shape[1],) + basis.shape[1:]))
+        shape = (coef.shape[1],) + basis.shape[1:]
+        field = np.einsum("kmn,mnx->kmx", coef, np.broadcast_to(basis, shape))
         dbasis = basis * (2j * np.pi * fn[None, :, None])
-        dfield = np.einsum("kmn,mnx->kmx", coef, np.broadcast_to(dbasis, (coef.shape[1],) + dbasis.shape[1:]))
+        dfield = np.einsum("kmn,mnx->kmx", coef, np.broadcast_to(dbasis, shape))
         inten = np.einsum("k,kmx->mx", self.eigenvalues, np.abs(field) ** 2)
         dinten = np.einsum("k,kmx->mx", self.eigenvalues, 2 * np.real(np.conj(field) * dfield))
         return inten, dinten

@@ -192,7 +192,8 @@ def evaluate(
             cd_best = cd
     t_size, ta, tb = windows[best]
     if nominal_threshold is None:
-        t_nom = t_size if math.isfinite(t_size) else float(np.interp([left, right], x, inten0).mean())
+        edge_mean = float(np.interp([left, right], x, inten0).mean())
+        t_nom = t_size if math.isfinite(t_size) else edge_mean
     else:
         t_nom = nominal_threshold
     cd_nom = float(np.interp(t_nom, t, cd_best)) if np.all(np.isfinite(cd_best)) else float(

@@ -13,6 +13,8 @@ import tempfile
 from collections import Counter
 from pathlib import Path
 
+import numpy as np
+
 from pitchguard import __version__
 from pitchguard.classify import Finding
 from pitchguard.deck import SEVERITIES, Deck
@@ -47,8 +49,22 @@ def _num(x: float) -> float | None:
     return x if math.isfinite(x) else None
 
 
+def _clean(obj):
+    """JSON-safe copy: non-finite floats become null, numpy scalars plain numbers."""
+    if isinstance(obj, dict):
+        return {k: _clean(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_clean(v) for v in obj]
+    if isinstance(obj, float | np.floating):
+        v = float(obj)
+        return v if math.isfinite(v) else None
+    if isinstance(obj, np.integer):
+        return int(obj)
+    return obj
+
+
 def finding_to_dict(f: Finding) -> dict:
-    return {
+    return _clean({
         "layer": f.layer,
         "source": f.source,
         "exposure": f.exposure,
@@ -75,7 +91,18 @@ def finding_to_dict(f: Finding) -> dict:
         "limit": f.limit,
         "message": f.message,
         "hint": f.hint,
-    }
+        "contrast": f.contrast,
+        "nils": f.nils,
+        "printed_cd_nm": f.cd_nm,
+        "cd_error_pct": f.cd_error_pct,
+        "exposure_latitude_pct": f.el_pct,
+        "depth_of_focus_nm": f.dof_nm,
+        "checks": [
+            {"check": v.check, "severity": v.severity, "value": v.value, "limit": v.limit,
+             "message": v.message}
+            for v in f.violations
+        ],
+    })
 
 
 def to_json(result: ScanResult, deck: Deck, fail_on: str) -> dict:

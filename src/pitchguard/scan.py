@@ -15,9 +15,12 @@ from pathlib import Path
 import numpy as np
 
 from pitchguard.classify import Finding, classify_layer
+from pitchguard.cuts import site_cuts
 from pitchguard.deck import Deck
 from pitchguard.extract import ExtractStats, build_features, find_sites
+from pitchguard.image import source_is_symmetric
 from pitchguard.layout import DEFAULT_MAX_SHAPES, Layout, PolygonSet, read_layout
+from pitchguard.measure import measure_cuts
 
 Progress = Callable[[str, int, int], None]
 """``progress(label, done, total)``: called before each stage of each layer
@@ -92,8 +95,16 @@ def scan_polygons(
             x0, y0, x1, y1 = region_nm
             inside = (mid[:, 0] >= x0) & (mid[:, 0] < x1) & (mid[:, 1] >= y0) & (mid[:, 1] < y1)
             sites = sites.take(np.flatnonzero(inside))
-        tick(f"{rule.name}: classify", 3 * k + 2)
-        findings.extend(classify_layer(sites, rule, scale, grid_nm))
+        tick(f"{rule.name}: images", 3 * k + 2)
+        metrics, which_cut = None, None
+        if rule.image_checks and len(sites):
+            which_cut, cuts, angles = site_cuts(
+                edges, sites, ambit, grid_nm, turn_source=not source_is_symmetric(rule.exposure)
+            )
+            metrics = measure_cuts(cuts, angles, rule, scale)
+            ex.extra["unique_cuts"] = len(cuts)
+            ex.extra["imaged_sites"] = int((which_cut >= 0).sum())
+        findings.extend(classify_layer(sites, rule, scale, grid_nm, metrics, which_cut))
         stats.append(
             LayerStats(rule.name, rule.source, len(ps), ex, time.perf_counter() - t0)
         )

@@ -13,6 +13,7 @@ import math
 import gdstk
 import pytest
 
+from pitchguard.classify import IMAGE_CHECKS
 from pitchguard.deck import parse_deck
 from pitchguard.scan import scan_layout
 
@@ -124,10 +125,28 @@ def test_relaxed_and_isolated_wide_lines_are_not_flagged(tmp_path, fmt):
     _place(lib, top, relaxed, "rot45", (0, 0))
     _place(lib, top, relaxed, "plain", (10, 0))
     top.add(gdstk.rectangle((20, 0), (20.5, 5), layer=7))  # isolated wide line
-    top.add(gdstk.rectangle((25, 0), (25.06, 5), layer=7))  # isolated narrow line
     top.add(gdstk.rectangle((30, 0), (40, 10), layer=7))  # pad
     res = scan_layout(_write(lib, tmp_path, fmt), DECK)
     assert not [f for f in res.findings if f.severity in ("fail", "risk")]
+
+
+def test_isolated_narrow_line_is_judged_on_its_image_only(tmp_path):
+    """A lone 60 nm line has no pitch (k1 says nothing) but images poorly at NA 0.93.
+
+    60 nm is 0.29 lambda/NA at 193 nm / NA 0.93 (arithmetic); an isolated line
+    that narrow has a shallow image edge (common practice: features well below
+    0.5 lambda/NA need resolution enhancement).
+    """
+    lib = gdstk.Library()
+    top = lib.new_cell("TOP")
+    top.add(gdstk.rectangle((0, 0), (0.06, 5), layer=7))
+    res = scan_layout(_write(lib, tmp_path, "gds"), DECK)
+    assert res.findings
+    for f in res.findings:
+        assert f.pitch_nm == math.inf
+        checks = {v.check for v in f.violations}
+        assert checks and checks <= set(IMAGE_CHECKS)
+        assert f.nils < DECK.layer("poly").nils_risk_below
 
 
 def test_layers_not_in_the_deck_are_ignored(tmp_path):
