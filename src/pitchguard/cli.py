@@ -36,6 +36,28 @@ def _region(text: str) -> tuple[float, float, float, float]:
     return vals  # type: ignore[return-value]
 
 
+def _positive_float(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not (v > 0 and v < 1e7):
+        raise argparse.ArgumentTypeError(f"expected a positive length in nm, got {text!r}")
+    return v
+
+
+def _pitch_range(text: str) -> tuple[float, float, float]:
+    try:
+        lo, hi, step = (float(v) for v in text.split(":"))
+    except ValueError:
+        raise argparse.ArgumentTypeError("expected FROM:TO:STEP in nm, e.g. 80:400:5") from None
+    if not (0 < lo < hi and step > 0) or (hi - lo) / step > 2000:
+        raise argparse.ArgumentTypeError(
+            "need 0 < FROM < TO, STEP > 0 and at most 2000 pitches"
+        )
+    return lo, hi, step
+
+
 def _positive_int(text: str) -> int:
     try:
         v = int(float(text))
@@ -80,6 +102,36 @@ def build_parser() -> argparse.ArgumentParser:
     scan.add_argument("--quiet", "-q", action="store_true",
                       help="print only the one-line summary")  # fmt: skip
     scan.add_argument("--debug", action="store_true", help="show tracebacks")
+
+    probe = sub.add_parser("probe", help="explain one pitch: orders, k1, aerial image, metrics")
+    probe.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK")
+    probe.add_argument("--layer", required=True, metavar="NAME", help="deck layer")
+    probe.add_argument("--pitch", type=_positive_float, required=True, metavar="NM",
+                       help="pitch, nm at wafer scale")  # fmt: skip
+    probe.add_argument("--cd", type=_positive_float, required=True, metavar="NM",
+                       help="feature width: line on a clear field, opening on a dark one")  # fmt: skip
+    probe.add_argument("--focus", type=float, default=0.0, metavar="NM",
+                       help="focus of the image shown (metrics use the deck's focus range)")  # fmt: skip
+    probe.add_argument("--orientation", type=float, default=90.0, metavar="DEG",
+                       help="direction the lines run (default 90: along y, pitch along x)")  # fmt: skip
+    probe.add_argument("--json", action="store_true", help="print one JSON object on stdout")
+    probe.add_argument("--plot", type=Path, metavar="PATH",
+                       help="write the aerial image (.png or .svg)")  # fmt: skip
+    probe.add_argument("--debug", action="store_true", help="show tracebacks")
+
+    sweep = sub.add_parser("sweep", help="through-pitch sweep for one CD: forbidden pitches")
+    sweep.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK")
+    sweep.add_argument("--layer", required=True, metavar="NAME", help="deck layer")
+    sweep.add_argument("--cd", type=_positive_float, metavar="NM",
+                       help="feature width, nm (default: the layer's anchor CD)")  # fmt: skip
+    sweep.add_argument("--pitches", type=_pitch_range, metavar="FROM:TO:STEP",
+                       help="pitch range, nm (default: from the cutoff to 4 lambda/NA)")  # fmt: skip
+    sweep.add_argument("--orientation", type=float, default=90.0, metavar="DEG",
+                       help="direction the lines run (default 90)")  # fmt: skip
+    sweep.add_argument("--plot", type=Path, metavar="PATH",
+                       help="write the sweep plot (.png or .svg)")  # fmt: skip
+    sweep.add_argument("--json", type=Path, metavar="PATH", help="write the sweep as JSON")
+    sweep.add_argument("--debug", action="store_true", help="show tracebacks")
 
     rules = sub.add_parser("rules", help="work with rule decks")
     rsub = rules.add_subparsers(dest="rules_command", metavar="ACTION", parser_class=_Parser)
@@ -193,6 +245,185 @@ def cmd_rules_check(args) -> int:
     return EXIT_OK
 
 
+def _console():
+    """stdout console; 120 columns when not a terminal (CI logs, pipes)."""
+    from rich.console import Console
+
+    c = Console()
+    return c if c.is_terminal else Console(width=120)
+
+
+def _fmt_num(v: float, unit: str = "", digits: int = 2) -> str:
+    import math
+
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "-"
+    return f"{v:.{digits}f}{unit}"
+
+
+def _grating_json(r) -> dict:
+    from pitchguard.report import _clean
+
+    m = r.metrics
+    return _clean({
+        "pitch_nm": r.pitch_nm, "cd_nm": r.cd_nm, "orientation_deg": r.orientation_deg,
+        "k1": r.orders.k1, "orders": list(r.orders.orders),
+        "orders_on_axis": list(r.orders.orders_on_axis),
+        "two_beam_fraction": r.orders.two_beam_fraction,
+        "cutoff_pitch_nm": r.orders.cutoff_pitch_nm,
+        "contrast": m.contrast if m else None, "nils": m.nils if m else None,
+        "printed_cd_nm": m.cd_nm if m else None,
+        "cd_error_pct": m.cd_error_pct if m else None,
+        "exposure_latitude_pct": m.el_pct if m else None,
+        "depth_of_focus_nm": m.dof_nm if m else None,
+        "threshold": m.threshold if m else None,
+        "dose_to_size": m.dose_to_size if m else None,
+        "severity": r.severity,
+        "checks": [{"check": v.check, "severity": v.severity, "value": v.value,
+                    "limit": v.limit, "message": v.message} for v in r.violations],
+    })  # fmt: skip
+
+
+def cmd_probe(args) -> int:
+    import json
+
+    from rich.console import Console
+
+    from pitchguard.deck import load_deck
+    from pitchguard.report import CAUTION, _clean
+    from pitchguard.sweep import grating, pupil_picture
+
+    deck = load_deck(args.rules)
+    rule = deck.layer(args.layer)
+    r = grating(rule, args.pitch, args.cd, args.orientation, args.focus)
+    if args.plot is not None:
+        from pitchguard.plots import plot_image
+
+        plot_image(rule, r, args.plot, [args.rules])
+    if args.json:
+        out = _grating_json(r)
+        out["focus_nm"] = args.focus
+        out["image"] = _clean({"x_nm": r.x_nm.tolist(), "intensity": r.intensity.tolist()})
+        out["caution"] = CAUTION
+        print(json.dumps(out))
+        return EXIT_OK
+    console = _console()
+    e = rule.exposure
+    ill = e.illumination
+    console.print(
+        f"[bold]{rule.name}[/] ({rule.field} field) on {rule.exposure_name}: "
+        f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {ill.shape} σmax {e.sigma_max:g}, "
+        f"{e.mask.kind} mask"
+    )
+    feature = "line" if rule.field == "clear" else "opening"
+    console.print(f"grating: pitch {r.pitch_nm:g} nm, {feature} {r.cd_nm:g} nm, "
+                  f"lines along {r.orientation_deg:g}°")  # fmt: skip
+    o = r.orders
+    console.print(
+        f"k1 {o.k1:.3f}; orders on axis {list(o.orders_on_axis)}; through the source "
+        f"{list(o.orders)}; source sending 0th + a 1st order: {100 * o.two_beam_fraction:.1f} %; "
+        f"cutoff pitch {o.cutoff_pitch_nm:.1f} nm"
+    )
+    console.print()
+    for line in pupil_picture(rule, r):
+        console.print("   " + line, highlight=False, markup=False)
+    console.print("   [dim]* pupil edge, 0 source (0th order), + / - source shifted by the "
+                  "+1st / -1st order inside the pupil, 2 higher orders[/]")  # fmt: skip
+    console.print()
+    m = r.metrics
+    if m is not None:
+        rows = [
+            ("image contrast", _fmt_num(m.contrast, "", 3)),
+            ("NILS at the drawn edges", _fmt_num(m.nils, "", 2)),
+            ("printed CD at nominal dose", "lost" if m.lost else "bridged" if m.bridged
+             else _fmt_num(m.cd_nm, " nm", 1)),  # fmt: skip
+            ("CD error", _fmt_num(m.cd_error_pct, " %", 1) if rule.anchor else
+             "not judged (no anchor)"),  # fmt: skip
+            ("exposure latitude", _fmt_num(m.el_pct, " %", 1)),
+            ("depth of focus", _fmt_num(m.dof_nm, " nm", 0)),
+            ("threshold / dose-to-size", f"{m.threshold:.3f} / {_fmt_num(m.dose_to_size, '', 3)}"),
+        ]
+        for k, v in rows:
+            console.print(f"  {k:<28} {v}")
+    console.print()
+    if r.violations:
+        for v in r.violations:
+            console.print(f"  [bold]{v.severity}[/] {v.check}: {v.message}")
+    else:
+        console.print("  ok: no limit of this layer is broken")
+    console.print(f"[dim]{CAUTION}[/]")
+    return EXIT_OK
+
+
+def cmd_sweep(args) -> int:
+    import numpy as np
+    from rich.console import Console
+    from rich.table import Table
+
+    from pitchguard.deck import load_deck
+    from pitchguard.report import CAUTION, write_json
+    from pitchguard.sweep import bands, default_pitches, through_pitch
+
+    deck = load_deck(args.rules)
+    rule = deck.layer(args.layer)
+    cd = args.cd
+    if cd is None:
+        if rule.anchor is None:
+            raise PitchguardError(
+                f"layer {rule.name!r} has no anchor in the deck: give --cd NM"
+            )
+        cd = rule.anchor.cd_nm
+    if args.pitches:
+        lo, hi, step = args.pitches
+        pitches = np.arange(lo, hi + step / 2, step)
+    else:
+        pitches = default_pitches(rule, cd)
+    console = _console()
+    err = Console(stderr=True)
+    with err.status(f"imaging {len(pitches)} pitches ...") if err.is_terminal else _null():
+        results = through_pitch(rule, cd, pitches, args.orientation)
+    if not results:
+        raise PitchguardError(f"no pitch in the range is larger than the CD ({cd:g} nm)")
+    t = Table(title=f"{rule.name}: CD {cd:g} nm through pitch", title_justify="left",
+              show_edge=False)  # fmt: skip
+    for col in ("pitch nm", "k1", "contrast", "NILS", "CD err %", "EL %", "DOF nm", "verdict"):
+        t.add_column(col, justify="right" if col != "verdict" else "left")
+    for r in results:
+        m = r.metrics
+        t.add_row(
+            f"{r.pitch_nm:.1f}", f"{r.orders.k1:.3f}",
+            _fmt_num(m.contrast if m else None, "", 3), _fmt_num(m.nils if m else None),
+            _fmt_num(m.cd_error_pct if m else None, "", 1),
+            _fmt_num(m.el_pct if m else None, "", 1),
+            _fmt_num(m.dof_nm if m else None, "", 0),
+            r.severity if r.severity == "ok" else f"{r.severity} ({r.violations[0].check})",
+        )  # fmt: skip
+    console.print(t)
+    for a, b, sev in bands(results):
+        console.print(f"  {sev:<8} pitch {a:.1f} - {b:.1f} nm")
+    console.print(f"[dim]{CAUTION}[/]")
+    inputs = [args.rules]
+    if args.plot is not None:
+        from pitchguard.plots import plot_sweep
+
+        plot_sweep(rule, results, args.plot, inputs)
+    if args.json is not None:
+        write_json(args.json, {
+            "layer": rule.name, "cd_nm": cd, "caution": CAUTION,
+            "bands": [{"from_nm": a, "to_nm": b, "severity": s} for a, b, s in bands(results)],
+            "pitches": [_grating_json(r) for r in results],
+        }, inputs)  # fmt: skip
+    return EXIT_OK
+
+
+class _null:
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
@@ -201,7 +432,9 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_USAGE
     if args.command == "rules" and args.rules_command is None:
         parser.parse_args(["rules", "--help"])
-    handler = cmd_scan if args.command == "scan" else cmd_rules_check
+    handler = {"scan": cmd_scan, "probe": cmd_probe, "sweep": cmd_sweep}.get(
+        args.command, cmd_rules_check
+    )
     try:
         return handler(args)
     except PitchguardError as exc:
