@@ -109,11 +109,11 @@ def build_parser() -> argparse.ArgumentParser:
     probe.add_argument("--pitch", type=_positive_float, required=True, metavar="NM",
                        help="pitch, nm at wafer scale")  # fmt: skip
     probe.add_argument("--cd", type=_positive_float, required=True, metavar="NM",
-                       help="feature width: line on a clear field, opening on a dark one")  # fmt: skip
+                       help="feature width: line on a clear field, opening on a dark one")
     probe.add_argument("--focus", type=float, default=0.0, metavar="NM",
-                       help="focus of the image shown (metrics use the deck's focus range)")  # fmt: skip
+                       help="focus of the image shown (metrics use the deck's focus range)")
     probe.add_argument("--orientation", type=float, default=90.0, metavar="DEG",
-                       help="direction the lines run (default 90: along y, pitch along x)")  # fmt: skip
+                       help="direction the lines run (default 90: along y, pitch along x)")
     probe.add_argument("--json", action="store_true", help="print one JSON object on stdout")
     probe.add_argument("--plot", type=Path, metavar="PATH",
                        help="write the aerial image (.png or .svg)")  # fmt: skip
@@ -125,7 +125,7 @@ def build_parser() -> argparse.ArgumentParser:
     sweep.add_argument("--cd", type=_positive_float, metavar="NM",
                        help="feature width, nm (default: the layer's anchor CD)")  # fmt: skip
     sweep.add_argument("--pitches", type=_pitch_range, metavar="FROM:TO:STEP",
-                       help="pitch range, nm (default: from the cutoff to 4 lambda/NA)")  # fmt: skip
+                       help="pitch range, nm (default: from the cutoff to 4 lambda/NA)")
     sweep.add_argument("--orientation", type=float, default=90.0, metavar="DEG",
                        help="direction the lines run (default 90)")  # fmt: skip
     sweep.add_argument("--plot", type=Path, metavar="PATH",
@@ -286,8 +286,6 @@ def _grating_json(r) -> dict:
 
 def cmd_probe(args) -> int:
     import json
-
-    from rich.console import Console
 
     from pitchguard.deck import load_deck
     from pitchguard.report import CAUTION, _clean
