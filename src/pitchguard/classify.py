@@ -12,7 +12,7 @@ Checks (stable identifiers; see "Checks" in README.md):
     In the aerial image of the site's real cut, at best focus and nominal
     dose, the feature has no threshold crossing, or it runs into its
     neighbour.
-``low-nils`` (``risk`` / ``marginal``), ``low-exposure-latitude``,
+``low-nils`` (``fail`` / ``risk`` / ``marginal``), ``low-exposure-latitude``,
 ``low-depth-of-focus``, ``cd-error`` (``risk``)
     Image metrics below the layer's limits (see printing.py).
 
@@ -110,6 +110,7 @@ class Finding:
     el_pct: float = math.nan
     dof_nm: float = math.nan
     violations: tuple[Violation, ...] = ()
+    context: str = ""  # worst site's line: interior | outer (last line of an array) | alone
 
     @property
     def bbox_um(self) -> tuple[float, float, float, float]:
@@ -166,7 +167,8 @@ def violations(
                 ))  # fmt: skip
                 break
     if m is not None and not (m.lost or m.bridged):
-        nils_bands = (("risk", rule.nils_risk_below, "nils_risk_below"),
+        nils_bands = (("fail", rule.nils_fail_below, "nils_fail_below"),
+                      ("risk", rule.nils_risk_below, "nils_risk_below"),
                       ("marginal", rule.nils_marginal_below, "nils_marginal_below"))  # fmt: skip
         for sev, band, key in nils_bands:
             if m.nils < band:
@@ -373,6 +375,7 @@ def classify_layer(
     grid_nm: float = 1.0,
     metrics: list[Metrics] | None = None,
     which_cut: np.ndarray | None = None,
+    cuts: list | None = None,
 ) -> list[Finding]:
     """Findings (one per region) for the sites of one layer.
 
@@ -430,6 +433,12 @@ def classify_layer(
         hint = _hint(rule, vs, res, width_drawn * scale_to_wafer,
                      pitch_drawn * scale_to_wafer, pitch_angle, scale_to_wafer)  # fmt: skip
         limit = f"{top.check}: {top.value:.4g} against {top.limit:.4g}"
+        context = cuts[c_idx].context if (cuts and c_idx >= 0) else ""
+        message = top.message
+        if context == "outer" and top.check in IMAGE_CHECKS:
+            message += " (at the last line of the array)"
+        elif context == "alone" and top.check in IMAGE_CHECKS:
+            message += " (isolated line)"
         out.append(
             Finding(
                 layer=rule.name,
@@ -455,7 +464,7 @@ def classify_layer(
                 bbox_nm=bbox,
                 outline_nm=outline,
                 limit=limit,
-                message=top.message,
+                message=message,
                 hint=hint,
                 contrast=round(m.contrast, 4) if m else math.nan,
                 nils=round(m.nils, 3) if m else math.nan,
@@ -464,6 +473,7 @@ def classify_layer(
                 el_pct=round(m.el_pct, 2) if m else math.nan,
                 dof_nm=round(m.dof_nm, 1) if m else math.nan,
                 violations=tuple(vs),
+                context=context,
             )
         )
     out.sort(key=lambda f: (f.severity_rank, f.k1, f.bbox_nm))

@@ -44,6 +44,14 @@ class Cut:
         raise ValueError("cut has no feature at its centre")
 
     @property
+    def context(self) -> str:
+        """Where the feature sits: ``interior``, ``outer`` (one neighbour) or ``alone``."""
+        left, _ = self.feature
+        k = list(self.bounds).index(left)
+        n = (k >= 2) + (k + 2 < len(self.bounds))
+        return ("alone", "outer", "interior")[n]
+
+    @property
     def search(self) -> tuple[float, float]:
         """Where the feature's printed edges may lie: to the middle of each neighbouring space."""
         left, right = self.feature

@@ -230,8 +230,10 @@ class Limits(_Model):
     Aerial-image limits (judged on the image of each site's real cut):
 
     * ``image_checks = true``: image every site (false: orders and k1 only).
-    * ``nils_risk_below = 1.5``, ``nils_marginal_below = 2.0``: NILS at the
-      drawn edges (common practice: ~1.5 is a usual floor, >= 2 comfortable).
+    * ``nils_fail_below = 1.0``, ``nils_risk_below = 1.5``,
+      ``nils_marginal_below = 2.0``: NILS at the drawn edges (common practice:
+      below ~1 the edge is not controllable, ~1.5 is a usual floor, >= 2 is
+      comfortable).
     * ``el_min_pct = 5.0``: smallest exposure latitude (common practice).
     * ``cd_tolerance_pct = 10.0``: CD window for EL and DOF, and the largest
       CD error at the anchored dose (common practice).
@@ -252,6 +254,7 @@ class Limits(_Model):
     pitch_tolerance_nm: Annotated[float, Field(gt=0.0)] | None = None
     dense_min_lines: Annotated[int, Field(ge=2)] | None = None
     image_checks: bool | None = None
+    nils_fail_below: Annotated[float, Field(ge=0.0, lt=20.0)] | None = None
     nils_risk_below: Annotated[float, Field(ge=0.0, lt=20.0)] | None = None
     nils_marginal_below: Annotated[float, Field(ge=0.0, lt=20.0)] | None = None
     el_min_pct: Annotated[float, Field(ge=0.0, lt=100.0)] | None = None
@@ -275,6 +278,7 @@ LIMIT_DEFAULTS = {
     "pitch_tolerance_nm": 1.0,
     "dense_min_lines": 5,
     "image_checks": True,
+    "nils_fail_below": 1.0,
     "nils_risk_below": 1.5,
     "nils_marginal_below": 2.0,
     "el_min_pct": 5.0,
@@ -360,7 +364,7 @@ class LayerRule:
         "k1_risk_below", "k1_marginal_below", "min_run_nm", "ambit_nm",
         "pitch_tolerance_nm", "dense_min_lines", "image_checks", "nils_risk_below",
         "nils_marginal_below", "el_min_pct", "cd_tolerance_pct", "dof_min_nm",
-        "focus_half_range_nm", "focus_steps", "anchor",
+        "focus_half_range_nm", "focus_steps", "anchor", "nils_fail_below",
     )  # fmt: skip
 
     def __init__(self, entry: LayerEntry, exposure: Exposure, defaults: Limits):
@@ -383,8 +387,8 @@ class LayerRule:
         self.ambit_nm = pick("ambit_nm", AMBIT_LAMBDA_NA * exposure.lambda_over_na_nm)
         self.pitch_tolerance_nm = pick("pitch_tolerance_nm", LIMIT_DEFAULTS["pitch_tolerance_nm"])
         self.dense_min_lines = int(pick("dense_min_lines", LIMIT_DEFAULTS["dense_min_lines"]))
-        for key in ("image_checks", "nils_risk_below", "nils_marginal_below", "el_min_pct",
-                    "cd_tolerance_pct", "focus_steps"):  # fmt: skip
+        for key in ("image_checks", "nils_fail_below", "nils_risk_below",
+                    "nils_marginal_below", "el_min_pct", "cd_tolerance_pct", "focus_steps"):
             setattr(self, key, pick(key, LIMIT_DEFAULTS[key]))
         rayleigh = exposure.immersion_index * exposure.wavelength_nm / exposure.na**2
         self.dof_min_nm = pick("dof_min_nm", DOF_RAYLEIGH_K2 * rayleigh)

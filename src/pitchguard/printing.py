@@ -73,7 +73,8 @@ def _edges_for_thresholds(x, g, lo_idx, c_idx, hi_idx, t):
         ok = (k > 0) & (k < len(part))
         kk = np.clip(k, 1, len(part) - 1)
         g0, g1 = part[kk - 1], part[kk]
-        frac = np.where(g1 != g0, (t - g0) / (g1 - g0), 0.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            frac = np.where(g1 != g0, (t - g0) / (g1 - g0), 0.0)
         pos = px[kk - 1] + frac * (px[kk] - px[kk - 1])
         return np.where(ok, pos, np.where(k == 0, np.nan, np.inf * np.sign(px[-1] - px[0])))
 

@@ -97,6 +97,7 @@ def finding_to_dict(f: Finding) -> dict:
         "cd_error_pct": f.cd_error_pct,
         "exposure_latitude_pct": f.el_pct,
         "depth_of_focus_nm": f.dof_nm,
+        "worst_line": f.context or None,
         "checks": [
             {"check": v.check, "severity": v.severity, "value": v.value, "limit": v.limit,
              "message": v.message}

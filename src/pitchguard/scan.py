@@ -96,7 +96,7 @@ def scan_polygons(
             inside = (mid[:, 0] >= x0) & (mid[:, 0] < x1) & (mid[:, 1] >= y0) & (mid[:, 1] < y1)
             sites = sites.take(np.flatnonzero(inside))
         tick(f"{rule.name}: images", 3 * k + 2)
-        metrics, which_cut = None, None
+        metrics, which_cut, cuts = None, None, None
         if rule.image_checks and len(sites):
             which_cut, cuts, angles = site_cuts(
                 edges, sites, ambit, grid_nm, turn_source=not source_is_symmetric(rule.exposure)
@@ -104,7 +104,9 @@ def scan_polygons(
             metrics = measure_cuts(cuts, angles, rule, scale)
             ex.extra["unique_cuts"] = len(cuts)
             ex.extra["imaged_sites"] = int((which_cut >= 0).sum())
-        findings.extend(classify_layer(sites, rule, scale, grid_nm, metrics, which_cut))
+        findings.extend(
+            classify_layer(sites, rule, scale, grid_nm, metrics, which_cut, cuts)
+        )
         stats.append(
             LayerStats(rule.name, rule.source, len(ps), ex, time.perf_counter() - t0)
         )
