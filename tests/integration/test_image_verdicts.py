@@ -1,0 +1,240 @@
+"""Scan verdicts follow the optics: illumination, mask kind, focus range, anchor.
+
+Reference facts (scalar imaging, see README "Physics model"): an x dipole
+images lines running along y (pitch along x) far below the conventional
+cutoff and cannot image the same pitch turned by 90 degrees (pupil condition,
+Goodman, Introduction to Fourier Optics); a wider focus range can only
+shrink the common dose window, so a depth-of-focus floor that is met over a
+short range may be missed over a long one (definition of the process window,
+common practice).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import textwrap
+
+import gdstk
+import pytest
+
+from pitchguard.deck import parse_deck
+from pitchguard.scan import scan_layout
+
+from .conftest import line_array_cell, run_cli
+
+IMMERSION = textwrap.dedent(
+    """
+    [exposures.conv]
+    wavelength_nm = 193.0
+    na = 1.35
+    immersion_index = 1.44
+    illumination = { shape = "conventional", sigma = 0.85 }
+    mask = { kind = "attenuated", transmission = 0.06 }
+
+    [exposures.dipx]
+    wavelength_nm = 193.0
+    na = 1.35
+    immersion_index = 1.44
+    illumination = { shape = "dipole", sigma_inner = 0.7, sigma_outer = 0.95, opening_deg = 35.0, axis = "x" }
+    mask = { kind = "attenuated", transmission = 0.06 }
+
+    [[layers]]
+    name = "m"
+    source = "1/0"
+    exposure = "EXPOSURE"
+    field = "clear"
+    """
+)
+
+
+def _scan(tmp_path, deck_text: str, build) -> list:
+    lib = gdstk.Library()
+    top = lib.new_cell("TOP")
+    build(lib, top)
+    path = tmp_path / "chip.gds"
+    lib.write_gds(str(path))
+    return scan_layout(path, parse_deck(deck_text)).findings
+
+
+def _dense(lib, top, turn: bool = False):
+    # 80 nm pitch, 40 nm lines, 15 lines: below nothing's cutoff along x for the dipole
+    # (73.3 nm), just above the conventional one (193 / (1.35 * 1.85) = 77.3 nm).
+    cell = line_array_cell(lib, "D80", (1, 0), 80, 40, 15, 2000)
+    top.add(gdstk.Reference(cell, (0, 0), rotation=math.pi / 2 if turn else 0.0))
+
+
+def _middle(findings):
+    """Checks of the finding that covers the array (one region per array)."""
+    assert len(findings) == 1, findings
+    return {v.check: v.severity for v in findings[0].violations}
+
+
+def test_dipole_rescues_dense_vertical_lines_that_conventional_cannot(tmp_path):
+    conv = _scan(tmp_path, IMMERSION.replace("EXPOSURE", "conv"), _dense)
+    dip = _scan(tmp_path, IMMERSION.replace("EXPOSURE", "dipx"), _dense)
+    # Conventional: resolvable in principle, but the image has no usable edge.
+    c = _middle(conv)
+    assert "unresolvable-pitch" not in c and c.get("low-nils") == "fail"
+    assert conv[0].severity == "fail"
+    # Dipole on x: the lines image (NILS above the fail band even at the array's
+    # last line); only k1 is left as a risk.
+    d = _middle(dip)
+    assert dip[0].severity == "risk" and d.get("low-k1") == "risk"
+    assert "unresolvable-pitch" not in d and d.get("low-nils") != "fail"
+    assert dip[0].nils > conv[0].nils
+
+
+def test_dipole_does_not_rescue_the_horizontal_twin(tmp_path):
+    dip = _scan(tmp_path, IMMERSION.replace("EXPOSURE", "dipx"),
+                lambda lib, top: _dense(lib, top, turn=True))  # fmt: skip
+    checks = _middle(dip)
+    assert checks.get("unresolvable-pitch") == "fail"
+    assert dip[0].orientation_deg == pytest.approx(0.0)
+
+
+def test_interior_of_dipole_array_images_well(tmp_path):
+    """The middle line of the dipole array: NILS well above the 2.0 comfort band."""
+    from pitchguard.sweep import grating
+
+    rule = parse_deck(IMMERSION.replace("EXPOSURE", "dipx")).layer("m")
+    conv = parse_deck(IMMERSION.replace("EXPOSURE", "conv")).layer("m")
+    assert grating(rule, 80, 40, 90.0).metrics.nils > 2.0
+    assert grating(conv, 80, 40, 90.0).metrics.nils < 1.0
+
+
+def test_mask_kind_changes_the_image(tmp_path):
+    """Attenuated phase shift steepens the edge of a dense dark-field pitch (common practice)."""
+    from pitchguard.sweep import grating
+
+    text = IMMERSION.replace("EXPOSURE", "conv").replace('field = "clear"', 'field = "dark"')
+    att = parse_deck(text).layer("m")
+    binary = parse_deck(text.replace('{ kind = "attenuated", transmission = 0.06 }',
+                                     '{ kind = "binary" }')).layer("m")  # fmt: skip
+    a, b = grating(att, 110, 45, 90.0), grating(binary, 110, 45, 90.0)
+    assert a.metrics.nils != pytest.approx(b.metrics.nils, rel=0.02)
+    assert a.metrics.contrast != pytest.approx(b.metrics.contrast, abs=0.01)
+
+
+def test_focus_range_decides_depth_of_focus_verdict(tmp_path):
+    # A relaxed dry ArF array: fine over a short focus range, short of a DOF floor
+    # asked over a long one.
+    base = textwrap.dedent(
+        """
+        [exposures.arf]
+        wavelength_nm = 193.0
+        na = 0.93
+        illumination = { shape = "annular", sigma_inner = 0.6, sigma_outer = 0.9 }
+
+        [[layers]]
+        name = "p"
+        source = "1/0"
+        exposure = "arf"
+        field = "clear"
+        k1_risk_below = 0.1
+        k1_marginal_below = 0.2
+        nils_fail_below = 0.0
+        nils_risk_below = 0.0
+        nils_marginal_below = 0.0
+        """
+    )
+
+    def build(lib, top):
+        top.add(gdstk.Reference(line_array_cell(lib, "A", (1, 0), 180, 90, 15, 2000), (0, 0)))
+
+    short = base + "focus_half_range_nm = 60.0\ndof_min_nm = 100.0\n"
+    long_ = base + "focus_half_range_nm = 600.0\ndof_min_nm = 1000.0\n"
+    assert _scan(tmp_path, short, build) == []
+    found = _scan(tmp_path, long_, build)
+    assert found and all("low-depth-of-focus" in {v.check for v in f.violations} for f in found)
+    assert all(f.dof_nm < 1000.0 for f in found)
+
+
+def test_anchor_enables_cd_error(tmp_path):
+    """Iso-dense bias: with the dose anchored on a dense pitch, a looser pitch prints off size."""
+    text = textwrap.dedent(
+        """
+        [exposures.arf]
+        wavelength_nm = 193.0
+        na = 0.93
+        illumination = { shape = "annular", sigma_inner = 0.6, sigma_outer = 0.9 }
+
+        [[layers]]
+        name = "p"
+        source = "1/0"
+        exposure = "arf"
+        field = "clear"
+        """
+    )
+    from pitchguard.sweep import grating
+
+    free = parse_deck(text).layer("p")
+    anchored = parse_deck(text + "anchor = { pitch_nm = 180.0, cd_nm = 90.0 }\n").layer("p")
+    assert math.isnan(grating(free, 400, 90, 90.0).metrics.cd_error_pct)
+    assert grating(anchored, 180, 90, 90.0).metrics.cd_error_pct == pytest.approx(0.0, abs=0.5)
+    assert abs(grating(anchored, 400, 90, 90.0).metrics.cd_error_pct) > 1.0
+
+
+# ----------------------------------------------------------------------------- probe / sweep
+
+
+def test_probe_json_has_one_period_centred_on_the_feature(capsys):
+    from .conftest import DEMO_DECK
+
+    code, out, _ = run_cli(capsys, "probe", "--rules", DEMO_DECK, "--layer", "poly",
+                           "--pitch", "250", "--cd", "125", "--json")  # fmt: skip
+    assert code == 0
+    obj = json.loads(out)
+    for key in ("k1", "contrast", "nils", "image", "orders", "checks"):
+        assert key in obj
+    x, inten = obj["image"]["x_nm"], obj["image"]["intensity"]
+    assert len(x) == len(inten) > 32
+    assert x[0] == pytest.approx(-125.0) and x[-1] < 125.0
+    # k1 = 0.5 * 250 * 0.93 / 193 (arithmetic).
+    assert obj["k1"] == pytest.approx(0.5 * 250 * 0.93 / 193, rel=1e-9)
+    # A clear-field line is dark at its centre: the minimum of the period is at x = 0.
+    centre = min(range(len(x)), key=lambda k: abs(x[k]))
+    assert inten[centre] == pytest.approx(min(inten), abs=1e-9)
+
+
+def test_probe_text_and_plot(tmp_path, capsys):
+    from .conftest import DEMO_DECK
+
+    plot = tmp_path / "img.png"
+    code, out, _ = run_cli(capsys, "probe", "-r", DEMO_DECK, "--layer", "metal1", "--pitch",
+                           "80", "--cd", "40", "--plot", plot)  # fmt: skip
+    assert code == 0
+    assert "k1 0.280" in out and "NILS at the drawn edges" in out
+    assert "*" in out and "+" in out  # pupil picture with a +1st order inside
+    assert plot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_sweep_table_bands_plot_and_json(tmp_path, capsys):
+    from .conftest import DEMO_DECK
+
+    plot, js = tmp_path / "sweep.svg", tmp_path / "sweep.json"
+    code, out, _ = run_cli(capsys, "sweep", "-r", DEMO_DECK, "--layer", "poly", "--cd", "75",
+                           "--pitches", "100:300:10", "--plot", plot, "--json", js)  # fmt: skip
+    assert code == 0
+    data = json.loads(js.read_text())
+    assert [p["pitch_nm"] for p in data["pitches"]] == list(range(100, 301, 10))
+    # Below the 115.3 nm cutoff (193 / (0.93 * 1.8), arithmetic): fail.
+    assert all(p["severity"] == "fail" for p in data["pitches"] if p["pitch_nm"] < 115)
+    assert data["bands"][0]["severity"] == "fail" and data["bands"][0]["from_nm"] == 100
+    assert "<svg" in plot.read_text()[:500]
+    assert "pitch 100.0" in out
+
+
+def test_sweep_without_cd_or_anchor_is_a_usage_error(capsys):
+    from .conftest import DEMO_DECK
+
+    code, _, err = run_cli(capsys, "sweep", "-r", DEMO_DECK, "--layer", "poly")
+    assert code == 2 and "--cd" in err
+
+
+def test_probe_unknown_layer(capsys):
+    from .conftest import DEMO_DECK
+
+    code, _, err = run_cli(capsys, "probe", "-r", DEMO_DECK, "--layer", "nope", "--pitch", "100",
+                           "--cd", "50")  # fmt: skip
+    assert code == 2 and "no layer named 'nope'" in err
