@@ -312,36 +312,54 @@ HINT_RANGE = (0.6, 2.0)
 """Pitches tried for a fix hint, as fractions of the flagged pitch."""
 
 
+HINT_IMAGES = 16
+"""At most this many candidate pitches are imaged per hint (nearest first)."""
+
+
+@lru_cache(maxsize=4096)
+def _grating_orders_ok(rule: LayerRule, pitch_q: int, angle_q: int, quantum: float) -> bool:
+    pitch, angle = pitch_q * quantum, angle_q / 10.0
+    res = analyse_pitch(rule.exposure, pitch, (angle - 90.0) % 180.0)
+    return not violations(rule, res, None, pitch)
+
+
 @lru_cache(maxsize=4096)
 def _grating_passes(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
     """True when an ideal grating of this CD and pitch (wafer nm) breaks no limit."""
     from pitchguard.measure import grating_metrics
 
+    if not _grating_orders_ok(rule, pitch_q, angle_q, quantum):
+        return False
+    if not rule.image_checks:
+        return True
     cd, pitch, angle = cd_q * quantum, pitch_q * quantum, angle_q / 10.0
     res = analyse_pitch(rule.exposure, pitch, (angle - 90.0) % 180.0)
-    if violations(rule, res, None, pitch):  # orders and k1 first: no image needed
-        return False
-    m = None
-    if rule.image_checks:
-        m, _, _ = grating_metrics(rule, pitch, cd, angle)
+    m, _, _ = grating_metrics(rule, pitch, cd, angle)
     return not violations(rule, res, m, pitch)
 
 
 def passing_pitch(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: float) -> float:
     """Nearest pitch (wafer nm) at this CD whose ideal grating breaks no limit, or nan.
 
-    ``angle_deg`` is the pitch direction.  Pitches are tried on a grid of
-    lambda/NA / 40 between 0.6x and 2x the flagged pitch, nearest first.
+    ``angle_deg`` is the pitch direction.  Pitches on a grid of lambda/NA / 20
+    between 0.6x and 2x the flagged pitch are tried nearest first; those that
+    pass the order and k1 rules are imaged, at most ``HINT_IMAGES`` of them.
     """
-    quantum = rule.exposure.lambda_over_na_nm / 40.0
+    quantum = rule.exposure.lambda_over_na_nm / 20.0
     cd_q = int(round(cd_nm / quantum))
     angle_q = int(round((angle_deg % 180.0) * 10))
     lo = max(int(math.ceil(HINT_RANGE[0] * pitch_nm / quantum)), int(cd_q * 1.05) + 1)
     hi = int(HINT_RANGE[1] * pitch_nm / quantum)
     here = pitch_nm / quantum
+    imaged = 0
     for q in sorted(range(lo, hi + 1), key=lambda q: (abs(q - here), q)):
+        if not _grating_orders_ok(rule, q, angle_q, quantum):
+            continue
         if _grating_passes(rule, cd_q, q, angle_q, quantum):
             return q * quantum
+        imaged += 1
+        if imaged >= HINT_IMAGES:
+            break
     return math.nan
 
 
@@ -362,8 +380,8 @@ def _hint(rule: LayerRule, vs: list[Violation], res: OrderResult, cd_w: float, p
         return f"widen the {feature} or give it neighbours at a regular pitch"
     ok = passing_pitch(rule, cd_w, pitch_w, angle)
     if math.isnan(ok):
-        return f"no pitch between {HINT_RANGE[0]:g}x and {HINT_RANGE[1]:g}x passes at this " \
-            f"{feature} width: change the width or the exposure"  # fmt: skip
+        return f"no nearby pitch passes at this {feature} width: widen the {feature}, or " \
+            "change the exposure (try `pitchguard sweep` for this layer and width)"  # fmt: skip
     p_d, s_d = ok / scale, (ok - cd_w) / scale
     return f"at this {feature} width, pitch {p_d:.1f} nm (space {s_d:.1f} nm) passes every limit"
 
