@@ -189,17 +189,13 @@ def evaluate(
     for f in range(len(focus_nm)):
         cd = cd_of_thresholds(x, images[f], centre, lo, hi, bright, t)
         windows.append(_threshold_window(t, cd, drawn_cd, tol))
-        if f == best:
-            cd_best = cd
     t_size, ta, tb = windows[best]
     if nominal_threshold is None:
         edge_mean = float(np.interp([left, right], x, inten0).mean())
         t_nom = t_size if math.isfinite(t_size) else edge_mean
     else:
         t_nom = nominal_threshold
-    cd_nom = float(np.interp(t_nom, t, cd_best)) if np.all(np.isfinite(cd_best)) else float(
-        cd_of_thresholds(x, inten0, centre, lo, hi, bright, np.array([t_nom]))[0]
-    )
+    cd_nom = float(cd_of_thresholds(x, inten0, centre, lo, hi, bright, np.array([t_nom]))[0])
     lost = cd_nom <= 0.0
     bridged = math.isinf(cd_nom)
     cd_err = math.nan
