@@ -124,15 +124,29 @@ def site_cuts(
         qk, t, entering = qk[order], t[order], entering[order]
         starts = np.searchsorted(qk, np.arange(len(ids)))
         ends = np.searchsorted(qk, np.arange(len(ids)), side="right")
+        # Sites whose raw crossing patterns (quantised) agree are worked out once:
+        # a 128-bit polynomial hash of each pattern, vectorised.
+        tq = np.round(t / q).astype(np.int64)
+        val = (tq * 2 + entering).astype(np.uint64)
+        rank = np.arange(len(qk)) - starts[qk]
+        h = np.zeros((len(ids), 2), dtype=np.uint64)
+        with np.errstate(over="ignore"):
+            for col, mult in enumerate(_HASH_MULT):
+                prod = val * _powers(mult, int(rank.max(initial=0)) + 1)[rank]
+                np.add.at(h[:, col], qk, prod)
+        wq = np.round(sites.width[ids] / q).astype(np.int64)
+        raw = np.stack([h[:, 0].view(np.int64), h[:, 1].view(np.int64), ends - starts, wq,
+                        angle_key[ids]], axis=1)  # fmt: skip
+        _, first, inverse = np.unique(raw, axis=0, return_index=True, return_inverse=True)
+        inverse = inverse.ravel()
         t_l, ent_l = t.tolist(), entering.tolist()
-        for k, site in enumerate(ids.tolist()):
-            ts = t_l[starts[k] : ends[k]]
-            en = ent_l[starts[k] : ends[k]]
-            bounds = _bounds(ts, en, ambit_nm, q)
+        rep_cut = np.full(len(first), -1, dtype=np.int64)
+        for u, k in enumerate(first.tolist()):
+            site = int(ids[k])
+            bounds = _bounds(t_l[starts[k] : ends[k]], ent_l[starts[k] : ends[k]], ambit_nm, q)
             if bounds is None:
                 continue
-            w = float(sites.width[site])
-            centre = -0.5 * w
+            centre = -0.5 * float(sites.width[site])
             rel = tuple(round((x - centre) / q) for x in bounds)
             mirrored = tuple(-v for v in reversed(rel))
             prof = min(rel, mirrored)
@@ -143,8 +157,23 @@ def site_cuts(
                 keys[key] = idx
                 cuts.append(Cut(tuple(v * q for v in prof), ambit_nm))
                 angles.append(key[0] / 10.0)
-            which[site] = idx
+            rep_cut[u] = idx
+        which[ids] = rep_cut[inverse]
     return which, cuts, angles
+
+
+_HASH_MULT = (0x9E3779B97F4A7C15, 0xC2B2AE3D27D4EB4F)
+"""Odd 64-bit multipliers of the two pattern hashes (golden-ratio and a mixing prime)."""
+
+
+def _powers(mult: int, n: int) -> np.ndarray:
+    """``mult ** k`` modulo 2^64 for k = 0..n-1 (uint64)."""
+    out = np.empty(n, dtype=np.uint64)
+    acc = 1
+    for k in range(n):
+        out[k] = acc
+        acc = (acc * mult) % (1 << 64)
+    return out
 
 
 def _segment_pairs(frames: _EdgeFrames, p0, p1, line_dir):

@@ -122,6 +122,7 @@ def to_json(result: ScanResult, deck: Deck, fail_on: str) -> dict:
             "edges_2d": ex.short_edges,
             "pieces_2d": ex.pieces_2d,
             "isolated_edges": ex.isolated_sites,
+            **ex.extra,
             "seconds": round(st.seconds, 3),
         }
     return {
