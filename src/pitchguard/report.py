@@ -301,9 +301,9 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
             show_edge=False,
         )
         for col, just in (
-            ("#", "right"), ("severity", "left"), ("layer", "left"), ("centre x, y (µm)", "right"),
-            ("pitch nm", "right"), ("w / s nm", "right"), ("k1", "right"), ("orders", "left"),
-            ("lines", "right"), ("check", "left"),
+            ("#", "right"), ("severity", "left"), ("layer", "left"), ("x, y µm", "right"),
+            ("pitch nm", "right"), ("w / s nm", "right"), ("k1", "right"), ("NILS", "right"),
+            ("orders", "left"), ("lines", "right"), ("check", "left"),
         ):  # fmt: skip
             worst.add_column(col, justify=just)
         for k, f in enumerate(shown, 1):
@@ -316,6 +316,7 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
                 f"{f.pitch_nm:.1f}",
                 f"{f.width_nm:.0f} / {f.space_nm:.0f}",
                 f"{f.k1:.3f}",
+                f"{f.nils:.2f}" if math.isfinite(f.nils) else "-",
                 _orders_text(f.orders),
                 str(f.lines),
                 f.check,
