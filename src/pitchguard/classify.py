@@ -111,6 +111,14 @@ class Finding:
     dof_nm: float = math.nan
     violations: tuple[Violation, ...] = ()
     context: str = ""  # worst site's line: interior | outer (last line of an array) | alone
+    # The worst site's cut, for pictures: material boundaries (wafer nm, relative
+    # to the feature centre), the pitch direction of the cut in the layout
+    # (degrees), where the cut crosses the worst edge (drawn nm), and the
+    # nominal threshold.
+    cut_bounds_nm: tuple[float, ...] = ()
+    cut_angle_deg: float = math.nan
+    cut_origin_nm: tuple[float, float] = (math.nan, math.nan)
+    threshold: float = math.nan
 
     @property
     def bbox_um(self) -> tuple[float, float, float, float]:
@@ -452,6 +460,8 @@ def classify_layer(
                      pitch_drawn * scale_to_wafer, pitch_angle, scale_to_wafer)  # fmt: skip
         limit = f"{top.check}: {top.value:.4g} against {top.limit:.4g}"
         context = cuts[c_idx].context if (cuts and c_idx >= 0) else ""
+        cut = cuts[c_idx] if (cuts and c_idx >= 0) else None
+        mid = fs.midpoints()[worst]
         message = top.message
         if context == "outer" and top.check in IMAGE_CHECKS:
             message += " (at the last line of the array)"
@@ -492,6 +502,11 @@ def classify_layer(
                 dof_nm=round(m.dof_nm, 1) if m else math.nan,
                 violations=tuple(vs),
                 context=context,
+                cut_bounds_nm=tuple(round(b * scale_to_wafer, 3) for b in cut.bounds) if cut
+                else (),  # fmt: skip
+                cut_angle_deg=round(pitch_angle % 360.0, 3),
+                cut_origin_nm=(float(mid[0]), float(mid[1])),
+                threshold=round(m.threshold, 5) if m else math.nan,
             )
         )
     out.sort(key=lambda f: (f.severity_rank, f.k1, f.bbox_nm))

@@ -159,3 +159,27 @@ def grating_metrics(
         (i_e[0], d_e[0]),
     )  # fmt: skip
     return m, x, stack[best]
+
+
+def cut_image(
+    rule: LayerRule, bounds_nm: tuple[float, ...], angle_deg: float, focus_nm: float = 0.0
+) -> tuple[np.ndarray, np.ndarray]:
+    """Aerial image ``(x_nm, intensity)`` of a cut given by its material boundaries.
+
+    ``bounds_nm`` are wafer nm relative to the feature centre (as in
+    :attr:`pitchguard.classify.Finding.cut_bounds_nm`); ``x`` spans the cut.
+    """
+    e = rule.exposure
+    optics = Optics.of(e)
+    period = window_period(rule.ambit_nm, e.lambda_over_na_nm)
+    n_max = n_orders(period, optics, e.sigma_max)
+    samples = samples_for(period, n_max, optics)
+    x, order = _centred_grid(period, samples)
+    feat, bg = mask_amplitudes(e, rule.field)
+    edges, mat = cut_segments(Cut(tuple(bounds_nm), rule.ambit_nm), period)
+    spec = segment_spectrum(period, edges, np.where(mat, feat, bg), n_max)
+    angle = 0.0 if e.illumination.shape in ("coherent", "conventional", "annular") \
+        else round(angle_deg, 1) % 180.0  # fmt: skip
+    inten = _systems(e, angle, period, n_max, float(focus_nm)).image(spec, samples)[0, order]
+    keep = np.abs(x) <= rule.ambit_nm
+    return x[keep], inten[keep]

@@ -98,6 +98,9 @@ def finding_to_dict(f: Finding) -> dict:
         "exposure_latitude_pct": f.el_pct,
         "depth_of_focus_nm": f.dof_nm,
         "worst_line": f.context or None,
+        "cut": {"bounds_nm": list(f.cut_bounds_nm), "angle_deg": f.cut_angle_deg,
+                "origin_um": [f.cut_origin_nm[0] / 1000.0, f.cut_origin_nm[1] / 1000.0],
+                "threshold": f.threshold} if f.cut_bounds_nm else None,
         "checks": [
             {"check": v.check, "severity": v.severity, "value": v.value, "limit": v.limit,
              "message": v.message}
