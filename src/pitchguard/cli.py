@@ -69,7 +69,6 @@ def _positive_int(text: str) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    from pitchguard.report import FAIL_ON_CHOICES
 
     p = _Parser(
         prog="pitchguard",
@@ -83,25 +82,19 @@ def build_parser() -> argparse.ArgumentParser:
     scan.add_argument("layout", type=Path, help="GDSII (.gds) or OASIS (.oas) file")
     scan.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK",
                       help="rule deck (TOML)")  # fmt: skip
-    scan.add_argument("--markers", type=Path, metavar="PATH",
-                      help="write a marker layout (.gds or .oas) of flagged regions")  # fmt: skip
-    scan.add_argument("--json", type=Path, metavar="PATH", help="write findings as JSON")
-    scan.add_argument(
-        "--fail-on", choices=FAIL_ON_CHOICES, default="fail",
-        help="exit 1 when a finding of this severity or worse exists (default: fail)",
-    )  # fmt: skip
-    scan.add_argument("--cell", metavar="NAME", help="top cell to scan (default: all top cells)")
     scan.add_argument("--region", type=_region, metavar="X0,Y0,X1,Y1",
                       help="scan only sites inside this window (µm, as drawn)")  # fmt: skip
-    scan.add_argument("--top", type=_positive_int, default=20, metavar="N",
-                      help="worst regions listed in the terminal (default: 20)")  # fmt: skip
-    scan.add_argument(
-        "--max-shapes", type=_positive_int, default=None, metavar="N",
-        help="refuse layouts that flatten to more shapes (default: 20 million)",
-    )  # fmt: skip
-    scan.add_argument("--quiet", "-q", action="store_true",
-                      help="print only the one-line summary")  # fmt: skip
-    scan.add_argument("--debug", action="store_true", help="show tracebacks")
+    scan.add_argument("--baseline", type=Path, metavar="PATH",
+                      help="accepted findings: report and fail only on new ones")  # fmt: skip
+    scan.add_argument("--write-baseline", type=Path, metavar="PATH",
+                      help="record this scan's findings as accepted (keeps reasons)")
+    _add_outputs(scan)
+
+    dif = sub.add_parser("diff", help="scan two revisions; report introduced, fixed, unchanged")
+    dif.add_argument("base", type=Path, help="the earlier revision (GDSII or OASIS)")
+    dif.add_argument("new", type=Path, help="the revision to gate")
+    dif.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK")
+    _add_outputs(dif)
 
     probe = sub.add_parser("probe", help="explain one pitch: orders, k1, aerial image, metrics")
     probe.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK")
@@ -159,58 +152,189 @@ def _progress_callback(console, quiet: bool):
     return bar, update
 
 
-def cmd_scan(args) -> int:
-    from rich.console import Console
+def _add_outputs(p) -> None:
+    """Output options shared by scan and diff."""
+    from pitchguard.report import FAIL_ON_CHOICES
 
-    from pitchguard.deck import load_deck
-    from pitchguard.layout import DEFAULT_MAX_SHAPES
-    from pitchguard.report import (
-        exit_code,
-        one_line_summary,
-        print_table,
-        to_json,
-        write_json,
-        write_markers,
-    )
-    from pitchguard.scan import scan_layout
+    p.add_argument("--markers", type=Path, metavar="PATH",
+                   help="write a marker layout (.gds or .oas) of flagged regions")  # fmt: skip
+    p.add_argument("--json", type=Path, metavar="PATH", help="write findings as JSON")
+    p.add_argument("--sarif", type=Path, metavar="PATH", help="write SARIF 2.1.0 for code scanning")
+    p.add_argument("--junit", type=Path, metavar="PATH", help="write JUnit XML for CI dashboards")
+    p.add_argument("--html", type=Path, metavar="PATH",
+                   help="write a self-contained HTML report with pictures")  # fmt: skip
+    p.add_argument(
+        "--fail-on", choices=FAIL_ON_CHOICES, default="fail",
+        help="exit 1 when a (new) finding of this severity or worse exists (default: fail)",
+    )  # fmt: skip
+    p.add_argument("--cell", metavar="NAME", help="top cell to scan (default: all top cells)")
+    p.add_argument("--top", type=_positive_int, default=20, metavar="N",
+                   help="worst regions listed in the terminal (default: 20)")  # fmt: skip
+    p.add_argument(
+        "--max-shapes", type=_positive_int, default=None, metavar="N",
+        help="refuse layouts that flatten to more shapes (default: 20 million)",
+    )  # fmt: skip
+    p.add_argument("--quiet", "-q", action="store_true",
+                   help="print only the one-line summary")  # fmt: skip
+    p.add_argument("--debug", action="store_true", help="show tracebacks")
 
-    deck = load_deck(args.rules)
-    inputs = [args.layout, args.rules]
-    for out in (args.markers, args.json):
-        if out is not None:
-            from pitchguard.report import _check_not_input
 
-            _check_not_input(out, inputs)
+def _outputs(args) -> list[Path]:
+    return [p for p in (args.markers, args.json, args.sarif, args.junit, args.html) if p]
+
+
+def _check_outputs(args, inputs: list[Path]) -> None:
+    from pitchguard.report import _check_not_input
+
+    outs = _outputs(args) + [p for p in (getattr(args, "write_baseline", None),) if p]
+    for out in outs:
+        _check_not_input(out, inputs)
+    if len({str(p.resolve()) for p in outs}) != len(outs):
+        raise PitchguardError("two outputs name the same file")
     if args.markers is not None and args.markers.suffix.lower() not in (".gds", ".oas"):
         raise PitchguardError(f"{args.markers}: marker file must end in .gds or .oas")
+
+
+def _run_scan(args, deck, layout: Path, label: str = ""):
+    from rich.console import Console
+
+    from pitchguard.layout import DEFAULT_MAX_SHAPES
+    from pitchguard.scan import scan_layout
+
     err = Console(stderr=True)
     bar, update = _progress_callback(err, args.quiet)
+    if update and label:
+        inner = update
+
+        def update(stage, done, total):  # noqa: F811 - labelled wrapper
+            inner(f"{label} {stage}", done, total)
+
     try:
         if bar:
             bar.start()
-        result = scan_layout(
-            args.layout,
-            deck,
-            cell=args.cell,
-            region_um=args.region,
-            max_shapes=args.max_shapes or DEFAULT_MAX_SHAPES,
-            progress=update,
-        )
+        return scan_layout(
+            layout, deck, cell=args.cell, region_um=getattr(args, "region", None),
+            max_shapes=args.max_shapes or DEFAULT_MAX_SHAPES, progress=update,
+        )  # fmt: skip
     finally:
         if bar:
             bar.stop()
+
+
+def _write_outputs(args, result, deck, inputs, extra_json: dict | None = None) -> None:
+    from pitchguard.report import to_json, write_json, write_markers
+
     if args.json is not None:
-        write_json(args.json, to_json(result, deck, args.fail_on), inputs)
+        payload = to_json(result, deck, args.fail_on)
+        if extra_json:
+            payload.update(extra_json)
+        write_json(args.json, payload, inputs)
     if args.markers is not None:
         write_markers(args.markers, result, deck, inputs)
+    if args.sarif is not None:
+        from pitchguard.ci_formats import write_sarif
+
+        write_sarif(args.sarif, result, deck, result.layout.path, args.fail_on, inputs)
+    if args.junit is not None:
+        from pitchguard.ci_formats import write_junit
+
+        write_junit(args.junit, result, deck, args.fail_on, inputs)
+    if args.html is not None:
+        from pitchguard.html_report import write_html
+
+        write_html(args.html, result, deck, inputs, args.fail_on)
+
+
+def cmd_scan(args) -> int:
+    import dataclasses
+
+    from pitchguard.baseline import apply_baseline, load_baseline, write_baseline
+    from pitchguard.deck import load_deck
+    from pitchguard.report import exit_code, one_line_summary, print_table
+
+    deck = load_deck(args.rules)
+    inputs = [args.layout, args.rules] + ([args.baseline] if args.baseline else [])
+    same = args.write_baseline and args.baseline and \
+        args.write_baseline.resolve() == args.baseline.resolve()  # fmt: skip
+    if same:
+        inputs = inputs[:-1]  # updating a baseline in place keeps its reasons and owners
+    _check_outputs(args, inputs)
+    entries = load_baseline(args.baseline) if args.baseline else None
+    result = _run_scan(args, deck, args.layout)
+    gate = apply_baseline(result.findings, entries, args.baseline) if entries is not None else None
+    extra = None
+    shown = result
+    if gate is not None:
+        accepted_ids = {id(f) for f, _ in gate.accepted}
+        extra = {"baseline": {
+            "path": str(args.baseline),
+            "new": len(gate.new), "accepted": len(gate.accepted), "stale": len(gate.stale),
+            "stale_entries": gate.stale,
+            "accepted_entries": [{"finding_index": result.findings.index(f),
+                                  "reason": e.get("reason", ""), "owner": e.get("owner", "")}
+                                 for f, e in gate.accepted],
+        }}  # fmt: skip
+        extra["finding_status"] = ["accepted" if id(f) in accepted_ids else "new"
+                                   for f in result.findings]  # fmt: skip
+        shown = dataclasses.replace(result, findings=gate.new)
+    _write_outputs(args, result if gate is None else shown, deck, inputs, extra)
+    if args.write_baseline is not None:
+        write_baseline(args.write_baseline, result.findings, deck.name, str(args.layout),
+                       [p for p in inputs if p != args.baseline])  # fmt: skip
+    gated = gate.new if gate is not None else result.findings
+    code = exit_code(gated, args.fail_on)
+    note = ""
+    if gate is not None:
+        note = (f" [baseline: {len(gate.new)} new, {len(gate.accepted)} accepted, "
+                f"{len(gate.stale)} stale]")  # fmt: skip
     if args.quiet:
-        print(one_line_summary(result, args.fail_on))
+        print(one_line_summary(shown, args.fail_on) + note)
     else:
-        out = Console()
-        if not out.is_terminal:
-            out = Console(width=120)  # CI logs: do not wrap the table at 80 columns
-        print_table(out, result, args.fail_on, top=args.top)
-    return exit_code(result.findings, args.fail_on)
+        out = _console()
+        print_table(out, shown, args.fail_on, top=args.top)
+        if gate is not None:
+            out.print(f"baseline {args.baseline}: {len(gate.new)} new finding(s) shown above, "
+                      f"{len(gate.accepted)} accepted, {len(gate.stale)} stale")  # fmt: skip
+            for e in gate.stale[:20]:
+                out.print(f"  stale (fixed since, prune it): {e['layer']} {e['check']} "
+                          f"pitch {e['pitch_nm']} nm at {e['centre_um']} µm")  # fmt: skip
+    return code
+
+
+def cmd_diff(args) -> int:
+    import dataclasses
+
+    from pitchguard.baseline import diff
+    from pitchguard.deck import load_deck
+    from pitchguard.report import exit_code, finding_to_dict, one_line_summary, print_table
+
+    deck = load_deck(args.rules)
+    inputs = [args.base, args.new, args.rules]
+    _check_outputs(args, inputs)
+    base = _run_scan(args, deck, args.base, "base")
+    new = _run_scan(args, deck, args.new, "new")
+    d = diff(base.findings, new.findings)
+    shown = dataclasses.replace(new, findings=d.introduced,
+                                seconds=base.seconds + new.seconds)  # fmt: skip
+    extra = {"diff": {
+        "base": str(args.base), "new": str(args.new),
+        "introduced": len(d.introduced), "fixed": len(d.fixed), "unchanged": len(d.unchanged),
+        "fixed_findings": [finding_to_dict(f) for f in d.fixed],
+        "unchanged_findings": [finding_to_dict(f) for _, f in d.unchanged],
+    }}  # fmt: skip
+    _write_outputs(args, shown, deck, inputs, extra)
+    line = (f"diff {args.base} -> {args.new}: {len(d.introduced)} introduced, "
+            f"{len(d.fixed)} fixed, {len(d.unchanged)} unchanged")  # fmt: skip
+    if args.quiet:
+        print(one_line_summary(shown, args.fail_on) + f" [{line}]")
+    else:
+        out = _console()
+        print_table(out, shown, args.fail_on, top=args.top)
+        out.print(line)
+        for f in d.fixed[:20]:
+            out.print(f"  fixed: {f.layer} {f.check} pitch {f.pitch_nm:.1f} nm at "
+                      f"{f.centre_um} µm (base)")  # fmt: skip
+    return exit_code(d.introduced, args.fail_on)
 
 
 def cmd_rules_check(args) -> int:
@@ -430,7 +554,7 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_USAGE
     if args.command == "rules" and args.rules_command is None:
         parser.parse_args(["rules", "--help"])
-    handler = {"scan": cmd_scan, "probe": cmd_probe, "sweep": cmd_sweep}.get(
+    handler = {"scan": cmd_scan, "probe": cmd_probe, "sweep": cmd_sweep, "diff": cmd_diff}.get(
         args.command, cmd_rules_check
     )
     try:

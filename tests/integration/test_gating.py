@@ -1,0 +1,128 @@
+"""Gating a merge: baselines and revision diffs.
+
+What counts as "the same finding" is the project's own rule (README, "In
+CI"); these tests hold it to the behaviour CI needs: a baseline taken on one
+revision passes that revision, survives a shift of the whole layout and an
+unrelated addition, and reports exactly what was added.
+"""
+
+from __future__ import annotations
+
+import json
+
+import gdstk
+import pytest
+
+from .conftest import DRY_ARF_DECK, line_array_cell, run_cli
+
+
+def _chip(path, shift=(0.0, 0.0), add=False, remove_b=False):
+    lib = gdstk.Library()
+    top = lib.new_cell("TOP")
+    a = line_array_cell(lib, "A110", (7, 0), 110, 55, 9, 1500)  # below the 115.3 nm cutoff
+    sx, sy = shift
+    top.add(gdstk.Reference(a, (sx, sy)))
+    if not remove_b:  # (an unreferenced cell would be a second top cell: not created)
+        b = line_array_cell(lib, "B120", (7, 0), 120, 60, 12, 2000)  # k1 0.289: risk or worse
+        top.add(gdstk.Reference(b, (10 + sx, sy)))
+    if add:
+        top.add(gdstk.Reference(a, (30 + sx, 5 + sy)))
+    lib.write_gds(str(path))
+    return path
+
+
+@pytest.fixture
+def revs(tmp_path, dry_deck):
+    return {
+        "deck": dry_deck,
+        "r1": _chip(tmp_path / "r1.gds"),
+        "shifted": _chip(tmp_path / "shifted.gds", shift=(3.7, -2.2)),
+        "added": _chip(tmp_path / "added.gds", add=True),
+        "both": _chip(tmp_path / "both.gds", shift=(3.7, -2.2), add=True),
+        "fixed": _chip(tmp_path / "fixed.gds", remove_b=True),
+        "base": tmp_path / "baseline.json",
+        "tmp": tmp_path,
+    }
+
+
+def test_baseline_passes_its_own_revision(revs, capsys):
+    code, _, _ = run_cli(capsys, "scan", revs["r1"], "-r", revs["deck"], "-q",
+                         "--write-baseline", revs["base"])  # fmt: skip
+    assert code == 1  # the revision itself has a fail finding
+    data = json.loads(revs["base"].read_text())
+    assert data["pitchguard_baseline"] == 1 and len(data["entries"]) == 2
+    code, out, _ = run_cli(capsys, "scan", revs["r1"], "-r", revs["deck"], "-q",
+                           "--baseline", revs["base"])  # fmt: skip
+    assert code == 0 and "0 new, 2 accepted, 0 stale" in out
+
+
+@pytest.mark.parametrize("rev", ["shifted", "added", "both"])
+def test_baseline_survives_shift_and_unrelated_addition(revs, capsys, rev):
+    run_cli(capsys, "scan", revs["r1"], "-r", revs["deck"], "-q", "--write-baseline", revs["base"])
+    js = revs["tmp"] / f"{rev}.json"
+    code, out, _ = run_cli(capsys, "scan", revs[rev], "-r", revs["deck"], "-q",
+                           "--baseline", revs["base"], "--json", js)  # fmt: skip
+    data = json.loads(js.read_text())
+    added = rev in ("added", "both")
+    assert data["baseline"]["accepted"] == 2 and data["baseline"]["stale"] == 0
+    assert data["baseline"]["new"] == (1 if added else 0)
+    assert code == (1 if added else 0)
+    if added:
+        # Exactly the added array, wherever the whole layout moved.
+        (f,) = data["findings"]
+        dx, dy = (3.7, -2.2) if rev == "both" else (0.0, 0.0)
+        x0, y0, x1, y1 = f["bbox_um"]
+        assert x0 == pytest.approx(30 + dx, abs=0.01) and y0 == pytest.approx(5 + dy, abs=0.01)
+
+
+def test_stale_entries_are_listed_and_reasons_kept(revs, capsys):
+    run_cli(capsys, "scan", revs["r1"], "-r", revs["deck"], "-q", "--write-baseline", revs["base"])
+    data = json.loads(revs["base"].read_text())
+    for e in data["entries"]:
+        e["reason"], e["owner"] = "accepted for the test chip", "layout team"
+    revs["base"].write_text(json.dumps(data))
+    code, out, _ = run_cli(capsys, "scan", revs["fixed"], "-r", revs["deck"],
+                           "--baseline", revs["base"])  # fmt: skip
+    assert code == 0
+    assert "1 stale" in out and "stale (fixed since, prune it)" in out
+    # Rewriting the baseline in place keeps the people's notes on what still matches.
+    run_cli(capsys, "scan", revs["shifted"], "-r", revs["deck"], "-q", "--baseline",
+            revs["base"], "--write-baseline", revs["base"])  # fmt: skip
+    again = json.loads(revs["base"].read_text())
+    assert {(e["reason"], e["owner"]) for e in again["entries"]} == {
+        ("accepted for the test chip", "layout team")
+    }
+
+
+def test_bad_baseline_is_a_usage_error(revs, capsys):
+    bad = revs["tmp"] / "bad.json"
+    bad.write_text('{"entries": []}')
+    code, _, err = run_cli(capsys, "scan", revs["r1"], "-r", revs["deck"], "--baseline", bad)
+    assert code == 2 and "not a pitchguard baseline" in err and "Traceback" not in err
+
+
+def test_diff_reports_exactly_the_introduced_array(revs, capsys):
+    js = revs["tmp"] / "diff.json"
+    code, out, _ = run_cli(capsys, "diff", revs["r1"], revs["both"], "-r", revs["deck"], "-q",
+                           "--json", js)  # fmt: skip
+    assert code == 1
+    data = json.loads(js.read_text())
+    assert (data["diff"]["introduced"], data["diff"]["fixed"], data["diff"]["unchanged"]) == (1, 0, 2)
+    (f,) = data["findings"]
+    assert f["bbox_um"][0] == pytest.approx(33.7, abs=0.01)
+    assert "1 introduced, 0 fixed, 2 unchanged" in out
+
+
+def test_diff_fixed_only_passes(revs, capsys):
+    js = revs["tmp"] / "diff.json"
+    code, _, _ = run_cli(capsys, "diff", revs["r1"], revs["fixed"], "-r", revs["deck"], "-q",
+                         "--json", js)  # fmt: skip
+    data = json.loads(js.read_text())
+    assert code == 0
+    assert (data["diff"]["introduced"], data["diff"]["fixed"]) == (0, 1)
+    assert data["diff"]["fixed_findings"][0]["pitch_nm"] == pytest.approx(120.0, abs=1.0)
+
+
+def test_deck_text_unchanged():
+    # The fixture deck these tests use is the dry ArF one (cutoff 115.3 nm).
+    assert "sigma = 0.8" in DRY_ARF_DECK
