@@ -1,0 +1,499 @@
+"""CI report formats: SARIF 2.1.0 (code-scanning services) and JUnit XML (test dashboards).
+
+Both render the same :class:`~pitchguard.classify.Finding` records as the JSON
+report; neither recomputes physics.
+
+SARIF
+    One run.  ``tool.driver.rules`` has one rule per check id in
+    :data:`~pitchguard.classify.CHECKS` (same order), each with a designer's
+    help text.  One result per finding; its level follows the severity
+    (``fail`` -> ``error``, ``risk`` -> ``warning``, ``marginal`` -> ``note``).
+    The physical location is the layout file only: a layout has no lines or
+    columns, so no ``region`` is given; the place on the chip is in the
+    result's ``properties`` (``bbox_um``, ``centre_um``, ``outline_um``) and in
+    the message.  ``partialFingerprints`` hold a hash of what the region *is*
+    (layer, check, pitch, width, space, line direction), not where it is, so a
+    layout shifted as a whole keeps its fingerprints; identical hashes get an
+    occurrence suffix ``:1``, ``:2`` ... in order of position.
+
+JUnit XML
+    ``<testsuites>`` with one ``<testsuite>`` per deck layer.  The choice made
+    so that *the number of failures equals the number of findings at or above
+    fail_on*, whichever way a dashboard counts:
+
+    * every finding at or above ``fail_on`` is its own ``<testcase>``
+      (classname ``pitchguard.<layer>.<check>``, name ``<check> at (x, y) um``)
+      holding exactly one ``<failure type="<check>">`` (one line: severity,
+      location, pitch, message, hint);
+    * every layer x check pair with no such finding is one passing
+      ``<testcase>`` (classname ``pitchguard.<layer>``, name ``<check>``); the
+      pair's findings below ``fail_on``, if any, are listed one a line in its
+      ``<system-out>``;
+    * a pair that has failing findings gets no passing testcase (a dashboard
+      would show it as "passed" next to its failures); its findings below
+      ``fail_on`` are listed in the ``<system-out>`` of the layer's testsuite.
+
+    So ``failures`` (on ``<testsuites>`` and summed over ``<testsuite>``) and
+    the count of ``<failure>`` elements both equal the number of findings at
+    or above ``fail_on``; ``errors`` and ``skipped`` are 0.  Each testsuite
+    carries ``<properties>`` naming the deck, the layout, the layer's
+    source and exposure, ``fail_on`` and the screening caution.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import re
+import urllib.parse
+import xml.etree.ElementTree as ET
+from collections import defaultdict
+from pathlib import Path
+
+from pitchguard import __version__
+from pitchguard.classify import CHECKS, Finding
+from pitchguard.deck import SEVERITIES, Deck
+from pitchguard.report import CAUTION, atomic_write, exit_code, finding_to_dict
+from pitchguard.scan import ScanResult
+
+SARIF_VERSION = "2.1.0"
+SARIF_SCHEMA_URI = (
+    "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
+)
+"""The OASIS SARIF 2.1.0 schema (errata 01): the ``id`` of the schema the tests use."""
+
+LEVEL = {"fail": "error", "risk": "warning", "marginal": "note"}
+"""SARIF result level of each pitchguard severity."""
+
+FINGERPRINT_KEY = "pitchguardRegion/v1"
+"""Key of our entry in ``result.partialFingerprints`` (bump the version if the recipe changes)."""
+
+# ------------------------------------------------------------------- rule help
+#
+# Per check: the worst severity it can raise (its SARIF defaultConfiguration
+# level) and the help a layout designer reads in a code-scanning alert:
+# what it flags, why it matters for printing, what to change.
+
+_RULE_HELP: dict[str, dict[str, str]] = {
+    "unresolvable-pitch": {
+        "worst": "fail",
+        "flags": "Line/space regions whose pitch is smaller than the smallest pitch the "
+        "layer's exposure (wavelength, NA, illumination) can image in the direction of "
+        "the lines.",
+        "why": "Only the undiffracted (0th) order gets through the projection lens: the "
+        "image carries no pattern and the lines do not print at all, whatever the dose, "
+        "focus or mask correction. The limit depends on direction: a dipole source "
+        "images lines across its poles at a much tighter pitch than lines along them.",
+        "change": "Widen the pitch to at least the value in the finding's hint, turn the "
+        "lines to the direction the illumination serves, or move the layer to an exposure "
+        "set-up that resolves this pitch.",
+    },
+    "feature-not-printed": {
+        "worst": "fail",
+        "flags": "Regions where the simulated image of the feature (a line on a clear "
+        "field, an opening on a dark one) never crosses the print threshold at best "
+        "focus and nominal dose.",
+        "why": "The feature is missing on the wafer. It happens near the resolution limit "
+        "and often at the last line of an array, which images worse than the lines in "
+        "the middle.",
+        "change": "Widen the feature or the pitch (the hint gives the nearest pitch that "
+        "passes at this width). At the edge of an array, a dummy line beyond the last "
+        "real one makes it image like the interior lines.",
+    },
+    "features-bridged": {
+        "worst": "fail",
+        "flags": "Regions where the printed feature runs into its neighbour: the image "
+        "never crosses the threshold inside the space, at best focus and nominal dose.",
+        "why": "Neighbouring features merge on the wafer: lines short together, or "
+        "openings join into one.",
+        "change": "Widen the space (the hint gives the nearest pitch that passes at this "
+        "width), or narrow the feature.",
+    },
+    "low-k1": {
+        "worst": "risk",
+        "flags": "Regions whose k1 = (pitch / 2) x NA / wavelength is below the layer's "
+        "risk band (k1_risk_below, default 0.30) or marginal band (k1_marginal_below, "
+        "default 0.40).",
+        "why": "k1 says how hard the pitch is for the scanner. Below about 0.3 it needs "
+        "strong off-axis illumination and resolution enhancement, 0.3 to 0.4 is "
+        "demanding, above about 0.5 is comfortable. The lower k1, the smaller the dose "
+        "and focus window the fab has.",
+        "change": "Relax the pitch towards the value in the hint (the pitch that reaches "
+        "the layer's marginal band), or accept the risk with the fab's agreement.",
+    },
+    "low-nils": {
+        "worst": "fail",
+        "flags": "Regions where the normalised image log-slope (NILS) at the drawn edges "
+        "is below the layer's bands (defaults: fail below 1.0, risk below 1.5, marginal "
+        "below 2.0).",
+        "why": "NILS measures how sharply the image switches from dark to bright at the "
+        "feature edge. With a shallow edge, small changes of dose, focus or resist move "
+        "the printed edge a lot: the line width varies and the edges roughen. Below "
+        "about 1 the edge is not controllable.",
+        "change": "Move the pitch (or the width) to the value in the hint, which names "
+        "the nearest pitch whose ideal grating passes every limit of the layer.",
+    },
+    "low-exposure-latitude": {
+        "worst": "risk",
+        "flags": "Regions where the dose range that keeps the printed width within "
+        "tolerance (cd_tolerance_pct) is smaller than el_min_pct of the dose.",
+        "why": "Every scanner and wafer varies in dose. With little exposure latitude, "
+        "normal dose variation prints this pattern out of its width tolerance.",
+        "change": "Move the pitch or width to the value in the hint; patterns close to the "
+        "layer's anchor (dose-to-size) geometry usually have the most latitude.",
+    },
+    "low-depth-of-focus": {
+        "worst": "risk",
+        "flags": "Regions where the focus range that keeps the printed width within "
+        "tolerance, with el_min_pct of exposure latitude, is shorter than dof_min_nm.",
+        "why": "Wafer topography, flatness and scanner focus errors use up the focus "
+        "budget; a pattern with less depth of focus than that prints out of tolerance. "
+        "With off-axis illumination tuned for the densest pitch, some larger pitches "
+        "lose their depth of focus (forbidden pitches).",
+        "change": "Avoid this pitch: the hint gives the nearest pitch that passes; "
+        "`pitchguard sweep` shows the layer's forbidden pitch bands for this width.",
+    },
+    "cd-error": {
+        "worst": "risk",
+        "flags": "Regions whose printed width at the layer's anchored dose differs from "
+        "the drawn width by more than cd_tolerance_pct (iso-dense bias).",
+        "why": "One dose prints the whole layer. A pattern that prints too wide or too "
+        "narrow at that dose needs a correction of the mask (bias or OPC); large "
+        "corrections cost process margin and may not be possible at all.",
+        "change": "Move the pitch or width towards the layer's anchor geometry, or make "
+        "sure the fab's mask correction covers this pattern.",
+    },
+}
+
+
+def rule_name(check: str) -> str:
+    """CamelCase name of a check id: ``low-k1`` -> ``LowK1``."""
+    return "".join(part[:1].upper() + part[1:] for part in check.split("-"))
+
+
+def _rule(check: str) -> dict:
+    short = CHECKS.get(check, check)
+    info = _RULE_HELP.get(check)
+    if info is None:  # a check added to CHECKS without help here: still a valid rule
+        info = {"worst": "fail", "flags": short, "why": "", "change": "See the finding's hint."}
+    full = f"{info['flags']} {info['why']}".strip()
+    text = (
+        f"What it flags: {info['flags']}\n\n"
+        f"Why it matters for printing: {info['why']}\n\n"
+        f"What to change: {info['change']}\n\n"
+        f"{CAUTION}"
+    )
+    markdown = (
+        f"**What it flags.** {info['flags']}\n\n"
+        f"**Why it matters for printing.** {info['why']}\n\n"
+        f"**What to change.** {info['change']}\n\n"
+        f"_{CAUTION}_"
+    )
+    return {
+        "id": check,
+        "name": rule_name(check),
+        "shortDescription": {"text": short},
+        "fullDescription": {"text": full},
+        "help": {"text": text, "markdown": markdown},
+        "defaultConfiguration": {"level": LEVEL[info["worst"]]},
+        "properties": {"tags": ["lithography", "printability"]},
+    }
+
+
+# ------------------------------------------------------------------- helpers
+
+
+def _nm(x: float, digits: int = 1) -> str:
+    return f"{x:.{digits}f}" if math.isfinite(x) else "-"
+
+
+def _at_or_above(f: Finding, fail_on: str) -> bool:
+    if fail_on == "never":
+        return False
+    return f.severity_rank <= SEVERITIES.index(fail_on)
+
+
+def _um(x: float) -> str:
+    """Micrometres as drawn, to the 0.1 nm the report keeps, without trailing zeros."""
+    text = f"{x:.4f}".rstrip("0").rstrip(".")
+    return "0" if text == "-0" else text
+
+
+def _where(f: Finding) -> str:
+    cx, cy = f.centre_um
+    return f"({_um(cx)}, {_um(cy)}) um"
+
+
+def describe(f: Finding) -> str:
+    """One sentence a designer can act on: layer, place, pitch, what tripped, the fix."""
+    x0, y0, x1, y1 = (_um(v) for v in f.bbox_um)
+    return (
+        f"{f.severity} on layer {f.layer} ({f.source}): region centred at "
+        f"{_where(f)} (box {x0}, {y0} to {x1}, {y1} um), "
+        f"{f.lines} lines ({f.periodicity}) running at {f.orientation_deg:g} deg, "
+        f"pitch {_nm(f.pitch_nm)} nm (width {_nm(f.width_nm)} / space {_nm(f.space_nm)} nm), "
+        f"k1 {f.k1:.3f}. {f.check}: {f.message}. Fix: {f.hint}."
+    )
+
+
+def _artifact_uri(layout_path: Path) -> str:
+    """The layout relative to the current directory when it lies inside it, else a file URI."""
+    p = Path(layout_path)
+    cwd = Path.cwd()
+    for a, b in ((p.absolute(), cwd.absolute()), (p.resolve(), cwd.resolve())):
+        try:
+            rel = a.relative_to(b)
+        except ValueError:
+            continue
+        # Percent-encode (spaces, '%', '#', and ':' which would read as a scheme).
+        return urllib.parse.quote(rel.as_posix(), safe="/")
+    return p.resolve().as_uri()
+
+
+def _fp_value(x: float) -> str:
+    if not math.isfinite(x):
+        return "inf" if x > 0 else "nan"
+    return f"{round(x):d}"
+
+
+def fingerprint_base(f: Finding) -> str:
+    """Hash of what a region is, not where: layer, check, pitch, width, space, direction.
+
+    Lengths are rounded to whole nanometres and the line direction to whole
+    degrees (mod 180), so grid snapping of rotated geometry does not change it.
+    """
+    orient = round(f.orientation_deg) % 180
+    key = "|".join((
+        "v1", f.layer, f.check, _fp_value(f.pitch_nm), _fp_value(f.width_nm),
+        _fp_value(f.space_nm), str(orient),
+    ))  # fmt: skip
+    return hashlib.sha256(key.encode("utf-8")).hexdigest()[:32]
+
+
+def fingerprints(findings: list[Finding]) -> list[str]:
+    """Stable fingerprint per finding: base hash plus ``:n``, the occurrence among equals.
+
+    Equal base hashes are numbered in order of position (lower-left corner,
+    x then y), an order a translation of the whole layout keeps.
+    """
+    bases = [fingerprint_base(f) for f in findings]
+    groups: dict[str, list[int]] = defaultdict(list)
+    for i, b in enumerate(bases):
+        groups[b].append(i)
+    out = [""] * len(findings)
+    for b, idx in groups.items():
+        idx.sort(key=lambda i: (findings[i].bbox_nm, findings[i].severity_rank))
+        for n, i in enumerate(idx, 1):
+            out[i] = f"{b}:{n}"
+    return out
+
+
+# ------------------------------------------------------------------- SARIF
+
+
+def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str) -> dict:
+    """A SARIF 2.1.0 log of a scan: one run, one rule per check, one result per finding."""
+    # A check missing from CHECKS (not expected) still gets a rule, after the known ones.
+    checks = list(CHECKS) + sorted({f.check for f in result.findings} - set(CHECKS))
+    rules = [_rule(c) for c in checks]
+    uri = _artifact_uri(layout_path)
+    cells = list(result.layout.cells) if result.layout else []
+    fps = fingerprints(result.findings)
+    results = []
+    for f, fp in zip(result.findings, fps, strict=True):
+        # Logical locations.  A cell is a named, self-contained unit of design that
+        # other cells instantiate, the layout's counterpart of a code module: kind
+        # "module".  A layer is a part of every cell (the shapes drawn on it), as a
+        # member is part of a type: kind "member", with the cell as parent when the
+        # scan had one top cell, and the layout's "layer/datatype" as its
+        # machine-readable (decorated) name.
+        logical = [{"name": c, "kind": "module"} for c in cells]
+        layer_loc = {
+            "name": f.layer,
+            "fullyQualifiedName": f"{cells[0]}/{f.layer}" if len(cells) == 1 else f.layer,
+            "decoratedName": f.source,
+            "kind": "member",
+        }
+        logical.append(layer_loc)
+        props = finding_to_dict(f)
+        props["fail_on"] = fail_on
+        props["at_or_above_fail_on"] = _at_or_above(f, fail_on)
+        results.append({
+            "ruleId": f.check,
+            "ruleIndex": checks.index(f.check),
+            "level": LEVEL[f.severity],
+            "message": {"text": describe(f)},
+            "locations": [{
+                "physicalLocation": {"artifactLocation": {"uri": uri}},
+                "logicalLocations": logical,
+            }],
+            "partialFingerprints": {FINGERPRINT_KEY: fp},
+            "properties": props,
+        })  # fmt: skip
+    run_props = {
+        "caution": CAUTION,
+        "deck": {
+            "name": deck.name,
+            "path": str(deck.path) if deck.path else None,
+            "drawn_scale": deck.drawn_scale,
+            "reduction": deck.reduction,
+        },
+        "layout": {
+            "path": str(layout_path),
+            "format": result.layout.format if result.layout else None,
+            "cells": cells,
+        },
+        "fail_on": fail_on,
+    }
+    invocation: dict = {
+        "executionSuccessful": True,
+        "exitCode": exit_code(result.findings, fail_on),
+    }
+    if result.warnings:
+        invocation["toolExecutionNotifications"] = [
+            {"level": "warning", "message": {"text": f"layout library: {w}"}}
+            for w in result.warnings
+        ]
+    run = {
+        "tool": {
+            "driver": {
+                "name": "pitchguard",
+                "version": __version__,
+                "semanticVersion": __version__,
+                "rules": rules,
+            }
+        },
+        "invocations": [invocation],
+        "results": results,  # present even when empty: "scanned, nothing found"
+        "properties": run_props,
+    }
+    return {"$schema": SARIF_SCHEMA_URI, "version": SARIF_VERSION, "runs": [run]}
+
+
+def _default_inputs(layout_path: Path, deck: Deck) -> list[Path]:
+    return [Path(layout_path)] + ([Path(deck.path)] if deck.path else [])
+
+
+def write_sarif(
+    out: Path, result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
+    inputs: list[Path] | None = None,
+) -> None:  # fmt: skip
+    """Write :func:`to_sarif` to ``out`` atomically (never over an input file)."""
+    log = to_sarif(result, deck, layout_path, fail_on)
+    text = json.dumps(log, indent=2, allow_nan=False, ensure_ascii=False) + "\n"
+
+    def w(tmp: Path) -> None:
+        tmp.write_text(text, encoding="utf-8")
+
+    atomic_write(out, w, inputs if inputs is not None else _default_inputs(layout_path, deck))
+
+
+# ------------------------------------------------------------------- JUnit
+
+_XML_BAD = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ufffe\uffff]")
+
+
+def _x(text: str) -> str:
+    """Drop characters XML 1.0 cannot hold (a deck may name a layer with anything)."""
+    return _XML_BAD.sub("", str(text))
+
+
+def finding_line(f: Finding) -> str:
+    """One line per finding: severity, location, pitch, message, hint."""
+    return (
+        f"{f.severity} | {f.layer} ({f.source}) at {_where(f)} | pitch {_nm(f.pitch_nm)} nm "
+        f"(width {_nm(f.width_nm)} / space {_nm(f.space_nm)} nm, k1 {f.k1:.3f}, {f.lines} lines) "
+        f"| {f.message} | fix: {f.hint}"
+    )
+
+
+def to_junit_tree(result: ScanResult, deck: Deck, fail_on: str) -> ET.Element:
+    """The ``<testsuites>`` element (see the module docstring for the layout)."""
+    layers = [(st.name, st.source, st.seconds) for st in result.layers]
+    known = {name for name, _, _ in layers}
+    for f in result.findings:
+        if f.layer not in known:
+            layers.append((f.layer, f.source, 0.0))
+            known.add(f.layer)
+    checks = list(CHECKS) + sorted({f.check for f in result.findings} - set(CHECKS))
+    exposures = {r.name: r.exposure_name for r in deck.layers}
+    layout_path = str(result.layout.path) if result.layout else ""
+
+    root = ET.Element("testsuites", name="pitchguard")
+    total_tests = total_failures = 0
+    for name, source, seconds in layers:
+        suite = ET.SubElement(root, "testsuite", name=_x(f"pitchguard.{name}"))
+        props = ET.SubElement(suite, "properties")
+        for k, v in (
+            ("deck", deck.name), ("deck_path", str(deck.path) if deck.path else ""),
+            ("layout", layout_path), ("layer", name), ("source", source),
+            ("exposure", exposures.get(name, "")), ("fail_on", fail_on), ("caution", CAUTION),
+        ):  # fmt: skip
+            ET.SubElement(props, "property", name=k, value=_x(v))
+        tests = failures = 0
+        suite_out: list[str] = []
+        mine = [f for f in result.findings if f.layer == name]
+        for check in checks:
+            found = sorted((f for f in mine if f.check == check),
+                           key=lambda f: (f.severity_rank, f.bbox_nm))  # fmt: skip
+            failing = [f for f in found if _at_or_above(f, fail_on)]
+            below = [f for f in found if not _at_or_above(f, fail_on)]
+            if failing:
+                for f in failing:
+                    case = ET.SubElement(
+                        suite, "testcase", classname=_x(f"pitchguard.{name}.{check}"),
+                        name=_x(f"{check} at {_where(f)}"), time="0",
+                    )  # fmt: skip
+                    fail = ET.SubElement(case, "failure", message=_x(f.message), type=check)
+                    fail.text = _x(finding_line(f))
+                    tests += 1
+                    failures += 1
+                suite_out.extend(finding_line(f) for f in below)
+            else:
+                case = ET.SubElement(suite, "testcase", classname=_x(f"pitchguard.{name}"),
+                                     name=check, time="0")  # fmt: skip
+                if below:
+                    out = ET.SubElement(case, "system-out")
+                    out.text = _x("\n".join(finding_line(f) for f in below))
+                tests += 1
+        if suite_out:
+            out = ET.SubElement(suite, "system-out")
+            out.text = _x("\n".join(suite_out))
+        suite.set("tests", str(tests))
+        suite.set("failures", str(failures))
+        suite.set("errors", "0")
+        suite.set("skipped", "0")
+        suite.set("time", f"{seconds:.3f}")
+        total_tests += tests
+        total_failures += failures
+    root.set("tests", str(total_tests))
+    root.set("failures", str(total_failures))
+    root.set("errors", "0")
+    root.set("skipped", "0")
+    root.set("time", f"{result.seconds:.3f}")
+    return root
+
+
+def to_junit(result: ScanResult, deck: Deck, fail_on: str) -> str:
+    """JUnit XML text (UTF-8 declaration included) of a scan."""
+    root = to_junit_tree(result, deck, fail_on)
+    ET.indent(root)
+    return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(root, encoding="unicode") + "\n"
+
+
+def write_junit(
+    out: Path, result: ScanResult, deck: Deck, fail_on: str,
+    inputs: list[Path] | None = None,
+) -> None:  # fmt: skip
+    """Write :func:`to_junit` to ``out`` atomically (never over an input file)."""
+    text = to_junit(result, deck, fail_on)
+    if inputs is None:
+        inputs = ([result.layout.path] if result.layout else []) + (
+            [Path(deck.path)] if deck.path else []
+        )
+
+    def w(tmp: Path) -> None:
+        tmp.write_text(text, encoding="utf-8")
+
+    atomic_write(out, w, inputs)
