@@ -188,6 +188,10 @@ def atomic_write(out: Path, write, inputs: list[Path]) -> None:
     os.close(fd)
     try:
         write(Path(tmp))
+        # mkstemp makes the file private (0600); give it the mode a plain open() would.
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
         os.replace(tmp, out)
     except OSError as exc:
         raise OutputError(f"{out}: cannot write: {exc.strerror or exc}") from None

@@ -1,0 +1,413 @@
+"""The HTML report: self-contained, grouped, and rendered by a real headless Chromium.
+
+The browser tests need Debian's ``chromium`` (``apt-get install -y chromium``;
+``.ci/run`` installs it).  Without it they fail with a message saying so: a
+report nobody has seen in a browser is not tested.
+"""
+
+from __future__ import annotations
+
+import base64
+import binascii
+import html
+import io
+import json
+import math
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import gdstk
+import numpy as np
+import pytest
+from matplotlib import image as mpimg
+
+from pitchguard.deck import load_deck
+from pitchguard.html_report import (
+    cut_mirrored,
+    group_findings,
+    oriented_bounds,
+    printed_edges,
+    search_window,
+    write_html,
+)
+from pitchguard.measure import cut_image
+from pitchguard.report import CAUTION, one_line_summary
+from pitchguard.scan import scan_layout
+
+REPO = Path(__file__).resolve().parents[2]
+DEMO_GDS = REPO / "sample_layouts" / "demo_chip.gds"
+DEMO_DECK = REPO / "rules" / "demo_chip.toml"
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
+SIGN_OFF = "sign-off stays with the fab's calibrated models"
+
+# Dry ArF, conventional sigma 0.8, binary mask: the smallest imageable pitch is
+# 193 / (0.93 * 1.8) = 115.3 nm (lambda / (NA (1 + sigma)), arithmetic).
+MANY_DECK = """
+[deck]
+name = "many-copies"
+
+[exposures.arf]
+wavelength_nm = 193.0
+na = 0.93
+illumination = { shape = "conventional", sigma = 0.8 }
+mask = { kind = "binary" }
+
+[[layers]]
+name = "poly"
+source = "7/0"
+exposure = "arf"
+field = "clear"
+"""
+MANY_PITCHES = (100.0, 108.0, 140.0)  # two unresolvable, one low-k1 (k1 0.337)
+MANY_COPIES = (6, 5)  # columns x rows of each array: 30 identical regions per pitch
+MANY_MAX_GROUPS = 2
+
+
+# --------------------------------------------------------------------------- builds
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    deck = load_deck(DEMO_DECK)
+    result = scan_layout(DEMO_GDS, deck)
+    out = tmp_path_factory.mktemp("html_demo") / "demo_report.html"
+    write_html(out, result, deck, [DEMO_GDS, DEMO_DECK], "fail")
+    return out, result, deck
+
+
+def _many_layout(path: Path) -> None:
+    """Arrays of 8 vertical lines at three pitches, each placed 6 x 5 times, 6 um apart."""
+    lib = gdstk.Library(unit=1e-6, precision=1e-9)
+    top = lib.new_cell("MANY_TOP")
+    for k, pitch in enumerate(MANY_PITCHES):
+        cell = lib.new_cell(f"ARRAY_{int(pitch)}")
+        for i in range(8):
+            x = i * pitch * 1e-3
+            cell.add(gdstk.rectangle((x, 0), (x + pitch / 2 * 1e-3, 1.5), layer=7, datatype=0))
+        cols, rows = MANY_COPIES
+        top.add(gdstk.Reference(cell, (k * 40.0, 0), columns=cols, rows=rows, spacing=(6, 6)))
+    lib.write_gds(str(path))
+
+
+@pytest.fixture(scope="module")
+def many(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("html_many")
+    gds, deck_path = folder / "many.gds", folder / "many.toml"
+    _many_layout(gds)
+    deck_path.write_text(MANY_DECK)
+    deck = load_deck(deck_path)
+    result = scan_layout(gds, deck)
+    out = folder / "many_report.html"
+    write_html(out, result, deck, [gds, deck_path], "fail", max_groups=MANY_MAX_GROUPS)
+    return out, result, deck
+
+
+# --------------------------------------------------------------------------- file checks
+
+_ATTR_URL = re.compile(r"""\b(?:src|href|action|poster|data|srcset)\s*=\s*(["']?)([^"'\s>]*)\1""",
+                       re.IGNORECASE)  # fmt: skip
+_CSS_URL = re.compile(r"url\(\s*([\"']?)([^\"')]*)\1\s*\)", re.IGNORECASE)
+_IMG = re.compile(r"<img\b[^>]*>", re.IGNORECASE)
+
+
+def assert_self_contained(text: str) -> None:
+    """No resource reference leaves the file: only data: URIs and in-page anchors."""
+    assert "http://" not in text and "https://" not in text
+    refs = [m.group(2) for m in _ATTR_URL.finditer(text)]
+    refs += [m.group(2) for m in _CSS_URL.finditer(text)]
+    bad = [r for r in refs if not (r.startswith("data:") or r.startswith("#"))]
+    assert not bad, f"external references: {bad[:5]}"
+    assert "@import" not in text
+    for api in ("fetch(", "XMLHttpRequest", "WebSocket", "EventSource", "sendBeacon",
+                "import("):  # fmt: skip
+        assert api not in text, api
+
+
+def png_images(text: str) -> list[tuple[np.ndarray, int, int]]:
+    """Every <img>: decoded pixels and its declared width and height."""
+    out = []
+    for tag in _IMG.findall(text):
+        src = re.search(r'src="([^"]*)"', tag).group(1)
+        assert src.startswith("data:image/png;base64,"), src[:40]
+        raw = base64.b64decode(src.split(",", 1)[1], validate=True)
+        assert raw.startswith(PNG_MAGIC)
+        pixels = mpimg.imread(io.BytesIO(raw), format="png")
+        w = int(re.search(r'width="(\d+)"', tag).group(1))
+        h = int(re.search(r'height="(\d+)"', tag).group(1))
+        out.append((pixels, w, h))
+    return out
+
+
+def test_assert_self_contained_catches_external_references():
+    """The file checks can fail."""
+    for bad in ('<img src="http://example.com/a.png">', '<link href="//cdn.example/x.css">',
+                "<div style=\"background: url('x.png')\">", '<script src="app.js"></script>',
+                '<img src=https://example.com/a.png>'):  # fmt: skip
+        with pytest.raises(AssertionError):
+            assert_self_contained(bad)
+    assert_self_contained('<img src="data:image/png;base64,AAAA"><a href="#g1">x</a>')
+    with pytest.raises(binascii.Error):
+        png_images('<img src="data:image/png;base64,@@@@" width="1" height="1">')
+
+
+def test_demo_report_summary_caution_and_groups(demo):
+    out, result, deck = demo
+    text = out.read_text(encoding="utf-8")
+    assert text.startswith("<!DOCTYPE html>")
+    assert_self_contained(text)
+    assert CAUTION in text and SIGN_OFF in text
+    # The caution and the summary come before the first finding.
+    first = text.index('<details class="group')
+    assert text.index('id="caution"') < first and text.index('id="summary"') < first
+    assert text.index(CAUTION) < first
+    assert html.escape(one_line_summary(result, "fail"), quote=False) in text
+    assert "demo_chip.gds" in text and deck.name in text
+    for layer in ("active", "poly", "metal1"):
+        assert f"<strong>{layer}</strong>" in text
+    groups = group_findings(result.findings)
+    assert 1 < len(groups) < len(result.findings)  # the demo repeats some regions
+    sections = re.findall(r'<details class="group (\w+)" id="g(\d+)"', text)
+    assert len(sections) == len(groups)
+    # Worst first: severities never improve down the page.
+    ranks = [("fail", "risk", "marginal").index(s) for s, _ in sections]
+    assert ranks == sorted(ranks)
+    assert 'id="more-groups"' not in text and 'id="cap-message"' not in text  # all drawn
+    # Every finding's location is listed once.
+    listed = re.findall(r"<tr><td class='n'>\d+</td><td class='n'>(-?[\d.]+, -?[\d.]+)</td>", text)
+    assert len(listed) == len(result.findings)
+
+
+def test_demo_report_pictures_are_png_data_uris(demo):
+    out, result, _ = demo
+    text = out.read_text(encoding="utf-8")
+    images = png_images(text)
+    groups = group_findings(result.findings)
+    assert len(images) == 2 * len(groups)  # a layout clip and an aerial image per group
+    for pixels, w, h in images:
+        assert pixels.shape[:2] == (h, w)
+        assert pixels[..., :3].std() > 0.05  # a picture, not a blank tile
+    # Each group shows every limit its worst region trips, and the fix hint.
+    sections = text.split('<details class="group ')[1:]
+    assert len(sections) == len(groups)
+    for g, sec in zip(groups, sections, strict=True):
+        for v in g.first.violations:
+            assert f">{v.check}</code>" in sec
+        assert "What to change:" in sec and html.escape(g.first.hint, quote=False) in sec
+        assert html.escape(f"{g.first.pitch_nm:.1f} nm") in sec
+
+
+def _asymmetric_layout(path: Path) -> None:
+    """A 40 nm line with a 60 nm wide neighbour 60 nm to its left (pitch 100: unresolvable)
+    and a block reaching past the ambit 200 nm to its right.  Its cut is stored as drawn
+    (the block's side, reaching -ambit, sorts first); the last lines of the demo's arrays
+    are stored mirrored."""
+    lib = gdstk.Library(unit=1e-6, precision=1e-9)
+    top = lib.new_cell("ASYM_TOP")
+    for x0, x1 in ((-0.120, -0.060), (0.0, 0.040), (0.240, 3.240)):
+        top.add(gdstk.rectangle((x0, 0), (x1, 1.5), layer=7, datatype=0))
+    lib.write_gds(str(path))
+
+
+def test_image_plot_runs_along_the_arrow(demo, tmp_path):
+    """+x of the image plot points from the worst edge into its space: the facing neighbour's
+    edge lies at half the width plus the space (cuts are stored as the smaller of a profile
+    and its mirror image, so the report has to turn some of them round, and only those)."""
+    gds, deck_path = tmp_path / "asym.gds", tmp_path / "asym.toml"
+    _asymmetric_layout(gds)
+    deck_path.write_text(MANY_DECK)
+    asym_deck = load_deck(deck_path)
+    asym = scan_layout(gds, asym_deck)
+    seen = set()
+    for result, deck in ((demo[1], demo[2]), (asym, asym_deck)):
+        for f in result.findings:
+            if not f.cut_bounds_nm or not math.isfinite(f.space_nm):
+                continue
+            b = np.asarray(f.cut_bounds_nm)
+            if np.allclose(b, -b[::-1]):
+                continue  # symmetric: either way round is right
+            mirrored = cut_mirrored(result, deck, f)
+            seen.add(mirrored)
+            b = oriented_bounds(f, mirrored)
+            neighbour = (f.width_nm / 2 + f.space_nm) * deck.scale_to_wafer
+            assert np.min(np.abs(b - neighbour)) <= 1.0, (f.layer, f.check, b, neighbour)
+    assert seen == {True, False}  # both cases occur: the check above means something
+
+
+def test_many_identical_findings_are_grouped_and_capped(many):
+    out, result, _ = many
+    text = out.read_text(encoding="utf-8")
+    assert_self_contained(text)
+    assert SIGN_OFF in text
+    copies = MANY_COPIES[0] * MANY_COPIES[1]
+    groups = group_findings(result.findings)
+    assert len(result.findings) >= copies * len(MANY_PITCHES)
+    assert len(groups) > MANY_MAX_GROUPS
+    assert all(len(g.findings) == copies for g in groups), [len(g.findings) for g in groups]
+    sections = re.findall(r'<details class="group \w+" id="g\d+"[^>]*data-count="(\d+)"', text)
+    assert sections == [str(copies)] * MANY_MAX_GROUPS
+    assert len(png_images(text)) == 2 * MANY_MAX_GROUPS  # pictures drawn once per group
+    assert f"all {copies} locations" in text
+    rest = len(groups) - MANY_MAX_GROUPS
+    rest_findings = sum(len(g.findings) for g in groups[MANY_MAX_GROUPS:])
+    cap = re.search(r'<p id="cap-message"><strong>(\d+) more groups? \((\d+) findings?\)', text)
+    assert cap is not None, "no message about the groups beyond max_groups"
+    assert (int(cap.group(1)), int(cap.group(2))) == (rest, rest_findings)
+    more = text[text.index('id="more-groups"'):]
+    assert more.count("<tr data-severity=") == rest
+    # The index links every drawn group to its section.
+    for k in range(1, MANY_MAX_GROUPS + 1):
+        assert f"href='#g{k}'" in text and f'id="g{k}"' in text
+
+
+def test_printed_edges_of_a_sampled_image():
+    """Edges where the image crosses the threshold nearest the feature (linear interpolation)."""
+    x = np.linspace(-100, 100, 2001)
+    dark_line = 1.0 - 0.8 * np.exp(-(x / 30.0) ** 2)  # dark at the centre: a printed line
+    # 1 - 0.8 exp(-(x/30)^2) = 0.5 at x = 30 sqrt(ln 1.6) = 20.57 nm (arithmetic).
+    left, right, state = printed_edges(x, dark_line, 0.5, False, (-20.0, 20.0))
+    assert state == "printed"
+    assert left == pytest.approx(-20.57, abs=0.02) and right == pytest.approx(20.57, abs=0.02)
+    assert printed_edges(x, dark_line, 0.1, False, (-20.0, 20.0))[2] == "lost"
+    # Crossings beyond the middle of the neighbouring spaces: bridged.
+    assert printed_edges(x, dark_line, 0.5, False, (-20.0, 20.0), (-15.0, 15.0))[2] == "bridged"
+    # An opening on a dark field prints where the image is above the threshold.
+    assert printed_edges(x, 1.0 - dark_line, 0.5, True, (-20.0, 20.0))[2] == "printed"
+
+
+def test_printed_edges_agree_with_the_findings(demo):
+    """The edges marked in the pictures are the ones the verdicts were computed from."""
+    _, result, deck = demo
+    states = set()
+    for f in result.findings:
+        rule = deck.layer(f.layer)
+        x, inten = cut_image(rule, f.cut_bounds_nm, f.cut_angle_deg)
+        b = np.asarray(f.cut_bounds_nm)
+        feat = next((lo, hi) for lo, hi in zip(b[::2], b[1::2], strict=True) if lo <= 0 <= hi)
+        left, right, state = printed_edges(x, inten, f.threshold, rule.field == "dark", feat,
+                                           search_window(b, feat))  # fmt: skip
+        checks = {v.check for v in f.violations}
+        states.add(state)
+        if "feature-not-printed" in checks:
+            assert state == "lost"
+        elif "features-bridged" in checks:
+            assert state == "bridged"
+        else:
+            assert state == "printed"
+            # Sampling on ~1 nm steps against the engine's exact evaluation.
+            assert right - left == pytest.approx(f.cd_nm, abs=1.5)
+    assert states == {"lost", "bridged", "printed"}
+
+
+# --------------------------------------------------------------------------- browser
+
+CHROMIUM_FLAGS = (
+    "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+    "--disable-background-networking", "--disable-component-update", "--disable-sync",
+    "--disable-dev-shm-usage", '--host-resolver-rules=MAP * ~NOTFOUND',
+)  # fmt: skip
+
+
+def chromium() -> str:
+    exe = shutil.which("chromium")
+    if exe is None:
+        pytest.fail(
+            "Debian's chromium is not installed (`apt-get install -y chromium`; .ci/run "
+            "installs it): the HTML report must be checked in a real browser"
+        )
+    return exe
+
+
+def run_chromium(tmp: Path, url: str, *extra: str) -> tuple[str, list[dict]]:
+    """Load ``url`` headless; return the DOM (after scripts) and the page's own requests."""
+    profile = tmp / f"profile{len(list(tmp.glob('profile*')))}"
+    netlog = profile.with_suffix(".netlog.json")
+    cmd = [chromium(), *CHROMIUM_FLAGS, f"--user-data-dir={profile}",
+           f"--log-net-log={netlog}", *extra, url]  # fmt: skip
+    proc = subprocess.run(cmd, capture_output=True, text=True, timeout=90)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    return proc.stdout, page_requests(netlog)
+
+
+def page_requests(netlog: Path) -> list[dict]:
+    """URL requests the page started (the browser's own background requests, with initiator
+    "not an origin", are blocked by the resolver rule and left out)."""
+    text = netlog.read_text(encoding="utf-8")
+    try:
+        log = json.loads(text)
+    except json.JSONDecodeError:  # a log cut short: close the event list
+        log = json.loads(text.rstrip().rstrip(",") + "]}")
+    kinds = {v: k for k, v in log["constants"]["logEventTypes"].items()}
+    out = []
+    for ev in log["events"]:
+        params = ev.get("params") or {}
+        started = kinds.get(ev["type"]) == "URL_REQUEST_START_JOB" and "url" in params
+        if started and params.get("initiator") != "not an origin":
+            out.append(params)
+    return out
+
+
+def test_netlog_check_sees_a_page_fetch(tmp_path):
+    """Control: a page that fetches is caught, so an empty list below means no fetch."""
+    page = tmp_path / "fetching.html"
+    page.write_text('<!DOCTYPE html><html><body><img src="http://example.invalid/a.png">'
+                    "</body></html>")  # fmt: skip
+    _, requests = run_chromium(tmp_path, page.as_uri(), "--dump-dom")
+    assert any("example.invalid" in r["url"] for r in requests), requests
+
+
+def test_demo_report_in_chromium(demo, tmp_path):
+    out, result, _ = demo
+    groups = group_findings(result.findings)
+    dom, requests = run_chromium(tmp_path, out.as_uri(), "--dump-dom")
+    assert requests == [], f"the report fetched: {[r['url'] for r in requests]}"
+    assert 'data-filters="ready"' in dom, "the filter script did not run"
+    assert 'id="summary"' in dom and "Summary" in dom
+    assert SIGN_OFF in dom
+    assert len(re.findall(r'<details class="group ', dom)) == len(groups)
+    assert f"{len(groups)} groups ({len(result.findings)} findings) shown" in dom
+    assert len(re.findall(r"<img\b", dom)) == 2 * len(groups)
+    assert_self_contained(dom)
+    schemes = re.findall(r"\b([a-z][a-z0-9+.-]*)://", dom)
+    schemes += re.findall(r"\b(https?|ftp|wss?|file|blob|javascript|data):", dom, re.I)
+    assert set(schemes) <= {"data"}, set(schemes)
+    # The filter, preset from the address: only risk findings remain visible.
+    dom_risk, requests = run_chromium(tmp_path, out.as_uri() + "#severity=risk", "--dump-dom")
+    assert requests == []
+    risk = sum(1 for g in groups if g.first.severity == "risk")
+    assert 0 < risk < len(groups)
+    assert f"{risk} groups (" in dom_risk
+    tags = re.findall(r'<details class="group \w+"[^>]*>', dom_risk)
+    shown = [t for t in tags if not re.search(r"\shidden[\s=>]", t)]
+    assert len(tags) == len(groups) and len(shown) == risk
+    hidden = re.findall(r'<details class="group (\w+)"[^>]*\shidden[\s=>]', dom_risk)
+    assert len(hidden) == len(groups) - risk and "risk" not in hidden
+
+
+def test_demo_report_screenshot_is_not_blank(demo, tmp_path):
+    out, _, _ = demo
+    shot = tmp_path / "demo.png"
+    _, requests = run_chromium(tmp_path, out.as_uri(), f"--screenshot={shot}",
+                               "--window-size=1280,2000")  # fmt: skip
+    assert requests == []
+    assert shot.is_file() and shot.read_bytes().startswith(PNG_MAGIC)
+    pixels = mpimg.imread(str(shot))[..., :3]
+    assert pixels.shape[:2] == (2000, 1280)
+    # A blank page is one colour and compresses to a few kB.
+    assert shot.stat().st_size > 50_000
+    ink = (pixels.mean(axis=2) < 0.85).mean()
+    assert ink > 0.03, f"only {ink:.1%} of the screenshot is not near-white"
+    # The first group is a fail: its red badge and border are on screen.
+    red = (pixels[..., 0] > 0.6) & (pixels[..., 1] < 0.3) & (pixels[..., 2] < 0.3)
+    assert red.sum() > 500
+
+
+def test_many_report_in_chromium(many, tmp_path):
+    out, result, _ = many
+    dom, requests = run_chromium(tmp_path, out.as_uri(), "--dump-dom")
+    assert requests == []
+    assert 'data-filters="ready"' in dom
+    assert len(re.findall(r'<details class="group ', dom)) == MANY_MAX_GROUPS
+    assert len(re.findall(r"<img\b", dom)) == 2 * MANY_MAX_GROUPS
+    assert 'id="cap-message"' in dom
