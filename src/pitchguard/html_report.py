@@ -29,7 +29,6 @@ import base64
 import html
 import io
 import math
-import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -1066,10 +1065,5 @@ def write_html(
 
     def w(tmp: Path) -> None:
         tmp.write_text(text, encoding="utf-8")
-        # A page to share: readable like any file the user creates (the temporary file
-        # starts private).
-        mask = os.umask(0)
-        os.umask(mask)
-        os.chmod(tmp, 0o666 & ~mask)
 
-    atomic_write(Path(path), w, inputs)
+    atomic_write(Path(path), w, inputs)  # gives the file the umask's mode

@@ -126,3 +126,29 @@ def test_diff_fixed_only_passes(revs, capsys):
 def test_deck_text_unchanged():
     # The fixture deck these tests use is the dry ArF one (cutoff 115.3 nm).
     assert "sigma = 0.8" in DRY_ARF_DECK
+
+
+def test_diff_writes_every_ci_output(revs, capsys):
+    """The CI recipe's outputs from a diff: SARIF valid against the official
+    schema (tests/fixtures, OASIS SARIF 2.1.0), JUnit failures = introduced
+    fail-level findings, HTML report and markers written."""
+    import xml.etree.ElementTree as ET
+    from pathlib import Path
+
+    import jsonschema
+
+    t = revs["tmp"]
+    outs = {k: t / f"ci.{k}" for k in ("sarif", "xml", "html", "gds")}
+    code, _, _ = run_cli(capsys, "diff", revs["r1"], revs["both"], "-r", revs["deck"], "-q",
+                         "--sarif", outs["sarif"], "--junit", outs["xml"], "--html",
+                         outs["html"], "--markers", outs["gds"])  # fmt: skip
+    assert code == 1
+    schema_path = Path(__file__).resolve().parents[1] / "fixtures" / "sarif-schema-2.1.0.json"
+    schema = json.loads(schema_path.read_text())
+    sarif = json.loads(outs["sarif"].read_text())
+    jsonschema.Draft4Validator(schema).validate(sarif)
+    assert len(sarif["runs"][0]["results"]) == 1
+    root = ET.parse(outs["xml"]).getroot()
+    assert int(root.get("failures")) == 1
+    assert "<html" in outs["html"].read_text()[:2000].lower()
+    assert outs["gds"].stat().st_size > 0
