@@ -546,7 +546,29 @@ class _null:
         return False
 
 
+class _Terminated(BaseException):
+    """SIGTERM, raised in the main thread so that cleanup (temporary files) runs."""
+
+
+def _on_sigterm(signum, frame):  # noqa: ARG001 - signal handler signature
+    raise _Terminated()
+
+
 def main(argv: list[str] | None = None) -> int:
+    import signal
+
+    try:
+        previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    except ValueError:  # not the main thread (embedded use): leave signals alone
+        previous = None
+    try:
+        return _main(argv)
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+def _main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
@@ -565,8 +587,11 @@ def main(argv: list[str] | None = None) -> int:
         print(f"pitchguard: error: {exc}", file=sys.stderr)
         return exc.exit_code
     except KeyboardInterrupt:
-        print("pitchguard: interrupted", file=sys.stderr)
+        print("pitchguard: interrupted; no output was left half-written", file=sys.stderr)
         return 130
+    except _Terminated:
+        print("pitchguard: terminated; no output was left half-written", file=sys.stderr)
+        return 143
     except Exception as exc:  # a bug, not the user's fault
         if getattr(args, "debug", False):
             raise

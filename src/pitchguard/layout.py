@@ -50,7 +50,9 @@ class PolygonSet:
 
     @classmethod
     def from_arrays(cls, polygons: Iterable[np.ndarray], scale: float = 1.0) -> PolygonSet:
+        """Pack polygons; degenerate ones (fewer than 3 vertices, or not (n, 2)) are dropped."""
         polys = [np.asarray(p, dtype=np.float64) for p in polygons]
+        polys = [p for p in polys if p.ndim == 2 and p.shape[1] == 2 and len(p) >= 3]
         if not polys:
             return cls.empty()
         sizes = np.fromiter((len(p) for p in polys), dtype=np.int64, count=len(polys))
@@ -303,3 +305,85 @@ def read_layout(
         cells=tuple(c.name for c in tops),
         layers=out,
     )
+
+
+# --------------------------------------------------------------------------- isolation
+
+READ_TIMEOUT_S = 3600.0
+"""A reader child that runs longer than this is stopped (a hung parse)."""
+
+
+def _read_child(conn, args, kwargs) -> None:  # runs in the child process
+    import faulthandler
+
+    faulthandler.disable()  # a crash here is expected and reported by the parent
+    try:
+        warnings: list[str] = []
+        layout = read_layout(*args, warnings=warnings, **kwargs)
+        conn.send(("ok", layout, warnings))
+    except LayoutError as exc:
+        conn.send(("error", str(exc), None))
+    except MemoryError:
+        conn.send(("error", f"{args[0]}: out of memory while reading the layout", None))
+    except Exception as exc:  # noqa: BLE001 - any reader failure is a bad-input error here
+        conn.send(("error", f"{args[0]}: cannot read layout: {type(exc).__name__}: {exc}", None))
+    finally:
+        conn.close()
+
+
+def read_layout_isolated(
+    path: str | Path,
+    layers: Iterable[tuple[int, int]],
+    cell: str | None = None,
+    max_shapes: int = DEFAULT_MAX_SHAPES,
+    warnings: list[str] | None = None,
+    timeout_s: float = READ_TIMEOUT_S,
+) -> Layout:
+    """:func:`read_layout` in a child process, so a crash of the layout library
+    (it can die with a segmentation fault on corrupt files) becomes a
+    :class:`LayoutError` instead of killing the command.
+
+    The child parses the file and ships back packed numpy arrays; its memory
+    (the library's objects) is released when it exits.
+    """
+    import multiprocessing as mp
+    import signal
+
+    p = Path(path)
+    sniff_format(p)  # quick, clear errors for missing/non-layout files, in this process
+    ctx = mp.get_context("fork")
+    recv, send = ctx.Pipe(duplex=False)
+    child = ctx.Process(
+        target=_read_child, args=(send, (p, list(layers)), {"cell": cell, "max_shapes": max_shapes})
+    )
+    child.start()
+    send.close()
+    try:
+        if not recv.poll(timeout_s):
+            raise LayoutError(f"{p}: reading the layout took over {timeout_s:.0f} s; stopped")
+        try:
+            status, payload, child_warnings = recv.recv()
+        except EOFError:
+            child.join()
+            code = child.exitcode
+            if code is not None and code < 0:
+                try:
+                    name = signal.Signals(-code).name
+                except ValueError:
+                    name = f"signal {-code}"
+                raise LayoutError(
+                    f"{p}: the layout reader crashed ({name}) while parsing and flattening the "
+                    "file: it is corrupt or not a valid GDSII/OASIS file"
+                ) from None
+            raise LayoutError(f"{p}: the layout reader stopped unexpectedly (exit {code})") \
+                from None  # fmt: skip
+    finally:
+        if child.is_alive():
+            child.kill()
+        child.join()
+        recv.close()
+    if status != "ok":
+        raise LayoutError(payload)
+    if warnings is not None:
+        warnings.extend(child_warnings or [])
+    return payload

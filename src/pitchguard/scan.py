@@ -19,7 +19,7 @@ from pitchguard.cuts import site_cuts
 from pitchguard.deck import Deck
 from pitchguard.extract import ExtractStats, build_features, find_sites
 from pitchguard.image import source_is_symmetric
-from pitchguard.layout import DEFAULT_MAX_SHAPES, Layout, PolygonSet, read_layout
+from pitchguard.layout import DEFAULT_MAX_SHAPES, Layout, PolygonSet, read_layout_isolated
 from pitchguard.measure import measure_cuts
 
 Progress = Callable[[str, int, int], None]
@@ -127,7 +127,7 @@ def scan_layout(
     warnings: list[str] = []
     if progress:
         progress("reading layout", 0, 3 * len(deck.layers))
-    layout = read_layout(
+    layout = read_layout_isolated(
         path,
         [(r.layer, r.datatype) for r in deck.layers],
         cell=cell,

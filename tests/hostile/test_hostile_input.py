@@ -1,0 +1,252 @@
+"""Hostile input never kills the command: mutated and pathological layouts.
+
+Every case must end with exit 0/1 (it scanned) or 2 with one clear
+``pitchguard: error:`` line, never a traceback (exit 3) and never a signal.
+The layout library is known to crash on some corrupt files (see
+DEVELOPERS.md); the reader runs in a child process so that such a crash is
+reported as bad input.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import gdstk
+import pytest
+
+from pitchguard.cli import main
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from corpus import cases  # noqa: E402
+
+DECK = """
+[exposures.a]
+wavelength_nm = 193.0
+na = 0.93
+illumination = { shape = "conventional", sigma = 0.8 }
+[layer_defaults]
+image_checks = false
+[[layers]]
+name = "active"
+source = "1/0"
+exposure = "a"
+field = "clear"
+[[layers]]
+name = "poly"
+source = "7/0"
+exposure = "a"
+field = "clear"
+[[layers]]
+name = "metal1"
+source = "17/0"
+exposure = "a"
+field = "dark"
+"""
+
+CORPUS_SIZE = 200  # seeded: the same files every run
+
+
+@pytest.fixture(scope="module")
+def deck(tmp_path_factory) -> Path:
+    p = tmp_path_factory.mktemp("deck") / "deck.toml"
+    p.write_text(DECK)
+    return p
+
+
+def _run(capsys, layout: Path, deck: Path, *extra: str) -> tuple[int, str]:
+    code = main(["scan", str(layout), "--rules", str(deck), "-q", *extra])
+    out, err = capsys.readouterr()
+    return code, err
+
+
+def _clean(code: int, err: str) -> None:
+    assert code in (0, 1, 2), (code, err)
+    assert "Traceback" not in err and "internal error" not in err, err
+    if code == 2:
+        lines = [ln for ln in err.splitlines() if ln.strip()]
+        assert len(lines) == 1 and lines[0].startswith("pitchguard: error: "), err
+
+
+def test_mutated_and_truncated_corpus(tmp_path, capsys, deck):
+    seen = {0: 0, 1: 0, 2: 0}
+    crashes = 0
+    for name, data in cases(n=CORPUS_SIZE):
+        f = tmp_path / name
+        f.write_bytes(data)
+        t0 = time.monotonic()
+        code, err = _run(capsys, f, deck)
+        assert time.monotonic() - t0 < 120, name  # bounded (generous: a loaded CI machine)
+        _clean(code, err)
+        seen[code] += 1
+        crashes += "crashed" in err
+        f.unlink()
+    # The corpus exercises both outcomes: files that still scan, and rejected ones.
+    assert seen[2] > 0 and seen[0] + seen[1] > 0, seen
+    print(f"corpus outcomes {seen}, reader crashes contained: {crashes}")
+
+
+def test_reader_crash_is_contained_in_a_real_process(tmp_path, deck):
+    """Find corpus files on which the reader dies by a signal; the command still exits 2."""
+    import multiprocessing as mp
+
+    from pitchguard.layout import read_layout
+
+    def reader(path):
+        import faulthandler
+
+        faulthandler.disable()  # the crash is what we look for: keep the log quiet
+        read_layout(path, [(1, 0), (7, 0), (17, 0)])
+
+    crasher = None
+    for name, data in cases(n=CORPUS_SIZE):
+        f = tmp_path / name
+        f.write_bytes(data)
+        p = mp.get_context("fork").Process(target=reader, args=(f,))
+        p.start()
+        p.join(60)
+        if p.exitcode is not None and p.exitcode < 0:
+            crasher = f
+            break
+    assert crasher is not None, "the seeded corpus no longer holds a file that crashes the reader"
+    exe = Path(sys.executable).parent / "pitchguard"
+    r = subprocess.run([exe, "scan", crasher, "--rules", deck], capture_output=True, text=True,
+                       timeout=120)  # fmt: skip
+    assert r.returncode == 2, r
+    assert "crashed" in r.stderr and "Traceback" not in r.stderr
+
+
+def _lib_write(tmp_path: Path, lib: gdstk.Library, name: str = "p.gds") -> Path:
+    path = tmp_path / name
+    (lib.write_gds if name.endswith(".gds") else lib.write_oas)(str(path))
+    return path
+
+
+def _case_self_reference(tmp_path):
+    lib = gdstk.Library()
+    a = lib.new_cell("A")
+    a.add(gdstk.rectangle((0, 0), (1, 1), layer=7))
+    a.add(gdstk.Reference(a, (5, 0)))
+    return _lib_write(tmp_path, lib), ["--cell", "A"], 2, "cycle"
+
+
+def _case_ab_cycle(tmp_path):
+    lib = gdstk.Library()
+    a, b = lib.new_cell("A"), lib.new_cell("B")
+    a.add(gdstk.Reference(b))
+    b.add(gdstk.Reference(a, (3, 0)))
+    b.add(gdstk.rectangle((0, 0), (1, 1), layer=7))
+    return _lib_write(tmp_path, lib, "p.oas"), ["--cell", "A"], 2, "cycle"
+
+
+def _case_huge_array(tmp_path):
+    lib = gdstk.Library()
+    unit = lib.new_cell("U")
+    unit.add(gdstk.rectangle((0, 0), (0.05, 0.05), layer=7))
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Reference(unit, columns=100_000, rows=100_000, spacing=(0.1, 0.1)))
+    return _lib_write(tmp_path, lib, "p.oas"), [], 2, "over the limit"
+
+
+def _case_missing_cell(tmp_path):
+    lib = gdstk.Library()
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Reference("NOT_THERE", (0, 0)))
+    top.add(gdstk.rectangle((0, 0), (0.2, 2), layer=7))
+    return _lib_write(tmp_path, lib), [], 0, None
+
+
+def _case_degenerate_polygons(tmp_path):
+    lib = gdstk.Library()
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Polygon([(0, 0), (1, 0), (2, 0)], layer=7))  # zero area
+    top.add(gdstk.Polygon([(0, 0), (1, 1), (1, 0), (0, 1)], layer=7))  # self-intersecting
+    top.add(gdstk.Polygon([(3, 3), (3, 3), (3, 3)], layer=7))  # a point
+    return _lib_write(tmp_path, lib), [], None, None
+
+
+def _case_far_coordinates(tmp_path):
+    lib = gdstk.Library(unit=1e-6, precision=1e-9)
+    top = lib.new_cell("TOP")
+    far = 2_100_000.0  # um: 2.1e9 database units of 1 nm, near the 32-bit limit
+    for k in range(6):
+        x = far + k * 0.11
+        top.add(gdstk.rectangle((x, far), (x + 0.055, far + 1.5), layer=7))
+    return _lib_write(tmp_path, lib), [], 1, None
+
+
+def _case_empty_layout(tmp_path):
+    lib = gdstk.Library()
+    lib.new_cell("EMPTY")
+    return _lib_write(tmp_path, lib), [], 0, None
+
+
+def _case_no_cells(tmp_path):
+    return _lib_write(tmp_path, gdstk.Library()), [], 2, "no top cell"
+
+
+def _case_layers_absent(tmp_path):
+    lib = gdstk.Library()
+    top = lib.new_cell("TOP")
+    top.add(gdstk.rectangle((0, 0), (1, 1), layer=99))
+    return _lib_write(tmp_path, lib), [], 0, None
+
+
+def _case_not_a_layout(tmp_path):
+    p = tmp_path / "p.gds"
+    p.write_bytes(b"\x89PNG\r\n\x1a\n" + bytes(100))
+    return p, [], 2, "not a GDSII or OASIS file"
+
+
+PATHOLOGICAL = [
+    _case_self_reference, _case_ab_cycle, _case_huge_array, _case_missing_cell,
+    _case_degenerate_polygons, _case_far_coordinates, _case_empty_layout, _case_no_cells,
+    _case_layers_absent, _case_not_a_layout,
+]  # fmt: skip
+
+
+@pytest.mark.parametrize("make", PATHOLOGICAL, ids=lambda f: f.__name__[6:])
+def test_pathological_layouts(tmp_path, capsys, deck, make):
+    path, extra, want, needle = make(tmp_path)
+    t0 = time.monotonic()
+    code, err = _run(capsys, path, deck, *extra)
+    assert time.monotonic() - t0 < 120
+    _clean(code, err)
+    if want is not None:
+        assert code == want, err
+    if needle:
+        assert needle in err
+
+
+def test_far_coordinates_markers_are_written_or_refused_cleanly(tmp_path, capsys, deck):
+    path, _, _, _ = _case_far_coordinates(tmp_path)
+    code, err = _run(capsys, path, deck, "--markers", str(tmp_path / "m.gds"))
+    _clean(code, err)
+
+
+def test_sigterm_exits_143_and_leaves_no_partial_output(tmp_path, deck):
+    """A scan terminated while it works: exit 143, a short message, no output file."""
+    lib = gdstk.Library()
+    cell = lib.new_cell("ARR")
+    for k in range(300):
+        cell.add(gdstk.rectangle((k * 0.11, 0), (k * 0.11 + 0.055, 3), layer=7))
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Reference(cell, columns=40, rows=40, spacing=(40, 5)))
+    layout = _lib_write(tmp_path, lib, "big.oas")
+    out = tmp_path / "out.json"
+    exe = Path(sys.executable).parent / "pitchguard"
+    proc = subprocess.Popen([exe, "scan", layout, "--rules", deck, "--json", out, "-q"],
+                            stderr=subprocess.PIPE, text=True)  # fmt: skip
+    time.sleep(3.0)
+    proc.send_signal(signal.SIGTERM)
+    _, err = proc.communicate(timeout=60)
+    if proc.returncode in (0, 1):
+        pytest.fail("the scan finished before SIGTERM: make the layout larger")
+    assert proc.returncode == 143, err
+    assert "terminated" in err and "Traceback" not in err
+    assert not out.exists()
+    assert not [p for p in os.listdir(tmp_path) if p.startswith(".out.json")]
