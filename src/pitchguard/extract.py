@@ -42,6 +42,9 @@ PARALLEL_SIN = math.sin(math.radians(1.0))
 """Edges within 1 degree of parallel count as parallel (grid snapping of
 rotated geometry tilts short edges by a fraction of a degree)."""
 
+SITE_CELL_NM = 10_000.0
+"""Site pieces are cut at this global grid (drawn nm), see :func:`find_sites`."""
+
 QUERY_CHUNK = 100_000
 """Edges queried against the R-tree per numpy batch (bounds peak memory)."""
 
@@ -551,8 +554,14 @@ def find_sites(
     ambit_nm: float,
     grid_nm: float,
     first_window_nm: float | None = None,
+    cell_nm: float | None = SITE_CELL_NM,
 ) -> tuple[Sites, ExtractStats]:
     """Sites of all long edges: width, space and run length per edge piece.
+
+    Pieces are cut where they cross the lines ``x = k cell_nm`` and
+    ``y = k cell_nm`` of a fixed global grid, so every piece lies in one grid
+    cell: scans of tiles that are whole grid cells see exactly the pieces of
+    a scan of the whole layout.
 
     Neighbours are looked for in two passes: first within ``first_window_nm``
     (default a third of the ambit; dense arrays are settled there with few
@@ -632,9 +641,43 @@ def find_sites(
             )
         )
     sites = Sites.concat(parts) if parts else Sites.empty()
+    if cell_nm:
+        sites = _cut_at_cells(sites, cell_nm, eps)
     stats.sites = len(sites)
     stats.isolated_sites = int(np.isinf(sites.space).sum())
     return sites, stats
+
+
+def _cut_at_cells(sites: Sites, cell: float, eps: float) -> Sites:
+    """Split pieces where they cross the global grid lines ``x, y = k cell``."""
+    if len(sites) == 0:
+        return sites
+    p0 = sites.origin + sites.direction * sites.u0[:, None]
+    p1 = sites.origin + sites.direction * sites.u1[:, None]
+    crosses = np.any(np.floor(p0 / cell) != np.floor(p1 / cell), axis=1)
+    if not crosses.any():
+        return sites
+    rows = []
+    for k in np.flatnonzero(crosses).tolist():
+        o, d = sites.origin[k], sites.direction[k]
+        u0, u1 = float(sites.u0[k]), float(sites.u1[k])
+        cuts = set()
+        for axis in (0, 1):
+            if abs(d[axis]) < 1e-12:
+                continue
+            a, b = sorted((o[axis] + d[axis] * u0, o[axis] + d[axis] * u1))
+            for line in range(int(np.floor(a / cell)) + 1, int(np.floor(b / cell)) + 1):
+                u = (line * cell - o[axis]) / d[axis]
+                if u0 + eps < u < u1 - eps:
+                    cuts.add(u)
+        bounds = [u0, *sorted(cuts), u1]
+        rows.extend((k, a, b) for a, b in zip(bounds[:-1], bounds[1:], strict=True))
+    keep = np.flatnonzero(~crosses)
+    idx = np.array([r[0] for r in rows], dtype=np.int64)
+    split = sites.take(idx)
+    split.u0 = np.array([r[1] for r in rows])
+    split.u1 = np.array([r[2] for r in rows])
+    return Sites.concat([sites.take(keep), split])
 
 
 def _pick(cand):

@@ -102,7 +102,7 @@ def test_reader_crash_is_contained_in_a_real_process(tmp_path, deck):
         faulthandler.disable()  # the crash is what we look for: keep the log quiet
         read_layout(path, [(1, 0), (7, 0), (17, 0)])
 
-    crasher = None
+    crashers = []
     for name, data in cases(n=CORPUS_SIZE):
         f = tmp_path / name
         f.write_bytes(data)
@@ -110,14 +110,21 @@ def test_reader_crash_is_contained_in_a_real_process(tmp_path, deck):
         p.start()
         p.join(60)
         if p.exitcode is not None and p.exitcode < 0:
-            crasher = f
-            break
-    assert crasher is not None, "the seeded corpus no longer holds a file that crashes the reader"
+            crashers.append(f)
+            if len(crashers) == 5:
+                break
+    assert crashers, "the seeded corpus no longer holds a file that crashes the reader"
+    # A crash on corrupt data need not repeat in another process (memory layout
+    # differs): every run must end cleanly, and at least one must report a crash.
     exe = Path(sys.executable).parent / "pitchguard"
-    r = subprocess.run([exe, "scan", crasher, "--rules", deck], capture_output=True, text=True,
-                       timeout=120)  # fmt: skip
-    assert r.returncode == 2, r
-    assert "crashed" in r.stderr and "Traceback" not in r.stderr
+    reported = 0
+    for f in crashers:
+        r = subprocess.run([exe, "scan", f, "--rules", deck], capture_output=True, text=True,
+                           timeout=120)  # fmt: skip
+        assert r.returncode in (0, 1, 2), r
+        assert "Traceback" not in r.stderr
+        reported += r.returncode == 2 and "crashed" in r.stderr
+    assert reported >= 1
 
 
 def _lib_write(tmp_path: Path, lib: gdstk.Library, name: str = "p.gds") -> Path:

@@ -56,7 +56,7 @@ HYPOTHESIS = settings(
 def extract(polys, min_run_nm=MIN_RUN_NM, ambit_nm=AMBIT_NM, grid_nm=GRID_NM):
     """build_features + find_sites on a list of ``(n, 2)`` nm arrays."""
     edges = build_features(PolygonSet.from_arrays(polys), grid_nm=grid_nm)
-    sites, stats = find_sites(edges, min_run_nm, ambit_nm, grid_nm)
+    sites, stats = find_sites(edges, min_run_nm, ambit_nm, grid_nm, cell_nm=None)
     return edges, sites, stats
 
 
@@ -446,7 +446,7 @@ def test_layout_file_is_flattened_with_references_and_repetitions(tmp_path, fmt)
     )
 
     edges = build_features(ps, grid_nm=layout.grid_nm)
-    sites, stats = find_sites(edges, MIN_RUN_NM, AMBIT_NM, layout.grid_nm)
+    sites, stats = find_sites(edges, MIN_RUN_NM, AMBIT_NM, layout.grid_nm, cell_nm=None)
     assert edges.n_features == 13
     finite = np.isfinite(sites.pitch)
     placed = finite & (np.abs(sites.orientation_deg - 0.0) < 1e-6)  # the placed, rotated lines
@@ -473,3 +473,21 @@ def test_layers_not_asked_for_are_not_loaded(tmp_path, fmt):
     assert only_1_5.shape_count == 2  # the datatype is part of the layer: 1/5 is not 1/0
     absent = read_layout(path, [(99, 0)])
     assert absent.shape_count == 0
+
+
+def test_pieces_are_cut_at_the_global_cell_grid():
+    """A long line crossing the grid lines x = k * cell is cut there, nowhere else;
+    the pieces keep the line's width and space and cover it exactly."""
+    cell = 1000.0
+    drawn = line_array(2, 50.0, 70.0, 3500.0)  # lines along y from y = 0 to 3500
+    edges = build_features(PolygonSet.from_arrays(drawn), 1.0)
+    sites, stats = find_sites(edges, 100.0, 600.0, 1.0, cell_nm=cell)
+    whole, _ = find_sites(edges, 100.0, 600.0, 1.0, cell_nm=None)
+    assert len(whole) == 4 and len(sites) == 4 * 4  # y = 1000, 2000, 3000 cut each edge
+    p0 = sites.origin + sites.direction * sites.u0[:, None]
+    p1 = sites.origin + sites.direction * sites.u1[:, None]
+    lo = np.minimum(p0[:, 1], p1[:, 1])
+    hi = np.maximum(p0[:, 1], p1[:, 1])
+    assert np.all(np.floor(lo / cell + 1e-9) == np.floor((hi - 1e-6) / cell))  # one cell each
+    assert sites.run.sum() == pytest.approx(whole.run.sum())
+    assert set(np.round(sites.pitch[np.isfinite(sites.pitch)], 6)) == {120.0}
