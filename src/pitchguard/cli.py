@@ -174,6 +174,8 @@ def _add_outputs(p) -> None:
         "--max-shapes", type=_positive_int, default=None, metavar="N",
         help="refuse layouts that flatten to more shapes (default: 20 million)",
     )  # fmt: skip
+    p.add_argument("--read-timeout", type=_positive_float, default=None, metavar="S",
+                   help="stop reading a layout after S seconds (default: 3600)")  # fmt: skip
     p.add_argument("--quiet", "-q", action="store_true",
                    help="print only the one-line summary")  # fmt: skip
     p.add_argument("--debug", action="store_true", help="show tracebacks")
@@ -215,6 +217,7 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
         return scan_layout(
             layout, deck, cell=args.cell, region_um=getattr(args, "region", None),
             max_shapes=args.max_shapes or DEFAULT_MAX_SHAPES, progress=update,
+            read_timeout_s=args.read_timeout,
         )  # fmt: skip
     finally:
         if bar:

@@ -121,8 +121,9 @@ def scan_layout(
     region_um: tuple[float, float, float, float] | None = None,
     max_shapes: int = DEFAULT_MAX_SHAPES,
     progress: Progress | None = None,
+    read_timeout_s: float | None = None,
 ) -> ScanResult:
-    """Read ``path`` and scan it with ``deck``."""
+    """Read ``path`` (in a child process) and scan it with ``deck``."""
     t0 = time.perf_counter()
     warnings: list[str] = []
     if progress:
@@ -133,6 +134,7 @@ def scan_layout(
         cell=cell,
         max_shapes=max_shapes,
         warnings=warnings,
+        **({"timeout_s": read_timeout_s} if read_timeout_s else {}),
     )
     region_nm = tuple(v * 1000.0 for v in region_um) if region_um else None
     findings, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)

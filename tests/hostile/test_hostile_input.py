@@ -59,7 +59,7 @@ def deck(tmp_path_factory) -> Path:
 
 
 def _run(capsys, layout: Path, deck: Path, *extra: str) -> tuple[int, str]:
-    code = main(["scan", str(layout), "--rules", str(deck), "-q", *extra])
+    code = main(["scan", str(layout), "--rules", str(deck), "-q", "--read-timeout", "30", *extra])
     out, err = capsys.readouterr()
     return code, err
 
@@ -106,9 +106,13 @@ def test_reader_crash_is_contained_in_a_real_process(tmp_path, deck):
     for name, data in cases(n=CORPUS_SIZE):
         f = tmp_path / name
         f.write_bytes(data)
-        p = mp.get_context("fork").Process(target=reader, args=(f,))
+        p = mp.get_context("fork").Process(target=reader, args=(f,), daemon=True)
         p.start()
-        p.join(60)
+        p.join(20)
+        if p.is_alive():  # a parse that hangs: not what this test looks for
+            p.kill()
+            p.join()
+            continue
         if p.exitcode is not None and p.exitcode < 0:
             crashers.append(f)
             if len(crashers) == 5:
@@ -119,8 +123,8 @@ def test_reader_crash_is_contained_in_a_real_process(tmp_path, deck):
     exe = Path(sys.executable).parent / "pitchguard"
     reported = 0
     for f in crashers:
-        r = subprocess.run([exe, "scan", f, "--rules", deck], capture_output=True, text=True,
-                           timeout=120)  # fmt: skip
+        r = subprocess.run([exe, "scan", f, "--rules", deck, "--read-timeout", "60"],
+                           capture_output=True, text=True, timeout=120)  # fmt: skip
         assert r.returncode in (0, 1, 2), r
         assert "Traceback" not in r.stderr
         reported += r.returncode == 2 and "crashed" in r.stderr
