@@ -115,6 +115,9 @@ class Finding:
     # to the feature centre), the pitch direction of the cut in the layout
     # (degrees), where the cut crosses the worst edge (drawn nm), and the
     # nominal threshold.
+    # Positions of the region's lines across them (canonical axis, quantised):
+    # counts lines, and lets regions cut by tile borders be merged exactly.
+    line_keys: tuple[float, ...] = ()
     cut_bounds_nm: tuple[float, ...] = ()
     cut_angle_deg: float = math.nan
     cut_origin_nm: tuple[float, float] = (math.nan, math.nan)
@@ -255,6 +258,34 @@ def judge_sites(
         found[(w, c - 1)] = vs
         codes[k] = _code(vs)
     return codes[inv.ravel()], results, which, found
+
+
+LINE_GAP_NM = 4.0
+"""Line positions closer than this (or three database grid steps) are one line."""
+
+
+def canonical_normal(normal: np.ndarray) -> np.ndarray:
+    """The normal flipped, where needed, to point at an angle in [0, 180) degrees."""
+    ang = np.degrees(np.arctan2(normal[..., 1], normal[..., 0]))
+    flip = (ang < -1e-9) | (ang >= 180.0 - 1e-9)
+    return np.where(flip[..., None], -normal, normal)
+
+
+def _line_keys(fs: Sites, members: np.ndarray, grid_nm: float) -> tuple[float, ...]:
+    """Positions (nm, 0.1 nm) of the members' line axes along the canonical normal."""
+    n = fs.normal[members]
+    w = np.where(np.isfinite(fs.width[members]), fs.width[members], 0.0)
+    centre = fs.origin[members] - n * (0.5 * w)[:, None]  # a point on the line's axis
+    nc = canonical_normal(n[0])
+    return tuple(sorted(set(np.round(centre @ nc, 1).tolist())))
+
+
+def count_lines(keys: tuple[float, ...], grid_nm: float) -> int:
+    """Lines among line positions: clusters more than LINE_GAP_NM apart."""
+    if not keys:
+        return 0
+    gap = max(LINE_GAP_NM, 3.0 * grid_nm)
+    return 1 + int(np.sum(np.diff(np.array(keys)) > gap))
 
 
 def _periodicity(lines: int, dense_min: int) -> str:
@@ -425,12 +456,15 @@ def classify_layer(
     corners_all = fs.corners()
     pitch_all = fs.pitch
     angle_all = fs.orientation_deg
-    run_all = fs.run
     normal_all = fs.normal
+    mid_all = fs.midpoints()
     out = []
     for members in np.split(order, bounds):
         # The worst site: most severe, then smallest pitch (finite pitches first).
-        rank = np.lexsort((pitch_all[members], sev[members]))
+        # Ties broken by position, so the choice does not depend on site order.
+        mids = mid_all[members]
+        rank = np.lexsort((np.round(mids[:, 0], 3), np.round(mids[:, 1], 3),
+                           np.round(pitch_all[members], 3), sev[members]))  # fmt: skip
         worst = members[rank[0]]
         code = int(sev[worst])
         w_idx, c_idx = int(which[flagged[worst]]), int(cut_of[worst])
@@ -447,11 +481,15 @@ def classify_layer(
             for x, y in (d * u0 + nrm * v0, d * u1 + nrm * v0, d * u1 + nrm * v1,
                          d * u0 + nrm * v1)  # fmt: skip
         )
+        # The box of the outline (not of the sites): the same whether a region
+        # was found whole or merged from tiles.
+        ol = np.array(outline)
         bbox = (
-            float(pts[:, 0].min()), float(pts[:, 1].min()),
-            float(pts[:, 0].max()), float(pts[:, 1].max()),
+            float(ol[:, 0].min()), float(ol[:, 1].min()),
+            float(ol[:, 0].max()), float(ol[:, 1].max()),
         )  # fmt: skip
-        lines = len(np.unique(fs.feature[members]))
+        line_keys = _line_keys(fs, members, grid_nm)
+        lines = count_lines(line_keys, grid_nm)
         pitch_drawn = float(pitch_all[worst])
         width_drawn = float(fs.width[worst])
         top = vs[0]
@@ -461,7 +499,7 @@ def classify_layer(
         limit = f"{top.check}: {top.value:.4g} against {top.limit:.4g}"
         context = cuts[c_idx].context if (cuts and c_idx >= 0) else ""
         cut = cuts[c_idx] if (cuts and c_idx >= 0) else None
-        mid = fs.midpoints()[worst]
+        mid = mid_all[worst]
         message = top.message
         if context == "outer" and top.check in IMAGE_CHECKS:
             message += " (at the last line of the array)"
@@ -488,7 +526,7 @@ def classify_layer(
                 lines=lines,
                 periodicity=_periodicity(lines, rule.dense_min_lines),
                 sites=len(members),
-                run_nm=round(float(run_all[members].max()), 3),
+                run_nm=round(float(u1 - u0), 3),
                 bbox_nm=bbox,
                 outline_nm=outline,
                 limit=limit,
@@ -507,6 +545,7 @@ def classify_layer(
                 cut_angle_deg=round(pitch_angle % 360.0, 3),
                 cut_origin_nm=(float(mid[0]), float(mid[1])),
                 threshold=round(m.threshold, 5) if m else math.nan,
+                line_keys=line_keys,
             )
         )
     out.sort(key=lambda f: (f.severity_rank, f.k1, f.bbox_nm))

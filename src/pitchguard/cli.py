@@ -84,6 +84,12 @@ def build_parser() -> argparse.ArgumentParser:
                       help="rule deck (TOML)")  # fmt: skip
     scan.add_argument("--region", type=_region, metavar="X0,Y0,X1,Y1",
                       help="scan only sites inside this window (µm, as drawn)")  # fmt: skip
+    scan.add_argument("--jobs", "-j", type=_positive_int, default=None, metavar="N",
+                      help="scan in tiles on N local worker processes")  # fmt: skip
+    scan.add_argument("--tile-um", type=_positive_float, default=None, metavar="UM",
+                      help="tile size for tiled scans (default 100, a multiple of 10)")
+    scan.add_argument("--scheduler", metavar="ADDRESS",
+                      help="run the tiles on this dask.distributed scheduler")  # fmt: skip
     scan.add_argument("--baseline", type=Path, metavar="PATH",
                       help="accepted findings: report and fail only on new ones")  # fmt: skip
     scan.add_argument("--write-baseline", type=Path, metavar="PATH",
@@ -211,9 +217,19 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
         def update(stage, done, total):  # noqa: F811 - labelled wrapper
             inner(f"{label} {stage}", done, total)
 
+    tiled = any(getattr(args, k, None) for k in ("jobs", "tile_um", "scheduler"))
+    if tiled and getattr(args, "region", None):
+        raise PitchguardError("--region cannot be combined with tiled scans (--jobs, "
+                              "--tile-um, --scheduler)")  # fmt: skip
     try:
         if bar:
             bar.start()
+        if tiled:
+            from pitchguard.parallel import DEFAULT_TILE_UM, scan_tiled
+
+            return scan_tiled(layout, deck, tile_um=args.tile_um or DEFAULT_TILE_UM,
+                              jobs=args.jobs, scheduler=args.scheduler, cell=args.cell,
+                              progress=update)  # fmt: skip
         return scan_layout(
             layout, deck, cell=args.cell, region_um=getattr(args, "region", None),
             max_shapes=args.max_shapes or DEFAULT_MAX_SHAPES, progress=update,

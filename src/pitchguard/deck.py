@@ -415,9 +415,10 @@ class LayerRule:
 class Deck:
     """A validated deck: layers with resolved limits, markers, scale."""
 
-    def __init__(self, raw: DeckFile, path: Path | None = None):
+    def __init__(self, raw: DeckFile, path: Path | None = None, text: str = ""):
         self.raw = raw
         self.path = path
+        self.text = text  # the TOML as read (shipped to tile workers)
         self.name = raw.deck.name or (path.stem if path else "deck")
         self.drawn_scale = raw.deck.drawn_scale
         self.reduction = raw.deck.reduction
@@ -528,7 +529,7 @@ def parse_deck(text: str, path: Path | None = None) -> Deck:
     for name, exp in raw.exposures.items():
         if not math.isfinite(exp.wavelength_nm) or not math.isfinite(exp.na):
             raise DeckError(f"{where}: exposures.{name}: values must be finite")
-    return Deck(raw, path)
+    return Deck(raw, path, text)
 
 
 def load_deck(path: str | Path) -> Deck:

@@ -1,0 +1,77 @@
+"""Tiled scans give the findings of a whole-layout scan, at any tile size and worker count,
+on local processes and on a dask.distributed cluster (loopback)."""
+
+from __future__ import annotations
+
+import gdstk
+import pytest
+
+from pitchguard.deck import load_deck, parse_deck
+from pitchguard.parallel import scan_tiled
+from pitchguard.scan import scan_layout
+
+from .conftest import DEMO_DECK, DRY_ARF_DECK, SAMPLE_GDS, SAMPLE_OAS, line_array_cell
+
+
+def _key(f):
+    return (f.layer, f.check, f.severity, round(f.pitch_nm, 2), round(f.pitch_max_nm, 2),
+            f.lines, f.sites, tuple(round(v, 3) for v in f.bbox_um), round(f.nils, 3),
+            round(f.k1, 4), round(f.run_nm, 1), f.hint)  # fmt: skip
+
+
+def _same(a, b):
+    assert sorted(map(_key, a.findings)) == sorted(map(_key, b.findings))
+
+
+@pytest.mark.parametrize("layout", [SAMPLE_GDS, SAMPLE_OAS], ids=["gds", "oas"])
+@pytest.mark.parametrize(("tile_um", "jobs"), [(10, 1), (10, 2), (20, 2), (100, 2)])
+def test_demo_chip_same_findings_tiled(layout, tile_um, jobs):
+    deck = load_deck(DEMO_DECK)
+    _same(scan_layout(layout, deck), scan_tiled(layout, deck, tile_um=tile_um, jobs=jobs))
+
+
+def _arrays_across_borders(tmp_path):
+    """Arrays placed across tile borders (every 10 um), in an array of references."""
+    lib = gdstk.Library()
+    top = lib.new_cell("TOP")
+    a = line_array_cell(lib, "A110", (7, 0), 110, 55, 40, 25_000, pieces=3)  # 25 um lines
+    b = line_array_cell(lib, "B130", (7, 0), 130, 60, 30, 6_000)
+    top.add(gdstk.Reference(a, (7.5, 3.0)))
+    top.add(gdstk.Reference(b, (0.0, 9.0), rotation=1.5707963267948966, columns=3, rows=2,
+                            spacing=(12.0, 7.0)))  # fmt: skip
+    path = tmp_path / "borders.oas"
+    lib.write_oas(str(path))
+    return path
+
+
+@pytest.mark.parametrize(("tile_um", "jobs"), [(10, 2), (30, 1)])
+def test_regions_cut_by_tile_borders_are_merged(tmp_path, tile_um, jobs):
+    path = _arrays_across_borders(tmp_path)
+    deck = parse_deck(DRY_ARF_DECK)
+    whole = scan_layout(path, deck)
+    tiled = scan_tiled(path, deck, tile_um=tile_um, jobs=jobs)
+    _same(whole, tiled)
+    # The 40-line array crosses three tile columns and its lines three tile rows.
+    assert any(f.lines == 40 for f in tiled.findings)
+
+
+def test_dask_cluster_on_loopback_gives_the_same_findings(tmp_path):
+    import distributed  # in the test extra
+    deck = load_deck(DEMO_DECK)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  host="127.0.0.1", dashboard_address=None) as cluster:  # fmt: skip
+        tiled = scan_tiled(SAMPLE_GDS, deck, tile_um=10, scheduler=cluster.scheduler_address)
+    _same(scan_layout(SAMPLE_GDS, deck), tiled)
+
+
+def test_cli_jobs_and_scheduler_options(tmp_path, capsys):
+    from .conftest import run_cli
+
+    code, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q", "--jobs", "2",
+                           "--tile-um", "10")  # fmt: skip
+    code0, out0, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q")
+    assert code == code0 == 1
+    assert out.split(" in ")[0] == out0.split(" in ")[0]  # same counts per severity
+    code, _, err = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "--jobs", "2",
+                           "--region", "0,0,5,5")  # fmt: skip
+    assert code == 2 and "--region cannot be combined" in err
