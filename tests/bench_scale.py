@@ -1,0 +1,169 @@
+#!/usr/bin/env python
+"""Benchmark of full-chip scale: tiled scans against a plain read and flatten.
+
+A script, not a pytest test::
+
+    python tests/bench_scale.py                      # about 10^7 flat shapes
+    python tests/bench_scale.py --shapes 1e6         # smaller, quicker
+
+It generates a hierarchical chip (OASIS) on one deck layer: memory-like
+arrays, standard-cell-like rows and routing at several pitches, then runs,
+each in a fresh process, side by side:
+
+* ``read+flatten``: gdstk reads the file and flattens the layer (what any
+  flat tool pays before it starts);
+* ``scan 1 worker`` and ``scan 2 workers``: ``pitchguard scan --jobs N``
+  (tiled, read from the hierarchy);
+* ``scan whole``: the untiled scan (flattens the layout in one process).
+
+Printed per run: wall time, the largest resident set of any one process
+(the parent or a worker; ``ru_maxrss``), and the ratio to read+flatten.
+Targets from the project's issue: tiled 1 worker within 3x read+flatten,
+2 workers at least 1.7x faster than 1, peak memory under 2 GB and below
+read+flatten's.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+DECK = """
+[exposures.arfi]
+wavelength_nm = 193.0
+na = 1.35
+immersion_index = 1.44
+illumination = { shape = "annular", sigma_inner = 0.6, sigma_outer = 0.9 }
+
+[[layers]]
+name = "m1"
+source = "1/0"
+exposure = "arfi"
+field = "dark"
+"""
+
+
+def build_chip(path: Path, target: float) -> int:
+    """A hierarchical chip of about ``target`` flat shapes; returns the exact count."""
+    import gdstk
+
+    lib = gdstk.Library()
+    # Memory-like: a 32-line cell at pitch 90, arrayed.
+    bit = lib.new_cell("BITS")
+    for k in range(32):
+        bit.add(gdstk.rectangle((k * 0.09, 0), (k * 0.09 + 0.045, 1.6), layer=1))
+    # Standard-cell-like: 6 lines at pitch 200 with a cut, in rows.
+    std = lib.new_cell("STD")
+    for k in range(6):
+        std.add(gdstk.rectangle((k * 0.2, 0), (k * 0.2 + 0.1, 0.7), layer=1))
+        std.add(gdstk.rectangle((k * 0.2, 0.8), (k * 0.2 + 0.1, 1.5), layer=1))
+    # Routing: long lines at pitch 140 and 180.
+    route = lib.new_cell("ROUTE")
+    for k in range(20):
+        route.add(gdstk.rectangle((0, k * 0.14), (40, k * 0.14 + 0.07), layer=1))
+    for k in range(20):
+        route.add(gdstk.rectangle((0, 3 + k * 0.18), (40, 3 + k * 0.18 + 0.09), layer=1))
+    block = lib.new_cell("BLOCK")  # 200 x 200 um
+    block.add(gdstk.Reference(bit, (0, 0), columns=30, rows=50, spacing=(3.0, 2.0)))
+    block.add(gdstk.Reference(std, (100, 0), columns=60, rows=60, spacing=(1.5, 1.65)))
+    block.add(gdstk.Reference(route, (0, 110), columns=4, rows=12, spacing=(45, 7.5)))
+    per_block = 30 * 50 * 32 + 60 * 60 * 12 + 4 * 12 * 40
+    n = max(1, round((target / per_block) ** 0.5))
+    top = lib.new_cell("CHIP")
+    top.add(gdstk.Reference(block, (0, 0), columns=n, rows=n, spacing=(210, 210)))
+    lib.write_oas(str(path))
+    return per_block * n * n
+
+
+def _flatten(path: str) -> dict:
+    import gdstk
+
+    t0 = time.perf_counter()
+    lib = gdstk.read_oas(path)
+    polys = lib.top_level()[0].get_polygons(layer=1, datatype=0)
+    return {"seconds": time.perf_counter() - t0, "shapes": len(polys)}
+
+
+def _maxrss_mb() -> float:
+    own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    kids = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    return max(own, kids) / 1024.0
+
+
+def worker(kind: str, path: str, deck: str, jobs: int, tile: float) -> None:
+    t0 = time.perf_counter()
+    if kind == "flatten":
+        out = _flatten(path)
+    else:
+        from pitchguard.cli import main
+
+        args = ["scan", path, "--rules", deck, "-q", "--max-shapes", "200000000"]
+        if kind == "tiled":
+            args += ["--jobs", str(jobs), "--tile-um", str(tile)]
+        code = main(args)
+        out = {"exit": code}
+    out["wall"] = time.perf_counter() - t0
+    out["maxrss_mb"] = _maxrss_mb()
+    print("BENCH " + json.dumps(out))
+
+
+def run(kind: str, path: Path, deck: Path, jobs: int = 1, tile: float = 200.0) -> dict:
+    cmd = [sys.executable, __file__, "--worker", kind, "--file", str(path), "--deck", str(deck),
+           "--jobs", str(jobs), "--tile", str(tile)]  # fmt: skip
+    r = subprocess.run(cmd, capture_output=True, text=True)
+    line = [ln for ln in r.stdout.splitlines() if ln.startswith("BENCH ")]
+    if not line:
+        return {"error": (r.stderr or r.stdout)[-300:]}
+    return json.loads(line[-1][6:])
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--shapes", type=float, default=1e7)
+    ap.add_argument("--tile", type=float, default=200.0, help="tile size, um")
+    ap.add_argument("--skip-whole", action="store_true", help="do not run the untiled scan")
+    ap.add_argument("--worker")
+    ap.add_argument("--file")
+    ap.add_argument("--deck")
+    ap.add_argument("--jobs", type=int, default=1)
+    args = ap.parse_args()
+    if args.worker:
+        worker(args.worker, args.file, args.deck, args.jobs, args.tile)
+        return 0
+    with tempfile.TemporaryDirectory() as tmp:
+        chip = Path(tmp) / "chip.oas"
+        deck = Path(tmp) / "deck.toml"
+        deck.write_text(DECK)
+        n = build_chip(chip, args.shapes)
+        print(f"chip: {n:,} flat shapes on the deck layer, {chip.stat().st_size / 1e6:.1f} MB "
+              f"OASIS; tile {args.tile:g} um; {os.cpu_count()} cpus")  # fmt: skip
+        rows = [("read+flatten", run("flatten", chip, deck))]
+        rows.append(("scan 1 worker", run("tiled", chip, deck, 1, args.tile)))
+        rows.append(("scan 2 workers", run("tiled", chip, deck, 2, args.tile)))
+        if not args.skip_whole:
+            rows.append(("scan whole", run("whole", chip, deck)))
+        base = rows[0][1].get("wall", float("nan"))
+        print(f"{'run':<16}{'wall s':>10}{'x flatten':>11}{'peak RSS MB':>13}{'exit':>6}")
+        for name, r in rows:
+            if "error" in r:
+                print(f"{name:<16} failed: {r['error']}")
+                continue
+            print(f"{name:<16}{r['wall']:>10.1f}{r['wall'] / base:>11.2f}{r['maxrss_mb']:>13.0f}"
+                  f"{r.get('exit', ''):>6}")  # fmt: skip
+        w1 = dict(rows)["scan 1 worker"].get("wall")
+        w2 = dict(rows)["scan 2 workers"].get("wall")
+        if w1 and w2:
+            print(f"speed-up 2 workers / 1 worker: {w1 / w2:.2f}x (target >= 1.7x); "
+                  f"1 worker / read+flatten: {w1 / base:.1f}x (target <= 3x)")  # fmt: skip
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
