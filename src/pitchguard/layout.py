@@ -222,6 +222,42 @@ def flatten_layer(tops, layer_datatype: tuple[int, int], scale: float) -> Polygo
     return PolygonSet.from_arrays(polys, scale)
 
 
+def open_layout(path: Path, wanted: set, cell: str | None, noise: list[str] | None = None):
+    """Parse a layout file: ``(library, format, top cells)``, with clear errors.
+
+    Reference cycles are refused here, before anything is flattened (the
+    library crashes on them).  Library warnings are appended to ``noise``.
+    """
+    import gdstk
+
+    p = Path(path)
+    fmt = sniff_format(p)
+    with captured_stderr() as captured:
+        try:
+            if fmt == "gds":
+                lib = gdstk.read_gds(str(p), filter=wanted or None)
+            else:
+                lib = gdstk.read_oas(str(p))
+        except (OSError, RuntimeError, MemoryError, ValueError) as exc:
+            what = str(exc) or type(exc).__name__
+            label = "GDSII" if fmt == "gds" else "OASIS"
+            raise LayoutError(f"{p}: cannot read {label} file: {what}") from None
+    if noise is not None:
+        noise.extend(captured)
+    cycle = _find_cycle(lib.cells)
+    if cycle:
+        raise LayoutError(f"{p}: cell reference cycle: {' -> '.join(cycle)}")
+    if cell is not None:
+        tops = [c for c in lib.cells if c.name == cell]
+        if not tops:
+            raise LayoutError(f"{p}: no cell named {cell!r}")
+    else:
+        tops = [c for c in lib.top_level() if isinstance(c, gdstk.Cell)]
+        if not tops:
+            raise LayoutError(f"{p}: layout has no top cell")
+    return lib, fmt, tops
+
+
 def read_layout(
     path: str | Path,
     layers: Iterable[tuple[int, int]],
@@ -244,37 +280,13 @@ def read_layout(
     warnings
         If given, library warnings met while reading are appended to it.
     """
-    import gdstk
 
     p = Path(path)
-    fmt = sniff_format(p)
     wanted = set(layers)
-    with captured_stderr() as noise:
-        try:
-            if fmt == "gds":
-                lib = gdstk.read_gds(str(p), filter=wanted or None)
-            else:
-                lib = gdstk.read_oas(str(p))
-        except (OSError, RuntimeError, MemoryError, ValueError) as exc:
-            what = str(exc) or type(exc).__name__
-            label = "GDSII" if fmt == "gds" else "OASIS"
-            raise LayoutError(f"{p}: cannot read {label} file: {what}") from None
+    noise: list[str] = []
+    lib, fmt, tops = open_layout(p, wanted, cell, noise)
     if warnings is not None:
         warnings.extend(noise)
-
-    cycle = _find_cycle(lib.cells)
-    if cycle:
-        raise LayoutError(f"{p}: cell reference cycle: {' -> '.join(cycle)}")
-
-    if cell is not None:
-        tops = [c for c in lib.cells if c.name == cell]
-        if not tops:
-            raise LayoutError(f"{p}: no cell named {cell!r}")
-    else:
-        tops = lib.top_level()
-        tops = [c for c in tops if isinstance(c, gdstk.Cell)]
-        if not tops:
-            raise LayoutError(f"{p}: layout has no top cell")
 
     memo: dict = {}
     total = sum(_count_shapes(c, wanted, memo) for c in tops)

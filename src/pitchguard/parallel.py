@@ -56,28 +56,13 @@ _OPEN: dict = {}
 
 def _open(path: str, cell: str | None, layers):
     """The library and its hierarchy index, opened once per worker process."""
-    import gdstk
-
-    from pitchguard.layout import _find_cycle, captured_stderr, sniff_format
+    from pitchguard.layout import open_layout
     from pitchguard.tiles import HierarchyQuery
 
     key = (path, os.path.getmtime(path), cell, tuple(layers))
     if key in _OPEN:
         return _OPEN[key]
-    fmt = sniff_format(Path(path))
-    with captured_stderr():
-        lib = gdstk.read_gds(path, filter=set(layers)) if fmt == "gds" else gdstk.read_oas(path)
-    cycle = _find_cycle(lib.cells)
-    if cycle:
-        raise LayoutError(f"{path}: cell reference cycle: {' -> '.join(cycle)}")
-    if cell is not None:
-        tops = [c for c in lib.cells if c.name == cell]
-        if not tops:
-            raise LayoutError(f"{path}: no cell named {cell!r}")
-    else:
-        tops = [c for c in lib.top_level() if hasattr(c, "references")]
-        if not tops:
-            raise LayoutError(f"{path}: layout has no top cell")
+    lib, fmt, tops = open_layout(Path(path), set(layers), cell)
     q = HierarchyQuery(lib, tops, layers, lib.unit * 1e9)
     st = Structure(lib.unit, lib.precision * 1e9, tuple(c.name for c in tops), q.bounding_box(),
                    fmt)  # fmt: skip
