@@ -402,13 +402,13 @@ def passing_pitch(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: flo
     return math.nan
 
 
-def _hint(rule: LayerRule, vs: list[Violation], res: OrderResult, cd_w: float, pitch_w: float,
-          angle: float, scale: float) -> str:  # fmt: skip
+def _hint(rule: LayerRule, vs: list[Violation] | tuple, cutoff_pitch_nm: float, cd_w: float,
+          pitch_w: float, angle: float, scale: float) -> str:  # fmt: skip
     """What to change, in drawn nm."""
     first = vs[0].check
     feature = "line" if rule.field == "clear" else "opening"
     if first == "unresolvable-pitch":
-        need = res.cutoff_pitch_nm / scale
+        need = cutoff_pitch_nm / scale
         return (f"widen the pitch to at least {math.ceil(need * 10) / 10:.1f} nm, or use "
                 "illumination that reaches further along the pitch direction")  # fmt: skip
     if all(v.check == "low-k1" for v in vs):
@@ -425,6 +425,14 @@ def _hint(rule: LayerRule, vs: list[Violation], res: OrderResult, cd_w: float, p
     return f"at this {feature} width, pitch {p_d:.1f} nm (space {s_d:.1f} nm) passes every limit"
 
 
+def hint_for(f: Finding, rule: LayerRule, scale_to_wafer: float) -> str:
+    """The fix hint of a finding (for findings made without one, e.g. by tile workers)."""
+    if not f.violations:
+        return ""
+    return _hint(rule, f.violations, f.cutoff_pitch_nm, f.width_nm * scale_to_wafer,
+                 f.pitch_nm * scale_to_wafer, f.cut_angle_deg, scale_to_wafer)  # fmt: skip
+
+
 def classify_layer(
     sites: Sites,
     rule: LayerRule,
@@ -433,6 +441,7 @@ def classify_layer(
     metrics: list[Metrics] | None = None,
     which_cut: np.ndarray | None = None,
     cuts: list | None = None,
+    hints: bool = True,
 ) -> list[Finding]:
     """Findings (one per region) for the sites of one layer.
 
@@ -494,8 +503,9 @@ def classify_layer(
         width_drawn = float(fs.width[worst])
         top = vs[0]
         pitch_angle = math.degrees(math.atan2(normal_all[worst][1], normal_all[worst][0]))
-        hint = _hint(rule, vs, res, width_drawn * scale_to_wafer,
-                     pitch_drawn * scale_to_wafer, pitch_angle, scale_to_wafer)  # fmt: skip
+        hint = _hint(rule, vs, res.cutoff_pitch_nm, width_drawn * scale_to_wafer,
+                     pitch_drawn * scale_to_wafer, pitch_angle, scale_to_wafer) if hints \
+            else ""  # fmt: skip
         limit = f"{top.check}: {top.value:.4g} against {top.limit:.4g}"
         context = cuts[c_idx].context if (cuts and c_idx >= 0) else ""
         cut = cuts[c_idx] if (cuts and c_idx >= 0) else None

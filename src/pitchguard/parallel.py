@@ -28,6 +28,7 @@ from pitchguard.classify import (
     _periodicity,
     canonical_normal,
     count_lines,
+    hint_for,
 )
 from pitchguard.deck import Deck, parse_deck
 from pitchguard.errors import LayoutError
@@ -88,7 +89,8 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float):
     for ps in polys.values():  # onto the database grid, exactly as read_layout does
         np.round(ps.points / st.grid_nm, out=ps.points)
         np.multiply(ps.points, st.grid_nm, out=ps.points)
-    findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile))
+    # Hints are made once per merged region by the parent, not per tile.
+    findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile), hints=False)
     return findings, stats
 
 
@@ -149,6 +151,8 @@ def scan_tiled(
     deck_text = deck.text
     results = _run(str(p), deck_text, cell, tiles, halo, jobs, scheduler, progress)
     findings = merge_findings([f for fs, _ in results for f in fs], deck, st.grid_nm)
+    findings = [replace(f, hint=hint_for(f, deck.layer(f.layer), deck.scale_to_wafer))
+                for f in findings]  # fmt: skip
     stats = _sum_stats(deck, [s for _, s in results])
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})
     findings.sort(key=lambda f: (f.severity_rank, f.k1, f.layer, f.bbox_nm))

@@ -63,6 +63,7 @@ def scan_polygons(
     grid_nm: float,
     region_nm: tuple[float, float, float, float] | None = None,
     progress: Progress | None = None,
+    hints: bool = True,
 ) -> tuple[list[Finding], list[LayerStats]]:
     """Scan the deck's layers in ``polygons`` (nm, as drawn).
 
@@ -105,7 +106,7 @@ def scan_polygons(
             ex.extra["unique_cuts"] = len(cuts)
             ex.extra["imaged_sites"] = int((which_cut >= 0).sum())
         findings.extend(
-            classify_layer(sites, rule, scale, grid_nm, metrics, which_cut, cuts)
+            classify_layer(sites, rule, scale, grid_nm, metrics, which_cut, cuts, hints=hints)
         )
         stats.append(
             LayerStats(rule.name, rule.source, len(ps), ex, time.perf_counter() - t0)
