@@ -2,37 +2,20 @@
 
 from __future__ import annotations
 
-import textwrap
 from pathlib import Path
 
 import gdstk
 import pytest
 
-from pitchguard.cli import main
-
-REPO = Path(__file__).resolve().parents[2]
-SAMPLE_GDS = REPO / "sample_layouts" / "demo_chip.gds"
-SAMPLE_OAS = REPO / "sample_layouts" / "demo_chip.oas"
-DEMO_DECK = REPO / "rules" / "demo_chip.toml"
-
-# Dry ArF, conventional sigma 0.8: cutoff = 193 / (0.93 * 1.8) = 115.29 nm
-# (lambda / (NA (1 + sigma_max)), arithmetic); k1 = 0.6 at pitch 249.0 nm.
-DRY_ARF_DECK = textwrap.dedent(
-    """
-    [exposures.arf]
-    wavelength_nm = 193.0
-    na = 0.93
-    illumination = { shape = "conventional", sigma = 0.8 }
-    mask = { kind = "binary" }
-
-    [[layers]]
-    name = "poly"
-    source = "7/0"
-    exposure = "arf"
-    field = "clear"
-    """
+from decks import (  # noqa: F401 - re-exported to the integration tests
+    DEMO_DECK,
+    DRY_ARF_CUTOFF_NM,
+    DRY_ARF_DECK,
+    REPO,
+    SAMPLE_GDS,
+    SAMPLE_OAS,
 )
-DRY_ARF_CUTOFF_NM = 193.0 / (0.93 * 1.8)
+from pitchguard.cli import main
 
 
 def run_cli(capsys, *argv: str) -> tuple[int, str, str]:

@@ -23,6 +23,8 @@ import numpy as np
 import pytest
 from matplotlib import image as mpimg
 
+from decks import DEMO_DECK, DRY_ARF_DECK
+from decks import SAMPLE_GDS as DEMO_GDS
 from pitchguard.deck import load_deck
 from pitchguard.html_report import (
     cut_mirrored,
@@ -36,30 +38,11 @@ from pitchguard.measure import cut_image
 from pitchguard.report import CAUTION, one_line_summary
 from pitchguard.scan import scan_layout
 
-REPO = Path(__file__).resolve().parents[2]
-DEMO_GDS = REPO / "sample_layouts" / "demo_chip.gds"
-DEMO_DECK = REPO / "rules" / "demo_chip.toml"
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 SIGN_OFF = "sign-off stays with the fab's calibrated models"
 
-# Dry ArF, conventional sigma 0.8, binary mask: the smallest imageable pitch is
-# 193 / (0.93 * 1.8) = 115.3 nm (lambda / (NA (1 + sigma)), arithmetic).
-MANY_DECK = """
-[deck]
-name = "many-copies"
-
-[exposures.arf]
-wavelength_nm = 193.0
-na = 0.93
-illumination = { shape = "conventional", sigma = 0.8 }
-mask = { kind = "binary" }
-
-[[layers]]
-name = "poly"
-source = "7/0"
-exposure = "arf"
-field = "clear"
-"""
+# The dry ArF deck of decks.py (smallest imageable pitch 115.3 nm, arithmetic).
+MANY_DECK = '[deck]\nname = "many-copies"\n' + DRY_ARF_DECK
 MANY_PITCHES = (100.0, 108.0, 140.0)  # two unresolvable, one low-k1 (k1 0.337)
 MANY_COPIES = (6, 5)  # columns x rows of each array: 30 identical regions per pitch
 MANY_MAX_GROUPS = 2

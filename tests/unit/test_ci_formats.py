@@ -16,7 +16,6 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
-import textwrap
 import xml.etree.ElementTree as ET
 from collections import Counter
 from pathlib import Path
@@ -25,6 +24,8 @@ import gdstk
 import jsonschema
 import pytest
 
+from decks import DEMO_DECK, DRY_ARF_DECK, REPO
+from decks import SAMPLE_GDS as DEMO_GDS
 from pitchguard.ci_formats import (
     FINGERPRINT_KEY,
     LEVEL,
@@ -42,29 +43,10 @@ from pitchguard.errors import OutputError
 from pitchguard.report import CAUTION
 from pitchguard.scan import scan_layout
 
-REPO = Path(__file__).resolve().parents[2]
-DEMO_GDS = REPO / "sample_layouts" / "demo_chip.gds"
-DEMO_DECK = REPO / "rules" / "demo_chip.toml"
 SCHEMA_PATH = REPO / "tests" / "fixtures" / "sarif-schema-2.1.0.json"
 SCHEMA_SHA256 = "c3b4bb2d6093897483348925aaa73af03b3e3f4bd4ca38cef26dcb4212a2682e"
 
-# Dry ArF, conventional sigma 0.8, binary mask: the smallest pitch that images is
-# lambda / (NA (1 + sigma)) = 193 / (0.93 * 1.8) = 115.3 nm (README, "Checks").
-SMALL_DECK = textwrap.dedent(
-    """
-    [exposures.arf]
-    wavelength_nm = 193.0
-    na = 0.93
-    illumination = { shape = "conventional", sigma = 0.8 }
-    mask = { kind = "binary" }
-
-    [[layers]]
-    name = "poly"
-    source = "7/0"
-    exposure = "arf"
-    field = "clear"
-    """
-)
+SMALL_DECK = DRY_ARF_DECK  # cutoff 115.3 nm (decks.py, arithmetic)
 
 
 # --------------------------------------------------------------------- fixtures

@@ -1,0 +1,30 @@
+"""Paths and decks shared by the test folders (``tests/`` is on ``sys.path``, see conftest)."""
+
+from __future__ import annotations
+
+import textwrap
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+SAMPLE_GDS = REPO / "sample_layouts" / "demo_chip.gds"
+SAMPLE_OAS = REPO / "sample_layouts" / "demo_chip.oas"
+DEMO_DECK = REPO / "rules" / "demo_chip.toml"
+
+# Dry ArF, conventional sigma 0.8, binary mask: cutoff = 193 / (0.93 * 1.8) =
+# 115.29 nm (lambda / (NA (1 + sigma_max)), arithmetic); k1 = 0.6 at pitch 249.0 nm.
+DRY_ARF_DECK = textwrap.dedent(
+    """
+    [exposures.arf]
+    wavelength_nm = 193.0
+    na = 0.93
+    illumination = { shape = "conventional", sigma = 0.8 }
+    mask = { kind = "binary" }
+
+    [[layers]]
+    name = "poly"
+    source = "7/0"
+    exposure = "arf"
+    field = "clear"
+    """
+)
+DRY_ARF_CUTOFF_NM = 193.0 / (0.93 * 1.8)
