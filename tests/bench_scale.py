@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import os
 import resource
 import subprocess
@@ -75,7 +76,7 @@ def build_chip(path: Path, target: float) -> int:
     block.add(gdstk.Reference(std, (100, 0), columns=60, rows=60, spacing=(1.5, 1.65)))
     block.add(gdstk.Reference(route, (0, 110), columns=4, rows=12, spacing=(45, 7.5)))
     per_block = 30 * 50 * 32 + 60 * 60 * 12 + 4 * 12 * 40
-    n = max(1, round((target / per_block) ** 0.5))
+    n = max(1, math.ceil((target / per_block) ** 0.5))
     top = lib.new_cell("CHIP")
     top.add(gdstk.Reference(block, (0, 0), columns=n, rows=n, spacing=(210, 210)))
     lib.write_oas(str(path))

@@ -73,7 +73,7 @@ class Violation:
     message: str
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Finding:
     """One region of one layer that breaks a check.  Every report renders this."""
 
@@ -405,13 +405,20 @@ def passing_pitch(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: flo
 def _hint(rule: LayerRule, vs: list[Violation] | tuple, cutoff_pitch_nm: float, cd_w: float,
           pitch_w: float, angle: float, scale: float) -> str:  # fmt: skip
     """What to change, in drawn nm."""
-    first = vs[0].check
+    checks = tuple(v.check for v in vs)
+    return _hint_cached(rule, checks, cutoff_pitch_nm, cd_w, pitch_w, angle, scale)
+
+
+@lru_cache(maxsize=65536)
+def _hint_cached(rule: LayerRule, checks: tuple[str, ...], cutoff_pitch_nm: float, cd_w: float,
+                 pitch_w: float, angle: float, scale: float) -> str:  # fmt: skip
+    first = checks[0]
     feature = "line" if rule.field == "clear" else "opening"
     if first == "unresolvable-pitch":
         need = cutoff_pitch_nm / scale
         return (f"widen the pitch to at least {math.ceil(need * 10) / 10:.1f} nm, or use "
                 "illumination that reaches further along the pitch direction")  # fmt: skip
-    if all(v.check == "low-k1" for v in vs):
+    if all(c == "low-k1" for c in checks):
         need = 2.0 * rule.k1_marginal_below * rule.exposure.lambda_over_na_nm / scale
         return f"a pitch of at least {math.ceil(need * 10) / 10:.1f} nm reaches k1 " \
             f"{rule.k1_marginal_below:g}"  # fmt: skip

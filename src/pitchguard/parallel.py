@@ -14,7 +14,9 @@ findings' line positions.
 
 from __future__ import annotations
 
+import gc
 import math
+import operator
 import os
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -76,6 +78,16 @@ def structure_task(path: str, cell: str | None, layers) -> Structure:
     return _open(path, cell, layers)[1]
 
 
+def keys_task(path: str, cell: str | None, layers, tiles, halo: float) -> list[bytes]:
+    """Content keys of ``tiles`` (see :meth:`HierarchyQuery.content_key`)."""
+    import faulthandler
+
+    faulthandler.disable()
+    q, _ = _open(path, cell, layers)
+    return [q.content_key((x0 - halo, y0 - halo, x1 + halo, y1 + halo), (x0, y0))
+            for x0, y0, x1, y1 in tiles]  # fmt: skip
+
+
 def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float):
     """Scan one tile; returns ``(findings, stats per layer)``."""
     import faulthandler
@@ -134,8 +146,14 @@ def scan_tiled(
     scheduler: str | None = None,
     cell: str | None = None,
     progress=None,
+    reuse: bool = True,
 ) -> ScanResult:
-    """Scan ``path`` tile by tile on local worker processes or a dask cluster."""
+    """Scan ``path`` tile by tile on local worker processes or a dask cluster.
+
+    Tiles whose content keys are equal hold the same polygons up to a shift;
+    with ``reuse`` each such group is scanned once and its findings shifted
+    onto the other tiles of the group.
+    """
     import time
 
     from pitchguard.layout import sniff_format
@@ -148,55 +166,188 @@ def scan_tiled(
     tile_nm = max(SITE_CELL_NM, math.ceil(tile_um * 1000.0 / SITE_CELL_NM) * SITE_CELL_NM)
     tiles = tiles_for(st.extent_nm, tile_nm) if st.extent_nm else []
     halo = _halo(deck)
-    deck_text = deck.text
-    results = _run(str(p), deck_text, cell, tiles, halo, jobs, scheduler, progress)
-    findings = merge_findings([f for fs, _ in results for f in fs], deck, st.grid_nm)
-    findings = [replace(f, hint=hint_for(f, deck.layer(f.layer), deck.scale_to_wafer))
-                for f in findings]  # fmt: skip
-    stats = _sum_stats(deck, [s for _, s in results])
+    with _Engine(str(p), jobs, scheduler, progress) as engine:
+        if reuse and len(tiles) > 1:
+            n_chunks = min(len(tiles), 4 * engine.workers)
+            chunks = [tiles[k::n_chunks] for k in range(n_chunks)]
+            keyed = engine.map(keys_task, [(str(p), cell, layers, c, halo) for c in chunks],
+                               "tile contents")  # fmt: skip
+            keys = [None] * len(tiles)
+            for k, ks in enumerate(keyed):
+                keys[k::n_chunks] = ks
+        else:
+            keys = list(range(len(tiles)))
+        groups: dict = {}
+        for k, key in enumerate(keys):
+            groups.setdefault(key, []).append(k)
+        reps = [members[0] for members in groups.values()]
+        results = engine.map(tile_task, [(str(p), deck.text, cell, tiles[k], halo) for k in reps],
+                             f"tiles ({len(reps)} of {len(tiles)} distinct)")  # fmt: skip
+        tiling = {"tile_um": tile_nm / 1000.0, "tiles": len(tiles), "distinct": len(reps),
+                  "workers": engine.workers}  # fmt: skip
+    # Many small records are made below and none is garbage: pausing the cyclic
+    # collector saves its repeated full passes (measured: about a third of this
+    # phase at 3.6e5 findings).
+    gc_was_on = gc.isenabled()
+    gc.disable()
+    try:
+        findings, per_tile_stats = _assemble(results, groups, tiles, deck, st.grid_nm)
+    finally:
+        if gc_was_on:
+            gc.enable()
+    stats = _sum_stats(deck, per_tile_stats)
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})
     findings.sort(key=lambda f: (f.severity_rank, f.k1, f.layer, f.bbox_nm))
-    return ScanResult(findings, stats, layout, [], time.perf_counter() - t0)
+    return ScanResult(findings, stats, layout, [], time.perf_counter() - t0, tiling)
 
 
-def _run(path, deck_text, cell, tiles, halo, jobs, scheduler, progress):
-    if scheduler:
-        try:
-            from distributed import Client
-        except ImportError:
-            raise LayoutError("--scheduler needs dask.distributed: pip install "
-                              "'pitchguard[cluster]'") from None  # fmt: skip
-        with Client(scheduler) as client:
-            futures = client.map(tile_task, [path] * len(tiles), [deck_text] * len(tiles),
-                                 [cell] * len(tiles), tiles, [halo] * len(tiles),
-                                 pure=False)  # fmt: skip
-            try:
-                return client.gather(futures)
-            except Exception as exc:  # a worker lost while reading: bad input
-                raise LayoutError(f"{path}: a tile failed on the cluster: "
-                                  f"{type(exc).__name__}: {exc}") from None  # fmt: skip
-    from concurrent.futures import ProcessPoolExecutor
-    from concurrent.futures.process import BrokenProcessPool
-    from multiprocessing import get_context
+def _assemble(results, groups: dict, tiles, deck: Deck, grid_nm: float):
+    """Findings of every tile from those of the distinct tiles, merged across borders."""
+    # Hints are made once per distinct tile's finding (a finding's hint does not
+    # depend on where it is) and travel with the shifted copies and merges.
+    rules = {r.name: r for r in deck.layers}
+    for fs, _ in results:
+        for f in fs:
+            _set(f, "hint", hint_for(f, rules[f.layer], deck.scale_to_wafer))
+    # Only findings reaching a tile's border can be parts of a region cut by it.
+    inner: list[Finding] = []
+    border: list[Finding] = []
+    border_tile: list[int] = []
+    per_tile_stats = []
+    eps = 2.0 * grid_nm
+    for (fs, stats), members in zip(results, groups.values()):
+        tx0, ty0, tx1, ty1 = tiles[members[0]]
+        offsets = np.array([tiles[k][:2] for k in members], dtype=np.float64) - (tx0, ty0)
+        for f in fs:
+            copies = shifted_copies(f, offsets)
+            x0, y0, x1, y1 = f.bbox_nm
+            if x0 <= tx0 + eps or y0 <= ty0 + eps or x1 >= tx1 - eps or y1 >= ty1 - eps:
+                border.extend(copies)
+                border_tile.extend(members)
+            else:
+                inner.extend(copies)
+        per_tile_stats.extend([stats] * len(members))
+    return inner + merge_findings(border, deck, grid_nm, border_tile), per_tile_stats
 
-    jobs = jobs or os.cpu_count() or 1
-    out = [None] * len(tiles)
-    with ProcessPoolExecutor(jobs, mp_context=get_context("fork")) as ex:
-        futs = {ex.submit(tile_task, path, deck_text, cell, t, halo): k
-                for k, t in enumerate(tiles)}  # fmt: skip
-        done = 0
-        try:
-            from concurrent.futures import as_completed
 
-            for fut in as_completed(futs):
-                out[futs[fut]] = fut.result()
-                done += 1
-                if progress:
-                    progress(f"tiles ({len(tiles)})", done, len(tiles))
-        except BrokenProcessPool:
-            raise LayoutError(f"{path}: the layout reader crashed in a tile worker: the file "
-                              "is corrupt") from None  # fmt: skip
+_FIELDS = Finding.__slots__
+_get_fields = operator.attrgetter(*_FIELDS)
+_set = object.__setattr__  # findings are frozen; only fresh copies made here are set
+
+
+def _copy(f: Finding) -> Finding:
+    """A shallow copy (``copy.copy`` goes through pickling hooks: 20x slower)."""
+    g = object.__new__(Finding)
+    for name, value in zip(_FIELDS, _get_fields(f)):
+        _set(g, name, value)
+    return g
+
+
+def _line_normal(f: Finding) -> tuple[float, float]:
+    """The canonical normal of the finding's lines, from its outline (as line keys use)."""
+    o = f.outline_nm
+    ux, uy = o[1][0] - o[0][0], o[1][1] - o[0][1]
+    length = math.hypot(ux, uy)
+    if length == 0:
+        n = _frame(f)[1]
+        return float(n[0]), float(n[1])
+    nx, ny = uy / length, -ux / length
+    ang = math.degrees(math.atan2(ny, nx))
+    if ang < -1e-9 or ang >= 180.0 - 1e-9:  # as classify.canonical_normal
+        nx, ny = -nx, -ny
+    return nx, ny
+
+
+def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
+    """``f`` moved by each of ``offsets`` (k, 2) nm; ``f`` itself where the offset is 0.
+
+    The findings of a tile, reused for every tile with the same content.
+    """
+    nx, ny = _line_normal(f)
+    along = offsets @ np.array([nx, ny])
+    keys = np.asarray(f.line_keys, dtype=np.float64)
+    moved_keys = np.round(keys[None, :] + along[:, None], 1).tolist() if len(keys) else None
+    x0, y0, x1, y1 = f.bbox_nm
+    ox, oy = f.cut_origin_nm
+    out = []
+    for k, (dx, dy) in enumerate(offsets.tolist()):
+        if dx == 0 and dy == 0:
+            out.append(f)
+            continue
+        g = _copy(f)
+        _set(g, "bbox_nm", (x0 + dx, y0 + dy, x1 + dx, y1 + dy))
+        _set(g, "outline_nm", tuple((x + dx, y + dy) for x, y in f.outline_nm))
+        _set(g, "cut_origin_nm", (ox + dx, oy + dy))
+        if moved_keys is not None:
+            _set(g, "line_keys", tuple(moved_keys[k]))
+        out.append(g)
     return out
+
+
+def shift_finding(f: Finding, dx: float, dy: float) -> Finding:
+    """``f`` moved by (dx, dy) nm."""
+    return shifted_copies(f, np.array([[dx, dy]], dtype=np.float64))[0]
+
+
+class _Engine:
+    """Local worker processes, or a dask.distributed cluster, for the tile tasks."""
+
+    def __init__(self, path: str, jobs: int | None, scheduler: str | None, progress):
+        self.path, self.scheduler, self.progress = path, scheduler, progress
+        self.jobs = jobs or os.cpu_count() or 1
+        self.client = self.pool = None
+
+    def __enter__(self) -> _Engine:
+        if self.scheduler:
+            try:
+                from distributed import Client
+            except ImportError:
+                raise LayoutError("--scheduler needs dask.distributed: pip install "
+                                  "'pitchguard[cluster]'") from None  # fmt: skip
+            self.client = Client(self.scheduler)
+        else:
+            from concurrent.futures import ProcessPoolExecutor
+            from multiprocessing import get_context
+
+            self.pool = ProcessPoolExecutor(self.jobs, mp_context=get_context("fork"))
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self.client is not None:
+            self.client.close()
+        if self.pool is not None:
+            self.pool.shutdown(wait=True, cancel_futures=True)
+
+    @property
+    def workers(self) -> int:
+        if self.client is not None:
+            return max(1, len(self.client.scheduler_info().get("workers", {})))
+        return self.jobs
+
+    def map(self, fn, arglists: list[tuple], label: str) -> list:
+        if not arglists:
+            return []
+        if self.client is not None:
+            futures = [self.client.submit(fn, *a, pure=False) for a in arglists]
+            try:
+                return self.client.gather(futures)
+            except Exception as exc:  # a worker lost while reading: bad input
+                raise LayoutError(f"{self.path}: a tile failed on the cluster: "
+                                  f"{type(exc).__name__}: {exc}") from None  # fmt: skip
+        from concurrent.futures import as_completed
+        from concurrent.futures.process import BrokenProcessPool
+
+        out = [None] * len(arglists)
+        futs = {self.pool.submit(fn, *a): k for k, a in enumerate(arglists)}
+        try:
+            for done, fut in enumerate(as_completed(futs), 1):
+                out[futs[fut]] = fut.result()
+                if self.progress:
+                    self.progress(label, done, len(arglists))
+        except BrokenProcessPool:
+            raise LayoutError(f"{self.path}: the layout reader crashed in a tile worker: the "
+                              "file is corrupt") from None  # fmt: skip
+        return out
 
 
 def _sum_stats(deck: Deck, per_tile: list[list[LayerStats]]) -> list[LayerStats]:
@@ -237,8 +388,13 @@ def _touch(a: Finding, b: Finding, eps: float) -> bool:
     return True
 
 
-def merge_findings(findings: list[Finding], deck: Deck, grid_nm: float) -> list[Finding]:
-    """Merge findings of one region that tile borders cut apart."""
+def merge_findings(findings: list[Finding], deck: Deck, grid_nm: float,
+                   tile_of: list[int] | None = None) -> list[Finding]:  # fmt: skip
+    """Merge findings of one region that tile borders cut apart.
+
+    ``tile_of`` gives each finding's tile: findings of one tile are distinct
+    regions already and are merged only through parts in other tiles.
+    """
     n = len(findings)
     if n < 2:
         return list(findings)
@@ -250,32 +406,34 @@ def merge_findings(findings: list[Finding], deck: Deck, grid_nm: float) -> list[
             i = parent[i]
         return i
 
+    from pitchguard.extract import _query_pairs, _rtree
+
     scale = deck.scale_to_wafer
-    boxes = np.array([f.bbox_nm for f in findings])
+    boxes = np.array([f.bbox_nm for f in findings], dtype=np.float64)
     eps = 2.0 * grid_nm
-    order = np.argsort(boxes[:, 0])
-    for a_pos in range(n):
-        i = int(order[a_pos])
-        fi = findings[i]
+    lo, hi = boxes[:, :2] - eps, boxes[:, 2:] + eps
+    qi, qj = _query_pairs(_rtree(lo, hi), lo, hi)
+    keep = qi < qj
+    if tile_of is not None:
+        t = np.asarray(tile_of)
+        keep &= t[qi] != t[qj]
+    layer = np.array([f.layer for f in findings])
+    keep &= layer[qi] == layer[qj]
+    for i, j in zip(qi[keep].tolist(), qj[keep].tolist()):
+        fi, fj = findings[i], findings[j]
+        if find(i) == find(j):
+            continue
+        dang = abs(fi.orientation_deg - fj.orientation_deg) % 180.0
+        if min(dang, 180.0 - dang) >= ORIENTATION_TOL_DEG:
+            continue
         rule = deck.layer(fi.layer)
         tol = max(rule.pitch_tolerance_nm / scale, SNAP_PITCH_SPREAD * grid_nm)
-        for b_pos in range(a_pos + 1, n):
-            j = int(order[b_pos])
-            if boxes[j, 0] > boxes[i, 2] + eps:
-                break
-            fj = findings[j]
-            if fj.layer != fi.layer or boxes[j, 1] > boxes[i, 3] + eps \
-                    or boxes[i, 1] > boxes[j, 3] + eps:  # fmt: skip
-                continue
-            dang = abs(fi.orientation_deg - fj.orientation_deg) % 180.0
-            if min(dang, 180.0 - dang) >= ORIENTATION_TOL_DEG:
-                continue
-            pi, pj = fi.pitch_nm, fj.pitch_nm
-            if not (math.isinf(pi) or math.isinf(pj) or abs(pi - pj) <= tol
-                    or _overlap(fi, fj, tol)):  # fmt: skip
-                continue
-            if _touch(fi, fj, eps):
-                parent[find(i)] = find(j)
+        pi, pj = fi.pitch_nm, fj.pitch_nm
+        if not (math.isinf(pi) or math.isinf(pj) or abs(pi - pj) <= tol
+                or _overlap(fi, fj, tol)):  # fmt: skip
+            continue
+        if _touch(fi, fj, eps):
+            parent[find(i)] = find(j)
     groups: dict[int, list[Finding]] = {}
     for i in range(n):
         groups.setdefault(find(i), []).append(findings[i])

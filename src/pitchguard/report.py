@@ -150,6 +150,7 @@ def to_json(result: ScanResult, deck: Deck, fail_on: str) -> dict:
             "by_severity": severity_counts(result.findings),
             "by_layer": by_layer,
             "fail_on": fail_on,
+            "tiling": result.tiling,
             "exit_code": exit_code(result.findings, fail_on),
             "seconds": round(result.seconds, 3),
             "warnings": result.warnings,

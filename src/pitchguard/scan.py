@@ -45,6 +45,8 @@ class ScanResult:
     layout: Layout | None = None
     warnings: list[str] = field(default_factory=list)
     seconds: float = 0.0
+    # Tiled scans: {"tile_um", "tiles", "distinct", "workers"}; None for a whole scan.
+    tiling: dict | None = None
 
 
 def _in_region(ps: PolygonSet, region_nm, margin: float) -> PolygonSet:

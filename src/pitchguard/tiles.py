@@ -8,13 +8,15 @@ small window of a huge arrayed layout costs little.  It returns the same
 polygons a full flatten would give that intersect the window (by bounding
 box), in nm.
 
-This is the reading side of tiled scans (work in progress, see the project's
-issue on full-chip scale): a tile worker opens the file once, then answers
-one query per tile.
+This is the reading side of tiled scans: a tile worker opens the file once,
+then answers one query per tile.  :meth:`HierarchyQuery.content_key` tells,
+from the hierarchy alone, which tiles hold the same polygons (up to a
+shift), so a scan works out each distinct tile once.
 """
 
 from __future__ import annotations
 
+import hashlib
 import math
 from dataclasses import dataclass
 
@@ -68,6 +70,8 @@ class _CellData:
     polys: dict  # (layer, datatype) -> (PolygonSet, bboxes (n, 4))
     refs: list  # (child name, _Affine, offsets kind, data)
     bbox: Box | None = None
+    own_bbox: Box | None = None  # of the cell's own polygons (asked-for layers)
+    index: int = 0  # the cell's number in content keys
 
 
 class HierarchyQuery:
@@ -116,7 +120,12 @@ class HierarchyQuery:
                 offs = ("list", np.asarray(rep.get_offsets()) * self.scale)
             refs.append((child.name, aff, offs))
             self._load(child, by_name)
-        self.cells[cell.name] = _CellData(polys, refs)
+        own = [bb for _, bb in polys.values() if len(bb)]
+        own_bbox = None
+        if own:
+            a = np.concatenate(own)
+            own_bbox = (a[:, 0].min(), a[:, 1].min(), a[:, 2].max(), a[:, 3].max())
+        self.cells[cell.name] = _CellData(polys, refs, own_bbox=own_bbox, index=len(self.cells))
 
     def _bbox(self, name: str) -> Box | None:
         cd = self.cells[name]
@@ -163,6 +172,66 @@ class HierarchyQuery:
             self._visit(name, _Affine.identity(), window, out)
         return {ld: PolygonSet.from_arrays(v) for ld, v in out.items()}
 
+    def content_key(self, window: Box, origin: tuple[float, float]) -> bytes:
+        """A digest of what :meth:`query` would return for ``window``, relative to ``origin``.
+
+        Built from the hierarchy alone, without touching a polygon: the
+        placements (cell, orientation, position relative to ``origin``) of
+        every cell whose own polygons may meet the window.  Two windows of
+        one size with equal keys hold the same polygons, shifted by the
+        difference of their origins; so a tile's findings can be reused,
+        shifted, for every tile with its key.  (Equal content can still get
+        different keys, e.g. the same polygons drawn in different cells:
+        that only costs a missed reuse.)
+        """
+        rows: list[np.ndarray] = []
+        for name in self.tops:
+            self._placements(name, _Affine.identity(), window, rows)
+        size = np.array([window[2] - window[0], window[3] - window[1]])
+        h = hashlib.blake2b(np.round(size, 3).tobytes(), digest_size=20)
+        if rows:
+            a = np.concatenate(rows)
+            a[:, 5] -= origin[0]
+            a[:, 6] -= origin[1]
+            a[:, 1:5] = np.round(a[:, 1:5], 9)
+            a[:, 5:] = np.round(a[:, 5:], 3)
+            a += 0.0  # no negative zeros
+            a = a[np.lexsort(a.T[::-1])]
+            h.update(a.tobytes())
+        return h.digest()
+
+    def _placements(self, name: str, aff: _Affine, window: Box, rows) -> None:
+        """Rows (cell, m00, m01, m10, m11, x, y) of placements whose polygons may meet ``window``."""
+        cd = self.cells[name]
+        if cd.bbox is None or not _hits(aff.box(cd.bbox), window):
+            return
+        if cd.own_bbox is not None and _hits(aff.box(cd.own_bbox), window):
+            rows.append(np.array([[cd.index, *aff.m.ravel(), *aff.t]]))
+        for child, ref_aff, offs in cd.refs:
+            ccd = self.cells[child]
+            if ccd.bbox is None:
+                continue
+            placed = aff.then(ref_aff)
+            o = self._offsets_in(offs, aff, np.array(placed.box(ccd.bbox)), window)
+            if not len(o):
+                continue
+            if not ccd.refs:  # a leaf: its placements at once
+                if ccd.own_bbox is None:
+                    continue
+                ob = np.array(placed.box(ccd.own_bbox))
+                keep = (ob[0] + o[:, 0] <= window[2]) & (ob[2] + o[:, 0] >= window[0]) & \
+                    (ob[1] + o[:, 1] <= window[3]) & (ob[3] + o[:, 1] >= window[1])  # fmt: skip
+                o = o[keep]
+                if len(o):
+                    r = np.empty((len(o), 7))
+                    r[:, 0] = ccd.index
+                    r[:, 1:5] = placed.m.ravel()
+                    r[:, 5:] = placed.t + o
+                    rows.append(r)
+                continue
+            for off in o:
+                self._placements(child, _Affine(placed.m, placed.t + off), window, rows)
+
     def _visit(self, name: str, aff: _Affine, window: Box, out) -> None:
         cd = self.cells[name]
         if cd.bbox is None or not _hits(aff.box(cd.bbox), window):
@@ -192,13 +261,13 @@ class HierarchyQuery:
         """Instance offsets (in the query frame) whose box intersects the window."""
         kind, data = offs
         if kind == "one":
-            return [np.zeros(2)] if _hits(tuple(base), window) else []
+            return np.zeros((1, 2)) if _hits(tuple(base), window) else np.zeros((0, 2))
         if kind == "list":
-            o = np.asarray(data) @ aff.m.T
+            o = np.asarray(data, dtype=np.float64).reshape(-1, 2) @ aff.m.T
             b = base[None, :] + np.hstack([o, o])
             keep = (b[:, 0] <= window[2]) & (b[:, 2] >= window[0]) & \
                 (b[:, 1] <= window[3]) & (b[:, 3] >= window[1])  # fmt: skip
-            return list(o[keep])
+            return o[keep]
         cols, rows, v1, v2 = data
         a1, a2 = aff.m @ v1, aff.m @ v2
         # Lattice coordinates (i, j) of the window's corners, widened by the
@@ -221,11 +290,9 @@ class HierarchyQuery:
             j0 = max(0, int(math.floor(ij[:, 1].min())))
             j1 = min(rows - 1, int(math.ceil(ij[:, 1].max())))
             i_rng, j_rng = range(i0, i1 + 1), range(j0, j1 + 1)
-        out = []
-        for i in i_rng:
-            for j in j_rng:
-                o = i * a1 + j * a2
-                b = base + np.array([o[0], o[1], o[0], o[1]])
-                if _hits(tuple(b), window):
-                    out.append(o)
-        return out
+        ii, jj = np.meshgrid(np.asarray(i_rng, dtype=np.float64),
+                             np.asarray(j_rng, dtype=np.float64), indexing="ij")  # fmt: skip
+        o = ii.reshape(-1, 1) * a1 + jj.reshape(-1, 1) * a2
+        keep = (base[0] + o[:, 0] <= window[2]) & (base[2] + o[:, 0] >= window[0]) & \
+            (base[1] + o[:, 1] <= window[3]) & (base[3] + o[:, 1] >= window[1])  # fmt: skip
+        return o[keep]

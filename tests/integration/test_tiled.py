@@ -75,3 +75,26 @@ def test_cli_jobs_and_scheduler_options(tmp_path, capsys):
     code, _, err = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "--jobs", "2",
                            "--region", "0,0,5,5")  # fmt: skip
     assert code == 2 and "--region cannot be combined" in err
+
+
+def test_repeated_tiles_are_scanned_once_and_give_the_same_findings(tmp_path):
+    """A 160 x 160 um array of 10 um line-array cells: most 10 um tiles hold the same
+    polygons up to a shift, so only a few distinct tiles are scanned; the findings
+    (shifted copies merged across borders) equal those of the whole-layout scan and
+    of a tiled scan without reuse."""
+    lib = gdstk.Library()
+    cell = line_array_cell(lib, "L100", (7, 0), 100, 50, 100, 9_800)  # 100 lines, 10 um
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Reference(cell, (0, 0), columns=16, rows=16, spacing=(10.0, 10.0)))
+    path = tmp_path / "repeat.oas"
+    lib.write_oas(str(path))
+    deck = parse_deck(DRY_ARF_DECK)
+    whole = scan_layout(path, deck)
+    reused = scan_tiled(path, deck, tile_um=10, jobs=2)
+    plain = scan_tiled(path, deck, tile_um=10, jobs=2, reuse=False)
+    assert whole.findings  # the 100 nm pitch is flagged on this dry ArF deck
+    _same(whole, reused)
+    _same(whole, plain)
+    assert reused.tiling["tiles"] == 16 * 16  # one tile per cell (the extent ends at 159.95 um)
+    assert reused.tiling["distinct"] <= 16  # corner, edge and interior kinds
+    assert plain.tiling["distinct"] == plain.tiling["tiles"]

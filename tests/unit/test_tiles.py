@@ -92,3 +92,56 @@ def test_small_window_of_a_huge_array_is_cheap_and_exact(tmp_path):
     got = q.query((x, x, x + 1000.0, x + 1000.0))[(7, 0)]
     assert len(got) == 11 * 11
     assert q.bounding_box() == pytest.approx((0.0, 0.0, 9_999_950.0, 9_999_950.0))
+
+
+def _shifted(polys, dx, dy):
+    return sorted(tuple(np.round(np.sort(p - (dx, dy), axis=0).ravel(), 3)) for p in polys)
+
+
+@pytest.mark.parametrize("fmt", ["gds", "oas"])
+def test_equal_content_keys_mean_equal_polygons_up_to_the_shift(tmp_path, fmt):
+    """The reuse contract of tiled scans: windows of one size with equal keys return
+    the same polygons, moved by the difference of their origins.  Checked on every
+    pair of equal keys among a grid of windows (the reference is the query itself,
+    which the test above checks against gdstk's flatten)."""
+    lib = _library(tmp_path, fmt)
+    # Add a plain array whose pitch divides the window grid, so keys do repeat.
+    leaf = next(c for c in lib.cells if c.name == "LEAF")
+    top = lib.new_cell("TOP2")
+    top.add(gdstk.Reference(leaf, (100, -100), columns=40, rows=40, spacing=(2.5, 5.0)))
+    tops = lib.top_level()
+    q = HierarchyQuery(lib, tops, LAYERS, NM_PER_UM)
+    x0, y0, x1, y1 = q.bounding_box()
+    size, halo = 10_000.0, 700.0
+    seen: dict[bytes, tuple] = {}
+    repeats = 0
+    for i in range(math.floor(x0 / size), math.floor(x1 / size) + 1):
+        for j in range(math.floor(y0 / size), math.floor(y1 / size) + 1):
+            ox, oy = i * size, j * size
+            win = (ox - halo, oy - halo, ox + size + halo, oy + size + halo)
+            key = q.content_key(win, (ox, oy))
+            got = q.query(win)
+            if key not in seen:
+                seen[key] = (ox, oy, got)
+                continue
+            repeats += 1
+            rx, ry, ref = seen[key]
+            for ld in LAYERS:
+                assert _shifted(list(got[ld]), ox, oy) == _shifted(list(ref[ld]), rx, ry)
+    assert repeats > 50  # the array's interior windows repeat ...
+    assert len(seen) > 20  # ... and the rest of the layout does not
+
+
+def test_content_key_sees_a_one_nm_move_and_a_rotation(tmp_path):
+    lib = gdstk.Library()
+    leaf = lib.new_cell("L")
+    leaf.add(gdstk.rectangle((0, 0), (0.05, 1), layer=7))
+    top = lib.new_cell("T")
+    top.add(gdstk.Reference(leaf, (1, 1)))
+    top.add(gdstk.Reference(leaf, (21.001, 1)))  # 1 nm off the 20 um shift
+    top.add(gdstk.Reference(leaf, (41, 1), rotation=math.pi))
+    top.add(gdstk.Reference(leaf, (61, 1)))  # exactly the 60 um shift of the first
+    q = HierarchyQuery(lib, [top], [(7, 0)], NM_PER_UM)
+    keys = [q.content_key((x, 0, x + 20_000, 20_000), (x, 0)) for x in (0, 20_000, 40_000, 60_000)]
+    assert keys[0] == keys[3]
+    assert len({keys[0], keys[1], keys[2]}) == 3
