@@ -215,7 +215,7 @@ def _assemble(results, groups: dict, tiles, deck: Deck, grid_nm: float):
     border_tile: list[int] = []
     per_tile_stats = []
     eps = 2.0 * grid_nm
-    for (fs, stats), members in zip(results, groups.values()):
+    for (fs, stats), members in zip(results, groups.values(), strict=True):
         tx0, ty0, tx1, ty1 = tiles[members[0]]
         offsets = np.array([tiles[k][:2] for k in members], dtype=np.float64) - (tx0, ty0)
         for f in fs:
@@ -238,7 +238,7 @@ _set = object.__setattr__  # findings are frozen; only fresh copies made here ar
 def _copy(f: Finding) -> Finding:
     """A shallow copy (``copy.copy`` goes through pickling hooks: 20x slower)."""
     g = object.__new__(Finding)
-    for name, value in zip(_FIELDS, _get_fields(f)):
+    for name, value in zip(_FIELDS, _get_fields(f), strict=True):
         _set(g, name, value)
     return g
 
@@ -419,7 +419,7 @@ def merge_findings(findings: list[Finding], deck: Deck, grid_nm: float,
         keep &= t[qi] != t[qj]
     layer = np.array([f.layer for f in findings])
     keep &= layer[qi] == layer[qj]
-    for i, j in zip(qi[keep].tolist(), qj[keep].tolist()):
+    for i, j in zip(qi[keep].tolist(), qj[keep].tolist(), strict=True):
         fi, fj = findings[i], findings[j]
         if find(i) == find(j):
             continue

@@ -201,7 +201,7 @@ class HierarchyQuery:
         return h.digest()
 
     def _placements(self, name: str, aff: _Affine, window: Box, rows) -> None:
-        """Rows (cell, m00, m01, m10, m11, x, y) of placements whose polygons may meet ``window``."""
+        """Rows (cell, m00, m01, m10, m11, x, y): placements whose polygons may meet ``window``."""
         cd = self.cells[name]
         if cd.bbox is None or not _hits(aff.box(cd.bbox), window):
             return
