@@ -84,12 +84,6 @@ def build_parser() -> argparse.ArgumentParser:
                       help="rule deck (TOML)")  # fmt: skip
     scan.add_argument("--region", type=_region, metavar="X0,Y0,X1,Y1",
                       help="scan only sites inside this window (µm, as drawn)")  # fmt: skip
-    scan.add_argument("--jobs", "-j", type=_positive_int, default=None, metavar="N",
-                      help="scan in tiles on N local worker processes")  # fmt: skip
-    scan.add_argument("--tile-um", type=_positive_float, default=None, metavar="UM",
-                      help="tile size for tiled scans (default 100, a multiple of 10)")
-    scan.add_argument("--scheduler", metavar="ADDRESS",
-                      help="run the tiles on this dask.distributed scheduler")  # fmt: skip
     scan.add_argument("--baseline", type=Path, metavar="PATH",
                       help="accepted findings: report and fail only on new ones")  # fmt: skip
     scan.add_argument("--write-baseline", type=Path, metavar="PATH",
@@ -178,10 +172,22 @@ def _add_outputs(p) -> None:
                    help="worst regions listed in the terminal (default: 20)")  # fmt: skip
     p.add_argument(
         "--max-shapes", type=_positive_int, default=None, metavar="N",
-        help="refuse layouts that flatten to more shapes (default: 20 million)",
+        help="refuse layouts that flatten to more shapes (default: 2 billion tiled, "
+        "20 million --untiled)",
     )  # fmt: skip
     p.add_argument("--read-timeout", type=_positive_float, default=None, metavar="S",
                    help="stop reading a layout after S seconds (default: 3600)")  # fmt: skip
+    p.add_argument("--jobs", "-j", type=_positive_int, default=None, metavar="N",
+                   help="local worker processes for the tiles (default: all cores)")
+    p.add_argument("--tile-um", type=_positive_float, default=None, metavar="UM",
+                   help="tile size, a multiple of 10 (default: from --max-memory-mb)")
+    p.add_argument("--max-memory-mb", type=_positive_int, default=None, metavar="MB",
+                   help="memory for the scan's processes together; picks the tile size "
+                   "and may use fewer workers (default: 2048 per worker)")  # fmt: skip
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="run the tiles on this dask.distributed scheduler")  # fmt: skip
+    p.add_argument("--untiled", action="store_true",
+                   help="flatten the layout and scan it in this one process")  # fmt: skip
     p.add_argument("--quiet", "-q", action="store_true",
                    help="print only the one-line summary")  # fmt: skip
     p.add_argument("--debug", action="store_true", help="show tracebacks")
@@ -217,19 +223,22 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
         def update(stage, done, total):  # noqa: F811 - labelled wrapper
             inner(f"{label} {stage}", done, total)
 
-    tiled = any(getattr(args, k, None) for k in ("jobs", "tile_um", "scheduler"))
-    if tiled and getattr(args, "region", None):
-        raise PitchguardError("--region cannot be combined with tiled scans (--jobs, "
-                              "--tile-um, --scheduler)")  # fmt: skip
+    tiled = not args.untiled
+    if not tiled and (args.jobs or args.tile_um or args.scheduler or args.max_memory_mb):
+        raise PitchguardError("--untiled cannot be combined with --jobs, --tile-um, "
+                              "--max-memory-mb or --scheduler")  # fmt: skip
     try:
         if bar:
             bar.start()
         if tiled:
-            from pitchguard.parallel import DEFAULT_TILE_UM, scan_tiled
+            from pitchguard.parallel import DEFAULT_TILED_MAX_SHAPES, scan_tiled
 
-            return scan_tiled(layout, deck, tile_um=args.tile_um or DEFAULT_TILE_UM,
-                              jobs=args.jobs, scheduler=args.scheduler, cell=args.cell,
-                              progress=update)  # fmt: skip
+            return scan_tiled(
+                layout, deck, tile_um=args.tile_um, jobs=args.jobs, scheduler=args.scheduler,
+                cell=args.cell, progress=update, region_um=getattr(args, "region", None),
+                max_shapes=args.max_shapes or DEFAULT_TILED_MAX_SHAPES,
+                read_timeout_s=args.read_timeout, max_memory_mb=args.max_memory_mb,
+            )  # fmt: skip
         return scan_layout(
             layout, deck, cell=args.cell, region_um=getattr(args, "region", None),
             max_shapes=args.max_shapes or DEFAULT_MAX_SHAPES, progress=update,
@@ -260,7 +269,10 @@ def _write_outputs(args, result, deck, inputs, extra_json: dict | None = None) -
         write_junit(args.junit, result, deck, args.fail_on, inputs)
     if args.html is not None:
         from pitchguard.html_report import write_html
+        from pitchguard.parallel import add_clip_geometry
 
+        if result.tiling is not None:  # tiled scans keep no geometry: read the pictures' part
+            result = add_clip_geometry(result, deck, args.cell, timeout_s=args.read_timeout)
         write_html(args.html, result, deck, inputs, args.fail_on)
 
 

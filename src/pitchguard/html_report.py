@@ -996,6 +996,31 @@ CAVEATS = (
 )
 
 
+def picture_windows(result: ScanResult, deck: Deck, max_groups: int = 500) -> list[tuple]:
+    """Layout windows (nm) the pictures of :func:`render_html` can show.
+
+    For scans that kept no geometry (tiled scans): the caller reads these
+    windows back from the layout before rendering.
+    """
+    scale = deck.scale_to_wafer
+    rules = {r.name: r for r in deck.layers}
+    out = []
+    for g in group_findings(result.findings)[: max(0, max_groups)]:
+        f = g.first
+        rule = rules.get(f.layer)
+        if rule is None:
+            continue
+        ambit = rule.ambit_nm / scale
+        limit = MAX_VIEW_AMBITS * ambit
+        x0, y0, x1, y1 = f.bbox_nm
+        ox, oy = f.cut_origin_nm
+        if not (math.isfinite(ox) and math.isfinite(oy)):
+            ox, oy = (x0 + x1) / 2, (y0 + y1) / 2
+        out.append((max(x0 - limit, ox - limit), max(y0 - limit, oy - limit),
+                    min(x1 + limit, ox + limit), min(y1 + limit, oy + limit)))  # fmt: skip
+    return out
+
+
 def render_html(result: ScanResult, deck: Deck, fail_on: str, max_groups: int = 500) -> str:
     """The whole page as text."""
     groups = group_findings(result.findings)

@@ -325,22 +325,71 @@ READ_TIMEOUT_S = 3600.0
 """A reader child that runs longer than this is stopped (a hung parse)."""
 
 
-def _read_child(conn, args, kwargs) -> None:  # runs in the child process
+def _child(conn, fn, args, path) -> None:  # runs in the child process
     import faulthandler
 
     faulthandler.disable()  # a crash here is expected and reported by the parent
     try:
-        warnings: list[str] = []
-        layout = read_layout(*args, warnings=warnings, **kwargs)
-        conn.send(("ok", layout, warnings))
+        conn.send(("ok", fn(*args)))
     except LayoutError as exc:
-        conn.send(("error", str(exc), None))
+        conn.send(("error", str(exc)))
     except MemoryError:
-        conn.send(("error", f"{args[0]}: out of memory while reading the layout", None))
+        conn.send(("error", f"{path}: out of memory while reading the layout"))
     except Exception as exc:  # noqa: BLE001 - any reader failure is a bad-input error here
-        conn.send(("error", f"{args[0]}: cannot read layout: {type(exc).__name__}: {exc}", None))
+        conn.send(("error", f"{path}: cannot read layout: {type(exc).__name__}: {exc}"))
     finally:
         conn.close()
+
+
+def run_isolated(fn, args: tuple, path: Path, what: str, timeout_s: float = READ_TIMEOUT_S):
+    """``fn(*args)`` in a forked child process; its result, or a :class:`LayoutError`.
+
+    For work that parses ``path`` with the layout library, which can die by a
+    signal on corrupt files or hang: a crash, an exception, or running over
+    ``timeout_s`` becomes one clear error naming the file and ``what`` was
+    being done.  The result must pickle.
+    """
+    import multiprocessing as mp
+    import signal
+
+    ctx = mp.get_context("fork")
+    recv, send = ctx.Pipe(duplex=False)
+    child = ctx.Process(target=_child, args=(send, fn, args, path))
+    child.start()
+    send.close()
+    try:
+        if not recv.poll(timeout_s):
+            raise LayoutError(f"{path}: {what} took over {timeout_s:.0f} s; stopped")
+        try:
+            status, payload = recv.recv()
+        except EOFError:
+            child.join()
+            code = child.exitcode
+            if code is not None and code < 0:
+                try:
+                    name = signal.Signals(-code).name
+                except ValueError:
+                    name = f"signal {-code}"
+                raise LayoutError(
+                    f"{path}: the layout reader crashed ({name}) while {what}: the file is "
+                    "corrupt or not a valid GDSII/OASIS file"
+                ) from None
+            raise LayoutError(f"{path}: the layout reader stopped unexpectedly (exit {code})") \
+                from None  # fmt: skip
+    finally:
+        if child.is_alive():
+            child.kill()
+        child.join()
+        recv.close()
+    if status != "ok":
+        raise LayoutError(payload)
+    return payload
+
+
+def _read_with_warnings(path, layers, cell, max_shapes):
+    warnings: list[str] = []
+    layout = read_layout(path, layers, cell=cell, max_shapes=max_shapes, warnings=warnings)
+    return layout, warnings
 
 
 def read_layout_isolated(
@@ -358,44 +407,12 @@ def read_layout_isolated(
     The child parses the file and ships back packed numpy arrays; its memory
     (the library's objects) is released when it exits.
     """
-    import multiprocessing as mp
-    import signal
-
     p = Path(path)
     sniff_format(p)  # quick, clear errors for missing/non-layout files, in this process
-    ctx = mp.get_context("fork")
-    recv, send = ctx.Pipe(duplex=False)
-    child = ctx.Process(
-        target=_read_child, args=(send, (p, list(layers)), {"cell": cell, "max_shapes": max_shapes})
-    )
-    child.start()
-    send.close()
-    try:
-        if not recv.poll(timeout_s):
-            raise LayoutError(f"{p}: reading the layout took over {timeout_s:.0f} s; stopped")
-        try:
-            status, payload, child_warnings = recv.recv()
-        except EOFError:
-            child.join()
-            code = child.exitcode
-            if code is not None and code < 0:
-                try:
-                    name = signal.Signals(-code).name
-                except ValueError:
-                    name = f"signal {-code}"
-                raise LayoutError(
-                    f"{p}: the layout reader crashed ({name}) while parsing and flattening the "
-                    "file: it is corrupt or not a valid GDSII/OASIS file"
-                ) from None
-            raise LayoutError(f"{p}: the layout reader stopped unexpectedly (exit {code})") \
-                from None  # fmt: skip
-    finally:
-        if child.is_alive():
-            child.kill()
-        child.join()
-        recv.close()
-    if status != "ok":
-        raise LayoutError(payload)
+    layout, child_warnings = run_isolated(
+        _read_with_warnings, (p, list(layers), cell, max_shapes), p,
+        "parsing and flattening the file", timeout_s,
+    )  # fmt: skip
     if warnings is not None:
-        warnings.extend(child_warnings or [])
-    return payload
+        warnings.extend(child_warnings)
+    return layout

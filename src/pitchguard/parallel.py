@@ -14,6 +14,7 @@ findings' line positions.
 
 from __future__ import annotations
 
+import functools
 import gc
 import math
 import operator
@@ -35,10 +36,13 @@ from pitchguard.classify import (
 from pitchguard.deck import Deck, parse_deck
 from pitchguard.errors import LayoutError
 from pitchguard.extract import SITE_CELL_NM, ExtractStats
-from pitchguard.layout import Layout
+from pitchguard.layout import Layout, PolygonSet
 from pitchguard.scan import LayerStats, ScanResult, scan_polygons
 
-DEFAULT_TILE_UM = 100.0
+DEFAULT_TILED_MAX_SHAPES = 2_000_000_000
+"""Tiled scans hold one tile at a time per worker, so they accept far larger
+layouts than a flattening scan; the limit still refuses absurd arrays (a
+10^5 x 10^5 array is 10^10 shapes) before any work is done."""
 
 
 @dataclass(frozen=True)
@@ -50,6 +54,7 @@ class Structure:
     cells: tuple[str, ...]
     extent_nm: tuple[float, float, float, float] | None
     fmt: str
+    shapes: int = 0  # flat shapes on the deck layers, counted from the hierarchy
 
 
 # --------------------------------------------------------------------------- worker side
@@ -74,8 +79,25 @@ def _open(path: str, cell: str | None, layers):
     return q, st
 
 
-def structure_task(path: str, cell: str | None, layers) -> Structure:
-    return _open(path, cell, layers)[1]
+@functools.lru_cache(maxsize=4)
+def _deck(text: str) -> Deck:
+    """The deck, parsed once per worker process."""
+    return parse_deck(text)
+
+
+def structure_task(path: str, cell: str | None, layers, max_shapes: int) -> Structure:
+    """Open the layout, count its flat shapes from the hierarchy and refuse too many."""
+    from pitchguard.layout import _count_shapes, open_layout
+
+    lib, _, tops = open_layout(Path(path), set(layers), cell)
+    memo: dict = {}
+    total = sum(_count_shapes(c, set(layers), memo) for c in tops)
+    if total > max_shapes:
+        raise LayoutError(
+            f"{path}: deck layers flatten to {total:,} shapes, over the limit of "
+            f"{max_shapes:,} (raise --max-shapes or scan a --region)"
+        )  # fmt: skip
+    return replace(_open(path, cell, layers)[1], shapes=total)
 
 
 def keys_task(path: str, cell: str | None, layers, tiles, halo: float) -> list[bytes]:
@@ -84,7 +106,10 @@ def keys_task(path: str, cell: str | None, layers, tiles, halo: float) -> list[b
 
     faulthandler.disable()
     q, _ = _open(path, cell, layers)
-    return [q.content_key((x0 - halo, y0 - halo, x1 + halo, y1 + halo), (x0, y0))
+    # Site pieces are cut on a global grid (extract.SITE_CELL_NM): tiles can
+    # stand in for each other only at the same phase of that grid.
+    return [(q.content_key((x0 - halo, y0 - halo, x1 + halo, y1 + halo), (x0, y0)),
+             round(x0 % SITE_CELL_NM, 3), round(y0 % SITE_CELL_NM, 3))
             for x0, y0, x1, y1 in tiles]  # fmt: skip
 
 
@@ -93,7 +118,7 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float):
     import faulthandler
 
     faulthandler.disable()
-    deck = parse_deck(deck_text)
+    deck = _deck(deck_text)
     layers = [(r.layer, r.datatype) for r in deck.layers]
     q, st = _open(path, cell, layers)
     x0, y0, x1, y1 = tile
@@ -106,6 +131,39 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float):
     return findings, stats
 
 
+def clips_task(path: str, cell: str | None, layers, grid_nm: float, windows):
+    """Polygons (nm, on the grid) meeting any of ``windows``, per layer, each once."""
+    q, _ = _open(path, cell, layers)
+    found: dict = {ld: {} for ld in layers}
+    for w in windows:
+        for ld, ps in q.query(tuple(w)).items():
+            for pts in ps:
+                pts = np.round(pts / grid_nm) * grid_nm
+                found[ld].setdefault(pts.tobytes(), pts)
+    return {ld: PolygonSet.from_arrays(v.values()) for ld, v in found.items()}
+
+
+def add_clip_geometry(result: ScanResult, deck: Deck, cell: str | None = None,
+                      max_groups: int = 500, timeout_s: float | None = None) -> ScanResult:  # fmt: skip
+    """Read back, in a child process, the layout around the findings a report draws.
+
+    A tiled scan keeps no geometry; the HTML report's pictures need the
+    neighbourhood of each drawn finding, which is a small part of the chip.
+    """
+    from pitchguard.html_report import picture_windows
+    from pitchguard.layout import READ_TIMEOUT_S, run_isolated
+
+    lay = result.layout
+    if lay is None or lay.layers:
+        return result
+    windows = picture_windows(result, deck, max_groups)
+    layers = [(r.layer, r.datatype) for r in deck.layers]
+    clips = run_isolated(clips_task, (str(lay.path), cell, layers, lay.grid_nm, windows),
+                         lay.path, "reading the geometry around the findings",
+                         timeout_s or READ_TIMEOUT_S) if windows else {}  # fmt: skip
+    return replace(result, layout=replace(lay, layers=clips))
+
+
 # --------------------------------------------------------------------------- driver
 
 
@@ -114,39 +172,127 @@ def _halo(deck: Deck) -> float:
     return max((2 * r.ambit_nm + r.min_run_nm) / scale for r in deck.layers)
 
 
-def tiles_for(extent, tile_nm: float):
-    """Tiles covering ``extent``, aligned to multiples of ``tile_nm``."""
+def tiles_for(extent, tile_nm: float, region=None):
+    """Tiles covering ``extent``, aligned to multiples of ``tile_nm``, clipped to ``region``."""
     x0, y0, x1, y1 = extent
+    if region is not None:
+        x0, y0 = max(x0, region[0]), max(y0, region[1])
+        x1, y1 = min(x1, region[2]), min(y1, region[3])
+        if x0 > x1 or y0 > y1:
+            return []
     i0, i1 = math.floor(x0 / tile_nm), math.floor(x1 / tile_nm)
     j0, j1 = math.floor(y0 / tile_nm), math.floor(y1 / tile_nm)
-    return [(i * tile_nm, j * tile_nm, (i + 1) * tile_nm, (j + 1) * tile_nm)
-            for j in range(j0, j1 + 1) for i in range(i0, i1 + 1)]  # fmt: skip
+    tiles = [(i * tile_nm, j * tile_nm, (i + 1) * tile_nm, (j + 1) * tile_nm)
+             for j in range(j0, j1 + 1) for i in range(i0, i1 + 1)]  # fmt: skip
+    if region is None:
+        return tiles
+    rx0, ry0, rx1, ry1 = region
+    return [(max(a, rx0), max(b, ry0), min(c, rx1), min(d, ry1)) for a, b, c, d in tiles]
 
 
-def _guarded_structure(path: Path, cell, layers) -> Structure:
-    """The first read, in a child process: a reader crash becomes a LayoutError."""
-    from concurrent.futures import ProcessPoolExecutor
-    from concurrent.futures.process import BrokenProcessPool
-    from multiprocessing import get_context
+# Memory model of a scan (measured with tests/bench_scale.py, see DEVELOPERS.md):
+# a worker holds the opened file and one tile; the parent holds the findings.
+WORKER_BASE_MB = 150.0
+PARENT_BASE_MB = 300.0
+KB_PER_TILE_SHAPE = 8.0
+DENSITY_MARGIN = 4.0
+"""Shapes are rarely spread evenly: a tile is planned for this many times the
+layout's mean shape density."""
+MAX_AUTO_TILE_UM = 50.0
+SMALL_LAYOUT_SHAPES = 20_000
 
-    with ProcessPoolExecutor(1, mp_context=get_context("fork")) as ex:
-        try:
-            return ex.submit(structure_task, str(path), cell, layers).result()
-        except BrokenProcessPool:
-            raise LayoutError(
-                f"{path}: the layout reader crashed while opening the file: it is corrupt"
-            ) from None
+
+def plan_tiles(st: Structure, halo_nm: float, jobs: int, max_memory_mb: float | None,
+               tile_um: float | None, distributed: bool = False) -> tuple[float, int]:  # fmt: skip
+    """Tile size (nm) and local worker count for a memory cap (MB, all processes).
+
+    Without a cap each worker may use about 2 GB.  With one, the parent's share
+    is set aside and the rest split between the workers; workers are dropped
+    while even the smallest tile does not fit.
+    """
+    if st.extent_nm:
+        x0, y0, x1, y1 = st.extent_nm
+        area = max((x1 - x0) * (y1 - y0), 1.0)
+        density = DENSITY_MARGIN * st.shapes / area  # shapes per nm^2
+    else:
+        density = 0.0
+
+    def worker_mb(t_nm: float) -> float:
+        return WORKER_BASE_MB + KB_PER_TILE_SHAPE / 1024.0 * density * (t_nm + 2 * halo_nm) ** 2
+
+    if max_memory_mb is None:
+        per_worker = 2048.0
+    else:
+        n = 1 if distributed else jobs
+        while n > 1 and PARENT_BASE_MB + n * worker_mb(SITE_CELL_NM) > max_memory_mb:
+            n -= 1
+        per_worker = (max_memory_mb - (0 if distributed else PARENT_BASE_MB)) / n
+        if per_worker < worker_mb(SITE_CELL_NM):
+            need = PARENT_BASE_MB + worker_mb(SITE_CELL_NM)
+            raise LayoutError(f"--max-memory-mb {max_memory_mb:g} is too small for this layout: "
+                              f"a scan needs about {math.ceil(need)} MB or more")  # fmt: skip
+        jobs = n
+    if tile_um is not None:
+        t = max(SITE_CELL_NM, math.ceil(tile_um * 1000.0 / SITE_CELL_NM) * SITE_CELL_NM)
+        return t, jobs
+    if st.extent_nm and st.shapes <= SMALL_LAYOUT_SHAPES:
+        # Small layouts: one tile (up to four, by alignment) is fastest, and a
+        # sparse layout of huge extent does not turn into millions of tiles.
+        x0, y0, x1, y1 = st.extent_nm
+        side = max(x1 - x0, y1 - y0, SITE_CELL_NM)
+        return math.ceil(side / SITE_CELL_NM) * SITE_CELL_NM, jobs
+    t = SITE_CELL_NM
+    while t + SITE_CELL_NM <= MAX_AUTO_TILE_UM * 1000.0 \
+            and worker_mb(t + SITE_CELL_NM) <= per_worker:  # fmt: skip
+        t += SITE_CELL_NM
+    return t, jobs
+
+
+MAX_TILES = 2_000_000
+"""More tiles than this means coordinates far out of any mask's range (a corrupt
+file) or a tile size far too small for the chip: refused before any work."""
+
+
+def _check_tile_count(path, extent, region, tile_nm: float) -> None:
+    if not extent:
+        return
+    x0, y0, x1, y1 = extent
+    if region is not None:
+        x0, y0 = max(x0, region[0]), max(y0, region[1])
+        x1, y1 = min(x1, region[2]), min(y1, region[3])
+    if not all(math.isfinite(v) for v in (x0, y0, x1, y1)):
+        raise LayoutError(f"{path}: coordinates are not finite numbers")
+    n = (math.floor(x1 / tile_nm) - math.floor(x0 / tile_nm) + 1) * \
+        (math.floor(y1 / tile_nm) - math.floor(y0 / tile_nm) + 1)  # fmt: skip
+    if n > MAX_TILES:
+        raise LayoutError(
+            f"{path}: the layout spans {(x1 - x0) / 1e6:,.1f} x {(y1 - y0) / 1e6:,.1f} mm, "
+            f"{n:,} tiles of {tile_nm / 1000:g} um (limit {MAX_TILES:,}): coordinates out of "
+            "range, or use a larger --tile-um or a --region"
+        )  # fmt: skip
+
+
+def _guarded_structure(path: Path, cell, layers, max_shapes: int, timeout_s: float) -> Structure:
+    """The first read, in a child process: a reader crash or hang becomes a LayoutError."""
+    from pitchguard.layout import run_isolated
+
+    return run_isolated(structure_task, (str(path), cell, layers, max_shapes), path,
+                        "reading the file's structure", timeout_s)  # fmt: skip
 
 
 def scan_tiled(
     path: str | Path,
     deck: Deck,
-    tile_um: float = DEFAULT_TILE_UM,
+    tile_um: float | None = None,
     jobs: int | None = None,
     scheduler: str | None = None,
     cell: str | None = None,
     progress=None,
     reuse: bool = True,
+    region_um: tuple[float, float, float, float] | None = None,
+    max_shapes: int = DEFAULT_TILED_MAX_SHAPES,
+    read_timeout_s: float | None = None,
+    max_memory_mb: float | None = None,
 ) -> ScanResult:
     """Scan ``path`` tile by tile on local worker processes or a dask cluster.
 
@@ -156,16 +302,19 @@ def scan_tiled(
     """
     import time
 
-    from pitchguard.layout import sniff_format
+    from pitchguard.layout import READ_TIMEOUT_S, sniff_format
 
     t0 = time.perf_counter()
     p = Path(path)
     sniff_format(p)
     layers = [(r.layer, r.datatype) for r in deck.layers]
-    st = _guarded_structure(p, cell, layers)
-    tile_nm = max(SITE_CELL_NM, math.ceil(tile_um * 1000.0 / SITE_CELL_NM) * SITE_CELL_NM)
-    tiles = tiles_for(st.extent_nm, tile_nm) if st.extent_nm else []
+    st = _guarded_structure(p, cell, layers, max_shapes, read_timeout_s or READ_TIMEOUT_S)
     halo = _halo(deck)
+    tile_nm, jobs = plan_tiles(st, halo, jobs or os.cpu_count() or 1, max_memory_mb, tile_um,
+                               distributed=bool(scheduler))  # fmt: skip
+    region = tuple(v * 1000.0 for v in region_um) if region_um else None
+    _check_tile_count(p, st.extent_nm, region, tile_nm)
+    tiles = tiles_for(st.extent_nm, tile_nm, region) if st.extent_nm else []
     with _Engine(str(p), jobs, scheduler, progress) as engine:
         if reuse and len(tiles) > 1:
             n_chunks = min(len(tiles), 4 * engine.workers)

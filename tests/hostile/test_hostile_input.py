@@ -10,6 +10,7 @@ reported as bad input.
 from __future__ import annotations
 
 import os
+import random
 import signal
 import subprocess
 import sys
@@ -246,7 +247,13 @@ def test_sigterm_exits_143_and_leaves_no_partial_output(tmp_path, deck):
     for k in range(300):
         cell.add(gdstk.rectangle((k * 0.11, 0), (k * 0.11 + 0.055, 3), layer=7))
     top = lib.new_cell("TOP")
-    top.add(gdstk.Reference(cell, columns=40, rows=40, spacing=(40, 5)))
+    # Placed with a seeded jitter of whole nm: no two tiles hold the same content,
+    # so the scan cannot reuse tiles and finish early.
+    rng = random.Random(11)
+    for i in range(40):
+        for j in range(40):
+            top.add(gdstk.Reference(cell, (i * 40 + rng.randint(0, 999) * 1e-3,
+                                           j * 5 + rng.randint(0, 999) * 1e-3)))  # fmt: skip
     layout = _lib_write(tmp_path, lib, "big.oas")
     out = tmp_path / "out.json"
     exe = Path(sys.executable).parent / "pitchguard"

@@ -394,3 +394,30 @@ def test_many_report_in_chromium(many, tmp_path):
     assert len(re.findall(r'<details class="group ', dom)) == MANY_MAX_GROUPS
     assert len(re.findall(r"<img\b", dom)) == 2 * MANY_MAX_GROUPS
     assert 'id="cap-message"' in dom
+
+
+def test_tiled_scan_report_draws_the_same_layout_clips(demo, tmp_path):
+    """A tiled scan keeps no geometry; the report reads the findings' neighbourhoods
+    back from the file and must draw what the untiled report draws."""
+    import base64
+    import io
+
+    from pitchguard.html_report import _Renderer
+    from pitchguard.parallel import add_clip_geometry, scan_tiled
+
+    _, whole, deck = demo
+    tiled = add_clip_geometry(scan_tiled(DEMO_GDS, deck, tile_um=10, jobs=2), deck)
+    assert tiled.layout.layers  # read back, non-empty
+    key = lambda f: (f.layer, f.check, f.bbox_nm)  # noqa: E731
+    firsts_w = sorted((g.first for g in group_findings(whole.findings)), key=key)
+    firsts_t = sorted((g.first for g in group_findings(tiled.findings)), key=key)
+    assert len(firsts_w) == len(firsts_t) > 0
+    rw, rt = _Renderer(whole, deck), _Renderer(tiled, deck)
+    for fw, ft in zip(firsts_w, firsts_t, strict=True):
+        pw, _, _ = rw.layout_picture(fw)
+        pt, caption, _ = rt.layout_picture(ft)
+        assert pt is not None, caption
+        a = mpimg.imread(io.BytesIO(base64.b64decode(pw)), format="png")
+        b = mpimg.imread(io.BytesIO(base64.b64decode(pt)), format="png")
+        assert a.shape == b.shape
+        assert np.abs(a - b).mean() < 1e-3

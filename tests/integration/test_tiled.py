@@ -64,17 +64,26 @@ def test_dask_cluster_on_loopback_gives_the_same_findings(tmp_path):
     _same(scan_layout(SAMPLE_GDS, deck), tiled)
 
 
-def test_cli_jobs_and_scheduler_options(tmp_path, capsys):
+def test_cli_scans_tiled_by_default_like_untiled(tmp_path, capsys):
     from .conftest import run_cli
 
-    code, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q", "--jobs", "2",
-                           "--tile-um", "10")  # fmt: skip
-    code0, out0, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q")
-    assert code == code0 == 1
-    assert out.split(" in ")[0] == out0.split(" in ")[0]  # same counts per severity
-    code, _, err = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "--jobs", "2",
-                           "--region", "0,0,5,5")  # fmt: skip
-    assert code == 2 and "--region cannot be combined" in err
+    code, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q")
+    code0, out0, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q", "--untiled")
+    code2, out2, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q", "--jobs", "2",
+                             "--tile-um", "10")  # fmt: skip
+    assert code == code0 == code2 == 1
+    assert out.split(" in ")[0] == out0.split(" in ")[0] == out2.split(" in ")[0]
+    code, _, err = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "--untiled", "--jobs", "2")
+    assert code == 2 and "--untiled cannot be combined" in err
+
+
+@pytest.mark.parametrize("region", [(0.0, 0.0, 25.0, 25.0), (3.3, 7.7, 41.9, 18.1)])
+def test_region_scans_match_untiled(region):
+    deck = load_deck(DEMO_DECK)
+    whole = scan_layout(SAMPLE_GDS, deck, region_um=region)
+    tiled = scan_tiled(SAMPLE_GDS, deck, tile_um=10, jobs=2, region_um=region)
+    assert whole.findings
+    _same(whole, tiled)
 
 
 def test_repeated_tiles_are_scanned_once_and_give_the_same_findings(tmp_path):
