@@ -55,6 +55,8 @@ class Structure:
     extent_nm: tuple[float, float, float, float] | None
     fmt: str
     shapes: int = 0  # flat shapes on the deck layers, counted from the hierarchy
+    # Axis-aligned array lattices: (x pitch, y pitch, columns, rows, flat shapes), nm.
+    lattices: tuple = ()
 
 
 # --------------------------------------------------------------------------- worker side
@@ -97,7 +99,37 @@ def structure_task(path: str, cell: str | None, layers, max_shapes: int) -> Stru
             f"{path}: deck layers flatten to {total:,} shapes, over the limit of "
             f"{max_shapes:,} (raise --max-shapes or scan a --region)"
         )  # fmt: skip
-    return replace(_open(path, cell, layers)[1], shapes=total)
+    q, st = _open(path, cell, layers)
+    return replace(st, shapes=total, lattices=_lattices(q, memo))
+
+
+def _lattices(q, memo: dict) -> tuple:
+    """Array lattices with axis-aligned vectors, and the flat shapes they place."""
+    placed = {name: 0 for name in q.cells}
+    for name in q.tops:
+        placed[name] = 1
+    out = []
+    for name in reversed(list(q.cells)):  # a cell is stored after its children
+        n_parent = placed.get(name, 0)
+        if not n_parent:
+            continue
+        for child, aff, (kind, data) in q.cells[name].refs:
+            count = len(data) if kind == "list" else 1
+            if kind == "lattice":
+                cols, rows, v1, v2 = data
+                count = cols * rows
+                a1, a2 = aff.m @ v1, aff.m @ v2
+                if abs(a1[1]) < 1e-6 and abs(a2[0]) < 1e-6:
+                    px, py = abs(a1[0]), abs(a2[1])
+                elif abs(a1[0]) < 1e-6 and abs(a2[1]) < 1e-6:
+                    px, py = abs(a2[0]), abs(a1[1])
+                else:
+                    px = py = 0.0
+                shapes = memo.get(child, 0) * count * n_parent
+                if px > 0 and py > 0 and shapes:
+                    out.append((px, py, cols, rows, shapes))
+            placed[child] = placed.get(child, 0) + n_parent * count
+    return tuple(out)
 
 
 def keys_task(path: str, cell: str | None, layers, tiles, halo: float) -> list[bytes]:
@@ -143,8 +175,10 @@ def clips_task(path: str, cell: str | None, layers, grid_nm: float, windows):
     return {ld: PolygonSet.from_arrays(v.values()) for ld, v in found.items()}
 
 
-def add_clip_geometry(result: ScanResult, deck: Deck, cell: str | None = None,
-                      max_groups: int = 500, timeout_s: float | None = None) -> ScanResult:  # fmt: skip
+def add_clip_geometry(
+    result: ScanResult, deck: Deck, cell: str | None = None, max_groups: int = 500,
+    timeout_s: float | None = None,
+) -> ScanResult:  # fmt: skip
     """Read back, in a child process, the layout around the findings a report draws.
 
     A tiled scan keeps no geometry; the HTML report's pictures need the
@@ -200,6 +234,8 @@ DENSITY_MARGIN = 4.0
 layout's mean shape density."""
 MAX_AUTO_TILE_UM = 50.0
 SMALL_LAYOUT_SHAPES = 20_000
+TILE_OVERHEAD_SHAPES = 20.0
+"""The cost of a tile's content key and bookkeeping, in shapes scanned (rough)."""
 
 
 def plan_tiles(st: Structure, halo_nm: float, jobs: int, max_memory_mb: float | None,
@@ -241,11 +277,30 @@ def plan_tiles(st: Structure, halo_nm: float, jobs: int, max_memory_mb: float | 
         x0, y0, x1, y1 = st.extent_nm
         side = max(x1 - x0, y1 - y0, SITE_CELL_NM)
         return math.ceil(side / SITE_CELL_NM) * SITE_CELL_NM, jobs
-    t = SITE_CELL_NM
-    while t + SITE_CELL_NM <= MAX_AUTO_TILE_UM * 1000.0 \
-            and worker_mb(t + SITE_CELL_NM) <= per_worker:  # fmt: skip
-        t += SITE_CELL_NM
-    return t, jobs
+    sizes = [t for t in (k * SITE_CELL_NM for k in range(1, int(MAX_AUTO_TILE_UM * 1000
+             // SITE_CELL_NM) + 1)) if t == SITE_CELL_NM or worker_mb(t) <= per_worker]  # fmt: skip
+    return min(sizes, key=lambda t: (_tile_work(st, t), -t)), jobs
+
+
+def _tile_work(st: Structure, t: float) -> float:
+    """Rough cost of a tile size: shapes scanned in distinct tiles, plus tile overhead.
+
+    An array of pitch p repeats on tiles of size t every p / gcd(t, p) tiles
+    along that axis; the distinct tiles over its extent hold the shapes that
+    must be scanned.  Shapes outside arrays are all scanned.
+    """
+    work = float(st.shapes)
+    for px, py, cols, rows, shapes in st.lattices:
+        gx = math.gcd(int(round(t)), int(round(px))) or 1
+        gy = math.gcd(int(round(t)), int(round(py))) or 1
+        nx = max(1.0, cols * px / t)
+        ny = max(1.0, rows * py / t)
+        distinct = min(nx, px / gx + 2) * min(ny, py / gy + 2)  # + edge tiles
+        work -= shapes * (1.0 - min(1.0, distinct / (nx * ny)))
+    if st.extent_nm:
+        x0, y0, x1, y1 = st.extent_nm
+        work += TILE_OVERHEAD_SHAPES * ((x1 - x0) / t + 1) * ((y1 - y0) / t + 1)
+    return work
 
 
 MAX_TILES = 2_000_000
