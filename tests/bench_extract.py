@@ -72,6 +72,8 @@ from pathlib import Path
 
 import numpy as np
 
+from decks import BENCH_DECK as DECK_TOML  # tests/ is sys.path[0] when run
+
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLE_DIR = ROOT / "sample_layouts"
 SAMPLE_DECK = ROOT / "rules" / "demo.toml"
@@ -88,23 +90,7 @@ def sample_deck(layout: Path) -> Path | None:
 GRID_NM = 1.0  # database unit of the generated layouts
 LAYER = (1, 0)
 
-DECK_TOML = """
-[deck]
-name = "bench"
-
-[exposures.arfi]
-wavelength_nm = 193.0
-na = 1.35
-immersion_index = 1.44
-illumination = { shape = "annular", sigma_inner = 0.6, sigma_outer = 0.9 }
-
-[[layers]]
-name = "M1"
-source = "1/0"
-exposure = "arfi"
-field = "dark"
-"""
-# lambda/NA = 143 nm: min_run 71.5 nm, ambit 429 nm, cutoff pitch 75.3 nm.
+# The deck: lambda/NA = 143 nm: min_run 71.5 nm, ambit 429 nm, cutoff pitch 75.3 nm.
 # The generated pitches (64 .. 200 nm) give fail, risk, marginal and clean sites.
 
 RESULT_TAG = "BENCH-RESULT "

@@ -36,19 +36,7 @@ import tempfile
 import time
 from pathlib import Path
 
-DECK = """
-[exposures.arfi]
-wavelength_nm = 193.0
-na = 1.35
-immersion_index = 1.44
-illumination = { shape = "annular", sigma_inner = 0.6, sigma_outer = 0.9 }
-
-[[layers]]
-name = "m1"
-source = "1/0"
-exposure = "arfi"
-field = "dark"
-"""
+from decks import BENCH_DECK as DECK  # tests/ is sys.path[0] when run
 
 
 def build_chip(path: Path, target: float) -> int:

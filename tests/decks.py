@@ -28,3 +28,24 @@ DRY_ARF_DECK = textwrap.dedent(
     """
 )
 DRY_ARF_CUTOFF_NM = 193.0 / (0.93 * 1.8)
+
+# The benchmarks' deck (tests/bench_*.py): ArF immersion, annular 0.6-0.9, one
+# dark-field layer on 1/0.  Demo data, not a check value.
+BENCH_DECK = textwrap.dedent(
+    """
+    [deck]
+    name = "bench"
+
+    [exposures.arfi]
+    wavelength_nm = 193.0
+    na = 1.35
+    immersion_index = 1.44
+    illumination = { shape = "annular", sigma_inner = 0.6, sigma_outer = 0.9 }
+
+    [[layers]]
+    name = "M1"
+    source = "1/0"
+    exposure = "arfi"
+    field = "dark"
+    """
+)

@@ -203,6 +203,27 @@ def _count_shapes(cell, wanted: set[tuple[int, int]], memo: dict) -> int:
     return n
 
 
+def count_shapes_within(path: Path, tops, wanted: set, max_shapes: int) -> tuple[int, dict]:
+    """Flat shape count of ``tops`` on ``wanted`` layers, from the hierarchy; refuse
+    (LayoutError) more than ``max_shapes``.  Returns the count and the per-cell counts."""
+    memo: dict = {}
+    total = sum(_count_shapes(c, wanted, memo) for c in tops)
+    if total > max_shapes:
+        raise LayoutError(
+            f"{path}: deck layers flatten to {total:,} shapes, over the limit of {max_shapes:,} "
+            "(raise --max-shapes or scan a --region)"
+        )
+    return total, memo
+
+
+def snap_to_grid(ps: PolygonSet, grid_nm: float) -> PolygonSet:
+    """``ps`` back onto the database grid, in place: nm conversion and transforms
+    leave float noise (199.9999999 for 200); the mask writer snaps anyway."""
+    np.round(ps.points / grid_nm, out=ps.points)
+    np.multiply(ps.points, grid_nm, out=ps.points)
+    return ps
+
+
 def flatten_layer(tops, layer_datatype: tuple[int, int], scale: float) -> PolygonSet:
     """All polygons of one layer/datatype under ``tops``, flattened and packed.
 
@@ -288,25 +309,13 @@ def read_layout(
     if warnings is not None:
         warnings.extend(noise)
 
-    memo: dict = {}
-    total = sum(_count_shapes(c, wanted, memo) for c in tops)
-    if total > max_shapes:
-        raise LayoutError(
-            f"{p}: deck layers flatten to {total:,} shapes, over the limit of {max_shapes:,} "
-            "(raise --max-shapes or scan a --region)"
-        )
+    count_shapes_within(p, tops, wanted, max_shapes)
 
     scale = lib.unit * 1e9
     out: dict[tuple[int, int], PolygonSet] = {}
     with captured_stderr() as noise:
         for ld in sorted(wanted):
-            ps = flatten_layer(tops, ld, scale)
-            # Back onto the database grid: nm conversion and transforms leave
-            # float noise (199.9999999 for 200); the mask writer snaps anyway.
-            grid_nm = lib.precision * 1e9
-            np.round(ps.points / grid_nm, out=ps.points)
-            np.multiply(ps.points, grid_nm, out=ps.points)
-            out[ld] = ps
+            out[ld] = snap_to_grid(flatten_layer(tops, ld, scale), lib.precision * 1e9)
     if warnings is not None:
         warnings.extend(noise)
     return Layout(

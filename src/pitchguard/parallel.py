@@ -36,7 +36,7 @@ from pitchguard.classify import (
 from pitchguard.deck import Deck, parse_deck
 from pitchguard.errors import LayoutError
 from pitchguard.extract import SITE_CELL_NM, ExtractStats
-from pitchguard.layout import Layout, PolygonSet
+from pitchguard.layout import Layout, PolygonSet, snap_to_grid
 from pitchguard.scan import LayerStats, ScanResult, scan_polygons
 
 DEFAULT_TILED_MAX_SHAPES = 2_000_000_000
@@ -64,21 +64,26 @@ class Structure:
 _OPEN: dict = {}
 
 
-def _open(path: str, cell: str | None, layers):
-    """The library and its hierarchy index, opened once per worker process."""
-    from pitchguard.layout import open_layout
+def _index(lib, fmt: str, tops, layers):
+    """The hierarchy index and structure of an opened library."""
     from pitchguard.tiles import HierarchyQuery
 
-    key = (path, os.path.getmtime(path), cell, tuple(layers))
-    if key in _OPEN:
-        return _OPEN[key]
-    lib, fmt, tops = open_layout(Path(path), set(layers), cell)
     q = HierarchyQuery(lib, tops, layers, lib.unit * 1e9)
     st = Structure(lib.unit, lib.precision * 1e9, tuple(c.name for c in tops), q.bounding_box(),
                    fmt)  # fmt: skip
-    _OPEN.clear()  # one layout per worker at a time
-    _OPEN[key] = (q, st)
     return q, st
+
+
+def _open(path: str, cell: str | None, layers):
+    """The hierarchy index and structure, opened once per worker process (the library
+    itself is let go: the index holds what tiles need)."""
+    from pitchguard.layout import open_layout
+
+    key = (path, os.path.getmtime(path), cell, tuple(layers))
+    if key not in _OPEN:
+        _OPEN.clear()  # one layout per worker at a time
+        _OPEN[key] = _index(*open_layout(Path(path), set(layers), cell), layers)
+    return _OPEN[key]
 
 
 @functools.lru_cache(maxsize=4)
@@ -89,17 +94,11 @@ def _deck(text: str) -> Deck:
 
 def structure_task(path: str, cell: str | None, layers, max_shapes: int) -> Structure:
     """Open the layout, count its flat shapes from the hierarchy and refuse too many."""
-    from pitchguard.layout import _count_shapes, open_layout
+    from pitchguard.layout import count_shapes_within, open_layout
 
-    lib, _, tops = open_layout(Path(path), set(layers), cell)
-    memo: dict = {}
-    total = sum(_count_shapes(c, set(layers), memo) for c in tops)
-    if total > max_shapes:
-        raise LayoutError(
-            f"{path}: deck layers flatten to {total:,} shapes, over the limit of "
-            f"{max_shapes:,} (raise --max-shapes or scan a --region)"
-        )  # fmt: skip
-    q, st = _open(path, cell, layers)
+    lib, fmt, tops = open_layout(Path(path), set(layers), cell)
+    total, memo = count_shapes_within(Path(path), tops, set(layers), max_shapes)
+    q, st = _index(lib, fmt, tops, layers)
     return replace(st, shapes=total, lattices=_lattices(q, memo))
 
 
@@ -156,8 +155,7 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float):
     x0, y0, x1, y1 = tile
     polys = q.query((x0 - halo, y0 - halo, x1 + halo, y1 + halo))
     for ps in polys.values():  # onto the database grid, exactly as read_layout does
-        np.round(ps.points / st.grid_nm, out=ps.points)
-        np.multiply(ps.points, st.grid_nm, out=ps.points)
+        snap_to_grid(ps, st.grid_nm)
     # Hints are made once per merged region by the parent, not per tile.
     findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile), hints=False)
     return findings, stats
@@ -169,8 +167,7 @@ def clips_task(path: str, cell: str | None, layers, grid_nm: float, windows):
     found: dict = {ld: {} for ld in layers}
     for w in windows:
         for ld, ps in q.query(tuple(w)).items():
-            for pts in ps:
-                pts = np.round(pts / grid_nm) * grid_nm
+            for pts in snap_to_grid(ps, grid_nm):
                 found[ld].setdefault(pts.tobytes(), pts)
     return {ld: PolygonSet.from_arrays(v.values()) for ld, v in found.items()}
 
@@ -206,14 +203,19 @@ def _halo(deck: Deck) -> float:
     return max((2 * r.ambit_nm + r.min_run_nm) / scale for r in deck.layers)
 
 
+def _clip(extent, region):
+    """``extent`` within ``region`` (None: all of it)."""
+    if region is None:
+        return tuple(extent)
+    return (max(extent[0], region[0]), max(extent[1], region[1]),
+            min(extent[2], region[2]), min(extent[3], region[3]))  # fmt: skip
+
+
 def tiles_for(extent, tile_nm: float, region=None):
     """Tiles covering ``extent``, aligned to multiples of ``tile_nm``, clipped to ``region``."""
-    x0, y0, x1, y1 = extent
-    if region is not None:
-        x0, y0 = max(x0, region[0]), max(y0, region[1])
-        x1, y1 = min(x1, region[2]), min(y1, region[3])
-        if x0 > x1 or y0 > y1:
-            return []
+    x0, y0, x1, y1 = _clip(extent, region)
+    if x0 > x1 or y0 > y1:
+        return []
     i0, i1 = math.floor(x0 / tile_nm), math.floor(x1 / tile_nm)
     j0, j1 = math.floor(y0 / tile_nm), math.floor(y1 / tile_nm)
     tiles = [(i * tile_nm, j * tile_nm, (i + 1) * tile_nm, (j + 1) * tile_nm)
@@ -224,8 +226,9 @@ def tiles_for(extent, tile_nm: float, region=None):
     return [(max(a, rx0), max(b, ry0), min(c, rx1), min(d, ry1)) for a, b, c, d in tiles]
 
 
-# Memory model of a scan (measured with tests/bench_scale.py, see DEVELOPERS.md):
-# a worker holds the opened file and one tile; the parent holds the findings.
+# Memory model of a scan: a worker holds the opened file and one tile; the parent
+# holds the findings.  Fitted roughly to worker peaks seen on the bench_scale chip
+# (about 110, 300 and 520 MB for 30, 70 and 210 um tiles); not validated further.
 WORKER_BASE_MB = 150.0
 PARENT_BASE_MB = 300.0
 KB_PER_TILE_SHAPE = 8.0
@@ -311,10 +314,7 @@ file) or a tile size far too small for the chip: refused before any work."""
 def _check_tile_count(path, extent, region, tile_nm: float) -> None:
     if not extent:
         return
-    x0, y0, x1, y1 = extent
-    if region is not None:
-        x0, y0 = max(x0, region[0]), max(y0, region[1])
-        x1, y1 = min(x1, region[2]), min(y1, region[3])
+    x0, y0, x1, y1 = _clip(extent, region)
     if not all(math.isfinite(v) for v in (x0, y0, x1, y1)):
         raise LayoutError(f"{path}: coordinates are not finite numbers")
     n = (math.floor(x1 / tile_nm) - math.floor(x0 / tile_nm) + 1) * \
@@ -447,19 +447,14 @@ def _copy(f: Finding) -> Finding:
     return g
 
 
-def _line_normal(f: Finding) -> tuple[float, float]:
+def _line_normal(f: Finding) -> np.ndarray:
     """The canonical normal of the finding's lines, from its outline (as line keys use)."""
-    o = f.outline_nm
-    ux, uy = o[1][0] - o[0][0], o[1][1] - o[0][1]
-    length = math.hypot(ux, uy)
+    o = np.array(f.outline_nm[:2])
+    d = o[1] - o[0]
+    length = math.hypot(*d)
     if length == 0:
-        n = _frame(f)[1]
-        return float(n[0]), float(n[1])
-    nx, ny = uy / length, -ux / length
-    ang = math.degrees(math.atan2(ny, nx))
-    if ang < -1e-9 or ang >= 180.0 - 1e-9:  # as classify.canonical_normal
-        nx, ny = -nx, -ny
-    return nx, ny
+        return _frame(f)[1]
+    return canonical_normal(np.array([d[1], -d[0]]) / length)
 
 
 def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
@@ -467,8 +462,7 @@ def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
 
     The findings of a tile, reused for every tile with the same content.
     """
-    nx, ny = _line_normal(f)
-    along = offsets @ np.array([nx, ny])
+    along = offsets @ _line_normal(f)
     keys = np.asarray(f.line_keys, dtype=np.float64)
     moved_keys = np.round(keys[None, :] + along[:, None], 1).tolist() if len(keys) else None
     x0, y0, x1, y1 = f.bbox_nm
@@ -488,17 +482,12 @@ def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
     return out
 
 
-def shift_finding(f: Finding, dx: float, dy: float) -> Finding:
-    """``f`` moved by (dx, dy) nm."""
-    return shifted_copies(f, np.array([[dx, dy]], dtype=np.float64))[0]
-
-
 class _Engine:
     """Local worker processes, or a dask.distributed cluster, for the tile tasks."""
 
-    def __init__(self, path: str, jobs: int | None, scheduler: str | None, progress):
+    def __init__(self, path: str, jobs: int, scheduler: str | None, progress):
         self.path, self.scheduler, self.progress = path, scheduler, progress
-        self.jobs = jobs or os.cpu_count() or 1
+        self.jobs = jobs
         self.client = self.pool = None
 
     def __enter__(self) -> _Engine:

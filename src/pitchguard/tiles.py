@@ -65,6 +65,12 @@ def _hits(b: Box, w: Box) -> bool:
     return b[0] <= w[2] and b[2] >= w[0] and b[1] <= w[3] and b[3] >= w[1]
 
 
+def _moved_box_hits(box, offsets: np.ndarray, w: Box) -> np.ndarray:
+    """Which copies of ``box`` moved by ``offsets`` (n, 2) meet ``w``."""
+    return (box[0] + offsets[:, 0] <= w[2]) & (box[2] + offsets[:, 0] >= w[0]) & \
+        (box[1] + offsets[:, 1] <= w[3]) & (box[3] + offsets[:, 1] >= w[1])  # fmt: skip
+
+
 @dataclass
 class _CellData:
     polys: dict  # (layer, datatype) -> (PolygonSet, bboxes (n, 4))
@@ -219,9 +225,7 @@ class HierarchyQuery:
                 if ccd.own_bbox is None:
                     continue
                 ob = np.array(placed.box(ccd.own_bbox))
-                keep = (ob[0] + o[:, 0] <= window[2]) & (ob[2] + o[:, 0] >= window[0]) & \
-                    (ob[1] + o[:, 1] <= window[3]) & (ob[3] + o[:, 1] >= window[1])  # fmt: skip
-                o = o[keep]
+                o = o[_moved_box_hits(ob, o, window)]
                 if len(o):
                     r = np.empty((len(o), 7))
                     r[:, 0] = ccd.index
@@ -264,10 +268,7 @@ class HierarchyQuery:
             return np.zeros((1, 2)) if _hits(tuple(base), window) else np.zeros((0, 2))
         if kind == "list":
             o = np.asarray(data, dtype=np.float64).reshape(-1, 2) @ aff.m.T
-            b = base[None, :] + np.hstack([o, o])
-            keep = (b[:, 0] <= window[2]) & (b[:, 2] >= window[0]) & \
-                (b[:, 1] <= window[3]) & (b[:, 3] >= window[1])  # fmt: skip
-            return o[keep]
+            return o[_moved_box_hits(base, o, window)]
         cols, rows, v1, v2 = data
         a1, a2 = aff.m @ v1, aff.m @ v2
         # Lattice coordinates (i, j) of the window's corners, widened by the
@@ -293,6 +294,4 @@ class HierarchyQuery:
         ii, jj = np.meshgrid(np.asarray(i_rng, dtype=np.float64),
                              np.asarray(j_rng, dtype=np.float64), indexing="ij")  # fmt: skip
         o = ii.reshape(-1, 1) * a1 + jj.reshape(-1, 1) * a2
-        keep = (base[0] + o[:, 0] <= window[2]) & (base[2] + o[:, 0] >= window[0]) & \
-            (base[1] + o[:, 1] <= window[3]) & (base[3] + o[:, 1] >= window[1])  # fmt: skip
-        return o[keep]
+        return o[_moved_box_hits(base, o, window)]

@@ -116,21 +116,28 @@ def test_mask_kind_changes_the_image(tmp_path):
     assert a.metrics.contrast != pytest.approx(b.metrics.contrast, abs=0.01)
 
 
+# Dry ArF, annular 0.6-0.9, one clear-field layer "p" on 1/0 (limits: the defaults).
+ARF_ANNULAR_P = textwrap.dedent(
+    """
+    [exposures.arf]
+    wavelength_nm = 193.0
+    na = 0.93
+    illumination = { shape = "annular", sigma_inner = 0.6, sigma_outer = 0.9 }
+
+    [[layers]]
+    name = "p"
+    source = "1/0"
+    exposure = "arf"
+    field = "clear"
+    """
+)
+
+
 def test_focus_range_decides_depth_of_focus_verdict(tmp_path):
     # A relaxed dry ArF array: fine over a short focus range, short of a DOF floor
     # asked over a long one.
-    base = textwrap.dedent(
+    base = ARF_ANNULAR_P + textwrap.dedent(
         """
-        [exposures.arf]
-        wavelength_nm = 193.0
-        na = 0.93
-        illumination = { shape = "annular", sigma_inner = 0.6, sigma_outer = 0.9 }
-
-        [[layers]]
-        name = "p"
-        source = "1/0"
-        exposure = "arf"
-        field = "clear"
         k1_risk_below = 0.1
         k1_marginal_below = 0.2
         nils_fail_below = 0.0
@@ -152,24 +159,10 @@ def test_focus_range_decides_depth_of_focus_verdict(tmp_path):
 
 def test_anchor_enables_cd_error(tmp_path):
     """Iso-dense bias: with the dose anchored on a dense pitch, a looser pitch prints off size."""
-    text = textwrap.dedent(
-        """
-        [exposures.arf]
-        wavelength_nm = 193.0
-        na = 0.93
-        illumination = { shape = "annular", sigma_inner = 0.6, sigma_outer = 0.9 }
-
-        [[layers]]
-        name = "p"
-        source = "1/0"
-        exposure = "arf"
-        field = "clear"
-        """
-    )
     from pitchguard.sweep import grating
 
-    free = parse_deck(text).layer("p")
-    anchored = parse_deck(text + "anchor = { pitch_nm = 180.0, cd_nm = 90.0 }\n").layer("p")
+    free = parse_deck(ARF_ANNULAR_P).layer("p")
+    anchored = parse_deck(ARF_ANNULAR_P + "anchor = { pitch_nm = 180.0, cd_nm = 90.0 }\n").layer("p")
     assert math.isnan(grating(free, 400, 90, 90.0).metrics.cd_error_pct)
     assert grating(anchored, 180, 90, 90.0).metrics.cd_error_pct == pytest.approx(0.0, abs=0.5)
     assert abs(grating(anchored, 400, 90, 90.0).metrics.cd_error_pct) > 1.0
