@@ -381,10 +381,13 @@ class ExtractStats:
     isolated_sites: int = 0  # no neighbour within the ambit
     extra: dict = field(default_factory=dict)
 
-    def add(self, other: ExtractStats) -> None:
+    def add(self, other: ExtractStats, times: int = 1) -> None:
+        """Add ``other``'s counts ``times`` over (a tile reused on ``times`` tiles)."""
         for k in ("shapes", "features", "edges", "short_edges", "pieces_2d", "sites",
                   "isolated_sites"):  # fmt: skip
-            setattr(self, k, getattr(self, k) + getattr(other, k))
+            setattr(self, k, getattr(self, k) + times * getattr(other, k))
+        for k, v in other.extra.items():
+            self.extra[k] = self.extra.get(k, 0) + times * v
 
 
 _INF = math.inf

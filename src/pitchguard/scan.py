@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from pitchguard.classify import Finding, classify_layer
+from pitchguard.classify import Finding, classify_layer, sort_findings
 from pitchguard.cuts import site_cuts
 from pitchguard.deck import Deck
 from pitchguard.extract import ExtractStats, build_features, find_sites
@@ -141,5 +141,5 @@ def scan_layout(
     )
     region_nm = tuple(v * 1000.0 for v in region_um) if region_um else None
     findings, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
-    findings.sort(key=lambda f: (f.severity_rank, f.k1, f.layer, f.bbox_nm))
+    findings = sort_findings(findings)
     return ScanResult(findings, stats, layout, warnings, time.perf_counter() - t0)

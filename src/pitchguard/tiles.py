@@ -26,6 +26,9 @@ from pitchguard.layout import PolygonSet
 
 Box = tuple[float, float, float, float]
 
+PLACEMENT_MEMO_ENTRIES = 100_000
+"""Memoised placement lists kept per query object (cleared when full)."""
+
 
 @dataclass(frozen=True)
 class _Affine:
@@ -46,9 +49,13 @@ class _Affine:
         return pts @ self.m.T + self.t
 
     def box(self, b: Box) -> Box:
-        x0, y0, x1, y1 = b
-        c = self.apply(np.array([[x0, y0], [x1, y0], [x1, y1], [x0, y1]]))
-        return (c[:, 0].min(), c[:, 1].min(), c[:, 0].max(), c[:, 1].max())
+        """Bounding box of the transformed box ``b`` (plain floats: called per tile)."""
+        x0, y0, x1, y1 = (float(v) for v in b)
+        (a, b_), (c, d) = self.m.tolist()
+        tx, ty = self.t.tolist()
+        xs = (a * x0 + b_ * y0, a * x1 + b_ * y0, a * x1 + b_ * y1, a * x0 + b_ * y1)
+        ys = (c * x0 + d * y0, c * x1 + d * y0, c * x1 + d * y1, c * x0 + d * y1)
+        return (min(xs) + tx, min(ys) + ty, max(xs) + tx, max(ys) + ty)
 
 
 def _ref_affine(ref, scale: float) -> _Affine:
@@ -88,6 +95,7 @@ class HierarchyQuery:
         self.layers = sorted(set(layers))
         self.cells: dict[str, _CellData] = {}
         self.tops = [c.name for c in tops]
+        self._memo: dict = {}  # content-key placements per (cell, frame, relative window)
         by_name = {c.name: c for c in lib.cells if hasattr(c, "references")}
         for name in self.tops:
             self._load(by_name[name], by_name)
@@ -234,7 +242,24 @@ class HierarchyQuery:
                     rows.append(r)
                 continue
             for off in o:
-                self._placements(child, _Affine(placed.m, placed.t + off), window, rows)
+                rows.append(self._placements_of(child, placed.m, placed.t + off, window))
+
+    def _placements_of(self, name: str, m: np.ndarray, t: np.ndarray, window: Box) -> np.ndarray:
+        """:meth:`_placements` of a placed cell, memoised by its frame and the window
+        relative to it: arrays of blocks see the same relative windows over and over."""
+        rel = np.round(np.asarray(window, dtype=np.float64) - np.tile(t, 2), 6) + 0.0
+        key = (name, np.round(m, 12).tobytes(), rel.tobytes())
+        local = self._memo.get(key)
+        if local is None:
+            if len(self._memo) >= PLACEMENT_MEMO_ENTRIES:
+                self._memo.clear()
+            found: list[np.ndarray] = []
+            self._placements(name, _Affine(m, np.zeros(2)), tuple(rel.tolist()), found)
+            local = np.concatenate(found) if found else np.empty((0, 7))
+            self._memo[key] = local
+        out = local.copy()
+        out[:, 5:] += t
+        return out
 
     def _visit(self, name: str, aff: _Affine, window: Box, out) -> None:
         cd = self.cells[name]
@@ -272,26 +297,24 @@ class HierarchyQuery:
         cols, rows, v1, v2 = data
         a1, a2 = aff.m @ v1, aff.m @ v2
         # Lattice coordinates (i, j) of the window's corners, widened by the
-        # instance box: only that index range can hit.
-        basis = np.column_stack([a1, a2])
-        try:
-            inv = np.linalg.inv(basis)
-        except np.linalg.LinAlgError:  # degenerate lattice: test every instance
-            inv = None
-        if inv is None:
-            i_rng, j_rng = range(cols), range(rows)
+        # instance box: only that index range can hit.  (Plain floats: this
+        # runs for every tile.)
+        (p, q), (r, s) = a1.tolist(), a2.tolist()
+        det = p * s - r * q
+        if abs(det) <= 1e-12 * (abs(p * s) + abs(r * q) + 1e-300):
+            i0, i1, j0, j1 = 0, cols - 1, 0, rows - 1  # degenerate lattice: test every instance
         else:
             wx0, wy0, wx1, wy1 = window
-            bx0, by0, bx1, by1 = base
-            pts = np.array([[wx0 - bx1, wy0 - by1], [wx1 - bx0, wy0 - by1],
-                            [wx1 - bx0, wy1 - by0], [wx0 - bx1, wy1 - by0]])  # fmt: skip
-            ij = pts @ inv.T
-            i0 = max(0, int(math.floor(ij[:, 0].min())))
-            i1 = min(cols - 1, int(math.ceil(ij[:, 0].max())))
-            j0 = max(0, int(math.floor(ij[:, 1].min())))
-            j1 = min(rows - 1, int(math.ceil(ij[:, 1].max())))
-            i_rng, j_rng = range(i0, i1 + 1), range(j0, j1 + 1)
-        ii, jj = np.meshgrid(np.asarray(i_rng, dtype=np.float64),
-                             np.asarray(j_rng, dtype=np.float64), indexing="ij")  # fmt: skip
-        o = ii.reshape(-1, 1) * a1 + jj.reshape(-1, 1) * a2
+            bx0, by0, bx1, by1 = (float(v) for v in base)
+            corners = ((wx0 - bx1, wy0 - by1), (wx1 - bx0, wy0 - by1),
+                       (wx1 - bx0, wy1 - by0), (wx0 - bx1, wy1 - by0))  # fmt: skip
+            ii = [(s * x - r * y) / det for x, y in corners]
+            jj = [(p * y - q * x) / det for x, y in corners]
+            i0, i1 = max(0, math.floor(min(ii))), min(cols - 1, math.ceil(max(ii)))
+            j0, j1 = max(0, math.floor(min(jj))), min(rows - 1, math.ceil(max(jj)))
+        if i1 < i0 or j1 < j0:
+            return np.zeros((0, 2))
+        i = np.arange(i0, i1 + 1, dtype=np.float64)
+        j = np.arange(j0, j1 + 1, dtype=np.float64)
+        o = (i[:, None, None] * a1 + j[None, :, None] * a2).reshape(-1, 2)
         return o[_moved_box_hits(base, o, window)]
