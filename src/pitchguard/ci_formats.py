@@ -43,7 +43,6 @@ JUnit XML
 from __future__ import annotations
 
 import hashlib
-import json
 import math
 import re
 import urllib.parse
@@ -54,7 +53,7 @@ from pathlib import Path
 from pitchguard import __version__
 from pitchguard.classify import CHECKS, Finding
 from pitchguard.deck import SEVERITIES, Deck
-from pitchguard.report import CAUTION, atomic_write, exit_code, finding_to_dict
+from pitchguard.report import CAUTION, Rows, atomic_write, exit_code, finding_to_dict, write_json
 from pitchguard.scan import ScanResult
 
 SARIF_VERSION = "2.1.0"
@@ -292,16 +291,23 @@ def fingerprints(findings: list[Finding]) -> list[str]:
 # ------------------------------------------------------------------- SARIF
 
 
-def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str) -> dict:
-    """A SARIF 2.1.0 log of a scan: one run, one rule per check, one result per finding."""
+def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
+             lazy: bool = False) -> dict:  # fmt: skip
+    """A SARIF 2.1.0 log of a scan: one run, one rule per check, one result per finding.
+
+    With ``lazy`` the results are :class:`~pitchguard.report.Rows`, made as
+    they are written (for :func:`write_sarif`).
+    """
     # A check missing from CHECKS (not expected) still gets a rule, after the known ones.
     checks = list(CHECKS) + sorted({f.check for f in result.findings} - set(CHECKS))
     rules = [_rule(c) for c in checks]
     uri = _artifact_uri(layout_path)
     cells = list(result.layout.cells) if result.layout else []
     fps = fingerprints(result.findings)
-    results = []
-    for f, fp in zip(result.findings, fps, strict=True):
+    rule_index = {c: k for k, c in enumerate(checks)}
+
+    def result_of(k: int) -> dict:
+        f, fp = result.findings[k], fps[k]
         # Logical locations.  A cell is a named, self-contained unit of design that
         # other cells instantiate, the layout's counterpart of a code module: kind
         # "module".  A layer is a part of every cell (the shapes drawn on it), as a
@@ -319,9 +325,9 @@ def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str) ->
         props = finding_to_dict(f)
         props["fail_on"] = fail_on
         props["at_or_above_fail_on"] = _at_or_above(f, fail_on)
-        results.append({
+        return {
             "ruleId": f.check,
-            "ruleIndex": checks.index(f.check),
+            "ruleIndex": rule_index[f.check],
             "level": LEVEL[f.severity],
             "message": {"text": describe(f)},
             "locations": [{
@@ -330,7 +336,10 @@ def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str) ->
             }],
             "partialFingerprints": {FINGERPRINT_KEY: fp},
             "properties": props,
-        })  # fmt: skip
+        }  # fmt: skip
+
+    rows = Rows(range(len(result.findings)), result_of)
+    results = rows if lazy else list(rows)
     run_props = {
         "caution": CAUTION,
         "deck": {
@@ -380,13 +389,9 @@ def write_sarif(
     inputs: list[Path] | None = None,
 ) -> None:  # fmt: skip
     """Write :func:`to_sarif` to ``out`` atomically (never over an input file)."""
-    log = to_sarif(result, deck, layout_path, fail_on)
-    text = json.dumps(log, indent=2, allow_nan=False, ensure_ascii=False) + "\n"
-
-    def w(tmp: Path) -> None:
-        tmp.write_text(text, encoding="utf-8")
-
-    atomic_write(out, w, inputs if inputs is not None else _default_inputs(layout_path, deck))
+    log = to_sarif(result, deck, layout_path, fail_on, lazy=True)
+    write_json(out, log, inputs if inputs is not None else _default_inputs(layout_path, deck),
+               ensure_ascii=False)  # fmt: skip
 
 
 # ------------------------------------------------------------------- JUnit
@@ -408,8 +413,12 @@ def finding_line(f: Finding) -> str:
     )
 
 
-def to_junit_tree(result: ScanResult, deck: Deck, fail_on: str) -> ET.Element:
-    """The ``<testsuites>`` element (see the module docstring for the layout)."""
+def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
+    """Per layer: ``(attributes, properties, testcases, system-out lines)``.
+
+    ``testcases()`` makes the suite's ``<testcase>`` elements one at a time, so
+    a writer can stream a report of 10^5-10^6 findings.
+    """
     layers = [(st.name, st.source, st.seconds) for st in result.layers]
     known = {name for name, _, _ in layers}
     for f in result.findings:
@@ -419,59 +428,87 @@ def to_junit_tree(result: ScanResult, deck: Deck, fail_on: str) -> ET.Element:
     checks = list(CHECKS) + sorted({f.check for f in result.findings} - set(CHECKS))
     exposures = {r.name: r.exposure_name for r in deck.layers}
     layout_path = str(result.layout.path) if result.layout else ""
+    rank = {s: k for k, s in enumerate(SEVERITIES)}
+    by_key: dict = {}
+    for f in result.findings:
+        by_key.setdefault((f.layer, f.check), []).append(f)
 
-    root = ET.Element("testsuites", name="pitchguard")
-    total_tests = total_failures = 0
+    suites = []
     for name, source, seconds in layers:
-        suite = ET.SubElement(root, "testsuite", name=_x(f"pitchguard.{name}"))
-        props = ET.SubElement(suite, "properties")
-        for k, v in (
+        props = [
             ("deck", deck.name), ("deck_path", str(deck.path) if deck.path else ""),
             ("layout", layout_path), ("layer", name), ("source", source),
             ("exposure", exposures.get(name, "")), ("fail_on", fail_on), ("caution", CAUTION),
-        ):  # fmt: skip
-            ET.SubElement(props, "property", name=k, value=_x(v))
+        ]  # fmt: skip
+        plan = []
         tests = failures = 0
         suite_out: list[str] = []
-        mine = [f for f in result.findings if f.layer == name]
         for check in checks:
-            found = sorted((f for f in mine if f.check == check),
-                           key=lambda f: (f.severity_rank, f.bbox_nm))  # fmt: skip
+            found = sorted(by_key.get((name, check), []),
+                           key=lambda f: (rank[f.severity], f.bbox_nm))  # fmt: skip
             failing = [f for f in found if _at_or_above(f, fail_on)]
             below = [f for f in found if not _at_or_above(f, fail_on)]
+            plan.append((check, failing, below))
             if failing:
-                for f in failing:
-                    case = ET.SubElement(
-                        suite, "testcase", classname=_x(f"pitchguard.{name}.{check}"),
-                        name=_x(f"{check} at {_where(f)}"), time="0",
-                    )  # fmt: skip
-                    fail = ET.SubElement(case, "failure", message=_x(f.message), type=check)
-                    fail.text = _x(finding_line(f))
-                    tests += 1
-                    failures += 1
+                tests += len(failing)
+                failures += len(failing)
                 suite_out.extend(finding_line(f) for f in below)
             else:
-                case = ET.SubElement(suite, "testcase", classname=_x(f"pitchguard.{name}"),
-                                     name=check, time="0")  # fmt: skip
-                if below:
-                    out = ET.SubElement(case, "system-out")
-                    out.text = _x("\n".join(finding_line(f) for f in below))
                 tests += 1
+
+        def testcases(plan=plan, name=name):
+            for check, failing, below in plan:
+                if failing:
+                    for f in failing:
+                        case = ET.Element("testcase", classname=_x(f"pitchguard.{name}.{check}"),
+                                          name=_x(f"{check} at {_where(f)}"), time="0")  # fmt: skip
+                        fail = ET.SubElement(case, "failure", message=_x(f.message), type=check)
+                        fail.text = _x(finding_line(f))
+                        yield case
+                else:
+                    case = ET.Element("testcase", classname=_x(f"pitchguard.{name}"), name=check,
+                                      time="0")  # fmt: skip
+                    if below:
+                        out = ET.SubElement(case, "system-out")
+                        out.text = _x("\n".join(finding_line(f) for f in below))
+                    yield case
+
+        attrs = {"name": _x(f"pitchguard.{name}"), "tests": str(tests),
+                 "failures": str(failures), "errors": "0", "skipped": "0",
+                 "time": f"{seconds:.3f}"}  # fmt: skip
+        suites.append((attrs, props, testcases, suite_out))
+    return suites
+
+
+def _root_attrs(result: ScanResult, suites: list[tuple]) -> dict:
+    return {"name": "pitchguard", "tests": str(sum(int(s[0]["tests"]) for s in suites)),
+            "failures": str(sum(int(s[0]["failures"]) for s in suites)), "errors": "0",
+            "skipped": "0", "time": f"{result.seconds:.3f}"}  # fmt: skip
+
+
+def _properties(props: list) -> ET.Element:
+    el = ET.Element("properties")
+    for k, v in props:
+        ET.SubElement(el, "property", name=k, value=_x(v))
+    return el
+
+
+def _suite_out(lines: list[str]) -> ET.Element:
+    el = ET.Element("system-out")
+    el.text = _x("\n".join(lines))
+    return el
+
+
+def to_junit_tree(result: ScanResult, deck: Deck, fail_on: str) -> ET.Element:
+    """The ``<testsuites>`` element (see the module docstring for the layout)."""
+    suites = _junit_suites(result, deck, fail_on)
+    root = ET.Element("testsuites", _root_attrs(result, suites))
+    for attrs, props, testcases, suite_out in suites:
+        suite = ET.SubElement(root, "testsuite", attrs)
+        suite.append(_properties(props))
+        suite.extend(testcases())
         if suite_out:
-            out = ET.SubElement(suite, "system-out")
-            out.text = _x("\n".join(suite_out))
-        suite.set("tests", str(tests))
-        suite.set("failures", str(failures))
-        suite.set("errors", "0")
-        suite.set("skipped", "0")
-        suite.set("time", f"{seconds:.3f}")
-        total_tests += tests
-        total_failures += failures
-    root.set("tests", str(total_tests))
-    root.set("failures", str(total_failures))
-    root.set("errors", "0")
-    root.set("skipped", "0")
-    root.set("time", f"{result.seconds:.3f}")
+            suite.append(_suite_out(suite_out))
     return root
 
 
@@ -482,18 +519,48 @@ def to_junit(result: ScanResult, deck: Deck, fail_on: str) -> str:
     return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(root, encoding="unicode") + "\n"
 
 
+def _start_tag(tag: str, attrs: dict) -> str:
+    empty = ET.tostring(ET.Element(tag, attrs), encoding="unicode")  # "<tag ... />"
+    return empty[: -len(" />")] + ">"
+
+
+def _piece(el: ET.Element, level: int) -> str:
+    ET.indent(el, level=level)
+    el.tail = None
+    return "  " * level + ET.tostring(el, encoding="unicode") + "\n"
+
+
 def write_junit(
     out: Path, result: ScanResult, deck: Deck, fail_on: str,
     inputs: list[Path] | None = None,
 ) -> None:  # fmt: skip
-    """Write :func:`to_junit` to ``out`` atomically (never over an input file)."""
-    text = to_junit(result, deck, fail_on)
+    """Write :func:`to_junit`'s text to ``out`` atomically (never over an input file).
+
+    Streamed one ``<testcase>`` at a time: the same text, without the whole
+    tree in memory.
+    """
     if inputs is None:
         inputs = ([result.layout.path] if result.layout else []) + (
             [Path(deck.path)] if deck.path else []
         )
+    suites = _junit_suites(result, deck, fail_on)
 
     def w(tmp: Path) -> None:
-        tmp.write_text(text, encoding="utf-8")
+        with open(tmp, "w", encoding="utf-8") as fh:
+            fh.write('<?xml version="1.0" encoding="UTF-8"?>\n')
+            if not suites:
+                fh.write(ET.tostring(ET.Element("testsuites", _root_attrs(result, suites)),
+                                     encoding="unicode") + "\n")  # fmt: skip
+                return
+            fh.write(_start_tag("testsuites", _root_attrs(result, suites)) + "\n")
+            for attrs, props, testcases, suite_out in suites:
+                fh.write("  " + _start_tag("testsuite", attrs) + "\n")
+                fh.write(_piece(_properties(props), 2))
+                for case in testcases():
+                    fh.write(_piece(case, 2))
+                if suite_out:
+                    fh.write(_piece(_suite_out(suite_out), 2))
+                fh.write("  </testsuite>\n")
+            fh.write("</testsuites>\n")
 
     atomic_write(out, w, inputs)

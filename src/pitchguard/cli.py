@@ -253,7 +253,7 @@ def _write_outputs(args, result, deck, inputs, extra_json: dict | None = None) -
     from pitchguard.report import to_json, write_json, write_markers
 
     if args.json is not None:
-        payload = to_json(result, deck, args.fail_on)
+        payload = to_json(result, deck, args.fail_on, lazy=True)
         if extra_json:
             payload.update(extra_json)
         write_json(args.json, payload, inputs)

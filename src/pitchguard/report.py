@@ -11,6 +11,7 @@ import math
 import os
 import tempfile
 from collections import Counter
+from collections.abc import Sequence
 from pathlib import Path
 
 import numpy as np
@@ -45,8 +46,14 @@ def severity_counts(findings: list[Finding]) -> dict[str, int]:
 # --------------------------------------------------------------------------- JSON
 
 
-def _num(x: float) -> float | None:
-    return x if math.isfinite(x) else None
+def _num(x) -> float | None:
+    """A plain float, or None for inf and nan (JSON has neither)."""
+    x = float(x)
+    return x if x - x == 0.0 else None  # inf - inf and nan - nan are nan
+
+
+def _nums(xs) -> list:
+    return [_num(x) for x in xs]
 
 
 def _clean(obj):
@@ -56,60 +63,64 @@ def _clean(obj):
     if isinstance(obj, list | tuple):
         return [_clean(v) for v in obj]
     if isinstance(obj, float | np.floating):
-        v = float(obj)
-        return v if math.isfinite(v) else None
+        return _num(obj)
     if isinstance(obj, np.integer):
         return int(obj)
     return obj
 
 
 def finding_to_dict(f: Finding) -> dict:
-    return _clean({
+    """A finding as plain JSON values (built field by field: a chip's report makes
+    10^5-10^6 of these, so no generic cleaning pass)."""
+    return {
         "layer": f.layer,
         "source": f.source,
         "exposure": f.exposure,
         "check": f.check,
         "severity": f.severity,
-        "pitch_nm": f.pitch_nm,
-        "pitch_max_nm": f.pitch_max_nm,
+        "pitch_nm": _num(f.pitch_nm),
+        "pitch_max_nm": _num(f.pitch_max_nm),
         "width_nm": _num(f.width_nm),
         "space_nm": _num(f.space_nm),
-        "wafer_pitch_nm": f.wafer_pitch_nm,
-        "k1": f.k1,
-        "orientation_deg": f.orientation_deg,
-        "bbox_um": list(f.bbox_um),
-        "centre_um": list(f.centre_um),
-        "outline_um": [[round(x / 1000.0, 6), round(y / 1000.0, 6)] for x, y in f.outline_nm],
-        "orders": list(f.orders),
-        "orders_on_axis": list(f.orders_on_axis),
-        "two_beam_fraction": f.two_beam_fraction,
-        "cutoff_pitch_nm": f.cutoff_pitch_nm,
-        "lines": f.lines,
+        "wafer_pitch_nm": _num(f.wafer_pitch_nm),
+        "k1": _num(f.k1),
+        "orientation_deg": _num(f.orientation_deg),
+        "bbox_um": _nums(f.bbox_um),
+        "centre_um": _nums(f.centre_um),
+        "outline_um": [[_num(round(x / 1000.0, 6)), _num(round(y / 1000.0, 6))]
+                       for x, y in f.outline_nm],  # fmt: skip
+        "orders": [int(o) for o in f.orders],
+        "orders_on_axis": [int(o) for o in f.orders_on_axis],
+        "two_beam_fraction": _num(f.two_beam_fraction),
+        "cutoff_pitch_nm": _num(f.cutoff_pitch_nm),
+        "lines": int(f.lines),
         "periodicity": f.periodicity,
-        "sites": f.sites,
-        "run_nm": f.run_nm,
+        "sites": int(f.sites),
+        "run_nm": _num(f.run_nm),
         "limit": f.limit,
         "message": f.message,
         "hint": f.hint,
-        "contrast": f.contrast,
-        "nils": f.nils,
-        "printed_cd_nm": f.cd_nm,
-        "cd_error_pct": f.cd_error_pct,
-        "exposure_latitude_pct": f.el_pct,
-        "depth_of_focus_nm": f.dof_nm,
+        "contrast": _num(f.contrast),
+        "nils": _num(f.nils),
+        "printed_cd_nm": _num(f.cd_nm),
+        "cd_error_pct": _num(f.cd_error_pct),
+        "exposure_latitude_pct": _num(f.el_pct),
+        "depth_of_focus_nm": _num(f.dof_nm),
         "worst_line": f.context or None,
-        "cut": {"bounds_nm": list(f.cut_bounds_nm), "angle_deg": f.cut_angle_deg,
-                "origin_um": [f.cut_origin_nm[0] / 1000.0, f.cut_origin_nm[1] / 1000.0],
-                "threshold": f.threshold} if f.cut_bounds_nm else None,
+        "cut": {"bounds_nm": _nums(f.cut_bounds_nm), "angle_deg": _num(f.cut_angle_deg),
+                "origin_um": [_num(f.cut_origin_nm[0] / 1000.0), _num(f.cut_origin_nm[1] / 1000.0)],
+                "threshold": _num(f.threshold)} if f.cut_bounds_nm else None,
         "checks": [
-            {"check": v.check, "severity": v.severity, "value": v.value, "limit": v.limit,
-             "message": v.message}
+            {"check": v.check, "severity": v.severity, "value": _num(v.value),
+             "limit": _num(v.limit), "message": v.message}
             for v in f.violations
         ],
-    })
+    }  # fmt: skip
 
 
-def to_json(result: ScanResult, deck: Deck, fail_on: str) -> dict:
+def to_json(result: ScanResult, deck: Deck, fail_on: str, lazy: bool = False) -> dict:
+    """The JSON report of a scan; with ``lazy`` its findings are :class:`Rows`, made
+    as they are written (for :func:`write_json`)."""
     lay = result.layout
     by_layer = {}
     for st in result.layers:
@@ -144,7 +155,8 @@ def to_json(result: ScanResult, deck: Deck, fail_on: str) -> dict:
             "drawn_scale": deck.drawn_scale,
             "reduction": deck.reduction,
         },
-        "findings": [finding_to_dict(f) for f in result.findings],
+        "findings": Rows(result.findings, finding_to_dict) if lazy else
+                    [finding_to_dict(f) for f in result.findings],
         "summary": {
             "findings": len(result.findings),
             "by_severity": severity_counts(result.findings),
@@ -201,9 +213,78 @@ def atomic_write(out: Path, write, inputs: list[Path]) -> None:
             os.unlink(tmp)
 
 
-def write_json(out: Path, payload: dict, inputs: list[Path]) -> None:
+class Rows(Sequence):
+    """A read-only list whose items are made when read: ``fn(x)`` for each ``x`` of ``items``.
+
+    A chip's scan may hold 10^5 to 10^6 findings: their report rows are made
+    one at a time as the file is written, never all held at once.
+    """
+
+    def __init__(self, items: Sequence, fn):
+        self._items, self._fn = items, fn
+
+    def __len__(self) -> int:
+        return len(self._items)
+
+    def __getitem__(self, k):
+        if isinstance(k, slice):
+            return [self._fn(x) for x in self._items[k]]
+        return self._fn(self._items[k])
+
+    def __iter__(self):
+        return map(self._fn, self._items)
+
+
+def dump_json(value, fh, ensure_ascii: bool = True, level: int = 0) -> None:
+    """Write ``value`` as JSON to ``fh``, a piece at a time.
+
+    Objects are indented by two spaces.  A list of several objects or lists
+    is written one compact line per item (by the C encoder: fast, and a diff
+    of two reports shows whole findings); a list holding one container is
+    expanded like an object; a list of plain values is one line.  Nothing
+    the size of the whole file is built in memory.
+    """
+    pad = "  " * (level + 1)
+
+    def one(v) -> str:
+        return json.dumps(v, ensure_ascii=ensure_ascii, allow_nan=False)
+
+    if isinstance(value, dict):
+        if not value:
+            fh.write("{}")
+            return
+        fh.write("{\n")
+        for k, (key, v) in enumerate(value.items()):
+            fh.write(pad + one(str(key)) + ": ")
+            dump_json(v, fh, ensure_ascii, level + 1)
+            fh.write(",\n" if k < len(value) - 1 else "\n")
+        fh.write("  " * level + "}")
+    elif isinstance(value, (list, tuple, Rows)):
+        if len(value) == 0:
+            fh.write("[]")
+        elif len(value) == 1 and isinstance(value[0], (dict, list, tuple)):
+            fh.write("[\n" + pad)
+            dump_json(value[0], fh, ensure_ascii, level + 1)
+            fh.write("\n" + "  " * level + "]")
+        elif not isinstance(value, Rows) and not any(isinstance(v, (dict, list, tuple))
+                                                     for v in value):  # fmt: skip
+            fh.write(one(list(value)))
+        else:
+            fh.write("[\n")
+            for k, item in enumerate(value):
+                fh.write(pad + one(item) + (",\n" if k < len(value) - 1 else "\n"))
+            fh.write("  " * level + "]")
+    else:
+        fh.write(one(value))
+
+
+def write_json(out: Path, payload: dict, inputs: list[Path], ensure_ascii: bool = True) -> None:
+    """Write ``payload`` (see :func:`dump_json`) to ``out`` atomically."""
+
     def w(tmp: Path) -> None:
-        tmp.write_text(json.dumps(payload, indent=2, allow_nan=False) + "\n", encoding="utf-8")
+        with open(tmp, "w", encoding="utf-8") as fh:
+            dump_json(payload, fh, ensure_ascii)
+            fh.write("\n")
 
     atomic_write(out, w, inputs)
 

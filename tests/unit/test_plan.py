@@ -1,0 +1,117 @@
+"""Tile planning: the tile-size cost model and the memory cap.
+
+Check values come from outside the model: the number of phases at which a
+tile grid meets an array is counted by brute force; the distinct tiles of a
+hierarchical chip are counted from the content keys of every tile (the
+ground truth the scan itself uses).
+"""
+
+from __future__ import annotations
+
+import math
+import random
+
+import pytest
+
+from bench_scale import build_chip  # tests/ is on sys.path (conftest)
+from decks import BENCH_DECK
+from pitchguard.deck import parse_deck
+from pitchguard.errors import LayoutError
+from pitchguard.extract import SITE_CELL_NM
+from pitchguard.parallel import (
+    KEY_COST_SHAPES,
+    PARENT_BASE_MB,
+    TILE_COST_SHAPES,
+    _halo,
+    _phase_fraction,
+    _tile_work,
+    keys_task,
+    plan_tiles,
+    structure_task,
+    tiles_for,
+)
+
+DECK = parse_deck(BENCH_DECK)
+LAYERS = [(r.layer, r.datatype) for r in DECK.layers]
+
+
+@pytest.fixture(scope="module")
+def chip(tmp_path_factory):
+    path = tmp_path_factory.mktemp("plan") / "chip.oas"
+    build_chip(path, 3.5e5)  # 2 x 2 blocks of 210 um with arrays nested inside
+    return path, structure_task(str(path), None, LAYERS, 10**9)
+
+
+def test_phase_share_matches_a_brute_force_count():
+    rng = random.Random(5)
+    for _ in range(300):
+        pitch = rng.randrange(50, 5000) * 10
+        t = rng.randrange(1, 6) * SITE_CELL_NM
+        count = rng.randrange(1, 400)
+        span = count * pitch / t
+        # Tile origins k t meet the array (period ``pitch``) at these phases.
+        phases = len({(k * int(t)) % pitch for k in range(pitch)})
+        expect = 1.0 if span <= 1 else min(span, phases + 1) / span
+        assert _phase_fraction(pitch, count, t) == pytest.approx(expect)
+
+
+def test_nested_arrays_give_a_positive_cost_below_a_flat_scan(chip):
+    _, st = chip
+    halo = _halo(DECK)
+    x0, y0, x1, y1 = st.extent_nm
+    shares = []
+    for k in range(1, 6):
+        t = k * SITE_CELL_NM
+        tiles = ((x1 - x0) / t + 1) * ((y1 - y0) / t + 1)
+        flat = st.shapes * ((t + 2 * halo) / t) ** 2 + (KEY_COST_SHAPES + TILE_COST_SHAPES) * tiles
+        work = _tile_work(st, t, halo)
+        assert 0 < work <= flat
+        shares.append(work / flat)
+    # 10 um tiles meet the 210 um blocks and the arrays in them at few phases.
+    assert shares[0] < 0.5
+
+
+def test_auto_tile_size_is_near_the_best_by_real_content_keys(chip):
+    """The planner's pick costs at most 25 % more than the best size, where each
+    size's cost uses the distinct tiles counted from real content keys."""
+    path, st = chip
+    halo = _halo(DECK)
+    x0, y0, x1, y1 = st.extent_nm
+    density = st.shapes / ((x1 - x0) * (y1 - y0))
+    real = {}
+    for k in range(1, 6):
+        t = k * SITE_CELL_NM
+        tiles = tiles_for(st.extent_nm, t)
+        distinct = len(set(keys_task(str(path), None, LAYERS, tiles, halo)))
+        real[t] = (distinct * density * (t + 2 * halo) ** 2 + KEY_COST_SHAPES * len(tiles)
+                   + TILE_COST_SHAPES * distinct)  # fmt: skip
+    picked, jobs = plan_tiles(st, halo, 2, None, None)
+    assert jobs == 2
+    assert real[picked] <= 1.25 * min(real.values()), (picked, real)
+
+
+def test_memory_cap_drops_workers_then_refuses(chip):
+    _, st = chip
+    halo = _halo(DECK)
+    t_free, jobs_free = plan_tiles(st, halo, 4, None, None)
+    assert jobs_free == 4
+    t_roomy, jobs_roomy = plan_tiles(st, halo, 4, 8000, None)
+    assert jobs_roomy == 4
+    # Room for the parent and about one worker: one worker.
+    _, jobs_tight = plan_tiles(st, halo, 4, PARENT_BASE_MB + 260, None)
+    assert jobs_tight == 1
+    with pytest.raises(LayoutError, match="too small"):
+        plan_tiles(st, halo, 4, PARENT_BASE_MB + 10, None)
+
+
+def test_smaller_caps_never_get_larger_tiles(chip):
+    _, st = chip
+    halo = _halo(DECK)
+    sizes = [plan_tiles(st, halo, 1, cap, None)[0] for cap in (2000, 1000, 700, 560, 480)]
+    assert sizes == sorted(sizes, reverse=True)
+
+
+def test_asked_tile_size_is_rounded_up_to_whole_site_cells(chip):
+    _, st = chip
+    t, _ = plan_tiles(st, _halo(DECK), 1, None, 25.0)
+    assert t == math.ceil(25_000 / SITE_CELL_NM) * SITE_CELL_NM
