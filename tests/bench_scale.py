@@ -14,7 +14,9 @@ each in a fresh process, side by side:
   flat tool pays before it starts);
 * ``scan 1 worker`` and ``scan 2 workers``: ``pitchguard scan --jobs N``
   (tiled, read from the hierarchy);
-* ``scan whole``: the untiled scan (flattens the layout in one process).
+* ``scan whole``: the untiled scan (flattens the layout in one process);
+* ``2 w. + reports`` (with ``--reports``): 2 workers writing every report
+  format (JSON, SARIF, JUnit, marker layout), which costs per finding.
 
 Printed per run: wall time, the largest resident set of any one process
 (the parent or a worker; ``ru_maxrss``), and the ratio to read+flatten.
@@ -94,10 +96,14 @@ def worker(kind: str, path: str, deck: str, jobs: int, tile: float) -> None:
         from pitchguard.cli import main
 
         args = ["scan", path, "--rules", deck, "-q", "--max-shapes", "200000000"]
-        if kind == "tiled":
+        if kind in ("tiled", "reports"):
             args += ["--jobs", str(jobs)] + (["--tile-um", str(tile)] if tile else [])
         else:
             args += ["--untiled"]
+        if kind == "reports":
+            stem = str(Path(path).with_suffix(""))
+            args += ["--json", stem + ".json", "--sarif", stem + ".sarif", "--junit",
+                     stem + ".xml", "--markers", stem + "-markers.oas"]  # fmt: skip
         code = main(args)
         out = {"exit": code}
     out["wall"] = time.perf_counter() - t0
@@ -120,6 +126,8 @@ def main() -> int:
     ap.add_argument("--shapes", type=float, default=1e7)
     ap.add_argument("--tile", type=float, default=0.0, help="tile size, um (default: the scan's)")
     ap.add_argument("--skip-whole", action="store_true", help="do not run the untiled scan")
+    ap.add_argument("--reports", action="store_true",
+                    help="also run 2 workers writing JSON, SARIF, JUnit and markers")  # fmt: skip
     ap.add_argument("--worker")
     ap.add_argument("--file")
     ap.add_argument("--deck")
@@ -143,6 +151,8 @@ def main() -> int:
         rows = [("read+flatten", best)]
         rows.append(("scan 1 worker", run("tiled", chip, deck, 1, args.tile)))
         rows.append(("scan 2 workers", run("tiled", chip, deck, 2, args.tile)))
+        if args.reports:
+            rows.append(("2 w. + reports", run("reports", chip, deck, 2, args.tile)))
         if not args.skip_whole:
             rows.append(("scan whole", run("whole", chip, deck)))
         base = rows[0][1].get("wall", float("nan"))

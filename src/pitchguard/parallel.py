@@ -411,21 +411,31 @@ def scan_tiled(
         for k, key in enumerate(keys):
             groups.setdefault(key, []).append(k)
         reps = [members[0] for members in groups.values()]
-        results = engine.map(tile_task, [(str(p), deck.text, cell, tiles[k], halo) for k in reps],
-                             f"tiles ({len(reps)} of {len(tiles)} distinct)")  # fmt: skip
+        # The parent makes the shifted copies of each distinct tile's findings as
+        # its result arrives, while the workers scan the other tiles.  Many small
+        # records are made and none is garbage or holds a reference cycle: the
+        # cyclic collector is paused meanwhile, and they are frozen out of its
+        # sight afterwards (gc.freeze; reference counting still frees them), so it
+        # never walks them (measured: each pass over 3.6e5 findings costs about
+        # half a second).  The price: the few worker-pool objects alive at the
+        # freeze are not collected before the process ends.
+        assembly = _Assembly(groups, tiles, st.grid_nm)
+        gc_was_on = gc.isenabled()
+        gc.collect()
+        gc.disable()
+        try:
+            engine.map(tile_task, [(str(p), deck.text, cell, tiles[k], halo) for k in reps],
+                       f"tiles ({len(reps)} of {len(tiles)} distinct)",
+                       consume=assembly.add)  # fmt: skip
+            gc.freeze()
+        finally:
+            if gc_was_on:
+                gc.enable()
         tiling = {"tile_um": tile_nm / 1000.0, "tiles": len(tiles), "distinct": len(reps),
                   "workers": engine.workers}  # fmt: skip
-    # Many small records are made below and none is garbage; they hold no
-    # reference cycles.  The cyclic collector is paused while they are made and
-    # they are then frozen (gc.freeze: out of its sight, still freed by reference
-    # counting), so it never walks them (measured: each pass over 3.6e5 findings
-    # costs about half a second).  Cyclic garbage from the worker pool is
-    # collected first, so that nothing collectable is frozen.
-    gc_was_on = gc.isenabled()
-    gc.collect()
     gc.disable()
     try:
-        findings, per_group_stats = _assemble(results, groups, tiles, deck, st.grid_nm)
+        findings, per_group_stats = assembly.finish(deck, st.grid_nm)
         stats = _sum_stats(deck, per_group_stats)
         findings = sort_findings(findings)
         gc.freeze()
@@ -436,27 +446,52 @@ def scan_tiled(
     return ScanResult(findings, stats, layout, [], time.perf_counter() - t0, tiling)
 
 
-def _assemble(results, groups: dict, tiles, deck: Deck, grid_nm: float):
-    """Findings of every tile from those of the distinct tiles, merged across borders."""
-    # Only findings reaching a tile's border can be parts of a region cut by it.
-    inner: list[Finding] = []
-    border: list[Finding] = []
-    border_tile: list[int] = []
-    per_group_stats = []
-    eps = 2.0 * grid_nm
-    for (fs, stats), members in zip(results, groups.values(), strict=True):
+class _Assembly:
+    """Findings of every tile from those of the distinct tiles, merged across borders.
+
+    :meth:`add` takes each distinct tile's result as it arrives (in any order);
+    :meth:`finish` merges the regions cut by tile borders.  The outcome does
+    not depend on the arrival order.
+    """
+
+    def __init__(self, groups: dict, tiles, grid_nm: float):
+        self.members = list(groups.values())
+        self.tiles = tiles
+        self.eps = 2.0 * grid_nm
+        n = len(self.members)
+        self.inner: list = [()] * n
+        self.border: list = [()] * n
+        self.border_tile: list = [()] * n
+        self.stats: list = [None] * n
+
+    def add(self, g: int, result) -> None:
+        fs, stats = result
+        members = self.members[g]
+        tiles, eps = self.tiles, self.eps
         tx0, ty0, tx1, ty1 = tiles[members[0]]
         offsets = np.array([tiles[k][:2] for k in members], dtype=np.float64) - (tx0, ty0)
+        inner: list[Finding] = []
+        border: list[Finding] = []
+        border_tile: list[int] = []
         for f in fs:
             copies = shifted_copies(f, offsets)
             x0, y0, x1, y1 = f.bbox_nm
+            # Only findings reaching a tile's border can be parts of a region cut by it.
             if x0 <= tx0 + eps or y0 <= ty0 + eps or x1 >= tx1 - eps or y1 >= ty1 - eps:
                 border.extend(copies)
                 border_tile.extend(members)
             else:
                 inner.extend(copies)
-        per_group_stats.append((stats, len(members)))
-    return inner + merge_findings(border, deck, grid_nm, border_tile), per_group_stats
+        self.inner[g], self.border[g], self.border_tile[g] = inner, border, border_tile
+        self.stats[g] = (stats, len(members))
+
+    def finish(self, deck: Deck, grid_nm: float) -> tuple[list[Finding], list]:
+        if any(s is None for s in self.stats):
+            raise RuntimeError("a distinct tile's result is missing")
+        inner = [f for part in self.inner for f in part]
+        border = [f for part in self.border for f in part]
+        border_tile = [t for part in self.border_tile for t in part]
+        return inner + merge_findings(border, deck, grid_nm, border_tile), self.stats
 
 
 _MOVED = ("bbox_nm", "outline_nm", "cut_origin_nm", "line_keys")
@@ -554,30 +589,41 @@ class _Engine:
             return max(1, len(self.client.scheduler_info().get("workers", {})))
         return self.jobs
 
-    def map(self, fn, arglists: list[tuple], label: str) -> list:
+    def map(self, fn, arglists: list[tuple], label: str, consume=None) -> list:
+        """``fn(*a)`` for each of ``arglists``, in order; or, with ``consume``, each
+        result handed to ``consume(k, result)`` as it arrives (nothing returned)."""
         if not arglists:
             return []
+        out = [None] * len(arglists)
+        take = consume or out.__setitem__
         if self.client is not None:
-            futures = [self.client.submit(fn, *a, pure=False) for a in arglists]
-            try:
-                return self.client.gather(futures)
-            except Exception as exc:  # a worker lost while reading: bad input
-                raise LayoutError(f"{self.path}: a tile failed on the cluster: "
-                                  f"{type(exc).__name__}: {exc}") from None  # fmt: skip
-        from concurrent.futures import as_completed
+            from distributed import as_completed as cluster_completed
+
+            futs = {self.client.submit(fn, *a, pure=False): k for k, a in enumerate(arglists)}
+            done_iter = cluster_completed(futs)
+        else:
+            from concurrent.futures import as_completed
+
+            futs = {self.pool.submit(fn, *a): k for k, a in enumerate(arglists)}
+            done_iter = as_completed(futs)
         from concurrent.futures.process import BrokenProcessPool
 
-        out = [None] * len(arglists)
-        futs = {self.pool.submit(fn, *a): k for k, a in enumerate(arglists)}
-        try:
-            for done, fut in enumerate(as_completed(futs), 1):
-                out[futs[fut]] = fut.result()
-                if self.progress:
-                    self.progress(label, done, len(arglists))
-        except BrokenProcessPool:
-            raise LayoutError(f"{self.path}: the layout reader crashed in a tile worker: the "
-                              "file is corrupt") from None  # fmt: skip
-        return out
+        for done, fut in enumerate(done_iter, 1):
+            try:
+                result = fut.result()
+            except BrokenProcessPool:
+                raise LayoutError(f"{self.path}: the layout reader crashed in a tile worker: "
+                                  "the file is corrupt") from None  # fmt: skip
+            except Exception as exc:
+                if self.client is None:
+                    raise
+                # A worker lost while reading: bad input.
+                raise LayoutError(f"{self.path}: a tile failed on the cluster: "
+                                  f"{type(exc).__name__}: {exc}") from None  # fmt: skip
+            take(futs[fut], result)
+            if self.progress:
+                self.progress(label, done, len(arglists))
+        return [] if consume else out
 
 
 def _sum_stats(deck: Deck, per_group: list[tuple[list[LayerStats], int]]) -> list[LayerStats]:
