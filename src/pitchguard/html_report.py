@@ -242,27 +242,9 @@ class _Renderer:
             return None, "Layout geometry is not available for this layer.", info
         ambit = rule.ambit_nm / self.scale
         x0, y0, x1, y1 = f.bbox_nm
-        vx0, vy0, vx1, vy1 = x0 - ambit, y0 - ambit, x1 + ambit, y1 + ambit
+        (vx0, vy0, vx1, vy1), clamped, (cx_focus, cy_focus) = view_window(f, ambit)
         ox, oy = f.cut_origin_nm
         has_cut = math.isfinite(ox) and math.isfinite(oy) and math.isfinite(f.cut_angle_deg)
-        limit = MAX_VIEW_AMBITS * ambit
-        clamped = False
-        cx_focus, cy_focus = (ox, oy) if has_cut else ((x0 + x1) / 2, (y0 + y1) / 2)
-        if vx1 - vx0 > limit:
-            vx0, vx1 = cx_focus - limit / 2, cx_focus + limit / 2
-            clamped = True
-        if vy1 - vy0 > limit:
-            vy0, vy1 = cy_focus - limit / 2, cy_focus + limit / 2
-            clamped = True
-        # Fill the axes: widen the shorter side of the view to the axes' aspect ratio.
-        box_w, box_h = LAYOUT_AXES[2] * LAYOUT_PX[0], LAYOUT_AXES[3] * LAYOUT_PX[1]
-        w, h = vx1 - vx0, vy1 - vy0
-        if w / h < box_w / box_h:
-            grow = (h * box_w / box_h - w) / 2
-            vx0, vx1 = vx0 - grow, vx1 + grow
-        else:
-            grow = (w * box_h / box_w - h) / 2
-            vy0, vy1 = vy0 - grow, vy1 + grow
         hit = np.flatnonzero(
             (bb[:, 2] >= vx0) & (bb[:, 0] <= vx1) & (bb[:, 3] >= vy0) & (bb[:, 1] <= vy1)
         )
@@ -996,28 +978,49 @@ CAVEATS = (
 )
 
 
+def view_window(f: Finding, ambit: float) -> tuple[tuple, bool, tuple[float, float]]:
+    """The layout window (nm) a finding's picture shows: ``(window, clamped, focus)``.
+
+    The region plus one ambit, clamped to ``MAX_VIEW_AMBITS`` ambits around
+    the worst site's cut (``clamped``), widened to the axes' aspect ratio.
+    """
+    x0, y0, x1, y1 = f.bbox_nm
+    vx0, vy0, vx1, vy1 = x0 - ambit, y0 - ambit, x1 + ambit, y1 + ambit
+    ox, oy = f.cut_origin_nm
+    has_cut = math.isfinite(ox) and math.isfinite(oy) and math.isfinite(f.cut_angle_deg)
+    limit = MAX_VIEW_AMBITS * ambit
+    clamped = False
+    cx, cy = (ox, oy) if has_cut else ((x0 + x1) / 2, (y0 + y1) / 2)
+    if vx1 - vx0 > limit:
+        vx0, vx1 = cx - limit / 2, cx + limit / 2
+        clamped = True
+    if vy1 - vy0 > limit:
+        vy0, vy1 = cy - limit / 2, cy + limit / 2
+        clamped = True
+    # Fill the axes: widen the shorter side of the view to the axes' aspect ratio.
+    box_w, box_h = LAYOUT_AXES[2] * LAYOUT_PX[0], LAYOUT_AXES[3] * LAYOUT_PX[1]
+    w, h = vx1 - vx0, vy1 - vy0
+    if w / h < box_w / box_h:
+        grow = (h * box_w / box_h - w) / 2
+        vx0, vx1 = vx0 - grow, vx1 + grow
+    else:
+        grow = (w * box_h / box_w - h) / 2
+        vy0, vy1 = vy0 - grow, vy1 + grow
+    return (vx0, vy0, vx1, vy1), clamped, (cx, cy)
+
+
 def picture_windows(result: ScanResult, deck: Deck, max_groups: int = 500) -> list[tuple]:
-    """Layout windows (nm) the pictures of :func:`render_html` can show.
+    """Layout windows (nm) the pictures of :func:`render_html` show (:func:`view_window`).
 
     For scans that kept no geometry (tiled scans): the caller reads these
     windows back from the layout before rendering.
     """
-    scale = deck.scale_to_wafer
     rules = {r.name: r for r in deck.layers}
     out = []
     for g in group_findings(result.findings)[: max(0, max_groups)]:
-        f = g.first
-        rule = rules.get(f.layer)
-        if rule is None:
-            continue
-        ambit = rule.ambit_nm / scale
-        limit = MAX_VIEW_AMBITS * ambit
-        x0, y0, x1, y1 = f.bbox_nm
-        ox, oy = f.cut_origin_nm
-        if not (math.isfinite(ox) and math.isfinite(oy)):
-            ox, oy = (x0 + x1) / 2, (y0 + y1) / 2
-        out.append((max(x0 - limit, ox - limit), max(y0 - limit, oy - limit),
-                    min(x1 + limit, ox + limit), min(y1 + limit, oy + limit)))  # fmt: skip
+        rule = rules.get(g.first.layer)
+        if rule is not None:
+            out.append(view_window(g.first, rule.ambit_nm / deck.scale_to_wafer)[0])
     return out
 
 
