@@ -43,7 +43,7 @@ EXPECTED = [
     ("active, pitch 180", "active", 180, 90, "fail"),
     ("active magnified x2, pitch 160", "active", 160, 90, "fail"),
     ("poly paths, pitch 300", "poly", 300, 90, None),
-    ("poly split in pieces, pitch 150", "poly", 150, 90, "marginal"),
+    ("poly split in pieces, pitch 156", "poly", 156, 90, "marginal"),
     ("poly rotated 45, pitch 120", "poly", 120, 135, "fail"),  # NILS 0.13
     ("poly mirrored array, pitch 110", "poly", 110, 90, "fail"),
     # Relaxed by k1, but 90 nm trenches print 12 % wide at the dose anchored on
@@ -115,8 +115,8 @@ def build() -> gdstk.Library:
             gdstk.FlexPath([(x, 0), (x, 3)], 0.15, layer=POLY[0], datatype=POLY[1])
         )
     top.add(gdstk.Reference(poly_paths, (0, 8)))
-    poly150 = line_cell(lib, "POLY_P150_PIECES", POLY, 150, 75, 16, 3000, pieces=3)
-    top.add(gdstk.Reference(poly150, (5, 8)))
+    poly156 = line_cell(lib, "POLY_P156_PIECES", POLY, 156, 78, 16, 3000, pieces=3)
+    top.add(gdstk.Reference(poly156, (5, 8)))
     poly120 = line_cell(lib, "POLY_P120", POLY, 120, 60, 14, 2500)
     top.add(gdstk.Reference(poly120, (11, 8), rotation=0.7853981633974483))  # 45 deg
     poly110 = line_cell(lib, "POLY_P110", POLY, 110, 55, 10, 1500)

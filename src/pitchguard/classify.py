@@ -24,7 +24,7 @@ per region.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
 
 import numpy as np
@@ -117,11 +117,21 @@ class Finding:
     # nominal threshold.
     # Positions of the region's lines across them (canonical axis, quantised):
     # counts lines, and lets regions cut by tile borders be merged exactly.
-    line_keys: tuple[float, ...] = ()
+    # One point (nm, 0.1 nm) on the axis of each line, as seen from each long edge
+    # of the region: (k, 2).  Counts lines, and lets regions cut by tile borders
+    # be merged exactly.
+    line_points: np.ndarray | None = field(default=None, compare=False, repr=False)
     cut_bounds_nm: tuple[float, ...] = ()
     cut_angle_deg: float = math.nan
     cut_origin_nm: tuple[float, float] = (math.nan, math.nan)
     threshold: float = math.nan
+    # Tiled scans only, until tiles are merged: the region's sites near its tile's
+    # border, rows (4 corners x, y; orientation; pitch), drawn nm.  Regions of
+    # neighbouring tiles are merged exactly where such sites touch.
+    border_sites: np.ndarray | None = field(default=None, compare=False, repr=False)
+    # ... and the convex hull (k, 2) of all its sites' corners: the region's extent
+    # in any frame, for the outline of a merged region.
+    extent_nm: np.ndarray | None = field(default=None, compare=False, repr=False)
 
     @property
     def bbox_um(self) -> tuple[float, float, float, float]:
@@ -288,21 +298,39 @@ def canonical_normal(normal: np.ndarray) -> np.ndarray:
     return np.where(flip[..., None], -normal, normal)
 
 
-def _line_keys(fs: Sites, members: np.ndarray, grid_nm: float) -> tuple[float, ...]:
-    """Positions (nm, 0.1 nm) of the members' line axes along the canonical normal."""
+def _line_points(fs: Sites, members: np.ndarray) -> np.ndarray:
+    """Points (nm, 0.1 nm) on the members' line axes, one per long edge.
+
+    Taken at the start of each site's edge (every piece of an edge gives the
+    same point), half the line's width inside.
+    """
     n = fs.normal[members]
     w = np.where(np.isfinite(fs.width[members]), fs.width[members], 0.0)
-    centre = fs.origin[members] - n * (0.5 * w)[:, None]  # a point on the line's axis
-    nc = canonical_normal(n[0])
-    return tuple(sorted(set(np.round(centre @ nc, 1).tolist())))
+    centre = fs.origin[members] - n * (0.5 * w)[:, None]
+    return np.unique(np.round(centre, 1), axis=0)
 
 
-def count_lines(keys: tuple[float, ...], grid_nm: float) -> int:
-    """Lines among line positions: clusters more than LINE_GAP_NM apart."""
-    if not keys:
+def count_lines(points: np.ndarray, normal: np.ndarray, grid_nm: float) -> int:
+    """Lines among line-axis points: clusters of their positions along ``normal``
+    (the region's worst site's canonical normal) more than LINE_GAP_NM apart."""
+    if points is None or len(points) == 0:
         return 0
     gap = max(LINE_GAP_NM, 3.0 * grid_nm)
-    return 1 + int(np.sum(np.diff(np.array(keys)) > gap))
+    pos = np.sort(np.asarray(points) @ normal)
+    return 1 + int(np.sum(np.diff(pos) > gap))
+
+
+def _hull(points: np.ndarray) -> np.ndarray:
+    """The convex hull's vertices (all points when they are degenerate)."""
+    from scipy.spatial import ConvexHull, QhullError
+
+    pts = np.unique(points, axis=0)
+    if len(pts) < 3:
+        return pts
+    try:
+        return pts[ConvexHull(pts).vertices]
+    except QhullError:  # collinear: the extremes are among the points
+        return pts
 
 
 def _periodicity(lines: int, dense_min: int) -> str:
@@ -449,6 +477,26 @@ def _hint_cached(rule: LayerRule, checks: tuple[str, ...], cutoff_pitch_nm: floa
     return f"at this {feature} width, pitch {p_d:.1f} nm (space {s_d:.1f} nm) passes every limit"
 
 
+def _near_border(corners: np.ndarray, tile, reach: float) -> np.ndarray:
+    """Sites of a tile that sites of other tiles may touch.
+
+    A site's rectangle reaches at most its width or space from its edge
+    piece, and the piece lies in the tile; widths and spaces are found within
+    the ambit.  So a site of another tile can touch only sites whose rectangle
+    comes within ``reach`` (the ambit, plus a margin) of the tile's border.
+    """
+    x0, y0, x1, y1 = tile
+    lo, hi = corners.min(axis=1), corners.max(axis=1)
+    return (lo[:, 0] <= x0 + reach) | (lo[:, 1] <= y0 + reach) | \
+        (hi[:, 0] >= x1 - reach) | (hi[:, 1] >= y1 - reach)  # fmt: skip
+
+
+def _site_rows(fs: Sites, corners: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    """Rows (4 corners x, y; orientation; pitch) of sites ``idx``."""
+    return np.column_stack([corners[idx].reshape(len(idx), 8), fs.orientation_deg[idx],
+                            fs.pitch[idx]])  # fmt: skip
+
+
 def classify_layer(
     sites: Sites,
     rule: LayerRule,
@@ -458,12 +506,15 @@ def classify_layer(
     which_cut: np.ndarray | None = None,
     cuts: list | None = None,
     hints: bool = True,
+    tile_nm: tuple[float, float, float, float] | None = None,
 ) -> list[Finding]:
     """Findings (one per region) for the sites of one layer.
 
     ``metrics[which_cut[k]]`` are the image metrics of site ``k`` (-1: not
     imaged).  Sites merge into a region when their pitches differ by at most
     ``max(pitch_tolerance_nm, SNAP_PITCH_SPREAD * grid_nm)`` (drawn nm).
+    With ``tile_nm`` (a tile of a tiled scan) each finding keeps its sites
+    that sites of other tiles could touch (:attr:`Finding.border_sites`).
     """
     severity, results, which, found = judge_sites(
         sites, rule, scale_to_wafer, metrics, which_cut
@@ -483,6 +534,10 @@ def classify_layer(
     angle_all = fs.orientation_deg
     normal_all = fs.normal
     mid_all = fs.midpoints()
+    near_border = None
+    if tile_nm is not None:
+        reach = rule.ambit_nm / scale_to_wafer + 2.0 * grid_nm
+        near_border = _near_border(corners_all, tile_nm, reach)
     out = []
     for members in np.split(order, bounds):
         # The worst site: most severe, then smallest pitch (finite pitches first).
@@ -513,8 +568,8 @@ def classify_layer(
             float(ol[:, 0].min()), float(ol[:, 1].min()),
             float(ol[:, 0].max()), float(ol[:, 1].max()),
         )  # fmt: skip
-        line_keys = _line_keys(fs, members, grid_nm)
-        lines = count_lines(line_keys, grid_nm)
+        line_points = _line_points(fs, members)
+        lines = count_lines(line_points, canonical_normal(normal_all[worst]), grid_nm)
         pitch_drawn = float(pitch_all[worst])
         width_drawn = float(fs.width[worst])
         top = vs[0]
@@ -526,6 +581,8 @@ def classify_layer(
         context = cuts[c_idx].context if (cuts and c_idx >= 0) else ""
         cut = cuts[c_idx] if (cuts and c_idx >= 0) else None
         mid = mid_all[worst]
+        border = None if near_border is None else \
+            _site_rows(fs, corners_all, members[near_border[members]])  # fmt: skip
         message = top.message
         if context == "outer" and top.check in IMAGE_CHECKS:
             message += " (at the last line of the array)"
@@ -571,7 +628,10 @@ def classify_layer(
                 cut_angle_deg=round(pitch_angle % 360.0, 3),
                 cut_origin_nm=(float(mid[0]), float(mid[1])),
                 threshold=round(m.threshold, 5) if m else math.nan,
-                line_keys=line_keys,
+                line_points=line_points,
+                border_sites=border,
+                extent_nm=_hull(corners_all[members].reshape(-1, 2)) if border is not None
+                and len(border) else None,  # fmt: skip
             )
         )
     out.sort(key=lambda f: (f.severity_rank, f.k1, f.bbox_nm))

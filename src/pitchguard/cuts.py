@@ -127,6 +127,9 @@ def site_cuts(
         # Sites whose raw crossing patterns (quantised) agree are worked out once:
         # a 128-bit polynomial hash of each pattern, vectorised.
         tq = np.round(t / q).astype(np.int64)
+        # A crossing within half a step of the site keeps its side (sub-grid slivers).
+        tiny = (tq == 0) & (t != 0)
+        tq[tiny] = np.sign(t[tiny]).astype(np.int64)
         val = (tq * 2 + entering).astype(np.uint64)
         rank = np.arange(len(qk)) - starts[qk]
         h = np.zeros((len(ids), 2), dtype=np.uint64)
@@ -139,15 +142,19 @@ def site_cuts(
                         angle_key[ids]], axis=1)  # fmt: skip
         _, first, inverse = np.unique(raw, axis=0, return_index=True, return_inverse=True)
         inverse = inverse.ravel()
-        t_l, ent_l = t.tolist(), entering.tolist()
+        # The cut of a pattern is built from the quantised pattern alone (not from
+        # the exact crossings of whichever site came first), so every site with
+        # that pattern gets the same cut however the layout was split into tiles.
+        tq_l, ent_l, wq_l = tq.tolist(), entering.tolist(), wq.tolist()
         rep_cut = np.full(len(first), -1, dtype=np.int64)
         for u, k in enumerate(first.tolist()):
             site = int(ids[k])
-            bounds = _bounds(t_l[starts[k] : ends[k]], ent_l[starts[k] : ends[k]], ambit_nm, q)
+            ts = [v * q for v in tq_l[starts[k] : ends[k]]]
+            bounds = _bounds(ts, ent_l[starts[k] : ends[k]], ambit_nm, q)
             if bounds is None:
                 continue
-            centre = -0.5 * float(sites.width[site])
-            rel = tuple(round((x - centre) / q) for x in bounds)
+            # Relative to the feature centre (at -width / 2), in half grid steps.
+            rel = tuple(round(2.0 * x / q) + wq_l[k] for x in bounds)
             mirrored = tuple(-v for v in reversed(rel))
             prof = min(rel, mirrored)
             key = (int(angle_key[site]), prof)
@@ -155,7 +162,7 @@ def site_cuts(
             if idx is None:
                 idx = len(cuts)
                 keys[key] = idx
-                cuts.append(Cut(tuple(v * q for v in prof), ambit_nm))
+                cuts.append(Cut(tuple(v * 0.5 * q for v in prof), ambit_nm))
                 angles.append(key[0] / 10.0)
             rep_cut[u] = idx
         which[ids] = rep_cut[inverse]

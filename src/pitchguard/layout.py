@@ -216,10 +216,21 @@ def count_shapes_within(path: Path, tops, wanted: set, max_shapes: int) -> tuple
     return total, memo
 
 
+SNAP_TIE_TOL = 1e-6
+"""Half-way points within this many grid steps of a tie round up.  Ties are real:
+a GDSII array's lattice vectors are stored as whole database units over the
+column or row count, so instances can sit on half (or finer) steps; the float
+noise of different transform orders (a full flatten, a tile's hierarchy query)
+must not decide which way such a vertex goes."""
+
+
 def snap_to_grid(ps: PolygonSet, grid_nm: float) -> PolygonSet:
     """``ps`` back onto the database grid, in place: nm conversion and transforms
-    leave float noise (199.9999999 for 200); the mask writer snaps anyway."""
-    np.round(ps.points / grid_nm, out=ps.points)
+    leave float noise (199.9999999 for 200); the mask writer snaps anyway.
+    Ties (to within ``SNAP_TIE_TOL``) round up, whatever the noise."""
+    np.divide(ps.points, grid_nm, out=ps.points)
+    np.add(ps.points, 0.5 + SNAP_TIE_TOL, out=ps.points)
+    np.floor(ps.points, out=ps.points)
     np.multiply(ps.points, grid_nm, out=ps.points)
     return ps
 

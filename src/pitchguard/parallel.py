@@ -161,7 +161,7 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float):
     # Hints are made here, in parallel, once per distinct tile's finding (a hint does
     # not depend on where the finding is); they travel with its shifted copies, and
     # a region merged across tiles keeps its worst part's.
-    findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile))
+    findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile), tile=True)
     return findings, stats
 
 
@@ -457,7 +457,6 @@ class _Assembly:
     def __init__(self, groups: dict, tiles, grid_nm: float):
         self.members = list(groups.values())
         self.tiles = tiles
-        self.eps = 2.0 * grid_nm
         n = len(self.members)
         self.inner: list = [()] * n
         self.border: list = [()] * n
@@ -467,17 +466,16 @@ class _Assembly:
     def add(self, g: int, result) -> None:
         fs, stats = result
         members = self.members[g]
-        tiles, eps = self.tiles, self.eps
-        tx0, ty0, tx1, ty1 = tiles[members[0]]
+        tiles = self.tiles
+        tx0, ty0 = tiles[members[0]][:2]
         offsets = np.array([tiles[k][:2] for k in members], dtype=np.float64) - (tx0, ty0)
         inner: list[Finding] = []
         border: list[Finding] = []
         border_tile: list[int] = []
         for f in fs:
             copies = shifted_copies(f, offsets)
-            x0, y0, x1, y1 = f.bbox_nm
-            # Only findings reaching a tile's border can be parts of a region cut by it.
-            if x0 <= tx0 + eps or y0 <= ty0 + eps or x1 >= tx1 - eps or y1 >= ty1 - eps:
+            # Only findings with sites near a tile's border can join other tiles'.
+            if f.border_sites is not None and len(f.border_sites):
                 border.extend(copies)
                 border_tile.extend(members)
             else:
@@ -491,12 +489,17 @@ class _Assembly:
         inner = [f for part in self.inner for f in part]
         border = [f for part in self.border for f in part]
         border_tile = [t for part in self.border_tile for t in part]
-        return inner + merge_findings(border, deck, grid_nm, border_tile), self.stats
+        merged = merge_findings(border, deck, grid_nm, border_tile)
+        for f in inner + merged:  # border sites and extents served the merge; let them go
+            if f.border_sites is not None or f.extent_nm is not None:
+                _set(f, "border_sites", None)
+                _set(f, "extent_nm", None)
+        return inner + merged, self.stats
 
 
-_MOVED = ("bbox_nm", "outline_nm", "cut_origin_nm", "line_keys")
+_MOVED = ("bbox_nm", "outline_nm", "cut_origin_nm", "line_points", "border_sites", "extent_nm")
 _MERGED = ("pitch_max_nm", "lines", "periodicity", "sites", "run_nm", "bbox_nm", "outline_nm",
-           "line_keys")  # fmt: skip
+           "line_points", "border_sites", "extent_nm")  # fmt: skip
 
 
 def _make_copier(changed: tuple[str, ...]):
@@ -519,17 +522,19 @@ def _make_copier(changed: tuple[str, ...]):
 
 
 _mover = _make_copier(_MOVED)
+_set = object.__setattr__  # findings are frozen; only fresh copies made here are set
 _merged = _make_copier(_MERGED)
 
 
-def _line_normal(f: Finding) -> np.ndarray:
-    """The canonical normal of the finding's lines, from its outline (as line keys use)."""
-    o = np.array(f.outline_nm[:2])
-    d = o[1] - o[0]
-    length = math.hypot(*d)
-    if length == 0:
-        return _frame(f)[1]
-    return canonical_normal(np.array([d[1], -d[0]]) / length)
+def _moved(arr: np.ndarray | None, offsets: np.ndarray, columns: int = 2):
+    """``arr`` (k, c) moved by each of ``offsets`` (m, 2) on its first ``columns``
+    (x, y pairs): (m, k, c), or None for None."""
+    if arr is None:
+        return None
+    shift = np.zeros((len(offsets), arr.shape[1]))
+    shift[:, 0:columns:2] = offsets[:, :1]
+    shift[:, 1:columns:2] = offsets[:, 1:]
+    return arr[None, :, :] + shift[:, None, :]
 
 
 def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
@@ -537,20 +542,21 @@ def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
 
     The findings of a tile, reused for every tile with the same content.
     """
-    keys = np.asarray(f.line_keys, dtype=np.float64)
-    if len(keys):
-        along = offsets @ _line_normal(f)
-        moved_keys = np.round(keys[None, :] + along[:, None], 1).tolist()
     boxes = (np.asarray(f.bbox_nm) + np.tile(offsets, 2)).tolist()
     outlines = (np.asarray(f.outline_nm)[None, :, :] + offsets[:, None, :]).tolist()
     cuts = (np.asarray(f.cut_origin_nm) + offsets).tolist()
+    points = _moved(f.line_points, offsets)
+    rows = _moved(f.border_sites, offsets, 8)
+    hulls = _moved(f.extent_nm, offsets)
     out = []
     for k, (dx, dy) in enumerate(offsets.tolist()):
         if dx == 0 and dy == 0:
             out.append(f)
             continue
         out.append(_mover(f, tuple(boxes[k]), tuple(map(tuple, outlines[k])), tuple(cuts[k]),
-                          tuple(moved_keys[k]) if len(keys) else f.line_keys))  # fmt: skip
+                          None if points is None else points[k],
+                          None if rows is None else rows[k],
+                          None if hulls is None else hulls[k]))  # fmt: skip
     return out
 
 
@@ -648,22 +654,17 @@ def _sum_stats(deck: Deck, per_group: list[tuple[list[LayerStats], int]]) -> lis
 # --------------------------------------------------------------------------- merging
 
 
-def _frame(f: Finding):
-    ang = math.radians(f.orientation_deg)
-    d = np.array([math.cos(ang), math.sin(ang)])
-    return d, canonical_normal(np.array([d[1], -d[0]]))
-
-
 def merge_findings(findings: list[Finding], deck: Deck, grid_nm: float,
-                   tile_of: list[int] | None = None) -> list[Finding]:  # fmt: skip
-    """Merge findings of one region that tile borders cut apart.
+                   tile_of: list[int]) -> list[Finding]:  # fmt: skip
+    """Merge the parts of regions that tile borders cut apart.
 
-    Two parts join when their boxes touch, they are on one layer, their lines
-    run the same way (within ``ORIENTATION_TOL_DEG``), their pitches agree
-    (within the layer's pitch tolerance, or their pitch ranges overlap) and
-    their outlines touch in the frame of the first.  ``tile_of`` gives each
-    finding's tile: findings of one tile are distinct regions already and
-    are merged only through parts in other tiles.
+    Exactly the rule a whole-layout scan forms regions by (``classify._regions``),
+    applied to the sites near tile borders (``Finding.border_sites``): two
+    parts in different tiles join when a site of each touches the other's,
+    on the same layer, with lines the same way (within
+    ``ORIENTATION_TOL_DEG``) and pitches within the layer's tolerance (or
+    either infinite).  ``tile_of`` gives each finding's tile; parts of one
+    tile join only through parts in others.
     """
     from scipy.sparse import coo_matrix
     from scipy.sparse.csgraph import connected_components
@@ -673,51 +674,44 @@ def merge_findings(findings: list[Finding], deck: Deck, grid_nm: float,
     n = len(findings)
     if n < 2:
         return list(findings)
-    scale = deck.scale_to_wafer
-    eps = 2.0 * grid_nm
-    boxes = np.array([f.bbox_nm for f in findings], dtype=np.float64)
-    lo, hi = boxes[:, :2] - eps, boxes[:, 2:] + eps
-    qi, qj = _query_pairs(_rtree(lo, hi), lo, hi)
-    keep = qi < qj
-    if tile_of is not None:
-        t = np.asarray(tile_of)
-        keep &= t[qi] != t[qj]
     names = [r.name for r in deck.layers]
-    layer = np.array([names.index(f.layer) for f in findings])
-    keep &= layer[qi] == layer[qj]
+    tol_of = np.array([max(r.pitch_tolerance_nm / deck.scale_to_wafer,
+                           SNAP_PITCH_SPREAD * grid_nm) for r in deck.layers])  # fmt: skip
+    rows = [f.border_sites for f in findings]
+    owner = np.repeat(np.arange(n), [len(r) for r in rows])
+    sites = np.concatenate(rows) if len(owner) else np.zeros((0, 10))
+    corners = sites[:, :8].reshape(-1, 4, 2)
+    ang, pitch = sites[:, 8], sites[:, 9]
+    layer = np.array([names.index(f.layer) for f in findings])[owner]
+    tile = np.asarray(tile_of)[owner]
+    lo, hi = corners.min(axis=1), corners.max(axis=1)
+    qi, qj = _query_pairs(_rtree(lo, hi), lo, hi)
+    keep = (qi < qj) & (tile[qi] != tile[qj]) & (layer[qi] == layer[qj])
     qi, qj = qi[keep], qj[keep]
-    ang = np.array([f.orientation_deg for f in findings])
-    dang = np.abs(ang[qi] - ang[qj]) % 180.0
-    same_way = np.minimum(dang, 180.0 - dang) < ORIENTATION_TOL_DEG
-    tol_of = np.array([max(r.pitch_tolerance_nm / scale, SNAP_PITCH_SPREAD * grid_nm)
-                       for r in deck.layers])  # fmt: skip
-    tol = tol_of[layer[qi]]
-    p = np.array([f.pitch_nm for f in findings])
-    pmax = np.array([f.pitch_max_nm for f in findings])
-    pi, pj = p[qi], p[qj]
+    dang = np.abs(ang[qi] - ang[qj])
+    keep = np.minimum(dang, 180.0 - dang) < ORIENTATION_TOL_DEG
     with np.errstate(invalid="ignore"):
-        pitch_ok = (np.isinf(pi) | np.isinf(pj) | (np.abs(pi - pj) <= tol)
-                    | ((pi <= pmax[qj] + tol) & (pj <= pmax[qi] + tol)))  # fmt: skip
-    qi, qj = qi[same_way & pitch_ok], qj[same_way & pitch_ok]
-    # Outlines (oriented rectangles) touch: their projections overlap on both
-    # axes of the first one's frame (the sign of an axis does not matter).
-    outlines = np.array([f.outline_nm for f in findings], dtype=np.float64)  # (n, 4, 2)
+        same_pitch = np.abs(pitch[qi] - pitch[qj]) <= tol_of[layer[qi]]
+    keep &= same_pitch | np.isinf(pitch[qi]) | np.isinf(pitch[qj])
+    qi, qj = qi[keep], qj[keep]
+    # Exact overlap test in the frame of site qi, as whole-layout regions use.
     rad = np.radians(ang[qi])
     d = np.stack([np.cos(rad), np.sin(rad)], axis=1)
-    touching = np.ones(len(qi), dtype=bool)
+    touch = np.ones(len(qi), dtype=bool)
     for axis in (d, np.stack([d[:, 1], -d[:, 0]], axis=1)):
-        ua = np.einsum("kcx,kx->kc", outlines[qi], axis)
-        ub = np.einsum("kcx,kx->kc", outlines[qj], axis)
-        a0, a1, b0, b1 = ua.min(axis=1), ua.max(axis=1), ub.min(axis=1), ub.max(axis=1)
-        touching &= (a0 <= b1 + eps) & (b0 <= a1 + eps)
-    qi, qj = qi[touching], qj[touching]
-    graph = coo_matrix((np.ones(len(qi)), (qi, qj)), shape=(n, n))
+        pi = np.einsum("ikj,ij->ik", corners[qi], axis)
+        pj = np.einsum("ikj,ij->ik", corners[qj], axis)
+        touch &= (pi.min(axis=1) <= pj.max(axis=1) + 1e-6) & \
+            (pj.min(axis=1) <= pi.max(axis=1) + 1e-6)  # fmt: skip
+    a, b = owner[qi[touch]], owner[qj[touch]]
+    graph = coo_matrix((np.ones(len(a)), (a, b)), shape=(n, n))
     _, labels = connected_components(graph, directed=False)
     # Groups in the order of their first finding, members in index order.
     order = np.argsort(labels, kind="stable")
     bounds = np.flatnonzero(np.diff(labels[order])) + 1
     groups = sorted(np.split(order, bounds), key=lambda g: g[0])
     multi = [g for g in groups if len(g) > 1]
+    outlines = np.array([f.outline_nm for f in findings], dtype=np.float64)
     merged = iter(_merge_groups(findings, multi, outlines, deck, grid_nm))
     return [findings[g[0]] if len(g) == 1 else next(merged) for g in groups]
 
@@ -750,14 +744,20 @@ def _merge_groups(findings: list[Finding], groups: list[np.ndarray], outlines: n
     d = np.where(length[:, None] > 0, d / np.where(length > 0, length, 1.0)[:, None],
                  np.stack([np.cos(rad), np.sin(rad)], axis=1))  # fmt: skip
     nrm = np.stack([d[:, 1], -d[:, 0]], axis=1)
-    pts = outlines[members]  # (parts, 4, 2)
-    pu = np.einsum("kcx,kx->kc", pts, d[gid])
-    pv = np.einsum("kcx,kx->kc", pts, nrm[gid])
+    # The parts' extents (hulls of their sites' corners) in the frame of the worst.
+    hulls = [findings[k].extent_nm if findings[k].extent_nm is not None
+             else outlines[k] for k in members.tolist()]  # fmt: skip
+    sizes = np.array([len(h) for h in hulls])
+    pts = np.concatenate(hulls)
+    owner = np.repeat(gid, sizes)
+    pu = pts[:, 0] * d[owner, 0] + pts[:, 1] * d[owner, 1]
+    pv = pts[:, 0] * nrm[owner, 0] + pts[:, 1] * nrm[owner, 1]
+    starts_pts = np.r_[0, np.cumsum(np.bincount(owner, minlength=len(groups)))[:-1]]
+    u0 = np.minimum.reduceat(pu, starts_pts)
+    u1 = np.maximum.reduceat(pu, starts_pts)
+    v0 = np.minimum.reduceat(pv, starts_pts)
+    v1 = np.maximum.reduceat(pv, starts_pts)
     starts = np.r_[0, np.cumsum([len(g) for g in groups])[:-1]]
-    u0 = np.minimum.reduceat(pu.min(axis=1), starts)
-    u1 = np.maximum.reduceat(pu.max(axis=1), starts)
-    v0 = np.minimum.reduceat(pv.min(axis=1), starts)
-    v1 = np.maximum.reduceat(pv.max(axis=1), starts)
     corners = np.stack([d * u0[:, None] + nrm * v0[:, None], d * u1[:, None] + nrm * v0[:, None],
                         d * u1[:, None] + nrm * v1[:, None], d * u0[:, None] + nrm * v1[:, None]],
                        axis=1)  # fmt: skip
@@ -769,9 +769,11 @@ def _merge_groups(findings: list[Finding], groups: list[np.ndarray], outlines: n
     for g, (b, corner, box) in enumerate(zip(best.tolist(), corners.tolist(), boxes.tolist(),
                                              strict=True)):  # fmt: skip
         f = findings[b]
-        keys = tuple(sorted(set().union(*(findings[k].line_keys for k in groups[g].tolist()))))
-        lines = count_lines(keys, grid_nm)
+        parts = [findings[k].line_points for k in groups[g].tolist()]
+        points = np.unique(np.concatenate([q for q in parts if q is not None] or
+                                          [np.zeros((0, 2))]), axis=0)  # fmt: skip
+        lines = count_lines(points, canonical_normal(nrm[g]), grid_nm)
         out.append(_merged(f, float(pmax[g]), lines, _periodicity(lines, dense[f.layer]),
                            int(sites[g]), round(float(u1[g] - u0[g]), 3), tuple(box),
-                           tuple(map(tuple, corner)), keys))  # fmt: skip
+                           tuple(map(tuple, corner)), points, None, None))  # fmt: skip
     return out

@@ -66,11 +66,14 @@ def scan_polygons(
     region_nm: tuple[float, float, float, float] | None = None,
     progress: Progress | None = None,
     hints: bool = True,
+    tile: bool = False,
 ) -> tuple[list[Finding], list[LayerStats]]:
     """Scan the deck's layers in ``polygons`` (nm, as drawn).
 
     With ``region_nm`` only sites whose midpoint lies in the region are judged;
-    shapes up to one ambit outside it are still seen as neighbours.
+    shapes up to one ambit outside it are still seen as neighbours.  With
+    ``tile`` the region is a tile of a tiled scan: findings keep the sites
+    that regions of other tiles may join through (``Finding.border_sites``).
     """
     findings: list[Finding] = []
     stats: list[LayerStats] = []
@@ -108,7 +111,8 @@ def scan_polygons(
             ex.extra["unique_cuts"] = len(cuts)
             ex.extra["imaged_sites"] = int((which_cut >= 0).sum())
         findings.extend(
-            classify_layer(sites, rule, scale, grid_nm, metrics, which_cut, cuts, hints=hints)
+            classify_layer(sites, rule, scale, grid_nm, metrics, which_cut, cuts, hints=hints,
+                           tile_nm=region_nm if tile else None)  # fmt: skip
         )
         stats.append(
             LayerStats(rule.name, rule.source, len(ps), ex, time.perf_counter() - t0)

@@ -107,3 +107,53 @@ def test_repeated_tiles_are_scanned_once_and_give_the_same_findings(tmp_path):
     assert reused.tiling["tiles"] == 16 * 16  # one tile per cell (the extent ends at 159.95 um)
     assert reused.tiling["distinct"] <= 16  # corner, edge and interior kinds
     assert plain.tiling["distinct"] == plain.tiling["tiles"]
+
+
+def _random_chip(path, seed: int, overlap: bool) -> None:
+    """Arrays of line cells (random pitch, width, length, count), placed by references
+    with rotations (0/90/180, and 45 deg when the arrays stay apart), mirroring and
+    array lattices; with ``overlap`` they land anywhere on each other (Manhattan only:
+    see the README's known limit on overlapping 45 deg shapes)."""
+    import math
+    import random
+
+    rng = random.Random(seed)
+    lib = gdstk.Library()
+    cells = []
+    for c in range(4):
+        cell = lib.new_cell(f"C{c}")
+        pitch = rng.choice([0.1, 0.12, 0.14, 0.16, 0.2, 0.25, 0.3])
+        w = pitch * rng.uniform(0.35, 0.65)
+        length = rng.uniform(0.5, 4)
+        for k in range(rng.randint(2, 20)):
+            cell.add(gdstk.rectangle((k * pitch, 0), (k * pitch + w, length), layer=7))
+        cells.append(cell)
+    top = lib.new_cell("TOP")
+    turns = [0, math.pi / 2, math.pi] + ([] if overlap else [math.pi / 4, 3 * math.pi / 4])
+    for r in range(rng.randint(3, 7)):
+        if overlap:
+            origin = (round(rng.uniform(0, 60), 3), round(rng.uniform(0, 60), 3))
+            spacing = (round(rng.uniform(1, 6), 3), round(rng.uniform(4, 8), 3))
+            n = 6
+        else:
+            origin = (r * 45 + round(rng.uniform(0, 5), 3), round(rng.uniform(0, 5), 3))
+            spacing = (round(rng.uniform(6, 9), 3), round(rng.uniform(6, 9), 3))
+            n = 4
+        top.add(gdstk.Reference(rng.choice(cells), origin, rotation=rng.choice(turns),
+                                columns=rng.randint(1, n), rows=rng.randint(1, n),
+                                spacing=spacing, x_reflection=rng.random() < 0.2))  # fmt: skip
+    lib.write_gds(str(path))
+
+
+@pytest.mark.parametrize(("seed", "overlap"), [(2, False), (5, False), (7, False), (1, True),
+                                               (3, True)])  # fmt: skip
+def test_random_layouts_give_the_same_findings_tiled(tmp_path, seed, overlap):
+    """Layouts this suite did not design: tile borders fall anywhere on 45 deg arrays,
+    mirrored arrays, arrays of half-unit lattice steps and overlapping shapes."""
+    path = tmp_path / f"r{seed}.gds"
+    _random_chip(path, seed, overlap)
+    deck = parse_deck(DRY_ARF_DECK)
+    whole = scan_layout(path, deck)
+    assert len(whole.findings) > 5
+    for tile_um in (10, 30):
+        _same(whole, scan_tiled(path, deck, tile_um=tile_um, jobs=2))
