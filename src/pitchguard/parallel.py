@@ -452,6 +452,11 @@ class _Assembly:
     :meth:`add` takes each distinct tile's result as it arrives (in any order);
     :meth:`finish` merges the regions cut by tile borders.  The outcome does
     not depend on the arrival order.
+
+    Which parts of two neighbouring tiles join depends only on the two tiles'
+    contents and where they sit relative to each other: it is worked out once
+    per such pair of distinct tiles (from their sites near the border, by the
+    whole-layout scan's own region rule) and applied to every copy of the pair.
     """
 
     def __init__(self, groups: dict, tiles, grid_nm: float):
@@ -459,8 +464,8 @@ class _Assembly:
         self.tiles = tiles
         n = len(self.members)
         self.inner: list = [()] * n
-        self.border: list = [()] * n
-        self.border_tile: list = [()] * n
+        self.border: list = [()] * n  # copies, rep-major: rep r's copy on member m at r M + m
+        self.reps: list = [()] * n  # the distinct tile's own border findings
         self.stats: list = [None] * n
 
     def add(self, g: int, result) -> None:
@@ -471,16 +476,16 @@ class _Assembly:
         offsets = np.array([tiles[k][:2] for k in members], dtype=np.float64) - (tx0, ty0)
         inner: list[Finding] = []
         border: list[Finding] = []
-        border_tile: list[int] = []
+        reps: list[Finding] = []
         for f in fs:
             copies = shifted_copies(f, offsets)
             # Only findings with sites near a tile's border can join other tiles'.
             if f.border_sites is not None and len(f.border_sites):
+                reps.append(f)
                 border.extend(copies)
-                border_tile.extend(members)
             else:
                 inner.extend(copies)
-        self.inner[g], self.border[g], self.border_tile[g] = inner, border, border_tile
+        self.inner[g], self.border[g], self.reps[g] = inner, border, reps
         self.stats[g] = (stats, len(members))
 
     def finish(self, deck: Deck, grid_nm: float) -> tuple[list[Finding], list]:
@@ -488,13 +493,55 @@ class _Assembly:
             raise RuntimeError("a distinct tile's result is missing")
         inner = [f for part in self.inner for f in part]
         border = [f for part in self.border for f in part]
-        border_tile = [t for part in self.border_tile for t in part]
-        merged = merge_findings(border, deck, grid_nm, border_tile)
+        start = np.cumsum([0] + [len(b) for b in self.border])
+        size = np.array([len(m) for m in self.members])
+        group_of = np.empty(len(self.tiles), dtype=np.int64)
+        slot_of = np.empty(len(self.tiles), dtype=np.int64)
+        for g, members in enumerate(self.members):
+            group_of[members] = g
+            slot_of[members] = np.arange(len(members))
+        # Neighbouring tiles (sides and corners), grouped by their distinct contents
+        # and relative place.
+        t, u = _neighbours(self.tiles)
+        boxes = np.asarray(self.tiles, dtype=np.float64).reshape(-1, 4)
+        rel = np.round(boxes[u, :2] - boxes[t, :2], 3)
+        pairs: dict = {}
+        for k in range(len(t)):
+            g, h = int(group_of[t[k]]), int(group_of[u[k]])
+            if self.reps[g] and self.reps[h]:
+                pairs.setdefault((g, h, rel[k, 0], rel[k, 1]), []).append(k)
+        ea, eb = [], []
+        for (g, h, dx, dy), ks in pairs.items():
+            # Parts of the distinct tiles that join, placed as the pair sits.
+            shift = boxes[self.members[g][0], :2] + (dx, dy) - boxes[self.members[h][0], :2]
+            rg, rh = _joining_parts(self.reps[g], self.reps[h], shift, deck, grid_nm)
+            if not len(rg):
+                continue
+            ks = np.asarray(ks)
+            mt, mu = slot_of[t[ks]], slot_of[u[ks]]
+            ea.append((start[g] + rg[None, :] * size[g] + mt[:, None]).ravel())
+            eb.append((start[h] + rh[None, :] * size[h] + mu[:, None]).ravel())
+        merged = _merge_joined(border, np.concatenate(ea) if ea else np.zeros(0, np.int64),
+                               np.concatenate(eb) if eb else np.zeros(0, np.int64), deck,
+                               grid_nm)  # fmt: skip
         for f in inner + merged:  # border sites and extents served the merge; let them go
             if f.border_sites is not None or f.extent_nm is not None:
                 _set(f, "border_sites", None)
                 _set(f, "extent_nm", None)
         return inner + merged, self.stats
+
+
+def _neighbours(tiles) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs ``(t, u)``, ``t < u``, of tiles that share a side or a corner."""
+    from pitchguard.extract import _query_pairs, _rtree
+
+    if len(tiles) < 2:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    b = np.asarray(tiles, dtype=np.float64)
+    eps = 1e-3
+    qi, qj = _query_pairs(_rtree(b[:, :2] - eps, b[:, 2:] + eps), b[:, :2] - eps, b[:, 2:] + eps)
+    keep = qi < qj
+    return qi[keep], qj[keep]
 
 
 _MOVED = ("bbox_nm", "outline_nm", "cut_origin_nm", "line_points", "border_sites", "extent_nm")
@@ -526,15 +573,11 @@ _set = object.__setattr__  # findings are frozen; only fresh copies made here ar
 _merged = _make_copier(_MERGED)
 
 
-def _moved(arr: np.ndarray | None, offsets: np.ndarray, columns: int = 2):
-    """``arr`` (k, c) moved by each of ``offsets`` (m, 2) on its first ``columns``
-    (x, y pairs): (m, k, c), or None for None."""
+def _moved(arr: np.ndarray | None, offsets: np.ndarray):
+    """Points ``arr`` (k, 2) moved by each of ``offsets`` (m, 2): (m, k, 2), or None."""
     if arr is None:
         return None
-    shift = np.zeros((len(offsets), arr.shape[1]))
-    shift[:, 0:columns:2] = offsets[:, :1]
-    shift[:, 1:columns:2] = offsets[:, 1:]
-    return arr[None, :, :] + shift[:, None, :]
+    return arr[None, :, :] + offsets[:, None, :]
 
 
 def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
@@ -546,7 +589,6 @@ def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
     outlines = (np.asarray(f.outline_nm)[None, :, :] + offsets[:, None, :]).tolist()
     cuts = (np.asarray(f.cut_origin_nm) + offsets).tolist()
     points = _moved(f.line_points, offsets)
-    rows = _moved(f.border_sites, offsets, 8)
     hulls = _moved(f.extent_nm, offsets)
     out = []
     for k, (dx, dy) in enumerate(offsets.tolist()):
@@ -555,7 +597,7 @@ def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
             continue
         out.append(_mover(f, tuple(boxes[k]), tuple(map(tuple, outlines[k])), tuple(cuts[k]),
                           None if points is None else points[k],
-                          None if rows is None else rows[k],
+                          None,  # border sites: the distinct tile's own copy serves all
                           None if hulls is None else hulls[k]))  # fmt: skip
     return out
 
@@ -654,64 +696,71 @@ def _sum_stats(deck: Deck, per_group: list[tuple[list[LayerStats], int]]) -> lis
 # --------------------------------------------------------------------------- merging
 
 
-def merge_findings(findings: list[Finding], deck: Deck, grid_nm: float,
-                   tile_of: list[int]) -> list[Finding]:  # fmt: skip
-    """Merge the parts of regions that tile borders cut apart.
+def _joining_parts(a: list[Finding], b: list[Finding], shift, deck: Deck,
+                   grid_nm: float) -> tuple[np.ndarray, np.ndarray]:  # fmt: skip
+    """Which findings of two neighbouring tiles are parts of one region: ``(i, j)``.
 
-    Exactly the rule a whole-layout scan forms regions by (``classify._regions``),
-    applied to the sites near tile borders (``Finding.border_sites``): two
-    parts in different tiles join when a site of each touches the other's,
-    on the same layer, with lines the same way (within
-    ``ORIENTATION_TOL_DEG``) and pitches within the layer's tolerance (or
-    either infinite).  ``tile_of`` gives each finding's tile; parts of one
-    tile join only through parts in others.
+    ``b``'s findings are moved by ``shift`` (nm) to where that tile sits next
+    to ``a``'s.  Exactly the rule a whole-layout scan forms regions by
+    (``classify._regions``), applied to their sites near the border: two
+    parts join when a site of each touches the other's, on the same layer,
+    with lines the same way (within ``ORIENTATION_TOL_DEG``) and pitches within
+    the layer's tolerance (or either infinite).
     """
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import connected_components
-
     from pitchguard.extract import _query_pairs, _rtree
 
-    n = len(findings)
-    if n < 2:
-        return list(findings)
     names = [r.name for r in deck.layers]
     tol_of = np.array([max(r.pitch_tolerance_nm / deck.scale_to_wafer,
                            SNAP_PITCH_SPREAD * grid_nm) for r in deck.layers])  # fmt: skip
-    rows = [f.border_sites for f in findings]
-    owner = np.repeat(np.arange(n), [len(r) for r in rows])
-    sites = np.concatenate(rows) if len(owner) else np.zeros((0, 10))
-    corners = sites[:, :8].reshape(-1, 4, 2)
-    ang, pitch = sites[:, 8], sites[:, 9]
-    layer = np.array([names.index(f.layer) for f in findings])[owner]
-    tile = np.asarray(tile_of)[owner]
-    lo, hi = corners.min(axis=1), corners.max(axis=1)
-    qi, qj = _query_pairs(_rtree(lo, hi), lo, hi)
-    keep = (qi < qj) & (tile[qi] != tile[qj]) & (layer[qi] == layer[qj])
-    qi, qj = qi[keep], qj[keep]
-    dang = np.abs(ang[qi] - ang[qj])
-    keep = np.minimum(dang, 180.0 - dang) < ORIENTATION_TOL_DEG
+
+    def sites(fs, move):
+        rows = np.concatenate([f.border_sites for f in fs])
+        owner = np.repeat(np.arange(len(fs)), [len(f.border_sites) for f in fs])
+        corners = rows[:, :8].reshape(-1, 4, 2) + move
+        layer = np.array([names.index(f.layer) for f in fs])[owner]
+        return corners, rows[:, 8], rows[:, 9], layer, owner
+
+    ca, anga, pa, la, oa = sites(a, np.zeros(2))
+    cb, angb, pb, lb, ob = sites(b, np.asarray(shift, dtype=np.float64))
+    lo_b, hi_b = cb.min(axis=1), cb.max(axis=1)
+    qi, qj = _query_pairs(_rtree(lo_b, hi_b), ca.min(axis=1), ca.max(axis=1))
+    keep = la[qi] == lb[qj]
+    dang = np.abs(anga[qi] - angb[qj])
+    keep &= np.minimum(dang, 180.0 - dang) < ORIENTATION_TOL_DEG
     with np.errstate(invalid="ignore"):
-        same_pitch = np.abs(pitch[qi] - pitch[qj]) <= tol_of[layer[qi]]
-    keep &= same_pitch | np.isinf(pitch[qi]) | np.isinf(pitch[qj])
+        same_pitch = np.abs(pa[qi] - pb[qj]) <= tol_of[la[qi]]
+    keep &= same_pitch | np.isinf(pa[qi]) | np.isinf(pb[qj])
     qi, qj = qi[keep], qj[keep]
-    # Exact overlap test in the frame of site qi, as whole-layout regions use.
-    rad = np.radians(ang[qi])
+    # Exact overlap test in the frame of the site of ``a``, as whole-layout regions use.
+    rad = np.radians(anga[qi])
     d = np.stack([np.cos(rad), np.sin(rad)], axis=1)
     touch = np.ones(len(qi), dtype=bool)
     for axis in (d, np.stack([d[:, 1], -d[:, 0]], axis=1)):
-        pi = np.einsum("ikj,ij->ik", corners[qi], axis)
-        pj = np.einsum("ikj,ij->ik", corners[qj], axis)
+        pi = np.einsum("ikj,ij->ik", ca[qi], axis)
+        pj = np.einsum("ikj,ij->ik", cb[qj], axis)
         touch &= (pi.min(axis=1) <= pj.max(axis=1) + 1e-6) & \
             (pj.min(axis=1) <= pi.max(axis=1) + 1e-6)  # fmt: skip
-    a, b = owner[qi[touch]], owner[qj[touch]]
-    graph = coo_matrix((np.ones(len(a)), (a, b)), shape=(n, n))
+    joined = np.unique(np.stack([oa[qi[touch]], ob[qj[touch]]], axis=1), axis=0)
+    return joined[:, 0], joined[:, 1]
+
+
+def _merge_joined(findings: list[Finding], ea: np.ndarray, eb: np.ndarray, deck: Deck,
+                  grid_nm: float) -> list[Finding]:  # fmt: skip
+    """One finding per connected group of ``findings`` (joined pairs ``ea``-``eb``)."""
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    n = len(findings)
+    if n == 0:
+        return []
+    graph = coo_matrix((np.ones(len(ea)), (ea, eb)), shape=(n, n))
     _, labels = connected_components(graph, directed=False)
     # Groups in the order of their first finding, members in index order.
     order = np.argsort(labels, kind="stable")
     bounds = np.flatnonzero(np.diff(labels[order])) + 1
     groups = sorted(np.split(order, bounds), key=lambda g: g[0])
     multi = [g for g in groups if len(g) > 1]
-    outlines = np.array([f.outline_nm for f in findings], dtype=np.float64)
+    outlines = np.array([f.outline_nm for f in findings], dtype=np.float64) if multi else None
     merged = iter(_merge_groups(findings, multi, outlines, deck, grid_nm))
     return [findings[g[0]] if len(g) == 1 else next(merged) for g in groups]
 
