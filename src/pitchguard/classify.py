@@ -298,13 +298,13 @@ def canonical_normal(normal: np.ndarray) -> np.ndarray:
     return np.where(flip[..., None], -normal, normal)
 
 
-def _line_points(fs: Sites, members: np.ndarray) -> np.ndarray:
+def _line_points(fs: Sites, normal: np.ndarray, members: np.ndarray) -> np.ndarray:
     """Points (nm, 0.1 nm) on the members' line axes, one per long edge.
 
     Taken at the start of each site's edge (every piece of an edge gives the
-    same point), half the line's width inside.
+    same point), half the line's width inside.  ``normal``: ``fs.normal``.
     """
-    n = fs.normal[members]
+    n = normal[members]
     w = np.where(np.isfinite(fs.width[members]), fs.width[members], 0.0)
     centre = fs.origin[members] - n * (0.5 * w)[:, None]
     return np.unique(np.round(centre, 1), axis=0)
@@ -491,7 +491,8 @@ def _near_border(corners: np.ndarray, tile, reach: float) -> np.ndarray:
         (hi[:, 0] >= x1 - reach) | (hi[:, 1] >= y1 - reach)  # fmt: skip
 
 
-def _site_rows(fs: Sites, corners: np.ndarray, idx: np.ndarray, tile) -> np.ndarray:
+def _site_rows(corners: np.ndarray, angle: np.ndarray, pitch: np.ndarray, idx: np.ndarray,
+               tile) -> np.ndarray:  # fmt: skip
     """Rows (4 corners x, y; orientation; pitch; 1 where the rectangle reaches the
     tile's border) of sites ``idx``.  A site of another tile can touch only a site
     whose rectangle reaches the border, or a site that such a rectangle reaches."""
@@ -501,7 +502,7 @@ def _site_rows(fs: Sites, corners: np.ndarray, idx: np.ndarray, tile) -> np.ndar
     eps = 1e-3
     reaches = (lo[:, 0] <= x0 + eps) | (lo[:, 1] <= y0 + eps) | \
         (hi[:, 0] >= x1 - eps) | (hi[:, 1] >= y1 - eps)  # fmt: skip
-    return np.column_stack([c.reshape(len(idx), 8), fs.orientation_deg[idx], fs.pitch[idx],
+    return np.column_stack([c.reshape(len(idx), 8), angle[idx], pitch[idx],
                             reaches.astype(np.float64)])  # fmt: skip
 
 
@@ -576,7 +577,7 @@ def classify_layer(
             float(ol[:, 0].min()), float(ol[:, 1].min()),
             float(ol[:, 0].max()), float(ol[:, 1].max()),
         )  # fmt: skip
-        line_points = _line_points(fs, members)
+        line_points = _line_points(fs, normal_all, members)
         lines = count_lines(line_points, canonical_normal(normal_all[worst]), grid_nm)
         pitch_drawn = float(pitch_all[worst])
         width_drawn = float(fs.width[worst])
@@ -590,7 +591,8 @@ def classify_layer(
         cut = cuts[c_idx] if (cuts and c_idx >= 0) else None
         mid = mid_all[worst]
         border = None if near_border is None else \
-            _site_rows(fs, corners_all, members[near_border[members]], tile_nm)  # fmt: skip
+            _site_rows(corners_all, angle_all, pitch_all, members[near_border[members]],
+                       tile_nm)  # fmt: skip
         message = top.message
         if context == "outer" and top.check in IMAGE_CHECKS:
             message += " (at the last line of the array)"
