@@ -410,10 +410,16 @@ def _envelope(length: float, cands: list[tuple], eps: float) -> list[tuple]:
         if u1 - u0 <= eps:
             continue
         mid = 0.5 * (u0 + u1)
+        # Nearest first; on a tie a facing edge, then by place along the edge:
+        # never by the order the candidates were found in (a tile's spatial
+        # index returns them in another order than the whole layout's).
         best = (_INF, True, -1)
+        rank = (_INF, 1, 0.0, 0.0)
         for lo, hi, dist, facing, j in cands:
-            if lo <= mid <= hi and dist < best[0]:
-                best = (dist, facing, j)
+            if lo <= mid <= hi:
+                r = (dist, 0 if facing else 1, lo, hi)
+                if r < rank:
+                    rank, best = r, (dist, facing, j)
         if out and out[-1][2:] == best and abs(out[-1][1] - u0) <= eps:
             out[-1] = (out[-1][0], u1, *best)
         else:
@@ -536,7 +542,9 @@ def _nearest_if_simple(ids, i, lo, hi, dist, side, facing, length, slack):
     if len(i):
         pos = np.searchsorted(ids, i)
         key = pos * 2 + (side > 0)
-        order = np.lexsort((~facing, dist, key))
+        # Ties go to a facing edge, then to the one covering more of the edge, then
+        # by place: never to the order the spatial index returned them in.
+        order = np.lexsort((lo, lo - hi, ~facing, dist, key))
         key_s = key[order]
         first = order[np.concatenate([[True], key_s[1:] != key_s[:-1]])]
         fk = key[first]
