@@ -117,9 +117,9 @@ class Finding:
     # nominal threshold.
     # Positions of the region's lines across them (canonical axis, quantised):
     # counts lines, and lets regions cut by tile borders be merged exactly.
-    # One point (nm, 0.1 nm) on the axis of each line, as seen from each long edge
-    # of the region: (k, 2).  Counts lines, and lets regions cut by tile borders
-    # be merged exactly.
+    # Until regions are final (scans drop them then): one point (nm, 0.1 nm) on the
+    # axis of each line, as seen from each long edge of the region, (k, 2).  Counts
+    # lines, and lets regions cut by tile borders be merged exactly.
     line_points: np.ndarray | None = field(default=None, compare=False, repr=False)
     cut_bounds_nm: tuple[float, ...] = ()
     cut_angle_deg: float = math.nan

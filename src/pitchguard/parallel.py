@@ -478,13 +478,14 @@ class _Assembly:
         border: list[Finding] = []
         reps: list[Finding] = []
         for f in fs:
-            copies = shifted_copies(f, offsets)
             # Only findings with sites near a tile's border can join other tiles'.
             if f.border_sites is not None and len(f.border_sites):
                 reps.append(f)
-                border.extend(copies)
+                border.extend(shifted_copies(f, offsets))
             else:
-                inner.extend(copies)
+                # Final as they are: line points served the line count only.
+                _set(f, "line_points", None)
+                inner.extend(shifted_copies(f, offsets))
         self.inner[g], self.border[g], self.reps[g] = inner, border, reps
         self.stats[g] = (stats, len(members))
 
@@ -524,10 +525,10 @@ class _Assembly:
         merged = _merge_joined(border, np.concatenate(ea) if ea else np.zeros(0, np.int64),
                                np.concatenate(eb) if eb else np.zeros(0, np.int64), deck,
                                grid_nm)  # fmt: skip
-        for f in inner + merged:  # border sites and extents served the merge; let them go
-            if f.border_sites is not None or f.extent_nm is not None:
-                _set(f, "border_sites", None)
-                _set(f, "extent_nm", None)
+        for f in merged:  # line points, border sites and extents served the merge
+            _set(f, "line_points", None)
+            _set(f, "border_sites", None)
+            _set(f, "extent_nm", None)
         return inner + merged, self.stats
 
 

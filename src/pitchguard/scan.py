@@ -145,5 +145,7 @@ def scan_layout(
     )
     region_nm = tuple(v * 1000.0 for v in region_um) if region_um else None
     findings, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
+    for f in findings:  # regions are final: their line points served the line count
+        object.__setattr__(f, "line_points", None)
     findings = sort_findings(findings)
     return ScanResult(findings, stats, layout, warnings, time.perf_counter() - t0)
