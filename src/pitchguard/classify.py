@@ -341,6 +341,30 @@ def _periodicity(lines: int, dense_min: int) -> str:
     return "isolated"
 
 
+def same_region_class(ang_i, ang_j, pitch_i, pitch_j, pitch_tol) -> np.ndarray:
+    """Pairs of touching sites that may share a region: lines the same way (within
+    ORIENTATION_TOL_DEG) and pitches within ``pitch_tol`` (or either infinite).
+    The one rule for whole-layout regions and for parts joined across tiles."""
+    dang = np.abs(ang_i - ang_j)
+    ok = np.minimum(dang, 180.0 - dang) < ORIENTATION_TOL_DEG
+    with np.errstate(invalid="ignore"):
+        same_pitch = np.abs(pitch_i - pitch_j) <= pitch_tol
+    return ok & (same_pitch | np.isinf(pitch_i) | np.isinf(pitch_j))
+
+
+def rectangles_touch(ci: np.ndarray, cj: np.ndarray, d: np.ndarray, eps: float = 1e-6):
+    """Site rectangles ``ci``, ``cj`` (k, 4, 2) overlap or touch (within ``eps``):
+    their projections overlap on both axes of the frame of line direction ``d``
+    (k, 2), which both share to within the orientation tolerance."""
+    nrm = np.stack([d[:, 1], -d[:, 0]], axis=1)
+    touch = np.ones(len(ci), dtype=bool)
+    for axis in (d, nrm):
+        pi = np.einsum("ikj,ij->ik", ci, axis)
+        pj = np.einsum("ikj,ij->ik", cj, axis)
+        touch &= (pi.min(axis=1) <= pj.max(axis=1) + eps) & (pj.min(axis=1) <= pi.max(axis=1) + eps)
+    return touch
+
+
 def _regions(sites: Sites, severity: np.ndarray, pitch_tol: float) -> np.ndarray:
     """Region label per flagged site: adjacent sites of one orientation and pitch class.
 
@@ -358,26 +382,10 @@ def _regions(sites: Sites, severity: np.ndarray, pitch_tol: float) -> np.ndarray
     qi, qj = _query_pairs(index, mins, maxs)
     keep = qi < qj
     qi, qj = qi[keep], qj[keep]
-    ang = sites.orientation_deg
-    dang = np.abs(ang[qi] - ang[qj])
-    dang = np.minimum(dang, 180.0 - dang)
-    pitch = sites.pitch
-    ok = dang < ORIENTATION_TOL_DEG
-    with np.errstate(invalid="ignore"):
-        same_pitch = np.abs(pitch[qi] - pitch[qj]) <= pitch_tol
-    same_pitch |= np.isinf(pitch[qi]) | np.isinf(pitch[qj])
-    ok &= same_pitch
+    ang, pitch = sites.orientation_deg, sites.pitch
+    ok = same_region_class(ang[qi], ang[qj], pitch[qi], pitch[qj], pitch_tol)
     qi, qj = qi[ok], qj[ok]
-    # Exact overlap test in the frame of site qi (both rectangles share it).
-    d = sites.direction[qi]
-    nrm = np.stack([d[:, 1], -d[:, 0]], axis=1)
-    ci, cj = corners[qi], corners[qj]
-    eps = 1e-6
-    touch = np.ones(len(qi), dtype=bool)
-    for axis in (d, nrm):
-        pi = np.einsum("ikj,ij->ik", ci, axis)
-        pj = np.einsum("ikj,ij->ik", cj, axis)
-        touch &= (pi.min(axis=1) <= pj.max(axis=1) + eps) & (pj.min(axis=1) <= pi.max(axis=1) + eps)
+    touch = rectangles_touch(corners[qi], corners[qj], sites.direction[qi])
     qi, qj = qi[touch], qj[touch]
     graph = coo_matrix((np.ones(len(qi), dtype=np.int8), (qi, qj)), shape=(n, n))
     _, labels = connected_components(graph, directed=False)

@@ -24,13 +24,14 @@ from pathlib import Path
 import numpy as np
 
 from pitchguard.classify import (
-    ORIENTATION_TOL_DEG,
     SEVERITIES,
     SNAP_PITCH_SPREAD,
     Finding,
     _periodicity,
     canonical_normal,
     count_lines,
+    rectangles_touch,
+    same_region_class,
     sort_findings,
 )
 from pitchguard.deck import Deck, parse_deck
@@ -726,21 +727,12 @@ def _joining_parts(a: list[Finding], b: list[Finding], shift, deck: Deck,
     lo_b, hi_b = cb.min(axis=1), cb.max(axis=1)
     qi, qj = _query_pairs(_rtree(lo_b, hi_b), ca.min(axis=1), ca.max(axis=1))
     keep = la[qi] == lb[qj]
-    dang = np.abs(anga[qi] - angb[qj])
-    keep &= np.minimum(dang, 180.0 - dang) < ORIENTATION_TOL_DEG
-    with np.errstate(invalid="ignore"):
-        same_pitch = np.abs(pa[qi] - pb[qj]) <= tol_of[la[qi]]
-    keep &= same_pitch | np.isinf(pa[qi]) | np.isinf(pb[qj])
+    keep &= same_region_class(anga[qi], angb[qj], pa[qi], pb[qj], tol_of[la[qi]])
     qi, qj = qi[keep], qj[keep]
     # Exact overlap test in the frame of the site of ``a``, as whole-layout regions use.
     rad = np.radians(anga[qi])
     d = np.stack([np.cos(rad), np.sin(rad)], axis=1)
-    touch = np.ones(len(qi), dtype=bool)
-    for axis in (d, np.stack([d[:, 1], -d[:, 0]], axis=1)):
-        pi = np.einsum("ikj,ij->ik", ca[qi], axis)
-        pj = np.einsum("ikj,ij->ik", cb[qj], axis)
-        touch &= (pi.min(axis=1) <= pj.max(axis=1) + 1e-6) & \
-            (pj.min(axis=1) <= pi.max(axis=1) + 1e-6)  # fmt: skip
+    touch = rectangles_touch(ca[qi], cb[qj], d)
     joined = np.unique(np.stack([oa[qi[touch]], ob[qj[touch]]], axis=1), axis=0)
     return joined[:, 0], joined[:, 1]
 
