@@ -155,6 +155,8 @@ def site_cuts(
                 continue
             # Relative to the feature centre (at -width / 2), in half grid steps.
             rel = tuple(round(2.0 * x / q) + wq_l[k] for x in bounds)
+            if not any(a <= 0 <= b for a, b in zip(rel[0::2], rel[1::2], strict=True)):
+                continue  # the crossings disagree with the width: inconsistent, no cut
             mirrored = tuple(-v for v in reversed(rel))
             prof = min(rel, mirrored)
             key = (int(angle_key[site]), prof)

@@ -268,3 +268,14 @@ def test_sigterm_exits_143_and_leaves_no_partial_output(tmp_path, deck):
     assert "terminated" in err and "Traceback" not in err
     assert not out.exists()
     assert not [p for p in os.listdir(tmp_path) if p.startswith(".out.json")]
+
+
+@pytest.mark.parametrize("tiled", [True, False], ids=["tiled", "untiled"])
+def test_mutated_file_with_inconsistent_cut_scans(tmp_path, capsys, tiled):
+    """A kept corpus file whose damaged geometry once crashed the cut builder."""
+    layout = Path(__file__).resolve().parents[1] / "fixtures" / "mutated_demo_inconsistent_cut.gds"
+    deck = Path(__file__).resolve().parents[2] / "rules" / "demo_chip.toml"
+    code = main(["scan", str(layout), "--rules", str(deck), "-q"] + ([] if tiled else ["--untiled"]))
+    err = capsys.readouterr().err
+    assert code in (0, 1, 2), err
+    assert "internal error" not in err and "Traceback" not in err
