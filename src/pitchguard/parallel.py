@@ -147,8 +147,14 @@ def keys_task(path: str, cell: str | None, layers, tiles, halo: float) -> list[b
             for x0, y0, x1, y1 in tiles]  # fmt: skip
 
 
-def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float):
-    """Scan one tile; returns ``(findings, stats per layer)``."""
+def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float,
+              max_shapes: int | None = None):  # fmt: skip
+    """Scan one tile; returns ``(findings, stats per layer)``.
+
+    A tile holding more than ``max_shapes`` shapes (counted from the hierarchy
+    before any is read: a corrupt or extreme array can pile millions into one
+    tile) is refused with a LayoutError rather than run out of memory.
+    """
     import faulthandler
 
     faulthandler.disable()
@@ -156,7 +162,16 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float):
     layers = [(r.layer, r.datatype) for r in deck.layers]
     q, st = _open(path, cell, layers)
     x0, y0, x1, y1 = tile
-    polys = q.query((x0 - halo, y0 - halo, x1 + halo, y1 + halo))
+    window = (x0 - halo, y0 - halo, x1 + halo, y1 + halo)
+    if max_shapes is not None:
+        n = q.count(window)
+        if n > max_shapes:
+            raise LayoutError(
+                f"{path}: the tile at ({x0 / 1000:g}, {y0 / 1000:g}) um holds up to {n:,} shapes, "
+                f"more than a worker's memory budget allows ({max_shapes:,}): use a smaller "
+                "--tile-um or a larger --max-memory-mb"
+            )  # fmt: skip
+    polys = q.query(window)
     for ps in polys.values():  # onto the database grid, exactly as read_layout does
         snap_to_grid(ps, st.grid_nm)
     # Hints are made here, in parallel, once per distinct tile's finding (a hint does
@@ -249,6 +264,22 @@ KEY_COST_SHAPES = 1.3
 TILE_COST_SHAPES = 340.0
 
 
+DEFAULT_WORKER_MB = 2048.0
+"""A worker's memory budget when no --max-memory-mb is given."""
+
+
+def _per_worker_mb(max_memory_mb: float | None, jobs: int, distributed: bool) -> float:
+    if max_memory_mb is None:
+        return DEFAULT_WORKER_MB
+    return (max_memory_mb - (0 if distributed else PARENT_BASE_MB)) / max(1, jobs)
+
+
+def tile_shape_limit(max_memory_mb: float | None, jobs: int, distributed: bool = False) -> int:
+    """The most shapes one tile may hold within a worker's budget (the memory model)."""
+    per_worker = _per_worker_mb(max_memory_mb, jobs, distributed)
+    return max(1, int((per_worker - WORKER_BASE_MB) * 1024.0 / KB_PER_TILE_SHAPE))
+
+
 def plan_tiles(st: Structure, halo_nm: float, jobs: int, max_memory_mb: float | None,
                tile_um: float | None, distributed: bool = False) -> tuple[float, int]:  # fmt: skip
     """Tile size (nm) and local worker count for a memory cap (MB, all processes).
@@ -268,12 +299,12 @@ def plan_tiles(st: Structure, halo_nm: float, jobs: int, max_memory_mb: float | 
         return WORKER_BASE_MB + KB_PER_TILE_SHAPE / 1024.0 * density * (t_nm + 2 * halo_nm) ** 2
 
     if max_memory_mb is None:
-        per_worker = 2048.0
+        per_worker = DEFAULT_WORKER_MB
     else:
         n = 1 if distributed else jobs
         while n > 1 and PARENT_BASE_MB + n * worker_mb(SITE_CELL_NM) > max_memory_mb:
             n -= 1
-        per_worker = (max_memory_mb - (0 if distributed else PARENT_BASE_MB)) / n
+        per_worker = _per_worker_mb(max_memory_mb, n, distributed)
         if per_worker < worker_mb(SITE_CELL_NM):
             need = PARENT_BASE_MB + worker_mb(SITE_CELL_NM)
             raise LayoutError(f"--max-memory-mb {max_memory_mb:g} is too small for this layout: "
@@ -425,7 +456,9 @@ def scan_tiled(
         gc.collect()
         gc.disable()
         try:
-            engine.map(tile_task, [(str(p), deck.text, cell, tiles[k], halo) for k in reps],
+            limit = tile_shape_limit(max_memory_mb, jobs, bool(scheduler))
+            engine.map(tile_task, [(str(p), deck.text, cell, tiles[k], halo, limit)
+                                   for k in reps],
                        f"tiles ({len(reps)} of {len(tiles)} distinct)",
                        consume=assembly.add)  # fmt: skip
             gc.freeze()
@@ -604,6 +637,15 @@ def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
     return out
 
 
+def _quiet_worker() -> None:
+    """Workers leave signals to the main process: forked, they would inherit its
+    SIGTERM handler and print a traceback when the pool is stopped."""
+    import signal
+
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
 class _Engine:
     """Local worker processes, or a dask.distributed cluster, for the tile tasks."""
 
@@ -624,14 +666,22 @@ class _Engine:
             from concurrent.futures import ProcessPoolExecutor
             from multiprocessing import get_context
 
-            self.pool = ProcessPoolExecutor(self.jobs, mp_context=get_context("fork"))
+            self.pool = ProcessPoolExecutor(self.jobs, mp_context=get_context("fork"),
+                                            initializer=_quiet_worker)
         return self
 
-    def __exit__(self, *exc) -> None:
+    def __exit__(self, exc_type, *exc) -> None:
         if self.client is not None:
             self.client.close()
         if self.pool is not None:
-            self.pool.shutdown(wait=True, cancel_futures=True)
+            if exc_type is not None:
+                # Interrupted or failed: stop the workers now rather than let them
+                # finish their tiles (they die quietly, see _quiet_worker).
+                for proc in list(getattr(self.pool, "_processes", {}).values()):
+                    proc.terminate()
+                self.pool.shutdown(wait=False, cancel_futures=True)
+            else:
+                self.pool.shutdown(wait=True, cancel_futures=True)
 
     @property
     def workers(self) -> int:

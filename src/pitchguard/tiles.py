@@ -186,6 +186,19 @@ class HierarchyQuery:
             self._visit(name, _Affine.identity(), window, out)
         return {ld: PolygonSet.from_arrays(v) for ld, v in out.items()}
 
+    def count(self, window: Box) -> int:
+        """An upper bound of the polygons :meth:`query` returns for ``window``: the own
+        polygons of every placed cell whose own polygons may meet it (cheap: no
+        polygon is touched)."""
+        rows: list[np.ndarray] = []
+        for name in self.tops:
+            self._placements(name, _Affine.identity(), window, rows)
+        if not rows:
+            return 0
+        own = np.array([sum(len(ps) for ps, _ in cd.polys.values()) for cd in self.cells.values()])
+        cells = np.concatenate(rows)[:, 0].astype(np.int64)
+        return int(own[cells].sum())
+
     def content_key(self, window: Box, origin: tuple[float, float]) -> bytes:
         """A digest of what :meth:`query` would return for ``window``, relative to ``origin``.
 
@@ -302,7 +315,14 @@ class HierarchyQuery:
         (p, q), (r, s) = a1.tolist(), a2.tolist()
         det = p * s - r * q
         if abs(det) <= 1e-12 * (abs(p * s) + abs(r * q) + 1e-300):
-            i0, i1, j0, j1 = 0, cols - 1, 0, rows - 1  # degenerate lattice: test every instance
+            # Degenerate lattice (collinear or zero vectors): test every instance,
+            # once the whole array's box is known to meet the window.
+            ext = np.array([i * a1 + j * a2 for i in (0, cols - 1) for j in (0, rows - 1)])
+            if not _moved_box_hits(base, ext, window).any() and not _hits(
+                (base[0] + ext[:, 0].min(), base[1] + ext[:, 1].min(),
+                 base[2] + ext[:, 0].max(), base[3] + ext[:, 1].max()), window):  # fmt: skip
+                return np.zeros((0, 2))
+            i0, i1, j0, j1 = 0, cols - 1, 0, rows - 1
         else:
             wx0, wy0, wx1, wy1 = window
             bx0, by0, bx1, by1 = (float(v) for v in base)

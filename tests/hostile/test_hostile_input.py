@@ -279,3 +279,25 @@ def test_mutated_file_with_inconsistent_cut_scans(tmp_path, capsys, tiled):
     err = capsys.readouterr().err
     assert code in (0, 1, 2), err
     assert "internal error" not in err and "Traceback" not in err
+
+
+def test_array_piled_into_one_tile_is_refused_quickly(tmp_path, capsys):
+    """A (corrupt-looking) array of 10^6 instances at zero spacing, in a sparse 5 mm
+    layout, puts every shape in one tile: refused from the hierarchy's count,
+    before any is read (the memory model's limit: about 243,000 at 2 GB)."""
+    lib = gdstk.Library()
+    leaf = lib.new_cell("LEAF")
+    leaf.add(gdstk.rectangle((0, 0), (0.05, 1), layer=1))
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Reference(leaf, (0, 0), columns=1000, rows=1000, spacing=(0, 0)))
+    top.add(gdstk.rectangle((5000, 5000), (5000.05, 5001), layer=1))  # a 5 mm extent
+    path = tmp_path / "piled.gds"
+    lib.write_gds(str(path))
+    deck = tmp_path / "deck.toml"
+    deck.write_text(DECK)
+    t0 = time.monotonic()
+    code = main(["scan", str(path), "--rules", str(deck), "-q"])
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert "memory budget" in err and "1,000,000 shapes" in err
+    assert time.monotonic() - t0 < 60
