@@ -126,7 +126,7 @@ class Finding:
     cut_origin_nm: tuple[float, float] = (math.nan, math.nan)
     threshold: float = math.nan
     # Tiled scans only, until tiles are merged: the region's sites near its tile's
-    # border, rows (4 corners x, y; orientation; pitch; reaches the border), drawn nm.  Regions of
+    # border, rows (4 corners x, y; orientation; pitch), drawn nm.  Regions of
     # neighbouring tiles are merged exactly where such sites touch.
     border_sites: np.ndarray | None = field(default=None, compare=False, repr=False)
     # ... and the convex hull (k, 2) of all its sites' corners: the region's extent
@@ -499,19 +499,10 @@ def _near_border(corners: np.ndarray, tile, reach: float) -> np.ndarray:
         (hi[:, 0] >= x1 - reach) | (hi[:, 1] >= y1 - reach)  # fmt: skip
 
 
-def _site_rows(corners: np.ndarray, angle: np.ndarray, pitch: np.ndarray, idx: np.ndarray,
-               tile) -> np.ndarray:  # fmt: skip
-    """Rows (4 corners x, y; orientation; pitch; 1 where the rectangle reaches the
-    tile's border) of sites ``idx``.  A site of another tile can touch only a site
-    whose rectangle reaches the border, or a site that such a rectangle reaches."""
-    x0, y0, x1, y1 = tile
-    c = corners[idx]
-    lo, hi = c.min(axis=1), c.max(axis=1)
-    eps = 1e-3
-    reaches = (lo[:, 0] <= x0 + eps) | (lo[:, 1] <= y0 + eps) | \
-        (hi[:, 0] >= x1 - eps) | (hi[:, 1] >= y1 - eps)  # fmt: skip
-    return np.column_stack([c.reshape(len(idx), 8), angle[idx], pitch[idx],
-                            reaches.astype(np.float64)])  # fmt: skip
+def _site_rows(corners: np.ndarray, angle: np.ndarray, pitch: np.ndarray,
+               idx: np.ndarray) -> np.ndarray:  # fmt: skip
+    """Rows (4 corners x, y; orientation; pitch) of sites ``idx``."""
+    return np.column_stack([corners[idx].reshape(len(idx), 8), angle[idx], pitch[idx]])
 
 
 def classify_layer(
@@ -522,7 +513,6 @@ def classify_layer(
     metrics: list[Metrics] | None = None,
     which_cut: np.ndarray | None = None,
     cuts: list | None = None,
-    hints: bool = True,
     tile_nm: tuple[float, float, float, float] | None = None,
 ) -> list[Finding]:
     """Findings (one per region) for the sites of one layer.
@@ -592,15 +582,13 @@ def classify_layer(
         top = vs[0]
         pitch_angle = math.degrees(math.atan2(normal_all[worst][1], normal_all[worst][0]))
         hint = _hint(rule, vs, res.cutoff_pitch_nm, width_drawn * scale_to_wafer,
-                     pitch_drawn * scale_to_wafer, pitch_angle, scale_to_wafer) if hints \
-            else ""  # fmt: skip
+                     pitch_drawn * scale_to_wafer, pitch_angle, scale_to_wafer)
         limit = f"{top.check}: {top.value:.4g} against {top.limit:.4g}"
         context = cuts[c_idx].context if (cuts and c_idx >= 0) else ""
         cut = cuts[c_idx] if (cuts and c_idx >= 0) else None
         mid = mid_all[worst]
         border = None if near_border is None else \
-            _site_rows(corners_all, angle_all, pitch_all, members[near_border[members]],
-                       tile_nm)  # fmt: skip
+            _site_rows(corners_all, angle_all, pitch_all, members[near_border[members]])
         message = top.message
         if context == "outer" and top.check in IMAGE_CHECKS:
             message += " (at the last line of the array)"

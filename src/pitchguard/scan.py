@@ -65,7 +65,6 @@ def scan_polygons(
     grid_nm: float,
     region_nm: tuple[float, float, float, float] | None = None,
     progress: Progress | None = None,
-    hints: bool = True,
     tile: bool = False,
 ) -> tuple[list[Finding], list[LayerStats]]:
     """Scan the deck's layers in ``polygons`` (nm, as drawn).
@@ -111,7 +110,7 @@ def scan_polygons(
             ex.extra["unique_cuts"] = len(cuts)
             ex.extra["imaged_sites"] = int((which_cut >= 0).sum())
         findings.extend(
-            classify_layer(sites, rule, scale, grid_nm, metrics, which_cut, cuts, hints=hints,
+            classify_layer(sites, rule, scale, grid_nm, metrics, which_cut, cuts,
                            tile_nm=region_nm if tile else None)  # fmt: skip
         )
         stats.append(

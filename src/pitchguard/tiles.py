@@ -101,6 +101,9 @@ class HierarchyQuery:
             self._load(by_name[name], by_name)
         for name in self.tops:
             self._bbox(name)
+        # Own polygons per cell (asked-for layers), by the cell's number.
+        self.own_counts = np.array([sum(len(ps) for ps, _ in cd.polys.values())
+                                    for cd in self.cells.values()], dtype=np.int64)  # fmt: skip
 
     # -- preparation ---------------------------------------------------------
     def _load(self, cell, by_name) -> None:
@@ -195,9 +198,8 @@ class HierarchyQuery:
             self._placements(name, _Affine.identity(), window, rows)
         if not rows:
             return 0
-        own = np.array([sum(len(ps) for ps, _ in cd.polys.values()) for cd in self.cells.values()])
         cells = np.concatenate(rows)[:, 0].astype(np.int64)
-        return int(own[cells].sum())
+        return int(self.own_counts[cells].sum())
 
     def content_key(self, window: Box, origin: tuple[float, float]) -> bytes:
         """A digest of what :meth:`query` would return for ``window``, relative to ``origin``.
