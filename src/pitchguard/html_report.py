@@ -714,7 +714,7 @@ def _summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Gro
     head = "".join(f'<th class="n">{s}</th>' for s in SEVERITIES)
     rows = []
     for st in result.layers:
-        c = severity_counts([f for f in result.findings if f.layer == st.name])
+        c = severity_counts(result.findings, st.name)
         rule = rules.get(st.name)
         if rule is not None:
             e = rule.exposure

@@ -31,6 +31,23 @@ from pitchguard.printing import Metrics, evaluate
 BATCH = 256
 """Cuts imaged per batch (bounds memory: focus x batch x samples x kernels)."""
 
+CUT_CACHE_MAX = 50_000
+"""Metrics of imaged cuts kept per process (about 0.5 kB each); the cache is
+emptied when it would grow past this."""
+
+_imaged: dict[tuple, Metrics] = {}
+_imaged_stats = {"hits": 0, "misses": 0}
+
+
+def cut_cache_info() -> dict[str, int]:
+    """This process's cut-metrics cache: ``hits``, ``misses`` and ``size``."""
+    return {**_imaged_stats, "size": len(_imaged)}
+
+
+def clear_cut_cache() -> None:
+    _imaged.clear()
+    _imaged_stats.update(hits=0, misses=0)
+
 
 def samples_for(period_nm: float, n_max: int, optics: Optics) -> int:
     """FFT samples per period: at least 4x the orders, and a step of at most
@@ -73,9 +90,37 @@ def _centred_grid(period_nm: float, samples: int) -> tuple[np.ndarray, np.ndarra
 def measure_cuts(
     cuts: list[Cut], angles_deg: list[float], rule: LayerRule, scale_to_wafer: float
 ) -> list[Metrics]:
-    """Metrics of every cut (drawn nm) for one layer; ``angles_deg[k]`` turns cut k's source."""
+    """Metrics of every cut (drawn nm) for one layer; ``angles_deg[k]`` turns cut k's source.
+
+    A cut's metrics depend only on its profile, its source turn and the
+    layer's exposure and limits, so they are kept per process: the tiles of
+    a tiled scan repeat each other's cuts, and a worker images each distinct
+    cut once, whichever tiles it meets it in.
+    """
     if not cuts:
         return []
+    rule_key = (rule.exposure, rule.field, rule.ambit_nm, rule.focus_nm, rule.anchor,
+                rule.cd_tolerance_pct, rule.el_min_pct, scale_to_wafer)  # fmt: skip
+    keys = [(rule_key, round(a, 1) % 180.0, c.bounds, c.reach)
+            for c, a in zip(cuts, angles_deg, strict=True)]  # fmt: skip
+    known = [_imaged.get(k) for k in keys]
+    todo = [k for k, m in enumerate(known) if m is None]
+    _imaged_stats["hits"] += len(cuts) - len(todo)
+    _imaged_stats["misses"] += len(todo)
+    if todo:
+        fresh = _measure([cuts[k] for k in todo], [angles_deg[k] for k in todo], rule,
+                         scale_to_wafer)  # fmt: skip
+        if len(_imaged) + len(todo) > CUT_CACHE_MAX:
+            _imaged.clear()
+        for k, m in zip(todo, fresh, strict=True):
+            known[k] = _imaged[keys[k]] = m
+    return known  # type: ignore[return-value]
+
+
+def _measure(
+    cuts: list[Cut], angles_deg: list[float], rule: LayerRule, scale_to_wafer: float
+) -> list[Metrics]:
+    """:func:`measure_cuts` without the cache."""
     e = rule.exposure
     optics = Optics.of(e)
     ambit = rule.ambit_nm

@@ -27,9 +27,11 @@ from pitchguard.classify import (
     SEVERITIES,
     SNAP_PITCH_SPREAD,
     Finding,
+    FindingSet,
     _periodicity,
     canonical_normal,
     count_lines,
+    finding_copier,
     rectangles_touch,
     same_region_class,
     sort_findings,
@@ -483,8 +485,12 @@ class _Assembly:
     """Findings of every tile from those of the distinct tiles, merged across borders.
 
     :meth:`add` takes each distinct tile's result as it arrives (in any order);
-    :meth:`finish` merges the regions cut by tile borders.  The outcome does
-    not depend on the arrival order.
+    :meth:`finish` merges the regions cut by tile borders and returns a
+    :class:`~pitchguard.classify.FindingSet`: each distinct tile's findings
+    once, with the offsets of the tiles they recur on.  No per-copy record is
+    made here: the copies of a chip's findings (10^5-10^6) are made by
+    whoever reads them, one at a time.  The outcome does not depend on the
+    arrival order.
 
     Which parts of two neighbouring tiles join depends only on the two tiles'
     contents and where they sit relative to each other: it is worked out once
@@ -496,9 +502,9 @@ class _Assembly:
         self.members = list(groups.values())
         self.tiles = tiles
         n = len(self.members)
-        self.inner: list = [()] * n
-        self.border: list = [()] * n  # copies, rep-major: rep r's copy on member m at r M + m
-        self.reps: list = [()] * n  # the distinct tile's own border findings
+        self.offsets: list = [None] * n  # each group's tiles, from its first tile, (m, 2) nm
+        self.inner: list = [()] * n  # final findings, away from the tile's border
+        self.reps: list = [()] * n  # findings with sites near the border
         self.stats: list = [None] * n
 
     def add(self, g: int, result) -> None:
@@ -506,29 +512,34 @@ class _Assembly:
         members = self.members[g]
         tiles = self.tiles
         tx0, ty0 = tiles[members[0]][:2]
-        offsets = np.array([tiles[k][:2] for k in members], dtype=np.float64) - (tx0, ty0)
-        inner: list[Finding] = []
-        border: list[Finding] = []
-        reps: list[Finding] = []
-        for f in fs:
-            # Only findings with sites near a tile's border can join other tiles'.
-            if f.border_sites is not None and len(f.border_sites):
-                reps.append(f)
-                border.extend(shifted_copies(f, offsets))
-            else:
-                # Final as they are: line points served the line count only.
-                _set(f, "line_points", None)
-                inner.extend(shifted_copies(f, offsets))
-        self.inner[g], self.border[g], self.reps[g] = inner, border, reps
+        self.offsets[g] = np.array([tiles[k][:2] for k in members], dtype=np.float64) - (tx0, ty0)
+        # Only findings with sites near a tile's border can join other tiles'.
+        self.inner[g] = [_final(f) for f in fs
+                         if f.border_sites is None or not len(f.border_sites)]  # fmt: skip
+        self.reps[g] = [f for f in fs if f.border_sites is not None and len(f.border_sites)]
         self.stats[g] = (stats, len(members))
 
-    def finish(self, deck: Deck, grid_nm: float) -> tuple[list[Finding], list]:
+    def finish(self, deck: Deck, grid_nm: float) -> tuple[FindingSet, list]:
         if any(s is None for s in self.stats):
             raise RuntimeError("a distinct tile's result is missing")
-        inner = [f for part in self.inner for f in part]
-        border = [f for part in self.border for f in part]
-        start = np.cumsum([0] + [len(b) for b in self.border])
         size = np.array([len(m) for m in self.members])
+        distinct: list[Finding] = []
+        which: list[np.ndarray] = []
+        offset: list[np.ndarray] = []
+        for g, fs in enumerate(self.inner):  # by group, finding, then tile
+            which.append(np.repeat(np.arange(len(distinct), len(distinct) + len(fs)), size[g]))
+            offset.append(np.tile(self.offsets[g], (len(fs), 1)))
+            distinct.extend(fs)
+        # Border copies, numbered group by group, finding-major: the copy of
+        # group g's border finding r on its tile m is start[g] + r size[g] + m.
+        raw = [f for reps in self.reps for f in reps]
+        n_reps = np.array([len(r) for r in self.reps])
+        rep0 = np.r_[0, np.cumsum(n_reps)[:-1]]
+        start = np.r_[0, np.cumsum(n_reps * size)[:-1]]
+        b_which = np.concatenate([np.repeat(np.arange(rep0[g], rep0[g] + n_reps[g]), size[g])
+                                  for g in range(len(size))] or [np.zeros(0, np.int64)])
+        b_off = np.concatenate([np.tile(self.offsets[g], (n_reps[g], 1))
+                                for g in range(len(size))] or [np.zeros((0, 2))])  # fmt: skip
         group_of = np.empty(len(self.tiles), dtype=np.int64)
         slot_of = np.empty(len(self.tiles), dtype=np.int64)
         for g, members in enumerate(self.members):
@@ -555,14 +566,93 @@ class _Assembly:
             mt, mu = slot_of[t[ks]], slot_of[u[ks]]
             ea.append((start[g] + rg[None, :] * size[g] + mt[:, None]).ravel())
             eb.append((start[h] + rh[None, :] * size[h] + mu[:, None]).ravel())
-        merged = _merge_joined(border, np.concatenate(ea) if ea else np.zeros(0, np.int64),
-                               np.concatenate(eb) if eb else np.zeros(0, np.int64), deck,
-                               grid_nm)  # fmt: skip
-        for f in merged:  # line points, border sites and extents served the merge
+        (alone, slot), groups = _joined_groups(
+            len(b_which), np.concatenate(ea or [np.zeros(0, np.int64)]),
+            np.concatenate(eb or [np.zeros(0, np.int64)]))  # fmt: skip
+        # Regions cut by borders are merged.  Regions whose parts are the same
+        # distinct findings placed alike are the same region moved: each such
+        # kind is merged once (its parts made, line points and hulls moved).
+        kinds: dict = {}
+        first_of: list[np.ndarray] = []
+        kind = np.empty(len(groups), dtype=np.int64)
+        moved = np.zeros((len(groups), 2))
+        for i, grp in enumerate(groups):
+            at = b_off[grp[0]]
+            key = (b_which[grp].tobytes(), np.round(b_off[grp] - at, 3).tobytes())
+            j = kinds.setdefault(key, len(first_of))
+            if j == len(first_of):
+                first_of.append(grp)
+            kind[i] = j
+            moved[i] = at - b_off[first_of[j][0]]
+        parts = {k: _moved_part(raw[b_which[k]], b_off[k]) for g in first_of for k in g.tolist()}
+        merged = _merge_groups(parts, first_of, deck, grid_nm)
+        for f in merged:  # line points served the line count
             _set(f, "line_points", None)
-            _set(f, "border_sites", None)
-            _set(f, "extent_nm", None)
-        return inner + merged, self.stats
+        # In the order of each region's first part: a part alone is a copy of its
+        # distinct finding; a merged region a copy of its kind's.
+        base = len(distinct)
+        distinct.extend(_final(f) for f in raw)
+        distinct.extend(merged)
+        lone = slot < 0
+        w = np.empty(len(slot), dtype=np.int64)
+        o = np.zeros((len(slot), 2))
+        w[lone] = base + b_which[alone]
+        o[lone] = b_off[alone]
+        w[~lone] = base + len(raw) + kind[slot[~lone]]
+        o[~lone] = moved[slot[~lone]]
+        which.append(w)
+        offset.append(o)
+        return FindingSet(distinct, np.concatenate(which), np.concatenate(offset)), self.stats
+
+
+def _final(f: Finding) -> Finding:
+    """``f`` without what only served the merge (line points, border sites, hull)."""
+    if f.line_points is None and f.border_sites is None and f.extent_nm is None:
+        return f
+    return replace(f, line_points=None, border_sites=None, extent_nm=None)
+
+
+def _moved_part(f: Finding, off: np.ndarray) -> Finding:
+    """A border finding moved by ``off`` (nm), line points and hull included."""
+    dx, dy = off.tolist()
+    x0, y0, x1, y1 = f.bbox_nm
+    cx, cy = f.cut_origin_nm
+    return _mover(f, (x0 + dx, y0 + dy, x1 + dx, y1 + dy),
+                  tuple([(x + dx, y + dy) for x, y in f.outline_nm]), (cx + dx, cy + dy),
+                  None if f.line_points is None else f.line_points + off, None,
+                  None if f.extent_nm is None else f.extent_nm + off)  # fmt: skip
+
+
+def _joined_groups(n: int, ea: np.ndarray, eb: np.ndarray):
+    """Connected groups of ``n`` parts joined by pairs ``ea``-``eb``.
+
+    Returns ``((alone, slot), groups)``: over all groups in the order of their
+    first part, ``slot`` is -1 for a lone part and the index into ``groups``
+    (the groups of two or more, members in index order) otherwise; ``alone``
+    lists the lone parts in that order.
+    """
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    if n == 0:
+        return (np.zeros(0, np.int64), np.zeros(0, np.int64)), []
+    graph = coo_matrix((np.ones(len(ea)), (ea, eb)), shape=(n, n))
+    n_lab, labels = connected_components(graph, directed=False)
+    first = np.full(n_lab, n, dtype=np.int64)
+    np.minimum.at(first, labels, np.arange(n))
+    count = np.bincount(labels, minlength=n_lab)
+    by_first = np.argsort(first, kind="stable")  # labels in the order of their first part
+    multi = count[by_first] > 1
+    slot = np.full(n_lab, -1, dtype=np.int64)
+    slot[multi] = np.arange(int(multi.sum()))
+    alone = first[by_first][~multi]
+    # Members of the groups of two or more, group by group, in index order.
+    rank = np.empty(n_lab, dtype=np.int64)
+    rank[by_first] = np.arange(n_lab)
+    inside = np.flatnonzero(count[labels] > 1)
+    inside = inside[np.lexsort((inside, rank[labels[inside]]))]
+    groups = np.split(inside, np.cumsum(count[by_first][multi])[:-1]) if len(inside) else []
+    return (alone, slot), groups
 
 
 def _neighbours(tiles) -> tuple[np.ndarray, np.ndarray]:
@@ -583,66 +673,30 @@ _MERGED = ("pitch_max_nm", "lines", "periodicity", "sites", "run_nm", "bbox_nm",
            "line_points", "border_sites", "extent_nm")  # fmt: skip
 
 
-def _make_copier(changed: tuple[str, ...]):
-    """``copier(f, *values)``: a copy of finding ``f`` with the fields ``changed`` set.
-
-    Straight-line code, generated the way :mod:`dataclasses` generates
-    ``__init__``, that sets each slot through its descriptor: 2.0 us a copy
-    against 4.8 us for a loop over the fields and about 15 us for
-    ``dataclasses.replace`` (measured on this machine).  The parent makes one
-    copy per tile a finding is reused on, 3.6e5 on the benchmark chip.
-    """
-    env = {"_new": object.__new__, "_cls": Finding}
-    body = ["def copier(f, " + ", ".join(changed) + "):", "    g = _new(_cls)"]
-    for name in Finding.__slots__:
-        env["_set_" + name] = getattr(Finding, name).__set__
-        body.append(f"    _set_{name}(g, {name if name in changed else 'f.' + name})")
-    body.append("    return g")
-    exec("\n".join(body), env)  # noqa: S102 - code built above from the slot names only
-    return env["copier"]
-
-
-_mover = _make_copier(_MOVED)
+_mover = finding_copier(_MOVED)
 _set = object.__setattr__  # findings are frozen; only fresh copies made here are set
-_merged = _make_copier(_MERGED)
-
-
-def _moved(arr: np.ndarray | None, offsets: np.ndarray):
-    """Points ``arr`` (k, 2) moved by each of ``offsets`` (m, 2): (m, k, 2), or None."""
-    if arr is None:
-        return None
-    return arr[None, :, :] + offsets[:, None, :]
-
-
-def shifted_copies(f: Finding, offsets: np.ndarray) -> list[Finding]:
-    """``f`` moved by each of ``offsets`` (k, 2) nm; ``f`` itself where the offset is 0.
-
-    The findings of a tile, reused for every tile with the same content.
-    """
-    boxes = (np.asarray(f.bbox_nm) + np.tile(offsets, 2)).tolist()
-    outlines = (np.asarray(f.outline_nm)[None, :, :] + offsets[:, None, :]).tolist()
-    cuts = (np.asarray(f.cut_origin_nm) + offsets).tolist()
-    points = _moved(f.line_points, offsets)
-    hulls = _moved(f.extent_nm, offsets)
-    out = []
-    for k, (dx, dy) in enumerate(offsets.tolist()):
-        if dx == 0 and dy == 0:
-            out.append(f)
-            continue
-        out.append(_mover(f, tuple(boxes[k]), tuple(map(tuple, outlines[k])), tuple(cuts[k]),
-                          None if points is None else points[k],
-                          None,  # border sites: the distinct tile's own copy serves all
-                          None if hulls is None else hulls[k]))  # fmt: skip
-    return out
+_merged = finding_copier(_MERGED)
 
 
 def _quiet_worker() -> None:
-    """Workers leave signals to the main process: forked, they would inherit its
-    SIGTERM handler and print a traceback when the pool is stopped."""
+    """Set up a local worker process.
+
+    Workers leave signals to the main process: forked, they would inherit its
+    SIGTERM handler and print a traceback when the pool is stopped.  Each
+    worker runs its linear algebra on one thread: the workers already fill
+    the cores, and the numerical library's own threads on top of them
+    oversubscribe them (measured on the 10^7-shape benchmark chip, 2 cores:
+    2 workers scanned in 4.3 s of tile time with the default threads, 3.9 s
+    with one each; 1 worker was no faster with more).  dask.distributed
+    workers started by a nanny get the same by default.
+    """
     import signal
+
+    from threadpoolctl import threadpool_limits
 
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    threadpool_limits(1)
 
 
 class _Engine:
@@ -786,30 +840,10 @@ def _joining_parts(a: list[Finding], b: list[Finding], shift, deck: Deck,
     return joined[:, 0], joined[:, 1]
 
 
-def _merge_joined(findings: list[Finding], ea: np.ndarray, eb: np.ndarray, deck: Deck,
+def _merge_groups(findings: dict[int, Finding], groups: list[np.ndarray], deck: Deck,
                   grid_nm: float) -> list[Finding]:  # fmt: skip
-    """One finding per connected group of ``findings`` (joined pairs ``ea``-``eb``)."""
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import connected_components
-
-    n = len(findings)
-    if n == 0:
-        return []
-    graph = coo_matrix((np.ones(len(ea)), (ea, eb)), shape=(n, n))
-    _, labels = connected_components(graph, directed=False)
-    # Groups in the order of their first finding, members in index order.
-    order = np.argsort(labels, kind="stable")
-    bounds = np.flatnonzero(np.diff(labels[order])) + 1
-    groups = sorted(np.split(order, bounds), key=lambda g: g[0])
-    multi = [g for g in groups if len(g) > 1]
-    outlines = np.array([f.outline_nm for f in findings], dtype=np.float64) if multi else None
-    merged = iter(_merge_groups(findings, multi, outlines, deck, grid_nm))
-    return [findings[g[0]] if len(g) == 1 else next(merged) for g in groups]
-
-
-def _merge_groups(findings: list[Finding], groups: list[np.ndarray], outlines: np.ndarray,
-                  deck: Deck, grid_nm: float) -> list[Finding]:  # fmt: skip
-    """One finding per group of parts: the worst part's, spanning all parts.
+    """One finding per group of parts (``findings`` by number): the worst part's,
+    spanning all parts.
 
     The region's frame is its worst site's (the worst part's outline); the
     outline is the parts' extent in that frame; line positions are united,
@@ -828,7 +862,7 @@ def _merge_groups(findings: list[Finding], groups: list[np.ndarray], outlines: n
     order = np.lexsort((np.arange(len(parts)), cut[:, 0], cut[:, 1], pitch, sev, gid))
     first = np.r_[True, gid[order][1:] != gid[order][:-1]]
     best = members[order[first]]
-    o = outlines[best]
+    o = np.array([findings[k].outline_nm for k in best.tolist()], dtype=np.float64)
     d = o[:, 1] - o[:, 0]
     length = np.hypot(d[:, 0], d[:, 1])
     rad = np.radians([findings[k].orientation_deg for k in best.tolist()])
@@ -837,7 +871,8 @@ def _merge_groups(findings: list[Finding], groups: list[np.ndarray], outlines: n
     nrm = np.stack([d[:, 1], -d[:, 0]], axis=1)
     # The parts' extents (hulls of their sites' corners) in the frame of the worst.
     hulls = [findings[k].extent_nm if findings[k].extent_nm is not None
-             else outlines[k] for k in members.tolist()]  # fmt: skip
+             else np.asarray(findings[k].outline_nm, dtype=np.float64)
+             for k in members.tolist()]  # fmt: skip
     sizes = np.array([len(h) for h in hulls])
     pts = np.concatenate(hulls)
     owner = np.repeat(gid, sizes)

@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from pitchguard import __version__
-from pitchguard.classify import Finding
+from pitchguard.classify import Finding, FindingSet
 from pitchguard.deck import SEVERITIES, Deck
 from pitchguard.errors import EXIT_FINDINGS, EXIT_OK, OutputError
 from pitchguard.scan import ScanResult
@@ -30,16 +30,29 @@ CAUTION = (
 FAIL_ON_CHOICES = (*SEVERITIES, "never")
 
 
-def exit_code(findings: list[Finding], fail_on: str) -> int:
+def _tally(findings: Sequence[Finding], layer: str | None = None) -> Counter:
+    """Findings per severity (of ``layer`` only, if given); a FindingSet from its columns."""
+    c: Counter = Counter()
+    if isinstance(findings, FindingSet):
+        for f, n in zip(findings.distinct, findings.counts().tolist(), strict=True):
+            if n and (layer is None or f.layer == layer):
+                c[f.severity] += n
+    else:
+        c.update(f.severity for f in findings if layer is None or f.layer == layer)
+    return c
+
+
+def exit_code(findings: Sequence[Finding], fail_on: str) -> int:
     """0 when no finding is at or above ``fail_on``, else 1 (the one place this is decided)."""
     if fail_on == "never":
         return EXIT_OK
     limit = SEVERITIES.index(fail_on)
-    return EXIT_FINDINGS if any(f.severity_rank <= limit for f in findings) else EXIT_OK
+    return EXIT_FINDINGS if any(_tally(findings)[s] for s in SEVERITIES[: limit + 1]) else EXIT_OK
 
 
-def severity_counts(findings: list[Finding]) -> dict[str, int]:
-    c = Counter(f.severity for f in findings)
+def severity_counts(findings: Sequence[Finding], layer: str | None = None) -> dict[str, int]:
+    """Findings per severity, worst first (of ``layer`` only, if given)."""
+    c = _tally(findings, layer)
     return {s: c.get(s, 0) for s in SEVERITIES}
 
 
@@ -124,7 +137,7 @@ def to_json(result: ScanResult, deck: Deck, fail_on: str, lazy: bool = False) ->
     lay = result.layout
     by_layer = {}
     for st in result.layers:
-        counts = severity_counts([f for f in result.findings if f.layer == st.name])
+        counts = severity_counts(result.findings, st.name)
         ex = st.extract
         by_layer[st.name] = {
             "source": st.source,
@@ -374,7 +387,7 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
     counts.add_column("2-D edges", justify="right")
     counts.add_column("shapes", justify="right")
     for st in result.layers:
-        c = severity_counts([f for f in result.findings if f.layer == st.name])
+        c = severity_counts(result.findings, st.name)
         ex = st.extract
         counts.add_row(
             st.name, st.source, *(str(c[s]) for s in SEVERITIES), f"{ex.sites:,}",

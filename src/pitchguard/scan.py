@@ -8,7 +8,7 @@ reads a file and calls it.
 from __future__ import annotations
 
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -40,7 +40,7 @@ class LayerStats:
 
 @dataclass
 class ScanResult:
-    findings: list[Finding]
+    findings: Sequence[Finding]  # a list, or a FindingSet from tiled scans
     layers: list[LayerStats]
     layout: Layout | None = None
     warnings: list[str] = field(default_factory=list)

@@ -1,0 +1,84 @@
+"""FindingSet: findings stored as distinct findings plus offsets read exactly
+like the list of findings made at each place.
+
+The reference is the plain list: each item is compared with the finding
+built by ``dataclasses.replace`` at that place, and sorting, counting and the
+exit code with their results on that list.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import random
+
+import numpy as np
+import pytest
+
+from decks import DEMO_DECK, SAMPLE_GDS
+from pitchguard.classify import FindingSet, sort_findings
+from pitchguard.deck import SEVERITIES, load_deck
+from pitchguard.report import exit_code, severity_counts
+from pitchguard.scan import scan_layout
+
+
+@pytest.fixture(scope="module")
+def demo():
+    return list(scan_layout(SAMPLE_GDS, load_deck(DEMO_DECK)).findings)
+
+
+def _placed(f, dx, dy):
+    x0, y0, x1, y1 = f.bbox_nm
+    return dataclasses.replace(
+        f, bbox_nm=(x0 + dx, y0 + dy, x1 + dx, y1 + dy),
+        outline_nm=tuple((x + dx, y + dy) for x, y in f.outline_nm),
+        cut_origin_nm=(f.cut_origin_nm[0] + dx, f.cut_origin_nm[1] + dy),
+    )  # fmt: skip
+
+
+@pytest.fixture(scope="module")
+def placed(demo):
+    rng = random.Random(5)
+    n = 400
+    which = np.array([rng.randrange(len(demo)) for _ in range(n)])
+    # Tile-like offsets (whole nm) and arbitrary ones, plus some at the original place.
+    off = np.array([(rng.choice([0, 30000, -60000]), rng.choice([0, 45000]))
+                    if k % 2 else (rng.uniform(-1e6, 1e6), rng.uniform(-1e6, 1e6))
+                    for k in range(n)])  # fmt: skip
+    expected = [_placed(demo[w], dx, dy) for w, (dx, dy) in zip(which, off.tolist(), strict=True)]
+    return FindingSet(demo, which, off), expected
+
+
+def test_items_equal_the_findings_made_at_each_place(placed):
+    fs, expected = placed
+    assert len(fs) == len(expected)
+    assert list(fs) == expected
+    assert fs[7] == expected[7] and fs[-1] == expected[-1]
+    assert fs == expected and expected == fs  # both ways, as lists compare
+    assert fs != expected[:-1]
+    # A slice is a FindingSet of those items.
+    assert isinstance(fs[10:20], FindingSet) and list(fs[10:20]) == expected[10:20]
+
+
+def test_an_item_at_its_own_place_is_the_distinct_finding_itself(demo):
+    fs = FindingSet.of(demo)
+    assert all(a is b for a, b in zip(fs, demo, strict=True))
+
+
+def test_sorting_without_making_items_equals_sorting_the_list(placed):
+    fs, expected = placed
+    got = sort_findings(fs)
+    assert isinstance(got, FindingSet)
+    assert list(got) == sort_findings(expected)
+
+
+def test_counts_and_exit_code_from_columns_equal_those_of_the_list(placed):
+    fs, expected = placed
+    sub = fs.select(np.arange(0, len(fs), 3))  # a subset: some distinct findings absent
+    for s, lst in ((fs, expected), (sub, list(sub)), (fs[:0], [])):
+        assert severity_counts(s) == severity_counts(lst)
+        for layer in {f.layer for f in expected} | {"no-such-layer"}:
+            assert severity_counts(s, layer) == severity_counts(
+                [f for f in lst if f.layer == layer])
+        for fail_on in (*SEVERITIES, "never"):
+            assert exit_code(s, fail_on) == exit_code(lst, fail_on)
+    assert sum(severity_counts(fs).values()) == len(fs)
