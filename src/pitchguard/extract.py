@@ -566,8 +566,19 @@ def find_sites(
     grid_nm: float,
     first_window_nm: float | None = None,
     cell_nm: float | None = SITE_CELL_NM,
+    region: tuple[float, float, float, float] | None = None,
 ) -> tuple[Sites, ExtractStats]:
     """Sites of all long edges: width, space and run length per edge piece.
+
+    With ``region`` (x0, y0, x1, y1) only the sites whose midpoint lies in it
+    (``x0 <= x < x1``, ``y0 <= y < y1``) are returned, and only edges that
+    meet it are looked at; the other edges still bound them.  The counts are
+    then of what the region owns: edges and 2-D pieces by their lowest-left
+    end, features by their lowest-left vertex, so the regions of a tiling add
+    up to the whole layout's counts.  (An edge read through a window may be
+    cut short where shapes outside the window would have continued it; its
+    ends inside the window are true ones, so its lowest-left end is the
+    same in every window that holds it, unlike its midpoint.)
 
     Pieces are cut where they cross the lines ``x = k cell_nm`` and
     ``y = k cell_nm`` of a fixed global grid, so every piece lies in one grid
@@ -588,8 +599,19 @@ def find_sites(
     d = vec / length[:, None]
     nrm = np.stack([d[:, 1], -d[:, 0]], axis=1)
     long_ = length >= min_run_nm
-    stats.short_edges = int((~long_).sum())
     eps = grid_nm * 0.5
+    wanted = long_
+    if region is not None:
+        owned = in_region(_lowest_left(a, b), region)
+        stats.edges = int(owned.sum())
+        stats.short_edges = int((owned & ~long_).sum())
+        stats.features = _features_owned(edges, region)
+        x0, y0, x1, y1 = region
+        lo, hi = np.minimum(a, b), np.maximum(a, b)
+        wanted = long_ & (hi[:, 0] >= x0 - eps) & (lo[:, 0] <= x1 + eps) \
+            & (hi[:, 1] >= y0 - eps) & (lo[:, 1] <= y1 + eps)  # fmt: skip
+    else:
+        stats.short_edges = int((~long_).sum())
     slack = 4 * eps  # snapped rotated geometry may end a grid short of the corner
     frames = _EdgeFrames(a, b, d, eps)
     w1 = min(ambit_nm, first_window_nm if first_window_nm else ambit_nm / 3.0)
@@ -605,7 +627,7 @@ def find_sites(
             )  # fmt: skip
         )
 
-    long_idx = np.flatnonzero(long_)
+    long_idx = np.flatnonzero(wanted)
     for c0 in range(0, len(long_idx), QUERY_CHUNK):
         ids = long_idx[c0 : c0 + QUERY_CHUNK]
         # Pass 1: a small window settles edges whose neighbours are close.
@@ -636,7 +658,13 @@ def find_sites(
         for e in rest[~simple].tolist():
             complex_rows.setdefault(e, [])
 
-    pieces = _resolve_complex(complex_rows, length, min_run_nm, eps, stats)
+    pieces, flat = _resolve_complex(complex_rows, length, min_run_nm, eps)
+    if region is not None and flat:
+        e2 = np.array([p[0] for p in flat], dtype=np.int64)
+        p0 = a[e2] + d[e2] * np.array([p[1] for p in flat])[:, None]
+        p1 = a[e2] + d[e2] * np.array([p[2] for p in flat])[:, None]
+        flat = np.flatnonzero(in_region(_lowest_left(p0, p1), region))
+    stats.pieces_2d = len(flat)
     if pieces:
         e_arr = np.array([p[0] for p in pieces], dtype=np.int64)
         parts.append(
@@ -654,6 +682,8 @@ def find_sites(
     sites = Sites.concat(parts) if parts else Sites.empty()
     if cell_nm:
         sites = _cut_at_cells(sites, cell_nm, eps)
+    if region is not None and len(sites):
+        sites = sites.take(np.flatnonzero(in_region(sites.midpoints(), region)))
     stats.sites = len(sites)
     stats.isolated_sites = int(np.isinf(sites.space).sum())
     return sites, stats
@@ -697,9 +727,14 @@ def _pick(cand):
     return i, lo, hi, dist, side, facing
 
 
-def _resolve_complex(rows: dict, length, min_run_nm, eps, stats) -> list[tuple]:
-    """Cut edges with several nearest neighbours into pieces (pure Python, rare)."""
+def _resolve_complex(rows: dict, length, min_run_nm, eps) -> tuple[list[tuple], list[tuple]]:
+    """Cut edges with several nearest neighbours into pieces (pure Python, rare).
+
+    Returns ``(sites, flat)``: ``(e, u0, u1, width, space)`` of each 1-D piece
+    long enough to judge, and ``(e, u0, u1)`` of each 2-D piece.
+    """
     out = []
+    flat = []
     for e, cands in rows.items():
         L = float(length[e])
         space_c = [(lo, hi, dist, fac, j) for s, lo, hi, dist, fac, j in cands if s > 0]
@@ -725,5 +760,35 @@ def _resolve_complex(rows: dict, length, min_run_nm, eps, stats) -> list[tuple]:
             if one_d and u1 - u0 >= min_run_nm:
                 out.append((e, u0, u1, wd, sd))
             elif u1 - u0 > 4 * eps:  # slivers of a grid or two are snapping noise
-                stats.pieces_2d += 1
-    return out
+                flat.append((e, u0, u1))
+    return out, flat
+
+
+def _lowest_left(p: np.ndarray, q: np.ndarray) -> np.ndarray:
+    """Per row, the one of points ``p``, ``q`` with least x, then least y."""
+    first = (p[:, 0] < q[:, 0]) | ((p[:, 0] == q[:, 0]) & (p[:, 1] <= q[:, 1]))
+    return np.where(first[:, None], p, q)
+
+
+def in_region(points: np.ndarray, region) -> np.ndarray:
+    """Which ``points`` (n, 2) lie in ``region``: ``x0 <= x < x1``, ``y0 <= y < y1``."""
+    x0, y0, x1, y1 = region
+    x, y = points[:, 0], points[:, 1]
+    return (x >= x0) & (x < x1) & (y >= y0) & (y < y1)
+
+
+def _features_owned(edges: Edges, region) -> int:
+    """Features whose lowest-left vertex (least x, then least y) lies in ``region``.
+
+    A feature's lowest-left point is one of its vertices, the same whether the
+    whole layout or a window around ``region`` was read (every shape touching
+    a point inside the window is read), so each feature is counted in one
+    region of a tiling.  A large concave feature cut by the window into parts
+    can be counted once per part whose own lowest-left vertex is inside.
+    """
+    if len(edges) == 0:
+        return 0
+    order = np.lexsort((edges.a[:, 1], edges.a[:, 0], edges.feature))
+    f = edges.feature[order]
+    first = order[np.r_[True, f[1:] != f[:-1]]]
+    return int(in_region(edges.a[first], region).sum())

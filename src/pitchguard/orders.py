@@ -197,8 +197,12 @@ def cutoff_pitch(exposure: Exposure, orientation_deg: float) -> float:
     return exposure.wavelength_nm / (exposure.na * float(np.max(reach)))
 
 
+@lru_cache(maxsize=65536)
 def analyse_pitch(exposure: Exposure, pitch_nm: float, orientation_deg: float) -> OrderResult:
-    """Orders, k1 and source fractions for a wafer-scale pitch."""
+    """Orders, k1 and source fractions for a wafer-scale pitch.
+
+    Kept per process: the tiles of a tiled scan meet the same pitches again.
+    """
     lam, na = exposure.wavelength_nm, exposure.na
     k1 = 0.5 * pitch_nm * na / lam
     cutoff = cutoff_pitch(exposure, orientation_deg)

@@ -782,18 +782,25 @@ class _Engine:
 def _sum_stats(deck: Deck, per_group: list[tuple[list[LayerStats], int]]) -> list[LayerStats]:
     """Counts of every tile, from each distinct tile's counts times its tiles.
 
-    Seconds are those spent: each distinct tile's once.
+    Each tile counts what it owns (see :func:`pitchguard.extract.find_sites`),
+    so the sums are the whole layout's; distinct cuts are counted over the
+    union of the tiles' cuts.  Seconds are those spent: each distinct tile's
+    once.
     """
     out = []
     for k, rule in enumerate(deck.layers):
         ex = ExtractStats()
         shapes = 0
         secs = 0.0
+        cuts: set = set()
         for stats, times in per_group:
             s = stats[k]
             ex.add(s.extract, times)
             shapes += times * s.shapes
             secs += s.seconds
+            cuts |= s.cut_keys
+        if "unique_cuts" in ex.extra:
+            ex.extra["unique_cuts"] = len(cuts)
         out.append(LayerStats(rule.name, rule.source, shapes, ex, secs))
     return out
 

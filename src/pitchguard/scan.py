@@ -12,12 +12,10 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
-
 from pitchguard.classify import Finding, classify_layer, sort_findings
 from pitchguard.cuts import site_cuts
 from pitchguard.deck import Deck
-from pitchguard.extract import ExtractStats, build_features, find_sites
+from pitchguard.extract import ExtractStats, build_features, find_sites, in_region
 from pitchguard.image import source_is_symmetric
 from pitchguard.layout import DEFAULT_MAX_SHAPES, Layout, PolygonSet, read_layout_isolated
 from pitchguard.measure import measure_cuts
@@ -36,6 +34,9 @@ class LayerStats:
     shapes: int = 0
     extract: ExtractStats = field(default_factory=ExtractStats)
     seconds: float = 0.0
+    # Tiles only: the distinct cuts imaged (cut, source turn), so that a tiled
+    # scan can count the distinct cuts of the whole layout.
+    cut_keys: frozenset = frozenset()
 
 
 @dataclass
@@ -93,15 +94,15 @@ def scan_polygons(
         ps = _in_region(ps, region_nm, 2 * ambit)
         edges = build_features(ps, grid_nm)
         tick(f"{rule.name}: sites", 3 * k + 1)
-        sites, ex = find_sites(edges, min_run, ambit, grid_nm)
+        sites, ex = find_sites(edges, min_run, ambit, grid_nm, region=region_nm)
         ex.shapes = len(ps)
-        if region_nm is not None and len(sites):
-            mid = sites.midpoints()
-            x0, y0, x1, y1 = region_nm
-            inside = (mid[:, 0] >= x0) & (mid[:, 0] < x1) & (mid[:, 1] >= y0) & (mid[:, 1] < y1)
-            sites = sites.take(np.flatnonzero(inside))
+        if region_nm is not None and len(ps):
+            # A shape counts where the centre of its box lies: once over a tiling.
+            bb = ps.bounding_boxes()
+            ex.shapes = int(in_region(0.5 * (bb[:, :2] + bb[:, 2:]), region_nm).sum())
         tick(f"{rule.name}: images", 3 * k + 2)
         metrics, which_cut, cuts = None, None, None
+        cut_keys: frozenset = frozenset()
         if rule.image_checks and len(sites):
             which_cut, cuts, angles = site_cuts(
                 edges, sites, ambit, grid_nm, turn_source=not source_is_symmetric(rule.exposure)
@@ -109,12 +110,16 @@ def scan_polygons(
             metrics = measure_cuts(cuts, angles, rule, scale)
             ex.extra["unique_cuts"] = len(cuts)
             ex.extra["imaged_sites"] = int((which_cut >= 0).sum())
+            if tile:
+                cut_keys = frozenset((c, round(a, 1) % 180.0) for c, a in zip(cuts, angles,
+                                                                               strict=True))
         findings.extend(
             classify_layer(sites, rule, scale, grid_nm, metrics, which_cut, cuts,
                            tile_nm=region_nm if tile else None)  # fmt: skip
         )
         stats.append(
-            LayerStats(rule.name, rule.source, len(ps), ex, time.perf_counter() - t0)
+            LayerStats(rule.name, rule.source, ex.shapes, ex, time.perf_counter() - t0,
+                       cut_keys)  # fmt: skip
         )
     tick("done", total)
     return findings, stats

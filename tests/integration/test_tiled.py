@@ -19,8 +19,22 @@ def _key(f):
             round(f.k1, 4), round(f.run_nm, 1), f.hint)  # fmt: skip
 
 
-def _same(a, b):
+def _counts(result, features: bool) -> list[dict]:
+    out = []
+    for st in result.layers:
+        c = {**vars(st.extract), "layer_shapes": st.shapes}
+        if not features:
+            del c["features"]
+        out.append(c)
+    return out
+
+
+def _same(a, b, features: bool = True):
+    """Same findings, and the same counts per layer: each tile counts what it owns.
+    ``features=False``: a large concave feature cut by a tile's window may be
+    counted once per part (a documented limit of tiled counts)."""
     assert sorted(map(_key, a.findings)) == sorted(map(_key, b.findings))
+    assert _counts(a, features) == _counts(b, features)
 
 
 @pytest.mark.parametrize("layout", [SAMPLE_GDS, SAMPLE_OAS], ids=["gds", "oas"])
@@ -72,7 +86,10 @@ def test_cli_scans_tiled_by_default_like_untiled(tmp_path, capsys):
     code2, out2, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q", "--jobs", "2",
                              "--tile-um", "10")  # fmt: skip
     assert code == code0 == code2 == 1
-    assert out.split(" in ")[0] == out0.split(" in ")[0] == out2.split(" in ")[0]
+    # The same summary, shape count included (tiles count the shapes they own), but
+    # for the time taken.
+    assert out.rsplit(", ", 1)[0] == out0.rsplit(", ", 1)[0] == out2.rsplit(", ", 1)[0]
+    assert " shapes" in out.rsplit(", ", 1)[0]
     code, _, err = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "--untiled", "--jobs", "2")
     assert code == 2 and "--untiled cannot be combined" in err
 
@@ -156,4 +173,7 @@ def test_random_layouts_give_the_same_findings_tiled(tmp_path, seed, overlap):
     whole = scan_layout(path, deck)
     assert len(whole.findings) > 5
     for tile_um in (10, 30):
-        _same(whole, scan_tiled(path, deck, tile_um=tile_um, jobs=2))
+        # Overlapping arrays merge into large concave features: their count is
+        # the documented limit (seeds 0 and 2: 514 whole against 536 tiled, 1,189
+        # against 1,191).
+        _same(whole, scan_tiled(path, deck, tile_um=tile_um, jobs=2), features=not overlap)
