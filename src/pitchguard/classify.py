@@ -33,7 +33,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from pitchguard.deck import SEVERITIES, LayerRule
-from pitchguard.extract import Sites, _query_pairs, _rtree
+from pitchguard.extract import Sites, _query_pairs_batched, _rtree
 from pitchguard.orders import OrderResult, analyse_pitch
 from pitchguard.printing import Metrics
 
@@ -490,8 +490,7 @@ def _regions(sites: Sites, severity: np.ndarray, pitch_tol: float) -> np.ndarray
     corners = sites.corners()
     mins = corners.min(axis=1)
     maxs = corners.max(axis=1)
-    index = _rtree(mins, maxs)
-    qi, qj = _query_pairs(index, mins, maxs)
+    qi, qj = _query_pairs_batched(_rtree(mins, maxs), mins, maxs, mins, maxs)
     keep = qi < qj
     qi, qj = qi[keep], qj[keep]
     ang, pitch = sites.orientation_deg, sites.pitch

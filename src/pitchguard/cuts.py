@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from pitchguard.extract import Edges, Sites, _EdgeFrames, _query_pairs
+from pitchguard.extract import Edges, Sites, _EdgeFrames
 
 
 @dataclass(frozen=True)
@@ -196,7 +196,7 @@ def _segment_pairs(frames: _EdgeFrames, p0, p1, line_dir):
         th = frames.turn[g]
         ends = np.stack([p0[sel], p1[sel]])
         ends = frames._rotated(th, ends.reshape(-1, 2)).reshape(ends.shape)
-        qk, j = _query_pairs(frames._tree(g), ends.min(axis=0), ends.max(axis=0))
+        qk, j = frames.query(g, ends.min(axis=0), ends.max(axis=0))
         out_k.append(sel[qk])
         out_j.append(j)
     return np.concatenate(out_k), np.concatenate(out_j)

@@ -73,6 +73,82 @@ def _query_pairs(index, mins, maxs) -> tuple[np.ndarray, np.ndarray]:
     return q, hits.astype(np.int64)
 
 
+BATCH_MAX = 8
+"""Query boxes answered by one R-tree query in :func:`_query_pairs_batched`."""
+
+
+def _query_pairs_batched(index, item_lo, item_hi, mins, maxs) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_query_pairs` for many boxes in rows, at a fraction of the cost.
+
+    An R-tree query costs about 3 us whatever it returns and about 0.15 us per
+    item found (measured with the rtree package on this project's edge
+    trees).  The boxes of an array's edges and cuts come in rows: the same
+    extent in y (or x), one after another in x (or y).  Up to
+    :data:`BATCH_MAX` such neighbours are queried as one box covering them
+    (a batch spans at most one box's width plus height), and each item found
+    is kept for each box it touches (closed intervals, the R-tree's own
+    test), so the pairs are exactly those of one query per box, in another
+    order.  ``item_lo``/``item_hi`` are the boxes the tree was built from.
+    """
+    n = len(mins)
+    if n < 2 * BATCH_MAX:
+        return _query_pairs(index, mins, maxs)
+    mins = np.ascontiguousarray(mins, dtype=np.float64)
+    maxs = np.ascontiguousarray(maxs, dtype=np.float64)
+    batch = np.full(n, -1, dtype=np.int64)
+    n_batches = 0
+    for shared in (1, 0):  # rows sharing their y extent, then their x extent
+        free = np.flatnonzero(batch < 0)
+        if len(free) < 2:
+            break
+        other = 1 - shared
+        lo_s, hi_s = mins[free, shared], maxs[free, shared]
+        lo_o = mins[free, other]
+        span = (maxs[free, 0] - mins[free, 0]) + (maxs[free, 1] - mins[free, 1])
+        order = np.lexsort((lo_o, hi_s, lo_s))
+        lo_s, hi_s, lo_o, span = lo_s[order], hi_s[order], lo_o[order], span[order]
+        same = (lo_s[1:] == lo_s[:-1]) & (hi_s[1:] == hi_s[:-1])
+        same &= lo_o[1:] - lo_o[:-1] <= span[:-1]
+        row_new = np.r_[True, ~same]
+        row_start = np.flatnonzero(row_new)
+        row_len = np.diff(np.r_[row_start, len(order)])
+        first = np.repeat(row_start, row_len)
+        pos = np.arange(len(order)) - first
+        # Within a row: at most BATCH_MAX a batch, spanning at most one box's span.
+        step = np.floor((lo_o - lo_o[first]) / np.maximum(span[first], 1e-9)).astype(np.int64)
+        key_new = np.r_[True, (pos[1:] // BATCH_MAX != pos[:-1] // BATCH_MAX)
+                        | (step[1:] != step[:-1])]  # fmt: skip
+        new = row_new | key_new
+        bid = np.cumsum(new) - 1
+        size = np.bincount(bid)
+        if shared == 1:
+            # Lone boxes wait for the other direction.
+            take = size[bid] > 1
+            bid = np.unique(bid[take], return_inverse=True)[1].ravel()
+            batch[free[order[take]]] = n_batches + bid
+            n_batches += int(bid.max(initial=-1)) + 1
+        else:
+            batch[free[order]] = n_batches + bid
+            n_batches += int(bid[-1]) + 1
+    left = np.flatnonzero(batch < 0)  # at most one box
+    batch[left] = n_batches + np.arange(len(left))
+    order = np.argsort(batch, kind="stable")
+    starts = np.flatnonzero(np.r_[True, batch[order][1:] != batch[order][:-1]])
+    bmin = np.minimum.reduceat(mins[order], starts)
+    bmax = np.maximum.reduceat(maxs[order], starts)
+    bq, hit = _query_pairs(index, bmin, bmax)
+    # Each hit of a batch, for each member of the batch; keep those that touch.
+    members = np.diff(np.r_[starts, n])
+    rep = members[bq]
+    k = np.repeat(np.arange(len(bq)), rep)
+    offset = np.arange(len(k)) - np.repeat(np.cumsum(rep) - rep, rep)
+    q = order[starts[bq[k]] + offset]
+    j = hit[k]
+    keep = (item_lo[j, 0] <= maxs[q, 0]) & (item_hi[j, 0] >= mins[q, 0])
+    keep &= (item_lo[j, 1] <= maxs[q, 1]) & (item_hi[j, 1] >= mins[q, 1])
+    return q[keep], j[keep]
+
+
 # --------------------------------------------------------------------------- features
 
 
@@ -249,8 +325,8 @@ def build_features(ps: PolygonSet, grid_nm: float) -> Edges:
         return Edges(z, z, np.zeros(0, dtype=np.int64), 0)
     boxes = ps.bounding_boxes()
     eps = grid_nm * 0.25
-    index = _rtree(boxes[:, :2] - eps, boxes[:, 2:] + eps)
-    qi, qj = _query_pairs(index, boxes[:, :2] - eps, boxes[:, 2:] + eps)
+    lo, hi = boxes[:, :2] - eps, boxes[:, 2:] + eps
+    qi, qj = _query_pairs_batched(_rtree(lo, hi), lo, hi, lo, hi)
     keep = qi < qj
     qi, qj = qi[keep], qj[keep]
     graph = coo_matrix((np.ones(len(qi), dtype=np.int8), (qi, qj)), shape=(n, n))
@@ -449,6 +525,7 @@ class _EdgeFrames:
         self.turn = {int(k): math.radians(k / 2.0) for k in big}
         self.turn.setdefault(0, 0.0)
         self._trees: dict[int, rtree.index.Index] = {}
+        self.boxes: dict[int, tuple[np.ndarray, np.ndarray]] = {}  # each tree's item boxes
 
     def _rotated(self, theta: float, pts: np.ndarray) -> np.ndarray:
         if theta == 0.0:
@@ -462,7 +539,13 @@ class _EdgeFrames:
             ra, rb = self._rotated(th, self.a), self._rotated(th, self.b)
             lo, hi = np.minimum(ra, rb) - self.eps, np.maximum(ra, rb) + self.eps
             self._trees[group] = _rtree(lo, hi)
+            self.boxes[group] = (lo, hi)
         return self._trees[group]
+
+    def query(self, group: int, mins: np.ndarray, maxs: np.ndarray):
+        """All (query, edge) pairs of boxes in ``group``'s frame (see _query_pairs_batched)."""
+        tree = self._tree(group)
+        return _query_pairs_batched(tree, *self.boxes[group], mins, maxs)
 
     def pairs(self, ids: np.ndarray, nrm: np.ndarray, window: float):
         """``(i, j)``: edges ``j`` touching the box of edge ``i`` swept by +-window."""
@@ -475,7 +558,7 @@ class _EdgeFrames:
             ends = np.stack([self.a[sel] + sweep, self.a[sel] - sweep,
                              self.b[sel] + sweep, self.b[sel] - sweep])  # fmt: skip
             ends = self._rotated(th, ends.reshape(-1, 2)).reshape(ends.shape)
-            qk, j = _query_pairs(self._tree(g), ends.min(axis=0), ends.max(axis=0))
+            qk, j = self.query(g, ends.min(axis=0), ends.max(axis=0))
             out_i.append(sel[qk])
             out_j.append(j)
         i = np.concatenate(out_i)

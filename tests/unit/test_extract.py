@@ -491,3 +491,42 @@ def test_pieces_are_cut_at_the_global_cell_grid():
     assert np.all(np.floor(lo / cell + 1e-9) == np.floor((hi - 1e-6) / cell))  # one cell each
     assert sites.run.sum() == pytest.approx(whole.run.sum())
     assert set(np.round(sites.pitch[np.isfinite(sites.pitch)], 6)) == {120.0}
+
+
+# --------------------------------------------------------------------------- batched queries
+
+
+def _boxes_in_rows(rng: np.random.Generator, n_rows: int):
+    """Query boxes as arrays make them: rows of equal boxes side by side (edge sweeps),
+    collinear segments (cuts), some stacked the other way, and scattered boxes, with
+    repeats and zero-size ones."""
+    lo, hi = [], []
+    for _ in range(n_rows):
+        x, y = rng.uniform(-5000, 5000, 2)
+        w, h = rng.choice([0.0, 40.0, 286.0]), rng.choice([0.0, 300.0, 1600.0])
+        step = rng.choice([0.0, 22.5, 45.0, 70.0, 400.0, 3000.0])
+        count = int(rng.integers(1, 30))
+        for k in range(count):
+            p = (x + k * step, y) if rng.random() < 0.7 else (x, y + k * step)
+            box = (w, h) if rng.random() < 0.8 else (h, w)
+            lo.append(p)
+            hi.append((p[0] + box[0], p[1] + box[1]))
+    return np.array(lo), np.array(hi)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_batched_queries_find_exactly_the_pairs_of_single_queries(seed):
+    """Reference: one R-tree query per box (the rtree package's own bulk query)."""
+    from pitchguard.extract import _query_pairs, _query_pairs_batched, _rtree
+
+    rng = np.random.default_rng(seed)
+    item_lo, item_hi = _boxes_in_rows(rng, 60)
+    q_lo, q_hi = _boxes_in_rows(rng, 60)
+    q_lo, q_hi = np.concatenate([q_lo, item_lo]), np.concatenate([q_hi, item_hi])
+    tree = _rtree(item_lo, item_hi)
+    want = set(zip(*(v.tolist() for v in _query_pairs(tree, q_lo, q_hi)), strict=True))
+    got_q, got_j = _query_pairs_batched(tree, item_lo, item_hi, q_lo, q_hi)
+    got = list(zip(got_q.tolist(), got_j.tolist(), strict=True))
+    assert len(got) == len(set(got))  # no pair twice
+    assert set(got) == want
+    assert len(want) > len(q_lo)  # the boxes do meet one another
