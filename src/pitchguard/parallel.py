@@ -15,7 +15,6 @@ findings' line positions.
 from __future__ import annotations
 
 import functools
-import gc
 import math
 import os
 from dataclasses import dataclass, replace
@@ -444,39 +443,18 @@ def scan_tiled(
         for k, key in enumerate(keys):
             groups.setdefault(key, []).append(k)
         reps = [members[0] for members in groups.values()]
-        # The parent makes the shifted copies of each distinct tile's findings as
-        # its result arrives, while the workers scan the other tiles.  Many small
-        # records are made and none is garbage or holds a reference cycle: the
-        # cyclic collector is paused meanwhile, and they are frozen out of its
-        # sight afterwards (gc.freeze; reference counting still frees them), so it
-        # never walks them (measured: each pass over 3.6e5 findings costs about
-        # half a second).  The price: the few worker-pool objects alive at the
-        # freeze are not collected before the process ends.
+        # Each distinct tile's result is filed as it arrives, while the workers
+        # scan the other tiles; no copy of a finding is made.
         assembly = _Assembly(groups, tiles)
-        gc_was_on = gc.isenabled()
-        gc.collect()
-        gc.disable()
-        try:
-            limit = tile_shape_limit(max_memory_mb, jobs, bool(scheduler))
-            engine.map(tile_task, [(str(p), deck.text, cell, tiles[k], halo, limit)
-                                   for k in reps],
-                       f"tiles ({len(reps)} of {len(tiles)} distinct)",
-                       consume=assembly.add)  # fmt: skip
-            gc.freeze()
-        finally:
-            if gc_was_on:
-                gc.enable()
+        limit = tile_shape_limit(max_memory_mb, jobs, bool(scheduler))
+        engine.map(tile_task, [(str(p), deck.text, cell, tiles[k], halo, limit) for k in reps],
+                   f"tiles ({len(reps)} of {len(tiles)} distinct)",
+                   consume=assembly.add)  # fmt: skip
         tiling = {"tile_um": tile_nm / 1000.0, "tiles": len(tiles), "distinct": len(reps),
                   "workers": engine.workers}  # fmt: skip
-    gc.disable()
-    try:
-        findings, per_group_stats = assembly.finish(deck, st.grid_nm)
-        stats = _sum_stats(deck, per_group_stats)
-        findings = sort_findings(findings)
-        gc.freeze()
-    finally:
-        if gc_was_on:
-            gc.enable()
+    findings, per_group_stats = assembly.finish(deck, st.grid_nm)
+    stats = _sum_stats(deck, per_group_stats)
+    findings = sort_findings(findings)
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})
     return ScanResult(findings, stats, layout, [], time.perf_counter() - t0, tiling)
 
@@ -572,18 +550,7 @@ class _Assembly:
         # Regions cut by borders are merged.  Regions whose parts are the same
         # distinct findings placed alike are the same region moved: each such
         # kind is merged once (its parts made, line points and hulls moved).
-        kinds: dict = {}
-        first_of: list[np.ndarray] = []
-        kind = np.empty(len(groups), dtype=np.int64)
-        moved = np.zeros((len(groups), 2))
-        for i, grp in enumerate(groups):
-            at = b_off[grp[0]]
-            key = (b_which[grp].tobytes(), np.round(b_off[grp] - at, 3).tobytes())
-            j = kinds.setdefault(key, len(first_of))
-            if j == len(first_of):
-                first_of.append(grp)
-            kind[i] = j
-            moved[i] = at - b_off[first_of[j][0]]
+        kind, moved, first_of = _kinds(groups, b_which, b_off)
         parts = {k: _moved_part(raw[b_which[k]], b_off[k]) for g in first_of for k in g.tolist()}
         merged = _merge_groups(parts, first_of, deck, grid_nm)
         for f in merged:  # line points served the line count
@@ -605,11 +572,37 @@ class _Assembly:
         return FindingSet(distinct, np.concatenate(which), np.concatenate(offset)), self.stats
 
 
+def _kinds(groups: list[np.ndarray], which: np.ndarray, off: np.ndarray):
+    """Groups of parts that are the same region moved: the same distinct findings,
+    placed alike.  Returns ``(kind, moved, first_of)``: group ``i`` is the
+    group ``first_of[kind[i]]`` moved by ``moved[i]`` (nm)."""
+    n = len(groups)
+    kind = np.empty(n, dtype=np.int64)
+    at = np.array([off[g[0]] for g in groups]).reshape(-1, 2)
+    size = np.array([len(g) for g in groups], dtype=np.int64)
+    first_group: list[int] = []
+    for s in np.unique(size).tolist():
+        sel = np.flatnonzero(size == s)
+        members = np.stack([groups[i] for i in sel.tolist()])  # (m, s)
+        rel = np.round(off[members] - at[sel][:, None, :], 3) + 0.0
+        sig = np.concatenate([which[members].astype(np.float64), rel.reshape(len(sel), -1)],
+                             axis=1)  # fmt: skip
+        _, first, inverse = np.unique(sig, axis=0, return_index=True, return_inverse=True)
+        # Kinds numbered in the order of their first group (as a loop would).
+        by_first = np.argsort(first, kind="stable")
+        rank = np.empty(len(first), dtype=np.int64)
+        rank[by_first] = np.arange(len(first))
+        kind[sel] = len(first_group) + rank[inverse.ravel()]
+        first_group.extend(sel[first[by_first]].tolist())
+    moved = at - at[np.array(first_group, dtype=np.int64)[kind]]
+    return kind, moved, [groups[i] for i in first_group]
+
+
 def _final(f: Finding) -> Finding:
     """``f`` without what only served the merge (line points, border sites, hull)."""
     if f.line_points is None and f.border_sites is None and f.extent_nm is None:
         return f
-    return replace(f, line_points=None, border_sites=None, extent_nm=None)
+    return _stripped(f, None, None, None)
 
 
 def _moved_part(f: Finding, off: np.ndarray) -> Finding:
@@ -674,6 +667,7 @@ _MERGED = ("pitch_max_nm", "lines", "periodicity", "sites", "run_nm", "bbox_nm",
 
 
 _mover = finding_copier(_MOVED)
+_stripped = finding_copier(("line_points", "border_sites", "extent_nm"))
 _set = object.__setattr__  # findings are frozen; only fresh copies made here are set
 _merged = finding_copier(_MERGED)
 
