@@ -128,6 +128,9 @@ class Finding:
     # border, rows (4 corners x, y; orientation; pitch), drawn nm.  Regions of
     # neighbouring tiles are merged exactly where such sites touch.
     border_sites: np.ndarray | None = field(default=None, compare=False, repr=False)
+    # Tiled scans only, until hints are made: what the hint is made from (see
+    # hint_key); the scan makes each distinct hint once, spread over its workers.
+    hint_key: tuple | None = field(default=None, compare=False, repr=False)
     # ... and the convex hull (k, 2) of all its sites' corners: the region's extent
     # in any frame, for the outline of a merged region.
     extent_nm: np.ndarray | None = field(default=None, compare=False, repr=False)
@@ -566,11 +569,15 @@ def passing_pitch(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: flo
     return math.nan
 
 
-def _hint(rule: LayerRule, vs: list[Violation] | tuple, cutoff_pitch_nm: float, cd_w: float,
-          pitch_w: float, angle: float, scale: float) -> str:  # fmt: skip
-    """What to change, in drawn nm."""
-    checks = tuple(v.check for v in vs)
-    return _hint_cached(rule, checks, cutoff_pitch_nm, cd_w, pitch_w, angle, scale)
+def hint_key(vs: list[Violation] | tuple, cutoff_pitch_nm: float, cd_w: float, pitch_w: float,
+             angle: float, scale: float) -> tuple:  # fmt: skip
+    """All a finding's hint depends on, besides its layer's rule (plain values)."""
+    return (tuple(v.check for v in vs), cutoff_pitch_nm, cd_w, pitch_w, angle, scale)
+
+
+def hint_text(rule: LayerRule, key: tuple) -> str:
+    """What to change, in drawn nm (kept per process: hints recur)."""
+    return _hint_cached(rule, *key)
 
 
 @lru_cache(maxsize=65536)
@@ -625,6 +632,7 @@ def classify_layer(
     which_cut: np.ndarray | None = None,
     cuts: list | None = None,
     tile_nm: tuple[float, float, float, float] | None = None,
+    defer_hints: bool = False,
 ) -> list[Finding]:
     """Findings (one per region) for the sites of one layer.
 
@@ -633,6 +641,8 @@ def classify_layer(
     ``max(pitch_tolerance_nm, SNAP_PITCH_SPREAD * grid_nm)`` (drawn nm).
     With ``tile_nm`` (a tile of a tiled scan) each finding keeps its sites
     that sites of other tiles could touch (:attr:`Finding.border_sites`).
+    With ``defer_hints`` findings get an empty hint and the key to make it
+    from (:attr:`Finding.hint_key`, see :func:`hint_text`).
     """
     severity, results, which, found = judge_sites(
         sites, rule, scale_to_wafer, metrics, which_cut
@@ -692,8 +702,9 @@ def classify_layer(
         width_drawn = float(fs.width[worst])
         top = vs[0]
         pitch_angle = math.degrees(math.atan2(normal_all[worst][1], normal_all[worst][0]))
-        hint = _hint(rule, vs, res.cutoff_pitch_nm, width_drawn * scale_to_wafer,
-                     pitch_drawn * scale_to_wafer, pitch_angle, scale_to_wafer)
+        key = hint_key(vs, res.cutoff_pitch_nm, width_drawn * scale_to_wafer,
+                       pitch_drawn * scale_to_wafer, pitch_angle, scale_to_wafer)
+        hint = "" if defer_hints else hint_text(rule, key)
         limit = f"{top.check}: {top.value:.4g} against {top.limit:.4g}"
         context = cuts[c_idx].context if (cuts and c_idx >= 0) else ""
         cut = cuts[c_idx] if (cuts and c_idx >= 0) else None
@@ -749,6 +760,7 @@ def classify_layer(
                 border_sites=border,
                 extent_nm=_hull(corners_all[members].reshape(-1, 2)) if border is not None
                 and len(border) else None,  # fmt: skip
+                hint_key=key if defer_hints else None,
             )
         )
     out.sort(key=lambda f: (f.severity_rank, f.k1, f.bbox_nm))

@@ -31,6 +31,7 @@ from pitchguard.classify import (
     canonical_normal,
     count_lines,
     finding_copier,
+    hint_text,
     rectangles_touch,
     same_region_class,
     sort_findings,
@@ -174,11 +175,26 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float,
     polys = q.query(window)
     for ps in polys.values():  # onto the database grid, exactly as read_layout does
         snap_to_grid(ps, st.grid_nm)
-    # Hints are made here, in parallel, once per distinct tile's finding (a hint does
-    # not depend on where the finding is); they travel with its shifted copies, and
-    # a region merged across tiles keeps its worst part's.
+    # Hints are left to the caller: it makes each distinct one once (a hint does not
+    # depend on where the finding is); a region merged across tiles keeps its worst
+    # part's.
     findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile), tile=True)
     return findings, stats
+
+
+def hints_task(deck_text: str, keys: list[tuple]) -> dict:
+    """Hint texts for ``(layer name, hint key)`` pairs (see classify.hint_text)."""
+    deck = _deck(deck_text)
+    rules = {r.name: r for r in deck.layers}
+    # Looked up by repr: a key may hold nan, which equals nothing once pickled.
+    return {(name, repr(key)): hint_text(rules[name], key) for name, key in keys}
+
+
+def _with_hints(findings: FindingSet, texts: dict) -> FindingSet:
+    """``findings`` with their hints made (:func:`hints_task`)."""
+    distinct = [f if f.hint_key is None else _hinted(f, texts[(f.layer, repr(f.hint_key))], None)
+                for f in findings.distinct]  # fmt: skip
+    return FindingSet(distinct, findings.which, findings.offset)
 
 
 def clips_task(path: str, cell: str | None, layers, grid_nm: float, windows):
@@ -444,15 +460,35 @@ def scan_tiled(
             groups.setdefault(key, []).append(k)
         reps = [members[0] for members in groups.values()]
         # Each distinct tile's result is filed as it arrives, while the workers
-        # scan the other tiles; no copy of a finding is made.
+        # scan the other tiles; no copy of a finding is made.  Hints (an ideal-
+        # grating pitch search each) are made once per distinct hint over the
+        # whole scan: each new one is sent to the workers as soon as a tile finds
+        # it, ahead of the tiles still waiting.
         assembly = _Assembly(groups, tiles)
         limit = tile_shape_limit(max_memory_mb, jobs, bool(scheduler))
-        engine.map(tile_task, [(str(p), deck.text, cell, tiles[k], halo, limit) for k in reps],
-                   f"tiles ({len(reps)} of {len(tiles)} distinct)",
-                   consume=assembly.add)  # fmt: skip
+        asked: set = set()
+        texts: dict = {}
+
+        def arrived(tag, result):
+            if tag == "hints":
+                texts.update(result)
+                return []
+            assembly.add(tag, result)
+            new = {(f.layer, repr(f.hint_key)): (f.layer, f.hint_key) for f in result[0]
+                   if f.hint_key is not None and (f.layer, repr(f.hint_key)) not in asked}
+            asked.update(new)
+            # In one task: hints share their grating images (the same pitches tried).
+            return [(hints_task, (deck.text, [k for _, k in sorted(new.items())]), "hints")
+                    ] if new else []  # fmt: skip
+
+        engine.stream([(tile_task, (str(p), deck.text, cell, tiles[k], halo, limit), g)
+                       for g, k in enumerate(reps)],
+                      f"tiles ({len(reps)} of {len(tiles)} distinct)", arrived,
+                      in_flight=2 * engine.workers)  # fmt: skip
+        findings, per_group_stats = assembly.finish(deck, st.grid_nm)
         tiling = {"tile_um": tile_nm / 1000.0, "tiles": len(tiles), "distinct": len(reps),
                   "workers": engine.workers}  # fmt: skip
-    findings, per_group_stats = assembly.finish(deck, st.grid_nm)
+    findings = _with_hints(findings, texts)
     stats = _sum_stats(deck, per_group_stats)
     findings = sort_findings(findings)
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})
@@ -668,6 +704,7 @@ _MERGED = ("pitch_max_nm", "lines", "periodicity", "sites", "run_nm", "bbox_nm",
 
 _mover = finding_copier(_MOVED)
 _stripped = finding_copier(("line_points", "border_sites", "extent_nm"))
+_hinted = finding_copier(("hint", "hint_key"))
 _set = object.__setattr__  # findings are frozen; only fresh copies made here are set
 _merged = finding_copier(_MERGED)
 
@@ -736,41 +773,70 @@ class _Engine:
             return max(1, len(self.client.scheduler_info().get("workers", {})))
         return self.jobs
 
-    def map(self, fn, arglists: list[tuple], label: str, consume=None) -> list:
-        """``fn(*a)`` for each of ``arglists``, in order; or, with ``consume``, each
-        result handed to ``consume(k, result)`` as it arrives (nothing returned)."""
-        if not arglists:
-            return []
+    def map(self, fn, arglists: list[tuple], label: str) -> list:
+        """``fn(*a)`` for each of ``arglists``, in order."""
         out = [None] * len(arglists)
-        take = consume or out.__setitem__
-        if self.client is not None:
-            from distributed import as_completed as cluster_completed
 
-            futs = {self.client.submit(fn, *a, pure=False): k for k, a in enumerate(arglists)}
-            done_iter = cluster_completed(futs)
-        else:
-            from concurrent.futures import as_completed
+        def keep(k, result):
+            out[k] = result
+            return ()
 
-            futs = {self.pool.submit(fn, *a): k for k, a in enumerate(arglists)}
-            done_iter = as_completed(futs)
+        self.stream([(fn, a, k) for k, a in enumerate(arglists)], label, keep)
+        return out
+
+    def stream(self, tasks: list[tuple], label: str, handle, in_flight: int | None = None) -> None:
+        """Run ``tasks`` (``(fn, args, tag)``), at most ``in_flight`` at a time.
+
+        Each result goes to ``handle(tag, result)`` as it arrives; the tasks
+        ``handle`` returns (same form) start at once, ahead of those still
+        waiting, and their results come back the same way.  Progress counts
+        ``tasks`` only.
+        """
+        import queue
+        from collections import deque
+
+        waiting = deque(tasks)
+        arrived: queue.SimpleQueue = queue.SimpleQueue()
+        limit = in_flight or len(waiting) or 1
+        running = finished = 0
+
+        def start(task, counted: bool) -> None:
+            fn, args, tag = task
+            if self.client is not None:
+                fut = self.client.submit(fn, *args, pure=False)
+            else:
+                fut = self.pool.submit(fn, *args)
+            fut.add_done_callback(lambda f: arrived.put((counted, tag, f)))
+
+        while waiting or running:
+            while waiting and running < limit:
+                start(waiting.popleft(), True)
+                running += 1
+            counted, tag, fut = arrived.get()
+            running -= 1
+            more = handle(tag, self._result(fut))
+            if counted:
+                finished += 1
+                if self.progress:
+                    self.progress(label, finished, len(tasks))
+            for task in more:
+                start(task, False)
+                running += 1
+
+    def _result(self, fut):
         from concurrent.futures.process import BrokenProcessPool
 
-        for done, fut in enumerate(done_iter, 1):
-            try:
-                result = fut.result()
-            except BrokenProcessPool:
-                raise LayoutError(f"{self.path}: the layout reader crashed in a tile worker: "
-                                  "the file is corrupt") from None  # fmt: skip
-            except Exception as exc:
-                if self.client is None:
-                    raise
-                # A worker lost while reading: bad input.
-                raise LayoutError(f"{self.path}: a tile failed on the cluster: "
-                                  f"{type(exc).__name__}: {exc}") from None  # fmt: skip
-            take(futs[fut], result)
-            if self.progress:
-                self.progress(label, done, len(arglists))
-        return [] if consume else out
+        try:
+            return fut.result()
+        except BrokenProcessPool:
+            raise LayoutError(f"{self.path}: the layout reader crashed in a tile worker: "
+                              "the file is corrupt") from None  # fmt: skip
+        except Exception as exc:
+            if self.client is None:
+                raise
+            # A worker lost while reading: bad input.
+            raise LayoutError(f"{self.path}: a tile failed on the cluster: "
+                              f"{type(exc).__name__}: {exc}") from None  # fmt: skip
 
 
 def _sum_stats(deck: Deck, per_group: list[tuple[list[LayerStats], int]]) -> list[LayerStats]:

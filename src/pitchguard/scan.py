@@ -73,7 +73,8 @@ def scan_polygons(
     With ``region_nm`` only sites whose midpoint lies in the region are judged;
     shapes up to one ambit outside it are still seen as neighbours.  With
     ``tile`` the region is a tile of a tiled scan: findings keep the sites
-    that regions of other tiles may join through (``Finding.border_sites``).
+    that regions of other tiles may join through (``Finding.border_sites``),
+    and their hints are left to the caller (``Finding.hint_key``).
     """
     findings: list[Finding] = []
     stats: list[LayerStats] = []
@@ -115,7 +116,7 @@ def scan_polygons(
                                                                                strict=True))
         findings.extend(
             classify_layer(sites, rule, scale, grid_nm, metrics, which_cut, cuts,
-                           tile_nm=region_nm if tile else None)  # fmt: skip
+                           tile_nm=region_nm if tile else None, defer_hints=tile)  # fmt: skip
         )
         stats.append(
             LayerStats(rule.name, rule.source, ex.shapes, ex, time.perf_counter() - t0,
