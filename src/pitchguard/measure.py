@@ -37,6 +37,8 @@ emptied when it would grow past this."""
 
 _imaged: dict[tuple, Metrics] = {}
 _imaged_stats = {"hits": 0, "misses": 0}
+_fresh: list[tuple] = []  # keys imaged here since the last take_imaged()
+_layer_of: dict[tuple, str] = {}  # rule key -> layer name, for export
 
 
 def cut_cache_info() -> dict[str, int]:
@@ -46,7 +48,33 @@ def cut_cache_info() -> dict[str, int]:
 
 def clear_cut_cache() -> None:
     _imaged.clear()
+    _fresh.clear()
     _imaged_stats.update(hits=0, misses=0)
+
+
+def _rule_key(rule: LayerRule, scale_to_wafer: float) -> tuple:
+    """All of a layer's rule that a cut's metrics depend on."""
+    return (rule.exposure, rule.field, rule.ambit_nm, rule.focus_nm, rule.anchor,
+            rule.cd_tolerance_pct, rule.el_min_pct, scale_to_wafer)  # fmt: skip
+
+
+def take_imaged() -> list[tuple]:
+    """The cuts imaged in this process since the last call, to share with other
+    processes scanning with the same deck: rows ``(layer, angle, bounds, reach,
+    metrics)`` (see :func:`give_imaged`)."""
+    rows = [(_layer_of[k[0]], *k[1:], _imaged[k]) for k in _fresh if k in _imaged]
+    _fresh.clear()
+    return rows
+
+
+def give_imaged(rows, rules: dict[str, LayerRule], scale_to_wafer: float) -> None:
+    """Take cuts another process imaged with this deck (:func:`take_imaged`)."""
+    keys = {name: _rule_key(rule, scale_to_wafer) for name, rule in rules.items()}
+    if len(_imaged) + len(rows) > CUT_CACHE_MAX:
+        _imaged.clear()
+    for name, angle, bounds, reach, m in rows:
+        if name in keys:
+            _imaged.setdefault((keys[name], angle, bounds, reach), m)
 
 
 def samples_for(period_nm: float, n_max: int, optics: Optics) -> int:
@@ -95,12 +123,13 @@ def measure_cuts(
     A cut's metrics depend only on its profile, its source turn and the
     layer's exposure and limits, so they are kept per process: the tiles of
     a tiled scan repeat each other's cuts, and a worker images each distinct
-    cut once, whichever tiles it meets it in.
+    cut once, whichever tiles it meets it in (and none that another worker
+    imaged before its tile started: see :func:`take_imaged`).
     """
     if not cuts:
         return []
-    rule_key = (rule.exposure, rule.field, rule.ambit_nm, rule.focus_nm, rule.anchor,
-                rule.cd_tolerance_pct, rule.el_min_pct, scale_to_wafer)  # fmt: skip
+    rule_key = _rule_key(rule, scale_to_wafer)
+    _layer_of[rule_key] = rule.name
     keys = [(rule_key, round(a, 1) % 180.0, c.bounds, c.reach)
             for c, a in zip(cuts, angles_deg, strict=True)]  # fmt: skip
     known = [_imaged.get(k) for k in keys]
@@ -114,6 +143,7 @@ def measure_cuts(
             _imaged.clear()
         for k, m in zip(todo, fresh, strict=True):
             known[k] = _imaged[keys[k]] = m
+            _fresh.append(keys[k])
     return known  # type: ignore[return-value]
 
 

@@ -40,7 +40,15 @@ from pitchguard.deck import Deck, parse_deck
 from pitchguard.errors import LayoutError
 from pitchguard.extract import SITE_CELL_NM, ExtractStats
 from pitchguard.layout import Layout, PolygonSet, snap_to_grid
+from pitchguard.measure import give_imaged, take_imaged
 from pitchguard.scan import LayerStats, ScanResult, scan_polygons
+
+KEY_CHUNKS = 16
+KEY_CHUNK_MIN = 64
+"""Content keys are worked out in about KEY_CHUNKS chunks of at least KEY_CHUNK_MIN tiles."""
+
+CUTS_SHARED = 2000
+"""Most cuts imaged elsewhere passed to a tile task (about 1 kB each, pickled)."""
 
 DEFAULT_TILED_MAX_SHAPES = 2_000_000_000
 """Tiled scans hold one tile at a time per worker, so they accept far larger
@@ -149,12 +157,14 @@ def keys_task(path: str, cell: str | None, layers, tiles, halo: float) -> list[b
 
 
 def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float,
-              max_shapes: int | None = None):  # fmt: skip
-    """Scan one tile; returns ``(findings, stats per layer)``.
+              max_shapes: int | None = None, imaged=()):  # fmt: skip
+    """Scan one tile; returns ``(findings, stats per layer, cuts imaged)``.
 
     A tile holding more than ``max_shapes`` shapes (counted from the hierarchy
     before any is read: a corrupt or extreme array can pile millions into one
     tile) is refused with a LayoutError rather than run out of memory.
+    ``imaged``: cuts other workers imaged (see measure.take_imaged); the cuts
+    this worker imaged since its last tile are returned for the others.
     """
     import faulthandler
 
@@ -178,8 +188,9 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float,
     # Hints are left to the caller: it makes each distinct one once (a hint does not
     # depend on where the finding is); a region merged across tiles keeps its worst
     # part's.
+    give_imaged(imaged, {r.name: r for r in deck.layers}, deck.scale_to_wafer)
     findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile), tile=True)
-    return findings, stats
+    return findings, stats, take_imaged()
 
 
 def hints_task(deck_text: str, keys: list[tuple]) -> dict:
@@ -445,54 +456,102 @@ def scan_tiled(
     _check_tile_count(p, st.extent_nm, region, tile_nm)
     tiles = tiles_for(st.extent_nm, tile_nm, region) if st.extent_nm else []
     with _Engine(str(p), jobs, scheduler, progress) as engine:
-        if reuse and len(tiles) > 1:
-            n_chunks = min(len(tiles), 4 * engine.workers)
-            chunks = [tiles[k::n_chunks] for k in range(n_chunks)]
-            keyed = engine.map(keys_task, [(str(p), cell, layers, c, halo) for c in chunks],
-                               "tile contents")  # fmt: skip
-            keys = [None] * len(tiles)
-            for k, ks in enumerate(keyed):
-                keys[k::n_chunks] = ks
-        else:
-            keys = list(range(len(tiles)))
-        groups: dict = {}
-        for k, key in enumerate(keys):
-            groups.setdefault(key, []).append(k)
-        reps = [members[0] for members in groups.values()]
-        # Each distinct tile's result is filed as it arrives, while the workers
-        # scan the other tiles; no copy of a finding is made.  Hints (an ideal-
-        # grating pitch search each) are made once per distinct hint over the
-        # whole scan: each new one is sent to the workers as soon as a tile finds
-        # it, ahead of the tiles still waiting.
-        assembly = _Assembly(groups, tiles)
+        assembly = _Assembly(tiles)
         limit = tile_shape_limit(max_memory_mb, jobs, bool(scheduler))
-        asked: set = set()
         texts: dict = {}
-
-        def arrived(tag, result):
-            if tag == "hints":
-                texts.update(result)
-                return []
-            assembly.add(tag, result)
-            new = {(f.layer, repr(f.hint_key)): (f.layer, f.hint_key) for f in result[0]
-                   if f.hint_key is not None and (f.layer, repr(f.hint_key)) not in asked}
-            asked.update(new)
-            # In one task: hints share their grating images (the same pitches tried).
-            return [(hints_task, (deck.text, [k for _, k in sorted(new.items())]), "hints")
-                    ] if new else []  # fmt: skip
-
-        engine.stream([(tile_task, (str(p), deck.text, cell, tiles[k], halo, limit), g)
-                       for g, k in enumerate(reps)],
-                      f"tiles ({len(reps)} of {len(tiles)} distinct)", arrived,
-                      in_flight=2 * engine.workers)  # fmt: skip
+        run = _TileRun(engine, assembly, str(p), deck, cell, tiles, halo, limit, texts)
+        if reuse and len(tiles) > 1:
+            # Content keys, a chunk at a time in tile order on one worker at a time
+            # (its memo of placements serves the next chunk); each distinct tile
+            # is scanned as soon as the chunks before it are in, while the keys
+            # of the rest are still being worked out.
+            size = max(KEY_CHUNK_MIN, math.ceil(len(tiles) / KEY_CHUNKS))
+            run.chunks = [(k, tiles[k : k + size]) for k in range(0, len(tiles), size)]
+            first = [run.next_chunk(layers)]
+        else:
+            first = [run.tile(assembly.group([k])) for k in range(len(tiles))]
+        engine.stream(first, run.arrived, in_flight=2 * engine.workers)
         findings, per_group_stats = assembly.finish(deck, st.grid_nm)
-        tiling = {"tile_um": tile_nm / 1000.0, "tiles": len(tiles), "distinct": len(reps),
-                  "workers": engine.workers}  # fmt: skip
+        tiling = {"tile_um": tile_nm / 1000.0, "tiles": len(tiles),
+                  "distinct": len(assembly.members), "workers": engine.workers}  # fmt: skip
     findings = _with_hints(findings, texts)
     stats = _sum_stats(deck, per_group_stats)
     findings = sort_findings(findings)
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})
     return ScanResult(findings, stats, layout, [], time.perf_counter() - t0, tiling)
+
+
+class _TileRun:
+    """The tasks of a tiled scan and what comes back from them (see scan_tiled).
+
+    Content keys come a chunk at a time, in tile order; when a chunk is in,
+    every key first seen in it has its first tile known, and that tile is
+    scanned for its group.  Results are filed in the assembly; each new hint
+    a tile finds is sent to a worker at once (hints of one result together:
+    they share grating images); the cuts any worker imaged travel with the
+    tile tasks that start later.
+    """
+
+    def __init__(self, engine, assembly, path, deck, cell, tiles, halo, limit, texts):
+        self.engine, self.assembly = engine, assembly
+        self.path, self.deck, self.cell, self.tiles = path, deck, cell, tiles
+        self.halo, self.limit, self.texts = halo, limit, texts
+        self.chunks: list = []
+        self.group_of: dict = {}  # content key -> group
+        self.asked: set = set()
+        self.imaged: dict = {}
+        self.layers: list = []
+        self.scanned = self.keyed = 0
+
+    def next_chunk(self, layers=None):
+        self.layers = layers or self.layers
+        start, chunk = self.chunks.pop(0)
+        return (keys_task, (self.path, self.cell, self.layers, chunk, self.halo), ("keys", start))
+
+    def tile(self, g: int):
+        k = self.assembly.members[g][0]
+
+        def args():
+            return (self.path, self.deck.text, self.cell, self.tiles[k], self.halo, self.limit,
+                    list(self.imaged.values())[-CUTS_SHARED:])  # fmt: skip
+
+        return (tile_task, args, g)
+
+    def arrived(self, tag, result) -> list:
+        more = []
+        if tag == "hints":
+            self.texts.update(result)
+        elif isinstance(tag, tuple):  # content keys of a chunk, from tile ``start`` on
+            start = tag[1]
+            for k, key in enumerate(result, start):
+                g = self.group_of.get(key)
+                if g is None:
+                    self.group_of[key] = g = self.assembly.group([k])
+                    more.append(self.tile(g))
+                else:
+                    self.assembly.members[g].append(k)
+            self.keyed += len(result)
+            if self.engine.progress:
+                self.engine.progress("tile contents", self.keyed, len(self.tiles))
+            if self.chunks:
+                more.insert(0, self.next_chunk())
+        else:
+            fs, layer_stats, fresh = result
+            for row in fresh:
+                self.imaged.setdefault(row[:4], row)
+            self.assembly.add(tag, (fs, layer_stats))
+            self.scanned += 1
+            if self.engine.progress:
+                n = len(self.assembly.members)
+                so_far = " so far" if self.keyed < len(self.tiles) else ""
+                self.engine.progress(f"tiles ({n} distinct{so_far})", self.scanned, n)
+            new = {(f.layer, repr(f.hint_key)): (f.layer, f.hint_key) for f in fs
+                   if f.hint_key is not None and (f.layer, repr(f.hint_key)) not in self.asked}
+            self.asked.update(new)
+            if new:
+                keys = [k for _, k in sorted(new.items())]
+                more.insert(0, (hints_task, (self.deck.text, keys), "hints"))
+        return more
 
 
 class _Assembly:
@@ -512,30 +571,38 @@ class _Assembly:
     whole-layout scan's own region rule) and applied to every copy of the pair.
     """
 
-    def __init__(self, groups: dict, tiles):
-        self.members = list(groups.values())
+    def __init__(self, tiles):
         self.tiles = tiles
-        n = len(self.members)
-        self.offsets: list = [None] * n  # each group's tiles, from its first tile, (m, 2) nm
-        self.inner: list = [()] * n  # final findings, away from the tile's border
-        self.reps: list = [()] * n  # findings with sites near the border
-        self.stats: list = [None] * n
+        self.members: list[list[int]] = []  # per group: its tiles, the first scanned
+        self.offsets: list = []  # each group's tiles, from its first tile, (m, 2) nm
+        self.inner: list = []  # final findings, away from the tile's border
+        self.reps: list = []  # findings with sites near the border
+        self.stats: list = []
+
+    def group(self, members: list[int]) -> int:
+        """A new group of tiles (more members may be appended until finish)."""
+        self.members.append(members)
+        for part in (self.offsets, self.inner, self.reps):
+            part.append(())
+        self.stats.append(None)
+        return len(self.members) - 1
 
     def add(self, g: int, result) -> None:
         fs, stats = result
-        members = self.members[g]
-        tiles = self.tiles
-        tx0, ty0 = tiles[members[0]][:2]
-        self.offsets[g] = np.array([tiles[k][:2] for k in members], dtype=np.float64) - (tx0, ty0)
         # Only findings with sites near a tile's border can join other tiles'.
         self.inner[g] = [_final(f) for f in fs
                          if f.border_sites is None or not len(f.border_sites)]  # fmt: skip
         self.reps[g] = [f for f in fs if f.border_sites is not None and len(f.border_sites)]
-        self.stats[g] = (stats, len(members))
+        self.stats[g] = stats
 
     def finish(self, deck: Deck, grid_nm: float) -> tuple[FindingSet, list]:
         if any(s is None for s in self.stats):
             raise RuntimeError("a distinct tile's result is missing")
+        tiles = self.tiles
+        for g, members in enumerate(self.members):
+            tx0, ty0 = tiles[members[0]][:2]
+            self.offsets[g] = np.array([tiles[k][:2] for k in members],
+                                       dtype=np.float64) - (tx0, ty0)  # fmt: skip
         size = np.array([len(m) for m in self.members])
         distinct: list[Finding] = []
         which: list[np.ndarray] = []
@@ -605,7 +672,8 @@ class _Assembly:
         o[~lone] = moved[slot[~lone]]
         which.append(w)
         offset.append(o)
-        return FindingSet(distinct, np.concatenate(which), np.concatenate(offset)), self.stats
+        per_group = [(st, len(m)) for st, m in zip(self.stats, self.members, strict=True)]
+        return FindingSet(distinct, np.concatenate(which), np.concatenate(offset)), per_group
 
 
 def _kinds(groups: list[np.ndarray], which: np.ndarray, off: np.ndarray):
@@ -773,55 +841,39 @@ class _Engine:
             return max(1, len(self.client.scheduler_info().get("workers", {})))
         return self.jobs
 
-    def map(self, fn, arglists: list[tuple], label: str) -> list:
-        """``fn(*a)`` for each of ``arglists``, in order."""
-        out = [None] * len(arglists)
-
-        def keep(k, result):
-            out[k] = result
-            return ()
-
-        self.stream([(fn, a, k) for k, a in enumerate(arglists)], label, keep)
-        return out
-
-    def stream(self, tasks: list[tuple], label: str, handle, in_flight: int | None = None) -> None:
-        """Run ``tasks`` (``(fn, args, tag)``), at most ``in_flight`` at a time.
+    def stream(self, tasks: list[tuple], handle, in_flight: int | None = None) -> None:
+        """Run ``tasks`` (``(fn, args, tag)``; ``args`` may be a function making
+        them when the task starts), at most ``in_flight`` at a time.
 
         Each result goes to ``handle(tag, result)`` as it arrives; the tasks
-        ``handle`` returns (same form) start at once, ahead of those still
-        waiting, and their results come back the same way.  Progress counts
-        ``tasks`` only.
+        ``handle`` returns (same form) go ahead of those still waiting, in
+        order.  Returns when no task is left.
         """
         import queue
         from collections import deque
 
         waiting = deque(tasks)
         arrived: queue.SimpleQueue = queue.SimpleQueue()
-        limit = in_flight or len(waiting) or 1
-        running = finished = 0
+        limit = in_flight or max(1, len(waiting))
+        running = 0
 
-        def start(task, counted: bool) -> None:
+        def start(task) -> None:
             fn, args, tag = task
+            if callable(args):  # made when the task starts
+                args = args()
             if self.client is not None:
                 fut = self.client.submit(fn, *args, pure=False)
             else:
                 fut = self.pool.submit(fn, *args)
-            fut.add_done_callback(lambda f: arrived.put((counted, tag, f)))
+            fut.add_done_callback(lambda f: arrived.put((tag, f)))
 
         while waiting or running:
             while waiting and running < limit:
-                start(waiting.popleft(), True)
+                start(waiting.popleft())
                 running += 1
-            counted, tag, fut = arrived.get()
+            tag, fut = arrived.get()
             running -= 1
-            more = handle(tag, self._result(fut))
-            if counted:
-                finished += 1
-                if self.progress:
-                    self.progress(label, finished, len(tasks))
-            for task in more:
-                start(task, False)
-                running += 1
+            waiting.extendleft(reversed(handle(tag, self._result(fut))))
 
     def _result(self, fut):
         from concurrent.futures.process import BrokenProcessPool

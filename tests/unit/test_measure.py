@@ -73,3 +73,26 @@ def test_cache_is_emptied_past_its_size(rule, monkeypatch):
     measure.measure_cuts([ALONE], [0.0], r, scale)
     assert measure.cut_cache_info()["size"] == 1
     measure.clear_cut_cache()
+
+
+def test_cuts_imaged_in_one_process_serve_another(rule):
+    """What a tile worker hands on (take_imaged) is read back (give_imaged) as if
+    imaged there: no image is made again and the metrics are the same."""
+    r, scale = rule
+    measure.clear_cut_cache()
+    mine = measure.measure_cuts([DENSE, ALONE], [0.0, 0.0], r, scale)
+    rows = measure.take_imaged()
+    assert [row[0] for row in rows] == [r.name, r.name]
+    assert measure.take_imaged() == []  # handed on once
+    measure.clear_cut_cache()  # "another process"
+    measure.give_imaged(rows, {r.name: r}, scale)
+    theirs = measure.measure_cuts([ALONE, DENSE], [0.0, 0.0], r, scale)
+    assert measure.cut_cache_info()["misses"] == 0
+    assert _same(theirs[0], mine[1]) and _same(theirs[1], mine[0])
+    # Rows of a layer this deck does not have, or of another scale, are not used.
+    measure.clear_cut_cache()
+    measure.give_imaged(rows, {"other": r}, scale)
+    measure.give_imaged(rows, {r.name: r}, scale * 4.0)
+    measure.measure_cuts([DENSE], [0.0], r, scale)
+    assert measure.cut_cache_info()["misses"] == 1
+    measure.clear_cut_cache()
