@@ -50,8 +50,10 @@ import xml.etree.ElementTree as ET
 from collections import defaultdict
 from pathlib import Path
 
+import numpy as np
+
 from pitchguard import __version__
-from pitchguard.classify import CHECKS, Finding
+from pitchguard.classify import CHECKS, Finding, FindingSet
 from pitchguard.deck import SEVERITIES, Deck
 from pitchguard.report import CAUTION, Rows, atomic_write, exit_code, finding_to_dict, write_json
 from pitchguard.scan import ScanResult
@@ -419,19 +421,33 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
     ``testcases()`` makes the suite's ``<testcase>`` elements one at a time, so
     a writer can stream a report of 10^5-10^6 findings.
     """
+    # Planned on columns (a FindingSet's, or a list's as one): a chip's findings
+    # are made one at a time as their test cases are written.
+    fs = FindingSet.of(result.findings)
+    present = [f for f, n in zip(fs.distinct, fs.counts().tolist(), strict=True) if n]
     layers = [(st.name, st.source, st.seconds) for st in result.layers]
     known = {name for name, _, _ in layers}
-    for f in result.findings:
+    for f in present:
         if f.layer not in known:
             layers.append((f.layer, f.source, 0.0))
             known.add(f.layer)
-    checks = list(CHECKS) + sorted({f.check for f in result.findings} - set(CHECKS))
+    checks = list(CHECKS) + sorted({f.check for f in present} - set(CHECKS))
     exposures = {r.name: r.exposure_name for r in deck.layers}
     layout_path = str(result.layout.path) if result.layout else ""
     rank = {s: k for k, s in enumerate(SEVERITIES)}
-    by_key: dict = {}
-    for f in result.findings:
-        by_key.setdefault((f.layer, f.check), []).append(f)
+    d_rank = np.array([rank[f.severity] for f in fs.distinct], dtype=np.int64)
+    pair_id: dict = {}
+    d_pair = np.array([pair_id.setdefault((f.layer, f.check), len(pair_id))
+                       for f in fs.distinct], dtype=np.int64)  # fmt: skip
+    item_pair, item_rank, box = d_pair[fs.which], d_rank[fs.which], fs.boxes()
+    # Per (layer, check): worst first, then by place (as sorted() on (rank, bbox)).
+    order = np.lexsort((box[:, 3], box[:, 2], box[:, 1], box[:, 0], item_rank, item_pair))
+    cut = np.flatnonzero(np.diff(item_pair[order])) + 1
+    by_key = {}
+    for idx in np.split(order, cut) if len(order) else []:
+        d = fs.distinct[int(fs.which[idx[0]])]
+        by_key[(d.layer, d.check)] = idx
+    limit = -1 if fail_on == "never" else SEVERITIES.index(fail_on)
 
     suites = []
     for name, source, seconds in layers:
@@ -444,12 +460,11 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
         tests = failures = 0
         suite_out: list[str] = []
         for check in checks:
-            found = sorted(by_key.get((name, check), []),
-                           key=lambda f: (rank[f.severity], f.bbox_nm))  # fmt: skip
-            failing = [f for f in found if _at_or_above(f, fail_on)]
-            below = [f for f in found if not _at_or_above(f, fail_on)]
+            found = by_key.get((name, check), np.zeros(0, dtype=np.int64))
+            at_or_above = item_rank[found] <= limit
+            failing, below = fs.select(found[at_or_above]), fs.select(found[~at_or_above])
             plan.append((check, failing, below))
-            if failing:
+            if len(failing):
                 tests += len(failing)
                 failures += len(failing)
                 suite_out.extend(finding_line(f) for f in below)
@@ -458,7 +473,7 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
 
         def testcases(plan=plan, name=name):
             for check, failing, below in plan:
-                if failing:
+                if len(failing):
                     for f in failing:
                         case = ET.Element("testcase", classname=_x(f"pitchguard.{name}.{check}"),
                                           name=_x(f"{check} at {_where(f)}"), time="0")  # fmt: skip
@@ -468,7 +483,7 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
                 else:
                     case = ET.Element("testcase", classname=_x(f"pitchguard.{name}"), name=check,
                                       time="0")  # fmt: skip
-                    if below:
+                    if len(below):
                         out = ET.SubElement(case, "system-out")
                         out.text = _x("\n".join(finding_line(f) for f in below))
                     yield case

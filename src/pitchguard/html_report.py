@@ -29,13 +29,14 @@ import base64
 import html
 import io
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from pitchguard import __version__
-from pitchguard.classify import CHECKS, Finding
+from pitchguard.classify import CHECKS, Finding, FindingSet
 from pitchguard.deck import SEVERITIES, Deck, LayerRule
 from pitchguard.report import (
     CAUTION,
@@ -95,15 +96,21 @@ def group_key(f: Finding) -> tuple:
 @dataclass
 class Group:
     key: tuple
-    findings: list[Finding] = field(default_factory=list)
+    findings: Sequence[Finding] = field(default_factory=list)
 
     @property
     def first(self) -> Finding:
         return self.findings[0]
 
 
-def group_findings(findings: list[Finding]) -> list[Group]:
-    """Groups in the order of their first (worst) finding."""
+def group_findings(findings: Sequence[Finding]) -> list[Group]:
+    """Groups in the order of their first (worst) finding.
+
+    A :class:`FindingSet` is grouped by its distinct findings (a copy's key is
+    its distinct finding's) and each group is a FindingSet of its items.
+    """
+    if isinstance(findings, FindingSet):
+        return _group_set(findings)
     groups: dict[tuple, Group] = {}
     for f in findings:
         k = group_key(f)
@@ -112,6 +119,25 @@ def group_findings(findings: list[Finding]) -> list[Group]:
             g = groups[k] = Group(k)
         g.findings.append(f)
     return list(groups.values())
+
+
+def _group_set(findings: FindingSet) -> list[Group]:
+    keys: dict[tuple, int] = {}
+    of_distinct = np.array([keys.setdefault(group_key(f), len(keys))
+                            for f in findings.distinct], dtype=np.int64)  # fmt: skip
+    n = len(findings)
+    if n == 0:
+        return []
+    gid = of_distinct[findings.which]
+    first = np.full(len(keys), n, dtype=np.int64)
+    np.minimum.at(first, gid, np.arange(n))
+    rank = np.empty(len(keys), dtype=np.int64)
+    rank[np.argsort(first, kind="stable")] = np.arange(len(keys))
+    order = np.lexsort((np.arange(n), rank[gid]))
+    bounds = np.flatnonzero(np.diff(rank[gid][order])) + 1
+    key_of = list(keys)
+    return [Group(key_of[int(gid[idx[0]])], findings.select(idx))
+            for idx in np.split(order, bounds)]  # fmt: skip
 
 
 # --------------------------------------------------------------------------- formatting

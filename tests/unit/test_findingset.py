@@ -82,3 +82,36 @@ def test_counts_and_exit_code_from_columns_equal_those_of_the_list(placed):
         for fail_on in (*SEVERITIES, "never"):
             assert exit_code(s, fail_on) == exit_code(lst, fail_on)
     assert sum(severity_counts(fs).values()) == len(fs)
+
+
+def test_html_groups_of_a_set_equal_those_of_the_list(placed):
+    """Reference: grouping the plain list one finding at a time."""
+    from pitchguard.html_report import group_findings
+
+    fs, expected = placed
+    fs = sort_findings(fs)
+    lst = list(fs)
+    got, want = group_findings(fs), group_findings(lst)
+    assert [g.key for g in got] == [g.key for g in want]
+    assert [list(g.findings) for g in got] == [g.findings for g in want]
+    assert len(got) > 1 and any(len(g.findings) > 1 for g in got)
+
+
+def test_reports_of_a_tiled_scan_equal_those_of_its_findings_as_a_list():
+    """A tiled scan returns a FindingSet; every CI report written from it must equal
+    the report of the same findings as a plain list (the in-memory writers)."""
+    import dataclasses as dc
+
+    from pitchguard.ci_formats import to_junit, to_sarif
+    from pitchguard.parallel import scan_tiled
+    from pitchguard.report import to_json
+
+    deck = load_deck(DEMO_DECK)
+    tiled = scan_tiled(SAMPLE_GDS, deck, tile_um=10, jobs=2)
+    assert isinstance(tiled.findings, FindingSet) and len(tiled.findings) > 5
+    plain = dc.replace(tiled, findings=list(tiled.findings))
+    for fail_on in ("fail", "risk", "never"):
+        assert to_junit(tiled, deck, fail_on) == to_junit(plain, deck, fail_on)
+        assert to_json(tiled, deck, fail_on) == to_json(plain, deck, fail_on)
+        assert to_sarif(tiled, deck, SAMPLE_GDS, fail_on) == to_sarif(plain, deck, SAMPLE_GDS,
+                                                                   fail_on)
