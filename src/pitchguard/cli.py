@@ -11,6 +11,7 @@ Exit codes (documented in the README):
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from pathlib import Path
 
@@ -593,10 +594,29 @@ def main(argv: list[str] | None = None) -> int:
     except ValueError:  # not the main thread (embedded use): leave signals alone
         previous = None
     try:
-        return _main(argv)
+        code = _main(argv)
+    except KeyboardInterrupt:  # before or after the command ran (while importing, say)
+        code = _stopped(130)
+    except _Terminated:
+        code = _stopped(143)
     finally:
         if previous is not None:
             signal.signal(signal.SIGTERM, previous)
+    if code in (130, 143) and argv is None:
+        # Run as the command: leave now.  Stopped worker processes can leave the
+        # process pool's result thread blocked on a half-written result, and the
+        # interpreter would wait for it at exit forever; temporary output files
+        # were removed while the stack unwound.
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(code)
+    return code
+
+
+def _stopped(code: int) -> int:
+    what = "interrupted" if code == 130 else "terminated"
+    print(f"pitchguard: {what}; no output was left half-written", file=sys.stderr)
+    return code
 
 
 def _main(argv: list[str] | None = None) -> int:
@@ -618,11 +638,9 @@ def _main(argv: list[str] | None = None) -> int:
         print(f"pitchguard: error: {exc}", file=sys.stderr)
         return exc.exit_code
     except KeyboardInterrupt:
-        print("pitchguard: interrupted; no output was left half-written", file=sys.stderr)
-        return 130
+        return _stopped(130)
     except _Terminated:
-        print("pitchguard: terminated; no output was left half-written", file=sys.stderr)
-        return 143
+        return _stopped(143)
     except Exception as exc:  # a bug, not the user's fault
         if getattr(args, "debug", False):
             raise

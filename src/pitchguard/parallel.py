@@ -829,8 +829,11 @@ class _Engine:
             if exc_type is not None:
                 # Interrupted or failed: stop the workers now rather than let them
                 # finish their tiles (they die quietly, see _quiet_worker).
-                for proc in list(getattr(self.pool, "_processes", {}).values()):
+                procs = list((getattr(self.pool, "_processes", None) or {}).values())
+                for proc in procs:
                     proc.terminate()
+                for proc in procs:  # reaped (they die at once: SIGTERM is left at default)
+                    proc.join(timeout=1.0)
                 self.pool.shutdown(wait=False, cancel_futures=True)
             else:
                 self.pool.shutdown(wait=True, cancel_futures=True)

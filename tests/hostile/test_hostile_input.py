@@ -240,8 +240,7 @@ def test_far_coordinates_markers_are_written_or_refused_cleanly(tmp_path, capsys
     _clean(code, err)
 
 
-def test_sigterm_exits_143_and_leaves_no_partial_output(tmp_path, deck):
-    """A scan terminated while it works: exit 143, a short message, no output file."""
+def _big_layout(tmp_path):
     lib = gdstk.Library()
     cell = lib.new_cell("ARR")
     for k in range(300):
@@ -254,7 +253,12 @@ def test_sigterm_exits_143_and_leaves_no_partial_output(tmp_path, deck):
         for j in range(40):
             top.add(gdstk.Reference(cell, (i * 40 + rng.randint(0, 999) * 1e-3,
                                            j * 5 + rng.randint(0, 999) * 1e-3)))  # fmt: skip
-    layout = _lib_write(tmp_path, lib, "big.oas")
+    return _lib_write(tmp_path, lib, "big.oas")
+
+
+def test_sigterm_exits_143_and_leaves_no_partial_output(tmp_path, deck):
+    """A scan terminated while it works: exit 143, a short message, no output file."""
+    layout = _big_layout(tmp_path)
     out = tmp_path / "out.json"
     exe = Path(sys.executable).parent / "pitchguard"
     proc = subprocess.Popen([exe, "scan", layout, "--rules", deck, "--json", out, "-q"],
@@ -301,3 +305,25 @@ def test_array_piled_into_one_tile_is_refused_quickly(tmp_path, capsys):
     assert code == 2, err
     assert "memory budget" in err and "1,000,000 shapes" in err
     assert time.monotonic() - t0 < 60
+
+
+@pytest.mark.parametrize(("sig", "delay_s", "code", "word"), [
+    (signal.SIGTERM, 0.3, 143, "terminated"),  # while starting up (imports, structure)
+    (signal.SIGINT, 0.3, 130, "interrupted"),
+    (signal.SIGINT, 2.0, 130, "interrupted"),  # while tiles are scanned
+])  # fmt: skip
+def test_stopped_scans_exit_cleanly_at_any_stage(tmp_path, deck, sig, delay_s, code, word):
+    """Stopped early or late: the documented exit code and message, no traceback,
+    no output file, and the command ends (it once hung at exit when a worker was
+    stopped half-way through sending its result)."""
+    layout = _big_layout(tmp_path)
+    out = tmp_path / "out.json"
+    exe = Path(sys.executable).parent / "pitchguard"
+    proc = subprocess.Popen([exe, "scan", layout, "--rules", deck, "--json", out, "-q"],
+                            stderr=subprocess.PIPE, text=True)  # fmt: skip
+    time.sleep(delay_s)
+    proc.send_signal(sig)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == code, err
+    assert word in err and "Traceback" not in err
+    assert not out.exists()
