@@ -261,21 +261,24 @@ def sort_findings(findings: Sequence[Finding]) -> Sequence[Finding]:
         return findings[:] if isinstance(findings, FindingSet) else list(findings)
     rank = {s: k for k, s in enumerate(SEVERITIES)}
     if isinstance(findings, FindingSet):
+        # (severity, k1, layer) ranked once per distinct finding (equal keys, equal
+        # rank), then each item by that rank and its box.
         d = findings.distinct
-        sev = np.array([rank[f.severity] for f in d], dtype=np.int64)[findings.which]
-        k1 = np.array([f.k1 for f in d], dtype=np.float64)[findings.which]
+        sev = np.array([rank[f.severity] for f in d], dtype=np.int64)
+        k1 = np.array([f.k1 for f in d], dtype=np.float64)
         _, layer = np.unique([f.layer for f in d], return_inverse=True)
-        layer = layer.reshape(-1)[findings.which]
+        key = np.stack([sev.astype(np.float64), k1, layer.reshape(-1).astype(np.float64)], 1)
+        _, dense = np.unique(key, axis=0, return_inverse=True)
         box = findings.boxes()
-    else:
-        n = len(findings)
-        sev = np.fromiter((rank[f.severity] for f in findings), dtype=np.int64, count=n)
-        k1 = np.fromiter((f.k1 for f in findings), dtype=np.float64, count=n)
-        _, layer = np.unique([f.layer for f in findings], return_inverse=True)
-        box = np.array([f.bbox_nm for f in findings], dtype=np.float64)
-    order = np.lexsort((box[:, 3], box[:, 2], box[:, 1], box[:, 0], layer, k1, sev))
-    if isinstance(findings, FindingSet):
+        order = np.lexsort((box[:, 3], box[:, 2], box[:, 1], box[:, 0],
+                            dense.reshape(-1)[findings.which]))  # fmt: skip
         return findings.select(order)
+    n = len(findings)
+    sev = np.fromiter((rank[f.severity] for f in findings), dtype=np.int64, count=n)
+    k1 = np.fromiter((f.k1 for f in findings), dtype=np.float64, count=n)
+    _, layer = np.unique([f.layer for f in findings], return_inverse=True)
+    box = np.array([f.bbox_nm for f in findings], dtype=np.float64)
+    order = np.lexsort((box[:, 3], box[:, 2], box[:, 1], box[:, 0], layer, k1, sev))
     return [findings[k] for k in order.tolist()]
 
 

@@ -631,29 +631,34 @@ class _Assembly:
         t, u = _neighbours(self.tiles)
         boxes = np.asarray(self.tiles, dtype=np.float64).reshape(-1, 4)
         rel = np.round(boxes[u, :2] - boxes[t, :2], 3)
-        pairs: dict = {}
-        for k in range(len(t)):
-            g, h = int(group_of[t[k]]), int(group_of[u[k]])
-            if self.reps[g] and self.reps[h]:
-                pairs.setdefault((g, h, rel[k, 0], rel[k, 1]), []).append(k)
+        gt, gu = group_of[t], group_of[u]
+        both = (n_reps[gt] > 0) & (n_reps[gu] > 0)
+        t, u, rel = t[both], u[both], rel[both]
+        kinds_of_pair, pair_kind = np.unique(
+            np.stack([gt[both], gu[both], rel[:, 0], rel[:, 1]], axis=1), axis=0,
+            return_inverse=True)  # fmt: skip
+        pair_kind = pair_kind.ravel()
+        by_kind = np.argsort(pair_kind, kind="stable")
+        cuts = np.flatnonzero(np.diff(pair_kind[by_kind])) + 1
         ea, eb = [], []
-        for (g, h, dx, dy), ks in pairs.items():
+        for (g, h, dx, dy), ks in zip(kinds_of_pair.tolist(), np.split(by_kind, cuts) if
+                                      len(by_kind) else [], strict=True):  # fmt: skip
+            g, h = int(g), int(h)
             # Parts of the distinct tiles that join, placed as the pair sits.
             shift = boxes[self.members[g][0], :2] + (dx, dy) - boxes[self.members[h][0], :2]
             rg, rh = _joining_parts(self.reps[g], self.reps[h], shift, deck, grid_nm)
             if not len(rg):
                 continue
-            ks = np.asarray(ks)
             mt, mu = slot_of[t[ks]], slot_of[u[ks]]
             ea.append((start[g] + rg[None, :] * size[g] + mt[:, None]).ravel())
             eb.append((start[h] + rh[None, :] * size[h] + mu[:, None]).ravel())
-        (alone, slot), groups = _joined_groups(
+        (alone, slot), (inside, sizes) = _joined_groups(
             len(b_which), np.concatenate(ea or [np.zeros(0, np.int64)]),
             np.concatenate(eb or [np.zeros(0, np.int64)]))  # fmt: skip
         # Regions cut by borders are merged.  Regions whose parts are the same
         # distinct findings placed alike are the same region moved: each such
         # kind is merged once (its parts made, line points and hulls moved).
-        kind, moved, first_of = _kinds(groups, b_which, b_off)
+        kind, moved, first_of = _kinds(inside, sizes, b_which, b_off)
         parts = {k: _moved_part(raw[b_which[k]], b_off[k]) for g in first_of for k in g.tolist()}
         merged = _merge_groups(parts, first_of, deck, grid_nm)
         for f in merged:  # line points served the line count
@@ -676,18 +681,19 @@ class _Assembly:
         return FindingSet(distinct, np.concatenate(which), np.concatenate(offset)), per_group
 
 
-def _kinds(groups: list[np.ndarray], which: np.ndarray, off: np.ndarray):
+def _kinds(inside: np.ndarray, sizes: np.ndarray, which: np.ndarray, off: np.ndarray):
     """Groups of parts that are the same region moved: the same distinct findings,
-    placed alike.  Returns ``(kind, moved, first_of)``: group ``i`` is the
-    group ``first_of[kind[i]]`` moved by ``moved[i]`` (nm)."""
-    n = len(groups)
+    placed alike.  Groups are ``inside`` cut into runs of ``sizes``.  Returns
+    ``(kind, moved, first_of)``: group ``i`` is the group ``first_of[kind[i]]``
+    (its members) moved by ``moved[i]`` (nm)."""
+    n = len(sizes)
     kind = np.empty(n, dtype=np.int64)
-    at = np.array([off[g[0]] for g in groups]).reshape(-1, 2)
-    size = np.array([len(g) for g in groups], dtype=np.int64)
+    start = np.r_[0, np.cumsum(sizes)[:-1]].astype(np.int64)
+    at = off[inside[start]] if n else np.zeros((0, 2))
     first_group: list[int] = []
-    for s in np.unique(size).tolist():
-        sel = np.flatnonzero(size == s)
-        members = np.stack([groups[i] for i in sel.tolist()])  # (m, s)
+    for s in np.unique(sizes).tolist():
+        sel = np.flatnonzero(sizes == s)
+        members = inside[start[sel][:, None] + np.arange(s)]  # (m, s)
         rel = np.round(off[members] - at[sel][:, None, :], 3) + 0.0
         sig = np.concatenate([which[members].astype(np.float64), rel.reshape(len(sel), -1)],
                              axis=1)  # fmt: skip
@@ -698,8 +704,8 @@ def _kinds(groups: list[np.ndarray], which: np.ndarray, off: np.ndarray):
         rank[by_first] = np.arange(len(first))
         kind[sel] = len(first_group) + rank[inverse.ravel()]
         first_group.extend(sel[first[by_first]].tolist())
-    moved = at - at[np.array(first_group, dtype=np.int64)[kind]]
-    return kind, moved, [groups[i] for i in first_group]
+    moved = at - at[np.array(first_group, dtype=np.int64)[kind]] if n else np.zeros((0, 2))
+    return kind, moved, [inside[start[i] : start[i] + sizes[i]] for i in first_group]
 
 
 def _final(f: Finding) -> Finding:
@@ -723,16 +729,18 @@ def _moved_part(f: Finding, off: np.ndarray) -> Finding:
 def _joined_groups(n: int, ea: np.ndarray, eb: np.ndarray):
     """Connected groups of ``n`` parts joined by pairs ``ea``-``eb``.
 
-    Returns ``((alone, slot), groups)``: over all groups in the order of their
-    first part, ``slot`` is -1 for a lone part and the index into ``groups``
-    (the groups of two or more, members in index order) otherwise; ``alone``
-    lists the lone parts in that order.
+    Returns ``((alone, slot), (inside, sizes))``: over all groups in the order
+    of their first part, ``slot`` is -1 for a lone part and otherwise the
+    index of its group among the groups of two or more, whose members (in
+    index order) are ``inside`` cut into runs of ``sizes``; ``alone`` lists
+    the lone parts in that order.
     """
     from scipy.sparse import coo_matrix
     from scipy.sparse.csgraph import connected_components
 
     if n == 0:
-        return (np.zeros(0, np.int64), np.zeros(0, np.int64)), []
+        z = np.zeros(0, np.int64)
+        return (z, z), (z, z)
     graph = coo_matrix((np.ones(len(ea)), (ea, eb)), shape=(n, n))
     n_lab, labels = connected_components(graph, directed=False)
     first = np.full(n_lab, n, dtype=np.int64)
@@ -748,8 +756,7 @@ def _joined_groups(n: int, ea: np.ndarray, eb: np.ndarray):
     rank[by_first] = np.arange(n_lab)
     inside = np.flatnonzero(count[labels] > 1)
     inside = inside[np.lexsort((inside, rank[labels[inside]]))]
-    groups = np.split(inside, np.cumsum(count[by_first][multi])[:-1]) if len(inside) else []
-    return (alone, slot), groups
+    return (alone, slot), (inside, count[by_first][multi])
 
 
 def _neighbours(tiles) -> tuple[np.ndarray, np.ndarray]:
@@ -759,6 +766,18 @@ def _neighbours(tiles) -> tuple[np.ndarray, np.ndarray]:
     if len(tiles) < 2:
         return np.zeros(0, np.int64), np.zeros(0, np.int64)
     b = np.asarray(tiles, dtype=np.float64)
+    # Tiles from tiles_for: a full grid, row by row.  Its neighbours by index.
+    nx = int(np.argmax(b[:, 1] != b[0, 1])) or len(b)
+    if len(b) % nx == 0:
+        ny = len(b) // nx
+        g = b.reshape(ny, nx, 4)
+        if (g[:, :, 0] == g[0:1, :, 0]).all() and (g[:, :, 1] == g[:, 0:1, 1]).all():
+            idx = np.arange(len(b)).reshape(ny, nx)
+            t = np.concatenate([idx[:, :-1].ravel(), idx[:-1, :].ravel(),
+                                idx[:-1, :-1].ravel(), idx[:-1, 1:].ravel()])
+            u = np.concatenate([idx[:, 1:].ravel(), idx[1:, :].ravel(),
+                                idx[1:, 1:].ravel(), idx[1:, :-1].ravel()])  # fmt: skip
+            return t, u
     eps = 1e-3
     qi, qj = _query_pairs(_rtree(b[:, :2] - eps, b[:, 2:] + eps), b[:, :2] - eps, b[:, 2:] + eps)
     keep = qi < qj
@@ -934,7 +953,7 @@ def _joining_parts(a: list[Finding], b: list[Finding], shift, deck: Deck,
     with lines the same way (within ``ORIENTATION_TOL_DEG``) and pitches within
     the layer's tolerance (or either infinite).
     """
-    from pitchguard.extract import _query_pairs, _rtree
+    from pitchguard.extract import _query_pairs_batched, _rtree
 
     names = [r.name for r in deck.layers]
     tol_of = np.array([max(r.pitch_tolerance_nm / deck.scale_to_wafer,
@@ -950,7 +969,7 @@ def _joining_parts(a: list[Finding], b: list[Finding], shift, deck: Deck,
     ca, anga, pa, la, oa = sites(a, np.zeros(2))
     cb, angb, pb, lb, ob = sites(b, np.asarray(shift, dtype=np.float64))
     lo_b, hi_b = cb.min(axis=1), cb.max(axis=1)
-    qi, qj = _query_pairs(_rtree(lo_b, hi_b), ca.min(axis=1), ca.max(axis=1))
+    qi, qj = _query_pairs_batched(_rtree(lo_b, hi_b), lo_b, hi_b, ca.min(axis=1), ca.max(axis=1))
     keep = la[qi] == lb[qj]
     keep &= same_region_class(anga[qi], angb[qj], pa[qi], pb[qj], tol_of[la[qi]])
     qi, qj = qi[keep], qj[keep]

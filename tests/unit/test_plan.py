@@ -115,3 +115,27 @@ def test_asked_tile_size_is_rounded_up_to_whole_site_cells(chip):
     _, st = chip
     t, _ = plan_tiles(st, _halo(DECK), 1, None, 25.0)
     assert t == math.ceil(25_000 / SITE_CELL_NM) * SITE_CELL_NM
+
+
+@pytest.mark.parametrize(("extent", "tile", "region"), [
+    ((0, 0, 95_000, 47_000), 10_000, None),
+    ((0, 0, 95_000, 47_000), 10_000, (3_300, 7_700, 41_900, 18_100)),
+    ((-5, -5, 5, 5), 10_000, None),
+    ((0, 0, 30_000, 5_000), 10_000, None),
+    ((0, 0, 5_000, 30_000), 10_000, None),
+])  # fmt: skip
+def test_neighbouring_tiles_are_those_an_rtree_finds_touching(extent, tile, region):
+    """Reference: an R-tree query of each tile's box, widened by 1e-3 nm (tiles that
+    share a side or a corner touch)."""
+    import numpy as np
+
+    from pitchguard.extract import _query_pairs, _rtree
+    from pitchguard.parallel import _neighbours
+
+    tiles = tiles_for(extent, tile, region)
+    got = list(zip(*(v.tolist() for v in _neighbours(tiles)), strict=True))
+    b = np.asarray(tiles, dtype=np.float64)
+    qi, qj = _query_pairs(_rtree(b[:, :2] - 1e-3, b[:, 2:] + 1e-3), b[:, :2] - 1e-3,
+                          b[:, 2:] + 1e-3)  # fmt: skip
+    want = set(zip(qi[qi < qj].tolist(), qj[qi < qj].tolist(), strict=True))
+    assert len(got) == len(set(got)) and set(got) == want
