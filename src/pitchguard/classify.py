@@ -532,9 +532,46 @@ def _grating_orders_ok(rule: LayerRule, pitch_q: int, angle_q: int, quantum: flo
     return not violations(rule, res, None, pitch)
 
 
+_passes_given: dict[tuple, bool] = {}  # (rule values, cd_q, pitch_q, angle_q, quantum) -> passes
+_passes_fresh: list[tuple] = []
+
+
+def _rule_values(rule: LayerRule) -> tuple:
+    """A layer rule by value (equal for equal exposures and limits, in any process)."""
+    return tuple(getattr(rule, k) for k in type(rule).__slots__)
+
+
+def take_grating_passes() -> list[tuple]:
+    """Ideal gratings judged here since the last call, to share with other
+    processes: rows ``(rule values, cd_q, pitch_q, angle_q, quantum, passes)``
+    (see :func:`give_grating_passes`)."""
+    rows = list(_passes_fresh)
+    _passes_fresh.clear()
+    return rows
+
+
+def give_grating_passes(rows) -> None:
+    """Take gratings another process judged (:func:`take_grating_passes`); a row
+    serves only a rule equal to the one it was judged under."""
+    if len(_passes_given) + len(rows) > 65536:
+        _passes_given.clear()
+    for *key, passes in rows:
+        _passes_given[tuple(key)] = passes
+
+
 @lru_cache(maxsize=4096)
 def _grating_passes(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
     """True when an ideal grating of this CD and pitch (wafer nm) breaks no limit."""
+    key = (_rule_values(rule), cd_q, pitch_q, angle_q, quantum)
+    given = _passes_given.get(key)
+    if given is not None:
+        return given
+    passes = _judge_grating(rule, cd_q, pitch_q, angle_q, quantum)
+    _passes_fresh.append((*key, passes))
+    return passes
+
+
+def _judge_grating(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
     from pitchguard.measure import grating_metrics
 
     if not _grating_orders_ok(rule, pitch_q, angle_q, quantum):

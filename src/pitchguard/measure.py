@@ -38,7 +38,6 @@ emptied when it would grow past this."""
 _imaged: dict[tuple, Metrics] = {}
 _imaged_stats = {"hits": 0, "misses": 0}
 _fresh: list[tuple] = []  # keys imaged here since the last take_imaged()
-_layer_of: dict[tuple, str] = {}  # rule key -> layer name, for export
 
 
 def cut_cache_info() -> dict[str, int]:
@@ -60,21 +59,20 @@ def _rule_key(rule: LayerRule, scale_to_wafer: float) -> tuple:
 
 def take_imaged() -> list[tuple]:
     """The cuts imaged in this process since the last call, to share with other
-    processes scanning with the same deck: rows ``(layer, angle, bounds, reach,
-    metrics)`` (see :func:`give_imaged`)."""
-    rows = [(_layer_of[k[0]], *k[1:], _imaged[k]) for k in _fresh if k in _imaged]
+    processes: rows ``(rule key, angle, bounds, reach, metrics)``, keyed by the
+    values of the rule they were imaged under (see :func:`give_imaged`)."""
+    rows = [(*k, _imaged[k]) for k in _fresh if k in _imaged]
     _fresh.clear()
     return rows
 
 
-def give_imaged(rows, rules: dict[str, LayerRule], scale_to_wafer: float) -> None:
-    """Take cuts another process imaged with this deck (:func:`take_imaged`)."""
-    keys = {name: _rule_key(rule, scale_to_wafer) for name, rule in rules.items()}
+def give_imaged(rows) -> None:
+    """Take cuts another process imaged (:func:`take_imaged`); a row serves only
+    layers whose exposure and limits equal those it was imaged under."""
     if len(_imaged) + len(rows) > CUT_CACHE_MAX:
         _imaged.clear()
-    for name, angle, bounds, reach, m in rows:
-        if name in keys:
-            _imaged.setdefault((keys[name], angle, bounds, reach), m)
+    for *key, m in rows:
+        _imaged.setdefault(tuple(key), m)
 
 
 def samples_for(period_nm: float, n_max: int, optics: Optics) -> int:
@@ -129,7 +127,6 @@ def measure_cuts(
     if not cuts:
         return []
     rule_key = _rule_key(rule, scale_to_wafer)
-    _layer_of[rule_key] = rule.name
     keys = [(rule_key, round(a, 1) % 180.0, c.bounds, c.reach)
             for c, a in zip(cuts, angles_deg, strict=True)]  # fmt: skip
     known = [_imaged.get(k) for k in keys]

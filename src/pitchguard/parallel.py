@@ -31,10 +31,12 @@ from pitchguard.classify import (
     canonical_normal,
     count_lines,
     finding_copier,
+    give_grating_passes,
     hint_text,
     rectangles_touch,
     same_region_class,
     sort_findings,
+    take_grating_passes,
 )
 from pitchguard.deck import Deck, parse_deck
 from pitchguard.errors import LayoutError
@@ -188,17 +190,23 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float,
     # Hints are left to the caller: it makes each distinct one once (a hint does not
     # depend on where the finding is); a region merged across tiles keeps its worst
     # part's.
-    give_imaged(imaged, {r.name: r for r in deck.layers}, deck.scale_to_wafer)
+    give_imaged(imaged)
     findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile), tile=True)
     return findings, stats, take_imaged()
 
 
-def hints_task(deck_text: str, keys: list[tuple]) -> dict:
-    """Hint texts for ``(layer name, hint key)`` pairs (see classify.hint_text)."""
+def hints_task(deck_text: str, keys: list[tuple], judged=()) -> tuple[dict, list]:
+    """Hint texts for ``(layer name, hint key)`` pairs (see classify.hint_text).
+
+    ``judged``: ideal gratings other workers judged (classify.take_grating_passes);
+    returns the texts and the gratings judged here.
+    """
     deck = _deck(deck_text)
     rules = {r.name: r for r in deck.layers}
+    give_grating_passes(judged)
     # Looked up by repr: a key may hold nan, which equals nothing once pickled.
-    return {(name, repr(key)): hint_text(rules[name], key) for name, key in keys}
+    texts = {(name, repr(key)): hint_text(rules[name], key) for name, key in keys}
+    return texts, take_grating_passes()
 
 
 def _with_hints(findings: FindingSet, texts: dict) -> FindingSet:
@@ -502,6 +510,8 @@ class _TileRun:
         self.imaged: dict = {}
         self.layers: list = []
         self.scanned = self.keyed = 0
+        self.held: list = []
+        self.judged: dict = {}  # ideal gratings judged for hints, passed on to later hints
 
     def next_chunk(self, layers=None):
         self.layers = layers or self.layers
@@ -520,14 +530,19 @@ class _TileRun:
     def arrived(self, tag, result) -> list:
         more = []
         if tag == "hints":
-            self.texts.update(result)
+            texts, judged = result
+            self.texts.update(texts)
+            for row in judged:
+                self.judged.setdefault(row[:5], row)
         elif isinstance(tag, tuple):  # content keys of a chunk, from tile ``start`` on
             start = tag[1]
             for k, key in enumerate(result, start):
                 g = self.group_of.get(key)
                 if g is None:
                     self.group_of[key] = g = self.assembly.group([k])
-                    more.append(self.tile(g))
+                    # Until the first tile is in, one tile runs (with the keys): the
+                    # others then start with the cuts it imaged and its hints asked.
+                    (more if g == 0 or self.scanned else self.held).append(self.tile(g))
                 else:
                     self.assembly.members[g].append(k)
             self.keyed += len(result)
@@ -541,6 +556,8 @@ class _TileRun:
                 self.imaged.setdefault(row[:4], row)
             self.assembly.add(tag, (fs, layer_stats))
             self.scanned += 1
+            more.extend(self.held)
+            self.held.clear()
             if self.engine.progress:
                 n = len(self.assembly.members)
                 so_far = " so far" if self.keyed < len(self.tiles) else ""
@@ -550,7 +567,8 @@ class _TileRun:
             self.asked.update(new)
             if new:
                 keys = [k for _, k in sorted(new.items())]
-                more.insert(0, (hints_task, (self.deck.text, keys), "hints"))
+                more.insert(0, (hints_task, lambda keys=keys: (self.deck.text, keys, list(
+                    self.judged.values())), "hints"))  # fmt: skip
         return more
 
 
@@ -815,6 +833,9 @@ def _quiet_worker() -> None:
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     threadpool_limits(1)
+    # What the parent imaged or judged before the fork is not this scan's to share.
+    take_imaged()
+    take_grating_passes()
 
 
 class _Engine:

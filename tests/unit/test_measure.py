@@ -82,17 +82,64 @@ def test_cuts_imaged_in_one_process_serve_another(rule):
     measure.clear_cut_cache()
     mine = measure.measure_cuts([DENSE, ALONE], [0.0, 0.0], r, scale)
     rows = measure.take_imaged()
-    assert [row[0] for row in rows] == [r.name, r.name]
+    assert len(rows) == 2
     assert measure.take_imaged() == []  # handed on once
     measure.clear_cut_cache()  # "another process"
-    measure.give_imaged(rows, {r.name: r}, scale)
+    measure.give_imaged(rows)
     theirs = measure.measure_cuts([ALONE, DENSE], [0.0, 0.0], r, scale)
     assert measure.cut_cache_info()["misses"] == 0
     assert _same(theirs[0], mine[1]) and _same(theirs[1], mine[0])
-    # Rows of a layer this deck does not have, or of another scale, are not used.
     measure.clear_cut_cache()
-    measure.give_imaged(rows, {"other": r}, scale)
-    measure.give_imaged(rows, {r.name: r}, scale * 4.0)
+
+
+def test_cuts_handed_on_serve_only_an_equal_rule(rule):
+    """A layer of the same name in another deck (other limits), or another mask
+    scale, images its own cuts: rows are keyed by the rule's values, not its name."""
+    r, scale = rule
+    measure.clear_cut_cache()
     measure.measure_cuts([DENSE], [0.0], r, scale)
-    assert measure.cut_cache_info()["misses"] == 1
+    rows = measure.take_imaged()
+    line = f'name = "{r.name}"'
+    other = parse_deck(DEMO_DECK.read_text().replace(line, line + "\ncd_tolerance_pct = 3.0", 1))
+    r2 = next(x for x in other.layers if x.name == r.name)
+    assert r2.cd_tolerance_pct != r.cd_tolerance_pct
     measure.clear_cut_cache()
+    measure.give_imaged(rows)
+    measure.measure_cuts([DENSE], [0.0], r2, scale)
+    measure.measure_cuts([DENSE], [0.0], r, scale * 4.0)
+    assert measure.cut_cache_info()["misses"] == 2
+    measure.measure_cuts([DENSE], [0.0], r, scale)  # the equal rule: served
+    assert measure.cut_cache_info()["misses"] == 2
+    measure.clear_cut_cache()
+
+
+def test_gratings_judged_for_hints_serve_another_process(rule, monkeypatch):
+    """The pitch search behind a fix hint, handed on (take/give_grating_passes): an
+    equal rule finds the same pitch without judging a grating again; a rule of the
+    same name with other limits judges its own."""
+    from pitchguard import classify
+
+    r, _ = rule
+    classify._grating_passes.cache_clear()
+    classify.take_grating_passes()
+    p = r.exposure.lambda_over_na_nm  # near the limit: candidate pitches get imaged
+    want = classify.passing_pitch(r, p / 2, p, 0.0)
+    rows = classify.take_grating_passes()
+    assert rows
+    classify._grating_passes.cache_clear()  # "another process"
+    classify._passes_given.clear()
+    classify.give_grating_passes(rows)
+
+    def judged(*a):
+        raise AssertionError("judged again")
+
+    monkeypatch.setattr(classify, "_judge_grating", judged)
+    got = classify.passing_pitch(r, p / 2, p, 0.0)
+    assert got == want or (math.isnan(got) and math.isnan(want))
+    line = f'name = "{r.name}"'
+    other = parse_deck(DEMO_DECK.read_text().replace(line, line + "\ncd_tolerance_pct = 3.0", 1))
+    r2 = next(x for x in other.layers if x.name == r.name)
+    with pytest.raises(AssertionError, match="judged again"):
+        classify.passing_pitch(r2, p / 2, p, 0.0)
+    classify._grating_passes.cache_clear()
+    classify._passes_given.clear()
