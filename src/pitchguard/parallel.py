@@ -45,6 +45,12 @@ from pitchguard.layout import Layout, PolygonSet, snap_to_grid
 from pitchguard.measure import give_imaged, take_imaged
 from pitchguard.scan import LayerStats, ScanResult, scan_polygons
 
+SPARSE_TILES_MIN = 100_000
+SPARSE_TILES_PER_SHAPE = 10
+"""A tiling of more than SPARSE_TILES_MIN tiles and SPARSE_TILES_PER_SHAPE tiles per
+shape is refused: a mutated file with one coordinate 1.6 m out and 245 shapes made
+1.46 million 10 um tiles, and ran for more than 15 minutes."""
+
 KEY_CHUNKS = 16
 KEY_CHUNK_MIN = 64
 """Content keys are worked out in about KEY_CHUNKS chunks of at least KEY_CHUNK_MIN tiles."""
@@ -404,7 +410,9 @@ MAX_TILES = 2_000_000
 file) or a tile size far too small for the chip: refused before any work."""
 
 
-def _check_tile_count(path, extent, region, tile_nm: float) -> None:
+def _check_tile_count(path, extent, region, tile_nm: float, shapes: int = 0) -> None:
+    """Refuse tilings too large to be meant: more tiles than MAX_TILES, or a layout
+    whose tiles would be mostly empty (a corrupt coordinate far out, say)."""
     if not extent:
         return
     x0, y0, x1, y1 = _clip(extent, region)
@@ -417,6 +425,12 @@ def _check_tile_count(path, extent, region, tile_nm: float) -> None:
             f"{path}: the layout spans {(x1 - x0) / 1e6:,.1f} x {(y1 - y0) / 1e6:,.1f} mm, "
             f"{n:,} tiles of {tile_nm / 1000:g} um (limit {MAX_TILES:,}): coordinates out of "
             "range, or use a larger --tile-um or a --region"
+        )  # fmt: skip
+    if n > SPARSE_TILES_MIN and n > SPARSE_TILES_PER_SHAPE * max(shapes, 1):
+        raise LayoutError(
+            f"{path}: the layout spans {(x1 - x0) / 1e6:,.1f} x {(y1 - y0) / 1e6:,.1f} mm with "
+            f"only {shapes:,} shapes: {n:,} tiles of {tile_nm / 1000:g} um would be almost "
+            "all empty (a coordinate may be corrupt); use a larger --tile-um or a --region"
         )  # fmt: skip
 
 
@@ -461,7 +475,7 @@ def scan_tiled(
     tile_nm, jobs = plan_tiles(st, halo, jobs or os.cpu_count() or 1, max_memory_mb, tile_um,
                                distributed=bool(scheduler))  # fmt: skip
     region = tuple(v * 1000.0 for v in region_um) if region_um else None
-    _check_tile_count(p, st.extent_nm, region, tile_nm)
+    _check_tile_count(p, st.extent_nm, region, tile_nm, st.shapes)
     tiles = tiles_for(st.extent_nm, tile_nm, region) if st.extent_nm else []
     with _Engine(str(p), jobs, scheduler, progress) as engine:
         assembly = _Assembly(tiles)

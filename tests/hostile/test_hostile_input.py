@@ -327,3 +327,22 @@ def test_stopped_scans_exit_cleanly_at_any_stage(tmp_path, deck, sig, delay_s, c
     assert proc.returncode == code, err
     assert word in err and "Traceback" not in err
     assert not out.exists()
+
+
+def test_one_far_coordinate_with_a_small_tile_is_refused(tmp_path, capsys, deck):
+    """A mutated corpus file (seed 21) moved one vertex 1.6 m out: with --tile-um 10
+    it made 1.46 million tiles for 245 shapes and ran for more than 15 minutes.
+    A tiling of almost all empty tiles is refused (exit 2); the automatic tile
+    size still scans it."""
+    lib = gdstk.Library()
+    top = lib.new_cell("TOP")
+    for k in range(40):
+        top.add(gdstk.rectangle((k * 0.2, 0), (k * 0.2 + 0.1, 2), layer=7))
+    top.add(gdstk.Polygon([(0, 3), (1_600_000, 3), (0, 3.1)], layer=7))  # a stray vertex
+    path = _lib_write(tmp_path, lib, "far.gds")
+    code, err = _run(capsys, path, deck, "--tile-um", "10")
+    _clean(code, err)
+    assert code == 2 and "almost all empty" in err and "--tile-um" in err
+    code, err = _run(capsys, path, deck)
+    _clean(code, err)
+    assert code in (0, 1)
