@@ -45,11 +45,12 @@ from pitchguard.layout import Layout, PolygonSet, snap_to_grid
 from pitchguard.measure import give_imaged, take_imaged
 from pitchguard.scan import LayerStats, ScanResult, scan_polygons
 
-SPARSE_TILES_MIN = 100_000
+SPARSE_TILES_MIN = 10_000
 SPARSE_TILES_PER_SHAPE = 10
 """A tiling of more than SPARSE_TILES_MIN tiles and SPARSE_TILES_PER_SHAPE tiles per
-shape is refused: a mutated file with one coordinate 1.6 m out and 245 shapes made
-1.46 million 10 um tiles, and ran for more than 15 minutes."""
+shape is refused: mutated files with one vertex far out made 1.46 million 10 um
+tiles for 245 shapes (ran for more than 15 minutes) and 70,509 for 277 (more than
+2 minutes: a polygon read whole into every tile it crosses makes each distinct)."""
 
 KEY_CHUNKS = 16
 KEY_CHUNK_MIN = 64
@@ -428,7 +429,7 @@ def _check_tile_count(path, extent, region, tile_nm: float, shapes: int = 0) -> 
         )  # fmt: skip
     if n > SPARSE_TILES_MIN and n > SPARSE_TILES_PER_SHAPE * max(shapes, 1):
         raise LayoutError(
-            f"{path}: the layout spans {(x1 - x0) / 1e6:,.1f} x {(y1 - y0) / 1e6:,.1f} mm with "
+            f"{path}: the layout spans {(x1 - x0) / 1e6:,.4g} x {(y1 - y0) / 1e6:,.4g} mm with "
             f"only {shapes:,} shapes: {n:,} tiles of {tile_nm / 1000:g} um would be almost "
             "all empty (a coordinate may be corrupt); use a larger --tile-um or a --region"
         )  # fmt: skip
