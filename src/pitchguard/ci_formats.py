@@ -47,7 +47,7 @@ import math
 import re
 import urllib.parse
 import xml.etree.ElementTree as ET
-from collections import defaultdict
+from collections.abc import Sequence
 from pathlib import Path
 
 import numpy as np
@@ -272,21 +272,32 @@ def fingerprint_base(f: Finding) -> str:
     return hashlib.sha256(key.encode("utf-8")).hexdigest()[:32]
 
 
-def fingerprints(findings: list[Finding]) -> list[str]:
+def fingerprints(findings: Sequence[Finding]) -> list[str]:
     """Stable fingerprint per finding: base hash plus ``:n``, the occurrence among equals.
 
     Equal base hashes are numbered in order of position (lower-left corner,
-    x then y), an order a translation of the whole layout keeps.
+    x then y, then severity), an order a translation of the whole layout
+    keeps.  Worked out on columns: a base depends only on what a finding is,
+    so a FindingSet's distinct findings are hashed once.
     """
-    bases = [fingerprint_base(f) for f in findings]
-    groups: dict[str, list[int]] = defaultdict(list)
-    for i, b in enumerate(bases):
-        groups[b].append(i)
-    out = [""] * len(findings)
-    for b, idx in groups.items():
-        idx.sort(key=lambda i: (findings[i].bbox_nm, findings[i].severity_rank))
-        for n, i in enumerate(idx, 1):
-            out[i] = f"{b}:{n}"
+    fs = FindingSet.of(findings)
+    n = len(fs)
+    if n == 0:
+        return []
+    names: dict[str, int] = {}
+    d_base = np.array([names.setdefault(fingerprint_base(f), len(names)) for f in fs.distinct],
+                      dtype=np.int64)  # fmt: skip
+    d_rank = np.array([f.severity_rank for f in fs.distinct], dtype=np.int64)
+    base, rank, box = d_base[fs.which], d_rank[fs.which], fs.boxes()
+    # By base, then box (x0, y0, x1, y1) and severity; ties keep the findings' order.
+    order = np.lexsort((rank, box[:, 3], box[:, 2], box[:, 1], box[:, 0], base))
+    sorted_base = base[order]
+    first = np.r_[True, sorted_base[1:] != sorted_base[:-1]]
+    occurrence = np.arange(n) - np.maximum.accumulate(np.where(first, np.arange(n), 0)) + 1
+    text = list(names)
+    out = [""] * n
+    for i, b, k in zip(order.tolist(), sorted_base.tolist(), occurrence.tolist(), strict=True):
+        out[i] = f"{text[b]}:{k}"
     return out
 
 
@@ -301,7 +312,9 @@ def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
     they are written (for :func:`write_sarif`).
     """
     # A check missing from CHECKS (not expected) still gets a rule, after the known ones.
-    checks = list(CHECKS) + sorted({f.check for f in result.findings} - set(CHECKS))
+    fs = FindingSet.of(result.findings)
+    present = {f.check for f, n in zip(fs.distinct, fs.counts().tolist(), strict=True) if n}
+    checks = list(CHECKS) + sorted(present - set(CHECKS))
     rules = [_rule(c) for c in checks]
     uri = _artifact_uri(layout_path)
     cells = list(result.layout.cells) if result.layout else []

@@ -115,3 +115,24 @@ def test_reports_of_a_tiled_scan_equal_those_of_its_findings_as_a_list():
         assert to_json(tiled, deck, fail_on) == to_json(plain, deck, fail_on)
         assert to_sarif(tiled, deck, SAMPLE_GDS, fail_on) == to_sarif(plain, deck, SAMPLE_GDS,
                                                                    fail_on)
+
+
+def test_sarif_fingerprints_number_equal_findings_by_place(placed):
+    """Reference: the documented rule, written plainly: equal base hashes numbered
+    1, 2, ... in order of (lower-left corner x, y, upper-right x, y, severity),
+    ties in the findings' order."""
+    from collections import defaultdict
+
+    from pitchguard.ci_formats import fingerprint_base, fingerprints
+
+    fs, expected = placed
+    groups = defaultdict(list)
+    for i, f in enumerate(expected):
+        groups[fingerprint_base(f)].append(i)
+    want = [""] * len(expected)
+    for b, idx in groups.items():
+        idx.sort(key=lambda i: (expected[i].bbox_nm, expected[i].severity_rank))
+        for n, i in enumerate(idx, 1):
+            want[i] = f"{b}:{n}"
+    assert fingerprints(fs) == want == fingerprints(expected)
+    assert max(int(w.rsplit(":", 1)[1]) for w in want) > 1  # equal findings do occur
