@@ -484,12 +484,13 @@ def scan_tiled(
         texts: dict = {}
         run = _TileRun(engine, assembly, str(p), deck, cell, tiles, halo, limit, texts)
         if reuse and len(tiles) > 1:
-            # Content keys in chunks of tiles, two chunks at a time; each distinct
-            # tile is scanned as soon as the chunks up to it are in, while the
-            # keys of the rest are still being worked out.
+            # Content keys, a chunk at a time in tile order on one worker at a time
+            # (its memo of placements serves the next chunk); each distinct tile
+            # is scanned as soon as the chunks before it are in, while the keys
+            # of the rest are still being worked out.
             size = max(KEY_CHUNK_MIN, math.ceil(len(tiles) / KEY_CHUNKS))
             run.chunks = [(k, tiles[k : k + size]) for k in range(0, len(tiles), size)]
-            first = [run.next_chunk(layers)] + ([run.next_chunk()] if run.chunks else [])
+            first = [run.next_chunk(layers)]
         else:
             first = [run.tile(assembly.group([k])) for k in range(len(tiles))]
         engine.stream(first, run.arrived, in_flight=2 * engine.workers)
@@ -506,9 +507,9 @@ def scan_tiled(
 class _TileRun:
     """The tasks of a tiled scan and what comes back from them (see scan_tiled).
 
-    Content keys come in chunks, two at a time, read in tile order; when a
-    chunk is read, every key first seen in it has its first tile known, and
-    that tile is scanned for its group.  Results are filed in the assembly; each new hint
+    Content keys come a chunk at a time, in tile order; when a chunk is in,
+    every key first seen in it has its first tile known, and that tile is
+    scanned for its group.  Results are filed in the assembly; each new hint
     a tile finds is sent to a worker at once (hints of one result together:
     they share grating images); the cuts any worker imaged travel with the
     tile tasks that start later.
@@ -525,29 +526,12 @@ class _TileRun:
         self.layers: list = []
         self.scanned = self.keyed = 0
         self.held: list = []
-        self.waiting_keys: dict = {}  # chunk start -> keys, until the chunks before are in
         self.judged: dict = {}  # ideal gratings judged for hints, passed on to later hints
-        self.to_hint: list = []
-        self.hinting = False
 
     def next_chunk(self, layers=None):
         self.layers = layers or self.layers
         start, chunk = self.chunks.pop(0)
         return (keys_task, (self.path, self.cell, self.layers, chunk, self.halo), ("keys", start))
-
-    def _file_keys(self, start: int, keys: list, more: list) -> None:
-        for k, key in enumerate(keys, start):
-            g = self.group_of.get(key)
-            if g is None:
-                self.group_of[key] = g = self.assembly.group([k])
-                # Until the first tile is in, one tile runs (with the keys): the
-                # others then start with the cuts it imaged and its hints asked.
-                (more if g == 0 or self.scanned else self.held).append(self.tile(g))
-            else:
-                self.assembly.members[g].append(k)
-        self.keyed += len(keys)
-        if self.engine.progress:
-            self.engine.progress("tile contents", self.keyed, len(self.tiles))
 
     def tile(self, g: int):
         k = self.assembly.members[g][0]
@@ -565,14 +549,20 @@ class _TileRun:
             self.texts.update(texts)
             for row in judged:
                 self.judged.setdefault(row[:5], row)
-            self.hinting = False
-            self._ask_hints(more)
         elif isinstance(tag, tuple):  # content keys of a chunk, from tile ``start`` on
-            # Two chunks run at a time; they are read in tile order, so a group's
-            # first tile is the first in tile order whatever order they came in.
-            self.waiting_keys[tag[1]] = result
-            while self.keyed in self.waiting_keys:
-                self._file_keys(self.keyed, self.waiting_keys.pop(self.keyed), more)
+            start = tag[1]
+            for k, key in enumerate(result, start):
+                g = self.group_of.get(key)
+                if g is None:
+                    self.group_of[key] = g = self.assembly.group([k])
+                    # Until the first tile is in, one tile runs (with the keys): the
+                    # others then start with the cuts it imaged and its hints asked.
+                    (more if g == 0 or self.scanned else self.held).append(self.tile(g))
+                else:
+                    self.assembly.members[g].append(k)
+            self.keyed += len(result)
+            if self.engine.progress:
+                self.engine.progress("tile contents", self.keyed, len(self.tiles))
             if self.chunks:
                 more.insert(0, self.next_chunk())
         else:
@@ -590,19 +580,11 @@ class _TileRun:
             new = {(f.layer, repr(f.hint_key)): (f.layer, f.hint_key) for f in fs
                    if f.hint_key is not None and (f.layer, repr(f.hint_key)) not in self.asked}
             self.asked.update(new)
-            self.to_hint.extend(k for _, k in sorted(new.items()))
-            self._ask_hints(more)
+            if new:
+                keys = [k for _, k in sorted(new.items())]
+                more.insert(0, (hints_task, lambda keys=keys: (self.deck.text, keys, list(
+                    self.judged.values())), "hints"))  # fmt: skip
         return more
-
-    def _ask_hints(self, more: list) -> None:
-        """One hint task at a time, with every hint found meanwhile: the next one
-        then starts with the gratings the last one judged."""
-        if self.hinting or not self.to_hint:
-            return
-        keys, self.to_hint = self.to_hint, []
-        self.hinting = True
-        more.insert(0, (hints_task, lambda: (self.deck.text, keys, list(self.judged.values())),
-                        "hints"))  # fmt: skip
 
 
 class _Assembly:
