@@ -128,12 +128,12 @@ class Finding:
     # border, rows (4 corners x, y; orientation; pitch), drawn nm.  Regions of
     # neighbouring tiles are merged exactly where such sites touch.
     border_sites: np.ndarray | None = field(default=None, compare=False, repr=False)
-    # Tiled scans only, until hints are made: what the hint is made from (see
-    # hint_key); the scan makes each distinct hint once, spread over its workers.
-    hint_key: tuple | None = field(default=None, compare=False, repr=False)
     # ... and the convex hull (k, 2) of all its sites' corners: the region's extent
     # in any frame, for the outline of a merged region.
     extent_nm: np.ndarray | None = field(default=None, compare=False, repr=False)
+    # Tiled scans only, until hints are made: what the hint is made from (see
+    # hint_key); the scan makes each distinct hint once, spread over its workers.
+    hint_key: tuple | None = field(default=None, compare=False, repr=False)
 
     @property
     def bbox_um(self) -> tuple[float, float, float, float]:

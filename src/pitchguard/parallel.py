@@ -481,23 +481,21 @@ def scan_tiled(
     with _Engine(str(p), jobs, scheduler, progress) as engine:
         assembly = _Assembly(tiles)
         limit = tile_shape_limit(max_memory_mb, jobs, bool(scheduler))
-        texts: dict = {}
-        run = _TileRun(engine, assembly, str(p), deck, cell, tiles, halo, limit, texts)
+        run = _TileRun(engine, assembly, str(p), deck, cell, layers, tiles, halo, limit)
         if reuse and len(tiles) > 1:
-            # Content keys, a chunk at a time in tile order on one worker at a time
-            # (its memo of placements serves the next chunk); each distinct tile
-            # is scanned as soon as the chunks before it are in, while the keys
-            # of the rest are still being worked out.
+            # Content keys, a chunk at a time in tile order; each distinct tile is
+            # scanned as soon as the chunks up to it are in, while the keys of the
+            # rest are still being worked out.
             size = max(KEY_CHUNK_MIN, math.ceil(len(tiles) / KEY_CHUNKS))
             run.chunks = [(k, tiles[k : k + size]) for k in range(0, len(tiles), size)]
-            first = [run.next_chunk(layers)]
+            first = [run.next_chunk()]
         else:
             first = [run.tile(assembly.group([k])) for k in range(len(tiles))]
         engine.stream(first, run.arrived, in_flight=2 * engine.workers)
         findings, per_group_stats = assembly.finish(deck, st.grid_nm)
         tiling = {"tile_um": tile_nm / 1000.0, "tiles": len(tiles),
                   "distinct": len(assembly.members), "workers": engine.workers}  # fmt: skip
-    findings = _with_hints(findings, texts)
+    findings = _with_hints(findings, run.texts)
     stats = _sum_stats(deck, per_group_stats)
     findings = sort_findings(findings)
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})
@@ -515,21 +513,20 @@ class _TileRun:
     tile tasks that start later.
     """
 
-    def __init__(self, engine, assembly, path, deck, cell, tiles, halo, limit, texts):
+    def __init__(self, engine, assembly, path, deck, cell, layers, tiles, halo, limit):
         self.engine, self.assembly = engine, assembly
-        self.path, self.deck, self.cell, self.tiles = path, deck, cell, tiles
-        self.halo, self.limit, self.texts = halo, limit, texts
-        self.chunks: list = []
+        self.path, self.deck, self.cell, self.layers = path, deck, cell, layers
+        self.tiles, self.halo, self.limit = tiles, halo, limit
+        self.texts: dict = {}  # hint texts by (layer, repr(hint key))
+        self.chunks: list = []  # (first tile, tiles) of the content keys still to ask
         self.group_of: dict = {}  # content key -> group
         self.asked: set = set()
         self.imaged: dict = {}
-        self.layers: list = []
         self.scanned = self.keyed = 0
         self.held: list = []
         self.judged: dict = {}  # ideal gratings judged for hints, passed on to later hints
 
-    def next_chunk(self, layers=None):
-        self.layers = layers or self.layers
+    def next_chunk(self):
         start, chunk = self.chunks.pop(0)
         return (keys_task, (self.path, self.cell, self.layers, chunk, self.halo), ("keys", start))
 
@@ -607,7 +604,6 @@ class _Assembly:
     def __init__(self, tiles):
         self.tiles = tiles
         self.members: list[list[int]] = []  # per group: its tiles, the first scanned
-        self.offsets: list = []  # each group's tiles, from its first tile, (m, 2) nm
         self.inner: list = []  # final findings, away from the tile's border
         self.reps: list = []  # findings with sites near the border
         self.stats: list = []
@@ -615,7 +611,7 @@ class _Assembly:
     def group(self, members: list[int]) -> int:
         """A new group of tiles (more members may be appended until finish)."""
         self.members.append(members)
-        for part in (self.offsets, self.inner, self.reps):
+        for part in (self.inner, self.reps):
             part.append(())
         self.stats.append(None)
         return len(self.members) - 1
@@ -632,17 +628,16 @@ class _Assembly:
         if any(s is None for s in self.stats):
             raise RuntimeError("a distinct tile's result is missing")
         tiles = self.tiles
-        for g, members in enumerate(self.members):
-            tx0, ty0 = tiles[members[0]][:2]
-            self.offsets[g] = np.array([tiles[k][:2] for k in members],
-                                       dtype=np.float64) - (tx0, ty0)  # fmt: skip
+        # Each group's tiles, from its first tile, (m, 2) nm.
+        offsets = [np.array([tiles[k][:2] for k in m], dtype=np.float64) - tiles[m[0]][:2]
+                   for m in self.members]  # fmt: skip
         size = np.array([len(m) for m in self.members])
         distinct: list[Finding] = []
         which: list[np.ndarray] = []
         offset: list[np.ndarray] = []
         for g, fs in enumerate(self.inner):  # by group, finding, then tile
             which.append(np.repeat(np.arange(len(distinct), len(distinct) + len(fs)), size[g]))
-            offset.append(np.tile(self.offsets[g], (len(fs), 1)))
+            offset.append(np.tile(offsets[g], (len(fs), 1)))
             distinct.extend(fs)
         # Border copies, numbered group by group, finding-major: the copy of
         # group g's border finding r on its tile m is start[g] + r size[g] + m.
@@ -652,7 +647,7 @@ class _Assembly:
         start = np.r_[0, np.cumsum(n_reps * size)[:-1]]
         b_which = np.concatenate([np.repeat(np.arange(rep0[g], rep0[g] + n_reps[g]), size[g])
                                   for g in range(len(size))] or [np.zeros(0, np.int64)])
-        b_off = np.concatenate([np.tile(self.offsets[g], (n_reps[g], 1))
+        b_off = np.concatenate([np.tile(offsets[g], (n_reps[g], 1))
                                 for g in range(len(size))] or [np.zeros((0, 2))])  # fmt: skip
         group_of = np.empty(len(self.tiles), dtype=np.int64)
         slot_of = np.empty(len(self.tiles), dtype=np.int64)

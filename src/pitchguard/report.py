@@ -47,7 +47,8 @@ def exit_code(findings: Sequence[Finding], fail_on: str) -> int:
     if fail_on == "never":
         return EXIT_OK
     limit = SEVERITIES.index(fail_on)
-    return EXIT_FINDINGS if any(_tally(findings)[s] for s in SEVERITIES[: limit + 1]) else EXIT_OK
+    c = _tally(findings)
+    return EXIT_FINDINGS if any(c[s] for s in SEVERITIES[: limit + 1]) else EXIT_OK
 
 
 def severity_counts(findings: Sequence[Finding], layer: str | None = None) -> dict[str, int]:
