@@ -16,7 +16,7 @@ import sys
 from pathlib import Path
 
 from pitchguard import __version__
-from pitchguard.errors import EXIT_OK, EXIT_USAGE, PitchguardError
+from pitchguard.errors import EXIT_OK, EXIT_USAGE, PitchguardError, check_stop, request_stop
 
 EXIT_INTERNAL = 3
 
@@ -583,25 +583,37 @@ class _Terminated(BaseException):
 
 
 def _on_sigterm(signum, frame):  # noqa: ARG001 - signal handler signature
+    request_stop(_Terminated)
     raise _Terminated()
+
+
+def _on_sigint(signum, frame):  # noqa: ARG001 - signal handler signature
+    request_stop(KeyboardInterrupt)
+    raise KeyboardInterrupt
 
 
 def main(argv: list[str] | None = None) -> int:
     import signal
 
+    request_stop(None)
     try:
-        previous = signal.signal(signal.SIGTERM, _on_sigterm)
+        previous = {sig: signal.signal(sig, handler) for sig, handler in
+                    ((signal.SIGTERM, _on_sigterm), (signal.SIGINT, _on_sigint))}  # fmt: skip
     except ValueError:  # not the main thread (embedded use): leave signals alone
-        previous = None
+        previous = {}
     try:
         code = _main(argv)
+        # A signal that arrived while Python ran a callback (the import system's,
+        # say) was dropped there ("Exception ignored in ..."): honour it now.
+        check_stop()
     except KeyboardInterrupt:  # before or after the command ran (while importing, say)
         code = _stopped(130)
     except _Terminated:
         code = _stopped(143)
     finally:
-        if previous is not None:
-            signal.signal(signal.SIGTERM, previous)
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
+        request_stop(None)
     if code in (130, 143) and argv is None:
         # Run as the command: leave now.  Stopped worker processes can leave the
         # process pool's result thread blocked on a half-written result, and the

@@ -26,3 +26,23 @@ class LayoutError(PitchguardError):
 
 class OutputError(PitchguardError):
     """An output file cannot be written (or would overwrite an input)."""
+
+
+_pending_stop: type[BaseException] | None = None
+
+
+def request_stop(exc_type: type[BaseException] | None) -> None:
+    """Note that a signal asked the command to stop (or, with None, forget it).
+
+    The signal handler raises at once too, but Python drops an exception
+    raised while it runs a callback (one of the import system's, say): the
+    note makes :func:`check_stop` raise it again at the next safe point.
+    """
+    global _pending_stop
+    _pending_stop = exc_type
+
+
+def check_stop() -> None:
+    """Raise the stop a signal asked for, if any (see :func:`request_stop`)."""
+    if _pending_stop is not None:
+        raise _pending_stop()

@@ -84,7 +84,35 @@ class PolygonSet:
         idx = np.flatnonzero(keep)
         if len(idx) == len(self):
             return self
-        return PolygonSet.from_arrays(self.polygon(k) for k in idx)
+        return self.take(idx)
+
+    def take(self, idx: np.ndarray) -> PolygonSet:
+        """The polygons numbered ``idx`` (in that order, repeats allowed)."""
+        rows, starts = self.rows_of(idx)
+        return PolygonSet(self.points[rows], starts)
+
+    def rows_of(self, idx: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Point rows of the polygons numbered ``idx``, in order, and their starts."""
+        idx = np.asarray(idx, dtype=np.int64)
+        sizes = self.starts[idx + 1] - self.starts[idx]
+        starts = np.zeros(len(idx) + 1, dtype=np.int64)
+        np.cumsum(sizes, out=starts[1:])
+        # Row r of polygon j is its first row plus (r - where j starts in the output).
+        rows = np.repeat(self.starts[idx] - starts[:-1], sizes) + np.arange(starts[-1])
+        return rows, starts
+
+    @classmethod
+    def joined(cls, parts: list[PolygonSet]) -> PolygonSet:
+        """The polygons of ``parts``, one after the other."""
+        parts = [p for p in parts if len(p)]
+        if not parts:
+            return cls.empty()
+        if len(parts) == 1:
+            return parts[0]
+        sizes = np.concatenate([np.diff(p.starts) for p in parts])
+        starts = np.zeros(len(sizes) + 1, dtype=np.int64)
+        np.cumsum(sizes, out=starts[1:])
+        return cls(np.concatenate([p.points for p in parts]), starts)
 
 
 @dataclass(frozen=True)

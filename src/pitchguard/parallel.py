@@ -39,7 +39,7 @@ from pitchguard.classify import (
     take_grating_passes,
 )
 from pitchguard.deck import Deck, parse_deck
-from pitchguard.errors import LayoutError
+from pitchguard.errors import LayoutError, check_stop
 from pitchguard.extract import SITE_CELL_NM, ExtractStats
 from pitchguard.layout import Layout, PolygonSet, snap_to_grid
 from pitchguard.measure import give_imaged, take_imaged
@@ -926,6 +926,7 @@ class _Engine:
                 running += 1
             tag, fut = arrived.get()
             running -= 1
+            check_stop()
             waiting.extendleft(reversed(handle(tag, self._result(fut))))
 
     def _result(self, fut):

@@ -19,7 +19,7 @@ import numpy as np
 from pitchguard import __version__
 from pitchguard.classify import Finding, FindingSet
 from pitchguard.deck import SEVERITIES, Deck
-from pitchguard.errors import EXIT_FINDINGS, EXIT_OK, OutputError
+from pitchguard.errors import EXIT_FINDINGS, EXIT_OK, OutputError, check_stop
 from pitchguard.scan import ScanResult
 
 CAUTION = (
@@ -214,7 +214,9 @@ def atomic_write(out: Path, write, inputs: list[Path]) -> None:
     fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=out.suffix, dir=folder)
     os.close(fd)
     try:
+        check_stop()
         write(Path(tmp))
+        check_stop()  # a stop asked for while writing: no output
         # mkstemp makes the file private (0600); give it the mode a plain open() would.
         umask = os.umask(0)
         os.umask(umask)

@@ -26,6 +26,9 @@ from pitchguard.layout import PolygonSet
 
 Box = tuple[float, float, float, float]
 
+FEW_INSTANCES = 64
+"""Array instances a window may meet below which they are found in plain floats."""
+
 PLACEMENT_MEMO_ENTRIES = 100_000
 """Memoised placement lists kept per query object (cleared when full)."""
 
@@ -68,6 +71,15 @@ def _ref_affine(ref, scale: float) -> _Affine:
     return _Affine(m, np.asarray(ref.origin, dtype=np.float64) * scale)
 
 
+def _canonical(a: np.ndarray) -> bytes:
+    """Placement rows (see HierarchyQuery._placements), rounded and sorted, as bytes
+    (``a`` is changed)."""
+    a[:, 1:5] = np.round(a[:, 1:5], 9)
+    a[:, 5:] = np.round(a[:, 5:], 3)
+    a += 0.0  # no negative zeros
+    return a[np.lexsort(a.T[::-1])].tobytes()
+
+
 def _hits(b: Box, w: Box) -> bool:
     return b[0] <= w[2] and b[2] >= w[0] and b[1] <= w[3] and b[3] >= w[1]
 
@@ -96,6 +108,7 @@ class HierarchyQuery:
         self.cells: dict[str, _CellData] = {}
         self.tops = [c.name for c in tops]
         self._memo: dict = {}  # content-key placements per (cell, frame, relative window)
+        self._keys: dict = {}  # content keys by the quick digest (see content_key)
         by_name = {c.name: c for c in lib.cells if hasattr(c, "references")}
         for name in self.tops:
             self._load(by_name[name], by_name)
@@ -184,10 +197,10 @@ class HierarchyQuery:
 
     def query(self, window: Box) -> dict[tuple[int, int], PolygonSet]:
         """Polygons (nm) whose bounding box intersects ``window`` (nm), per layer."""
-        out: dict[tuple[int, int], list[np.ndarray]] = {ld: [] for ld in self.layers}
+        out: dict[tuple[int, int], list[PolygonSet]] = {ld: [] for ld in self.layers}
         for name in self.tops:
             self._visit(name, _Affine.identity(), window, out)
-        return {ld: PolygonSet.from_arrays(v) for ld, v in out.items()}
+        return {ld: PolygonSet.joined(v) for ld, v in out.items()}
 
     def count(self, window: Box) -> int:
         """An upper bound of the polygons :meth:`query` returns for ``window``: the own
@@ -212,25 +225,52 @@ class HierarchyQuery:
         shifted, for every tile with its key.  (Equal content can still get
         different keys, e.g. the same polygons drawn in different cells:
         that only costs a missed reuse.)
+
+        Placed cells with children below the top enter by the digest of their
+        own placements in the window and their position (see :meth:`_local`):
+        a tile of an arrayed block costs a few digests, not a sort of every
+        leaf placement in it.
         """
         rows: list[np.ndarray] = []
+        tokens: list[tuple[bytes, np.ndarray, np.ndarray]] = []
         for name in self.tops:
-            self._placements(name, _Affine.identity(), window, rows)
-        size = np.array([window[2] - window[0], window[3] - window[1]])
-        h = hashlib.blake2b(np.round(size, 3).tobytes(), digest_size=20)
-        if rows:
-            a = np.concatenate(rows)
-            a[:, 5] -= origin[0]
-            a[:, 6] -= origin[1]
-            a[:, 1:5] = np.round(a[:, 1:5], 9)
-            a[:, 5:] = np.round(a[:, 5:], 3)
-            a += 0.0  # no negative zeros
-            a = a[np.lexsort(a.T[::-1])]
-            h.update(a.tobytes())
-        return h.digest()
+            self._placements(name, _Affine.identity(), window, rows, tokens)
+        size = np.round(np.array([window[2] - window[0], window[3] - window[1]]), 3).tobytes()
+        ox, oy = float(origin[0]), float(origin[1])
+        mine = np.concatenate(rows) if rows else np.empty((0, 7))
+        mine[:, 5] -= ox
+        mine[:, 6] -= oy
+        # First the placements as found (placed blocks by their digests): equal
+        # ones mean equal placements, so the key, which needs every placement
+        # sorted, is worked out once per such set.
+        placed = sorted((d, round(float(t[0]) - ox, 3) + 0.0, round(float(t[1]) - oy, 3) + 0.0)
+                        for d, t, _ in tokens)  # fmt: skip
+        quick = (size, _canonical(mine.copy()) if len(mine) else b"", tuple(placed))
+        known = self._keys.get(quick)
+        if known is not None:
+            return known
+        parts = [mine]
+        for _, t, rows_in in tokens:
+            local = rows_in.copy()
+            local[:, 5] += t[0] - ox
+            local[:, 6] += t[1] - oy
+            parts.append(local)
+        h = hashlib.blake2b(size, digest_size=20)
+        a = np.concatenate(parts)
+        if len(a):
+            h.update(_canonical(a))
+        if len(self._keys) >= PLACEMENT_MEMO_ENTRIES:
+            self._keys.clear()
+        self._keys[quick] = key = h.digest()
+        return key
 
-    def _placements(self, name: str, aff: _Affine, window: Box, rows) -> None:
-        """Rows (cell, m00, m01, m10, m11, x, y): placements whose polygons may meet ``window``."""
+    def _placements(self, name: str, aff: _Affine, window: Box, rows, tokens=None) -> None:
+        """Rows (cell, m00, m01, m10, m11, x, y): placements whose polygons may meet ``window``.
+
+        With ``tokens``, a placed cell that has children enters it as ``(digest
+        of its rows in its own frame, its position, those rows)`` instead of by
+        its rows.
+        """
         cd = self.cells[name]
         if cd.bbox is None or not _hits(aff.box(cd.bbox), window):
             return
@@ -257,48 +297,85 @@ class HierarchyQuery:
                     rows.append(r)
                 continue
             for off in o:
-                rows.append(self._placements_of(child, placed.m, placed.t + off, window))
+                t = placed.t + off
+                local, digest = self._local(child, placed.m, t, window, tokens is not None)
+                if not len(local):
+                    continue
+                if tokens is None:
+                    out = local.copy()
+                    out[:, 5:] += t
+                    rows.append(out)
+                else:
+                    tokens.append((digest, t, local))
 
-    def _placements_of(self, name: str, m: np.ndarray, t: np.ndarray, window: Box) -> np.ndarray:
-        """:meth:`_placements` of a placed cell, memoised by its frame and the window
-        relative to it: arrays of blocks see the same relative windows over and over."""
-        rel = np.round(np.asarray(window, dtype=np.float64) - np.tile(t, 2), 6) + 0.0
-        key = (name, np.round(m, 12).tobytes(), rel.tobytes())
-        local = self._memo.get(key)
-        if local is None:
+    def _local(self, name: str, m: np.ndarray, t: np.ndarray, window: Box, digest: bool):
+        """:meth:`_placements` of a cell placed by ``m`` and ``t``, in a frame moved by
+        ``-t``, and (if ``digest``) a digest of them; memoised by the frame and the
+        window relative to it: arrays of blocks see the same relative windows
+        over and over."""
+        tx, ty = float(t[0]), float(t[1])
+        rel = (round(window[0] - tx, 6) + 0.0, round(window[1] - ty, 6) + 0.0,
+               round(window[2] - tx, 6) + 0.0, round(window[3] - ty, 6) + 0.0)  # fmt: skip
+        key = (name, m.tobytes(), rel)
+        entry = self._memo.get(key)
+        if entry is None:
             if len(self._memo) >= PLACEMENT_MEMO_ENTRIES:
                 self._memo.clear()
             found: list[np.ndarray] = []
-            self._placements(name, _Affine(m, np.zeros(2)), tuple(rel.tolist()), found)
-            local = np.concatenate(found) if found else np.empty((0, 7))
-            self._memo[key] = local
-        out = local.copy()
-        out[:, 5:] += t
-        return out
+            self._placements(name, _Affine(m, np.zeros(2)), rel, found)
+            entry = [np.concatenate(found) if found else np.empty((0, 7)), None]
+            self._memo[key] = entry
+        if digest and entry[1] is None:
+            entry[1] = hashlib.blake2b(_canonical(entry[0].copy()), digest_size=20).digest()
+        return entry[0], entry[1]
 
     def _visit(self, name: str, aff: _Affine, window: Box, out) -> None:
         cd = self.cells[name]
         if cd.bbox is None or not _hits(aff.box(cd.bbox), window):
             return
+        self._place(cd, aff.m, aff.t, np.zeros((1, 2)), window, out)
+        for child, ref_aff, offs in cd.refs:
+            ccd = self.cells[child]
+            if ccd.bbox is None:
+                continue
+            placed = aff.then(ref_aff)
+            o = self._offsets_in(offs, aff, np.array(placed.box(ccd.bbox)), window)
+            if not len(o):
+                continue
+            if not ccd.refs:  # a leaf: all its instances at once
+                self._place(ccd, placed.m, placed.t, o, window, out)
+                continue
+            for off in o:
+                self._visit(child, _Affine(placed.m, placed.t + off), window, out)
+
+    @staticmethod
+    def _place(cd: _CellData, m: np.ndarray, t: np.ndarray, offsets: np.ndarray,
+               window: Box, out) -> None:  # fmt: skip
+        """Add the own polygons of ``cd`` placed by ``m`` and ``t + offsets[i]`` for
+        each instance ``i`` whose transformed polygon box meets ``window``, instance
+        by instance, each in the cell's order.
+
+        Same values as transforming each copy on its own: the corner minimum
+        commutes with adding a shift (rounding is monotone), and each point
+        is ``p @ m.T + (t + offset)``.
+        """
+        shifts = t + offsets  # (n, 2), one per instance
         for ld, (ps, bb) in cd.polys.items():
             if not len(ps):
                 continue
-            # Transformed boxes of all own polygons at once (corners of each box).
             corners = np.stack([bb[:, [0, 1]], bb[:, [2, 1]], bb[:, [2, 3]], bb[:, [0, 3]]], axis=1)
-            tc = corners @ aff.m.T + aff.t
-            lo, hi = tc.min(axis=1), tc.max(axis=1)
-            keep = (lo[:, 0] <= window[2]) & (hi[:, 0] >= window[0]) & \
-                (lo[:, 1] <= window[3]) & (hi[:, 1] >= window[1])  # fmt: skip
-            for k in np.flatnonzero(keep):
-                out[ld].append(aff.apply(ps.polygon(int(k))))
-        for child, ref_aff, offs in cd.refs:
-            cb = self.cells[child].bbox
-            if cb is None:
+            tc = corners @ m.T
+            lo = tc.min(axis=1)[None, :, :] + shifts[:, None, :]  # (n, polygons, 2)
+            hi = tc.max(axis=1)[None, :, :] + shifts[:, None, :]
+            keep = (lo[..., 0] <= window[2]) & (hi[..., 0] >= window[0]) & \
+                (lo[..., 1] <= window[3]) & (hi[..., 1] >= window[1])  # fmt: skip
+            inst, k = np.nonzero(keep)  # instance-major, polygons in order
+            if not len(k):
                 continue
-            placed = aff.then(ref_aff)
-            base = np.array(placed.box(cb))
-            for o in self._offsets_in(offs, aff, base, window):
-                self._visit(child, _Affine(placed.m, placed.t + o), window, out)
+            rows, starts = ps.rows_of(k)
+            pts = ps.points[rows] @ m.T
+            pts += np.repeat(shifts[inst], np.diff(starts), axis=0)
+            out[ld].append(PolygonSet(pts, starts))
 
     @staticmethod
     def _offsets_in(offs, aff: _Affine, base: np.ndarray, window: Box):
@@ -336,6 +413,18 @@ class HierarchyQuery:
             j0, j1 = max(0, math.floor(min(jj))), min(rows - 1, math.ceil(max(jj)))
         if i1 < i0 or j1 < j0:
             return np.zeros((0, 2))
+        if (i1 - i0 + 1) * (j1 - j0 + 1) <= FEW_INSTANCES:
+            # The same sums and tests as below, in plain floats (a tile meets a
+            # few instances of a large array: numpy's per-call cost dominates).
+            bx0, by0, bx1, by1 = (float(v) for v in base)
+            wx0, wy0, wx1, wy1 = window
+            found = []
+            for ii in range(i0, i1 + 1):
+                for jj in range(j0, j1 + 1):
+                    ox, oy = ii * p + jj * r, ii * q + jj * s
+                    if bx0 + ox <= wx1 and bx1 + ox >= wx0 and by0 + oy <= wy1 and by1 + oy >= wy0:
+                        found.append((ox, oy))
+            return np.array(found, dtype=np.float64).reshape(-1, 2)
         i = np.arange(i0, i1 + 1, dtype=np.float64)
         j = np.arange(j0, j1 + 1, dtype=np.float64)
         o = (i[:, None, None] * a1 + j[None, :, None] * a2).reshape(-1, 2)

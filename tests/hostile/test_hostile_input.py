@@ -329,6 +329,38 @@ def test_stopped_scans_exit_cleanly_at_any_stage(tmp_path, deck, sig, delay_s, c
     assert not out.exists()
 
 
+def test_a_stop_lost_in_a_callback_is_still_honoured(tmp_path, deck, monkeypatch, capsys):
+    """Python drops an exception raised while it runs a callback: a Ctrl-C that
+    landed in the import system's module-lock callback printed "Exception
+    ignored in ..." and the scan ran on to exit 1 (seen once in the suite, the
+    0.3 s case above).  The handler also notes the stop; here the raise is lost
+    (the note alone, as then) after the scan: still exit 130, no output."""
+    import pitchguard.parallel as parallel
+    from pitchguard.errors import request_stop
+
+    lib = gdstk.Library()
+    top = lib.new_cell("TOP")
+    for k in range(20):
+        top.add(gdstk.rectangle((k * 0.11, 0), (k * 0.11 + 0.055, 3), layer=7))
+    layout = _lib_write(tmp_path, lib, "small.gds")
+    real = parallel.scan_tiled
+
+    def scan_then_lost_signal(*args, **kwargs):
+        result = real(*args, **kwargs)
+        request_stop(KeyboardInterrupt)  # what _on_sigint notes before its raise is lost
+        return result
+
+    monkeypatch.setattr(parallel, "scan_tiled", scan_then_lost_signal)
+    out = tmp_path / "out.json"
+    code = main(["scan", str(layout), "--rules", str(deck), "--json", str(out), "-q"])
+    err = capsys.readouterr().err
+    assert code == 130, err
+    assert "interrupted" in err and "Traceback" not in err
+    assert not out.exists()
+    monkeypatch.undo()
+    assert main(["scan", str(layout), "--rules", str(deck), "-q"]) in (0, 1)  # the note is gone
+
+
 def test_one_far_coordinate_with_a_small_tile_is_refused(tmp_path, capsys, deck):
     """A mutated corpus file (seed 21) moved one vertex 1.6 m out: with --tile-um 10
     it made 1.46 million tiles for 245 shapes and ran for more than 15 minutes.
