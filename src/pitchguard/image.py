@@ -100,9 +100,11 @@ def pupil(fx: np.ndarray, fy: np.ndarray, optics: Optics, defocus_nm: float) -> 
     inside = f2 <= optics.cutoff**2 * (1.0 + 1e-12)
     p = inside.astype(np.complex128)
     if defocus_nm:
+        # The phase only where the pupil passes light (most of a source's orders
+        # miss it): the same values as over the whole array, at a fraction of it.
         n_over_l = optics.n_medium / optics.wavelength_nm
-        kz = np.sqrt(np.maximum(n_over_l**2 - f2, 0.0)) - n_over_l
-        p = p * np.exp(2j * np.pi * defocus_nm * kz)
+        kz = np.sqrt(np.maximum(n_over_l**2 - f2[inside], 0.0)) - n_over_l
+        p[inside] = np.exp(2j * np.pi * defocus_nm * kz)
     return p
 
 
