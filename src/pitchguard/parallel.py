@@ -526,6 +526,8 @@ class _TileRun:
         self.imaged: dict = {}
         self.scanned = self.keyed = 0
         self.judged: dict = {}  # ideal gratings judged for hints, passed on to later hints
+        self.hint_keys: list = []  # found, not yet sent
+        self.hinting = False  # a hints task is running
 
     def next_chunk(self):
         start, chunk = self.chunks.pop(0)
@@ -547,6 +549,8 @@ class _TileRun:
             self.texts.update(texts)
             for row in judged:
                 self.judged.setdefault(row[:5], row)
+            self.hinting = False
+            more.extend(self._hints())
         elif isinstance(tag, tuple):  # content keys of a chunk, from tile ``start`` on
             start = tag[1]
             for k, key in enumerate(result, start):
@@ -580,11 +584,20 @@ class _TileRun:
             new = {(f.layer, repr(f.hint_key)): (f.layer, f.hint_key) for f in fs
                    if f.hint_key is not None and (f.layer, repr(f.hint_key)) not in self.asked}
             self.asked.update(new)
-            if new:
-                keys = [k for _, k in sorted(new.items())]
-                more.insert(0, (hints_task, lambda keys=keys: (self.deck.text, keys, list(
-                    self.judged.values())), "hints"))  # fmt: skip
+            self.hint_keys.extend(k for _, k in sorted(new.items()))
+            more[:0] = self._hints()
         return more
+
+    def _hints(self) -> list:
+        """A task for the hint keys waiting, unless one is running: hints of one
+        layer search overlapping gratings, and a task running beside another
+        would judge them again (measured on the benchmark chip, 2 workers:
+        1.24 s of hint work against 0.66 s on 1 worker)."""
+        if self.hinting or not self.hint_keys:
+            return []
+        keys, self.hint_keys = self.hint_keys, []
+        self.hinting = True
+        return [(hints_task, lambda: (self.deck.text, keys, list(self.judged.values())), "hints")]
 
 
 class _Assembly:
