@@ -276,14 +276,7 @@ class HierarchyQuery:
             return
         if cd.own_bbox is not None and _hits(aff.box(cd.own_bbox), window):
             rows.append(np.array([[cd.index, *aff.m.ravel(), *aff.t]]))
-        for child, ref_aff, offs in cd.refs:
-            ccd = self.cells[child]
-            if ccd.bbox is None:
-                continue
-            placed = aff.then(ref_aff)
-            o = self._offsets_in(offs, aff, np.array(placed.box(ccd.bbox)), window)
-            if not len(o):
-                continue
+        for child, ccd, placed, o in self._children_in(cd, aff, window):
             if not ccd.refs:  # a leaf: its placements at once
                 if ccd.own_bbox is None:
                     continue
@@ -329,19 +322,24 @@ class HierarchyQuery:
             entry[1] = hashlib.blake2b(_canonical(entry[0].copy()), digest_size=20).digest()
         return entry[0], entry[1]
 
-    def _visit(self, name: str, aff: _Affine, window: Box, out) -> None:
-        cd = self.cells[name]
-        if cd.bbox is None or not _hits(aff.box(cd.bbox), window):
-            return
-        self._place(cd, aff.m, aff.t, np.zeros((1, 2)), window, out)
+    def _children_in(self, cd: _CellData, aff: _Affine, window: Box):
+        """``(child name, its data, its placement, instance offsets)`` of each
+        reference of ``cd`` (placed by ``aff``) with instances near ``window``."""
         for child, ref_aff, offs in cd.refs:
             ccd = self.cells[child]
             if ccd.bbox is None:
                 continue
             placed = aff.then(ref_aff)
             o = self._offsets_in(offs, aff, np.array(placed.box(ccd.bbox)), window)
-            if not len(o):
-                continue
+            if len(o):
+                yield child, ccd, placed, o
+
+    def _visit(self, name: str, aff: _Affine, window: Box, out) -> None:
+        cd = self.cells[name]
+        if cd.bbox is None or not _hits(aff.box(cd.bbox), window):
+            return
+        self._place(cd, aff.m, aff.t, np.zeros((1, 2)), window, out)
+        for child, ccd, placed, o in self._children_in(cd, aff, window):
             if not ccd.refs:  # a leaf: all its instances at once
                 self._place(ccd, placed.m, placed.t, o, window, out)
                 continue
