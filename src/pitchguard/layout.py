@@ -31,6 +31,13 @@ DEFAULT_MAX_SHAPES = 20_000_000
 """Refuse to flatten more shapes than this (about 5 GB of polygons)."""
 
 
+def _starts(sizes: np.ndarray) -> np.ndarray:
+    """Start offsets (and the end) of consecutive runs of ``sizes``."""
+    starts = np.zeros(len(sizes) + 1, dtype=np.int64)
+    np.cumsum(sizes, out=starts[1:])
+    return starts
+
+
 @dataclass(frozen=True)
 class PolygonSet:
     """Polygons of one layer, packed.
@@ -55,9 +62,7 @@ class PolygonSet:
         polys = [p for p in polys if p.ndim == 2 and p.shape[1] == 2 and len(p) >= 3]
         if not polys:
             return cls.empty()
-        sizes = np.fromiter((len(p) for p in polys), dtype=np.int64, count=len(polys))
-        starts = np.zeros(len(polys) + 1, dtype=np.int64)
-        np.cumsum(sizes, out=starts[1:])
+        starts = _starts(np.fromiter((len(p) for p in polys), dtype=np.int64, count=len(polys)))
         points = np.concatenate(polys, axis=0)
         if scale != 1.0:
             points *= scale
@@ -95,8 +100,7 @@ class PolygonSet:
         """Point rows of the polygons numbered ``idx``, in order, and their starts."""
         idx = np.asarray(idx, dtype=np.int64)
         sizes = self.starts[idx + 1] - self.starts[idx]
-        starts = np.zeros(len(idx) + 1, dtype=np.int64)
-        np.cumsum(sizes, out=starts[1:])
+        starts = _starts(sizes)
         # Row r of polygon j is its first row plus (r - where j starts in the output).
         rows = np.repeat(self.starts[idx] - starts[:-1], sizes) + np.arange(starts[-1])
         return rows, starts
@@ -109,9 +113,7 @@ class PolygonSet:
             return cls.empty()
         if len(parts) == 1:
             return parts[0]
-        sizes = np.concatenate([np.diff(p.starts) for p in parts])
-        starts = np.zeros(len(sizes) + 1, dtype=np.int64)
-        np.cumsum(sizes, out=starts[1:])
+        starts = _starts(np.concatenate([np.diff(p.starts) for p in parts]))
         return cls(np.concatenate([p.points for p in parts]), starts)
 
 

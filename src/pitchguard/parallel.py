@@ -509,10 +509,10 @@ class _TileRun:
 
     Content keys come a chunk at a time, in tile order; when a chunk is in,
     every key first seen in it has its first tile known, and that tile is
-    scanned for its group.  Results are filed in the assembly; each new hint
-    a tile finds is sent to a worker at once (hints of one result together:
-    they share grating images); the cuts any worker imaged travel with the
-    tile tasks that start later.
+    scanned for its group at once.  Results are filed in the assembly; the
+    hints tiles find go to one hints task at a time (those found while one
+    runs wait for the next, with the gratings it judged); the cuts any
+    worker imaged travel with the tile tasks that start later.
     """
 
     def __init__(self, engine, assembly, path, deck, cell, layers, tiles, halo, limit):

@@ -48,9 +48,6 @@ class _Affine:
         """The transform of ``inner`` followed by this one."""
         return _Affine(self.m @ inner.m, self.m @ inner.t + self.t)
 
-    def apply(self, pts: np.ndarray) -> np.ndarray:
-        return pts @ self.m.T + self.t
-
     def box(self, b: Box) -> Box:
         """Bounding box of the transformed box ``b`` (plain floats: called per tile)."""
         x0, y0, x1, y1 = (float(v) for v in b)
