@@ -29,11 +29,9 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 
 import numpy as np
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
 
 from pitchguard.deck import SEVERITIES, LayerRule
-from pitchguard.extract import Sites, _query_pairs_batched, _rtree
+from pitchguard.extract import Sites, _query_pairs_batched, _rtree, components
 from pitchguard.orders import OrderResult, analyse_pitch
 from pitchguard.printing import Metrics
 
@@ -522,9 +520,7 @@ def _regions(sites: Sites, severity: np.ndarray, pitch_tol: float) -> np.ndarray
     qi, qj = qi[ok], qj[ok]
     touch = rectangles_touch(corners[qi], corners[qj], sites.direction[qi])
     qi, qj = qi[touch], qj[touch]
-    graph = coo_matrix((np.ones(len(qi), dtype=np.int8), (qi, qj)), shape=(n, n))
-    _, labels = connected_components(graph, directed=False)
-    return labels
+    return components(n, qi, qj)[1]
 
 
 SNAP_PITCH_SPREAD = 2.0 * math.sqrt(2.0)

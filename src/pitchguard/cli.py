@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import signal
 import sys
 from pathlib import Path
 
@@ -592,9 +593,38 @@ def _on_sigint(signum, frame):  # noqa: ARG001 - signal handler signature
     raise KeyboardInterrupt
 
 
-def main(argv: list[str] | None = None) -> int:
-    import signal
+_STOP_SIGNALS = (signal.SIGTERM, signal.SIGINT)
 
+
+def _before_fork() -> None:
+    """Block the stop signals in the forking thread: the child inherits the mask,
+    so it cannot run the command's handlers before it has reset them."""
+    if signal.getsignal(signal.SIGTERM) is _on_sigterm:
+        signal.pthread_sigmask(signal.SIG_BLOCK, _STOP_SIGNALS)
+
+
+def _after_fork_in_parent() -> None:
+    if signal.getsignal(signal.SIGTERM) is _on_sigterm:
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, _STOP_SIGNALS)
+
+
+def _after_fork_in_child() -> None:
+    """A process forked from the command (a reader child, a tile worker) leaves
+    stopping to the command: SIGTERM kills it quietly, SIGINT (a Ctrl-C reaches
+    the whole process group) is ignored.  Run with the handlers of the command,
+    it would raise in the middle of whatever it was doing and print a traceback
+    (seen: a SIGTERM in a tile worker still running its initializer)."""
+    if signal.getsignal(signal.SIGTERM) is _on_sigterm:
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, _STOP_SIGNALS)  # pending: handled as above
+
+
+os.register_at_fork(before=_before_fork, after_in_parent=_after_fork_in_parent,
+                    after_in_child=_after_fork_in_child)  # fmt: skip
+
+
+def main(argv: list[str] | None = None) -> int:
     request_stop(None)
     try:
         previous = {sig: signal.signal(sig, handler) for sig, handler in

@@ -779,14 +779,12 @@ def _joined_groups(n: int, ea: np.ndarray, eb: np.ndarray):
     index order) are ``inside`` cut into runs of ``sizes``; ``alone`` lists
     the lone parts in that order.
     """
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import connected_components
+    from pitchguard.extract import components
 
     if n == 0:
         z = np.zeros(0, np.int64)
         return (z, z), (z, z)
-    graph = coo_matrix((np.ones(len(ea)), (ea, eb)), shape=(n, n))
-    n_lab, labels = connected_components(graph, directed=False)
+    n_lab, labels = components(n, ea, eb)
     first = np.full(n_lab, n, dtype=np.int64)
     np.minimum.at(first, labels, np.arange(n))
     count = np.bincount(labels, minlength=n_lab)

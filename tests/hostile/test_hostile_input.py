@@ -378,3 +378,51 @@ def test_one_far_coordinate_with_a_small_tile_is_refused(tmp_path, capsys, deck)
     code, err = _run(capsys, path, deck)
     _clean(code, err)
     assert code in (0, 1)
+
+
+_FORKED_CHILD_SCRIPT = r"""
+import os, signal, sys, time
+from concurrent.futures import ProcessPoolExecutor
+from multiprocessing import get_context
+from pitchguard import cli
+
+signal.signal(signal.SIGTERM, cli._on_sigterm)  # as cli.main installs them
+signal.signal(signal.SIGINT, cli._on_sigint)
+
+def slow_init():
+    print("in-init", flush=True)
+    time.sleep(30)  # still starting up when it is stopped
+
+pool = ProcessPoolExecutor(2, mp_context=get_context("fork"), initializer=slow_init)
+pool.submit(os.getpid)
+procs = list(pool._processes.values())
+time.sleep(1.0)
+for p in procs:
+    os.kill(p.pid, signal.SIGINT)  # a Ctrl-C reaches the whole process group
+time.sleep(0.5)
+alive_after_sigint = [p.is_alive() for p in procs]
+for p in procs:
+    p.terminate()  # SIGTERM, as the engine stops its workers
+for p in procs:
+    p.join(10)
+blocked = signal.pthread_sigmask(signal.SIG_BLOCK, [])
+print("result", alive_after_sigint, [p.exitcode for p in procs],
+      signal.SIGTERM in blocked, signal.getsignal(signal.SIGTERM) is cli._on_sigterm, flush=True)
+os._exit(0)
+"""
+
+
+def test_forked_children_leave_stopping_to_the_command():
+    """A tile worker stopped while it still ran its initializer printed
+    "Exception in initializer: Traceback ..." (seen in the 0.3 s SIGTERM case
+    above once imports got faster): forked, it ran the command's handlers.
+    Children forked from the command now ignore SIGINT and die quietly on
+    SIGTERM from the first instruction; the parent keeps its handlers and an
+    unblocked signal mask."""
+    proc = subprocess.run([sys.executable, "-c", _FORKED_CHILD_SCRIPT], capture_output=True,
+                          text=True, timeout=120)  # fmt: skip
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.count("in-init") == 2, proc.stdout
+    assert "Traceback" not in proc.stderr, proc.stderr
+    line = [ln for ln in proc.stdout.splitlines() if ln.startswith("result")][0]
+    assert line == f"result [True, True] [{-signal.SIGTERM}, {-signal.SIGTERM}] False True", line
