@@ -199,6 +199,10 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float,
     # part's.
     give_imaged(imaged)
     findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile), tile=True)
+    # Findings with no site near the border are final here: what only served a
+    # merge is dropped before they travel (half the bytes of such findings).
+    findings = [f if f.border_sites is not None and len(f.border_sites) else _final(f)
+                for f in findings]  # fmt: skip
     return findings, stats, take_imaged()
 
 
