@@ -689,12 +689,13 @@ class _Assembly:
         by_kind = np.argsort(pair_kind, kind="stable")
         cuts = np.flatnonzero(np.diff(pair_kind[by_kind])) + 1
         ea, eb = [], []
+        sites = _BorderSites(self.reps, deck, grid_nm)
         for (g, h, dx, dy), ks in zip(kinds_of_pair.tolist(), np.split(by_kind, cuts) if
                                       len(by_kind) else [], strict=True):  # fmt: skip
             g, h = int(g), int(h)
             # Parts of the distinct tiles that join, placed as the pair sits.
             shift = boxes[self.members[g][0], :2] + (dx, dy) - boxes[self.members[h][0], :2]
-            rg, rh = _joining_parts(self.reps[g], self.reps[h], shift, deck, grid_nm)
+            rg, rh = sites.joining(g, h, shift)
             if not len(rg):
                 continue
             mt, mu = slot_of[t[ks]], slot_of[u[ks]]
@@ -992,43 +993,64 @@ def _sum_stats(deck: Deck, per_group: list[tuple[list[LayerStats], int]]) -> lis
 # --------------------------------------------------------------------------- merging
 
 
-def _joining_parts(a: list[Finding], b: list[Finding], shift, deck: Deck,
-                   grid_nm: float) -> tuple[np.ndarray, np.ndarray]:  # fmt: skip
-    """Which findings of two neighbouring tiles are parts of one region: ``(i, j)``.
+class _BorderSites:
+    """Which findings of two neighbouring tiles are parts of one region.
 
-    ``b``'s findings are moved by ``shift`` (nm) to where that tile sits next
-    to ``a``'s.  Exactly the rule a whole-layout scan forms regions by
-    (``classify._regions``), applied to their sites near the border: two
-    parts join when a site of each touches the other's, on the same layer,
-    with lines the same way (within ``ORIENTATION_TOL_DEG``) and pitches within
-    the layer's tolerance (or either infinite).
+    Exactly the rule a whole-layout scan forms regions by
+    (``classify._regions``), applied to the findings' sites near the border:
+    two parts join when a site of each touches the other's, on the same
+    layer, with lines the same way (within ``ORIENTATION_TOL_DEG``) and
+    pitches within the layer's tolerance (or either infinite).  Each group's
+    sites and their R-tree are made once, whatever pairs it is part of.
     """
-    from pitchguard.extract import _query_pairs_batched, _rtree
 
-    names = [r.name for r in deck.layers]
-    tol_of = np.array([max(r.pitch_tolerance_nm / deck.scale_to_wafer,
-                           SNAP_PITCH_SPREAD * grid_nm) for r in deck.layers])  # fmt: skip
+    PAD_NM = 1e-3
+    """Candidate boxes are padded by this much (far below any grid) so that the
+    R-tree passes every pair the exact test, which allows 1e-6 nm, may accept."""
 
-    def sites(fs, move):
-        rows = np.concatenate([f.border_sites for f in fs])
-        owner = np.repeat(np.arange(len(fs)), [len(f.border_sites) for f in fs])
-        corners = rows[:, :8].reshape(-1, 4, 2) + move
-        layer = np.array([names.index(f.layer) for f in fs])[owner]
-        return corners, rows[:, 8], rows[:, 9], layer, owner
+    def __init__(self, reps: list[list[Finding]], deck: Deck, grid_nm: float):
+        self.reps = reps
+        self.names = [r.name for r in deck.layers]
+        self.tol_of = np.array([max(r.pitch_tolerance_nm / deck.scale_to_wafer,
+                                    SNAP_PITCH_SPREAD * grid_nm) for r in deck.layers])  # fmt: skip
+        self._sites: dict[int, tuple] = {}
+        self._trees: dict[int, tuple] = {}  # group -> (R-tree, its boxes' lo, hi)
 
-    ca, anga, pa, la, oa = sites(a, np.zeros(2))
-    cb, angb, pb, lb, ob = sites(b, np.asarray(shift, dtype=np.float64))
-    lo_b, hi_b = cb.min(axis=1), cb.max(axis=1)
-    qi, qj = _query_pairs_batched(_rtree(lo_b, hi_b), lo_b, hi_b, ca.min(axis=1), ca.max(axis=1))
-    keep = la[qi] == lb[qj]
-    keep &= same_region_class(anga[qi], angb[qj], pa[qi], pb[qj], tol_of[la[qi]])
-    qi, qj = qi[keep], qj[keep]
-    # Exact overlap test in the frame of the site of ``a``, as whole-layout regions use.
-    rad = np.radians(anga[qi])
-    d = np.stack([np.cos(rad), np.sin(rad)], axis=1)
-    touch = rectangles_touch(ca[qi], cb[qj], d)
-    joined = np.unique(np.stack([oa[qi[touch]], ob[qj[touch]]], axis=1), axis=0)
-    return joined[:, 0], joined[:, 1]
+    def sites(self, g: int) -> tuple:
+        """Group ``g``'s border sites: corners (k, 4, 2), angle, pitch, layer, owner."""
+        if g not in self._sites:
+            fs = self.reps[g]
+            rows = np.concatenate([f.border_sites for f in fs])
+            owner = np.repeat(np.arange(len(fs)), [len(f.border_sites) for f in fs])
+            layer = np.array([self.names.index(f.layer) for f in fs])[owner]
+            self._sites[g] = (rows[:, :8].reshape(-1, 4, 2), rows[:, 8], rows[:, 9], layer, owner)
+        return self._sites[g]
+
+    def joining(self, g: int, h: int, shift) -> tuple[np.ndarray, np.ndarray]:
+        """``(i, j)``: finding ``i`` of group ``g`` and ``j`` of group ``h`` are parts
+        of one region when ``h``'s tile sits ``shift`` (nm) from ``g``'s."""
+        from pitchguard.extract import _query_pairs_batched, _rtree
+
+        shift = np.asarray(shift, dtype=np.float64)
+        ca, anga, pa, la, oa = self.sites(g)
+        cb, angb, pb, lb, ob = self.sites(h)
+        if h not in self._trees:
+            lo, hi = cb.min(axis=1), cb.max(axis=1)
+            self._trees[h] = (_rtree(lo, hi), lo, hi)
+        tree, lo_b, hi_b = self._trees[h]
+        # ``a``'s boxes moved into ``h``'s frame, padded (see PAD_NM).
+        qlo = ca.min(axis=1) - shift - self.PAD_NM
+        qhi = ca.max(axis=1) - shift + self.PAD_NM
+        qi, qj = _query_pairs_batched(tree, lo_b, hi_b, qlo, qhi)
+        keep = la[qi] == lb[qj]
+        keep &= same_region_class(anga[qi], angb[qj], pa[qi], pb[qj], self.tol_of[la[qi]])
+        qi, qj = qi[keep], qj[keep]
+        # Exact overlap test in the frame of the site of ``a``, as whole-layout regions use.
+        rad = np.radians(anga[qi])
+        d = np.stack([np.cos(rad), np.sin(rad)], axis=1)
+        touch = rectangles_touch(ca[qi], cb[qj] + shift, d)
+        joined = np.unique(np.stack([oa[qi[touch]], ob[qj[touch]]], axis=1), axis=0)
+        return joined[:, 0], joined[:, 1]
 
 
 def _merge_groups(findings: dict[int, Finding], groups: list[np.ndarray], deck: Deck,

@@ -382,7 +382,6 @@ def test_one_far_coordinate_with_a_small_tile_is_refused(tmp_path, capsys, deck)
 
 _FORKED_CHILD_SCRIPT = r"""
 import os, signal, sys, time
-from concurrent.futures import ProcessPoolExecutor
 from multiprocessing import get_context
 from pitchguard import cli
 
@@ -393,9 +392,11 @@ def slow_init():
     print("in-init", flush=True)
     time.sleep(30)  # still starting up when it is stopped
 
-pool = ProcessPoolExecutor(2, mp_context=get_context("fork"), initializer=slow_init)
-pool.submit(os.getpid)
-procs = list(pool._processes.values())
+# Forked as the tile pool forks its workers (plain processes: the pool's own
+# thread would race this script to reap them).
+procs = [get_context("fork").Process(target=slow_init) for _ in range(2)]
+for p in procs:
+    p.start()
 time.sleep(1.0)
 for p in procs:
     os.kill(p.pid, signal.SIGINT)  # a Ctrl-C reaches the whole process group
@@ -408,7 +409,6 @@ for p in procs:
 blocked = signal.pthread_sigmask(signal.SIG_BLOCK, [])
 print("result", alive_after_sigint, [p.exitcode for p in procs],
       signal.SIGTERM in blocked, signal.getsignal(signal.SIGTERM) is cli._on_sigterm, flush=True)
-os._exit(0)
 """
 
 
