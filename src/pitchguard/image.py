@@ -23,6 +23,10 @@ points by diffraction orders gives the transmission cross coefficients
 an image costs one inverse FFT per kernel kept instead of one per source
 point.  The TCC does not depend on the mask, so it is built once per
 exposure, orientation, period and focus and reused for every profile.
+Two exact shortcuts make the TCC cheaper: source points that are mirror
+images about the pitch axis give equal rows of ``A`` and are merged
+(:func:`merge_mirrored`), and ``TCC(-z)`` is the conjugate of ``TCC(z)``
+(:meth:`CoherentSystems.through_opposite_focus`).
 
 References: Goodman, *Introduction to Fourier Optics* (coherent imaging,
 OTF); Hopkins (1953) and the sum-of-coherent-systems decomposition (common
@@ -172,6 +176,53 @@ def abbe_image(
     return (w[:, None] * np.abs(field) ** 2).sum(axis=0)
 
 
+def merge_mirrored(src: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+    """Source points ``(sx, sy)`` and ``(sx, -sy)`` as one point of their summed weight.
+
+    In the image of a 1-D mask (scalar, as here) a source point acts through
+    the pupil at ``(f_n + sx, sy)``, which depends on ``sy`` only as
+    ``sy^2``: mirror images about the pitch axis give equal rows of the
+    TCC's source-by-order matrix, and one row of weight ``w1 + w2`` gives
+    the same ``A^H A``.  Points are matched to 1e-12 sigma (a turned grid
+    carries rounding of that order).  Symmetric sources halve.
+    """
+    pts, w = src
+    key = np.round(np.stack([pts[:, 0], np.abs(pts[:, 1])], axis=1), 12)
+    key, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
+    weights = np.bincount(inverse.reshape(-1), weights=w, minlength=len(key))
+    return pts[first], weights
+
+
+class PupilFrame:
+    """What the coherent systems of one source, period and order count share
+    through focus: the source merged by mirror images (:func:`merge_mirrored`),
+    where each order of each source point falls in the pupil, and the
+    defocus phase per unit focus there.  :meth:`amplitudes` gives the matrix
+    ``A = sqrt(w_s) P(f_n + s)`` at any focus, costing one complex
+    exponential per passing order."""
+
+    def __init__(self, optics: Optics, src: tuple[np.ndarray, np.ndarray], period_nm: float,
+                 n_max: int):  # fmt: skip
+        pts, w = merge_mirrored(src)
+        fn = np.arange(-n_max, n_max + 1) / period_nm
+        fx = fn[None, :] + pts[:, 0:1] * optics.cutoff
+        fy = np.broadcast_to(pts[:, 1:2] * optics.cutoff, fx.shape)
+        f2 = fx * fx + fy * fy
+        self.inside = f2 <= optics.cutoff**2 * (1.0 + 1e-12)  # as pupil() decides
+        self.root_w = np.broadcast_to(np.sqrt(w)[:, None], fx.shape)[self.inside]
+        n_over_l = optics.n_medium / optics.wavelength_nm
+        self.kz = np.sqrt(np.maximum(n_over_l**2 - f2[self.inside], 0.0)) - n_over_l
+
+    def amplitudes(self, defocus_nm: float) -> np.ndarray:
+        """``A[s, n]`` at ``defocus_nm``: the same values as ``pupil`` gives."""
+        a = np.zeros(self.inside.shape, dtype=np.complex128)
+        if defocus_nm:
+            a[self.inside] = self.root_w * np.exp(2j * np.pi * defocus_nm * self.kz)
+        else:
+            a[self.inside] = self.root_w
+        return a
+
+
 class CoherentSystems:
     """Hopkins imaging for one period and focus, as a sum of coherent systems.
 
@@ -188,13 +239,22 @@ class CoherentSystems:
         defocus_nm: float = 0.0,
         keep: float = SOCS_KEEP,
     ):
-        pts, w = src
+        self._decompose(PupilFrame(optics, src, period_nm, n_max), period_nm, n_max,
+                        defocus_nm, keep)  # fmt: skip
+
+    @classmethod
+    def from_frame(cls, frame: PupilFrame, period_nm: float, n_max: int, defocus_nm: float = 0.0,
+                   keep: float = SOCS_KEEP) -> CoherentSystems:  # fmt: skip
+        """The systems at one focus from a :class:`PupilFrame` kept for several."""
+        out = object.__new__(cls)
+        out._decompose(frame, period_nm, n_max, defocus_nm, keep)
+        return out
+
+    def _decompose(self, frame: PupilFrame, period_nm: float, n_max: int, defocus_nm: float,
+                   keep: float) -> None:  # fmt: skip
         self.period_nm = period_nm
         self.n_max = n_max
-        fn = np.arange(-n_max, n_max + 1) / period_nm
-        fx = fn[None, :] + pts[:, 0:1] * optics.cutoff
-        fy = np.broadcast_to(pts[:, 1:2] * optics.cutoff, fx.shape)
-        a = np.sqrt(w)[:, None] * pupil(fx, fy, optics, defocus_nm)  # (S, N)
+        a = frame.amplitudes(defocus_nm)  # (S, N)
         # TCC = A^H A (N x N, Hermitian) = V diag(ev) V^H; the kernels are the
         # rows of V^H.  (An SVD of A gives the same but was measured up to 100x
         # slower on these mostly-zero matrices with the machine's LAPACK.)
@@ -205,6 +265,19 @@ class CoherentSystems:
         kept = ev >= keep * (ev[0] if len(ev) and ev[0] > 0 else 1.0)
         self.eigenvalues = ev[kept]
         self.kernels = v[:, kept].conj().T  # (K, N): field_k = sum_n kernels[k, n] c_n e_n(x)
+
+    def through_opposite_focus(self) -> CoherentSystems:
+        """The systems at minus this focus, without a new TCC.
+
+        The defocus phase is odd in focus and the rest of ``A`` is real, so
+        ``A(-z) = conj(A(z))`` and ``TCC(-z) = conj(TCC(z))``: the same
+        eigenvalues, conjugate kernels.
+        """
+        other = object.__new__(CoherentSystems)
+        other.period_nm, other.n_max = self.period_nm, self.n_max
+        other.eigenvalues = self.eigenvalues
+        other.kernels = self.kernels.conj()
+        return other
 
     def field_coefficients(self, spectra: np.ndarray) -> np.ndarray:
         """``(K, m, N)`` Fourier coefficients of each kernel's field."""

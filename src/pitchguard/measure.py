@@ -20,6 +20,7 @@ from pitchguard.deck import Exposure, LayerRule
 from pitchguard.image import (
     CoherentSystems,
     Optics,
+    PupilFrame,
     grating_spectrum,
     mask_amplitudes,
     n_orders,
@@ -83,10 +84,20 @@ def samples_for(period_nm: float, n_max: int, optics: Optics) -> int:
     return 1 << (need - 1).bit_length()
 
 
+@lru_cache(maxsize=64)
+def _frame(exposure: Exposure, angle_deg: float, period_nm: float, n_max: int) -> PupilFrame:
+    return PupilFrame(Optics.of(exposure), source_points(exposure, angle_deg), period_nm, n_max)
+
+
 @lru_cache(maxsize=512)
 def _systems(exposure: Exposure, angle_deg: float, period_nm: float, n_max: int, focus_nm: float):
-    optics = Optics.of(exposure)
-    return CoherentSystems(optics, source_points(exposure, angle_deg), period_nm, n_max, focus_nm)
+    """The imaging systems at one focus.  Those at ``-z`` are the conjugates of
+    those at ``+z`` (:meth:`CoherentSystems.through_opposite_focus`): a deck's
+    focus values mostly come in such pairs, and each pair costs one TCC."""
+    if focus_nm < 0:
+        return _systems(exposure, angle_deg, period_nm, n_max, -focus_nm).through_opposite_focus()
+    return CoherentSystems.from_frame(_frame(exposure, angle_deg, period_nm, n_max), period_nm,
+                                      n_max, focus_nm)  # fmt: skip
 
 
 def anchor_threshold(rule: LayerRule) -> float | None:

@@ -660,3 +660,55 @@ def test_image_everywhere_below_the_threshold_bridges_a_dark_line(case):
                  p / 2, threshold, CD_TOL, EL_MIN_PCT)  # fmt: skip
     assert m.bridged
     assert not m.lost
+
+
+# --------------------------------------------------------------------------- shortcuts, checked
+
+def test_mirror_merged_source_gives_the_reference_images():
+    """A 1-D mask's image depends on a source point's sy only as sy^2 (the scalar
+    pupil is round: Goodman), so mirror pairs merge: half the points for the
+    symmetric sources, the Abbe sum over every point (unmerged) as reference,
+    at focus and defocused, for pitch directions 0, 30 and 90 degrees."""
+    from pitchguard.image import merge_mirrored
+
+    samples = 128
+    for illum, pitch_nm in ((ANNULAR_06_09, 100.0), (DIPOLE_X, 95.0), (QUADRUPOLE, 130.0)):
+        e = exposure(illum, ARF_NM, 1.35, 1.44)
+        optics = Optics.of(e)
+        for angle in (0.0, 30.0, 90.0):
+            src = source_points(e, angle)
+            merged, weights = merge_mirrored(src)
+            assert abs(weights.sum() - src[1].sum()) < 1e-12
+            if angle in (0.0, 90.0):  # these sources are mirror-symmetric about both axes
+                assert len(merged) <= len(src[0]) // 2 + 50
+            n_max = n_orders(pitch_nm, optics, e.sigma_max)
+            spec = grating_spectrum(pitch_nm, pitch_nm * 0.45, 1.0, 0.0, n_max)
+            x = grid(pitch_nm, samples)
+            for z in (0.0, 60.0):
+                socs = CoherentSystems(optics, src, pitch_nm, n_max, z).image(spec, samples)[0]
+                abbe = abbe_image(spec, pitch_nm, optics, src, z, x)
+                assert np.max(np.abs(socs - abbe)) < ENGINE_AGREEMENT
+
+
+def test_systems_at_minus_focus_are_the_conjugates_and_image_as_the_reference():
+    """A(-z) = conj(A(z)) (the defocus phase is odd in z, the rest is real), so the
+    scan's cache makes -z from +z; its images must equal the Abbe sum at -z.
+    One line is phase-shifted by 90 degrees: with a real mask and a symmetric
+    source the image is the same at +z and -z (common practice), which would
+    not tell the two apart."""
+    from pitchguard.measure import _systems
+
+    e = exposure(ANNULAR_06_09, ARF_NM, 1.35, 1.44)
+    optics = Optics.of(e)
+    pitch_nm = 180.0
+    n_max = n_orders(pitch_nm, optics, e.sigma_max)
+    edges = np.array([-90.0, -60.0, -20.0, 35.0, 90.0])  # two lines of unequal width
+    spec = segment_spectrum(pitch_nm, edges, np.array([0.0, 1.0, 0.0, 1.0j]), n_max)
+    src = source_points(e, 0.0)
+    samples = 128
+    x = grid(pitch_nm, samples)
+    plus = _systems(e, 0.0, pitch_nm, n_max, 80.0).image(spec, samples)[0]
+    minus = _systems(e, 0.0, pitch_nm, n_max, -80.0).image(spec, samples)[0]
+    assert np.max(np.abs(plus - minus)) > 100 * ENGINE_AGREEMENT  # a real difference
+    assert np.max(np.abs(minus - abbe_image(spec, pitch_nm, optics, src, -80.0, x))) < ENGINE_AGREEMENT
+    assert np.max(np.abs(plus - abbe_image(spec, pitch_nm, optics, src, 80.0, x))) < ENGINE_AGREEMENT
