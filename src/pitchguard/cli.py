@@ -182,7 +182,8 @@ def _add_outputs(p) -> None:
     p.add_argument("--jobs", "-j", type=_positive_int, default=None, metavar="N",
                    help="local worker processes for the tiles (default: all cores)")
     p.add_argument("--tile-um", type=_positive_float, default=None, metavar="UM",
-                   help="tile size, a multiple of 10 (default: from --max-memory-mb)")
+                   help="tile size, rounded up to a multiple of 10 (default: chosen from the "
+                   "layout's arrays and --max-memory-mb)")
     p.add_argument("--max-memory-mb", type=_positive_int, default=None, metavar="MB",
                    help="memory for the scan's processes together; picks the tile size "
                    "and may use fewer workers (default: 2048 per worker)")  # fmt: skip
@@ -211,7 +212,14 @@ def _check_outputs(args, inputs: list[Path]) -> None:
         raise PitchguardError(f"{args.markers}: marker file must end in .gds or .oas")
 
 
+def _note(console, text: str) -> None:
+    """Advice on stderr, one line (above a progress bar, if one is shown)."""
+    console.print(f"pitchguard: note: {text}", soft_wrap=True, markup=False, highlight=False)
+
+
 def _run_scan(args, deck, layout: Path, label: str = ""):
+    from functools import partial
+
     from rich.console import Console
 
     from pitchguard.layout import DEFAULT_MAX_SHAPES
@@ -240,6 +248,7 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
                 cell=args.cell, progress=update, region_um=getattr(args, "region", None),
                 max_shapes=args.max_shapes or DEFAULT_TILED_MAX_SHAPES,
                 read_timeout_s=args.read_timeout, max_memory_mb=args.max_memory_mb,
+                note=None if args.quiet else partial(_note, err),
             )  # fmt: skip
         return scan_layout(
             layout, deck, cell=args.cell, region_um=getattr(args, "region", None),
@@ -656,6 +665,7 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _stopped(code: int) -> int:
+    request_stop(None)  # honoured: main's last check_stop must not report it again
     what = "interrupted" if code == 130 else "terminated"
     print(f"pitchguard: {what}; no output was left half-written", file=sys.stderr)
     return code

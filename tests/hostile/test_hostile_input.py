@@ -326,6 +326,7 @@ def test_stopped_scans_exit_cleanly_at_any_stage(tmp_path, deck, sig, delay_s, c
     _, err = proc.communicate(timeout=60)
     assert proc.returncode == code, err
     assert word in err and "Traceback" not in err
+    assert err.count("no output was left half-written") == 1, err  # once printed twice
     assert not out.exists()
 
 
