@@ -303,6 +303,11 @@ def fingerprints(findings: Sequence[Finding]) -> list[str]:
 
 # ------------------------------------------------------------------- SARIF
 
+SERVICE_RESULTS_MAX = 25_000
+"""Results per run a code-scanning service accepts: GitHub's documented hard
+limit ("Results per run: 25,000", GitHub Docs, SARIF results exceed limits).
+A file with more is still valid SARIF; the command says so when it writes one."""
+
 
 def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
              lazy: bool = False) -> dict:  # fmt: skip

@@ -261,6 +261,8 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
 
 
 def _write_outputs(args, result, deck, inputs, extra_json: dict | None = None) -> None:
+    from rich.console import Console
+
     from pitchguard.report import to_json, write_json, write_markers
 
     if args.json is not None:
@@ -271,9 +273,15 @@ def _write_outputs(args, result, deck, inputs, extra_json: dict | None = None) -
     if args.markers is not None:
         write_markers(args.markers, result, deck, inputs)
     if args.sarif is not None:
-        from pitchguard.ci_formats import write_sarif
+        from pitchguard.ci_formats import SERVICE_RESULTS_MAX, write_sarif
 
         write_sarif(args.sarif, result, deck, result.layout.path, args.fail_on, inputs)
+        if len(result.findings) > SERVICE_RESULTS_MAX:  # also with --quiet: CI logs need it
+            _note(Console(stderr=True), (
+                f"{args.sarif} holds {len(result.findings):,} results; code-scanning services "
+                f"take at most {SERVICE_RESULTS_MAX:,} per run (GitHub's documented limit): "
+                "upload the SARIF of a scan gated by --baseline (new findings only) or of a "
+                "--region"))  # fmt: skip
     if args.junit is not None:
         from pitchguard.ci_formats import write_junit
 

@@ -466,3 +466,24 @@ def test_writers_write_atomically_and_refuse_inputs(demo, tmp_path, validator):
     with pytest.raises(OutputError):
         write_junit(DEMO_GDS, result, deck, "fail")
     assert DEMO_DECK.read_bytes() == before
+
+
+def test_a_sarif_too_big_for_code_scanning_services_gets_a_note(tmp_path, monkeypatch, capsys):
+    """GitHub's code scanning rejects a run of more than 25,000 results (GitHub Docs,
+    "SARIF results exceed limits": hard limit, results per run).  A full chip can
+    have far more; the file is still written (valid SARIF), and the command says
+    so on stderr, with --quiet too (CI runs quiet).  The limit is lowered here to
+    the demo chip's 19 findings."""
+    import pitchguard.ci_formats as ci
+    from pitchguard.cli import main
+
+    assert ci.SERVICE_RESULTS_MAX == 25_000
+    out = tmp_path / "demo.sarif"
+    args = ["scan", str(DEMO_GDS), "--rules", str(DEMO_DECK), "--sarif", str(out), "-q"]
+    assert main(args) == 1
+    assert "code-scanning services" not in capsys.readouterr().err
+    monkeypatch.setattr(ci, "SERVICE_RESULTS_MAX", 18)
+    assert main(args) == 1
+    err = capsys.readouterr().err
+    assert err.count("holds 19 results; code-scanning services take at most 18") == 1, err
+    assert len(json.loads(out.read_text(encoding="utf-8"))["runs"][0]["results"]) == 19
