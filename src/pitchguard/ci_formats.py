@@ -43,11 +43,12 @@ JUnit XML
 from __future__ import annotations
 
 import hashlib
+import json
 import math
 import re
 import urllib.parse
 import xml.etree.ElementTree as ET
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from pathlib import Path
 
 import numpy as np
@@ -55,7 +56,18 @@ import numpy as np
 from pitchguard import __version__
 from pitchguard.classify import CHECKS, Finding, FindingSet
 from pitchguard.deck import SEVERITIES, Deck
-from pitchguard.report import CAUTION, Rows, atomic_write, exit_code, finding_to_dict, write_json
+from pitchguard.report import (
+    CAUTION,
+    PlacedRows,
+    Rows,
+    atomic_write,
+    exit_code,
+    finding_to_dict,
+    hole,
+    placed_fields,
+    placed_numbers,
+    write_json,
+)
 from pitchguard.scan import ScanResult
 
 SARIF_VERSION = "2.1.0"
@@ -222,16 +234,26 @@ def _um(x: float) -> str:
 
 
 def _where(f: Finding) -> str:
-    cx, cy = f.centre_um
-    return f"({_um(cx)}, {_um(cy)}) um"
+    return _where_text(f.centre_um)
 
 
-def describe(f: Finding) -> str:
-    """One sentence a designer can act on: layer, place, pitch, what tripped, the fix."""
-    x0, y0, x1, y1 = (_um(v) for v in f.bbox_um)
+def _where_text(centre_um) -> str:
+    return f"({_um(centre_um[0])}, {_um(centre_um[1])}) um"
+
+
+def _box_text(bbox_um) -> str:
+    x0, y0, x1, y1 = (_um(v) for v in bbox_um)
+    return f"{x0}, {y0} to {x1}, {y1}"
+
+
+def describe(f: Finding, holes: bool = False) -> str:
+    """One sentence a designer can act on: layer, place, pitch, what tripped, the fix.
+    With ``holes`` the place is left as markers (see report.PlacedRows)."""
+    where = hole("where", in_text=True) if holes else _where(f)
+    box = hole("box", in_text=True) if holes else _box_text(f.bbox_um)
     return (
         f"{f.severity} on layer {f.layer} ({f.source}): region centred at "
-        f"{_where(f)} (box {x0}, {y0} to {x1}, {y1} um), "
+        f"{where} (box {box} um), "
         f"{f.lines} lines ({f.periodicity}) running at {f.orientation_deg:g} deg, "
         f"pitch {_nm(f.pitch_nm)} nm (width {_nm(f.width_nm)} / space {_nm(f.space_nm)} nm), "
         f"k1 {f.k1:.3f}. {f.check}: {f.message}. Fix: {f.hint}."
@@ -326,8 +348,10 @@ def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
     fps = fingerprints(result.findings)
     rule_index = {c: k for k, c in enumerate(checks)}
 
-    def result_of(k: int) -> dict:
-        f, fp = result.findings[k], fps[k]
+    def result_of(k: int, f: Finding | None = None, holes: bool = False) -> dict:
+        if f is None:
+            f = result.findings[k]
+        fp = hole("fp") if holes else fps[k]
         # Logical locations.  A cell is a named, self-contained unit of design that
         # other cells instantiate, the layout's counterpart of a code module: kind
         # "module".  A layer is a part of every cell (the shapes drawn on it), as a
@@ -342,14 +366,14 @@ def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
             "kind": "member",
         }
         logical.append(layer_loc)
-        props = finding_to_dict(f)
+        props = finding_to_dict(f, holes)
         props["fail_on"] = fail_on
         props["at_or_above_fail_on"] = _at_or_above(f, fail_on)
         return {
             "ruleId": f.check,
             "ruleIndex": rule_index[f.check],
             "level": LEVEL[f.severity],
-            "message": {"text": describe(f)},
+            "message": {"text": describe(f, holes)},
             "locations": [{
                 "physicalLocation": {"artifactLocation": {"uri": uri}},
                 "logicalLocations": logical,
@@ -358,7 +382,22 @@ def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
             "properties": props,
         }  # fmt: skip
 
-    rows = Rows(range(len(result.findings)), result_of)
+    rows: Rows
+    if isinstance(result.findings, FindingSet):
+        fs_ = result.findings
+
+        def fill(k: int, f: Finding, dx: float, dy: float) -> dict[str, str]:
+            numbers = placed_numbers(f, dx, dy)
+            out = placed_fields(f, dx, dy, numbers)
+            out["where"] = _where_text(numbers[1])
+            out["box"] = _box_text(numbers[0])
+            out["fp"] = json.dumps(fps[k])
+            return out
+
+        rows = PlacedRows(fs_, result_of, lambda d: result_of(-1, fs_.distinct[d], holes=True),
+                          fill)  # fmt: skip
+    else:
+        rows = Rows(range(len(result.findings)), result_of)
     results = rows if lazy else list(rows)
     run_props = {
         "caution": CAUTION,
@@ -424,10 +463,29 @@ def _x(text: str) -> str:
     return _XML_BAD.sub("", str(text))
 
 
-def finding_line(f: Finding) -> str:
+_WHERE = "\ue000where\ue000"
+"""Marks the place in a text made once per distinct finding (a private-use
+character: XML holds it as it is, and no layer or message uses it)."""
+
+
+def _placed_texts(fs: FindingSet, make) -> Iterator[str]:
+    """``make(f, where)`` for each item of ``fs``: made once per distinct finding with
+    the place marked, then the place of each item put in (the same text as
+    ``make`` of the moved finding and its ``_where``, at a fraction of the cost)."""
+    made: dict[int, list[str]] = {}
+    for d, (dx, dy) in zip(fs.which.tolist(), fs.offset.tolist(), strict=True):
+        parts = made.get(d)
+        if parts is None:
+            parts = made[d] = make(fs.distinct[d], _WHERE).split(_WHERE)
+        where = _where_text(placed_numbers(fs.distinct[d], dx, dy)[1])
+        yield where.join(parts)
+
+
+def finding_line(f: Finding, where: str | None = None) -> str:
     """One line per finding: severity, location, pitch, message, hint."""
     return (
-        f"{f.severity} | {f.layer} ({f.source}) at {_where(f)} | pitch {_nm(f.pitch_nm)} nm "
+        f"{f.severity} | {f.layer} ({f.source}) at {where or _where(f)} | "
+        f"pitch {_nm(f.pitch_nm)} nm "
         f"(width {_nm(f.width_nm)} / space {_nm(f.space_nm)} nm, k1 {f.k1:.3f}, {f.lines} lines) "
         f"| {f.message} | fix: {f.hint}"
     )
@@ -485,26 +543,34 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
             if len(failing):
                 tests += len(failing)
                 failures += len(failing)
-                suite_out.extend(finding_line(f) for f in below)
+                suite_out.extend(_placed_texts(below, finding_line))
             else:
                 tests += 1
 
-        def testcases(plan=plan, name=name):
+        def failing_case(f: Finding, where: str, name=name) -> ET.Element:
+            case = ET.Element("testcase", classname=_x(f"pitchguard.{name}.{f.check}"),
+                              name=_x(f"{f.check} at {where}"), time="0")  # fmt: skip
+            fail = ET.SubElement(case, "failure", message=_x(f.message), type=f.check)
+            fail.text = _x(finding_line(f, where))
+            return case
+
+        def testcases(plan=plan, name=name, texts=False, failing_case=failing_case):
+            """The suite's test cases; with ``texts`` as indented XML text (level 2)."""
             for check, failing, below in plan:
                 if len(failing):
-                    for f in failing:
-                        case = ET.Element("testcase", classname=_x(f"pitchguard.{name}.{check}"),
-                                          name=_x(f"{check} at {_where(f)}"), time="0")  # fmt: skip
-                        fail = ET.SubElement(case, "failure", message=_x(f.message), type=check)
-                        fail.text = _x(finding_line(f))
-                        yield case
+                    if texts:
+                        yield from _placed_texts(failing,
+                                                 lambda f, w: _piece(failing_case(f, w), 2))
+                    else:
+                        yield from (failing_case(f, _where(f)) for f in failing)
+                    continue
                 else:
                     case = ET.Element("testcase", classname=_x(f"pitchguard.{name}"), name=check,
                                       time="0")  # fmt: skip
                     if len(below):
                         out = ET.SubElement(case, "system-out")
-                        out.text = _x("\n".join(finding_line(f) for f in below))
-                    yield case
+                        out.text = _x("\n".join(_placed_texts(below, finding_line)))
+                    yield _piece(case, 2) if texts else case
 
         attrs = {"name": _x(f"pitchguard.{name}"), "tests": str(tests),
                  "failures": str(failures), "errors": "0", "skipped": "0",
@@ -589,8 +655,8 @@ def write_junit(
             for attrs, props, testcases, suite_out in suites:
                 fh.write("  " + _start_tag("testsuite", attrs) + "\n")
                 fh.write(_piece(_properties(props), 2))
-                for case in testcases():
-                    fh.write(_piece(case, 2))
+                for text in testcases(texts=True):
+                    fh.write(text)
                 if suite_out:
                     fh.write(_piece(_suite_out(suite_out), 2))
                 fh.write("  </testsuite>\n")
