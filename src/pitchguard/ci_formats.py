@@ -50,6 +50,7 @@ import urllib.parse
 import xml.etree.ElementTree as ET
 from collections.abc import Iterator, Sequence
 from pathlib import Path
+from xml.sax.saxutils import escape
 
 import numpy as np
 
@@ -294,7 +295,7 @@ def fingerprint_base(f: Finding) -> str:
     return hashlib.sha256(key.encode("utf-8")).hexdigest()[:32]
 
 
-def fingerprints(findings: Sequence[Finding]) -> list[str]:
+def fingerprints(findings: Sequence[Finding], compact: bool = False) -> Sequence[str]:
     """Stable fingerprint per finding: base hash plus ``:n``, the occurrence among equals.
 
     Equal base hashes are numbered in order of position (lower-left corner,
@@ -306,6 +307,7 @@ def fingerprints(findings: Sequence[Finding]) -> list[str]:
     n = len(fs)
     if n == 0:
         return []
+    # ``compact``: the same texts, made when read (see _Fingerprints).
     names: dict[str, int] = {}
     d_base = np.array([names.setdefault(fingerprint_base(f), len(names)) for f in fs.distinct],
                       dtype=np.int64)  # fmt: skip
@@ -317,10 +319,30 @@ def fingerprints(findings: Sequence[Finding]) -> list[str]:
     first = np.r_[True, sorted_base[1:] != sorted_base[:-1]]
     occurrence = np.arange(n) - np.maximum.accumulate(np.where(first, np.arange(n), 0)) + 1
     text = list(names)
+    if compact:
+        item_occ = np.empty(n, dtype=np.int64)
+        item_occ[order] = occurrence
+        return _Fingerprints(text, base, item_occ)
     out = [""] * n
     for i, b, k in zip(order.tolist(), sorted_base.tolist(), occurrence.tolist(), strict=True):
         out[i] = f"{text[b]}:{k}"
     return out
+
+
+class _Fingerprints(Sequence):
+    """:func:`fingerprints` as columns (base hash and occurrence per finding), each
+    text made when read: a chip's 10^5-10^6 strings are not all held at once."""
+
+    def __init__(self, text: list[str], base: np.ndarray, occurrence: np.ndarray):
+        self.text, self.base, self.occurrence = text, base, occurrence
+
+    def __len__(self) -> int:
+        return len(self.base)
+
+    def __getitem__(self, k):
+        if isinstance(k, slice):
+            return [self[i] for i in range(*k.indices(len(self)))]
+        return f"{self.text[self.base[k]]}:{self.occurrence[k]}"
 
 
 # ------------------------------------------------------------------- SARIF
@@ -345,7 +367,7 @@ def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
     rules = [_rule(c) for c in checks]
     uri = _artifact_uri(layout_path)
     cells = list(result.layout.cells) if result.layout else []
-    fps = fingerprints(result.findings)
+    fps = fingerprints(result.findings, compact=lazy)
     rule_index = {c: k for k, c in enumerate(checks)}
 
     def result_of(k: int, f: Finding | None = None, holes: bool = False) -> dict:
@@ -534,7 +556,7 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
         ]  # fmt: skip
         plan = []
         tests = failures = 0
-        suite_out: list[str] = []
+        suite_out: list[FindingSet] = []  # findings below fail_on of failing pairs
         for check in checks:
             found = by_key.get((name, check), np.zeros(0, dtype=np.int64))
             at_or_above = item_rank[found] <= limit
@@ -543,7 +565,8 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
             if len(failing):
                 tests += len(failing)
                 failures += len(failing)
-                suite_out.extend(_placed_texts(below, finding_line))
+                if len(below):
+                    suite_out.append(below)
             else:
                 tests += 1
 
@@ -592,9 +615,14 @@ def _properties(props: list) -> ET.Element:
     return el
 
 
-def _suite_out(lines: list[str]) -> ET.Element:
+def _suite_lines(suite_out: list[FindingSet]) -> Iterator[str]:
+    for below in suite_out:
+        yield from _placed_texts(below, finding_line)
+
+
+def _suite_out(suite_out: list[FindingSet]) -> ET.Element:
     el = ET.Element("system-out")
-    el.text = _x("\n".join(lines))
+    el.text = _x("\n".join(_suite_lines(suite_out)))
     return el
 
 
@@ -657,8 +685,11 @@ def write_junit(
                 fh.write(_piece(_properties(props), 2))
                 for text in testcases(texts=True):
                     fh.write(text)
-                if suite_out:
-                    fh.write(_piece(_suite_out(suite_out), 2))
+                if suite_out:  # a line at a time, as _piece(_suite_out(suite_out), 2) writes it
+                    fh.write("    <system-out>")
+                    for k, line in enumerate(_suite_lines(suite_out)):
+                        fh.write(("\n" if k else "") + escape(_x(line)))
+                    fh.write("</system-out>\n")
                 fh.write("  </testsuite>\n")
             fh.write("</testsuites>\n")
 

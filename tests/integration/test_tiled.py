@@ -226,7 +226,7 @@ def test_reports_of_repeated_findings_equal_those_of_the_same_findings_listed(tm
     findings as a plain list (each finding made and written whole)."""
     import dataclasses
 
-    from pitchguard.ci_formats import write_junit, write_sarif
+    from pitchguard.ci_formats import to_junit, write_junit, write_sarif
     from pitchguard.classify import FindingSet
     from pitchguard.report import to_json, write_json
 
@@ -256,6 +256,7 @@ def test_reports_of_repeated_findings_equal_those_of_the_same_findings_listed(tm
         b_text = (tmp_path / f"list.{ext}").read_text(encoding="utf-8")
         assert a_text == b_text, ext
     junit = (tmp_path / "set.xml").read_text(encoding="utf-8")
+    assert junit == to_junit(tiled, deck, fail_on)  # streamed = built as one tree
     assert junit.count("<failure") == sum(f.severity_rank <= (0 if fail_on == "fail" else 1)
                                           for f in fs)  # fmt: skip
     assert "marginal | " in junit  # findings below fail_on, listed in system-out
