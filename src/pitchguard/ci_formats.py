@@ -63,6 +63,7 @@ from pitchguard.report import (
     Rows,
     atomic_write,
     exit_code,
+    fill_templates,
     finding_to_dict,
     hole,
     placed_fields,
@@ -494,13 +495,12 @@ def _placed_texts(fs: FindingSet, make) -> Iterator[str]:
     """``make(f, where)`` for each item of ``fs``: made once per distinct finding with
     the place marked, then the place of each item put in (the same text as
     ``make`` of the moved finding and its ``_where``, at a fraction of the cost)."""
-    made: dict[int, list[str]] = {}
-    for d, (dx, dy) in zip(fs.which.tolist(), fs.offset.tolist(), strict=True):
-        parts = made.get(d)
-        if parts is None:
-            parts = made[d] = make(fs.distinct[d], _WHERE).split(_WHERE)
-        where = _where_text(placed_numbers(fs.distinct[d], dx, dy)[1])
-        yield where.join(parts)
+    def split(d: int) -> list[str]:
+        texts = make(fs.distinct[d], _WHERE).split(_WHERE)
+        return [p for t in texts for p in (t, "where")][:-1]
+
+    return fill_templates(fs, split, lambda k, f, dx, dy: {
+        "where": _where_text(placed_numbers(f, dx, dy)[1])})  # fmt: skip
 
 
 def finding_line(f: Finding, where: str | None = None) -> str:
@@ -586,7 +586,6 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
                                                  lambda f, w: _piece(failing_case(f, w), 2))
                     else:
                         yield from (failing_case(f, _where(f)) for f in failing)
-                    continue
                 else:
                     case = ET.Element("testcase", classname=_x(f"pitchguard.{name}"), name=check,
                                       time="0")  # fmt: skip

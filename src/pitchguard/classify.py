@@ -135,16 +135,26 @@ class Finding:
 
     @property
     def bbox_um(self) -> tuple[float, float, float, float]:
-        return tuple(round(v / 1000.0, 6) for v in self.bbox_nm)
+        return box_um(self.bbox_nm)
 
     @property
     def centre_um(self) -> tuple[float, float]:
-        x0, y0, x1, y1 = self.bbox_um
-        return (round((x0 + x1) / 2, 4), round((y0 + y1) / 2, 4))
+        return centre_um(self.bbox_um)
 
     @property
     def severity_rank(self) -> int:
         return SEVERITIES.index(self.severity)
+
+
+def box_um(bbox_nm) -> tuple[float, float, float, float]:
+    """A box in nm as reports give it: um, to the 0.001 nm the layout can hold."""
+    return tuple(round(v / 1000.0, 6) for v in bbox_nm)
+
+
+def centre_um(bbox_um) -> tuple[float, float]:
+    """The centre of a box in um (:func:`box_um`), as reports give it."""
+    x0, y0, x1, y1 = bbox_um
+    return (round((x0 + x1) / 2, 4), round((y0 + y1) / 2, 4))
 
 
 def finding_copier(changed: tuple[str, ...]):

@@ -201,8 +201,7 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float,
     findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile), tile=True)
     # Findings with no site near the border are final here: what only served a
     # merge is dropped before they travel (half the bytes of such findings).
-    findings = [f if f.border_sites is not None and len(f.border_sites) else _final(f)
-                for f in findings]  # fmt: skip
+    findings = [f if _on_border(f) else _final(f) for f in findings]
     return findings, stats, take_imaged()
 
 
@@ -387,7 +386,7 @@ def tile_advice(st: Structure, halo_nm: float, tile_nm: float, jobs: int,
         return None
     auto_nm, _ = plan_tiles(st, halo_nm, jobs, max_memory_mb, None, distributed)
     ratio = _tile_work(st, tile_nm, halo_nm) / max(_tile_work(st, auto_nm, halo_nm), 1e-9)
-    if ratio < TILE_ADVICE_RATIO or auto_nm == tile_nm:
+    if ratio < TILE_ADVICE_RATIO:
         return None
     asked = ""
     if tile_um is not None and abs(tile_um * 1000.0 - tile_nm) > 1e-6:
@@ -671,10 +670,10 @@ class _Assembly:
 
     def add(self, g: int, result) -> None:
         fs, stats = result
-        # Only findings with sites near a tile's border can join other tiles'.
-        self.inner[g] = [_final(f) for f in fs
-                         if f.border_sites is None or not len(f.border_sites)]  # fmt: skip
-        self.reps[g] = [f for f in fs if f.border_sites is not None and len(f.border_sites)]
+        # Only findings with sites near a tile's border can join other tiles'; the
+        # others came final from tile_task.
+        self.inner[g] = [f for f in fs if not _on_border(f)]
+        self.reps[g] = [f for f in fs if _on_border(f)]
         self.stats[g] = stats
 
     def finish(self, deck: Deck, grid_nm: float) -> tuple[FindingSet, list]:
@@ -788,6 +787,11 @@ def _kinds(inside: np.ndarray, sizes: np.ndarray, which: np.ndarray, off: np.nda
         first_group.extend(sel[first[by_first]].tolist())
     moved = at - at[np.array(first_group, dtype=np.int64)[kind]] if n else np.zeros((0, 2))
     return kind, moved, [inside[start[i] : start[i] + sizes[i]] for i in first_group]
+
+
+def _on_border(f: Finding) -> bool:
+    """Has sites near its tile's border (it may join other tiles' findings)."""
+    return f.border_sites is not None and len(f.border_sites) > 0
 
 
 def _final(f: Finding) -> Finding:

@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from pitchguard import __version__
-from pitchguard.classify import Finding, FindingSet
+from pitchguard.classify import Finding, FindingSet, box_um, centre_um
 from pitchguard.deck import SEVERITIES, Deck
 from pitchguard.errors import EXIT_FINDINGS, EXIT_OK, OutputError, check_stop
 from pitchguard.scan import ScanResult
@@ -93,10 +93,8 @@ def finding_to_dict(f: Finding, holes: bool = False) -> dict:
         bbox, centre, outline = hole("bbox_um"), hole("centre_um"), hole("outline_um")
         origin = hole("origin_um")
     else:
-        bbox, centre = _nums(f.bbox_um), _nums(f.centre_um)
-        outline = [[_num(round(x / 1000.0, 6)), _num(round(y / 1000.0, 6))]
-                   for x, y in f.outline_nm]  # fmt: skip
-        origin = [_num(f.cut_origin_nm[0] / 1000.0), _num(f.cut_origin_nm[1] / 1000.0)]
+        b, c, points, o = placed_numbers(f, 0.0, 0.0)
+        bbox, centre, outline, origin = _nums(b), _nums(c), [_nums(p) for p in points], _nums(o)
     return {
         "layer": f.layer,
         "source": f.source,
@@ -288,13 +286,17 @@ def _j(x: float) -> str:
 def placed_numbers(f: Finding, dx: float, dy: float) -> tuple:
     """``(bbox_um, centre_um, outline_um, cut origin um)`` of distinct finding ``f``
     moved by ``(dx, dy)`` nm: the same arithmetic and rounding as building the
-    moved finding (``FindingSet`` items) and reading its fields."""
-    x0, y0, x1, y1 = f.bbox_nm
-    b = [round(v / 1000.0, 6) for v in (x0 + dx, y0 + dy, x1 + dx, y1 + dy)]
-    centre = (round((b[0] + b[2]) / 2, 4), round((b[1] + b[3]) / 2, 4))
-    outline = [(round((x + dx) / 1000.0, 6), round((y + dy) / 1000.0, 6)) for x, y in f.outline_nm]
-    cx, cy = f.cut_origin_nm
-    return b, centre, outline, ((cx + dx) / 1000.0, (cy + dy) / 1000.0)
+    moved finding (``FindingSet`` items, which are ``f`` itself at no offset:
+    ``-0.0 + 0.0`` would lose a sign) and reading its fields."""
+    bbox, outline, (cx, cy) = f.bbox_nm, f.outline_nm, f.cut_origin_nm
+    if dx != 0.0 or dy != 0.0:
+        x0, y0, x1, y1 = bbox
+        bbox = (x0 + dx, y0 + dy, x1 + dx, y1 + dy)
+        outline = [(x + dx, y + dy) for x, y in outline]
+        cx, cy = cx + dx, cy + dy
+    b = box_um(bbox)
+    points = [(round(x / 1000.0, 6), round(y / 1000.0, 6)) for x, y in outline]
+    return b, centre_um(b), points, (cx / 1000.0, cy / 1000.0)
 
 
 def placed_fields(f: Finding, dx: float, dy: float, numbers=None) -> dict[str, str]:
@@ -328,22 +330,35 @@ class PlacedRows(Rows):
         self.findings, self.template, self.fill = findings, template, fill
 
     def texts(self, one):
-        fs = self.findings
-        made: dict[int, list] = {}
-        chunk = 4096
-        for c in range(0, len(fs.which), chunk):
-            which = fs.which[c : c + chunk].tolist()
-            offsets = fs.offset[c : c + chunk].tolist()
-            for k, d, (dx, dy) in zip(range(c, c + len(which)), which, offsets, strict=True):
-                parts = made.get(d)
-                if parts is None:
-                    parts = made[d] = _HOLES.split(one(self.template(d)))
-                values = self.fill(k, fs.distinct[d], dx, dy)
-                out = [parts[0]]
-                for i in range(1, len(parts), 3):
-                    out.append(values[parts[i] or parts[i + 1]])
-                    out.append(parts[i + 2])
-                yield "".join(out)
+        def split(d: int) -> list[str]:
+            parts = _HOLES.split(one(self.template(d)))  # text, name | None, None | name, ...
+            return [p if k % 3 == 0 else parts[k] or parts[k + 1]
+                    for k, p in enumerate(parts) if k % 3 != 2]  # fmt: skip
+
+        return fill_templates(self.findings, split, self.fill)
+
+
+def fill_templates(fs: FindingSet, split, fill):
+    """For each item ``k`` of ``fs``: the text ``split(d)`` of its distinct finding
+    ``d`` (made once per distinct finding: ``[text, name, text, name, ..., text]``)
+    with each name replaced by ``fill(k, f, dx, dy)[name]``, ``f`` the distinct
+    finding and ``(dx, dy)`` the item's offset."""
+    made: dict[int, tuple] = {}
+    chunk = 4096
+    for c in range(0, len(fs.which), chunk):
+        which = fs.which[c : c + chunk].tolist()
+        offsets = fs.offset[c : c + chunk].tolist()
+        for k, d, (dx, dy) in zip(range(c, c + len(which)), which, offsets, strict=True):
+            template = made.get(d)
+            if template is None:
+                parts = split(d)
+                template = made[d] = (parts[0], list(zip(parts[1::2], parts[2::2], strict=True)))
+            values = fill(k, fs.distinct[d], dx, dy)
+            out = [template[0]]
+            for name, text in template[1]:
+                out.append(values[name])
+                out.append(text)
+            yield "".join(out)
 
 
 def dump_json(value, fh, ensure_ascii: bool = True, level: int = 0) -> None:
