@@ -71,6 +71,26 @@ def test_sorting_without_making_items_equals_sorting_the_list(placed):
     assert list(got) == sort_findings(expected)
 
 
+def test_sorted_order_equals_python_sorted_on_the_documented_key(placed):
+    """Reference: Python's stable ``sorted`` on (severity rank, k1, layer, box), the
+    order sort_findings documents.  Duplicated places make exact ties (stable
+    order kept) and a box with -0.0 must rank as 0.0, as Python compares them."""
+    fs, expected = placed
+    rank = {s: k for k, s in enumerate(SEVERITIES)}
+    items = expected + expected[:50]  # exact ties
+    items += [dataclasses.replace(f, bbox_nm=tuple(-0.0 if v == 0 else v for v in
+              (0.0, f.bbox_nm[1], 0.0, f.bbox_nm[3]))) for f in expected[:20]]  # fmt: skip
+    items += [dataclasses.replace(f, bbox_nm=(0.0, *f.bbox_nm[1:])) for f in expected[:20]]
+    # Boxes tied on the leading coordinates, whose later ones disagree in order.
+    for f in expected[:10]:
+        items += [dataclasses.replace(f, bbox_nm=b) for b in
+                  ((5.0, 0.0, 10.0, 30.0), (5.0, 5.0, 10.0, 20.0), (5.0, 5.0, 9.0, 40.0),
+                   (5.0, 5.0, 9.0, 35.0), (4.0, 9.0, 1.0, 1.0))]  # fmt: skip
+    want = sorted(items, key=lambda f: (rank[f.severity], f.k1, f.layer, f.bbox_nm))
+    got = sort_findings(items)
+    assert [id(f) for f in got] == [id(f) for f in want]
+
+
 def test_counts_and_exit_code_from_columns_equal_those_of_the_list(placed):
     fs, expected = placed
     sub = fs.select(np.arange(0, len(fs), 3))  # a subset: some distinct findings absent
