@@ -253,6 +253,17 @@ class FindingSet(Sequence):
         base = np.array([f.bbox_nm for f in self.distinct], dtype=np.float64).reshape(-1, 4)
         return base[self.which] + np.tile(self.offset, 2)
 
+    def box_pairs(self) -> np.ndarray:
+        """Per item: ``bbox_nm`` as two complex numbers, ``x0 + i y0`` and
+        ``x1 + i y1`` (2, n); the same sums as :meth:`boxes`, made in place (a
+        chip's million findings: a third of the memory to touch)."""
+        base = np.array([f.bbox_nm for f in self.distinct], dtype=np.float64).reshape(-1, 4)
+        pairs = np.empty((2, len(self.which)), dtype=np.complex128)
+        for k, (part, c) in enumerate(((pairs[0].real, 0), (pairs[0].imag, 1),
+                                       (pairs[1].real, 2), (pairs[1].imag, 3))):  # fmt: skip
+            np.add(base[:, c][self.which], self.offset[:, k % 2], out=part)
+        return pairs
+
     def select(self, keep) -> FindingSet:
         """The items picked by a boolean mask or an index array, in that order."""
         return FindingSet(self.distinct, self.which[keep], self.offset[keep])
@@ -272,9 +283,12 @@ def sort_findings(findings: Sequence[Finding]) -> Sequence[Finding]:
         # that rank and its box.
         d = findings.distinct
         rank = _severity_k1_layer_ranks(d)[findings.which]
-        return findings.select(_box_order(rank, len(d), findings.boxes()))
-    box = np.array([f.bbox_nm for f in findings], dtype=np.float64)
-    order = _box_order(_severity_k1_layer_ranks(findings), len(findings), box)
+        return findings.select(_box_order(rank, len(d), findings.box_pairs()))
+    box = np.array([f.bbox_nm for f in findings], dtype=np.float64).reshape(-1, 4)
+    pairs = np.empty((2, len(box)), dtype=np.complex128)
+    pairs.real = box[:, [0, 2]].T
+    pairs.imag = box[:, [1, 3]].T
+    order = _box_order(_severity_k1_layer_ranks(findings), len(findings), pairs)
     return [findings[k] for k in order.tolist()]
 
 
@@ -289,17 +303,15 @@ def _severity_k1_layer_ranks(findings: Sequence[Finding]) -> np.ndarray:
     return dense.reshape(-1)
 
 
-def _box_order(rank: np.ndarray, n_ranks: int, box: np.ndarray) -> np.ndarray:
-    """Stable order by ``rank``, then box ``(x0, y0, x1, y1)``.
+def _box_order(rank: np.ndarray, n_ranks: int, pairs: np.ndarray) -> np.ndarray:
+    """Stable order by ``rank``, then box ``(x0, y0, x1, y1)``, given as the
+    complex pairs ``(x0 + i y0, x1 + i y1)`` (see :meth:`FindingSet.box_pairs`).
 
-    Equal to ``np.lexsort`` on the five keys; 2x faster on a chip's 357,000
-    findings (measured): the ranks sort as 16-bit integers (numpy sorts those
-    by radix), and each pair of coordinates as one complex key (numpy orders
-    complex numbers by real, then imaginary part).
+    Equal to ``np.lexsort`` on the five keys, in fewer passes: the ranks sort
+    as 16-bit integers (numpy sorts those by radix), and each pair of
+    coordinates as one complex key (numpy orders complex numbers by real,
+    then imaginary part).
     """
-    pairs = np.empty((2, len(box)), dtype=np.complex128)
-    pairs.real = box[:, [0, 2]].T
-    pairs.imag = box[:, [1, 3]].T
     small = rank.astype(np.int16) if n_ranks < 2**15 else rank
     return np.lexsort((pairs[1], pairs[0], small))
 

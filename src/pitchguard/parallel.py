@@ -679,10 +679,9 @@ class _Assembly:
     def finish(self, deck: Deck, grid_nm: float) -> tuple[FindingSet, list]:
         if any(s is None for s in self.stats):
             raise RuntimeError("a distinct tile's result is missing")
-        tiles = self.tiles
+        boxes = np.asarray(self.tiles, dtype=np.float64).reshape(-1, 4)
         # Each group's tiles, from its first tile, (m, 2) nm.
-        offsets = [np.array([tiles[k][:2] for k in m], dtype=np.float64) - tiles[m[0]][:2]
-                   for m in self.members]  # fmt: skip
+        offsets = [boxes[m, :2] - boxes[m[0], :2] for m in self.members]
         size = np.array([len(m) for m in self.members])
         distinct: list[Finding] = []
         which: list[np.ndarray] = []
@@ -709,7 +708,6 @@ class _Assembly:
         # Neighbouring tiles (sides and corners), grouped by their distinct contents
         # and relative place.
         t, u = _neighbours(self.tiles)
-        boxes = np.asarray(self.tiles, dtype=np.float64).reshape(-1, 4)
         rel = np.round(boxes[u, :2] - boxes[t, :2], 3)
         gt, gu = group_of[t], group_of[u]
         both = (n_reps[gt] > 0) & (n_reps[gu] > 0)

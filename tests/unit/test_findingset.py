@@ -71,6 +71,15 @@ def test_sorting_without_making_items_equals_sorting_the_list(placed):
     assert list(got) == sort_findings(expected)
 
 
+def test_box_pairs_hold_the_boxes_bit_for_bit(placed):
+    fs, expected = placed
+    pairs = fs.box_pairs()
+    box = np.array([f.bbox_nm for f in expected])
+    assert np.array_equal(pairs[0].real, box[:, 0]) and np.array_equal(pairs[0].imag, box[:, 1])
+    assert np.array_equal(pairs[1].real, box[:, 2]) and np.array_equal(pairs[1].imag, box[:, 3])
+    assert np.array_equal(fs.boxes(), box)
+
+
 def test_sorted_order_equals_python_sorted_on_the_documented_key(placed):
     """Reference: Python's stable ``sorted`` on (severity rank, k1, layer, box), the
     order sort_findings documents.  Duplicated places make exact ties (stable
