@@ -603,14 +603,23 @@ class _Terminated(BaseException):
     """SIGTERM, raised in the main thread so that cleanup (temporary files) runs."""
 
 
+_in_fork_hook = False
+"""True while the parent's after-fork hook unblocks the stop signals: a stop
+that was pending is only noted then (an exception raised in a fork hook is
+printed with its traceback and dropped); the waits that follow a fork honour
+it within a tenth of a second (see errors.check_stop)."""
+
+
 def _on_sigterm(signum, frame):  # noqa: ARG001 - signal handler signature
     request_stop(_Terminated)
-    raise _Terminated()
+    if not _in_fork_hook:
+        raise _Terminated()
 
 
 def _on_sigint(signum, frame):  # noqa: ARG001 - signal handler signature
     request_stop(KeyboardInterrupt)
-    raise KeyboardInterrupt
+    if not _in_fork_hook:
+        raise KeyboardInterrupt
 
 
 _STOP_SIGNALS = (signal.SIGTERM, signal.SIGINT)
@@ -624,8 +633,13 @@ def _before_fork() -> None:
 
 
 def _after_fork_in_parent() -> None:
+    global _in_fork_hook
     if signal.getsignal(signal.SIGTERM) is _on_sigterm:
-        signal.pthread_sigmask(signal.SIG_UNBLOCK, _STOP_SIGNALS)
+        _in_fork_hook = True
+        try:
+            signal.pthread_sigmask(signal.SIG_UNBLOCK, _STOP_SIGNALS)
+        finally:
+            _in_fork_hook = False
 
 
 def _after_fork_in_child() -> None:

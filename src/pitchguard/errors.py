@@ -42,6 +42,10 @@ def request_stop(exc_type: type[BaseException] | None) -> None:
     _pending_stop = exc_type
 
 
+STOP_POLL_S = 0.1
+"""Waits on child processes wake this often to honour a noted stop."""
+
+
 def check_stop() -> None:
     """Raise the stop a signal asked for, if any (see :func:`request_stop`)."""
     if _pending_stop is not None:

@@ -16,13 +16,14 @@ from __future__ import annotations
 import contextlib
 import os
 import tempfile
+import time
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from pitchguard.errors import LayoutError
+from pitchguard.errors import STOP_POLL_S, LayoutError, check_stop
 
 GDS_MAGIC = b"\x00\x06\x00\x02"
 OASIS_MAGIC = b"%SEMI-OASIS\r\n"
@@ -408,8 +409,11 @@ def run_isolated(fn, args: tuple, path: Path, what: str, timeout_s: float = READ
     child.start()
     send.close()
     try:
-        if not recv.poll(timeout_s):
-            raise LayoutError(f"{path}: {what} took over {timeout_s:.0f} s; stopped")
+        deadline = time.monotonic() + timeout_s
+        while not recv.poll(min(STOP_POLL_S, max(0.0, deadline - time.monotonic()))):
+            check_stop()  # a stop noted where it could not be raised
+            if time.monotonic() >= deadline:
+                raise LayoutError(f"{path}: {what} took over {timeout_s:.0f} s; stopped")
         try:
             status, payload = recv.recv()
         except EOFError:

@@ -39,7 +39,7 @@ from pitchguard.classify import (
     take_grating_passes,
 )
 from pitchguard.deck import Deck, parse_deck
-from pitchguard.errors import LayoutError, check_stop
+from pitchguard.errors import STOP_POLL_S, LayoutError, check_stop
 from pitchguard.extract import SITE_CELL_NM, ExtractStats
 from pitchguard.layout import Layout, PolygonSet, snap_to_grid
 from pitchguard.measure import give_imaged, take_imaged
@@ -978,7 +978,11 @@ class _Engine:
             while waiting and running < limit:
                 start(waiting.popleft())
                 running += 1
-            tag, fut = arrived.get()
+            try:
+                tag, fut = arrived.get(timeout=STOP_POLL_S)
+            except queue.Empty:  # a stop noted where it could not be raised
+                check_stop()
+                continue
             running -= 1
             check_stop()
             waiting.extendleft(reversed(handle(tag, self._result(fut))))
