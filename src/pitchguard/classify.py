@@ -281,14 +281,13 @@ def sort_findings(findings: Sequence[Finding]) -> Sequence[Finding]:
     if isinstance(findings, FindingSet):
         # (severity, k1, layer) ranked once per distinct finding, then each item by
         # that rank and its box.
-        d = findings.distinct
-        rank = _severity_k1_layer_ranks(d)[findings.which]
-        return findings.select(_box_order(rank, len(d), findings.box_pairs()))
+        rank = _severity_k1_layer_ranks(findings.distinct)[findings.which]
+        return findings.select(_box_order(rank, findings.box_pairs()))
     box = np.array([f.bbox_nm for f in findings], dtype=np.float64).reshape(-1, 4)
     pairs = np.empty((2, len(box)), dtype=np.complex128)
     pairs.real = box[:, [0, 2]].T
     pairs.imag = box[:, [1, 3]].T
-    order = _box_order(_severity_k1_layer_ranks(findings), len(findings), pairs)
+    order = _box_order(_severity_k1_layer_ranks(findings), pairs)
     return [findings[k] for k in order.tolist()]
 
 
@@ -300,20 +299,21 @@ def _severity_k1_layer_ranks(findings: Sequence[Finding]) -> np.ndarray:
     _, layer = np.unique([f.layer for f in findings], return_inverse=True)
     key = np.stack([sev, k1, layer.reshape(-1).astype(np.float64)], 1)
     _, dense = np.unique(key, axis=0, return_inverse=True)
-    return dense.reshape(-1)
+    dense = dense.reshape(-1)
+    # 16 bits when they suffice: numpy sorts those by radix, and the per-item
+    # copies of a chip's findings take a quarter of the memory.
+    return dense.astype(np.int16) if dense.max(initial=0) < 2**15 else dense
 
 
-def _box_order(rank: np.ndarray, n_ranks: int, pairs: np.ndarray) -> np.ndarray:
+def _box_order(rank: np.ndarray, pairs: np.ndarray) -> np.ndarray:
     """Stable order by ``rank``, then box ``(x0, y0, x1, y1)``, given as the
     complex pairs ``(x0 + i y0, x1 + i y1)`` (see :meth:`FindingSet.box_pairs`).
 
-    Equal to ``np.lexsort`` on the five keys, in fewer passes: the ranks sort
-    as 16-bit integers (numpy sorts those by radix), and each pair of
-    coordinates as one complex key (numpy orders complex numbers by real,
+    Equal to ``np.lexsort`` on the five keys, in fewer passes: each pair of
+    coordinates is one complex key (numpy orders complex numbers by real,
     then imaginary part).
     """
-    small = rank.astype(np.int16) if n_ranks < 2**15 else rank
-    return np.lexsort((pairs[1], pairs[0], small))
+    return np.lexsort((pairs[1], pairs[0], rank))
 
 
 def _fmt(x: float) -> str:
