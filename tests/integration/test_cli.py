@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -277,3 +278,18 @@ def test_a_quiet_scan_does_not_import_rich():
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert r.returncode == 0, r.stderr
     assert r.stdout.splitlines()[-1] == "1 []"
+
+
+def test_the_command_turns_off_numpys_huge_page_advice_unless_the_user_set_it():
+    """numpy's NUMPY_MADVISE_HUGEPAGE (documented under numpy's global state),
+    read when numpy is imported: the command sets 0 before that, and keeps a
+    value from the user's environment."""
+    code = ("import os, pitchguard.cli, numpy; "
+            "print(os.environ['NUMPY_MADVISE_HUGEPAGE'])")  # fmt: skip
+    env = {k: v for k, v in os.environ.items() if k != "NUMPY_MADVISE_HUGEPAGE"}
+    for given, want in ((None, "0"), ("1", "1")):
+        if given is not None:
+            env["NUMPY_MADVISE_HUGEPAGE"] = given
+        r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env)
+        assert r.returncode == 0, r.stderr
+        assert r.stdout.strip() == want
