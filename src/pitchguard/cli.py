@@ -351,7 +351,7 @@ def cmd_scan(args) -> int:
         note = (f" [baseline: {len(gate.new)} new, {len(gate.accepted)} accepted, "
                 f"{len(gate.stale)} stale]")  # fmt: skip
     if args.quiet:
-        print(one_line_summary(shown, args.fail_on) + note)
+        _say(one_line_summary(shown, args.fail_on) + note)
     else:
         out = _console()
         print_table(out, shown, args.fail_on, top=args.top)
@@ -389,7 +389,7 @@ def cmd_diff(args) -> int:
     line = (f"diff {args.base} -> {args.new}: {len(d.introduced)} introduced, "
             f"{len(d.fixed)} fixed, {len(d.unchanged)} unchanged")  # fmt: skip
     if args.quiet:
-        print(one_line_summary(shown, args.fail_on) + f" [{line}]")
+        _say(one_line_summary(shown, args.fail_on) + f" [{line}]")
     else:
         out = _console()
         print_table(out, shown, args.fail_on, top=args.top)
@@ -401,16 +401,13 @@ def cmd_diff(args) -> int:
 
 
 def cmd_rules_check(args) -> int:
-    from rich.console import Console
     from rich.table import Table
 
     from pitchguard.deck import load_deck
     from pitchguard.orders import cutoff_pitch
 
     deck = load_deck(args.deck)
-    console = Console()
-    if not console.is_terminal:
-        console = Console(width=120)
+    console = _console()
     scale = f"drawn at mask scale, reduction {deck.reduction:g}" if deck.drawn_scale == "mask" \
         else "drawn at wafer scale"  # fmt: skip
     console.print(f"{args.deck}: valid deck '{deck.name}', {len(deck.layers)} layers, {scale}")
@@ -432,12 +429,35 @@ def cmd_rules_check(args) -> int:
     return EXIT_OK
 
 
+def _output_gone() -> None:
+    """stdout's reader went away (``pitchguard scan ... | head``): what is still
+    to print goes nowhere, and the command ends with the exit code of its
+    verdict, as it would have with the whole output read.  (rich's own
+    handling exits 1, which would turn a pass into a fail.)"""
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    os.dup2(devnull, sys.stdout.fileno())
+    os.close(devnull)
+
+
+def _say(text: str) -> None:
+    """A line on stdout (see :func:`_output_gone`)."""
+    try:
+        print(text, flush=True)
+    except BrokenPipeError:
+        _output_gone()
+
+
 def _console():
     """stdout console; 120 columns when not a terminal (CI logs, pipes)."""
     from rich.console import Console
 
-    c = Console()
-    return c if c.is_terminal else Console(width=120)
+    class _Stdout(Console):
+        def on_broken_pipe(self) -> None:
+            self.quiet = True
+            _output_gone()
+
+    c = _Stdout()
+    return c if c.is_terminal else _Stdout(width=120)
 
 
 def _fmt_num(v: float, unit: str = "", digits: int = 2) -> str:
@@ -490,7 +510,7 @@ def cmd_probe(args) -> int:
         out["focus_nm"] = args.focus
         out["image"] = _clean({"x_nm": r.x_nm.tolist(), "intensity": r.intensity.tolist()})
         out["caution"] = CAUTION
-        print(json.dumps(out))
+        _say(json.dumps(out))
         return EXIT_OK
     console = _console()
     e = rule.exposure

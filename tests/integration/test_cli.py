@@ -293,3 +293,21 @@ def test_the_command_turns_off_numpys_huge_page_advice_unless_the_user_set_it():
         r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env)
         assert r.returncode == 0, r.stderr
         assert r.stdout.strip() == want
+
+
+@pytest.mark.parametrize("quiet", [False, True])
+@pytest.mark.parametrize("fail_on", ["fail", "never"])
+def test_a_closed_output_pipe_keeps_the_verdict(quiet, fail_on):
+    """``pitchguard scan ... | head``: the reader may go before the table or the
+    summary is written.  The exit code is still the verdict's (1 with a fail
+    finding, 0 with --fail-on never) and nothing lands on stderr.  Before, the
+    summary line of a quiet scan ended in "internal error: BrokenPipeError"
+    (exit 3), and rich's table exited 1 whatever the verdict."""
+    exe = Path(sys.executable).parent / "pitchguard"
+    cmd = [exe, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--fail-on", fail_on]
+    cmd += ["-q"] if quiet else []
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc.stdout.close()  # the reader is gone before anything is written
+    err = proc.stderr.read()
+    proc.wait(timeout=120)
+    assert (proc.returncode, err) == (1 if fail_on == "fail" else 0, "")
