@@ -25,9 +25,9 @@ from pitchguard.errors import EXIT_OK, EXIT_USAGE, PitchguardError, check_stop, 
 # memory to find huge pages (transparent huge pages in "madvise" mode) that
 # cost more than it saved: without it a 4x10^7-shape chip scanned 2-4 % faster
 # on 1 worker and 6-8 % on 2, a 10^7-shape chip about 1 % (measured on 2
-# cores, interleaved runs).  numpy reads this when
-# it is imported, which the command does after this; a value the user set is
-# kept (numpy documents the variable under "global state").
+# cores, interleaved runs).  numpy reads the variable when it is imported,
+# which the command does after this; a value the user set is kept (numpy
+# documents it under "global state").
 os.environ.setdefault("NUMPY_MADVISE_HUGEPAGE", "0")
 
 EXIT_INTERNAL = 3
