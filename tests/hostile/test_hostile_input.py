@@ -485,3 +485,15 @@ def test_waits_on_a_child_honour_a_noted_stop(tmp_path):
     finally:
         request_stop(None)
     assert time.monotonic() - t0 < 10
+
+
+def test_a_read_over_its_time_limit_is_stopped(tmp_path):
+    """--read-timeout: the guarded read's wait (now in slices, see above) still
+    ends at the limit with a clear error, and the child is killed."""
+    from pitchguard.errors import LayoutError
+    from pitchguard.layout import run_isolated
+
+    t0 = time.monotonic()
+    with pytest.raises(LayoutError, match="took over 1 s; stopped"):
+        run_isolated(_sleeper, (30,), tmp_path / "x.gds", "sleeping", 0.6)
+    assert 0.5 < time.monotonic() - t0 < 10
