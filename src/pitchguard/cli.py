@@ -18,7 +18,14 @@ import sys
 from pathlib import Path
 
 from pitchguard import __version__
-from pitchguard.errors import EXIT_OK, EXIT_USAGE, PitchguardError, check_stop, request_stop
+from pitchguard.errors import (
+    EXIT_OK,
+    EXIT_USAGE,
+    PitchguardError,
+    check_stop,
+    request_stop,
+    stop_requested,
+)
 
 # numpy asks the kernel for huge pages for every array of 4 MB or more.  A scan
 # makes and drops such arrays by the thousand, and where the kernel compacts
@@ -704,6 +711,10 @@ def main(argv: list[str] | None = None) -> int:
         code = _stopped(130)
     except _Terminated:
         code = _stopped(143)
+    except Exception:
+        if stop_requested() is None:
+            raise
+        code = _stopped_by_request()  # its exception was turned into another one
     finally:
         for sig, handler in previous.items():
             signal.signal(sig, handler)
@@ -721,6 +732,10 @@ def main(argv: list[str] | None = None) -> int:
         # imports alone: about 40 ms a run, measured); the process ends anyway.
         gc.freeze()
     return code
+
+
+def _stopped_by_request() -> int:
+    return _stopped(130 if stop_requested() is KeyboardInterrupt else 143)
 
 
 def _stopped(code: int) -> int:
@@ -743,18 +758,21 @@ def _main(argv: list[str] | None = None) -> int:
     )
     try:
         return handler(args)
-    except PitchguardError as exc:
-        if getattr(args, "debug", False):
-            raise
-        print(f"pitchguard: error: {exc}", file=sys.stderr)
-        return exc.exit_code
     except KeyboardInterrupt:
         return _stopped(130)
     except _Terminated:
         return _stopped(143)
-    except Exception as exc:  # a bug, not the user's fault
+    except Exception as exc:
+        if stop_requested() is not None:
+            # What the stop broke (a child the same signal stopped, a library
+            # that turned the handler's exception into its own): report the stop.
+            return _stopped_by_request()
         if getattr(args, "debug", False):
             raise
+        if isinstance(exc, PitchguardError):
+            print(f"pitchguard: error: {exc}", file=sys.stderr)
+            return exc.exit_code
+        # A bug, not the user's fault.
         print(
             f"pitchguard: internal error: {type(exc).__name__}: {exc} "
             "(run with --debug for a traceback, and please report it)",

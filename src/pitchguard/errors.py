@@ -50,3 +50,13 @@ def check_stop() -> None:
     """Raise the stop a signal asked for, if any (see :func:`request_stop`)."""
     if _pending_stop is not None:
         raise _pending_stop()
+
+
+def stop_requested() -> type[BaseException] | None:
+    """The stop a signal asked for and that has not been honoured yet, if any.
+
+    Code outside ours may catch the exception a signal handler raised and
+    raise its own instead (pydantic-core, building a model's validator when
+    the deck module is imported, turns it into a SchemaError): whatever then
+    ends the command, the stop is what it reports."""
+    return _pending_stop

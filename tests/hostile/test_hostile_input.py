@@ -497,3 +497,29 @@ def test_a_read_over_its_time_limit_is_stopped(tmp_path):
     with pytest.raises(LayoutError, match="took over 1 s; stopped"):
         run_isolated(_sleeper, (30,), tmp_path / "x.gds", "sleeping", 0.6)
     assert 0.5 < time.monotonic() - t0 < 10
+
+
+@pytest.mark.parametrize("where", ["scan", "start-up"])
+def test_a_stop_turned_into_another_exception_is_still_a_stop(tmp_path, deck, monkeypatch,
+                                                              capsys, where):  # fmt: skip
+    """A SIGTERM 0.19 s into a scan (swept in 12.5 ms steps) landed while
+    pydantic-core built a deck model's validator at import: it turned the
+    handler's exception into a SchemaError, which ended the command with a
+    traceback and exit 1.  Whatever exception a noted stop leaves behind, the
+    command reports the stop (143 here) and nothing else."""
+    import pitchguard.cli as cli
+    import pitchguard.parallel as parallel
+    from pitchguard.errors import request_stop
+
+    def stopped_then_wrapped(*args, **kwargs):
+        request_stop(cli._Terminated)  # what the handler notes before it raises
+        raise ValueError("a library's own error, raised from the handler's")
+
+    if where == "scan":
+        monkeypatch.setattr(parallel, "scan_tiled", stopped_then_wrapped)
+    else:
+        monkeypatch.setattr(cli, "build_parser", stopped_then_wrapped)
+    code = main(["scan", str(tmp_path / "x.gds"), "--rules", str(deck), "-q"])
+    err = capsys.readouterr().err
+    assert code == 143, err
+    assert err == "pitchguard: terminated; no output was left half-written\n"
