@@ -647,15 +647,32 @@ printed with its traceback and dropped); the waits that follow a fork honour
 it within a tenth of a second (see errors.check_stop)."""
 
 
+def _raise_now(frame) -> bool:
+    """Whether a stop may be raised where ``frame`` was interrupted.  Not in a
+    callback where Python prints the exception with its traceback and drops
+    it: the parent's after-fork hook, or the import system's module-lock
+    callback (a Ctrl-C there at start-up printed "Exception ignored in:
+    <function _get_module_lock.<locals>.cb>").  The stop is noted either way
+    and honoured at the next check (see errors.check_stop)."""
+    if _in_fork_hook:
+        return False
+    while frame is not None:
+        code = frame.f_code
+        if code.co_name == "cb" and code.co_filename == "<frozen importlib._bootstrap>":
+            return False
+        frame = frame.f_back
+    return True
+
+
 def _on_sigterm(signum, frame):  # noqa: ARG001 - signal handler signature
     request_stop(_Terminated)
-    if not _in_fork_hook:
+    if _raise_now(frame):
         raise _Terminated()
 
 
 def _on_sigint(signum, frame):  # noqa: ARG001 - signal handler signature
     request_stop(KeyboardInterrupt)
-    if not _in_fork_hook:
+    if _raise_now(frame):
         raise KeyboardInterrupt
 
 

@@ -523,3 +523,29 @@ def test_a_stop_turned_into_another_exception_is_still_a_stop(tmp_path, deck, mo
     err = capsys.readouterr().err
     assert code == 143, err
     assert err == "pitchguard: terminated; no output was left half-written\n"
+
+
+def test_a_stop_in_the_import_systems_lock_callback_is_noted_not_raised():
+    """A Ctrl-C 56 ms into a scan (a sweep of stop times) ran the handler inside
+    the import system's module-lock callback, where Python prints "Exception
+    ignored in: <function _get_module_lock.<locals>.cb>" with a traceback
+    and drops the exception.  There the stop is only noted (and honoured at
+    the next check); anywhere else it is raised at once."""
+    import pitchguard.cli as cli
+    from pitchguard.errors import request_stop, stop_requested
+
+    ns = {"sys": sys}
+    exec(compile("def cb():\n    return sys._getframe()\n", "<frozen importlib._bootstrap>",
+                 "exec"), ns)  # fmt: skip
+    in_callback = ns["cb"]()
+    try:
+        try:
+            cli._on_sigint(signal.SIGINT, in_callback)
+        except KeyboardInterrupt:
+            pytest.fail("raised inside the import system's callback")
+        assert stop_requested() is KeyboardInterrupt
+        request_stop(None)
+        with pytest.raises(KeyboardInterrupt):
+            cli._on_sigint(signal.SIGINT, sys._getframe())
+    finally:
+        request_stop(None)
