@@ -446,6 +446,17 @@ def _output_gone() -> None:
     os.close(devnull)
 
 
+def _tell(text: str) -> None:
+    """A line on stderr; if nothing reads stderr any more, the exit code still
+    says what happened (it is not turned into a crash)."""
+    try:
+        print(text, file=sys.stderr, flush=True)
+    except BrokenPipeError:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stderr.fileno())
+        os.close(devnull)
+
+
 def _say(text: str) -> None:
     """A line on stdout (see :func:`_output_gone`)."""
     try:
@@ -758,7 +769,7 @@ def _stopped_by_request() -> int:
 def _stopped(code: int) -> int:
     request_stop(None)  # honoured: main's last check_stop must not report it again
     what = "interrupted" if code == 130 else "terminated"
-    print(f"pitchguard: {what}; no output was left half-written", file=sys.stderr)
+    _tell(f"pitchguard: {what}; no output was left half-written")
     return code
 
 
@@ -787,14 +798,11 @@ def _main(argv: list[str] | None = None) -> int:
         if getattr(args, "debug", False):
             raise
         if isinstance(exc, PitchguardError):
-            print(f"pitchguard: error: {exc}", file=sys.stderr)
+            _tell(f"pitchguard: error: {exc}")
             return exc.exit_code
         # A bug, not the user's fault.
-        print(
-            f"pitchguard: internal error: {type(exc).__name__}: {exc} "
-            "(run with --debug for a traceback, and please report it)",
-            file=sys.stderr,
-        )
+        _tell(f"pitchguard: internal error: {type(exc).__name__}: {exc} "
+              "(run with --debug for a traceback, and please report it)")
         return EXIT_INTERNAL
 
 

@@ -311,3 +311,16 @@ def test_a_closed_output_pipe_keeps_the_verdict(quiet, fail_on):
     err = proc.stderr.read()
     proc.wait(timeout=120)
     assert (proc.returncode, err) == (1 if fail_on == "fail" else 0, "")
+
+
+def test_a_closed_error_pipe_keeps_the_exit_code(tmp_path):
+    """``pitchguard scan ... 2>&1 | head -0``: the one-line error cannot be
+    written, and the exit code still says bad input (2), not a crash (it was 1:
+    the failed write of the error line became an uncaught BrokenPipeError)."""
+    exe = Path(sys.executable).parent / "pitchguard"
+    bad = tmp_path / "not-a-layout.gds"
+    bad.write_text("hello")
+    proc = subprocess.Popen([exe, "scan", bad, "--rules", DEMO_DECK], stdout=subprocess.PIPE,
+                            stderr=subprocess.STDOUT)  # fmt: skip
+    proc.stdout.close()
+    assert proc.wait(timeout=120) == 2
