@@ -243,9 +243,7 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
 
     err = bar = update = None
     if not args.quiet:  # quiet: no bar, no notes, and no rich to import (15 ms, measured)
-        from rich.console import Console
-
-        err = Console(stderr=True)
+        err = _console(stderr=True)
         bar, update = _progress_callback(err)
     if update and label:
         inner = update
@@ -295,9 +293,7 @@ def _write_outputs(args, result, deck, inputs, extra_json: dict | None = None) -
 
         write_sarif(args.sarif, result, deck, result.layout.path, args.fail_on, inputs)
         if len(result.findings) > SERVICE_RESULTS_MAX:  # also with --quiet: CI logs need it
-            from rich.console import Console
-
-            _note(Console(stderr=True), (
+            _note(_console(stderr=True), (
                 f"{args.sarif} holds {len(result.findings):,} results; code-scanning services "
                 f"take at most {SERVICE_RESULTS_MAX:,} per run (GitHub's documented limit): "
                 "upload the SARIF of a scan gated by --baseline (new findings only) or of a "
@@ -436,46 +432,47 @@ def cmd_rules_check(args) -> int:
     return EXIT_OK
 
 
-def _output_gone() -> None:
-    """stdout's reader went away (``pitchguard scan ... | head``): what is still
-    to print goes nowhere, and the command ends with the exit code of its
-    verdict, as it would have with the whole output read.  (rich's own
-    handling exits 1, which would turn a pass into a fail.)"""
+def _gone(stream) -> None:
+    """``stream``'s reader went away (``pitchguard scan ... | head``): what is
+    still to write to it goes nowhere, and the command ends with the exit code
+    it would have had with all of it read (rich's own handling exits 1, which
+    would turn a pass into a fail)."""
     devnull = os.open(os.devnull, os.O_WRONLY)
-    os.dup2(devnull, sys.stdout.fileno())
+    os.dup2(devnull, stream.fileno())
     os.close(devnull)
 
 
 def _tell(text: str) -> None:
-    """A line on stderr; if nothing reads stderr any more, the exit code still
-    says what happened (it is not turned into a crash)."""
+    """A line on stderr (see :func:`_gone`)."""
     try:
         print(text, file=sys.stderr, flush=True)
     except BrokenPipeError:
-        devnull = os.open(os.devnull, os.O_WRONLY)
-        os.dup2(devnull, sys.stderr.fileno())
-        os.close(devnull)
+        _gone(sys.stderr)
 
 
 def _say(text: str) -> None:
-    """A line on stdout (see :func:`_output_gone`)."""
+    """A line on stdout (see :func:`_gone`)."""
     try:
         print(text, flush=True)
     except BrokenPipeError:
-        _output_gone()
+        _gone(sys.stdout)
 
 
-def _console():
-    """stdout console; 120 columns when not a terminal (CI logs, pipes)."""
+def _console(stderr: bool = False):
+    """A rich console on stdout (120 columns when not a terminal: CI logs,
+    pipes) or on stderr; a reader that went away does not change the exit
+    code (see :func:`_gone`)."""
     from rich.console import Console
 
-    class _Stdout(Console):
+    class _Quietly(Console):
         def on_broken_pipe(self) -> None:
             self.quiet = True
-            _output_gone()
+            _gone(sys.stderr if self.stderr else sys.stdout)
 
-    c = _Stdout()
-    return c if c.is_terminal else _Stdout(width=120)
+    if stderr:
+        return _Quietly(stderr=True)
+    c = _Quietly()
+    return c if c.is_terminal else _Quietly(width=120)
 
 
 def _fmt_num(v: float, unit: str = "", digits: int = 2) -> str:
@@ -580,7 +577,6 @@ def cmd_probe(args) -> int:
 
 def cmd_sweep(args) -> int:
     import numpy as np
-    from rich.console import Console
     from rich.table import Table
 
     from pitchguard.deck import load_deck
@@ -602,7 +598,7 @@ def cmd_sweep(args) -> int:
     else:
         pitches = default_pitches(rule, cd)
     console = _console()
-    err = Console(stderr=True)
+    err = _console(stderr=True)
     with err.status(f"imaging {len(pitches)} pitches ...") if err.is_terminal else _null():
         results = through_pitch(rule, cd, pitches, args.orientation)
     if not results:

@@ -324,3 +324,18 @@ def test_a_closed_error_pipe_keeps_the_exit_code(tmp_path):
                             stderr=subprocess.STDOUT)  # fmt: skip
     proc.stdout.close()
     assert proc.wait(timeout=120) == 2
+
+
+def test_a_note_to_a_closed_stderr_does_not_end_the_command():
+    """rich exits 1 when its stream's reader is gone; the command's consoles
+    (notes and progress on stderr, tables on stdout) drop the rest instead,
+    and the command carries on to its own exit code (5 here)."""
+    code = ("import sys; from pitchguard import cli; "
+            "cli._console(stderr=True).print('note ' * 20000); "
+            "cli._console().print('row ' * 20000); sys.exit(5)")  # fmt: skip
+    for closed in ("stdout", "stderr"):
+        proc = subprocess.Popen([sys.executable, "-c", code],
+                                stdout=subprocess.PIPE if closed == "stdout" else subprocess.DEVNULL,
+                                stderr=subprocess.PIPE if closed == "stderr" else subprocess.DEVNULL)  # fmt: skip
+        getattr(proc, closed).close()
+        assert proc.wait(timeout=60) == 5, closed
