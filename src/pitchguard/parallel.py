@@ -824,21 +824,17 @@ def _joined_groups(n: int, ea: np.ndarray, eb: np.ndarray):
     if n == 0:
         z = np.zeros(0, np.int64)
         return (z, z), (z, z)
-    n_lab, labels = components(n, ea, eb)
-    first = np.full(n_lab, n, dtype=np.int64)
-    np.minimum.at(first, labels, np.arange(n))
+    n_lab, labels = components(n, ea, eb)  # numbered in the order of their first part
     count = np.bincount(labels, minlength=n_lab)
-    by_first = np.argsort(first, kind="stable")  # labels in the order of their first part
-    multi = count[by_first] > 1
+    multi = count > 1
     slot = np.full(n_lab, -1, dtype=np.int64)
     slot[multi] = np.arange(int(multi.sum()))
-    alone = first[by_first][~multi]
+    # A lone part is its group's first part, so in index order they are in group order.
+    alone = np.flatnonzero(~multi[labels])
     # Members of the groups of two or more, group by group, in index order.
-    rank = np.empty(n_lab, dtype=np.int64)
-    rank[by_first] = np.arange(n_lab)
-    inside = np.flatnonzero(count[labels] > 1)
-    inside = inside[np.lexsort((inside, rank[labels[inside]]))]
-    return (alone, slot), (inside, count[by_first][multi])
+    inside = np.flatnonzero(multi[labels])
+    inside = inside[np.argsort(labels[inside], kind="stable")]
+    return (alone, slot), (inside, count[multi])
 
 
 def _neighbours(tiles) -> tuple[np.ndarray, np.ndarray]:
