@@ -465,6 +465,23 @@ def _check_tile_count(path, extent, region, tile_nm: float, shapes: int = 0) -> 
         )  # fmt: skip
 
 
+def _preload() -> None:
+    """Import, before the first fork, what every forked child would otherwise
+    import for itself: the layout library and the hierarchy query (the
+    structure read and each worker), numpy.ma (np.unique imports it on first
+    use, in each worker and again here for the merge), numpy.fft and
+    threadpoolctl (each worker).  Measured with ``python -X importtime`` on a
+    2-worker scan: 93 ms of these imports summed over the processes (the
+    structure read, both workers importing at once, then the merge) became
+    12 ms, once, here."""
+    import gdstk  # noqa: F401
+    import numpy.fft  # noqa: F401
+    import numpy.ma  # noqa: F401
+    import threadpoolctl  # noqa: F401
+
+    import pitchguard.tiles  # noqa: F401
+
+
 def _guarded_structure(path: Path, cell, layers, max_shapes: int, timeout_s: float) -> Structure:
     """The first read, in a child process: a reader crash or hang becomes a LayoutError."""
     from pitchguard.layout import run_isolated
@@ -503,6 +520,8 @@ def scan_tiled(
     p = Path(path)
     sniff_format(p)
     layers = [(r.layer, r.datatype) for r in deck.layers]
+    if not scheduler:
+        _preload()
     st = _guarded_structure(p, cell, layers, max_shapes, read_timeout_s or READ_TIMEOUT_S)
     halo = _halo(deck)
     tile_nm, jobs = plan_tiles(st, halo, jobs or os.cpu_count() or 1, max_memory_mb, tile_um,
