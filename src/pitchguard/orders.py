@@ -204,7 +204,7 @@ def analyse_pitch(exposure: Exposure, pitch_nm: float, orientation_deg: float) -
     Kept per process: the tiles of a tiled scan meet the same pitches again.
     """
     lam, na = exposure.wavelength_nm, exposure.na
-    k1 = 0.5 * pitch_nm * na / lam
+    k1 = float(0.5 * pitch_nm * na / lam)  # a Python float: findings travel between processes
     cutoff = cutoff_pitch(exposure, orientation_deg)
     if not math.isfinite(pitch_nm):
         return OrderResult(k1, (0,), (0,), 0.0, True, cutoff)

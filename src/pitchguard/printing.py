@@ -205,9 +205,12 @@ def evaluate(
     dof = _dof(focus_nm, windows, t_size, bright, el_min_pct)
     # Dose D prints like threshold t_nom / D, so the dose on size is t_nom / t_size.
     dts = t_nom / t_size if (math.isfinite(t_size) and t_size > 0) else math.nan
+    # Python floats, not numpy scalars: metrics travel between processes in
+    # every tiled scan, and a numpy scalar pickles to 5x the bytes, slower.
     return Metrics(
-        contrast=contrast, nils=nils, cd_nm=cd_nom, cd_error_pct=cd_err, lost=lost,
-        bridged=bridged, el_pct=el, dof_nm=dof, threshold=t_nom, dose_to_size=dts,
+        contrast=float(contrast), nils=nils, cd_nm=cd_nom, cd_error_pct=float(cd_err),
+        lost=lost, bridged=bridged, el_pct=float(el), dof_nm=float(dof),
+        threshold=float(t_nom), dose_to_size=float(dts),
     )  # fmt: skip
 
 
