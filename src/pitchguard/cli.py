@@ -235,6 +235,13 @@ def _note(console, text: str) -> None:
     console.print(f"pitchguard: note: {text}", soft_wrap=True, markup=False, highlight=False)
 
 
+def _only_counts(args) -> bool:
+    """A quiet scan writing no file and keeping no baseline reads only the
+    findings' counts: their report order is never used."""
+    outputs = ("json", "markers", "sarif", "junit", "html", "baseline", "write_baseline")
+    return bool(args.quiet) and all(getattr(args, o, None) is None for o in outputs)
+
+
 def _run_scan(args, deck, layout: Path, label: str = ""):
     from functools import partial
 
@@ -267,6 +274,7 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
                 max_shapes=args.max_shapes or DEFAULT_TILED_MAX_SHAPES,
                 read_timeout_s=args.read_timeout, max_memory_mb=args.max_memory_mb,
                 note=None if args.quiet else partial(_note, err),
+                ordered=not (args.command == "scan" and _only_counts(args)),
             )  # fmt: skip
         return scan_layout(
             layout, deck, cell=args.cell, region_um=getattr(args, "region", None),

@@ -504,13 +504,17 @@ def scan_tiled(
     read_timeout_s: float | None = None,
     max_memory_mb: float | None = None,
     note=None,
+    ordered: bool = True,
 ) -> ScanResult:
     """Scan ``path`` tile by tile on local worker processes or a dask cluster.
 
     Tiles whose content keys are equal hold the same polygons up to a shift;
     with ``reuse`` each such group is scanned once and its findings shifted
     onto the other tiles of the group.  ``note(text)``, if given, hears advice
-    before the tiles start (a ``tile_um`` that defeats reuse, say).
+    before the tiles start (a ``tile_um`` that defeats reuse, say).  With
+    ``ordered`` the findings come in report order (:func:`sort_findings`);
+    without, in no set order, for a caller that only counts them (the sort
+    took 0.2 s of a 2-worker scan finding 1.3 million regions, measured).
     """
     import time
 
@@ -554,7 +558,8 @@ def scan_tiled(
                   "distinct": len(assembly.members), "workers": engine.workers}  # fmt: skip
     findings = _with_hints(findings, run.texts)
     stats = _sum_stats(deck, per_group_stats)
-    findings = sort_findings(findings)
+    if ordered:
+        findings = sort_findings(findings)
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})
     return ScanResult(findings, stats, layout, [], time.perf_counter() - t0, tiling)
 

@@ -149,6 +149,32 @@ def test_quiet_prints_one_line(capsys):
     assert out.startswith("pitchguard: FAILED (fail-on fail): ")
 
 
+def test_only_a_scan_that_lists_findings_sorts_them(tmp_path, capsys, monkeypatch):
+    """A quiet scan writing no file reads only counts: the same line and exit code
+    without the sort; any output that lists findings gets them in report order
+    (the order sort_findings gives, checked against Python's sorted in
+    test_findingset.py)."""
+    import pitchguard.parallel as par
+
+    sorts = []
+    real = par.sort_findings
+    monkeypatch.setattr(par, "sort_findings", lambda fs: sorts.append(len(fs)) or real(fs))
+    code, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q")
+    assert sorts == []
+    js = tmp_path / "f.json"
+    code2, out2, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q",
+                             "--json", js)  # fmt: skip
+    assert len(sorts) == 1 and sorts[0] > 1
+    assert (code, out.split(", ")[:3]) == (code2, out2.split(", ")[:3])  # all but the time
+    listed = json.loads(js.read_text())["findings"]
+    from pitchguard.classify import SEVERITIES
+
+    keys = [(SEVERITIES.index(f["severity"]), f["k1"], f["layer"]) for f in listed]
+    assert keys == sorted(keys)
+    run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK)  # the table lists the worst
+    assert len(sorts) == 2
+
+
 def test_table_lists_layers_and_worst_regions(capsys):
     code, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--top", "3")
     assert code == 1
