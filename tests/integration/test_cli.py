@@ -175,6 +175,30 @@ def test_only_a_scan_that_lists_findings_sorts_them(tmp_path, capsys, monkeypatc
     assert len(sorts) == 2
 
 
+def test_garbage_collection_is_on_for_the_scan_and_as_it_was_after(capsys, monkeypatch):
+    """Paused only while the command starts: the scan (and the workers it forks)
+    collect garbage, and an embedding program gets its own setting back."""
+    import gc
+
+    import pitchguard.parallel as par
+
+    seen = []
+    real = par.scan_tiled
+    monkeypatch.setattr(par, "scan_tiled", lambda *a, **k: seen.append(gc.isenabled())
+                        or real(*a, **k))  # fmt: skip
+    assert gc.isenabled()
+    run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q")
+    assert seen == [True] and gc.isenabled()
+    gc.disable()
+    try:
+        run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q")
+        assert seen == [True, False] and not gc.isenabled()  # theirs, left alone
+    finally:
+        gc.enable()
+    run_cli(capsys, "rules", "check", DEMO_DECK)
+    assert gc.isenabled()
+
+
 def test_table_lists_layers_and_worst_regions(capsys):
     code, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--top", "3")
     assert code == 1
