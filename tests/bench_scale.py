@@ -13,15 +13,17 @@ each in a fresh process, side by side:
 * ``read+flatten``: gdstk reads the file and flattens the layer (what any
   flat tool pays before it starts);
 * ``scan 1 worker`` and ``scan 2 workers``: ``pitchguard scan --jobs N``
-  (tiled, read from the hierarchy), ``--repeat`` times each (default 3),
-  taking turns; the median run is shown, every run's time is printed;
+  (tiled, read from the hierarchy), ``--repeat`` times each (default 5),
+  taking turns; the median run is shown, every run's time is printed, and
+  the speed-up of each pair of runs;
 * ``scan whole``: the untiled scan (flattens the layout in one process);
 * ``2 w. + reports`` (with ``--reports``): 2 workers writing every report
   format (JSON, SARIF, JUnit, marker layout), which costs per finding.
 
 The package is byte-compiled first, so that every timed run imports compiled
-modules as a user's runs after the first do.  Printed per run: wall time, the largest resident set of any one process
-(the parent or a worker; ``ru_maxrss``), and the ratio to read+flatten.
+modules as a user's runs after the first do.  Printed per run: wall time,
+the largest resident set of any one process (the parent or a worker;
+``ru_maxrss``), and the ratio to read+flatten.
 Targets from the project's issue: tiled 1 worker within 3x read+flatten,
 2 workers at least 1.7x faster than 1, peak memory under 2 GB and below
 read+flatten's.
