@@ -103,10 +103,14 @@ def _rects(x0, y0, x1, y1) -> np.ndarray:
     """(k, 4, 2) counter-clockwise rectangles from corner arrays."""
     x0, y0, x1, y1 = (np.asarray(v, dtype=np.float64) for v in (x0, y0, x1, y1))
     return np.stack(
-        [np.stack([x0, y0], -1), np.stack([x1, y0], -1), np.stack([x1, y1], -1),
-         np.stack([x0, y1], -1)],
+        [
+            np.stack([x0, y0], -1),
+            np.stack([x1, y0], -1),
+            np.stack([x1, y1], -1),
+            np.stack([x0, y1], -1),
+        ],
         axis=1,
-    )  # fmt: skip
+    )
 
 
 def _line_array(n_lines, pitch, width, length, pieces=1, rng=None, stagger=0.0):
@@ -280,8 +284,9 @@ def extract_layers(layers, deck, grid_nm, trace: bool, out: dict, label: str) ->
         ps = layers.get((rule.layer, rule.datatype), PolygonSet.empty())
         edges = st.run("build", build_features, ps, grid_nm)
         out["edges"] += len(edges)
-        sites, _ = st.run("sites", find_sites, edges, rule.min_run_nm / scale,
-                          rule.ambit_nm / scale, grid_nm)  # fmt: skip
+        sites, _ = st.run(
+            "sites", find_sites, edges, rule.min_run_nm / scale, rule.ambit_nm / scale, grid_nm
+        )
         out["sites"] += len(sites)
         found = st.run("classify", classify_layer, sites, rule, scale)
         out["findings"] += len(found)
@@ -431,13 +436,25 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--sizes", default="1e4,1e5,1e6", help="comma-separated shape counts")
     ap.add_argument("--quick", action="store_true", help="only 1e4 and 1e5")
-    ap.add_argument("--no-gds", dest="gds", action="store_false",
-                    help="skip writing/reading the generated layouts as GDSII")  # fmt: skip
-    ap.add_argument("--no-trace", dest="trace_pass", action="store_false",
-                    help="skip the tracemalloc pass entirely")  # fmt: skip
-    ap.add_argument("--trace-max", type=float, default=1e5,
-                    help="tracemalloc pass only for generated sizes up to this (default 1e5; "
-                    "the traced run is 2-4x slower than the timed one)")  # fmt: skip
+    ap.add_argument(
+        "--no-gds",
+        dest="gds",
+        action="store_false",
+        help="skip writing/reading the generated layouts as GDSII",
+    )
+    ap.add_argument(
+        "--no-trace",
+        dest="trace_pass",
+        action="store_false",
+        help="skip the tracemalloc pass entirely",
+    )
+    ap.add_argument(
+        "--trace-max",
+        type=float,
+        default=1e5,
+        help="tracemalloc pass only for generated sizes up to this (default 1e5; "
+        "the traced run is 2-4x slower than the timed one)",
+    )
     ap.add_argument("--timeout", type=float, default=3600.0, help="seconds per worker process")
     # Internal: one measurement in a fresh process.
     ap.add_argument("--worker", choices=["extract", "baseline"], help=argparse.SUPPRESS)
@@ -496,9 +513,23 @@ def main(argv=None) -> int:
             if ref is None or cand[0] < ref[0]:
                 ref = cand
 
-    head = ["layout", "shapes", "sites", "read", "build", "sites", "classify", "total",
-            "us/shape", "nlogn", "baseline", "x base", "rss0 MB", "peakRSS",
-            "py-peak MB"]  # fmt: skip
+    head = [
+        "layout",
+        "shapes",
+        "sites",
+        "read",
+        "build",
+        "sites",
+        "classify",
+        "total",
+        "us/shape",
+        "nlogn",
+        "baseline",
+        "x base",
+        "rss0 MB",
+        "peakRSS",
+        "py-peak MB",
+    ]
     table = []
     for label, ex, bl, tr in rows:
         s = ex.get("seconds", {})
@@ -525,14 +556,27 @@ def main(argv=None) -> int:
             scaling = None
             ratio = f">{total / base:.0f}x" if total and base else "-"
         py = tr.get("py_peak", {})
-        table.append([
-            label, f"{n:,}" if n else "?", f"{ex['sites']:,}" if done else "-", _f(read),
-            stage("build"), stage("sites"), stage("classify"), tot, per, _f(scaling), _f(base),
-            ratio, _f(ex.get("rss0"), "{:.0f}"),
-            _f(ex.get("maxrss"), "{:.0f}") + ("" if done else "+"),
-            "/".join(_f(py.get(k), "{:.0f}") for k in ("build", "sites", "classify")) if py
-            else "-",
-        ])  # fmt: skip
+        table.append(
+            [
+                label,
+                f"{n:,}" if n else "?",
+                f"{ex['sites']:,}" if done else "-",
+                _f(read),
+                stage("build"),
+                stage("sites"),
+                stage("classify"),
+                tot,
+                per,
+                _f(scaling),
+                _f(base),
+                ratio,
+                _f(ex.get("rss0"), "{:.0f}"),
+                _f(ex.get("maxrss"), "{:.0f}") + ("" if done else "+"),
+                "/".join(_f(py.get(k), "{:.0f}") for k in ("build", "sites", "classify"))
+                if py
+                else "-",
+            ]
+        )
     widths = [max(len(h), *(len(r[i]) for r in table)) for i, h in enumerate(head)]
     print()
     print("  ".join(h.rjust(w) for h, w in zip(head, widths, strict=True)))
@@ -561,8 +605,10 @@ def main(argv=None) -> int:
         if "generate" in ex:
             bits.append(f"generate {ex['generate']:.2f} s")
         if "write" in bl:
-            bits.append(f"GDSII write {bl['write']:.2f} s ({bl['gds_mb']:.0f} MB), "
-                        f"read back {bl['read_shapes']:,} shapes")  # fmt: skip
+            bits.append(
+                f"GDSII write {bl['write']:.2f} s ({bl['gds_mb']:.0f} MB), "
+                f"read back {bl['read_shapes']:,} shapes"
+            )
         if "baseline_runs" in bl:
             runs = "/".join(f"{t:.3f}" for t in bl["baseline_runs"])
             bits.append(f"baseline runs {runs} s")

@@ -83,8 +83,13 @@ NA = 1.35
 WATER_INDEX = 1.44
 SOURCES = {
     "annular 0.6-0.9": {"shape": "annular", "sigma_inner": 0.6, "sigma_outer": 0.9},
-    "dipole-x 0.6-0.9/35": {"shape": "dipole", "sigma_inner": 0.6, "sigma_outer": 0.9,
-                            "opening_deg": 35.0, "axis": "x"},  # fmt: skip
+    "dipole-x 0.6-0.9/35": {
+        "shape": "dipole",
+        "sigma_inner": 0.6,
+        "sigma_outer": 0.9,
+        "opening_deg": 35.0,
+        "axis": "x",
+    },
 }
 LINE_NM = (40.0, 120.0)
 SPACE_NM = (40.0, 200.0)
@@ -190,7 +195,10 @@ def run_banded(optics, src, period, n_max, focus, spectra, samples, batch, keep_
 def run_abbe(optics, src, period, focus, spectra, x):
     t0 = time.perf_counter()
     out = np.stack(
-        [np.stack([abbe_image(s, period, optics, src, float(z), x) for z in focus]) for s in spectra]
+        [
+            np.stack([abbe_image(s, period, optics, src, float(z), x) for z in focus])
+            for s in spectra
+        ]
     )
     return time.perf_counter() - t0, out
 
@@ -230,15 +238,24 @@ def main(argv=None) -> int:
     ap.add_argument("--abbe-profiles", type=int, default=10)
     ap.add_argument("--focus", type=int, default=9, help="focus values over +-120 nm")
     ap.add_argument("--samples", type=int, default=1024)
-    ap.add_argument("--batch", type=int, default=256, help="profiles per CoherentSystems.image call")
+    ap.add_argument(
+        "--batch", type=int, default=256, help="profiles per CoherentSystems.image call"
+    )
     ap.add_argument("--repeat", type=int, default=3, help="runs per row; the fastest is kept")
     ap.add_argument("--keeps", default="1e-7,1e-6,1e-5,1e-4,3e-4,1e-3")
-    ap.add_argument("--step", type=float, default=IMAGE_SOURCE_STEP,
-                    help="source sampling step in sigma units (default: IMAGE_SOURCE_STEP)")
+    ap.add_argument(
+        "--step",
+        type=float,
+        default=IMAGE_SOURCE_STEP,
+        help="source sampling step in sigma units (default: IMAGE_SOURCE_STEP)",
+    )
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--quick", action="store_true", help="skip the abbe_image row (slowest)")
-    ap.add_argument("--prototype", action="store_true",
-                    help="add a row for banded_image, a faster use of the same kernels")
+    ap.add_argument(
+        "--prototype",
+        action="store_true",
+        help="add a row for banded_image, a faster use of the same kernels",
+    )
     args = ap.parse_args(argv)
 
     lam_na = WAVELENGTH_NM / NA
@@ -259,8 +276,10 @@ def main(argv=None) -> int:
     rng = np.random.default_rng(args.seed)
     failed = False
     sweep_rows = []
-    header = (f"{'source':<22}{'engine':<10}{'points':>7}{'orders':>7}{'kern':>6}"
-              f"{'prof/s':>10}{'tcc s':>8}{'max diff':>10}{'x abbe':>8}{'x fft':>8}")  # fmt: skip
+    header = (
+        f"{'source':<22}{'engine':<10}{'points':>7}{'orders':>7}{'kern':>6}"
+        f"{'prof/s':>10}{'tcc s':>8}{'max diff':>10}{'x abbe':>8}{'x fft':>8}"
+    )
     print()
     print(header)
     print("-" * len(header))
@@ -278,8 +297,9 @@ def main(argv=None) -> int:
         CoherentSystems(optics, src, period, n_max, 0.0).image(spectra[:4], args.samples)
         run_abbe_fft(optics, src, period, n_max, focus[:1], sub[:1], args.samples)
 
-        t_fft, ref_fft = best_of(args.repeat, run_abbe_fft, optics, src, period, n_max, focus,
-                                 sub, args.samples)  # fmt: skip
+        t_fft, ref_fft = best_of(
+            args.repeat, run_abbe_fft, optics, src, period, n_max, focus, sub, args.samples
+        )
         rate_fft = n_abbe / t_fft
         if args.quick:
             rate_abbe, ref = math.nan, ref_fft
@@ -291,25 +311,58 @@ def main(argv=None) -> int:
         rows = []
         for keep in keeps:
             t, t_tcc, kern, first = best_of(
-                args.repeat, run_socs, optics, src, period, n_max, focus, spectra,
-                args.samples, args.batch, keep, n_abbe,
-            )  # fmt: skip
+                args.repeat,
+                run_socs,
+                optics,
+                src,
+                period,
+                n_max,
+                focus,
+                spectra,
+                args.samples,
+                args.batch,
+                keep,
+                n_abbe,
+            )
             rows.append((keep, args.profiles / t, t_tcc, kern, float(np.max(np.abs(first - ref)))))
         npts, nord = len(src[1]), 2 * n_max + 1
 
-        def line(engine, kern, rate, tcc, diff, name=name, npts=npts, nord=nord,
-                 rate_abbe=rate_abbe, rate_fft=rate_fft):  # fmt: skip
+        def line(
+            engine,
+            kern,
+            rate,
+            tcc,
+            diff,
+            name=name,
+            npts=npts,
+            nord=nord,
+            rate_abbe=rate_abbe,
+            rate_fft=rate_fft,
+        ):
             ra = rate / rate_abbe if math.isfinite(rate_abbe) else math.nan
-            print(f"{name:<22}{engine:<10}{npts:>7}{nord:>7}{kern:>6}{rate:>10.1f}{tcc:>8}"
-                  f"{diff:>10}{ra:>8.1f}{rate / rate_fft:>8.1f}")  # fmt: skip
+            print(
+                f"{name:<22}{engine:<10}{npts:>7}{nord:>7}{kern:>6}{rate:>10.1f}{tcc:>8}"
+                f"{diff:>10}{ra:>8.1f}{rate / rate_fft:>8.1f}"
+            )
 
         default = next(r for r in rows if r[0] == SOCS_KEEP)
         line("socs", f"{default[3]:.1f}", default[1], f"{default[2]:.3f}", f"{default[4]:.1e}")
         line("abbe", "-", rate_abbe, "-", "-" if args.quick else "ref")
         line("abbe-fft", "-", rate_fft, "-", f"{agree:.1e}")
         if args.prototype:
-            t_b, first_b = best_of(args.repeat, run_banded, optics, src, period, n_max, focus,
-                                   spectra, args.samples, args.batch, n_abbe)  # fmt: skip
+            t_b, first_b = best_of(
+                args.repeat,
+                run_banded,
+                optics,
+                src,
+                period,
+                n_max,
+                focus,
+                spectra,
+                args.samples,
+                args.batch,
+                n_abbe,
+            )
             diff_b = float(np.max(np.abs(first_b - ref)))
             line("banded*", f"{default[3]:.1f}", args.profiles / t_b, "-", f"{diff_b:.1e}")
         failed |= not (default[4] < MAX_DIFF_TARGET and default[1] / rate_fft >= RATIO_TARGET)
@@ -319,8 +372,10 @@ def main(argv=None) -> int:
 
     print()
     print("keep sweep (socs only; ratios against the Abbe rows above)")
-    head2 = f"{'source':<22}{'keep':>8}{'kern':>6}{'prof/s':>10}{'max diff':>10}{'x abbe':>8}" \
-        f"{'x fft':>8}  targets met"  # fmt: skip
+    head2 = (
+        f"{'source':<22}{'keep':>8}{'kern':>6}{'prof/s':>10}{'max diff':>10}{'x abbe':>8}"
+        f"{'x fft':>8}  targets met"
+    )
     print(head2)
     print("-" * len(head2))
     for name, rows, rate_abbe, rate_fft in sweep_rows:
@@ -329,13 +384,18 @@ def main(argv=None) -> int:
             rf = rate / rate_fft
             acc, fast = diff < MAX_DIFF_TARGET, rf >= RATIO_TARGET
             met = {(True, True): "both", (True, False): "accuracy", (False, True): "speed"}.get(
-                (acc, fast), "none")  # fmt: skip
-            print(f"{name:<22}{keep:>8.0e}{kern:>6.1f}{rate:>10.1f}{diff:>10.1e}{ra:>8.1f}"
-                  f"{rf:>8.1f}  {met}")  # fmt: skip
+                (acc, fast), "none"
+            )
+            print(
+                f"{name:<22}{keep:>8.0e}{kern:>6.1f}{rate:>10.1f}{diff:>10.1e}{ra:>8.1f}"
+                f"{rf:>8.1f}  {met}"
+            )
     print()
-    print(f"targets: max diff < {MAX_DIFF_TARGET:g} of the open frame and >= {RATIO_TARGET:g}x "
-          f"the faster Abbe sum (abbe-fft), at SOCS_KEEP = {SOCS_KEEP:g}: "
-          f"{'met' if not failed else 'NOT met'}")
+    print(
+        f"targets: max diff < {MAX_DIFF_TARGET:g} of the open frame and >= {RATIO_TARGET:g}x "
+        f"the faster Abbe sum (abbe-fft), at SOCS_KEEP = {SOCS_KEEP:g}: "
+        f"{'met' if not failed else 'NOT met'}"
+    )
     return 0 if not failed else 1
 
 

@@ -106,8 +106,16 @@ def worker(kind: str, path: str, deck: str, jobs: int, tile: float) -> None:
             args += ["--untiled"]
         if kind == "reports":
             stem = str(Path(path).with_suffix(""))
-            args += ["--json", stem + ".json", "--sarif", stem + ".sarif", "--junit",
-                     stem + ".xml", "--markers", stem + "-markers.oas"]  # fmt: skip
+            args += [
+                "--json",
+                stem + ".json",
+                "--sarif",
+                stem + ".sarif",
+                "--junit",
+                stem + ".xml",
+                "--markers",
+                stem + "-markers.oas",
+            ]
         code = main(args)
         out = {"exit": code}
     out["wall"] = time.perf_counter() - t0
@@ -116,8 +124,20 @@ def worker(kind: str, path: str, deck: str, jobs: int, tile: float) -> None:
 
 
 def run(kind: str, path: Path, deck: Path, jobs: int = 1, tile: float = 0.0) -> dict:
-    cmd = [sys.executable, __file__, "--worker", kind, "--file", str(path), "--deck", str(deck),
-           "--jobs", str(jobs), "--tile", str(tile)]  # fmt: skip
+    cmd = [
+        sys.executable,
+        __file__,
+        "--worker",
+        kind,
+        "--file",
+        str(path),
+        "--deck",
+        str(deck),
+        "--jobs",
+        str(jobs),
+        "--tile",
+        str(tile),
+    ]
     r = subprocess.run(cmd, capture_output=True, text=True)
     line = [ln for ln in r.stdout.splitlines() if ln.startswith("BENCH ")]
     if not line:
@@ -138,11 +158,18 @@ def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--shapes", type=float, default=1e7)
     ap.add_argument("--tile", type=float, default=0.0, help="tile size, um (default: the scan's)")
-    ap.add_argument("--repeat", type=int, default=5,
-                    help="runs of each tiled scan, 1 and 2 workers in turn (median shown)")
+    ap.add_argument(
+        "--repeat",
+        type=int,
+        default=5,
+        help="runs of each tiled scan, 1 and 2 workers in turn (median shown)",
+    )
     ap.add_argument("--skip-whole", action="store_true", help="do not run the untiled scan")
-    ap.add_argument("--reports", action="store_true",
-                    help="also run 2 workers writing JSON, SARIF, JUnit and markers")  # fmt: skip
+    ap.add_argument(
+        "--reports",
+        action="store_true",
+        help="also run 2 workers writing JSON, SARIF, JUnit and markers",
+    )
     ap.add_argument("--worker")
     ap.add_argument("--file")
     ap.add_argument("--deck")
@@ -164,13 +191,17 @@ def main() -> int:
         deck = Path(tmp) / "deck.toml"
         deck.write_text(DECK)
         n = build_chip(chip, args.shapes)
-        print(f"chip: {n:,} flat shapes on the deck layer, {chip.stat().st_size / 1e6:.1f} MB "
-              f"OASIS; tile {args.tile or 'auto'} um; {os.cpu_count()} cpus")  # fmt: skip
+        print(
+            f"chip: {n:,} flat shapes on the deck layer, {chip.stat().st_size / 1e6:.1f} MB "
+            f"OASIS; tile {args.tile or 'auto'} um; {os.cpu_count()} cpus"
+        )
         # The flatten runs three times (its first run pays for cold caches); the
         # fastest is the baseline, so the ratios are not flattered.
         flats = [run("flatten", chip, deck) for _ in range(3)]
         best = min(flats, key=lambda r: r.get("wall", float("inf")))
-        print("read+flatten runs: " + ", ".join(f"{r.get('wall', float('nan')):.2f} s" for r in flats))
+        print(
+            "read+flatten runs: " + ", ".join(f"{r.get('wall', float('nan')):.2f} s" for r in flats)
+        )
         rows = [("read+flatten", best)]
         # The scans run --repeat times each, 1 and 2 workers taking turns (a
         # machine whose speed drifts, or a flatten just before, touches both
@@ -195,17 +226,24 @@ def main() -> int:
             if "error" in r:
                 print(f"{name:<16} failed: {r['error']}")
                 continue
-            print(f"{name:<16}{r['wall']:>10.1f}{r['wall'] / base:>11.2f}{r['maxrss_mb']:>13.0f}"
-                  f"{r.get('exit', ''):>6}")  # fmt: skip
+            print(
+                f"{name:<16}{r['wall']:>10.1f}{r['wall'] / base:>11.2f}{r['maxrss_mb']:>13.0f}"
+                f"{r.get('exit', ''):>6}"
+            )
         w1 = dict(rows)["scan 1 worker"].get("wall")
         w2 = dict(rows)["scan 2 workers"].get("wall")
         if w1 and w2:
-            print(f"speed-up 2 workers / 1 worker: {w1 / w2:.2f}x (target >= 1.7x); "
-                  f"1 worker / read+flatten: {w1 / base:.1f}x (target <= 3x)")  # fmt: skip
+            print(
+                f"speed-up 2 workers / 1 worker: {w1 / w2:.2f}x (target >= 1.7x); "
+                f"1 worker / read+flatten: {w1 / base:.1f}x (target <= 3x)"
+            )
             # Each 1-worker run with the 2-worker run after it: the spread the
             # machine's drift leaves in the speed-up.
-            pairs = sorted(a["wall"] / b["wall"] for a, b in zip(scans[1], scans[2], strict=True)
-                           if "wall" in a and "wall" in b)  # fmt: skip
+            pairs = sorted(
+                a["wall"] / b["wall"]
+                for a, b in zip(scans[1], scans[2], strict=True)
+                if "wall" in a and "wall" in b
+            )
             if len(pairs) > 1:
                 print(f"speed-up per pair of runs: {pairs[0]:.2f}x to {pairs[-1]:.2f}x")
     return 0

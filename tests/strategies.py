@@ -163,8 +163,9 @@ def line_arrays(draw, min_count: int = COUNT[0], max_count: int = COUNT[1]) -> L
                 draw(
                     st.sets(
                         st.integers(1, (length - 1) // step),
-                        min_size=PIECES[0] - 1, max_size=PIECES[1] - 1,
-                    )  # fmt: skip
+                        min_size=PIECES[0] - 1,
+                        max_size=PIECES[1] - 1,
+                    )
                 )
             )
         )

@@ -56,18 +56,32 @@ class Signature:
 
     @classmethod
     def of(cls, f: Finding) -> Signature:
-        return cls(f.layer, f.check, f.context, f.pitch_nm, f.width_nm, f.space_nm,
-                   f.orientation_deg, f.lines, f.centre_um)  # fmt: skip
+        return cls(
+            f.layer,
+            f.check,
+            f.context,
+            f.pitch_nm,
+            f.width_nm,
+            f.space_nm,
+            f.orientation_deg,
+            f.lines,
+            f.centre_um,
+        )
 
     @classmethod
     def from_entry(cls, e: dict, where: str) -> Signature:
         try:
             return cls(
-                str(e["layer"]), str(e["check"]), str(e.get("context", "")),
-                _num(e["pitch_nm"]), _num(e["width_nm"]), _num(e["space_nm"]),
-                float(e["orientation_deg"]), int(e["lines"]),
+                str(e["layer"]),
+                str(e["check"]),
+                str(e.get("context", "")),
+                _num(e["pitch_nm"]),
+                _num(e["width_nm"]),
+                _num(e["space_nm"]),
+                float(e["orientation_deg"]),
+                int(e["lines"]),
                 (float(e["centre_um"][0]), float(e["centre_um"][1])),
-            )  # fmt: skip
+            )
         except (KeyError, TypeError, ValueError, IndexError) as exc:
             raise PitchguardError(f"{where}: baseline entry is malformed ({exc})") from None
 
@@ -91,8 +105,11 @@ def compatible(a: Signature, b: Signature) -> bool:
         return False
     if abs(a.lines - b.lines) > max(1, round(0.1 * max(a.lines, b.lines))):
         return False
-    return _close(a.pitch_nm, b.pitch_nm) and _close(a.width_nm, b.width_nm) \
-        and _close(a.space_nm, b.space_nm)  # fmt: skip
+    return (
+        _close(a.pitch_nm, b.pitch_nm)
+        and _close(a.width_nm, b.width_nm)
+        and _close(a.space_nm, b.space_nm)
+    )
 
 
 def _bucket(s: Signature) -> tuple:
@@ -117,7 +134,7 @@ def _candidates(old: list[Signature], new: list[Signature]) -> list[tuple[int, i
     for key, js in by_new.items():
         layer, check, context, pb = key
         olds: list[int] = []
-        for d in ((0,) if pb < 0 else (-2, -1, 0, 1, 2)):
+        for d in (0,) if pb < 0 else (-2, -1, 0, 1, 2):
             olds.extend(groups.get((layer, check, context, pb + d), []))
         if not olds:
             continue
@@ -140,8 +157,10 @@ def match(old: list[Signature], new: list[Signature]) -> list[tuple[int, int]]:
         return []
 
     def offset(i, j):
-        return (new[j].centre_um[0] - old[i].centre_um[0],
-                new[j].centre_um[1] - old[i].centre_um[1])  # fmt: skip
+        return (
+            new[j].centre_um[0] - old[i].centre_um[0],
+            new[j].centre_um[1] - old[i].centre_um[1],
+        )
 
     # The most common offset between paired positions is taken as a global shift.
     bins = Counter(
@@ -149,8 +168,11 @@ def match(old: list[Signature], new: list[Signature]) -> list[tuple[int, int]]:
         for dx, dy in (offset(i, j) for i, j in pairs)
     )
     bx, by = bins.most_common(1)[0][0]
-    near = [o for o in (offset(i, j) for i, j in pairs)
-            if abs(o[0] / SHIFT_BIN_UM - bx) <= 1 and abs(o[1] / SHIFT_BIN_UM - by) <= 1]
+    near = [
+        o
+        for o in (offset(i, j) for i, j in pairs)
+        if abs(o[0] / SHIFT_BIN_UM - bx) <= 1 and abs(o[1] / SHIFT_BIN_UM - by) <= 1
+    ]
     sx = sum(o[0] for o in near) / len(near)
     sy = sum(o[1] for o in near) / len(near)
 
@@ -186,14 +208,20 @@ class Gate:
 
 def entry_of(f: Finding, reason: str = "", owner: str = "") -> dict:
     return {
-        "layer": f.layer, "check": f.check, "severity": f.severity,
+        "layer": f.layer,
+        "check": f.check,
+        "severity": f.severity,
         "pitch_nm": f.pitch_nm if math.isfinite(f.pitch_nm) else None,
         "width_nm": f.width_nm if math.isfinite(f.width_nm) else None,
         "space_nm": f.space_nm if math.isfinite(f.space_nm) else None,
-        "orientation_deg": f.orientation_deg, "lines": f.lines, "context": f.context,
-        "centre_um": list(f.centre_um), "bbox_um": list(f.bbox_um),
-        "reason": reason, "owner": owner,
-    }  # fmt: skip
+        "orientation_deg": f.orientation_deg,
+        "lines": f.lines,
+        "context": f.context,
+        "centre_um": list(f.centre_um),
+        "bbox_um": list(f.bbox_um),
+        "reason": reason,
+        "owner": owner,
+    }
 
 
 def load_baseline(path: Path) -> list[dict]:
@@ -205,16 +233,16 @@ def load_baseline(path: Path) -> list[dict]:
     except (OSError, UnicodeDecodeError) as exc:
         raise PitchguardError(f"{where}: cannot read baseline: {exc}") from None
     except json.JSONDecodeError as exc:
-        raise PitchguardError(f"{where}: not a JSON baseline: {exc.msg} at line {exc.lineno}") \
-            from None  # fmt: skip
+        raise PitchguardError(
+            f"{where}: not a JSON baseline: {exc.msg} at line {exc.lineno}"
+        ) from None
     if not isinstance(data, dict) or data.get("pitchguard_baseline") != FORMAT_VERSION:
         raise PitchguardError(
-            f"{where}: not a pitchguard baseline (expected \"pitchguard_baseline\": "
-            f"{FORMAT_VERSION})"
+            f'{where}: not a pitchguard baseline (expected "pitchguard_baseline": {FORMAT_VERSION})'
         )
     entries = data.get("entries")
     if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries):
-        raise PitchguardError(f"{where}: baseline \"entries\" must be a list of objects")
+        raise PitchguardError(f'{where}: baseline "entries" must be a list of objects')
     for e in entries:
         Signature.from_entry(e, where)  # validate early: one clear error
     return entries
@@ -247,8 +275,10 @@ def write_baseline(
             previous = []  # not ours or broken: rewritten whole (atomically)
     entries = [entry_of(f) for f in findings]
     if previous:
-        for i, j in match([Signature.from_entry(e, str(path)) for e in previous],
-                          [Signature.of(f) for f in findings]):  # fmt: skip
+        for i, j in match(
+            [Signature.from_entry(e, str(path)) for e in previous],
+            [Signature.of(f) for f in findings],
+        ):
             entries[j]["reason"] = previous[i].get("reason", "")
             entries[j]["owner"] = previous[i].get("owner", "")
     payload = {

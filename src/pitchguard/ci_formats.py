@@ -289,10 +289,17 @@ def fingerprint_base(f: Finding) -> str:
     degrees (mod 180), so grid snapping of rotated geometry does not change it.
     """
     orient = round(f.orientation_deg) % 180
-    key = "|".join((
-        "v1", f.layer, f.check, _fp_value(f.pitch_nm), _fp_value(f.width_nm),
-        _fp_value(f.space_nm), str(orient),
-    ))  # fmt: skip
+    key = "|".join(
+        (
+            "v1",
+            f.layer,
+            f.check,
+            _fp_value(f.pitch_nm),
+            _fp_value(f.width_nm),
+            _fp_value(f.space_nm),
+            str(orient),
+        )
+    )
     return hashlib.sha256(key.encode("utf-8")).hexdigest()[:32]
 
 
@@ -310,8 +317,9 @@ def fingerprints(findings: Sequence[Finding], compact: bool = False) -> Sequence
         return []
     # ``compact``: the same texts, made when read (see _Fingerprints).
     names: dict[str, int] = {}
-    d_base = np.array([names.setdefault(fingerprint_base(f), len(names)) for f in fs.distinct],
-                      dtype=np.int64)  # fmt: skip
+    d_base = np.array(
+        [names.setdefault(fingerprint_base(f), len(names)) for f in fs.distinct], dtype=np.int64
+    )
     d_rank = np.array([f.severity_rank for f in fs.distinct], dtype=np.int64)
     base, rank, box = d_base[fs.which], d_rank[fs.which], fs.boxes()
     # By base, then box (x0, y0, x1, y1) and severity; ties keep the findings' order.
@@ -354,8 +362,9 @@ limit ("Results per run: 25,000", GitHub Docs, SARIF results exceed limits).
 A file with more is still valid SARIF; the command says so when it writes one."""
 
 
-def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
-             lazy: bool = False) -> dict:  # fmt: skip
+def to_sarif(
+    result: ScanResult, deck: Deck, layout_path: Path, fail_on: str, lazy: bool = False
+) -> dict:
     """A SARIF 2.1.0 log of a scan: one run, one rule per check, one result per finding.
 
     With ``lazy`` the results are :class:`~pitchguard.report.Rows`, made as
@@ -397,13 +406,15 @@ def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
             "ruleIndex": rule_index[f.check],
             "level": LEVEL[f.severity],
             "message": {"text": describe(f, holes)},
-            "locations": [{
-                "physicalLocation": {"artifactLocation": {"uri": uri}},
-                "logicalLocations": logical,
-            }],
+            "locations": [
+                {
+                    "physicalLocation": {"artifactLocation": {"uri": uri}},
+                    "logicalLocations": logical,
+                }
+            ],
             "partialFingerprints": {FINGERPRINT_KEY: fp},
             "properties": props,
-        }  # fmt: skip
+        }
 
     rows: Rows
     if isinstance(result.findings, FindingSet):
@@ -417,8 +428,9 @@ def to_sarif(result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
             out["fp"] = json.dumps(fps[k])
             return out
 
-        rows = PlacedRows(fs_, result_of, lambda d: result_of(-1, fs_.distinct[d], holes=True),
-                          fill)  # fmt: skip
+        rows = PlacedRows(
+            fs_, result_of, lambda d: result_of(-1, fs_.distinct[d], holes=True), fill
+        )
     else:
         rows = Rows(range(len(result.findings)), result_of)
     results = rows if lazy else list(rows)
@@ -467,13 +479,21 @@ def _default_inputs(layout_path: Path, deck: Deck) -> list[Path]:
 
 
 def write_sarif(
-    out: Path, result: ScanResult, deck: Deck, layout_path: Path, fail_on: str,
+    out: Path,
+    result: ScanResult,
+    deck: Deck,
+    layout_path: Path,
+    fail_on: str,
     inputs: list[Path] | None = None,
-) -> None:  # fmt: skip
+) -> None:
     """Write :func:`to_sarif` to ``out`` atomically (never over an input file)."""
     log = to_sarif(result, deck, layout_path, fail_on, lazy=True)
-    write_json(out, log, inputs if inputs is not None else _default_inputs(layout_path, deck),
-               ensure_ascii=False)  # fmt: skip
+    write_json(
+        out,
+        log,
+        inputs if inputs is not None else _default_inputs(layout_path, deck),
+        ensure_ascii=False,
+    )
 
 
 # ------------------------------------------------------------------- JUnit
@@ -495,12 +515,14 @@ def _placed_texts(fs: FindingSet, make) -> Iterator[str]:
     """``make(f, where)`` for each item of ``fs``: made once per distinct finding with
     the place marked, then the place of each item put in (the same text as
     ``make`` of the moved finding and its ``_where``, at a fraction of the cost)."""
+
     def split(d: int) -> list[str]:
         texts = make(fs.distinct[d], _WHERE).split(_WHERE)
         return [p for t in texts for p in (t, "where")][:-1]
 
-    return fill_templates(fs, split, lambda k, f, dx, dy: {
-        "where": _where_text(placed_numbers(f, dx, dy)[1])})  # fmt: skip
+    return fill_templates(
+        fs, split, lambda k, f, dx, dy: {"where": _where_text(placed_numbers(f, dx, dy)[1])}
+    )
 
 
 def finding_line(f: Finding, where: str | None = None) -> str:
@@ -535,8 +557,9 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
     rank = {s: k for k, s in enumerate(SEVERITIES)}
     d_rank = np.array([rank[f.severity] for f in fs.distinct], dtype=np.int64)
     pair_id: dict = {}
-    d_pair = np.array([pair_id.setdefault((f.layer, f.check), len(pair_id))
-                       for f in fs.distinct], dtype=np.int64)  # fmt: skip
+    d_pair = np.array(
+        [pair_id.setdefault((f.layer, f.check), len(pair_id)) for f in fs.distinct], dtype=np.int64
+    )
     item_pair, item_rank, box = d_pair[fs.which], d_rank[fs.which], fs.boxes()
     # Per (layer, check): worst first, then by place (as sorted() on (rank, bbox)).
     order = np.lexsort((box[:, 3], box[:, 2], box[:, 1], box[:, 0], item_rank, item_pair))
@@ -550,10 +573,15 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
     suites = []
     for name, source, seconds in layers:
         props = [
-            ("deck", deck.name), ("deck_path", str(deck.path) if deck.path else ""),
-            ("layout", layout_path), ("layer", name), ("source", source),
-            ("exposure", exposures.get(name, "")), ("fail_on", fail_on), ("caution", CAUTION),
-        ]  # fmt: skip
+            ("deck", deck.name),
+            ("deck_path", str(deck.path) if deck.path else ""),
+            ("layout", layout_path),
+            ("layer", name),
+            ("source", source),
+            ("exposure", exposures.get(name, "")),
+            ("fail_on", fail_on),
+            ("caution", CAUTION),
+        ]
         plan = []
         tests = failures = 0
         suite_out: list[FindingSet] = []  # findings below fail_on of failing pairs
@@ -571,8 +599,12 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
                 tests += 1
 
         def failing_case(f: Finding, where: str, name=name) -> ET.Element:
-            case = ET.Element("testcase", classname=_x(f"pitchguard.{name}.{f.check}"),
-                              name=_x(f"{f.check} at {where}"), time="0")  # fmt: skip
+            case = ET.Element(
+                "testcase",
+                classname=_x(f"pitchguard.{name}.{f.check}"),
+                name=_x(f"{f.check} at {where}"),
+                time="0",
+            )
             fail = ET.SubElement(case, "failure", message=_x(f.message), type=f.check)
             fail.text = _x(finding_line(f, where))
             return case
@@ -582,29 +614,41 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
             for check, failing, below in plan:
                 if len(failing):
                     if texts:
-                        yield from _placed_texts(failing,
-                                                 lambda f, w: _piece(failing_case(f, w), 2))
+                        yield from _placed_texts(
+                            failing, lambda f, w: _piece(failing_case(f, w), 2)
+                        )
                     else:
                         yield from (failing_case(f, _where(f)) for f in failing)
                 else:
-                    case = ET.Element("testcase", classname=_x(f"pitchguard.{name}"), name=check,
-                                      time="0")  # fmt: skip
+                    case = ET.Element(
+                        "testcase", classname=_x(f"pitchguard.{name}"), name=check, time="0"
+                    )
                     if len(below):
                         out = ET.SubElement(case, "system-out")
                         out.text = _x("\n".join(_placed_texts(below, finding_line)))
                     yield _piece(case, 2) if texts else case
 
-        attrs = {"name": _x(f"pitchguard.{name}"), "tests": str(tests),
-                 "failures": str(failures), "errors": "0", "skipped": "0",
-                 "time": f"{seconds:.3f}"}  # fmt: skip
+        attrs = {
+            "name": _x(f"pitchguard.{name}"),
+            "tests": str(tests),
+            "failures": str(failures),
+            "errors": "0",
+            "skipped": "0",
+            "time": f"{seconds:.3f}",
+        }
         suites.append((attrs, props, testcases, suite_out))
     return suites
 
 
 def _root_attrs(result: ScanResult, suites: list[tuple]) -> dict:
-    return {"name": "pitchguard", "tests": str(sum(int(s[0]["tests"]) for s in suites)),
-            "failures": str(sum(int(s[0]["failures"]) for s in suites)), "errors": "0",
-            "skipped": "0", "time": f"{result.seconds:.3f}"}  # fmt: skip
+    return {
+        "name": "pitchguard",
+        "tests": str(sum(int(s[0]["tests"]) for s in suites)),
+        "failures": str(sum(int(s[0]["failures"]) for s in suites)),
+        "errors": "0",
+        "skipped": "0",
+        "time": f"{result.seconds:.3f}",
+    }
 
 
 def _properties(props: list) -> ET.Element:
@@ -657,9 +701,12 @@ def _piece(el: ET.Element, level: int) -> str:
 
 
 def write_junit(
-    out: Path, result: ScanResult, deck: Deck, fail_on: str,
+    out: Path,
+    result: ScanResult,
+    deck: Deck,
+    fail_on: str,
     inputs: list[Path] | None = None,
-) -> None:  # fmt: skip
+) -> None:
     """Write :func:`to_junit`'s text to ``out`` atomically (never over an input file).
 
     Streamed one ``<testcase>`` at a time: the same text, without the whole
@@ -675,8 +722,12 @@ def write_junit(
         with open(tmp, "w", encoding="utf-8") as fh:
             fh.write('<?xml version="1.0" encoding="UTF-8"?>\n')
             if not suites:
-                fh.write(ET.tostring(ET.Element("testsuites", _root_attrs(result, suites)),
-                                     encoding="unicode") + "\n")  # fmt: skip
+                fh.write(
+                    ET.tostring(
+                        ET.Element("testsuites", _root_attrs(result, suites)), encoding="unicode"
+                    )
+                    + "\n"
+                )
                 return
             fh.write(_start_tag("testsuites", _root_attrs(result, suites)) + "\n")
             for attrs, props, testcases, suite_out in suites:

@@ -46,8 +46,7 @@ CHECKS = {
     "features-bridged": "At best focus and nominal dose the printed feature runs into "
     "its neighbour.",
     "low-k1": "k1 = (pitch/2) NA / lambda is below the layer's k1 band.",
-    "low-nils": "The normalised image log-slope at the drawn edges is below the layer's "
-    "NILS band.",
+    "low-nils": "The normalised image log-slope at the drawn edges is below the layer's NILS band.",
     "low-exposure-latitude": "The dose range holding CD within tolerance is below el_min_pct.",
     "low-depth-of-focus": "The focus range holding CD within tolerance with el_min_pct "
     "exposure latitude is below dof_min_nm.",
@@ -217,9 +216,12 @@ class FindingSet(Sequence):
             return f
         x0, y0, x1, y1 = f.bbox_nm
         cx, cy = f.cut_origin_nm
-        return _placer(f, (x0 + dx, y0 + dy, x1 + dx, y1 + dy),
-                       tuple([(x + dx, y + dy) for x, y in f.outline_nm]),
-                       (cx + dx, cy + dy))  # fmt: skip
+        return _placer(
+            f,
+            (x0 + dx, y0 + dy, x1 + dx, y1 + dy),
+            tuple([(x + dx, y + dy) for x, y in f.outline_nm]),
+            (cx + dx, cy + dy),
+        )
 
     def __getitem__(self, k):
         if isinstance(k, slice):
@@ -259,8 +261,9 @@ class FindingSet(Sequence):
         chip's million findings: a third of the memory to touch)."""
         base = np.array([f.bbox_nm for f in self.distinct], dtype=np.float64).reshape(-1, 4)
         pairs = np.empty((2, len(self.which)), dtype=np.complex128)
-        for k, (part, c) in enumerate(((pairs[0].real, 0), (pairs[0].imag, 1),
-                                       (pairs[1].real, 2), (pairs[1].imag, 3))):  # fmt: skip
+        for k, (part, c) in enumerate(
+            ((pairs[0].real, 0), (pairs[0].imag, 1), (pairs[1].real, 2), (pairs[1].imag, 3))
+        ):
             np.add(base[:, c][self.which], self.offset[:, k % 2], out=part)
         return pairs
 
@@ -326,65 +329,109 @@ def violations(
     """Every limit a site breaks, worst first."""
     out: list[Violation] = []
     if math.isfinite(pitch_wafer) and not res.resolvable:
-        out.append(Violation(
-            "unresolvable-pitch", "fail", pitch_wafer, res.cutoff_pitch_nm,
-            f"pitch {_fmt(pitch_wafer)} nm (wafer) is below the {_fmt(res.cutoff_pitch_nm)} nm "
-            "this exposure can image in this direction: no source point sends a 1st order "
-            "through the pupil",
-        ))  # fmt: skip
+        out.append(
+            Violation(
+                "unresolvable-pitch",
+                "fail",
+                pitch_wafer,
+                res.cutoff_pitch_nm,
+                f"pitch {_fmt(pitch_wafer)} nm (wafer) is below the {_fmt(res.cutoff_pitch_nm)} nm "
+                "this exposure can image in this direction: no source point sends a 1st order "
+                "through the pupil",
+            )
+        )
     m = metrics
     if m is not None:
         if m.lost:
-            out.append(Violation(
-                "feature-not-printed", "fail", m.contrast, 0.0,
-                f"the feature does not print at best focus and nominal dose "
-                f"(image contrast {m.contrast:.3f})",
-            ))  # fmt: skip
+            out.append(
+                Violation(
+                    "feature-not-printed",
+                    "fail",
+                    m.contrast,
+                    0.0,
+                    f"the feature does not print at best focus and nominal dose "
+                    f"(image contrast {m.contrast:.3f})",
+                )
+            )
         elif m.bridged:
-            out.append(Violation(
-                "features-bridged", "fail", m.contrast, 0.0,
-                "the printed feature runs into its neighbour at best focus and nominal dose",
-            ))  # fmt: skip
+            out.append(
+                Violation(
+                    "features-bridged",
+                    "fail",
+                    m.contrast,
+                    0.0,
+                    "the printed feature runs into its neighbour at best focus and nominal dose",
+                )
+            )
     if math.isfinite(pitch_wafer):
-        k1_bands = (("risk", rule.k1_risk_below, "k1_risk_below"),
-                    ("marginal", rule.k1_marginal_below, "k1_marginal_below"))  # fmt: skip
+        k1_bands = (
+            ("risk", rule.k1_risk_below, "k1_risk_below"),
+            ("marginal", rule.k1_marginal_below, "k1_marginal_below"),
+        )
         for sev, band, key in k1_bands:
             if res.k1 < band:
-                out.append(Violation(
-                    "low-k1", sev, res.k1, band,
-                    f"k1 {res.k1:.3f} is below {band:g} ({key}) at pitch "
-                    f"{_fmt(pitch_wafer)} nm (wafer)",
-                ))  # fmt: skip
+                out.append(
+                    Violation(
+                        "low-k1",
+                        sev,
+                        res.k1,
+                        band,
+                        f"k1 {res.k1:.3f} is below {band:g} ({key}) at pitch "
+                        f"{_fmt(pitch_wafer)} nm (wafer)",
+                    )
+                )
                 break
     if m is not None and not (m.lost or m.bridged):
-        nils_bands = (("fail", rule.nils_fail_below, "nils_fail_below"),
-                      ("risk", rule.nils_risk_below, "nils_risk_below"),
-                      ("marginal", rule.nils_marginal_below, "nils_marginal_below"))  # fmt: skip
+        nils_bands = (
+            ("fail", rule.nils_fail_below, "nils_fail_below"),
+            ("risk", rule.nils_risk_below, "nils_risk_below"),
+            ("marginal", rule.nils_marginal_below, "nils_marginal_below"),
+        )
         for sev, band, key in nils_bands:
             if m.nils < band:
-                out.append(Violation(
-                    "low-nils", sev, m.nils, band,
-                    f"NILS {m.nils:.2f} at the drawn edges is below {band:g} ({key})",
-                ))  # fmt: skip
+                out.append(
+                    Violation(
+                        "low-nils",
+                        sev,
+                        m.nils,
+                        band,
+                        f"NILS {m.nils:.2f} at the drawn edges is below {band:g} ({key})",
+                    )
+                )
                 break
         if m.el_pct < rule.el_min_pct:
-            out.append(Violation(
-                "low-exposure-latitude", "risk", m.el_pct, rule.el_min_pct,
-                f"exposure latitude {m.el_pct:.1f} % is below {rule.el_min_pct:g} % "
-                f"(CD within +-{rule.cd_tolerance_pct:g} %)",
-            ))  # fmt: skip
+            out.append(
+                Violation(
+                    "low-exposure-latitude",
+                    "risk",
+                    m.el_pct,
+                    rule.el_min_pct,
+                    f"exposure latitude {m.el_pct:.1f} % is below {rule.el_min_pct:g} % "
+                    f"(CD within +-{rule.cd_tolerance_pct:g} %)",
+                )
+            )
         if m.dof_nm < rule.dof_min_nm:
-            out.append(Violation(
-                "low-depth-of-focus", "risk", m.dof_nm, rule.dof_min_nm,
-                f"depth of focus {m.dof_nm:.0f} nm is below {rule.dof_min_nm:.0f} nm "
-                f"(at {rule.el_min_pct:g} % exposure latitude)",
-            ))  # fmt: skip
+            out.append(
+                Violation(
+                    "low-depth-of-focus",
+                    "risk",
+                    m.dof_nm,
+                    rule.dof_min_nm,
+                    f"depth of focus {m.dof_nm:.0f} nm is below {rule.dof_min_nm:.0f} nm "
+                    f"(at {rule.el_min_pct:g} % exposure latitude)",
+                )
+            )
         if math.isfinite(m.cd_error_pct) and abs(m.cd_error_pct) > rule.cd_tolerance_pct:
-            out.append(Violation(
-                "cd-error", "risk", m.cd_error_pct, rule.cd_tolerance_pct,
-                f"printed CD {m.cd_nm:.1f} nm is {m.cd_error_pct:+.1f} % off drawn at the "
-                f"anchored dose (tolerance +-{rule.cd_tolerance_pct:g} %)",
-            ))  # fmt: skip
+            out.append(
+                Violation(
+                    "cd-error",
+                    "risk",
+                    m.cd_error_pct,
+                    rule.cd_tolerance_pct,
+                    f"printed CD {m.cd_nm:.1f} nm is {m.cd_error_pct:+.1f} % off drawn at the "
+                    f"anchored dose (tolerance +-{rule.cd_tolerance_pct:g} %)",
+                )
+            )
     out.sort(key=lambda v: SEVERITIES.index(v.severity))
     return out
 
@@ -565,8 +612,14 @@ rotated geometry is snapped to the grid (each of the two edges that bound a
 pitch moves by up to 0.5 (|cos| + |sin|) <= 0.71 grid)."""
 
 
-IMAGE_CHECKS = ("feature-not-printed", "features-bridged", "low-nils",
-                "low-exposure-latitude", "low-depth-of-focus", "cd-error")  # fmt: skip
+IMAGE_CHECKS = (
+    "feature-not-printed",
+    "features-bridged",
+    "low-nils",
+    "low-exposure-latitude",
+    "low-depth-of-focus",
+    "cd-error",
+)
 HINT_RANGE = (0.6, 2.0)
 """Pitches tried for a fix hint, as fractions of the flagged pitch."""
 
@@ -659,8 +712,14 @@ def passing_pitch(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: flo
     return math.nan
 
 
-def hint_key(vs: list[Violation] | tuple, cutoff_pitch_nm: float, cd_w: float, pitch_w: float,
-             angle: float, scale: float) -> tuple:  # fmt: skip
+def hint_key(
+    vs: list[Violation] | tuple,
+    cutoff_pitch_nm: float,
+    cd_w: float,
+    pitch_w: float,
+    angle: float,
+    scale: float,
+) -> tuple:
     """All a finding's hint depends on, besides its layer's rule (plain values)."""
     return (tuple(v.check for v in vs), cutoff_pitch_nm, cd_w, pitch_w, angle, scale)
 
@@ -671,24 +730,37 @@ def hint_text(rule: LayerRule, key: tuple) -> str:
 
 
 @lru_cache(maxsize=65536)
-def _hint_cached(rule: LayerRule, checks: tuple[str, ...], cutoff_pitch_nm: float, cd_w: float,
-                 pitch_w: float, angle: float, scale: float) -> str:  # fmt: skip
+def _hint_cached(
+    rule: LayerRule,
+    checks: tuple[str, ...],
+    cutoff_pitch_nm: float,
+    cd_w: float,
+    pitch_w: float,
+    angle: float,
+    scale: float,
+) -> str:
     first = checks[0]
     feature = "line" if rule.field == "clear" else "opening"
     if first == "unresolvable-pitch":
         need = cutoff_pitch_nm / scale
-        return (f"widen the pitch to at least {math.ceil(need * 10) / 10:.1f} nm, or use "
-                "illumination that reaches further along the pitch direction")  # fmt: skip
+        return (
+            f"widen the pitch to at least {math.ceil(need * 10) / 10:.1f} nm, or use "
+            "illumination that reaches further along the pitch direction"
+        )
     if all(c == "low-k1" for c in checks):
         need = 2.0 * rule.k1_marginal_below * rule.exposure.lambda_over_na_nm / scale
-        return f"a pitch of at least {math.ceil(need * 10) / 10:.1f} nm reaches k1 " \
-            f"{rule.k1_marginal_below:g}"  # fmt: skip
+        return (
+            f"a pitch of at least {math.ceil(need * 10) / 10:.1f} nm reaches k1 "
+            f"{rule.k1_marginal_below:g}"
+        )
     if not math.isfinite(cd_w) or not math.isfinite(pitch_w):
         return f"widen the {feature} or give it neighbours at a regular pitch"
     ok = passing_pitch(rule, cd_w, pitch_w, angle)
     if math.isnan(ok):
-        return f"no nearby pitch passes at this {feature} width: widen the {feature}, or " \
-            "change the exposure (try `pitchguard sweep` for this layer and width)"  # fmt: skip
+        return (
+            f"no nearby pitch passes at this {feature} width: widen the {feature}, or "
+            "change the exposure (try `pitchguard sweep` for this layer and width)"
+        )
     p_d, s_d = ok / scale, (ok - cd_w) / scale
     return f"at this {feature} width, pitch {p_d:.1f} nm (space {s_d:.1f} nm) passes every limit"
 
@@ -703,12 +775,17 @@ def _near_border(corners: np.ndarray, tile, reach: float) -> np.ndarray:
     """
     x0, y0, x1, y1 = tile
     lo, hi = corners.min(axis=1), corners.max(axis=1)
-    return (lo[:, 0] <= x0 + reach) | (lo[:, 1] <= y0 + reach) | \
-        (hi[:, 0] >= x1 - reach) | (hi[:, 1] >= y1 - reach)  # fmt: skip
+    return (
+        (lo[:, 0] <= x0 + reach)
+        | (lo[:, 1] <= y0 + reach)
+        | (hi[:, 0] >= x1 - reach)
+        | (hi[:, 1] >= y1 - reach)
+    )
 
 
-def _site_rows(corners: np.ndarray, angle: np.ndarray, pitch: np.ndarray,
-               idx: np.ndarray) -> np.ndarray:  # fmt: skip
+def _site_rows(
+    corners: np.ndarray, angle: np.ndarray, pitch: np.ndarray, idx: np.ndarray
+) -> np.ndarray:
     """Rows (4 corners x, y; orientation; pitch) of sites ``idx``."""
     return np.column_stack([corners[idx].reshape(len(idx), 8), angle[idx], pitch[idx]])
 
@@ -734,9 +811,7 @@ def classify_layer(
     With ``defer_hints`` findings get an empty hint and the key to make it
     from (:attr:`Finding.hint_key`, see :func:`hint_text`).
     """
-    severity, results, which, found = judge_sites(
-        sites, rule, scale_to_wafer, metrics, which_cut
-    )
+    severity, results, which, found = judge_sites(sites, rule, scale_to_wafer, metrics, which_cut)
     flagged = np.flatnonzero(severity < OK)
     if len(flagged) == 0:
         return []
@@ -761,8 +836,14 @@ def classify_layer(
         # The worst site: most severe, then smallest pitch (finite pitches first).
         # Ties broken by position, so the choice does not depend on site order.
         mids = mid_all[members]
-        rank = np.lexsort((np.round(mids[:, 0], 3), np.round(mids[:, 1], 3),
-                           np.round(pitch_all[members], 3), sev[members]))  # fmt: skip
+        rank = np.lexsort(
+            (
+                np.round(mids[:, 0], 3),
+                np.round(mids[:, 1], 3),
+                np.round(pitch_all[members], 3),
+                sev[members],
+            )
+        )
         worst = members[rank[0]]
         code = int(sev[worst])
         w_idx, c_idx = int(which[flagged[worst]]), int(cut_of[worst])
@@ -776,31 +857,41 @@ def classify_layer(
         u0, u1, v0, v1 = pu.min(), pu.max(), pv.min(), pv.max()
         outline = tuple(
             (float(x), float(y))
-            for x, y in (d * u0 + nrm * v0, d * u1 + nrm * v0, d * u1 + nrm * v1,
-                         d * u0 + nrm * v1)  # fmt: skip
+            for x, y in (d * u0 + nrm * v0, d * u1 + nrm * v0, d * u1 + nrm * v1, d * u0 + nrm * v1)
         )
         # The box of the outline (not of the sites): the same whether a region
         # was found whole or merged from tiles.
         ol = np.array(outline)
         bbox = (
-            float(ol[:, 0].min()), float(ol[:, 1].min()),
-            float(ol[:, 0].max()), float(ol[:, 1].max()),
-        )  # fmt: skip
+            float(ol[:, 0].min()),
+            float(ol[:, 1].min()),
+            float(ol[:, 0].max()),
+            float(ol[:, 1].max()),
+        )
         line_points = _line_points(fs, normal_all, members)
         lines = count_lines(line_points, canonical_normal(normal_all[worst]), grid_nm)
         pitch_drawn = float(pitch_all[worst])
         width_drawn = float(fs.width[worst])
         top = vs[0]
         pitch_angle = math.degrees(math.atan2(normal_all[worst][1], normal_all[worst][0]))
-        key = hint_key(vs, res.cutoff_pitch_nm, width_drawn * scale_to_wafer,
-                       pitch_drawn * scale_to_wafer, pitch_angle, scale_to_wafer)
+        key = hint_key(
+            vs,
+            res.cutoff_pitch_nm,
+            width_drawn * scale_to_wafer,
+            pitch_drawn * scale_to_wafer,
+            pitch_angle,
+            scale_to_wafer,
+        )
         hint = "" if defer_hints else hint_text(rule, key)
         limit = f"{top.check}: {top.value:.4g} against {top.limit:.4g}"
         context = cuts[c_idx].context if (cuts and c_idx >= 0) else ""
         cut = cuts[c_idx] if (cuts and c_idx >= 0) else None
         mid = mid_all[worst]
-        border = None if near_border is None else \
-            _site_rows(corners_all, angle_all, pitch_all, members[near_border[members]])
+        border = (
+            None
+            if near_border is None
+            else _site_rows(corners_all, angle_all, pitch_all, members[near_border[members]])
+        )
         message = top.message
         if context == "outer" and top.check in IMAGE_CHECKS:
             message += " (at the last line of the array)"
@@ -841,15 +932,17 @@ def classify_layer(
                 dof_nm=round(m.dof_nm, 1) if m else math.nan,
                 violations=tuple(vs),
                 context=context,
-                cut_bounds_nm=tuple(round(b * scale_to_wafer, 3) for b in cut.bounds) if cut
-                else (),  # fmt: skip
+                cut_bounds_nm=tuple(round(b * scale_to_wafer, 3) for b in cut.bounds)
+                if cut
+                else (),
                 cut_angle_deg=round(pitch_angle % 360.0, 3),
                 cut_origin_nm=(float(mid[0]), float(mid[1])),
                 threshold=round(m.threshold, 5) if m else math.nan,
                 line_points=line_points,
                 border_sites=border,
-                extent_nm=_hull(corners_all[members].reshape(-1, 2)) if border is not None
-                and len(border) else None,  # fmt: skip
+                extent_nm=_hull(corners_all[members].reshape(-1, 2))
+                if border is not None and len(border)
+                else None,
                 hint_key=key if defer_hints else None,
             )
         )

@@ -72,9 +72,7 @@ def _pitch_range(text: str) -> tuple[float, float, float]:
     except ValueError:
         raise argparse.ArgumentTypeError("expected FROM:TO:STEP in nm, e.g. 80:400:5") from None
     if not (0 < lo < hi and step > 0) or (hi - lo) / step > 2000:
-        raise argparse.ArgumentTypeError(
-            "need 0 < FROM < TO, STEP > 0 and at most 2000 pitches"
-        )
+        raise argparse.ArgumentTypeError("need 0 < FROM < TO, STEP > 0 and at most 2000 pitches")
     return lo, hi, step
 
 
@@ -100,14 +98,27 @@ def build_parser() -> argparse.ArgumentParser:
 
     scan = sub.add_parser("scan", help="scan a GDSII/OASIS layout with a rule deck")
     scan.add_argument("layout", type=Path, help="GDSII (.gds) or OASIS (.oas) file")
-    scan.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK",
-                      help="rule deck (TOML)")  # fmt: skip
-    scan.add_argument("--region", type=_region, metavar="X0,Y0,X1,Y1",
-                      help="scan only sites inside this window (µm, as drawn)")  # fmt: skip
-    scan.add_argument("--baseline", type=Path, metavar="PATH",
-                      help="accepted findings: report and fail only on new ones")  # fmt: skip
-    scan.add_argument("--write-baseline", type=Path, metavar="PATH",
-                      help="record this scan's findings as accepted (keeps reasons)")
+    scan.add_argument(
+        "--rules", "-r", type=Path, required=True, metavar="DECK", help="rule deck (TOML)"
+    )
+    scan.add_argument(
+        "--region",
+        type=_region,
+        metavar="X0,Y0,X1,Y1",
+        help="scan only sites inside this window (µm, as drawn)",
+    )
+    scan.add_argument(
+        "--baseline",
+        type=Path,
+        metavar="PATH",
+        help="accepted findings: report and fail only on new ones",
+    )
+    scan.add_argument(
+        "--write-baseline",
+        type=Path,
+        metavar="PATH",
+        help="record this scan's findings as accepted (keeps reasons)",
+    )
     _add_outputs(scan)
 
     dif = sub.add_parser("diff", help="scan two revisions; report introduced, fixed, unchanged")
@@ -119,30 +130,65 @@ def build_parser() -> argparse.ArgumentParser:
     probe = sub.add_parser("probe", help="explain one pitch: orders, k1, aerial image, metrics")
     probe.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK")
     probe.add_argument("--layer", required=True, metavar="NAME", help="deck layer")
-    probe.add_argument("--pitch", type=_positive_float, required=True, metavar="NM",
-                       help="pitch, nm at wafer scale")  # fmt: skip
-    probe.add_argument("--cd", type=_positive_float, required=True, metavar="NM",
-                       help="feature width: line on a clear field, opening on a dark one")
-    probe.add_argument("--focus", type=float, default=0.0, metavar="NM",
-                       help="focus of the image shown (metrics use the deck's focus range)")
-    probe.add_argument("--orientation", type=float, default=90.0, metavar="DEG",
-                       help="direction the lines run (default 90: along y, pitch along x)")
+    probe.add_argument(
+        "--pitch",
+        type=_positive_float,
+        required=True,
+        metavar="NM",
+        help="pitch, nm at wafer scale",
+    )
+    probe.add_argument(
+        "--cd",
+        type=_positive_float,
+        required=True,
+        metavar="NM",
+        help="feature width: line on a clear field, opening on a dark one",
+    )
+    probe.add_argument(
+        "--focus",
+        type=float,
+        default=0.0,
+        metavar="NM",
+        help="focus of the image shown (metrics use the deck's focus range)",
+    )
+    probe.add_argument(
+        "--orientation",
+        type=float,
+        default=90.0,
+        metavar="DEG",
+        help="direction the lines run (default 90: along y, pitch along x)",
+    )
     probe.add_argument("--json", action="store_true", help="print one JSON object on stdout")
-    probe.add_argument("--plot", type=Path, metavar="PATH",
-                       help="write the aerial image (.png or .svg)")  # fmt: skip
+    probe.add_argument(
+        "--plot", type=Path, metavar="PATH", help="write the aerial image (.png or .svg)"
+    )
     probe.add_argument("--debug", action="store_true", help="show tracebacks")
 
     sweep = sub.add_parser("sweep", help="through-pitch sweep for one CD: forbidden pitches")
     sweep.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK")
     sweep.add_argument("--layer", required=True, metavar="NAME", help="deck layer")
-    sweep.add_argument("--cd", type=_positive_float, metavar="NM",
-                       help="feature width, nm (default: the layer's anchor CD)")  # fmt: skip
-    sweep.add_argument("--pitches", type=_pitch_range, metavar="FROM:TO:STEP",
-                       help="pitch range, nm (default: from the cutoff to 4 lambda/NA)")
-    sweep.add_argument("--orientation", type=float, default=90.0, metavar="DEG",
-                       help="direction the lines run (default 90)")  # fmt: skip
-    sweep.add_argument("--plot", type=Path, metavar="PATH",
-                       help="write the sweep plot (.png or .svg)")  # fmt: skip
+    sweep.add_argument(
+        "--cd",
+        type=_positive_float,
+        metavar="NM",
+        help="feature width, nm (default: the layer's anchor CD)",
+    )
+    sweep.add_argument(
+        "--pitches",
+        type=_pitch_range,
+        metavar="FROM:TO:STEP",
+        help="pitch range, nm (default: from the cutoff to 4 lambda/NA)",
+    )
+    sweep.add_argument(
+        "--orientation",
+        type=float,
+        default=90.0,
+        metavar="DEG",
+        help="direction the lines run (default 90)",
+    )
+    sweep.add_argument(
+        "--plot", type=Path, metavar="PATH", help="write the sweep plot (.png or .svg)"
+    )
     sweep.add_argument("--json", type=Path, metavar="PATH", help="write the sweep as JSON")
     sweep.add_argument("--debug", action="store_true", help="show tracebacks")
 
@@ -161,9 +207,12 @@ def _progress_callback(console):
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
     bar = Progress(
-        TextColumn("scanning {task.description:<24}"), BarColumn(), TimeElapsedColumn(),
-        console=console, transient=True,
-    )  # fmt: skip
+        TextColumn("scanning {task.description:<24}"),
+        BarColumn(),
+        TimeElapsedColumn(),
+        console=console,
+        transient=True,
+    )
     task = bar.add_task("", total=1)
 
     def update(stage: str, done: int, total: int) -> None:
@@ -176,41 +225,78 @@ def _add_outputs(p) -> None:
     """Output options shared by scan and diff."""
     from pitchguard.report import FAIL_ON_CHOICES
 
-    p.add_argument("--markers", type=Path, metavar="PATH",
-                   help="write a marker layout (.gds or .oas) of flagged regions")  # fmt: skip
+    p.add_argument(
+        "--markers",
+        type=Path,
+        metavar="PATH",
+        help="write a marker layout (.gds or .oas) of flagged regions",
+    )
     p.add_argument("--json", type=Path, metavar="PATH", help="write findings as JSON")
     p.add_argument("--sarif", type=Path, metavar="PATH", help="write SARIF 2.1.0 for code scanning")
     p.add_argument("--junit", type=Path, metavar="PATH", help="write JUnit XML for CI dashboards")
-    p.add_argument("--html", type=Path, metavar="PATH",
-                   help="write a self-contained HTML report with pictures")  # fmt: skip
     p.add_argument(
-        "--fail-on", choices=FAIL_ON_CHOICES, default="fail",
+        "--html", type=Path, metavar="PATH", help="write a self-contained HTML report with pictures"
+    )
+    p.add_argument(
+        "--fail-on",
+        choices=FAIL_ON_CHOICES,
+        default="fail",
         help="exit 1 when a (new) finding of this severity or worse exists (default: fail)",
-    )  # fmt: skip
+    )
     p.add_argument("--cell", metavar="NAME", help="top cell to scan (default: all top cells)")
-    p.add_argument("--top", type=_positive_int, default=20, metavar="N",
-                   help="worst regions listed in the terminal (default: 20)")  # fmt: skip
     p.add_argument(
-        "--max-shapes", type=_positive_int, default=None, metavar="N",
+        "--top",
+        type=_positive_int,
+        default=20,
+        metavar="N",
+        help="worst regions listed in the terminal (default: 20)",
+    )
+    p.add_argument(
+        "--max-shapes",
+        type=_positive_int,
+        default=None,
+        metavar="N",
         help="refuse layouts that flatten to more shapes (default: 2 billion tiled, "
         "20 million --untiled)",
-    )  # fmt: skip
-    p.add_argument("--read-timeout", type=_positive_float, default=None, metavar="S",
-                   help="stop reading a layout after S seconds (default: 3600)")  # fmt: skip
-    p.add_argument("--jobs", "-j", type=_positive_int, default=None, metavar="N",
-                   help="local worker processes for the tiles (default: all cores)")
-    p.add_argument("--tile-um", type=_positive_float, default=None, metavar="UM",
-                   help="tile size, rounded up to a multiple of 10 (default: chosen from the "
-                   "layout's arrays and --max-memory-mb)")
-    p.add_argument("--max-memory-mb", type=_positive_int, default=None, metavar="MB",
-                   help="memory for the scan's processes together; picks the tile size "
-                   "and may use fewer workers (default: 2048 per worker)")  # fmt: skip
-    p.add_argument("--scheduler", metavar="ADDRESS",
-                   help="run the tiles on this dask.distributed scheduler")  # fmt: skip
-    p.add_argument("--untiled", action="store_true",
-                   help="flatten the layout and scan it in this one process")  # fmt: skip
-    p.add_argument("--quiet", "-q", action="store_true",
-                   help="print only the one-line summary")  # fmt: skip
+    )
+    p.add_argument(
+        "--read-timeout",
+        type=_positive_float,
+        default=None,
+        metavar="S",
+        help="stop reading a layout after S seconds (default: 3600)",
+    )
+    p.add_argument(
+        "--jobs",
+        "-j",
+        type=_positive_int,
+        default=None,
+        metavar="N",
+        help="local worker processes for the tiles (default: all cores)",
+    )
+    p.add_argument(
+        "--tile-um",
+        type=_positive_float,
+        default=None,
+        metavar="UM",
+        help="tile size, rounded up to a multiple of 10 (default: chosen from the "
+        "layout's arrays and --max-memory-mb)",
+    )
+    p.add_argument(
+        "--max-memory-mb",
+        type=_positive_int,
+        default=None,
+        metavar="MB",
+        help="memory for the scan's processes together; picks the tile size "
+        "and may use fewer workers (default: 2048 per worker)",
+    )
+    p.add_argument(
+        "--scheduler", metavar="ADDRESS", help="run the tiles on this dask.distributed scheduler"
+    )
+    p.add_argument(
+        "--untiled", action="store_true", help="flatten the layout and scan it in this one process"
+    )
+    p.add_argument("--quiet", "-q", action="store_true", help="print only the one-line summary")
     p.add_argument("--debug", action="store_true", help="show tracebacks")
 
 
@@ -261,8 +347,9 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
     _resume_gc()
     tiled = not args.untiled
     if not tiled and (args.jobs or args.tile_um or args.scheduler or args.max_memory_mb):
-        raise PitchguardError("--untiled cannot be combined with --jobs, --tile-um, "
-                              "--max-memory-mb or --scheduler")  # fmt: skip
+        raise PitchguardError(
+            "--untiled cannot be combined with --jobs, --tile-um, --max-memory-mb or --scheduler"
+        )
     try:
         if bar:
             bar.start()
@@ -270,18 +357,29 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
             from pitchguard.parallel import DEFAULT_TILED_MAX_SHAPES, scan_tiled
 
             return scan_tiled(
-                layout, deck, tile_um=args.tile_um, jobs=args.jobs, scheduler=args.scheduler,
-                cell=args.cell, progress=update, region_um=getattr(args, "region", None),
+                layout,
+                deck,
+                tile_um=args.tile_um,
+                jobs=args.jobs,
+                scheduler=args.scheduler,
+                cell=args.cell,
+                progress=update,
+                region_um=getattr(args, "region", None),
                 max_shapes=args.max_shapes or DEFAULT_TILED_MAX_SHAPES,
-                read_timeout_s=args.read_timeout, max_memory_mb=args.max_memory_mb,
+                read_timeout_s=args.read_timeout,
+                max_memory_mb=args.max_memory_mb,
                 note=None if args.quiet else partial(_note, err),
                 ordered=not (args.command == "scan" and _only_counts(args)),
-            )  # fmt: skip
+            )
         return scan_layout(
-            layout, deck, cell=args.cell, region_um=getattr(args, "region", None),
-            max_shapes=args.max_shapes or DEFAULT_MAX_SHAPES, progress=update,
+            layout,
+            deck,
+            cell=args.cell,
+            region_um=getattr(args, "region", None),
+            max_shapes=args.max_shapes or DEFAULT_MAX_SHAPES,
+            progress=update,
             read_timeout_s=args.read_timeout,
-        )  # fmt: skip
+        )
     finally:
         if bar:
             bar.stop()
@@ -302,11 +400,15 @@ def _write_outputs(args, result, deck, inputs, extra_json: dict | None = None) -
 
         write_sarif(args.sarif, result, deck, result.layout.path, args.fail_on, inputs)
         if len(result.findings) > SERVICE_RESULTS_MAX:  # also with --quiet: CI logs need it
-            _note(_console(stderr=True), (
-                f"{args.sarif} holds {len(result.findings):,} results; code-scanning services "
-                f"take at most {SERVICE_RESULTS_MAX:,} per run (GitHub's documented limit): "
-                "upload the SARIF of a scan gated by --baseline (new findings only) or of a "
-                "--region"))  # fmt: skip
+            _note(
+                _console(stderr=True),
+                (
+                    f"{args.sarif} holds {len(result.findings):,} results; code-scanning services "
+                    f"take at most {SERVICE_RESULTS_MAX:,} per run (GitHub's documented limit): "
+                    "upload the SARIF of a scan gated by --baseline (new findings only) or of a "
+                    "--region"
+                ),
+            )
     if args.junit is not None:
         from pitchguard.ci_formats import write_junit
 
@@ -329,8 +431,11 @@ def cmd_scan(args) -> int:
 
     deck = load_deck(args.rules)
     inputs = [args.layout, args.rules] + ([args.baseline] if args.baseline else [])
-    same = args.write_baseline and args.baseline and \
-        args.write_baseline.resolve() == args.baseline.resolve()  # fmt: skip
+    same = (
+        args.write_baseline
+        and args.baseline
+        and args.write_baseline.resolve() == args.baseline.resolve()
+    )
     if same:
         inputs = inputs[:-1]  # updating a baseline in place keeps its reasons and owners
     _check_outputs(args, inputs)
@@ -341,38 +446,59 @@ def cmd_scan(args) -> int:
     shown = result
     if gate is not None:
         accepted_ids = {id(f) for f, _ in gate.accepted}
-        extra = {"baseline": {
-            "path": str(args.baseline),
-            "new": len(gate.new), "accepted": len(gate.accepted), "stale": len(gate.stale),
-            "stale_entries": gate.stale,
-            "accepted_entries": [{"finding_index": result.findings.index(f),
-                                  "reason": e.get("reason", ""), "owner": e.get("owner", "")}
-                                 for f, e in gate.accepted],
-        }}  # fmt: skip
-        extra["finding_status"] = ["accepted" if id(f) in accepted_ids else "new"
-                                   for f in result.findings]  # fmt: skip
+        extra = {
+            "baseline": {
+                "path": str(args.baseline),
+                "new": len(gate.new),
+                "accepted": len(gate.accepted),
+                "stale": len(gate.stale),
+                "stale_entries": gate.stale,
+                "accepted_entries": [
+                    {
+                        "finding_index": result.findings.index(f),
+                        "reason": e.get("reason", ""),
+                        "owner": e.get("owner", ""),
+                    }
+                    for f, e in gate.accepted
+                ],
+            }
+        }
+        extra["finding_status"] = [
+            "accepted" if id(f) in accepted_ids else "new" for f in result.findings
+        ]
         shown = dataclasses.replace(result, findings=gate.new)
     _write_outputs(args, result if gate is None else shown, deck, inputs, extra)
     if args.write_baseline is not None:
-        write_baseline(args.write_baseline, result.findings, deck.name, str(args.layout),
-                       [p for p in inputs if p != args.baseline])  # fmt: skip
+        write_baseline(
+            args.write_baseline,
+            result.findings,
+            deck.name,
+            str(args.layout),
+            [p for p in inputs if p != args.baseline],
+        )
     gated = gate.new if gate is not None else result.findings
     code = exit_code(gated, args.fail_on)
     note = ""
     if gate is not None:
-        note = (f" [baseline: {len(gate.new)} new, {len(gate.accepted)} accepted, "
-                f"{len(gate.stale)} stale]")  # fmt: skip
+        note = (
+            f" [baseline: {len(gate.new)} new, {len(gate.accepted)} accepted, "
+            f"{len(gate.stale)} stale]"
+        )
     if args.quiet:
         _say(one_line_summary(shown, args.fail_on) + note)
     else:
         out = _console()
         print_table(out, shown, args.fail_on, top=args.top)
         if gate is not None:
-            out.print(f"baseline {args.baseline}: {len(gate.new)} new finding(s) shown above, "
-                      f"{len(gate.accepted)} accepted, {len(gate.stale)} stale")  # fmt: skip
+            out.print(
+                f"baseline {args.baseline}: {len(gate.new)} new finding(s) shown above, "
+                f"{len(gate.accepted)} accepted, {len(gate.stale)} stale"
+            )
             for e in gate.stale[:20]:
-                out.print(f"  stale (fixed since, prune it): {e['layer']} {e['check']} "
-                          f"pitch {e['pitch_nm']} nm at {e['centre_um']} µm")  # fmt: skip
+                out.print(
+                    f"  stale (fixed since, prune it): {e['layer']} {e['check']} "
+                    f"pitch {e['pitch_nm']} nm at {e['centre_um']} µm"
+                )
     return code
 
 
@@ -389,17 +515,23 @@ def cmd_diff(args) -> int:
     base = _run_scan(args, deck, args.base, "base")
     new = _run_scan(args, deck, args.new, "new")
     d = diff(base.findings, new.findings)
-    shown = dataclasses.replace(new, findings=d.introduced,
-                                seconds=base.seconds + new.seconds)  # fmt: skip
-    extra = {"diff": {
-        "base": str(args.base), "new": str(args.new),
-        "introduced": len(d.introduced), "fixed": len(d.fixed), "unchanged": len(d.unchanged),
-        "fixed_findings": [finding_to_dict(f) for f in d.fixed],
-        "unchanged_findings": [finding_to_dict(f) for _, f in d.unchanged],
-    }}  # fmt: skip
+    shown = dataclasses.replace(new, findings=d.introduced, seconds=base.seconds + new.seconds)
+    extra = {
+        "diff": {
+            "base": str(args.base),
+            "new": str(args.new),
+            "introduced": len(d.introduced),
+            "fixed": len(d.fixed),
+            "unchanged": len(d.unchanged),
+            "fixed_findings": [finding_to_dict(f) for f in d.fixed],
+            "unchanged_findings": [finding_to_dict(f) for _, f in d.unchanged],
+        }
+    }
     _write_outputs(args, shown, deck, inputs, extra)
-    line = (f"diff {args.base} -> {args.new}: {len(d.introduced)} introduced, "
-            f"{len(d.fixed)} fixed, {len(d.unchanged)} unchanged")  # fmt: skip
+    line = (
+        f"diff {args.base} -> {args.new}: {len(d.introduced)} introduced, "
+        f"{len(d.fixed)} fixed, {len(d.unchanged)} unchanged"
+    )
     if args.quiet:
         _say(one_line_summary(shown, args.fail_on) + f" [{line}]")
     else:
@@ -407,8 +539,9 @@ def cmd_diff(args) -> int:
         print_table(out, shown, args.fail_on, top=args.top)
         out.print(line)
         for f in d.fixed[:20]:
-            out.print(f"  fixed: {f.layer} {f.check} pitch {f.pitch_nm:.1f} nm at "
-                      f"{f.centre_um} µm (base)")  # fmt: skip
+            out.print(
+                f"  fixed: {f.layer} {f.check} pitch {f.pitch_nm:.1f} nm at {f.centre_um} µm (base)"
+            )
     return exit_code(d.introduced, args.fail_on)
 
 
@@ -420,12 +553,24 @@ def cmd_rules_check(args) -> int:
 
     deck = load_deck(args.deck)
     console = _console()
-    scale = f"drawn at mask scale, reduction {deck.reduction:g}" if deck.drawn_scale == "mask" \
-        else "drawn at wafer scale"  # fmt: skip
+    scale = (
+        f"drawn at mask scale, reduction {deck.reduction:g}"
+        if deck.drawn_scale == "mask"
+        else "drawn at wafer scale"
+    )
     console.print(f"{args.deck}: valid deck '{deck.name}', {len(deck.layers)} layers, {scale}")
     t = Table(show_edge=False)
-    for col in ("layer", "source", "field", "exposure", "λ nm", "NA", "σ max",
-                "cutoff x / y nm", "k1 risk / marginal pitch nm"):  # fmt: skip
+    for col in (
+        "layer",
+        "source",
+        "field",
+        "exposure",
+        "λ nm",
+        "NA",
+        "σ max",
+        "cutoff x / y nm",
+        "k1 risk / marginal pitch nm",
+    ):
         t.add_column(col)
     for r in deck.layers:
         e = r.exposure
@@ -433,9 +578,16 @@ def cmd_rules_check(args) -> int:
         pr = 2 * r.k1_risk_below * e.wavelength_nm / e.na
         pm = 2 * r.k1_marginal_below * e.wavelength_nm / e.na
         t.add_row(
-            r.name, r.source, r.field, r.exposure_name, f"{e.wavelength_nm:g}", f"{e.na:g}",
-            f"{e.sigma_max:g}", f"{cx:.1f} / {cy:.1f}", f"{pr:.1f} / {pm:.1f}",
-        )  # fmt: skip
+            r.name,
+            r.source,
+            r.field,
+            r.exposure_name,
+            f"{e.wavelength_nm:g}",
+            f"{e.na:g}",
+            f"{e.sigma_max:g}",
+            f"{cx:.1f} / {cy:.1f}",
+            f"{pr:.1f} / {pm:.1f}",
+        )
     console.print(t)
     console.print("[dim]pitches at wafer scale; cutoff x is for lines along y (pitch along x)[/]")
     return EXIT_OK
@@ -496,23 +648,37 @@ def _grating_json(r) -> dict:
     from pitchguard.report import _clean
 
     m = r.metrics
-    return _clean({
-        "pitch_nm": r.pitch_nm, "cd_nm": r.cd_nm, "orientation_deg": r.orientation_deg,
-        "k1": r.orders.k1, "orders": list(r.orders.orders),
-        "orders_on_axis": list(r.orders.orders_on_axis),
-        "two_beam_fraction": r.orders.two_beam_fraction,
-        "cutoff_pitch_nm": r.orders.cutoff_pitch_nm,
-        "contrast": m.contrast if m else None, "nils": m.nils if m else None,
-        "printed_cd_nm": m.cd_nm if m else None,
-        "cd_error_pct": m.cd_error_pct if m else None,
-        "exposure_latitude_pct": m.el_pct if m else None,
-        "depth_of_focus_nm": m.dof_nm if m else None,
-        "threshold": m.threshold if m else None,
-        "dose_to_size": m.dose_to_size if m else None,
-        "severity": r.severity,
-        "checks": [{"check": v.check, "severity": v.severity, "value": v.value,
-                    "limit": v.limit, "message": v.message} for v in r.violations],
-    })  # fmt: skip
+    return _clean(
+        {
+            "pitch_nm": r.pitch_nm,
+            "cd_nm": r.cd_nm,
+            "orientation_deg": r.orientation_deg,
+            "k1": r.orders.k1,
+            "orders": list(r.orders.orders),
+            "orders_on_axis": list(r.orders.orders_on_axis),
+            "two_beam_fraction": r.orders.two_beam_fraction,
+            "cutoff_pitch_nm": r.orders.cutoff_pitch_nm,
+            "contrast": m.contrast if m else None,
+            "nils": m.nils if m else None,
+            "printed_cd_nm": m.cd_nm if m else None,
+            "cd_error_pct": m.cd_error_pct if m else None,
+            "exposure_latitude_pct": m.el_pct if m else None,
+            "depth_of_focus_nm": m.dof_nm if m else None,
+            "threshold": m.threshold if m else None,
+            "dose_to_size": m.dose_to_size if m else None,
+            "severity": r.severity,
+            "checks": [
+                {
+                    "check": v.check,
+                    "severity": v.severity,
+                    "value": v.value,
+                    "limit": v.limit,
+                    "message": v.message,
+                }
+                for v in r.violations
+            ],
+        }
+    )
 
 
 def cmd_probe(args) -> int:
@@ -545,8 +711,10 @@ def cmd_probe(args) -> int:
         f"{e.mask.kind} mask"
     )
     feature = "line" if rule.field == "clear" else "opening"
-    console.print(f"grating: pitch {r.pitch_nm:g} nm, {feature} {r.cd_nm:g} nm, "
-                  f"lines along {r.orientation_deg:g}°")  # fmt: skip
+    console.print(
+        f"grating: pitch {r.pitch_nm:g} nm, {feature} {r.cd_nm:g} nm, "
+        f"lines along {r.orientation_deg:g}°"
+    )
     o = r.orders
     console.print(
         f"k1 {o.k1:.3f}; orders on axis {list(o.orders_on_axis)}; through the source "
@@ -556,18 +724,24 @@ def cmd_probe(args) -> int:
     console.print()
     for line in pupil_picture(rule, r):
         console.print("   " + line, highlight=False, markup=False)
-    console.print("   [dim]* pupil edge, 0 source (0th order), + / - source shifted by the "
-                  "+1st / -1st order inside the pupil, 2 higher orders[/]")  # fmt: skip
+    console.print(
+        "   [dim]* pupil edge, 0 source (0th order), + / - source shifted by the "
+        "+1st / -1st order inside the pupil, 2 higher orders[/]"
+    )
     console.print()
     m = r.metrics
     if m is not None:
         rows = [
             ("image contrast", _fmt_num(m.contrast, "", 3)),
             ("NILS at the drawn edges", _fmt_num(m.nils, "", 2)),
-            ("printed CD at nominal dose", "lost" if m.lost else "bridged" if m.bridged
-             else _fmt_num(m.cd_nm, " nm", 1)),  # fmt: skip
-            ("CD error", _fmt_num(m.cd_error_pct, " %", 1) if rule.anchor else
-             "not judged (no anchor)"),  # fmt: skip
+            (
+                "printed CD at nominal dose",
+                "lost" if m.lost else "bridged" if m.bridged else _fmt_num(m.cd_nm, " nm", 1),
+            ),
+            (
+                "CD error",
+                _fmt_num(m.cd_error_pct, " %", 1) if rule.anchor else "not judged (no anchor)",
+            ),
             ("exposure latitude", _fmt_num(m.el_pct, " %", 1)),
             ("depth of focus", _fmt_num(m.dof_nm, " nm", 0)),
             ("threshold / dose-to-size", f"{m.threshold:.3f} / {_fmt_num(m.dose_to_size, '', 3)}"),
@@ -597,9 +771,7 @@ def cmd_sweep(args) -> int:
     cd = args.cd
     if cd is None:
         if rule.anchor is None:
-            raise PitchguardError(
-                f"layer {rule.name!r} has no anchor in the deck: give --cd NM"
-            )
+            raise PitchguardError(f"layer {rule.name!r} has no anchor in the deck: give --cd NM")
         cd = rule.anchor.cd_nm
     if args.pitches:
         lo, hi, step = args.pitches
@@ -612,20 +784,23 @@ def cmd_sweep(args) -> int:
         results = through_pitch(rule, cd, pitches, args.orientation)
     if not results:
         raise PitchguardError(f"no pitch in the range is larger than the CD ({cd:g} nm)")
-    t = Table(title=f"{rule.name}: CD {cd:g} nm through pitch", title_justify="left",
-              show_edge=False)  # fmt: skip
+    t = Table(
+        title=f"{rule.name}: CD {cd:g} nm through pitch", title_justify="left", show_edge=False
+    )
     for col in ("pitch nm", "k1", "contrast", "NILS", "CD err %", "EL %", "DOF nm", "verdict"):
         t.add_column(col, justify="right" if col != "verdict" else "left")
     for r in results:
         m = r.metrics
         t.add_row(
-            f"{r.pitch_nm:.1f}", f"{r.orders.k1:.3f}",
-            _fmt_num(m.contrast if m else None, "", 3), _fmt_num(m.nils if m else None),
+            f"{r.pitch_nm:.1f}",
+            f"{r.orders.k1:.3f}",
+            _fmt_num(m.contrast if m else None, "", 3),
+            _fmt_num(m.nils if m else None),
             _fmt_num(m.cd_error_pct if m else None, "", 1),
             _fmt_num(m.el_pct if m else None, "", 1),
             _fmt_num(m.dof_nm if m else None, "", 0),
             r.severity if r.severity == "ok" else f"{r.severity} ({r.violations[0].check})",
-        )  # fmt: skip
+        )
     console.print(t)
     for a, b, sev in bands(results):
         console.print(f"  {sev:<8} pitch {a:.1f} - {b:.1f} nm")
@@ -636,11 +811,17 @@ def cmd_sweep(args) -> int:
 
         plot_sweep(rule, results, args.plot, inputs)
     if args.json is not None:
-        write_json(args.json, {
-            "layer": rule.name, "cd_nm": cd, "caution": CAUTION,
-            "bands": [{"from_nm": a, "to_nm": b, "severity": s} for a, b, s in bands(results)],
-            "pitches": [_grating_json(r) for r in results],
-        }, inputs)  # fmt: skip
+        write_json(
+            args.json,
+            {
+                "layer": rule.name,
+                "cd_nm": cd,
+                "caution": CAUTION,
+                "bands": [{"from_nm": a, "to_nm": b, "severity": s} for a, b, s in bands(results)],
+                "pitches": [_grating_json(r) for r in results],
+            },
+            inputs,
+        )
     return EXIT_OK
 
 
@@ -724,8 +905,9 @@ def _after_fork_in_child() -> None:
         signal.pthread_sigmask(signal.SIG_UNBLOCK, _STOP_SIGNALS)  # pending: handled as above
 
 
-os.register_at_fork(before=_before_fork, after_in_parent=_after_fork_in_parent,
-                    after_in_child=_after_fork_in_child)  # fmt: skip
+os.register_at_fork(
+    before=_before_fork, after_in_parent=_after_fork_in_parent, after_in_child=_after_fork_in_child
+)
 
 
 _GC_PAUSED = {"by_us": False}
@@ -749,8 +931,10 @@ def main(argv: list[str] | None = None) -> int:
         gc.disable()
         _GC_PAUSED["by_us"] = True
     try:
-        previous = {sig: signal.signal(sig, handler) for sig, handler in
-                    ((signal.SIGTERM, _on_sigterm), (signal.SIGINT, _on_sigint))}  # fmt: skip
+        previous = {
+            sig: signal.signal(sig, handler)
+            for sig, handler in ((signal.SIGTERM, _on_sigterm), (signal.SIGINT, _on_sigint))
+        }
     except ValueError:  # not the main thread (embedded use): leave signals alone
         previous = {}
     try:
@@ -827,8 +1011,10 @@ def _main(argv: list[str] | None = None) -> int:
             _tell(f"pitchguard: error: {exc}")
             return exc.exit_code
         # A bug, not the user's fault.
-        _tell(f"pitchguard: internal error: {type(exc).__name__}: {exc} "
-              "(run with --debug for a traceback, and please report it)")
+        _tell(
+            f"pitchguard: internal error: {type(exc).__name__}: {exc} "
+            "(run with --debug for a traceback, and please report it)"
+        )
         return EXIT_INTERNAL
 
 

@@ -92,8 +92,11 @@ def site_cuts(
     mid = sites.midpoints()
     nrm = sites.normal
     pitch_angle = np.degrees(np.arctan2(nrm[:, 1], nrm[:, 0])) % 180.0
-    angle_key = np.round(pitch_angle * 10).astype(np.int64) % 1800 if turn_source \
-        else np.zeros(n, dtype=np.int64)  # fmt: skip
+    angle_key = (
+        np.round(pitch_angle * 10).astype(np.int64) % 1800
+        if turn_source
+        else np.zeros(n, dtype=np.int64)
+    )
     todo = np.flatnonzero(np.isfinite(sites.width) & (sites.width <= ambit_nm))
     keys: dict[tuple, int] = {}
     cuts: list[Cut] = []
@@ -138,8 +141,10 @@ def site_cuts(
                 prod = val * _powers(mult, int(rank.max(initial=0)) + 1)[rank]
                 np.add.at(h[:, col], qk, prod)
         wq = np.round(sites.width[ids] / q).astype(np.int64)
-        raw = np.stack([h[:, 0].view(np.int64), h[:, 1].view(np.int64), ends - starts, wq,
-                        angle_key[ids]], axis=1)  # fmt: skip
+        raw = np.stack(
+            [h[:, 0].view(np.int64), h[:, 1].view(np.int64), ends - starts, wq, angle_key[ids]],
+            axis=1,
+        )
         _, first, inverse = np.unique(raw, axis=0, return_index=True, return_inverse=True)
         inverse = inverse.ravel()
         # The cut of a pattern is built from the quantised pattern alone (not from
@@ -265,4 +270,3 @@ def cut_segments(cut: Cut, period_nm: float) -> tuple[np.ndarray, np.ndarray]:
 def window_period(ambit_nm: float, lambda_over_na_nm: float) -> float:
     """Image period of a cut: the cut (2 ambit) plus one lambda/NA of padding each side."""
     return 2.0 * ambit_nm + 2.0 * lambda_over_na_nm
-

@@ -360,12 +360,29 @@ class LayerRule:
     """A deck layer with its exposure and every limit resolved to a number."""
 
     __slots__ = (
-        "name", "layer", "datatype", "exposure_name", "exposure", "field",
-        "k1_risk_below", "k1_marginal_below", "min_run_nm", "ambit_nm",
-        "pitch_tolerance_nm", "dense_min_lines", "image_checks", "nils_risk_below",
-        "nils_marginal_below", "el_min_pct", "cd_tolerance_pct", "dof_min_nm",
-        "focus_half_range_nm", "focus_steps", "anchor", "nils_fail_below",
-    )  # fmt: skip
+        "name",
+        "layer",
+        "datatype",
+        "exposure_name",
+        "exposure",
+        "field",
+        "k1_risk_below",
+        "k1_marginal_below",
+        "min_run_nm",
+        "ambit_nm",
+        "pitch_tolerance_nm",
+        "dense_min_lines",
+        "image_checks",
+        "nils_risk_below",
+        "nils_marginal_below",
+        "el_min_pct",
+        "cd_tolerance_pct",
+        "dof_min_nm",
+        "focus_half_range_nm",
+        "focus_steps",
+        "anchor",
+        "nils_fail_below",
+    )
 
     def __init__(self, entry: LayerEntry, exposure: Exposure, defaults: Limits):
         self.name = entry.name
@@ -387,8 +404,15 @@ class LayerRule:
         self.ambit_nm = pick("ambit_nm", AMBIT_LAMBDA_NA * exposure.lambda_over_na_nm)
         self.pitch_tolerance_nm = pick("pitch_tolerance_nm", LIMIT_DEFAULTS["pitch_tolerance_nm"])
         self.dense_min_lines = int(pick("dense_min_lines", LIMIT_DEFAULTS["dense_min_lines"]))
-        for key in ("image_checks", "nils_fail_below", "nils_risk_below",
-                    "nils_marginal_below", "el_min_pct", "cd_tolerance_pct", "focus_steps"):
+        for key in (
+            "image_checks",
+            "nils_fail_below",
+            "nils_risk_below",
+            "nils_marginal_below",
+            "el_min_pct",
+            "cd_tolerance_pct",
+            "focus_steps",
+        ):
             setattr(self, key, pick(key, LIMIT_DEFAULTS[key]))
         rayleigh = exposure.immersion_index * exposure.wavelength_nm / exposure.na**2
         self.dof_min_nm = pick("dof_min_nm", DOF_RAYLEIGH_K2 * rayleigh)
@@ -488,8 +512,10 @@ def _format_validation_error(path: str, err: ValidationError, data: dict) -> str
             clean.append(part)
     if keyed is not None:
         where = _format_loc(tuple(clean))
-        key = f"{where}.{keyed.key}" if where and not keyed.key.startswith("[") else (
-            where + keyed.key if where else keyed.key
+        key = (
+            f"{where}.{keyed.key}"
+            if where and not keyed.key.startswith("[")
+            else (where + keyed.key if where else keyed.key)
         )
         return f"{path}: {key}: {keyed}"
     key = _format_loc(tuple(clean)) or "(top level)"

@@ -149,8 +149,9 @@ def _query_pairs_batched(index, item_lo, item_hi, mins, maxs) -> tuple[np.ndarra
         pos = np.arange(len(order)) - first
         # Within a row: at most BATCH_MAX a batch, spanning at most one box's span.
         step = np.floor((lo_o - lo_o[first]) / np.maximum(span[first], 1e-9)).astype(np.int64)
-        key_new = np.r_[True, (pos[1:] // BATCH_MAX != pos[:-1] // BATCH_MAX)
-                        | (step[1:] != step[:-1])]  # fmt: skip
+        key_new = np.r_[
+            True, (pos[1:] // BATCH_MAX != pos[:-1] // BATCH_MAX) | (step[1:] != step[:-1])
+        ]
         new = row_new | key_new
         bid = np.cumsum(new) - 1
         size = np.bincount(bid)
@@ -382,9 +383,7 @@ def build_features(ps: PolygonSet, grid_nm: float) -> Edges:
     if len(multi_idx):
         mset = _merge_groups(ps, multi_idx, label[multi_idx], grid_nm)
         marea = _signed_areas(mset)
-        a2, b2, f2 = _ring_edges(
-            mset, np.arange(len(mset), dtype=np.int64) + n_features, marea < 0
-        )
+        a2, b2, f2 = _ring_edges(mset, np.arange(len(mset), dtype=np.int64) + n_features, marea < 0)
         n_features += len(mset)
         parts = [a1, a2], [b1, b2], [f1, f2]
     else:
@@ -451,10 +450,14 @@ class Sites:
         p0 = o + d * self.u0[:, None]
         p1 = o + d * self.u1[:, None]
         return np.stack(
-            [p0 - nrm * w[:, None], p1 - nrm * w[:, None], p1 + nrm * s[:, None],
-             p0 + nrm * s[:, None]],
+            [
+                p0 - nrm * w[:, None],
+                p1 - nrm * w[:, None],
+                p1 + nrm * s[:, None],
+                p0 + nrm * s[:, None],
+            ],
             axis=1,
-        )  # fmt: skip
+        )
 
     def midpoints(self) -> np.ndarray:
         return self.origin + self.direction * (0.5 * (self.u0 + self.u1))[:, None]
@@ -491,8 +494,15 @@ class ExtractStats:
 
     def add(self, other: ExtractStats, times: int = 1) -> None:
         """Add ``other``'s counts ``times`` over (a tile reused on ``times`` tiles)."""
-        for k in ("shapes", "features", "edges", "short_edges", "pieces_2d", "sites",
-                  "isolated_sites"):  # fmt: skip
+        for k in (
+            "shapes",
+            "features",
+            "edges",
+            "short_edges",
+            "pieces_2d",
+            "sites",
+            "isolated_sites",
+        ):
             setattr(self, k, getattr(self, k) + times * getattr(other, k))
         for k, v in other.extra.items():
             self.extra[k] = self.extra.get(k, 0) + times * v
@@ -587,8 +597,9 @@ class _EdgeFrames:
             sel = ids[group == g]
             th = self.turn[g]
             sweep = nrm[sel] * window
-            ends = np.stack([self.a[sel] + sweep, self.a[sel] - sweep,
-                             self.b[sel] + sweep, self.b[sel] - sweep])  # fmt: skip
+            ends = np.stack(
+                [self.a[sel] + sweep, self.a[sel] - sweep, self.b[sel] + sweep, self.b[sel] - sweep]
+            )
             ends = self._rotated(th, ends.reshape(-1, 2)).reshape(ends.shape)
             qk, j = self.query(g, ends.min(axis=0), ends.max(axis=0))
             out_i.append(sel[qk])
@@ -723,8 +734,13 @@ def find_sites(
         stats.features = _features_owned(edges, region)
         x0, y0, x1, y1 = region
         lo, hi = np.minimum(a, b), np.maximum(a, b)
-        wanted = long_ & (hi[:, 0] >= x0 - eps) & (lo[:, 0] <= x1 + eps) \
-            & (hi[:, 1] >= y0 - eps) & (lo[:, 1] <= y1 + eps)  # fmt: skip
+        wanted = (
+            long_
+            & (hi[:, 0] >= x0 - eps)
+            & (lo[:, 0] <= x1 + eps)
+            & (hi[:, 1] >= y0 - eps)
+            & (lo[:, 1] <= y1 + eps)
+        )
     else:
         stats.short_edges = int((~long_).sum())
     slack = 4 * eps  # snapped rotated geometry may end a grid short of the corner
@@ -737,9 +753,15 @@ def find_sites(
     def settled_sites(ids, width, space) -> None:
         parts.append(
             Sites(
-                edge=ids, feature=edges.feature[ids], u0=np.zeros(len(ids)), u1=length[ids],
-                origin=a[ids], direction=d[ids], width=width, space=space,
-            )  # fmt: skip
+                edge=ids,
+                feature=edges.feature[ids],
+                u0=np.zeros(len(ids)),
+                u1=length[ids],
+                origin=a[ids],
+                direction=d[ids],
+                width=width,
+                space=space,
+            )
         )
 
     long_idx = np.flatnonzero(wanted)
@@ -766,9 +788,15 @@ def find_sites(
         hard[rest[~simple]] = True
         sel = hard[i]
         for row in zip(
-            i[sel].tolist(), side[sel].tolist(), lo[sel].tolist(), hi[sel].tolist(),
-            dist[sel].tolist(), facing[sel].tolist(), j[sel].tolist(), strict=True,
-        ):  # fmt: skip
+            i[sel].tolist(),
+            side[sel].tolist(),
+            lo[sel].tolist(),
+            hi[sel].tolist(),
+            dist[sel].tolist(),
+            facing[sel].tolist(),
+            j[sel].tolist(),
+            strict=True,
+        ):
             complex_rows.setdefault(row[0], []).append(row[1:])
         for e in rest[~simple].tolist():
             complex_rows.setdefault(e, [])
@@ -856,8 +884,9 @@ def _resolve_complex(rows: dict, length, min_run_nm, eps) -> tuple[list[tuple], 
         width_c = [(lo, hi, dist, fac, j) for s, lo, hi, dist, fac, j in cands if s < 0]
         sp = _envelope(L, space_c, eps)
         wp = _envelope(L, width_c, eps)
-        cuts = sorted({p[0] for p in sp} | {p[1] for p in sp} | {p[0] for p in wp}
-                      | {p[1] for p in wp})  # fmt: skip
+        cuts = sorted(
+            {p[0] for p in sp} | {p[1] for p in sp} | {p[0] for p in wp} | {p[1] for p in wp}
+        )
         merged: list[list] = []
         for u0, u1 in zip(cuts[:-1], cuts[1:], strict=True):
             if u1 - u0 <= eps:

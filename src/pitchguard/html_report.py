@@ -88,9 +88,15 @@ def _q(value: float, digits: int = 1) -> str:
 def group_key(f: Finding) -> tuple:
     """Findings with equal keys are drawn once and listed together."""
     return (
-        f.layer, f.check, f.severity, _q(f.pitch_nm), _q(f.width_nm), _q(f.space_nm),
-        _q(f.orientation_deg % 180.0), f.context,
-    )  # fmt: skip
+        f.layer,
+        f.check,
+        f.severity,
+        _q(f.pitch_nm),
+        _q(f.width_nm),
+        _q(f.space_nm),
+        _q(f.orientation_deg % 180.0),
+        f.context,
+    )
 
 
 @dataclass
@@ -123,8 +129,9 @@ def group_findings(findings: Sequence[Finding]) -> list[Group]:
 
 def _group_set(findings: FindingSet) -> list[Group]:
     keys: dict[tuple, int] = {}
-    of_distinct = np.array([keys.setdefault(group_key(f), len(keys))
-                            for f in findings.distinct], dtype=np.int64)  # fmt: skip
+    of_distinct = np.array(
+        [keys.setdefault(group_key(f), len(keys)) for f in findings.distinct], dtype=np.int64
+    )
     n = len(findings)
     if n == 0:
         return []
@@ -136,8 +143,9 @@ def _group_set(findings: FindingSet) -> list[Group]:
     order = np.lexsort((np.arange(n), rank[gid]))
     bounds = np.flatnonzero(np.diff(rank[gid][order])) + 1
     key_of = list(keys)
-    return [Group(key_of[int(gid[idx[0]])], findings.select(idx))
-            for idx in np.split(order, bounds)]  # fmt: skip
+    return [
+        Group(key_of[int(gid[idx[0]])], findings.select(idx)) for idx in np.split(order, bounds)
+    ]
 
 
 # --------------------------------------------------------------------------- formatting
@@ -171,8 +179,9 @@ def _orders_text(orders: tuple[int, ...]) -> str:
 def _value_vs_limit(check: str, value: float, limit: float) -> str:
     """A violation's value against its limit, in words a designer reads."""
     forms = {
-        "unresolvable-pitch": lambda v, lim: f"pitch {v:.1f} nm &lt; smallest imageable "
-        f"{lim:.1f} nm",
+        "unresolvable-pitch": lambda v, lim: (
+            f"pitch {v:.1f} nm &lt; smallest imageable {lim:.1f} nm"
+        ),
         "low-k1": lambda v, lim: f"k1 {v:.3f} &lt; {lim:g}",
         "feature-not-printed": lambda v, lim: f"image contrast {v:.3f}; no threshold crossing",
         "features-bridged": lambda v, lim: f"image contrast {v:.3f}; printed into neighbour",
@@ -298,12 +307,13 @@ class _Renderer:
             (2, FAR_SHAPES, "#c3cbd3"),
             (1, NEIGHBOUR_SHAPES, "#7f8c99"),
             (0, OWN_SHAPES, "#1c2833"),
-        )  # fmt: skip
+        )
         for code, face, edge in styles:
             chosen = [p for p, c in zip(polys, kind, strict=True) if c == code]
             if chosen:
-                ax.add_collection(PolyCollection(chosen, facecolors=face, edgecolors=edge,
-                                                 linewidths=0.3))  # fmt: skip
+                ax.add_collection(
+                    PolyCollection(chosen, facecolors=face, edgecolors=edge, linewidths=0.3)
+                )
         if grown is not None:
             ring = np.vstack([grown, grown[:1]])
             ax.plot(ring[:, 0], ring[:, 1], color="#7f8c99", lw=0.9, ls=(0, (1, 2)))
@@ -314,19 +324,33 @@ class _Renderer:
         if has_cut:
             a = math.radians(f.cut_angle_deg)
             n = np.array([math.cos(a), math.sin(a)])
-            centre = np.array([ox, oy]) - n * (f.width_nm / 2 if math.isfinite(f.width_nm)
-                                               else 0.0)  # fmt: skip
+            centre = np.array([ox, oy]) - n * (f.width_nm / 2 if math.isfinite(f.width_nm) else 0.0)
             p0, p1 = centre - n * ambit, centre + n * ambit
             halo = _halo(3.5)
-            ax.annotate("", xy=tuple(p1), xytext=tuple(p0), zorder=4,
-                        arrowprops={"arrowstyle": "-|>,head_length=0.7,head_width=0.35",
-                                    "color": CUT_COLOUR, "lw": 2.0, "shrinkA": 0,
-                                    "shrinkB": 0, "path_effects": halo})  # fmt: skip
+            ax.annotate(
+                "",
+                xy=tuple(p1),
+                xytext=tuple(p0),
+                zorder=4,
+                arrowprops={
+                    "arrowstyle": "-|>,head_length=0.7,head_width=0.35",
+                    "color": CUT_COLOUR,
+                    "lw": 2.0,
+                    "shrinkA": 0,
+                    "shrinkB": 0,
+                    "path_effects": halo,
+                },
+            )
             t = np.array([-n[1], n[0]]) * ambit * 0.08
-            ax.plot([p0[0] - t[0], p0[0] + t[0]], [p0[1] - t[1], p0[1] + t[1]],
-                    color=CUT_COLOUR, lw=2.0, zorder=4, path_effects=halo)  # fmt: skip
-            ax.plot([ox], [oy], marker="o", ms=6, mfc="white", mec=CUT_COLOUR, mew=2.0,
-                    zorder=5)  # fmt: skip
+            ax.plot(
+                [p0[0] - t[0], p0[0] + t[0]],
+                [p0[1] - t[1], p0[1] + t[1]],
+                color=CUT_COLOUR,
+                lw=2.0,
+                zorder=4,
+                path_effects=halo,
+            )
+            ax.plot([ox], [oy], marker="o", ms=6, mfc="white", mec=CUT_COLOUR, mew=2.0, zorder=5)
             info.mirrored = self._mirrored(f, rule, polys, centre, n, ambit)
         ax.set_xlim(vx0, vx1)
         ax.set_ylim(vy0, vy1)
@@ -344,20 +368,37 @@ class _Renderer:
         width = vx1 - vx0
         bar = _nice_length(width / 4)
         bx, by = vx0 + 0.04 * width, vy0 + 0.05 * (vy1 - vy0)
-        ax.plot([bx, bx + bar], [by, by], color="black", lw=3, solid_capstyle="butt",
-                path_effects=_halo())  # fmt: skip
-        ax.text(bx + bar / 2, by + 0.025 * (vy1 - vy0), _length_text(bar), ha="center",
-                va="bottom", fontsize=7.5, path_effects=_halo())  # fmt: skip
+        ax.plot(
+            [bx, bx + bar],
+            [by, by],
+            color="black",
+            lw=3,
+            solid_capstyle="butt",
+            path_effects=_halo(),
+        )
+        ax.text(
+            bx + bar / 2,
+            by + 0.025 * (vy1 - vy0),
+            _length_text(bar),
+            ha="center",
+            va="bottom",
+            fontsize=7.5,
+            path_effects=_halo(),
+        )
         ax.set_title(f"{f.layer} ({f.source}) around the region", fontsize=8.5, pad=3)
         png = _png(fig)
         fw = _feature_word(rule)
-        cap = (f"Dark: the region's drawn {fw}s (dashed outline); grey: neighbours within the "
-               f"optical ambit ({rule.ambit_nm:.0f} nm, wafer; dotted); pale: farther shapes. "
-               "Arrow: the cut through the worst edge (circle), ±ambit, pointing along +x of "
-               "the image plot.")  # fmt: skip
+        cap = (
+            f"Dark: the region's drawn {fw}s (dashed outline); grey: neighbours within the "
+            f"optical ambit ({rule.ambit_nm:.0f} nm, wafer; dotted); pale: farther shapes. "
+            "Arrow: the cut through the worst edge (circle), ±ambit, pointing along +x of "
+            "the image plot."
+        )
         if clamped:
-            cap += (f" The region ({(x1 - x0) / 1000:.2f} × {(y1 - y0) / 1000:.2f} µm) is "
-                    "larger than the picture: shown around the worst edge.")  # fmt: skip
+            cap += (
+                f" The region ({(x1 - x0) / 1000:.2f} × {(y1 - y0) / 1000:.2f} µm) is "
+                "larger than the picture: shown around the worst edge."
+            )
         if dropped:
             cap += f" {dropped} farther shapes are not drawn."
         return png, cap, info
@@ -377,8 +418,12 @@ class _Renderer:
         lo, hi = pts.min(axis=0), pts.max(axis=0)
         drawn = np.zeros(len(t), dtype=bool)
         for p in polys:
-            if p[:, 0].max() < lo[0] or p[:, 0].min() > hi[0] or p[:, 1].max() < lo[1] \
-                    or p[:, 1].min() > hi[1]:  # fmt: skip
+            if (
+                p[:, 0].max() < lo[0]
+                or p[:, 0].min() > hi[0]
+                or p[:, 1].max() < lo[1]
+                or p[:, 1].min() > hi[1]
+            ):
                 continue
             drawn |= MplPath(p).contains_points(pts)
         tw = t * self.scale
@@ -404,16 +449,19 @@ class _Renderer:
             x, i0 = cut_image(rule, f.cut_bounds_nm, f.cut_angle_deg, 0.0)
             i_def = None
             if rule.focus_half_range_nm > 0 and len(rule.focus_nm) > 1:
-                _, i_def = cut_image(rule, f.cut_bounds_nm, f.cut_angle_deg,
-                                     rule.focus_half_range_nm)  # fmt: skip
+                _, i_def = cut_image(
+                    rule, f.cut_bounds_nm, f.cut_angle_deg, rule.focus_half_range_nm
+                )
             hit = self._images[key] = (np.asarray(x), np.asarray(i0), i_def)
         return hit
 
     def image_picture(self, f: Finding, mirrored: bool) -> tuple[str | None, str]:
         rule = self.rules.get(f.layer)
         if rule is None or not f.cut_bounds_nm:
-            return None, ("Not imaged (image checks off for this layer, or the site has no "
-                          "finite width): judged by diffraction orders and k1 only.")  # fmt: skip
+            return None, (
+                "Not imaged (image checks off for this layer, or the site has no "
+                "finite width): judged by diffraction orders and k1 only."
+            )
         x, inten, i_def = self.image(f, rule)
         bounds = oriented_bounds(f, mirrored)
         if mirrored:
@@ -426,24 +474,31 @@ class _Renderer:
         fig = _figure(IMAGE_PX)
         ax = fig.add_axes((0.10, 0.15, 0.88, 0.76))
         if feat is not None:
-            drawn_cd = f.width_nm * self.scale if math.isfinite(f.width_nm) \
-                else feat[1] - feat[0]  # fmt: skip
-            ax.axvspan(feat[0], feat[1], color="#9aa7b4", lw=0,
-                       label=f"drawn {fw} ({drawn_cd:.0f} nm)")  # fmt: skip
+            drawn_cd = f.width_nm * self.scale if math.isfinite(f.width_nm) else feat[1] - feat[0]
+            ax.axvspan(
+                feat[0], feat[1], color="#9aa7b4", lw=0, label=f"drawn {fw} ({drawn_cd:.0f} nm)"
+            )
         label = "drawn neighbours"
         for a, b in pairs:
             if (a, b) != feat:
                 ax.axvspan(a, b, color="#d5dbe1", lw=0, label=label)
                 label = None
         if i_def is not None:
-            ax.plot(x, i_def, color=DEFOCUS_COLOUR, lw=1.1, ls="--",
-                    label=f"defocus {rule.focus_half_range_nm:.0f} nm")  # fmt: skip
+            ax.plot(
+                x,
+                i_def,
+                color=DEFOCUS_COLOUR,
+                lw=1.1,
+                ls="--",
+                label=f"defocus {rule.focus_half_range_nm:.0f} nm",
+            )
         ax.plot(x, inten, color=IMAGE_COLOUR, lw=1.8, label="image, best focus")
         t = f.threshold
         notes = []
         if math.isfinite(t):
-            ax.axhline(t, color=THRESHOLD_COLOUR, lw=1.1, ls=(0, (5, 2)),
-                       label=f"threshold {t:.3f}")  # fmt: skip
+            ax.axhline(
+                t, color=THRESHOLD_COLOUR, lw=1.1, ls=(0, (5, 2)), label=f"threshold {t:.3f}"
+            )
             window = search_window(bounds, feat)
             left, right, state = printed_edges(x, inten, t, bright, feat, window)
             mark = "^" if bright else "v"
@@ -452,32 +507,56 @@ class _Renderer:
                     ax.plot([e], [t], marker=mark, ms=7, color=PRINTED_COLOUR, zorder=5)
                     ax.axvline(e, color=PRINTED_COLOUR, lw=0.9, ls=":")
             if state == "printed":
-                ax.plot([], [], marker=mark, ls=":", color=PRINTED_COLOUR,
-                        label=f"printed edges ({right - left:.1f} nm)")  # fmt: skip
+                ax.plot(
+                    [],
+                    [],
+                    marker=mark,
+                    ls=":",
+                    color=PRINTED_COLOUR,
+                    label=f"printed edges ({right - left:.1f} nm)",
+                )
             elif left is not None or right is not None:
-                span = f" ({right - left:.0f} nm)" if left is not None and right is not None \
-                    else ""  # fmt: skip
-                ax.plot([], [], marker=mark, ls=":", color=PRINTED_COLOUR,
-                        label=f"threshold crossings{span}")  # fmt: skip
+                span = f" ({right - left:.0f} nm)" if left is not None and right is not None else ""
+                ax.plot(
+                    [],
+                    [],
+                    marker=mark,
+                    ls=":",
+                    color=PRINTED_COLOUR,
+                    label=f"threshold crossings{span}",
+                )
             if state == "lost":
-                notes.append(f"the {fw} does not print: at its centre the image stays on the "
-                             "wrong side of the threshold")  # fmt: skip
+                notes.append(
+                    f"the {fw} does not print: at its centre the image stays on the "
+                    "wrong side of the threshold"
+                )
             elif state == "bridged":
-                notes.append(f"the printed {fw} runs into its neighbour: the nearest "
-                             "threshold crossing lies beyond the middle of the neighbouring "
-                             "space")  # fmt: skip
+                notes.append(
+                    f"the printed {fw} runs into its neighbour: the nearest "
+                    "threshold crossing lies beyond the middle of the neighbouring "
+                    "space"
+                )
         ymax = max(1.05, float(np.nanmax(inten)) * 1.08)
         if i_def is not None:
             ymax = max(ymax, float(np.nanmax(i_def)) * 1.08)
         ax.set_ylim(0, ymax * 1.18)
         ax.set_xlim(float(x[0]), float(x[-1]))
         ax.tick_params(labelsize=7, length=2)
-        ax.set_xlabel("position along the cut (nm, wafer); 0 = centre of the drawn "
-                      f"{fw}, + along the arrow", fontsize=7, labelpad=1)  # fmt: skip
+        ax.set_xlabel(
+            f"position along the cut (nm, wafer); 0 = centre of the drawn {fw}, + along the arrow",
+            fontsize=7,
+            labelpad=1,
+        )
         ax.set_ylabel("intensity (clear = 1)", fontsize=7, labelpad=1)
         ax.set_title(f"Aerial image across the cut ({rule.exposure_name})", fontsize=8.5, pad=3)
-        ax.legend(fontsize=7, loc="upper center", ncol=3, frameon=False,
-                  handlelength=1.8, columnspacing=1.2)  # fmt: skip
+        ax.legend(
+            fontsize=7,
+            loc="upper center",
+            ncol=3,
+            frameon=False,
+            handlelength=1.8,
+            columnspacing=1.2,
+        )
         png = _png(fig)
         verdict = "".join(n[0].upper() + n[1:] + ". " for n in notes)
         cap = verdict + (
@@ -548,9 +627,14 @@ def search_window(
     return lo, hi
 
 
-def printed_edges(x: np.ndarray, inten: np.ndarray, threshold: float, bright: bool,
-                  feature: tuple[float, float] | None,
-                  search: tuple[float, float] | None = None):  # fmt: skip
+def printed_edges(
+    x: np.ndarray,
+    inten: np.ndarray,
+    threshold: float,
+    bright: bool,
+    feature: tuple[float, float] | None,
+    search: tuple[float, float] | None = None,
+):
     """Printed edges nearest the feature: ``(left, right, state)``.
 
     The feature prints where the image is below the threshold (a line on a
@@ -587,7 +671,8 @@ def printed_edges(x: np.ndarray, inten: np.ndarray, threshold: float, bright: bo
 # --------------------------------------------------------------------------- page
 
 
-CSS = """
+CSS = (
+    """
 :root { --fail: %(fail)s; --risk: %(risk)s; --marginal: %(marginal)s; --ink: #1d2733;
         --muted: #5b6673; --line: #d8dee4; --panel: #f6f8fa; }
 * { box-sizing: border-box; }
@@ -653,7 +738,9 @@ details.locs > summary { cursor: pointer; color: var(--muted); }
 footer { margin-top: 30px; color: var(--muted); font-size: 12px; border-top: 1px solid var(--line);
          padding-top: 8px; }
 @media print { #filters { display: none; } details.group { break-inside: avoid; } }
-""" % SEVERITY_COLOUR  # noqa: UP031 - CSS braces make str.format awkward
+"""
+    % SEVERITY_COLOUR
+)  # noqa: UP031 - CSS braces make str.format awkward
 
 JS = """
 (function () {
@@ -721,20 +808,38 @@ def _summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Gro
     facts = []
     if lay is not None:
         cells = ", ".join(lay.cells) or "–"
-        facts.append(("Layout", f"<strong>{_esc(Path(lay.path).name)}</strong> "
-                                f"<span class='note'>({_esc(lay.path)})</span>"))  # fmt: skip
+        facts.append(
+            (
+                "Layout",
+                f"<strong>{_esc(Path(lay.path).name)}</strong> "
+                f"<span class='note'>({_esc(lay.path)})</span>",
+            )
+        )
         facts.append(("Format, top cells", f"{_esc(lay.format.upper())}, {_esc(cells)}"))
         facts.append(("Database grid", f"{lay.grid_nm:g} nm"))
-    facts.append(("Rule deck", f"<strong>{_esc(deck.name)}</strong>"
-                  + (f" <span class='note'>({_esc(deck.path)})</span>" if deck.path else "")))
-    scale = ("wafer scale" if deck.drawn_scale == "wafer"
-             else f"mask scale, {deck.reduction:g}× reduction")  # fmt: skip
+    facts.append(
+        (
+            "Rule deck",
+            f"<strong>{_esc(deck.name)}</strong>"
+            + (f" <span class='note'>({_esc(deck.path)})</span>" if deck.path else ""),
+        )
+    )
+    scale = (
+        "wafer scale"
+        if deck.drawn_scale == "wafer"
+        else f"mask scale, {deck.reduction:g}× reduction"
+    )
     facts.append(("Drawn at", scale))
-    facts.append(("Findings", f"{len(result.findings)} regions in {len(groups)} groups "
-                              f"of identical findings"))  # fmt: skip
+    facts.append(
+        (
+            "Findings",
+            f"{len(result.findings)} regions in {len(groups)} groups of identical findings",
+        )
+    )
     facts.append(("Gate", f"fail-on <code>{_esc(fail_on)}</code>"))
-    parts.append('<dl class="facts">' + "".join(
-        f"<dt>{k}</dt><dd>{v}</dd>" for k, v in facts) + "</dl>")  # fmt: skip
+    parts.append(
+        '<dl class="facts">' + "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in facts) + "</dl>"
+    )
 
     rules = {r.name: r for r in deck.layers}
     head = "".join(f'<th class="n">{s}</th>' for s in SEVERITIES)
@@ -744,8 +849,10 @@ def _summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Gro
         rule = rules.get(st.name)
         if rule is not None:
             e = rule.exposure
-            expo = (f"{_esc(rule.exposure_name)}: {e.wavelength_nm:g} nm, NA {e.na:g}, "
-                    f"{_esc(e.illumination.shape)}; {_esc(rule.field)} field")  # fmt: skip
+            expo = (
+                f"{_esc(rule.exposure_name)}: {e.wavelength_nm:g} nm, NA {e.na:g}, "
+                f"{_esc(e.illumination.shape)}; {_esc(rule.field)} field"
+            )
         else:
             expo = "–"
         ex = st.extract
@@ -760,19 +867,21 @@ def _summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Gro
             "</tr>"
         )
     total = "".join(f'<td class="n">{counts[s]}</td>' for s in SEVERITIES)
-    rows.append(f'<tr class="total"><td colspan="3">all layers</td>{total}'
-                f"<td class='n'>{sum(s.extract.sites for s in result.layers):,}</td><td></td>"
-                f"<td></td><td class='n'>{sum(s.shapes for s in result.layers):,}</td></tr>")
+    rows.append(
+        f'<tr class="total"><td colspan="3">all layers</td>{total}'
+        f"<td class='n'>{sum(s.extract.sites for s in result.layers):,}</td><td></td>"
+        f"<td></td><td class='n'>{sum(s.shapes for s in result.layers):,}</td></tr>"
+    )
     parts.append(
         '<table id="counts"><thead><tr><th>layer</th><th>source</th><th>exposure</th>'
         f"{head}<th class='n'>sites</th><th class='n'>isolated edges</th>"
         "<th class='n'>2-D edges</th><th class='n'>shapes</th></tr></thead><tbody>"
-        + "".join(rows) + "</tbody></table>"
-    )  # fmt: skip
+        + "".join(rows)
+        + "</tbody></table>"
+    )
     if result.warnings:
         items = "".join(f"<li>{_esc(w)}</li>" for w in result.warnings[:20])
-        more = (f"<li>… {len(result.warnings) - 20} more</li>"
-                if len(result.warnings) > 20 else "")  # fmt: skip
+        more = f"<li>… {len(result.warnings) - 20} more</li>" if len(result.warnings) > 20 else ""
         parts.append(f"<h3>Layout reader warnings</h3><ul class='note'>{items}{more}</ul>")
     parts.append("</section>")
     return "".join(parts)
@@ -783,7 +892,8 @@ def _filters_html(result: ScanResult, groups: list[Group]) -> str:
     sev = "".join(
         f'<label><input type="checkbox" name="severity" value="{s}" checked> '
         f'<span class="sev {s}">{s}</span></label>'
-        for s in SEVERITIES if s in present
+        for s in SEVERITIES
+        if s in present
     )
     layers = [st.name for st in result.layers]
     for g in groups:
@@ -805,31 +915,52 @@ def _filters_html(result: ScanResult, groups: list[Group]) -> str:
 def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
     fw = _feature_word(rule)
     rows = [
-        ("pitch (drawn)", f"{f.pitch_nm:.1f} nm"
-         + (f" … {f.pitch_max_nm:.1f} nm" if math.isfinite(f.pitch_max_nm)
-            and f.pitch_max_nm - f.pitch_nm > 0.05 else "")),
-    ]  # fmt: skip
+        (
+            "pitch (drawn)",
+            f"{f.pitch_nm:.1f} nm"
+            + (
+                f" … {f.pitch_max_nm:.1f} nm"
+                if math.isfinite(f.pitch_max_nm) and f.pitch_max_nm - f.pitch_nm > 0.05
+                else ""
+            ),
+        ),
+    ]
     if abs(scale - 1.0) > 1e-12:
         rows.append(("pitch (wafer)", f"{f.wafer_pitch_nm:.1f} nm"))
     rows += [
         (f"{fw} width / space (drawn)", f"{_num(f.width_nm)} / {_num(f.space_nm)} nm"),
         ("smallest imageable pitch", f"{_num(f.cutoff_pitch_nm)} nm (wafer, this direction)"),
         ("k1", _num(f.k1, ".3f")),
-        ("diffraction orders captured", f"{_orders_text(f.orders)} "
-         f"<span class='note'>(on axis: {_orders_text(f.orders_on_axis)}; two-beam source "
-         f"fraction {f.two_beam_fraction:.0%})</span>"),
+        (
+            "diffraction orders captured",
+            f"{_orders_text(f.orders)} "
+            f"<span class='note'>(on axis: {_orders_text(f.orders_on_axis)}; two-beam source "
+            f"fraction {f.two_beam_fraction:.0%})</span>",
+        ),
         ("image contrast", _num(f.contrast, ".3f")),
         ("NILS at the drawn edges", _num(f.nils, ".2f")),
         ("exposure latitude (EL)", _num(f.el_pct, ".1f", " %")),
         ("depth of focus (DOF)", _num(f.dof_nm, ".0f", " nm")),
         ("printed CD (wafer)", _printed_cd(f, scale)),
-        ("CD error at the anchored dose", _num(f.cd_error_pct, "+.1f", " %")
-         if math.isfinite(f.cd_error_pct) else "not judged (no dose anchor, or not printed)"),
+        (
+            "CD error at the anchored dose",
+            _num(f.cd_error_pct, "+.1f", " %")
+            if math.isfinite(f.cd_error_pct)
+            else "not judged (no dose anchor, or not printed)",
+        ),
         ("lines, sites", f"{f.lines} lines ({_esc(f.periodicity)}), {f.sites} sites"),
         ("line direction", f"{_deg(f.orientation_deg)} (0° = along x)"),
-        ("worst line", _esc({"outer": "last line of the array", "interior": "inside the array",
-                             "alone": "isolated line"}.get(f.context, f.context or "–"))),
-    ]  # fmt: skip
+        (
+            "worst line",
+            _esc(
+                {
+                    "outer": "last line of the array",
+                    "interior": "inside the array",
+                    "alone": "isolated line",
+                }.get(f.context, f.context or "–")
+            ),
+        ),
+    ]
     body = "".join(f"<tr><th>{_esc(k)}</th><td>{v}</td></tr>" for k, v in rows)
     return f'<h3>Numbers (worst site)</h3><table class="numbers">{body}</table>'
 
@@ -852,9 +983,11 @@ def _violations_html(f: Finding) -> str:
         for v in f.violations
     )
     if not rows:
-        rows = (f"<tr><td><span class='sev {_attr(f.severity)}'>{_esc(f.severity)}</span></td>"
-                f"<td><code>{_esc(f.check)}</code></td><td>{_esc(f.limit)}</td>"
-                f"<td>{_esc(f.message)}</td></tr>")  # fmt: skip
+        rows = (
+            f"<tr><td><span class='sev {_attr(f.severity)}'>{_esc(f.severity)}</span></td>"
+            f"<td><code>{_esc(f.check)}</code></td><td>{_esc(f.limit)}</td>"
+            f"<td>{_esc(f.message)}</td></tr>"
+        )
     return (
         "<h3>Limits tripped</h3><table class='violations'><thead><tr><th>severity</th>"
         "<th>check</th><th>value against limit</th><th>what it means</th></tr></thead>"
@@ -876,8 +1009,12 @@ def _locations_html(g: Group) -> str:
             f"<td class='n'>{f.lines}</td><td class='n'>{f.sites}</td>"
             f"<td class='n'>{f.pitch_nm:.1f}</td><td>{_esc(f.context or '–')}</td></tr>"
         )
-    more = (f"<p class='note'>… and {n - LOCATIONS_LISTED} more locations (the JSON output "
-            "lists them all).</p>" if n > LOCATIONS_LISTED else "")  # fmt: skip
+    more = (
+        f"<p class='note'>… and {n - LOCATIONS_LISTED} more locations (the JSON output "
+        "lists them all).</p>"
+        if n > LOCATIONS_LISTED
+        else ""
+    )
     label = "1 location" if n == 1 else f"all {n} locations"
     return (
         f"<details class='locs'{' open' if n <= 12 else ''}><summary>{label} "
@@ -885,8 +1022,9 @@ def _locations_html(g: Group) -> str:
         "<table><thead><tr><th class='n'>#</th><th class='n'>centre x, y</th>"
         "<th class='n'>box x0, y0 – x1, y1</th><th class='n'>lines</th><th class='n'>sites</th>"
         "<th class='n'>pitch nm</th><th>worst line</th></tr></thead><tbody>"
-        + "".join(rows) + f"</tbody></table>{more}</details>"
-    )  # fmt: skip
+        + "".join(rows)
+        + f"</tbody></table>{more}</details>"
+    )
 
 
 def _group_title(g: Group, rule: LayerRule | None) -> str:
@@ -960,8 +1098,9 @@ def _index_html(groups: list[Group]) -> str:
         "</summary><table><thead><tr><th class='n'>#</th><th>severity</th><th>layer</th>"
         "<th>check</th><th class='n'>pitch nm</th><th class='n'>width / space nm</th>"
         "<th class='n'>k1</th><th class='n'>locations</th></tr></thead><tbody>"
-        + "".join(rows) + "</tbody></table></details>"
-    )  # fmt: skip
+        + "".join(rows)
+        + "</tbody></table></details>"
+    )
 
 
 def _remaining_html(groups: list[Group], start: int) -> str:
@@ -981,9 +1120,12 @@ def _remaining_html(groups: list[Group], start: int) -> str:
             f"{_num(f.space_nm)}</td><td class='n'>{f.k1:.3f}</td>"
             f"<td class='n'>{len(g.findings)}</td><td class='n'>{cx:.3f}, {cy:.3f}</td></tr>"
         )
-    more = (f"<p class='note'>… {len(rest) - REMAINING_LISTED} groups more are not listed "
-            "here; the JSON output has every finding.</p>"
-            if len(rest) > REMAINING_LISTED else "")  # fmt: skip
+    more = (
+        f"<p class='note'>… {len(rest) - REMAINING_LISTED} groups more are not listed "
+        "here; the JSON output has every finding.</p>"
+        if len(rest) > REMAINING_LISTED
+        else ""
+    )
     return (
         '<section id="more-groups"><h2>More findings without pictures</h2>'
         f'<p id="cap-message"><strong>{len(rest)} more group{"s" if len(rest) != 1 else ""} '
@@ -1056,8 +1198,7 @@ def render_html(result: ScanResult, deck: Deck, fail_on: str, max_groups: int = 
     renderer = _Renderer(result, deck)
     drawn = groups[: max(0, max_groups)]
     lay = result.layout
-    title = f"pitchguard report: {Path(lay.path).name}" if lay is not None \
-        else "pitchguard report"  # fmt: skip
+    title = f"pitchguard report: {Path(lay.path).name}" if lay is not None else "pitchguard report"
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
         "<meta name='viewport' content='width=device-width, initial-scale=1'>",
@@ -1074,8 +1215,9 @@ def render_html(result: ScanResult, deck: Deck, fail_on: str, max_groups: int = 
         '<section id="findings"><h2>Findings, worst first</h2>',
     ]
     if not groups:
-        parts.append('<p id="no-findings">No finding: every judged pitch passes the deck\'s '
-                     "limits.</p>")  # fmt: skip
+        parts.append(
+            '<p id="no-findings">No finding: every judged pitch passes the deck\'s limits.</p>'
+        )
     else:
         shown_find = sum(len(g.findings) for g in drawn)
         parts.append(

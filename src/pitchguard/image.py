@@ -75,8 +75,9 @@ class Optics:
 
 def mask_amplitudes(exposure: Exposure, field: str) -> tuple[complex, complex]:
     """``(feature, background)`` amplitudes for drawn shapes on a clear or dark field."""
-    dark = -math.sqrt(exposure.mask.transmission) if isinstance(exposure.mask, AttenuatedMask) \
-        else 0.0  # fmt: skip
+    dark = (
+        -math.sqrt(exposure.mask.transmission) if isinstance(exposure.mask, AttenuatedMask) else 0.0
+    )
     return (dark, 1.0) if field == "clear" else (1.0, dark)
 
 
@@ -201,8 +202,9 @@ class PupilFrame:
     ``A = sqrt(w_s) P(f_n + s)`` at any focus, costing one complex
     exponential per passing order."""
 
-    def __init__(self, optics: Optics, src: tuple[np.ndarray, np.ndarray], period_nm: float,
-                 n_max: int):  # fmt: skip
+    def __init__(
+        self, optics: Optics, src: tuple[np.ndarray, np.ndarray], period_nm: float, n_max: int
+    ):
         pts, w = merge_mirrored(src)
         fn = np.arange(-n_max, n_max + 1) / period_nm
         fx = fn[None, :] + pts[:, 0:1] * optics.cutoff
@@ -239,19 +241,27 @@ class CoherentSystems:
         defocus_nm: float = 0.0,
         keep: float = SOCS_KEEP,
     ):
-        self._decompose(PupilFrame(optics, src, period_nm, n_max), period_nm, n_max,
-                        defocus_nm, keep)  # fmt: skip
+        self._decompose(
+            PupilFrame(optics, src, period_nm, n_max), period_nm, n_max, defocus_nm, keep
+        )
 
     @classmethod
-    def from_frame(cls, frame: PupilFrame, period_nm: float, n_max: int, defocus_nm: float = 0.0,
-                   keep: float = SOCS_KEEP) -> CoherentSystems:  # fmt: skip
+    def from_frame(
+        cls,
+        frame: PupilFrame,
+        period_nm: float,
+        n_max: int,
+        defocus_nm: float = 0.0,
+        keep: float = SOCS_KEEP,
+    ) -> CoherentSystems:
         """The systems at one focus from a :class:`PupilFrame` kept for several."""
         out = object.__new__(cls)
         out._decompose(frame, period_nm, n_max, defocus_nm, keep)
         return out
 
-    def _decompose(self, frame: PupilFrame, period_nm: float, n_max: int, defocus_nm: float,
-                   keep: float) -> None:  # fmt: skip
+    def _decompose(
+        self, frame: PupilFrame, period_nm: float, n_max: int, defocus_nm: float, keep: float
+    ) -> None:
         self.period_nm = period_nm
         self.n_max = n_max
         a = frame.amplitudes(defocus_nm)  # (S, N)

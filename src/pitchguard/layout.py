@@ -218,9 +218,11 @@ def _count_shapes(cell, wanted: set[tuple[int, int]], memo: dict) -> int:
         return memo[key]
     n = 0
     for p in list(cell.polygons) + list(cell.paths):
-        layers = zip(p.layers, p.datatypes, strict=True) if hasattr(p, "layers") else [
-            (p.layer, p.datatype)
-        ]
+        layers = (
+            zip(p.layers, p.datatypes, strict=True)
+            if hasattr(p, "layers")
+            else [(p.layer, p.datatype)]
+        )
         hits = sum(1 for ld in layers if ld in wanted)
         if hits:
             rep = p.repetition.size if p.repetition.size else 1
@@ -278,9 +280,12 @@ def flatten_layer(tops, layer_datatype: tuple[int, int], scale: float) -> Polygo
         polys.extend(
             q.points
             for q in top.get_polygons(
-                apply_repetitions=True, include_paths=True, depth=None,
-                layer=layer, datatype=datatype,
-            )  # fmt: skip
+                apply_repetitions=True,
+                include_paths=True,
+                depth=None,
+                layer=layer,
+                datatype=datatype,
+            )
         )
     return PolygonSet.from_arrays(polys, scale)
 
@@ -428,8 +433,9 @@ def run_isolated(fn, args: tuple, path: Path, what: str, timeout_s: float = READ
                     f"{path}: the layout reader crashed ({name}) while {what}: the file is "
                     "corrupt or not a valid GDSII/OASIS file"
                 ) from None
-            raise LayoutError(f"{path}: the layout reader stopped unexpectedly (exit {code})") \
-                from None  # fmt: skip
+            raise LayoutError(
+                f"{path}: the layout reader stopped unexpectedly (exit {code})"
+            ) from None
     finally:
         if child.is_alive():
             child.kill()
@@ -464,9 +470,12 @@ def read_layout_isolated(
     p = Path(path)
     sniff_format(p)  # quick, clear errors for missing/non-layout files, in this process
     layout, child_warnings = run_isolated(
-        _read_with_warnings, (p, list(layers), cell, max_shapes), p,
-        "parsing and flattening the file", timeout_s,
-    )  # fmt: skip
+        _read_with_warnings,
+        (p, list(layers), cell, max_shapes),
+        p,
+        "parsing and flattening the file",
+        timeout_s,
+    )
     if warnings is not None:
         warnings.extend(child_warnings)
     return layout

@@ -54,8 +54,16 @@ def clear_cut_cache() -> None:
 
 def _rule_key(rule: LayerRule, scale_to_wafer: float) -> tuple:
     """All of a layer's rule that a cut's metrics depend on."""
-    return (rule.exposure, rule.field, rule.ambit_nm, rule.focus_nm, rule.anchor,
-            rule.cd_tolerance_pct, rule.el_min_pct, scale_to_wafer)  # fmt: skip
+    return (
+        rule.exposure,
+        rule.field,
+        rule.ambit_nm,
+        rule.focus_nm,
+        rule.anchor,
+        rule.cd_tolerance_pct,
+        rule.el_min_pct,
+        scale_to_wafer,
+    )
 
 
 def take_imaged() -> list[tuple]:
@@ -96,8 +104,9 @@ def _systems(exposure: Exposure, angle_deg: float, period_nm: float, n_max: int,
     focus values mostly come in such pairs, and each pair costs one TCC."""
     if focus_nm < 0:
         return _systems(exposure, angle_deg, period_nm, n_max, -focus_nm).through_opposite_focus()
-    return CoherentSystems.from_frame(_frame(exposure, angle_deg, period_nm, n_max), period_nm,
-                                      n_max, focus_nm)  # fmt: skip
+    return CoherentSystems.from_frame(
+        _frame(exposure, angle_deg, period_nm, n_max), period_nm, n_max, focus_nm
+    )
 
 
 def anchor_threshold(rule: LayerRule) -> float | None:
@@ -138,15 +147,18 @@ def measure_cuts(
     if not cuts:
         return []
     rule_key = _rule_key(rule, scale_to_wafer)
-    keys = [(rule_key, round(a, 1) % 180.0, c.bounds, c.reach)
-            for c, a in zip(cuts, angles_deg, strict=True)]  # fmt: skip
+    keys = [
+        (rule_key, round(a, 1) % 180.0, c.bounds, c.reach)
+        for c, a in zip(cuts, angles_deg, strict=True)
+    ]
     known = [_imaged.get(k) for k in keys]
     todo = [k for k, m in enumerate(known) if m is None]
     _imaged_stats["hits"] += len(cuts) - len(todo)
     _imaged_stats["misses"] += len(todo)
     if todo:
-        fresh = _measure([cuts[k] for k in todo], [angles_deg[k] for k in todo], rule,
-                         scale_to_wafer)  # fmt: skip
+        fresh = _measure(
+            [cuts[k] for k in todo], [angles_deg[k] for k in todo], rule, scale_to_wafer
+        )
         if len(_imaged) + len(todo) > CUT_CACHE_MAX:
             _imaged.clear()
         for k, m in zip(todo, fresh, strict=True):
@@ -192,8 +204,10 @@ def _measure(
                 values[r, : len(mat)] = np.where(mat, feat, bg)
             spectra = segment_spectrum(period, edges, values, n_max)
             stack = np.stack(
-                [_systems(e, angle, period, n_max, float(z)).image(spectra, samples)[:, order]
-                 for z in focus]  # fmt: skip
+                [
+                    _systems(e, angle, period, n_max, float(z)).image(spectra, samples)[:, order]
+                    for z in focus
+                ]
             )  # (F, m, X)
             feats = [scaled[k].feature for k in idx]
             pts = np.array([[lft, rgt] for lft, rgt in feats])
@@ -201,9 +215,18 @@ def _measure(
             for r, k in enumerate(idx):
                 lft, rgt = feats[r]
                 out[k] = evaluate(
-                    x, stack[:, r, :], focus, (lft, rgt), scaled[k].search, bright,
-                    rgt - lft, t_nom, tol, rule.el_min_pct, (i_e[r], d_e[r]),
-                )  # fmt: skip
+                    x,
+                    stack[:, r, :],
+                    focus,
+                    (lft, rgt),
+                    scaled[k].search,
+                    bright,
+                    rgt - lft,
+                    t_nom,
+                    tol,
+                    rule.el_min_pct,
+                    (i_e[r], d_e[r]),
+                )
     return out  # type: ignore[return-value]
 
 
@@ -229,18 +252,28 @@ def grating_metrics(
     focus = np.array(focus_nm if focus_nm is not None else rule.focus_nm)
     best = int(np.argmin(np.abs(focus)))
     stack = np.stack(
-        [_systems(e, angle_deg, pitch_nm, n_max, float(z)).image(spec, samples)[0, order]
-         for z in focus]  # fmt: skip
+        [
+            _systems(e, angle_deg, pitch_nm, n_max, float(z)).image(spec, samples)[0, order]
+            for z in focus
+        ]
     )
     h = cd_nm / 2.0
     i_e, d_e = _systems(e, angle_deg, pitch_nm, n_max, float(focus[best])).at(
         spec, np.array([-h, h])
     )
     m = evaluate(
-        x, stack, focus, (-h, h), (-pitch_nm / 2, pitch_nm / 2), rule.field == "dark", cd_nm,
-        anchor_threshold(rule), rule.cd_tolerance_pct / 100.0, rule.el_min_pct,
+        x,
+        stack,
+        focus,
+        (-h, h),
+        (-pitch_nm / 2, pitch_nm / 2),
+        rule.field == "dark",
+        cd_nm,
+        anchor_threshold(rule),
+        rule.cd_tolerance_pct / 100.0,
+        rule.el_min_pct,
         (i_e[0], d_e[0]),
-    )  # fmt: skip
+    )
     return m, x, stack[best]
 
 
@@ -261,8 +294,11 @@ def cut_image(
     feat, bg = mask_amplitudes(e, rule.field)
     edges, mat = cut_segments(Cut(tuple(bounds_nm), rule.ambit_nm), period)
     spec = segment_spectrum(period, edges, np.where(mat, feat, bg), n_max)
-    angle = 0.0 if e.illumination.shape in ("coherent", "conventional", "annular") \
-        else round(angle_deg, 1) % 180.0  # fmt: skip
+    angle = (
+        0.0
+        if e.illumination.shape in ("coherent", "conventional", "annular")
+        else round(angle_deg, 1) % 180.0
+    )
     inten = _systems(e, angle, period, n_max, float(focus_nm)).image(spec, samples)[0, order]
     keep = np.abs(x) <= rule.ambit_nm
     return x[keep], inten[keep]

@@ -138,10 +138,11 @@ def sample_source(ill: Illumination, step: float = GRID_STEP) -> SourceSampling:
     ins = _inside(ill, px.ravel(), py.ravel()).reshape(px.shape)
     full = ins.all(axis=1)
     part = ins.any(axis=1) & ~full
-    pts = [np.stack([cx[full], cy[full]], axis=1),
-           np.stack([px[part][ins[part]], py[part][ins[part]]], axis=1)]  # fmt: skip
-    w = np.concatenate([np.full(int(full.sum()), 1.0),
-                        np.full(int(ins[part].sum()), 1.0 / SUB**2)])  # fmt: skip
+    pts = [
+        np.stack([cx[full], cy[full]], axis=1),
+        np.stack([px[part][ins[part]], py[part][ins[part]]], axis=1),
+    ]
+    w = np.concatenate([np.full(int(full.sum()), 1.0), np.full(int(ins[part].sum()), 1.0 / SUB**2)])
     return SourceSampling(np.concatenate(pts), _boundary(ill), w / w.sum())
 
 

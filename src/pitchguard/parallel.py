@@ -93,8 +93,9 @@ def _index(lib, fmt: str, tops, layers):
     from pitchguard.tiles import HierarchyQuery
 
     q = HierarchyQuery(lib, tops, layers, lib.unit * 1e9)
-    st = Structure(lib.unit, lib.precision * 1e9, tuple(c.name for c in tops), q.bounding_box(),
-                   fmt)  # fmt: skip
+    st = Structure(
+        lib.unit, lib.precision * 1e9, tuple(c.name for c in tops), q.bounding_box(), fmt
+    )
     return q, st
 
 
@@ -160,13 +161,25 @@ def keys_task(path: str, cell: str | None, layers, tiles, halo: float) -> list[b
     q, _ = _open(path, cell, layers)
     # Site pieces are cut on a global grid (extract.SITE_CELL_NM): tiles can
     # stand in for each other only at the same phase of that grid.
-    return [(q.content_key((x0 - halo, y0 - halo, x1 + halo, y1 + halo), (x0, y0)),
-             round(x0 % SITE_CELL_NM, 3), round(y0 % SITE_CELL_NM, 3))
-            for x0, y0, x1, y1 in tiles]  # fmt: skip
+    return [
+        (
+            q.content_key((x0 - halo, y0 - halo, x1 + halo, y1 + halo), (x0, y0)),
+            round(x0 % SITE_CELL_NM, 3),
+            round(y0 % SITE_CELL_NM, 3),
+        )
+        for x0, y0, x1, y1 in tiles
+    ]
 
 
-def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float,
-              max_shapes: int | None = None, imaged=()):  # fmt: skip
+def tile_task(
+    path: str,
+    deck_text: str,
+    cell: str | None,
+    tile,
+    halo: float,
+    max_shapes: int | None = None,
+    imaged=(),
+):
     """Scan one tile; returns ``(findings, stats per layer, cuts imaged)``.
 
     A tile holding more than ``max_shapes`` shapes (counted from the hierarchy
@@ -190,7 +203,7 @@ def tile_task(path: str, deck_text: str, cell: str | None, tile, halo: float,
                 f"{path}: the tile at ({x0 / 1000:g}, {y0 / 1000:g}) um holds up to {n:,} shapes, "
                 f"more than a worker's memory budget allows ({max_shapes:,}): use a smaller "
                 "--tile-um or a larger --max-memory-mb"
-            )  # fmt: skip
+            )
     polys = q.query(window)
     for ps in polys.values():  # onto the database grid, exactly as read_layout does
         snap_to_grid(ps, st.grid_nm)
@@ -221,8 +234,10 @@ def hints_task(deck_text: str, keys: list[tuple], judged=()) -> tuple[dict, list
 
 def _with_hints(findings: FindingSet, texts: dict) -> FindingSet:
     """``findings`` with their hints made (:func:`hints_task`)."""
-    distinct = [f if f.hint_key is None else _hinted(f, texts[(f.layer, repr(f.hint_key))], None)
-                for f in findings.distinct]  # fmt: skip
+    distinct = [
+        f if f.hint_key is None else _hinted(f, texts[(f.layer, repr(f.hint_key))], None)
+        for f in findings.distinct
+    ]
     return FindingSet(distinct, findings.which, findings.offset)
 
 
@@ -238,9 +253,12 @@ def clips_task(path: str, cell: str | None, layers, grid_nm: float, windows):
 
 
 def add_clip_geometry(
-    result: ScanResult, deck: Deck, cell: str | None = None, max_groups: int = 500,
+    result: ScanResult,
+    deck: Deck,
+    cell: str | None = None,
+    max_groups: int = 500,
     timeout_s: float | None = None,
-) -> ScanResult:  # fmt: skip
+) -> ScanResult:
     """Read back, in a child process, the layout around the findings a report draws.
 
     A tiled scan keeps no geometry; the HTML report's pictures need the
@@ -254,9 +272,17 @@ def add_clip_geometry(
         return result
     windows = picture_windows(result, deck, max_groups)
     layers = [(r.layer, r.datatype) for r in deck.layers]
-    clips = run_isolated(clips_task, (str(lay.path), cell, layers, lay.grid_nm, windows),
-                         lay.path, "reading the geometry around the findings",
-                         timeout_s or READ_TIMEOUT_S) if windows else {}  # fmt: skip
+    clips = (
+        run_isolated(
+            clips_task,
+            (str(lay.path), cell, layers, lay.grid_nm, windows),
+            lay.path,
+            "reading the geometry around the findings",
+            timeout_s or READ_TIMEOUT_S,
+        )
+        if windows
+        else {}
+    )
     return replace(result, layout=replace(lay, layers=clips))
 
 
@@ -272,8 +298,12 @@ def _clip(extent, region):
     """``extent`` within ``region`` (None: all of it)."""
     if region is None:
         return tuple(extent)
-    return (max(extent[0], region[0]), max(extent[1], region[1]),
-            min(extent[2], region[2]), min(extent[3], region[3]))  # fmt: skip
+    return (
+        max(extent[0], region[0]),
+        max(extent[1], region[1]),
+        min(extent[2], region[2]),
+        min(extent[3], region[3]),
+    )
 
 
 def tiles_for(extent, tile_nm: float, region=None):
@@ -283,8 +313,11 @@ def tiles_for(extent, tile_nm: float, region=None):
         return []
     i0, i1 = math.floor(x0 / tile_nm), math.floor(x1 / tile_nm)
     j0, j1 = math.floor(y0 / tile_nm), math.floor(y1 / tile_nm)
-    tiles = [(i * tile_nm, j * tile_nm, (i + 1) * tile_nm, (j + 1) * tile_nm)
-             for j in range(j0, j1 + 1) for i in range(i0, i1 + 1)]  # fmt: skip
+    tiles = [
+        (i * tile_nm, j * tile_nm, (i + 1) * tile_nm, (j + 1) * tile_nm)
+        for j in range(j0, j1 + 1)
+        for i in range(i0, i1 + 1)
+    ]
     if region is None:
         return tiles
     rx0, ry0, rx1, ry1 = region
@@ -325,8 +358,14 @@ def tile_shape_limit(max_memory_mb: float | None, jobs: int, distributed: bool =
     return max(1, int((per_worker - WORKER_BASE_MB) * 1024.0 / KB_PER_TILE_SHAPE))
 
 
-def plan_tiles(st: Structure, halo_nm: float, jobs: int, max_memory_mb: float | None,
-               tile_um: float | None, distributed: bool = False) -> tuple[float, int]:  # fmt: skip
+def plan_tiles(
+    st: Structure,
+    halo_nm: float,
+    jobs: int,
+    max_memory_mb: float | None,
+    tile_um: float | None,
+    distributed: bool = False,
+) -> tuple[float, int]:
     """Tile size (nm) and local worker count for a memory cap (MB, all processes).
 
     Without a cap each worker may use about 2 GB.  With one, the parent's share
@@ -352,8 +391,10 @@ def plan_tiles(st: Structure, halo_nm: float, jobs: int, max_memory_mb: float | 
         per_worker = _per_worker_mb(max_memory_mb, n, distributed)
         if per_worker < worker_mb(SITE_CELL_NM):
             need = PARENT_BASE_MB + worker_mb(SITE_CELL_NM)
-            raise LayoutError(f"--max-memory-mb {max_memory_mb:g} is too small for this layout: "
-                              f"a scan needs about {math.ceil(need)} MB or more")  # fmt: skip
+            raise LayoutError(
+                f"--max-memory-mb {max_memory_mb:g} is too small for this layout: "
+                f"a scan needs about {math.ceil(need)} MB or more"
+            )
         jobs = n
     if tile_um is not None:
         t = max(SITE_CELL_NM, math.ceil(tile_um * 1000.0 / SITE_CELL_NM) * SITE_CELL_NM)
@@ -364,8 +405,13 @@ def plan_tiles(st: Structure, halo_nm: float, jobs: int, max_memory_mb: float | 
         x0, y0, x1, y1 = st.extent_nm
         side = max(x1 - x0, y1 - y0, SITE_CELL_NM)
         return math.ceil(side / SITE_CELL_NM) * SITE_CELL_NM, jobs
-    sizes = [t for t in (k * SITE_CELL_NM for k in range(1, int(MAX_AUTO_TILE_UM * 1000
-             // SITE_CELL_NM) + 1)) if t == SITE_CELL_NM or worker_mb(t) <= per_worker]  # fmt: skip
+    sizes = [
+        t
+        for t in (
+            k * SITE_CELL_NM for k in range(1, int(MAX_AUTO_TILE_UM * 1000 // SITE_CELL_NM) + 1)
+        )
+        if t == SITE_CELL_NM or worker_mb(t) <= per_worker
+    ]
     return min(sizes, key=lambda t: (_tile_work(st, t, halo_nm), -t)), jobs
 
 
@@ -376,9 +422,15 @@ two of measured times on the benchmark chip: 45 um, 12x estimated, 25x
 measured; 60 um, 5.9x and 4.7x)."""
 
 
-def tile_advice(st: Structure, halo_nm: float, tile_nm: float, jobs: int,
-                max_memory_mb: float | None, distributed: bool = False,
-                tile_um: float | None = None) -> str | None:  # fmt: skip
+def tile_advice(
+    st: Structure,
+    halo_nm: float,
+    tile_nm: float,
+    jobs: int,
+    max_memory_mb: float | None,
+    distributed: bool = False,
+    tile_um: float | None = None,
+) -> str | None:
     """A note when the tile size asked for repeats the layout's arrays much worse
     than the size the scan would choose (tiles that repeat are scanned once).
     ``tile_um``: the size asked for, named when rounding changed it."""
@@ -391,9 +443,11 @@ def tile_advice(st: Structure, halo_nm: float, tile_nm: float, jobs: int,
     asked = ""
     if tile_um is not None and abs(tile_um * 1000.0 - tile_nm) > 1e-6:
         asked = f" (--tile-um {tile_um:g}, rounded up to whole {SITE_CELL_NM / 1000:g} um)"
-    return (f"tiles of {tile_nm / 1000:g} um{asked} meet this layout's arrays at many "
-            f"phases: about {ratio:.0f}x the work of {auto_nm / 1000:g} um tiles, the scan's "
-            "choice (an estimate; leave out --tile-um to use it)")  # fmt: skip
+    return (
+        f"tiles of {tile_nm / 1000:g} um{asked} meet this layout's arrays at many "
+        f"phases: about {ratio:.0f}x the work of {auto_nm / 1000:g} um tiles, the scan's "
+        "choice (an estimate; leave out --tile-um to use it)"
+    )
 
 
 def _phase_fraction(pitch: float, count: int, t: float) -> float:
@@ -449,20 +503,21 @@ def _check_tile_count(path, extent, region, tile_nm: float, shapes: int = 0) -> 
     x0, y0, x1, y1 = _clip(extent, region)
     if not all(math.isfinite(v) for v in (x0, y0, x1, y1)):
         raise LayoutError(f"{path}: coordinates are not finite numbers")
-    n = (math.floor(x1 / tile_nm) - math.floor(x0 / tile_nm) + 1) * \
-        (math.floor(y1 / tile_nm) - math.floor(y0 / tile_nm) + 1)  # fmt: skip
+    n = (math.floor(x1 / tile_nm) - math.floor(x0 / tile_nm) + 1) * (
+        math.floor(y1 / tile_nm) - math.floor(y0 / tile_nm) + 1
+    )
     if n > MAX_TILES:
         raise LayoutError(
             f"{path}: the layout spans {(x1 - x0) / 1e6:,.1f} x {(y1 - y0) / 1e6:,.1f} mm, "
             f"{n:,} tiles of {tile_nm / 1000:g} um (limit {MAX_TILES:,}): coordinates out of "
             "range, or use a larger --tile-um or a --region"
-        )  # fmt: skip
+        )
     if n > SPARSE_TILES_MIN and n > SPARSE_TILES_PER_SHAPE * max(shapes, 1):
         raise LayoutError(
             f"{path}: the layout spans {(x1 - x0) / 1e6:,.4g} x {(y1 - y0) / 1e6:,.4g} mm with "
             f"only {shapes:,} shapes: {n:,} tiles of {tile_nm / 1000:g} um would be almost "
             "all empty (a coordinate may be corrupt); use a larger --tile-um or a --region"
-        )  # fmt: skip
+        )
 
 
 def _preload() -> None:
@@ -486,8 +541,13 @@ def _guarded_structure(path: Path, cell, layers, max_shapes: int, timeout_s: flo
     """The first read, in a child process: a reader crash or hang becomes a LayoutError."""
     from pitchguard.layout import run_isolated
 
-    return run_isolated(structure_task, (str(path), cell, layers, max_shapes), path,
-                        "reading the file's structure", timeout_s)  # fmt: skip
+    return run_isolated(
+        structure_task,
+        (str(path), cell, layers, max_shapes),
+        path,
+        "reading the file's structure",
+        timeout_s,
+    )
 
 
 def scan_tiled(
@@ -528,8 +588,9 @@ def scan_tiled(
         _preload()
     st = _guarded_structure(p, cell, layers, max_shapes, read_timeout_s or READ_TIMEOUT_S)
     halo = _halo(deck)
-    tile_nm, jobs = plan_tiles(st, halo, jobs or os.cpu_count() or 1, max_memory_mb, tile_um,
-                               distributed=bool(scheduler))  # fmt: skip
+    tile_nm, jobs = plan_tiles(
+        st, halo, jobs or os.cpu_count() or 1, max_memory_mb, tile_um, distributed=bool(scheduler)
+    )
     region = tuple(v * 1000.0 for v in region_um) if region_um else None
     _check_tile_count(p, st.extent_nm, region, tile_nm, st.shapes)
     if note is not None and tile_um is not None and reuse and region is None:
@@ -554,8 +615,12 @@ def scan_tiled(
             first = [run.tile(assembly.group([k])) for k in range(len(tiles))]
         engine.stream(first, run.arrived, in_flight=2 * engine.workers)
         findings, per_group_stats = assembly.finish(deck, st.grid_nm)
-        tiling = {"tile_um": tile_nm / 1000.0, "tiles": len(tiles),
-                  "distinct": len(assembly.members), "workers": engine.workers}  # fmt: skip
+        tiling = {
+            "tile_um": tile_nm / 1000.0,
+            "tiles": len(tiles),
+            "distinct": len(assembly.members),
+            "workers": engine.workers,
+        }
     findings = _with_hints(findings, run.texts)
     stats = _sum_stats(deck, per_group_stats)
     if ordered:
@@ -597,8 +662,15 @@ class _TileRun:
         k = self.assembly.members[g][0]
 
         def args():
-            return (self.path, self.deck.text, self.cell, self.tiles[k], self.halo, self.limit,
-                    list(self.imaged.values())[-CUTS_SHARED:])  # fmt: skip
+            return (
+                self.path,
+                self.deck.text,
+                self.cell,
+                self.tiles[k],
+                self.halo,
+                self.limit,
+                list(self.imaged.values())[-CUTS_SHARED:],
+            )
 
         return (tile_task, args, g)
 
@@ -641,8 +713,11 @@ class _TileRun:
                 n = len(self.assembly.members)
                 so_far = " so far" if self.keyed < len(self.tiles) else ""
                 self.engine.progress(f"tiles ({n} distinct{so_far})", self.scanned, n)
-            new = {(f.layer, repr(f.hint_key)): (f.layer, f.hint_key) for f in fs
-                   if f.hint_key is not None and (f.layer, repr(f.hint_key)) not in self.asked}
+            new = {
+                (f.layer, repr(f.hint_key)): (f.layer, f.hint_key)
+                for f in fs
+                if f.hint_key is not None and (f.layer, repr(f.hint_key)) not in self.asked
+            }
             self.asked.update(new)
             self.hint_keys.extend(k for _, k in sorted(new.items()))
             more[:0] = self._hints()
@@ -720,10 +795,13 @@ class _Assembly:
         n_reps = np.array([len(r) for r in self.reps])
         rep0 = np.r_[0, np.cumsum(n_reps)[:-1]]
         start = np.r_[0, np.cumsum(n_reps * size)[:-1]]
-        b_which = np.concatenate([np.repeat(np.arange(rep0[g], rep0[g] + n_reps[g]), size[g])
-                                  for g in range(len(size))] or [np.zeros(0, np.int64)])
-        b_off = np.concatenate([np.tile(offsets[g], (n_reps[g], 1))
-                                for g in range(len(size))] or [np.zeros((0, 2))])  # fmt: skip
+        b_which = np.concatenate(
+            [np.repeat(np.arange(rep0[g], rep0[g] + n_reps[g]), size[g]) for g in range(len(size))]
+            or [np.zeros(0, np.int64)]
+        )
+        b_off = np.concatenate(
+            [np.tile(offsets[g], (n_reps[g], 1)) for g in range(len(size))] or [np.zeros((0, 2))]
+        )
         group_of = np.empty(len(self.tiles), dtype=np.int64)
         slot_of = np.empty(len(self.tiles), dtype=np.int64)
         for g, members in enumerate(self.members):
@@ -737,15 +815,18 @@ class _Assembly:
         both = (n_reps[gt] > 0) & (n_reps[gu] > 0)
         t, u, rel = t[both], u[both], rel[both]
         kinds_of_pair, pair_kind = np.unique(
-            np.stack([gt[both], gu[both], rel[:, 0], rel[:, 1]], axis=1), axis=0,
-            return_inverse=True)  # fmt: skip
+            np.stack([gt[both], gu[both], rel[:, 0], rel[:, 1]], axis=1),
+            axis=0,
+            return_inverse=True,
+        )
         pair_kind = pair_kind.ravel()
         by_kind = np.argsort(pair_kind, kind="stable")
         cuts = np.flatnonzero(np.diff(pair_kind[by_kind])) + 1
         ea, eb = [], []
         sites = _BorderSites(self.reps, deck, grid_nm)
-        for (g, h, dx, dy), ks in zip(kinds_of_pair.tolist(), np.split(by_kind, cuts) if
-                                      len(by_kind) else [], strict=True):  # fmt: skip
+        for (g, h, dx, dy), ks in zip(
+            kinds_of_pair.tolist(), np.split(by_kind, cuts) if len(by_kind) else [], strict=True
+        ):
             g, h = int(g), int(h)
             # Parts of the distinct tiles that join, placed as the pair sits.
             shift = boxes[self.members[g][0], :2] + (dx, dy) - boxes[self.members[h][0], :2]
@@ -756,8 +837,10 @@ class _Assembly:
             ea.append((start[g] + rg[None, :] * size[g] + mt[:, None]).ravel())
             eb.append((start[h] + rh[None, :] * size[h] + mu[:, None]).ravel())
         (alone, slot), (inside, sizes) = _joined_groups(
-            len(b_which), np.concatenate(ea or [np.zeros(0, np.int64)]),
-            np.concatenate(eb or [np.zeros(0, np.int64)]))  # fmt: skip
+            len(b_which),
+            np.concatenate(ea or [np.zeros(0, np.int64)]),
+            np.concatenate(eb or [np.zeros(0, np.int64)]),
+        )
         # Regions cut by borders are merged.  Regions whose parts are the same
         # distinct findings placed alike are the same region moved: each such
         # kind is merged once (its parts made, line points and hulls moved).
@@ -798,8 +881,7 @@ def _kinds(inside: np.ndarray, sizes: np.ndarray, which: np.ndarray, off: np.nda
         sel = np.flatnonzero(sizes == s)
         members = inside[start[sel][:, None] + np.arange(s)]  # (m, s)
         rel = np.round(off[members] - at[sel][:, None, :], 3) + 0.0
-        sig = np.concatenate([which[members].astype(np.float64), rel.reshape(len(sel), -1)],
-                             axis=1)  # fmt: skip
+        sig = np.concatenate([which[members].astype(np.float64), rel.reshape(len(sel), -1)], axis=1)
         _, first, inverse = np.unique(sig, axis=0, return_index=True, return_inverse=True)
         # Kinds numbered in the order of their first group (as a loop would).
         by_first = np.argsort(first, kind="stable")
@@ -828,10 +910,15 @@ def _moved_part(f: Finding, off: np.ndarray) -> Finding:
     dx, dy = off.tolist()
     x0, y0, x1, y1 = f.bbox_nm
     cx, cy = f.cut_origin_nm
-    return _mover(f, (x0 + dx, y0 + dy, x1 + dx, y1 + dy),
-                  tuple([(x + dx, y + dy) for x, y in f.outline_nm]), (cx + dx, cy + dy),
-                  None if f.line_points is None else f.line_points + off, None,
-                  None if f.extent_nm is None else f.extent_nm + off)  # fmt: skip
+    return _mover(
+        f,
+        (x0 + dx, y0 + dy, x1 + dx, y1 + dy),
+        tuple([(x + dx, y + dy) for x, y in f.outline_nm]),
+        (cx + dx, cy + dy),
+        None if f.line_points is None else f.line_points + off,
+        None,
+        None if f.extent_nm is None else f.extent_nm + off,
+    )
 
 
 def _joined_groups(n: int, ea: np.ndarray, eb: np.ndarray):
@@ -875,10 +962,17 @@ def _neighbours(tiles) -> tuple[np.ndarray, np.ndarray]:
         g = b.reshape(ny, nx, 4)
         if (g[:, :, 0] == g[0:1, :, 0]).all() and (g[:, :, 1] == g[:, 0:1, 1]).all():
             idx = np.arange(len(b)).reshape(ny, nx)
-            t = np.concatenate([idx[:, :-1].ravel(), idx[:-1, :].ravel(),
-                                idx[:-1, :-1].ravel(), idx[:-1, 1:].ravel()])
-            u = np.concatenate([idx[:, 1:].ravel(), idx[1:, :].ravel(),
-                                idx[1:, 1:].ravel(), idx[1:, :-1].ravel()])  # fmt: skip
+            t = np.concatenate(
+                [
+                    idx[:, :-1].ravel(),
+                    idx[:-1, :].ravel(),
+                    idx[:-1, :-1].ravel(),
+                    idx[:-1, 1:].ravel(),
+                ]
+            )
+            u = np.concatenate(
+                [idx[:, 1:].ravel(), idx[1:, :].ravel(), idx[1:, 1:].ravel(), idx[1:, :-1].ravel()]
+            )
             return t, u
     eps = 1e-3
     qi, qj = _query_pairs(_rtree(b[:, :2] - eps, b[:, 2:] + eps), b[:, :2] - eps, b[:, 2:] + eps)
@@ -887,8 +981,18 @@ def _neighbours(tiles) -> tuple[np.ndarray, np.ndarray]:
 
 
 _MOVED = ("bbox_nm", "outline_nm", "cut_origin_nm", "line_points", "border_sites", "extent_nm")
-_MERGED = ("pitch_max_nm", "lines", "periodicity", "sites", "run_nm", "bbox_nm", "outline_nm",
-           "line_points", "border_sites", "extent_nm")  # fmt: skip
+_MERGED = (
+    "pitch_max_nm",
+    "lines",
+    "periodicity",
+    "sites",
+    "run_nm",
+    "bbox_nm",
+    "outline_nm",
+    "line_points",
+    "border_sites",
+    "extent_nm",
+)
 
 
 _mover = finding_copier(_MOVED)
@@ -935,15 +1039,17 @@ class _Engine:
             try:
                 from distributed import Client
             except ImportError:
-                raise LayoutError("--scheduler needs dask.distributed: pip install "
-                                  "'pitchguard[cluster]'") from None  # fmt: skip
+                raise LayoutError(
+                    "--scheduler needs dask.distributed: pip install 'pitchguard[cluster]'"
+                ) from None
             self.client = Client(self.scheduler)
         else:
             from concurrent.futures import ProcessPoolExecutor
             from multiprocessing import get_context
 
-            self.pool = ProcessPoolExecutor(self.jobs, mp_context=get_context("fork"),
-                                            initializer=_quiet_worker)
+            self.pool = ProcessPoolExecutor(
+                self.jobs, mp_context=get_context("fork"), initializer=_quiet_worker
+            )
         return self
 
     def __exit__(self, exc_type, *exc) -> None:
@@ -1013,14 +1119,16 @@ class _Engine:
         try:
             return fut.result()
         except BrokenProcessPool:
-            raise LayoutError(f"{self.path}: the layout reader crashed in a tile worker: "
-                              "the file is corrupt") from None  # fmt: skip
+            raise LayoutError(
+                f"{self.path}: the layout reader crashed in a tile worker: the file is corrupt"
+            ) from None
         except Exception as exc:
             if self.client is None:
                 raise
             # A worker lost while reading: bad input.
-            raise LayoutError(f"{self.path}: a tile failed on the cluster: "
-                              f"{type(exc).__name__}: {exc}") from None  # fmt: skip
+            raise LayoutError(
+                f"{self.path}: a tile failed on the cluster: {type(exc).__name__}: {exc}"
+            ) from None
 
 
 def _sum_stats(deck: Deck, per_group: list[tuple[list[LayerStats], int]]) -> list[LayerStats]:
@@ -1070,8 +1178,12 @@ class _BorderSites:
     def __init__(self, reps: list[list[Finding]], deck: Deck, grid_nm: float):
         self.reps = reps
         self.names = [r.name for r in deck.layers]
-        self.tol_of = np.array([max(r.pitch_tolerance_nm / deck.scale_to_wafer,
-                                    SNAP_PITCH_SPREAD * grid_nm) for r in deck.layers])  # fmt: skip
+        self.tol_of = np.array(
+            [
+                max(r.pitch_tolerance_nm / deck.scale_to_wafer, SNAP_PITCH_SPREAD * grid_nm)
+                for r in deck.layers
+            ]
+        )
         self._sites: dict[int, tuple] = {}
         self._trees: dict[int, tuple] = {}  # group -> (R-tree, its boxes' lo, hi)
 
@@ -1112,8 +1224,9 @@ class _BorderSites:
         return joined[:, 0], joined[:, 1]
 
 
-def _merge_groups(findings: dict[int, Finding], groups: list[np.ndarray], deck: Deck,
-                  grid_nm: float) -> list[Finding]:  # fmt: skip
+def _merge_groups(
+    findings: dict[int, Finding], groups: list[np.ndarray], deck: Deck, grid_nm: float
+) -> list[Finding]:
     """One finding per group of parts (``findings`` by number): the worst part's,
     spanning all parts.
 
@@ -1138,13 +1251,19 @@ def _merge_groups(findings: dict[int, Finding], groups: list[np.ndarray], deck: 
     d = o[:, 1] - o[:, 0]
     length = np.hypot(d[:, 0], d[:, 1])
     rad = np.radians([findings[k].orientation_deg for k in best.tolist()])
-    d = np.where(length[:, None] > 0, d / np.where(length > 0, length, 1.0)[:, None],
-                 np.stack([np.cos(rad), np.sin(rad)], axis=1))  # fmt: skip
+    d = np.where(
+        length[:, None] > 0,
+        d / np.where(length > 0, length, 1.0)[:, None],
+        np.stack([np.cos(rad), np.sin(rad)], axis=1),
+    )
     nrm = np.stack([d[:, 1], -d[:, 0]], axis=1)
     # The parts' extents (hulls of their sites' corners) in the frame of the worst.
-    hulls = [findings[k].extent_nm if findings[k].extent_nm is not None
-             else np.asarray(findings[k].outline_nm, dtype=np.float64)
-             for k in members.tolist()]  # fmt: skip
+    hulls = [
+        findings[k].extent_nm
+        if findings[k].extent_nm is not None
+        else np.asarray(findings[k].outline_nm, dtype=np.float64)
+        for k in members.tolist()
+    ]
     sizes = np.array([len(h) for h in hulls])
     pts = np.concatenate(hulls)
     owner = np.repeat(gid, sizes)
@@ -1156,22 +1275,42 @@ def _merge_groups(findings: dict[int, Finding], groups: list[np.ndarray], deck: 
     v0 = np.minimum.reduceat(pv, starts_pts)
     v1 = np.maximum.reduceat(pv, starts_pts)
     starts = np.r_[0, np.cumsum([len(g) for g in groups])[:-1]]
-    corners = np.stack([d * u0[:, None] + nrm * v0[:, None], d * u1[:, None] + nrm * v0[:, None],
-                        d * u1[:, None] + nrm * v1[:, None], d * u0[:, None] + nrm * v1[:, None]],
-                       axis=1)  # fmt: skip
+    corners = np.stack(
+        [
+            d * u0[:, None] + nrm * v0[:, None],
+            d * u1[:, None] + nrm * v0[:, None],
+            d * u1[:, None] + nrm * v1[:, None],
+            d * u0[:, None] + nrm * v1[:, None],
+        ],
+        axis=1,
+    )
     boxes = np.concatenate([corners.min(axis=1), corners.max(axis=1)], axis=1)
     pmax = np.maximum.reduceat(np.array([f.pitch_max_nm for f in parts]), starts)
     sites = np.add.reduceat(np.array([f.sites for f in parts]), starts)
     dense = {r.name: r.dense_min_lines for r in deck.layers}
     out = []
-    for g, (b, corner, box) in enumerate(zip(best.tolist(), corners.tolist(), boxes.tolist(),
-                                             strict=True)):  # fmt: skip
+    for g, (b, corner, box) in enumerate(
+        zip(best.tolist(), corners.tolist(), boxes.tolist(), strict=True)
+    ):
         f = findings[b]
         parts = [findings[k].line_points for k in groups[g].tolist()]
-        points = np.unique(np.concatenate([q for q in parts if q is not None] or
-                                          [np.zeros((0, 2))]), axis=0)  # fmt: skip
+        points = np.unique(
+            np.concatenate([q for q in parts if q is not None] or [np.zeros((0, 2))]), axis=0
+        )
         lines = count_lines(points, canonical_normal(nrm[g]), grid_nm)
-        out.append(_merged(f, float(pmax[g]), lines, _periodicity(lines, dense[f.layer]),
-                           int(sites[g]), round(float(u1[g] - u0[g]), 3), tuple(box),
-                           tuple(map(tuple, corner)), points, None, None))  # fmt: skip
+        out.append(
+            _merged(
+                f,
+                float(pmax[g]),
+                lines,
+                _periodicity(lines, dense[f.layer]),
+                int(sites[g]),
+                round(float(u1[g] - u0[g]), 3),
+                tuple(box),
+                tuple(map(tuple, corner)),
+                points,
+                None,
+                None,
+            )
+        )
     return out

@@ -53,19 +53,23 @@ def plot_image(rule: LayerRule, r: GratingResult, out: Path, inputs: list[Path])
     ax.axvspan(-h, h, color="#999999", alpha=0.25, label=f"drawn {feature} ({r.cd_nm:g} nm)")
     m = r.metrics
     if m is not None and math.isfinite(m.threshold):
-        ax.axhline(m.threshold, color="#d62728", ls="--", lw=1.2,
-                   label=f"threshold {m.threshold:.3f}")  # fmt: skip
+        ax.axhline(
+            m.threshold, color="#d62728", ls="--", lw=1.2, label=f"threshold {m.threshold:.3f}"
+        )
         if not (m.lost or m.bridged) and math.isfinite(m.cd_nm):
             for s in (-1, 1):
                 ax.axvline(s * m.cd_nm / 2, color="#2ca02c", ls=":", lw=1.5)
-            ax.plot([], [], color="#2ca02c", ls=":",
-                    label=f"printed CD {m.cd_nm:.1f} nm (symmetric)")  # fmt: skip
+            ax.plot(
+                [], [], color="#2ca02c", ls=":", label=f"printed CD {m.cd_nm:.1f} nm (symmetric)"
+            )
     ax.set_xlabel("x (nm, wafer; 0 = centre of the drawn feature)")
     ax.set_ylabel("intensity (open frame = 1)")
     ax.set_xlim(r.x_nm[0], r.x_nm[-1])
     ax.set_ylim(0, max(1.05, float(np.max(r.intensity)) * 1.05))
-    title = (f"{rule.name}: pitch {r.pitch_nm:g} nm, CD {r.cd_nm:g} nm, focus {r.focus_nm:g} nm "
-             f"- {r.severity}")  # fmt: skip
+    title = (
+        f"{rule.name}: pitch {r.pitch_nm:g} nm, CD {r.cd_nm:g} nm, focus {r.focus_nm:g} nm "
+        f"- {r.severity}"
+    )
     ax.set_title(title, fontsize=10)
     ax.legend(fontsize=8, loc="upper right")
     fig.text(0.01, -0.02, CAUTION, fontsize=6.5, color="#555555", wrap=True)
@@ -80,14 +84,21 @@ def plot_sweep(
     p = np.array([r.pitch_nm for r in results])
 
     def series(attr):
-        return np.array([getattr(r.metrics, attr) if r.metrics else np.nan for r in results],
-                        dtype=float)  # fmt: skip
+        return np.array(
+            [getattr(r.metrics, attr) if r.metrics else np.nan for r in results], dtype=float
+        )
 
     panels = [
-        ("NILS", series("nils"), [(rule.nils_risk_below, "risk"),
-                                   (rule.nils_marginal_below, "marginal")]),  # fmt: skip
-        ("CD error at nominal dose (%)", series("cd_error_pct"),
-         [(rule.cd_tolerance_pct, "tolerance"), (-rule.cd_tolerance_pct, None)]),  # fmt: skip
+        (
+            "NILS",
+            series("nils"),
+            [(rule.nils_risk_below, "risk"), (rule.nils_marginal_below, "marginal")],
+        ),
+        (
+            "CD error at nominal dose (%)",
+            series("cd_error_pct"),
+            [(rule.cd_tolerance_pct, "tolerance"), (-rule.cd_tolerance_pct, None)],
+        ),
         ("exposure latitude (%)", series("el_pct"), [(rule.el_min_pct, "minimum")]),
         ("depth of focus (nm)", series("dof_nm"), [(rule.dof_min_nm, "minimum")]),
     ]
@@ -101,18 +112,26 @@ def plot_sweep(
         for value, name in limits:
             ax.axhline(value, color="#555555", ls="--", lw=0.9)
             if name:
-                ax.text(p[-1], value, f" {name}", fontsize=7, va="bottom", ha="right",
-                        color="#555555")  # fmt: skip
+                ax.text(
+                    p[-1], value, f" {name}", fontsize=7, va="bottom", ha="right", color="#555555"
+                )
         ax.set_ylabel(label, fontsize=8)
         if np.all(np.isnan(y)):
-            ax.text(0.5, 0.5, "not judged (no dose anchor in the deck)" if "CD" in label
-                    else "not imaged", transform=ax.transAxes, ha="center", fontsize=8)  # fmt: skip
+            ax.text(
+                0.5,
+                0.5,
+                "not judged (no dose anchor in the deck)" if "CD" in label else "not imaged",
+                transform=ax.transAxes,
+                ha="center",
+                fontsize=8,
+            )
     axes[-1].set_xlabel("pitch (nm, wafer)")
     cd = results[0].cd_nm if results else float("nan")
     axes[0].set_title(
         f"{rule.name} through pitch at CD {cd:g} nm ({rule.exposure_name}); shaded: "
-        "fail (red), risk (orange), marginal (olive)", fontsize=9,
-    )  # fmt: skip
+        "fail (red), risk (orange), marginal (olive)",
+        fontsize=9,
+    )
     fig.text(0.01, 0.0, CAUTION, fontsize=6.5, color="#555555", wrap=True)
     fig.tight_layout()
     _save(fig, out, inputs)

@@ -112,8 +112,13 @@ def _threshold_window(t, cd, target, tol):
     size = math.nan
     best = np.nanargmin(np.abs(diff))
     for k in (best - 1, best):
-        if 0 <= k < len(t) - 1 and np.isfinite(diff[k]) and np.isfinite(diff[k + 1]) \
-                and diff[k] * diff[k + 1] <= 0 and diff[k] != diff[k + 1]:  # fmt: skip
+        if (
+            0 <= k < len(t) - 1
+            and np.isfinite(diff[k])
+            and np.isfinite(diff[k + 1])
+            and diff[k] * diff[k + 1] <= 0
+            and diff[k] != diff[k + 1]
+        ):
             size = t[k] + (t[k + 1] - t[k]) * (-diff[k]) / (diff[k + 1] - diff[k])
             break
     if math.isnan(size):
@@ -208,10 +213,17 @@ def evaluate(
     # Python floats, not numpy scalars: metrics travel between processes in
     # every tiled scan, and a numpy scalar pickles to 5x the bytes, slower.
     return Metrics(
-        contrast=float(contrast), nils=nils, cd_nm=cd_nom, cd_error_pct=float(cd_err),
-        lost=lost, bridged=bridged, el_pct=float(el), dof_nm=float(dof),
-        threshold=float(t_nom), dose_to_size=float(dts),
-    )  # fmt: skip
+        contrast=float(contrast),
+        nils=nils,
+        cd_nm=cd_nom,
+        cd_error_pct=float(cd_err),
+        lost=lost,
+        bridged=bridged,
+        el_pct=float(el),
+        dof_nm=float(dof),
+        threshold=float(t_nom),
+        dose_to_size=float(dts),
+    )
 
 
 def _dose_range(window, bright):  # noqa: ARG001 - same for both tones

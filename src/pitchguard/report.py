@@ -129,24 +129,37 @@ def finding_to_dict(f: Finding, holes: bool = False) -> dict:
         "exposure_latitude_pct": _num(f.el_pct),
         "depth_of_focus_nm": _num(f.dof_nm),
         "worst_line": f.context or None,
-        "cut": {"bounds_nm": _nums(f.cut_bounds_nm), "angle_deg": _num(f.cut_angle_deg),
-                "origin_um": origin,
-                "threshold": _num(f.threshold)} if f.cut_bounds_nm else None,
+        "cut": {
+            "bounds_nm": _nums(f.cut_bounds_nm),
+            "angle_deg": _num(f.cut_angle_deg),
+            "origin_um": origin,
+            "threshold": _num(f.threshold),
+        }
+        if f.cut_bounds_nm
+        else None,
         "checks": [
-            {"check": v.check, "severity": v.severity, "value": _num(v.value),
-             "limit": _num(v.limit), "message": v.message}
+            {
+                "check": v.check,
+                "severity": v.severity,
+                "value": _num(v.value),
+                "limit": _num(v.limit),
+                "message": v.message,
+            }
             for v in f.violations
         ],
-    }  # fmt: skip
+    }
 
 
 def finding_rows(findings: Sequence[Finding]) -> Rows:
     """:func:`finding_to_dict` of each finding, made as it is written."""
     if not isinstance(findings, FindingSet):
         return Rows(findings, finding_to_dict)
-    return PlacedRows(findings, lambda k: finding_to_dict(findings[k]),
-                      lambda d: finding_to_dict(findings.distinct[d], holes=True),
-                      lambda k, f, dx, dy: placed_fields(f, dx, dy))  # fmt: skip
+    return PlacedRows(
+        findings,
+        lambda k: finding_to_dict(findings[k]),
+        lambda d: finding_to_dict(findings.distinct[d], holes=True),
+        lambda k, f, dx, dy: placed_fields(f, dx, dy),
+    )
 
 
 def to_json(result: ScanResult, deck: Deck, fail_on: str, lazy: bool = False) -> dict:
@@ -186,8 +199,9 @@ def to_json(result: ScanResult, deck: Deck, fail_on: str, lazy: bool = False) ->
             "drawn_scale": deck.drawn_scale,
             "reduction": deck.reduction,
         },
-        "findings": finding_rows(result.findings) if lazy else
-                    [finding_to_dict(f) for f in result.findings],
+        "findings": finding_rows(result.findings)
+        if lazy
+        else [finding_to_dict(f) for f in result.findings],
         "summary": {
             "findings": len(result.findings),
             "by_severity": severity_counts(result.findings),
@@ -332,8 +346,11 @@ class PlacedRows(Rows):
     def texts(self, one):
         def split(d: int) -> list[str]:
             parts = _HOLES.split(one(self.template(d)))  # text, name | None, None | name, ...
-            return [p if k % 3 == 0 else parts[k] or parts[k + 1]
-                    for k, p in enumerate(parts) if k % 3 != 2]  # fmt: skip
+            return [
+                p if k % 3 == 0 else parts[k] or parts[k + 1]
+                for k, p in enumerate(parts)
+                if k % 3 != 2
+            ]
 
         return fill_templates(self.findings, split, self.fill)
 
@@ -392,8 +409,9 @@ def dump_json(value, fh, ensure_ascii: bool = True, level: int = 0) -> None:
             fh.write("[\n" + pad)
             dump_json(value[0], fh, ensure_ascii, level + 1)
             fh.write("\n" + "  " * level + "]")
-        elif not isinstance(value, Rows) and not any(isinstance(v, (dict, list, tuple))
-                                                     for v in value):  # fmt: skip
+        elif not isinstance(value, Rows) and not any(
+            isinstance(v, (dict, list, tuple)) for v in value
+        ):
             fh.write(one(list(value)))
         else:
             fh.write("[\n")
@@ -504,9 +522,14 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
         c = severity_counts(result.findings, st.name)
         ex = st.extract
         counts.add_row(
-            st.name, st.source, *(str(c[s]) for s in SEVERITIES), f"{ex.sites:,}",
-            f"{ex.isolated_sites:,}", f"{ex.short_edges + ex.pieces_2d:,}", f"{st.shapes:,}",
-        )  # fmt: skip
+            st.name,
+            st.source,
+            *(str(c[s]) for s in SEVERITIES),
+            f"{ex.sites:,}",
+            f"{ex.isolated_sites:,}",
+            f"{ex.short_edges + ex.pieces_2d:,}",
+            f"{st.shapes:,}",
+        )
     console.print(counts)
 
     if result.findings:
@@ -517,10 +540,18 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
             show_edge=False,
         )
         for col, just in (
-            ("#", "right"), ("severity", "left"), ("layer", "left"), ("x, y µm", "right"),
-            ("pitch nm", "right"), ("w / s nm", "right"), ("k1", "right"), ("NILS", "right"),
-            ("orders", "left"), ("lines", "right"), ("check", "left"),
-        ):  # fmt: skip
+            ("#", "right"),
+            ("severity", "left"),
+            ("layer", "left"),
+            ("x, y µm", "right"),
+            ("pitch nm", "right"),
+            ("w / s nm", "right"),
+            ("k1", "right"),
+            ("NILS", "right"),
+            ("orders", "left"),
+            ("lines", "right"),
+            ("check", "left"),
+        ):
             worst.add_column(col, justify=just)
         for k, f in enumerate(shown, 1):
             cx, cy = f.centre_um

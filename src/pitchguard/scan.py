@@ -112,15 +112,24 @@ def scan_polygons(
             ex.extra["unique_cuts"] = len(cuts)
             ex.extra["imaged_sites"] = int((which_cut >= 0).sum())
             if tile:
-                cut_keys = frozenset((c, round(a, 1) % 180.0) for c, a in zip(cuts, angles,
-                                                                               strict=True))
+                cut_keys = frozenset(
+                    (c, round(a, 1) % 180.0) for c, a in zip(cuts, angles, strict=True)
+                )
         findings.extend(
-            classify_layer(sites, rule, scale, grid_nm, metrics, which_cut, cuts,
-                           tile_nm=region_nm if tile else None, defer_hints=tile)  # fmt: skip
+            classify_layer(
+                sites,
+                rule,
+                scale,
+                grid_nm,
+                metrics,
+                which_cut,
+                cuts,
+                tile_nm=region_nm if tile else None,
+                defer_hints=tile,
+            )
         )
         stats.append(
-            LayerStats(rule.name, rule.source, ex.shapes, ex, time.perf_counter() - t0,
-                       cut_keys)  # fmt: skip
+            LayerStats(rule.name, rule.source, ex.shapes, ex, time.perf_counter() - t0, cut_keys)
         )
     tick("done", total)
     return findings, stats

@@ -83,8 +83,12 @@ def _hits(b: Box, w: Box) -> bool:
 
 def _moved_box_hits(box, offsets: np.ndarray, w: Box) -> np.ndarray:
     """Which copies of ``box`` moved by ``offsets`` (n, 2) meet ``w``."""
-    return (box[0] + offsets[:, 0] <= w[2]) & (box[2] + offsets[:, 0] >= w[0]) & \
-        (box[1] + offsets[:, 1] <= w[3]) & (box[3] + offsets[:, 1] >= w[1])  # fmt: skip
+    return (
+        (box[0] + offsets[:, 0] <= w[2])
+        & (box[2] + offsets[:, 0] >= w[0])
+        & (box[1] + offsets[:, 1] <= w[3])
+        & (box[3] + offsets[:, 1] >= w[1])
+    )
 
 
 @dataclass
@@ -112,8 +116,10 @@ class HierarchyQuery:
         for name in self.tops:
             self._bbox(name)
         # Own polygons per cell (asked-for layers), by the cell's number.
-        self.own_counts = np.array([sum(len(ps) for ps, _ in cd.polys.values())
-                                    for cd in self.cells.values()], dtype=np.int64)  # fmt: skip
+        self.own_counts = np.array(
+            [sum(len(ps) for ps, _ in cd.polys.values()) for cd in self.cells.values()],
+            dtype=np.int64,
+        )
 
     # -- preparation ---------------------------------------------------------
     def _load(self, cell, by_name) -> None:
@@ -121,8 +127,9 @@ class HierarchyQuery:
             return
         polys = {}
         for ld in self.layers:
-            own = cell.get_polygons(apply_repetitions=True, include_paths=True, depth=0,
-                                    layer=ld[0], datatype=ld[1])  # fmt: skip
+            own = cell.get_polygons(
+                apply_repetitions=True, include_paths=True, depth=0, layer=ld[0], datatype=ld[1]
+            )
             ps = PolygonSet.from_arrays((q.points for q in own), self.scale)
             polys[ld] = (ps, ps.bounding_boxes())
         refs = []
@@ -135,14 +142,26 @@ class HierarchyQuery:
             if not rep.size:
                 offs = ("one", None)
             elif rep.columns and rep.rows and rep.v1 is not None and rep.v2 is not None:
-                offs = ("lattice", (rep.columns, rep.rows,
-                                    np.asarray(rep.v1) * self.scale,
-                                    np.asarray(rep.v2) * self.scale))  # fmt: skip
+                offs = (
+                    "lattice",
+                    (
+                        rep.columns,
+                        rep.rows,
+                        np.asarray(rep.v1) * self.scale,
+                        np.asarray(rep.v2) * self.scale,
+                    ),
+                )
             elif rep.columns and rep.rows and rep.spacing is not None:
                 sx, sy = rep.spacing
-                offs = ("lattice", (rep.columns, rep.rows,
-                                    np.array([sx, 0.0]) * self.scale,
-                                    np.array([0.0, sy]) * self.scale))  # fmt: skip
+                offs = (
+                    "lattice",
+                    (
+                        rep.columns,
+                        rep.rows,
+                        np.array([sx, 0.0]) * self.scale,
+                        np.array([0.0, sy]) * self.scale,
+                    ),
+                )
             else:
                 offs = ("list", np.asarray(rep.get_offsets()) * self.scale)
             refs.append((child.name, aff, offs))
@@ -158,8 +177,11 @@ class HierarchyQuery:
         cd = self.cells[name]
         if cd.bbox is not None:
             return cd.bbox
-        boxes = [np.hstack([bb[:, :2].min(axis=0), bb[:, 2:].max(axis=0)])
-                 for _, bb in cd.polys.values() if len(bb)]  # fmt: skip
+        boxes = [
+            np.hstack([bb[:, :2].min(axis=0), bb[:, 2:].max(axis=0)])
+            for _, bb in cd.polys.values()
+            if len(bb)
+        ]
         for child, aff, offs in cd.refs:
             cb = self._bbox(child)
             if cb is None:
@@ -240,8 +262,10 @@ class HierarchyQuery:
         # First the placements as found (placed blocks by their digests): equal
         # ones mean equal placements, so the key, which needs every placement
         # sorted, is worked out once per such set.
-        placed = sorted((d, round(float(t[0]) - ox, 3) + 0.0, round(float(t[1]) - oy, 3) + 0.0)
-                        for d, t, _ in tokens)  # fmt: skip
+        placed = sorted(
+            (d, round(float(t[0]) - ox, 3) + 0.0, round(float(t[1]) - oy, 3) + 0.0)
+            for d, t, _ in tokens
+        )
         quick = (size, _canonical(mine.copy()) if len(mine) else b"", tuple(placed))
         known = self._keys.get(quick)
         if known is not None:
@@ -304,8 +328,12 @@ class HierarchyQuery:
         window relative to it: arrays of blocks see the same relative windows
         over and over."""
         tx, ty = float(t[0]), float(t[1])
-        rel = (round(window[0] - tx, 6) + 0.0, round(window[1] - ty, 6) + 0.0,
-               round(window[2] - tx, 6) + 0.0, round(window[3] - ty, 6) + 0.0)  # fmt: skip
+        rel = (
+            round(window[0] - tx, 6) + 0.0,
+            round(window[1] - ty, 6) + 0.0,
+            round(window[2] - tx, 6) + 0.0,
+            round(window[3] - ty, 6) + 0.0,
+        )
         key = (name, m.tobytes(), rel)
         entry = self._memo.get(key)
         if entry is None:
@@ -344,8 +372,9 @@ class HierarchyQuery:
                 self._visit(child, _Affine(placed.m, placed.t + off), window, out)
 
     @staticmethod
-    def _place(cd: _CellData, m: np.ndarray, t: np.ndarray, offsets: np.ndarray,
-               window: Box, out) -> None:  # fmt: skip
+    def _place(
+        cd: _CellData, m: np.ndarray, t: np.ndarray, offsets: np.ndarray, window: Box, out
+    ) -> None:
         """Add the own polygons of ``cd`` placed by ``m`` and ``t + offsets[i]`` for
         each instance ``i`` whose transformed polygon box meets ``window``, instance
         by instance, each in the cell's order.
@@ -362,8 +391,12 @@ class HierarchyQuery:
             tc = corners @ m.T
             lo = tc.min(axis=1)[None, :, :] + shifts[:, None, :]  # (n, polygons, 2)
             hi = tc.max(axis=1)[None, :, :] + shifts[:, None, :]
-            keep = (lo[..., 0] <= window[2]) & (hi[..., 0] >= window[0]) & \
-                (lo[..., 1] <= window[3]) & (hi[..., 1] >= window[1])  # fmt: skip
+            keep = (
+                (lo[..., 0] <= window[2])
+                & (hi[..., 0] >= window[0])
+                & (lo[..., 1] <= window[3])
+                & (hi[..., 1] >= window[1])
+            )
             inst, k = np.nonzero(keep)  # instance-major, polygons in order
             if not len(k):
                 continue
@@ -393,15 +426,25 @@ class HierarchyQuery:
             # once the whole array's box is known to meet the window.
             ext = np.array([i * a1 + j * a2 for i in (0, cols - 1) for j in (0, rows - 1)])
             if not _moved_box_hits(base, ext, window).any() and not _hits(
-                (base[0] + ext[:, 0].min(), base[1] + ext[:, 1].min(),
-                 base[2] + ext[:, 0].max(), base[3] + ext[:, 1].max()), window):  # fmt: skip
+                (
+                    base[0] + ext[:, 0].min(),
+                    base[1] + ext[:, 1].min(),
+                    base[2] + ext[:, 0].max(),
+                    base[3] + ext[:, 1].max(),
+                ),
+                window,
+            ):
                 return np.zeros((0, 2))
             i0, i1, j0, j1 = 0, cols - 1, 0, rows - 1
         else:
             wx0, wy0, wx1, wy1 = window
             bx0, by0, bx1, by1 = (float(v) for v in base)
-            corners = ((wx0 - bx1, wy0 - by1), (wx1 - bx0, wy0 - by1),
-                       (wx1 - bx0, wy1 - by0), (wx0 - bx1, wy1 - by0))  # fmt: skip
+            corners = (
+                (wx0 - bx1, wy0 - by1),
+                (wx1 - bx0, wy0 - by1),
+                (wx1 - bx0, wy1 - by0),
+                (wx0 - bx1, wy1 - by0),
+            )
             ii = [(s * x - r * y) / det for x, y in corners]
             jj = [(p * y - q * x) / det for x, y in corners]
             i0, i1 = max(0, math.floor(min(ii))), min(cols - 1, math.ceil(max(ii)))

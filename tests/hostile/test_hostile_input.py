@@ -124,8 +124,12 @@ def test_reader_crash_is_contained_in_a_real_process(tmp_path, deck):
     exe = Path(sys.executable).parent / "pitchguard"
     reported = 0
     for f in crashers:
-        r = subprocess.run([exe, "scan", f, "--rules", deck, "--read-timeout", "60"],
-                           capture_output=True, text=True, timeout=120)  # fmt: skip
+        r = subprocess.run(
+            [exe, "scan", f, "--rules", deck, "--read-timeout", "60"],
+            capture_output=True,
+            text=True,
+            timeout=120,
+        )
         assert r.returncode in (0, 1, 2), r
         assert "Traceback" not in r.stderr
         reported += r.returncode == 2 and "crashed" in r.stderr
@@ -215,10 +219,17 @@ def _case_not_a_layout(tmp_path):
 
 
 PATHOLOGICAL = [
-    _case_self_reference, _case_ab_cycle, _case_huge_array, _case_missing_cell,
-    _case_degenerate_polygons, _case_far_coordinates, _case_empty_layout, _case_no_cells,
-    _case_layers_absent, _case_not_a_layout,
-]  # fmt: skip
+    _case_self_reference,
+    _case_ab_cycle,
+    _case_huge_array,
+    _case_missing_cell,
+    _case_degenerate_polygons,
+    _case_far_coordinates,
+    _case_empty_layout,
+    _case_no_cells,
+    _case_layers_absent,
+    _case_not_a_layout,
+]
 
 
 @pytest.mark.parametrize("make", PATHOLOGICAL, ids=lambda f: f.__name__[6:])
@@ -251,8 +262,11 @@ def _big_layout(tmp_path):
     rng = random.Random(11)
     for i in range(40):
         for j in range(40):
-            top.add(gdstk.Reference(cell, (i * 40 + rng.randint(0, 999) * 1e-3,
-                                           j * 5 + rng.randint(0, 999) * 1e-3)))  # fmt: skip
+            top.add(
+                gdstk.Reference(
+                    cell, (i * 40 + rng.randint(0, 999) * 1e-3, j * 5 + rng.randint(0, 999) * 1e-3)
+                )
+            )
     return _lib_write(tmp_path, lib, "big.oas")
 
 
@@ -261,8 +275,11 @@ def test_sigterm_exits_143_and_leaves_no_partial_output(tmp_path, deck):
     layout = _big_layout(tmp_path)
     out = tmp_path / "out.json"
     exe = Path(sys.executable).parent / "pitchguard"
-    proc = subprocess.Popen([exe, "scan", layout, "--rules", deck, "--json", out, "-q"],
-                            stderr=subprocess.PIPE, text=True)  # fmt: skip
+    proc = subprocess.Popen(
+        [exe, "scan", layout, "--rules", deck, "--json", out, "-q"],
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     time.sleep(3.0)
     proc.send_signal(signal.SIGTERM)
     _, err = proc.communicate(timeout=60)
@@ -279,7 +296,9 @@ def test_mutated_file_with_inconsistent_cut_scans(tmp_path, capsys, tiled):
     """A kept corpus file whose damaged geometry once crashed the cut builder."""
     layout = Path(__file__).resolve().parents[1] / "fixtures" / "mutated_demo_inconsistent_cut.gds"
     deck = Path(__file__).resolve().parents[2] / "rules" / "demo_chip.toml"
-    code = main(["scan", str(layout), "--rules", str(deck), "-q"] + ([] if tiled else ["--untiled"]))
+    code = main(
+        ["scan", str(layout), "--rules", str(deck), "-q"] + ([] if tiled else ["--untiled"])
+    )
     err = capsys.readouterr().err
     assert code in (0, 1, 2), err
     assert "internal error" not in err and "Traceback" not in err
@@ -307,11 +326,14 @@ def test_array_piled_into_one_tile_is_refused_quickly(tmp_path, capsys):
     assert time.monotonic() - t0 < 60
 
 
-@pytest.mark.parametrize(("sig", "delay_s", "code", "word"), [
-    (signal.SIGTERM, 0.3, 143, "terminated"),  # while starting up (imports, structure)
-    (signal.SIGINT, 0.3, 130, "interrupted"),
-    (signal.SIGINT, 2.0, 130, "interrupted"),  # while tiles are scanned
-])  # fmt: skip
+@pytest.mark.parametrize(
+    ("sig", "delay_s", "code", "word"),
+    [
+        (signal.SIGTERM, 0.3, 143, "terminated"),  # while starting up (imports, structure)
+        (signal.SIGINT, 0.3, 130, "interrupted"),
+        (signal.SIGINT, 2.0, 130, "interrupted"),  # while tiles are scanned
+    ],
+)
 def test_stopped_scans_exit_cleanly_at_any_stage(tmp_path, deck, sig, delay_s, code, word):
     """Stopped early or late: the documented exit code and message, no traceback,
     no output file, and the command ends (it once hung at exit when a worker was
@@ -319,8 +341,11 @@ def test_stopped_scans_exit_cleanly_at_any_stage(tmp_path, deck, sig, delay_s, c
     layout = _big_layout(tmp_path)
     out = tmp_path / "out.json"
     exe = Path(sys.executable).parent / "pitchguard"
-    proc = subprocess.Popen([exe, "scan", layout, "--rules", deck, "--json", out, "-q"],
-                            stderr=subprocess.PIPE, text=True)  # fmt: skip
+    proc = subprocess.Popen(
+        [exe, "scan", layout, "--rules", deck, "--json", out, "-q"],
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     time.sleep(delay_s)
     proc.send_signal(sig)
     _, err = proc.communicate(timeout=60)
@@ -420,8 +445,9 @@ def test_forked_children_leave_stopping_to_the_command():
     Children forked from the command now ignore SIGINT and die quietly on
     SIGTERM from the first instruction; the parent keeps its handlers and an
     unblocked signal mask."""
-    proc = subprocess.run([sys.executable, "-c", _FORKED_CHILD_SCRIPT], capture_output=True,
-                          text=True, timeout=120)  # fmt: skip
+    proc = subprocess.run(
+        [sys.executable, "-c", _FORKED_CHILD_SCRIPT], capture_output=True, text=True, timeout=120
+    )
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.count("in-init") == 2, proc.stdout
     assert "Traceback" not in proc.stderr, proc.stderr
@@ -459,8 +485,9 @@ def test_a_stop_pending_at_a_fork_is_noted_not_raised_in_the_hook():
     prints the traceback ("Exception ignored in: _after_fork_in_parent") and
     drops the exception.  In the hook the stop is only noted; the wait that
     follows raises it (next test)."""
-    proc = subprocess.run([sys.executable, "-c", _PENDING_AT_FORK_SCRIPT], capture_output=True,
-                          text=True, timeout=60)  # fmt: skip
+    proc = subprocess.run(
+        [sys.executable, "-c", _PENDING_AT_FORK_SCRIPT], capture_output=True, text=True, timeout=60
+    )
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.split("\n")[:2] == ["hook returned", "honoured"], proc.stdout + proc.stderr
 
@@ -500,8 +527,9 @@ def test_a_read_over_its_time_limit_is_stopped(tmp_path):
 
 
 @pytest.mark.parametrize("where", ["scan", "start-up"])
-def test_a_stop_turned_into_another_exception_is_still_a_stop(tmp_path, deck, monkeypatch,
-                                                              capsys, where):  # fmt: skip
+def test_a_stop_turned_into_another_exception_is_still_a_stop(
+    tmp_path, deck, monkeypatch, capsys, where
+):
     """A SIGTERM 0.19 s into a scan (swept in 12.5 ms steps) landed while
     pydantic-core built a deck model's validator at import: it turned the
     handler's exception into a SchemaError, which ended the command with a
@@ -535,8 +563,10 @@ def test_a_stop_in_the_import_systems_lock_callback_is_noted_not_raised():
     from pitchguard.errors import request_stop, stop_requested
 
     ns = {"sys": sys}
-    exec(compile("def cb():\n    return sys._getframe()\n", "<frozen importlib._bootstrap>",
-                 "exec"), ns)  # fmt: skip
+    exec(
+        compile("def cb():\n    return sys._getframe()\n", "<frozen importlib._bootstrap>", "exec"),
+        ns,
+    )
     in_callback = ns["cb"]()
     try:
         try:

@@ -26,9 +26,15 @@ def run_cli(capsys, *argv: str) -> tuple[int, str, str]:
 
 
 def line_array_cell(
-    lib: gdstk.Library, name: str, layer: tuple[int, int], pitch_nm: float, width_nm: float,
-    count: int, length_nm: float, pieces: int = 1,
-) -> gdstk.Cell:  # fmt: skip
+    lib: gdstk.Library,
+    name: str,
+    layer: tuple[int, int],
+    pitch_nm: float,
+    width_nm: float,
+    count: int,
+    length_nm: float,
+    pieces: int = 1,
+) -> gdstk.Cell:
     """Vertical lines (along y) in a 1 um / 1 nm library."""
     cell = lib.new_cell(name)
     for k in range(count):
@@ -37,8 +43,9 @@ def line_array_cell(
             y0 = length_nm * 1e-3 * p / pieces
             y1 = length_nm * 1e-3 * (p + 1) / pieces
             cell.add(
-                gdstk.rectangle((x, y0), (x + width_nm * 1e-3, y1), layer=layer[0],
-                                datatype=layer[1])  # fmt: skip
+                gdstk.rectangle(
+                    (x, y0), (x + width_nm * 1e-3, y1), layer=layer[0], datatype=layer[1]
+                )
             )
     return cell
 

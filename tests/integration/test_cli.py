@@ -25,8 +25,10 @@ def demo_json(tmp_path_factory) -> dict:
     out = tmp_path_factory.mktemp("demo") / "f.json"
     from pitchguard.cli import main
 
-    assert main(["scan", str(SAMPLE_GDS), "--rules", str(DEMO_DECK), "--json", str(out),
-                 "--quiet"]) == 1  # fmt: skip
+    assert (
+        main(["scan", str(SAMPLE_GDS), "--rules", str(DEMO_DECK), "--json", str(out), "--quiet"])
+        == 1
+    )
     return json.loads(out.read_text())
 
 
@@ -60,8 +62,17 @@ def test_sample_ignores_layer_not_in_deck(demo_json):
 
 def test_json_finding_fields(demo_json):
     f = demo_json["findings"][0]
-    for key in ("layer", "severity", "pitch_nm", "width_nm", "space_nm", "k1",
-                "orientation_deg", "bbox_um", "orders"):  # fmt: skip
+    for key in (
+        "layer",
+        "severity",
+        "pitch_nm",
+        "width_nm",
+        "space_nm",
+        "k1",
+        "orientation_deg",
+        "bbox_um",
+        "orders",
+    ):
         assert key in f
     assert f["severity"] in ("fail", "risk", "marginal")
     x0, y0, x1, y1 = f["bbox_um"]
@@ -124,8 +135,9 @@ def test_oasis_sample_gives_same_findings_as_gdsii(tmp_path, capsys, demo_json):
     ("fail_on", "code"), [("fail", 1), ("risk", 1), ("marginal", 1), ("never", 0)]
 )
 def test_fail_on_sets_exit_code(capsys, fail_on, code):
-    got, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--fail-on",
-                          fail_on, "-q")  # fmt: skip
+    got, out, _ = run_cli(
+        capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--fail-on", fail_on, "-q"
+    )
     assert got == code
     assert out.startswith("pitchguard: ")
 
@@ -162,8 +174,7 @@ def test_only_a_scan_that_lists_findings_sorts_them(tmp_path, capsys, monkeypatc
     code, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q")
     assert sorts == []
     js = tmp_path / "f.json"
-    code2, out2, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q",
-                             "--json", js)  # fmt: skip
+    code2, out2, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q", "--json", js)
     assert len(sorts) == 1 and sorts[0] > 1
     assert (code, out.split(", ")[:3]) == (code2, out2.split(", ")[:3])  # all but the time
     listed = json.loads(js.read_text())["findings"]
@@ -184,8 +195,9 @@ def test_garbage_collection_is_on_for_the_scan_and_as_it_was_after(capsys, monke
 
     seen = []
     real = par.scan_tiled
-    monkeypatch.setattr(par, "scan_tiled", lambda *a, **k: seen.append(gc.isenabled())
-                        or real(*a, **k))  # fmt: skip
+    monkeypatch.setattr(
+        par, "scan_tiled", lambda *a, **k: seen.append(gc.isenabled()) or real(*a, **k)
+    )
     assert gc.isenabled()
     run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q")
     assert seen == [True] and gc.isenabled()
@@ -272,8 +284,9 @@ def test_output_may_not_overwrite_input(tmp_path, capsys):
 
 
 def test_bad_marker_extension(tmp_path, capsys):
-    code, _, err = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--markers",
-                           tmp_path / "m.txt")  # fmt: skip
+    code, _, err = run_cli(
+        capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--markers", tmp_path / "m.txt"
+    )
     _one_line_error(code, err, "must end in .gds or .oas")
 
 
@@ -308,23 +321,31 @@ def test_console_script_runs_without_traceback(tmp_path):
     exe = Path(sys.executable).parent / "pitchguard"
     assert exe.exists(), "console script not installed"
     out = tmp_path / "findings.json"
-    ok = subprocess.run([exe, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q", "--json", out],
-                        capture_output=True, text=True)  # fmt: skip
+    ok = subprocess.run(
+        [exe, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "-q", "--json", out],
+        capture_output=True,
+        text=True,
+    )
     assert ok.returncode == 1 and ok.stdout.startswith("pitchguard: FAILED")
     assert ok.stderr == ""
     # Written whole before the command ends (it freezes the collector at exit).
     assert json.loads(out.read_text())["findings"]
-    bad = subprocess.run([exe, "scan", tmp_path / "missing.oas", "--rules", DEMO_DECK],
-                         capture_output=True, text=True)  # fmt: skip
+    bad = subprocess.run(
+        [exe, "scan", tmp_path / "missing.oas", "--rules", DEMO_DECK],
+        capture_output=True,
+        text=True,
+    )
     assert bad.returncode == 2 and "Traceback" not in bad.stderr
 
 
 def test_a_quiet_scan_does_not_import_rich():
     """rich draws the table, bar and notes, none of which a quiet scan shows; its
     import cost about 15 ms of the main process's serial time (measured)."""
-    code = ("import sys; from pitchguard.cli import main; "
-            f"c = main(['scan', {str(SAMPLE_GDS)!r}, '--rules', {str(DEMO_DECK)!r}, '-q']); "
-            "print(c, sorted(m for m in sys.modules if m.split('.')[0] == 'rich'))")  # fmt: skip
+    code = (
+        "import sys; from pitchguard.cli import main; "
+        f"c = main(['scan', {str(SAMPLE_GDS)!r}, '--rules', {str(DEMO_DECK)!r}, '-q']); "
+        "print(c, sorted(m for m in sys.modules if m.split('.')[0] == 'rich'))"
+    )
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert r.returncode == 0, r.stderr
     assert r.stdout.splitlines()[-1] == "1 []"
@@ -334,8 +355,7 @@ def test_the_command_turns_off_numpys_huge_page_advice_unless_the_user_set_it():
     """numpy's NUMPY_MADVISE_HUGEPAGE (documented under numpy's global state),
     read when numpy is imported: the command sets 0 before that, and keeps a
     value from the user's environment."""
-    code = ("import os, pitchguard.cli, numpy; "
-            "print(os.environ['NUMPY_MADVISE_HUGEPAGE'])")  # fmt: skip
+    code = "import os, pitchguard.cli, numpy; print(os.environ['NUMPY_MADVISE_HUGEPAGE'])"
     env = {k: v for k, v in os.environ.items() if k != "NUMPY_MADVISE_HUGEPAGE"}
     for given, want in ((None, "0"), ("1", "1")):
         if given is not None:
@@ -370,8 +390,9 @@ def test_a_closed_error_pipe_keeps_the_exit_code(tmp_path):
     exe = Path(sys.executable).parent / "pitchguard"
     bad = tmp_path / "not-a-layout.gds"
     bad.write_text("hello")
-    proc = subprocess.Popen([exe, "scan", bad, "--rules", DEMO_DECK], stdout=subprocess.PIPE,
-                            stderr=subprocess.STDOUT)  # fmt: skip
+    proc = subprocess.Popen(
+        [exe, "scan", bad, "--rules", DEMO_DECK], stdout=subprocess.PIPE, stderr=subprocess.STDOUT
+    )
     proc.stdout.close()
     assert proc.wait(timeout=120) == 2
 
@@ -380,12 +401,16 @@ def test_a_note_to_a_closed_stderr_does_not_end_the_command():
     """rich exits 1 when its stream's reader is gone; the command's consoles
     (notes and progress on stderr, tables on stdout) drop the rest instead,
     and the command carries on to its own exit code (5 here)."""
-    code = ("import sys; from pitchguard import cli; "
-            "cli._console(stderr=True).print('note ' * 20000); "
-            "cli._console().print('row ' * 20000); sys.exit(5)")  # fmt: skip
+    code = (
+        "import sys; from pitchguard import cli; "
+        "cli._console(stderr=True).print('note ' * 20000); "
+        "cli._console().print('row ' * 20000); sys.exit(5)"
+    )
     for closed in ("stdout", "stderr"):
-        proc = subprocess.Popen([sys.executable, "-c", code],
-                                stdout=subprocess.PIPE if closed == "stdout" else subprocess.DEVNULL,
-                                stderr=subprocess.PIPE if closed == "stderr" else subprocess.DEVNULL)  # fmt: skip
+        proc = subprocess.Popen(
+            [sys.executable, "-c", code],
+            stdout=subprocess.PIPE if closed == "stdout" else subprocess.DEVNULL,
+            stderr=subprocess.PIPE if closed == "stderr" else subprocess.DEVNULL,
+        )
         getattr(proc, closed).close()
         assert proc.wait(timeout=60) == 5, closed

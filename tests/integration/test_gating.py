@@ -46,13 +46,15 @@ def revs(tmp_path, dry_deck):
 
 
 def test_baseline_passes_its_own_revision(revs, capsys):
-    code, _, _ = run_cli(capsys, "scan", revs["r1"], "-r", revs["deck"], "-q",
-                         "--write-baseline", revs["base"])  # fmt: skip
+    code, _, _ = run_cli(
+        capsys, "scan", revs["r1"], "-r", revs["deck"], "-q", "--write-baseline", revs["base"]
+    )
     assert code == 1  # the revision itself has a fail finding
     data = json.loads(revs["base"].read_text())
     assert data["pitchguard_baseline"] == 1 and len(data["entries"]) == 2
-    code, out, _ = run_cli(capsys, "scan", revs["r1"], "-r", revs["deck"], "-q",
-                           "--baseline", revs["base"])  # fmt: skip
+    code, out, _ = run_cli(
+        capsys, "scan", revs["r1"], "-r", revs["deck"], "-q", "--baseline", revs["base"]
+    )
     assert code == 0 and "0 new, 2 accepted, 0 stale" in out
 
 
@@ -60,8 +62,18 @@ def test_baseline_passes_its_own_revision(revs, capsys):
 def test_baseline_survives_shift_and_unrelated_addition(revs, capsys, rev):
     run_cli(capsys, "scan", revs["r1"], "-r", revs["deck"], "-q", "--write-baseline", revs["base"])
     js = revs["tmp"] / f"{rev}.json"
-    code, out, _ = run_cli(capsys, "scan", revs[rev], "-r", revs["deck"], "-q",
-                           "--baseline", revs["base"], "--json", js)  # fmt: skip
+    code, out, _ = run_cli(
+        capsys,
+        "scan",
+        revs[rev],
+        "-r",
+        revs["deck"],
+        "-q",
+        "--baseline",
+        revs["base"],
+        "--json",
+        js,
+    )
     data = json.loads(js.read_text())
     added = rev in ("added", "both")
     assert data["baseline"]["accepted"] == 2 and data["baseline"]["stale"] == 0
@@ -81,13 +93,24 @@ def test_stale_entries_are_listed_and_reasons_kept(revs, capsys):
     for e in data["entries"]:
         e["reason"], e["owner"] = "accepted for the test chip", "layout team"
     revs["base"].write_text(json.dumps(data))
-    code, out, _ = run_cli(capsys, "scan", revs["fixed"], "-r", revs["deck"],
-                           "--baseline", revs["base"])  # fmt: skip
+    code, out, _ = run_cli(
+        capsys, "scan", revs["fixed"], "-r", revs["deck"], "--baseline", revs["base"]
+    )
     assert code == 0
     assert "1 stale" in out and "stale (fixed since, prune it)" in out
     # Rewriting the baseline in place keeps the people's notes on what still matches.
-    run_cli(capsys, "scan", revs["shifted"], "-r", revs["deck"], "-q", "--baseline",
-            revs["base"], "--write-baseline", revs["base"])  # fmt: skip
+    run_cli(
+        capsys,
+        "scan",
+        revs["shifted"],
+        "-r",
+        revs["deck"],
+        "-q",
+        "--baseline",
+        revs["base"],
+        "--write-baseline",
+        revs["base"],
+    )
     again = json.loads(revs["base"].read_text())
     assert {(e["reason"], e["owner"]) for e in again["entries"]} == {
         ("accepted for the test chip", "layout team")
@@ -103,11 +126,16 @@ def test_bad_baseline_is_a_usage_error(revs, capsys):
 
 def test_diff_reports_exactly_the_introduced_array(revs, capsys):
     js = revs["tmp"] / "diff.json"
-    code, out, _ = run_cli(capsys, "diff", revs["r1"], revs["both"], "-r", revs["deck"], "-q",
-                           "--json", js)  # fmt: skip
+    code, out, _ = run_cli(
+        capsys, "diff", revs["r1"], revs["both"], "-r", revs["deck"], "-q", "--json", js
+    )
     assert code == 1
     data = json.loads(js.read_text())
-    assert (data["diff"]["introduced"], data["diff"]["fixed"], data["diff"]["unchanged"]) == (1, 0, 2)
+    assert (data["diff"]["introduced"], data["diff"]["fixed"], data["diff"]["unchanged"]) == (
+        1,
+        0,
+        2,
+    )
     (f,) = data["findings"]
     assert f["bbox_um"][0] == pytest.approx(33.7, abs=0.01)
     assert "1 introduced, 0 fixed, 2 unchanged" in out
@@ -115,8 +143,9 @@ def test_diff_reports_exactly_the_introduced_array(revs, capsys):
 
 def test_diff_fixed_only_passes(revs, capsys):
     js = revs["tmp"] / "diff.json"
-    code, _, _ = run_cli(capsys, "diff", revs["r1"], revs["fixed"], "-r", revs["deck"], "-q",
-                         "--json", js)  # fmt: skip
+    code, _, _ = run_cli(
+        capsys, "diff", revs["r1"], revs["fixed"], "-r", revs["deck"], "-q", "--json", js
+    )
     data = json.loads(js.read_text())
     assert code == 0
     assert (data["diff"]["introduced"], data["diff"]["fixed"]) == (0, 1)
@@ -139,9 +168,23 @@ def test_diff_writes_every_ci_output(revs, capsys):
 
     t = revs["tmp"]
     outs = {k: t / f"ci.{k}" for k in ("sarif", "xml", "html", "gds")}
-    code, _, _ = run_cli(capsys, "diff", revs["r1"], revs["both"], "-r", revs["deck"], "-q",
-                         "--sarif", outs["sarif"], "--junit", outs["xml"], "--html",
-                         outs["html"], "--markers", outs["gds"])  # fmt: skip
+    code, _, _ = run_cli(
+        capsys,
+        "diff",
+        revs["r1"],
+        revs["both"],
+        "-r",
+        revs["deck"],
+        "-q",
+        "--sarif",
+        outs["sarif"],
+        "--junit",
+        outs["xml"],
+        "--html",
+        outs["html"],
+        "--markers",
+        outs["gds"],
+    )
     assert code == 1
     schema_path = Path(__file__).resolve().parents[1] / "fixtures" / "sarif-schema-2.1.0.json"
     schema = json.loads(schema_path.read_text())

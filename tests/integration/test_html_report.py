@@ -89,8 +89,9 @@ def many(tmp_path_factory):
 
 # --------------------------------------------------------------------------- file checks
 
-_ATTR_URL = re.compile(r"""\b(?:src|href|action|poster|data|srcset)\s*=\s*(["']?)([^"'\s>]*)\1""",
-                       re.IGNORECASE)  # fmt: skip
+_ATTR_URL = re.compile(
+    r"""\b(?:src|href|action|poster|data|srcset)\s*=\s*(["']?)([^"'\s>]*)\1""", re.IGNORECASE
+)
 _CSS_URL = re.compile(r"url\(\s*([\"']?)([^\"')]*)\1\s*\)", re.IGNORECASE)
 _IMG = re.compile(r"<img\b[^>]*>", re.IGNORECASE)
 
@@ -103,8 +104,7 @@ def assert_self_contained(text: str) -> None:
     bad = [r for r in refs if not (r.startswith("data:") or r.startswith("#"))]
     assert not bad, f"external references: {bad[:5]}"
     assert "@import" not in text
-    for api in ("fetch(", "XMLHttpRequest", "WebSocket", "EventSource", "sendBeacon",
-                "import("):  # fmt: skip
+    for api in ("fetch(", "XMLHttpRequest", "WebSocket", "EventSource", "sendBeacon", "import("):
         assert api not in text, api
 
 
@@ -125,9 +125,13 @@ def png_images(text: str) -> list[tuple[np.ndarray, int, int]]:
 
 def test_assert_self_contained_catches_external_references():
     """The file checks can fail."""
-    for bad in ('<img src="http://example.com/a.png">', '<link href="//cdn.example/x.css">',
-                "<div style=\"background: url('x.png')\">", '<script src="app.js"></script>',
-                '<img src=https://example.com/a.png>'):  # fmt: skip
+    for bad in (
+        '<img src="http://example.com/a.png">',
+        '<link href="//cdn.example/x.css">',
+        "<div style=\"background: url('x.png')\">",
+        '<script src="app.js"></script>',
+        "<img src=https://example.com/a.png>",
+    ):
         with pytest.raises(AssertionError):
             assert_self_contained(bad)
     assert_self_contained('<img src="data:image/png;base64,AAAA"><a href="#g1">x</a>')
@@ -237,7 +241,7 @@ def test_many_identical_findings_are_grouped_and_capped(many):
     cap = re.search(r'<p id="cap-message"><strong>(\d+) more groups? \((\d+) findings?\)', text)
     assert cap is not None, "no message about the groups beyond max_groups"
     assert (int(cap.group(1)), int(cap.group(2))) == (rest, rest_findings)
-    more = text[text.index('id="more-groups"'):]
+    more = text[text.index('id="more-groups"') :]
     assert more.count("<tr data-severity=") == rest
     # The index links every drawn group to its section.
     for k in range(1, MANY_MAX_GROUPS + 1):
@@ -247,7 +251,7 @@ def test_many_identical_findings_are_grouped_and_capped(many):
 def test_printed_edges_of_a_sampled_image():
     """Edges where the image crosses the threshold nearest the feature (linear interpolation)."""
     x = np.linspace(-100, 100, 2001)
-    dark_line = 1.0 - 0.8 * np.exp(-(x / 30.0) ** 2)  # dark at the centre: a printed line
+    dark_line = 1.0 - 0.8 * np.exp(-((x / 30.0) ** 2))  # dark at the centre: a printed line
     # 1 - 0.8 exp(-(x/30)^2) = 0.5 at x = 30 sqrt(ln 1.6) = 20.57 nm (arithmetic).
     left, right, state = printed_edges(x, dark_line, 0.5, False, (-20.0, 20.0))
     assert state == "printed"
@@ -268,8 +272,9 @@ def test_printed_edges_agree_with_the_findings(demo):
         x, inten = cut_image(rule, f.cut_bounds_nm, f.cut_angle_deg)
         b = np.asarray(f.cut_bounds_nm)
         feat = next((lo, hi) for lo, hi in zip(b[::2], b[1::2], strict=True) if lo <= 0 <= hi)
-        left, right, state = printed_edges(x, inten, f.threshold, rule.field == "dark", feat,
-                                           search_window(b, feat))  # fmt: skip
+        left, right, state = printed_edges(
+            x, inten, f.threshold, rule.field == "dark", feat, search_window(b, feat)
+        )
         checks = {v.check for v in f.violations}
         states.add(state)
         if "feature-not-printed" in checks:
@@ -286,10 +291,17 @@ def test_printed_edges_agree_with_the_findings(demo):
 # --------------------------------------------------------------------------- browser
 
 CHROMIUM_FLAGS = (
-    "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-    "--disable-background-networking", "--disable-component-update", "--disable-sync",
-    "--disable-dev-shm-usage", '--host-resolver-rules=MAP * ~NOTFOUND',
-)  # fmt: skip
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--disable-dev-shm-usage",
+    "--host-resolver-rules=MAP * ~NOTFOUND",
+)
 
 
 def chromium() -> str:
@@ -306,8 +318,14 @@ def run_chromium(tmp: Path, url: str, *extra: str) -> tuple[str, list[dict]]:
     """Load ``url`` headless; return the DOM (after scripts) and the page's own requests."""
     profile = tmp / f"profile{len(list(tmp.glob('profile*')))}"
     netlog = profile.with_suffix(".netlog.json")
-    cmd = [chromium(), *CHROMIUM_FLAGS, f"--user-data-dir={profile}",
-           f"--log-net-log={netlog}", *extra, url]  # fmt: skip
+    cmd = [
+        chromium(),
+        *CHROMIUM_FLAGS,
+        f"--user-data-dir={profile}",
+        f"--log-net-log={netlog}",
+        *extra,
+        url,
+    ]
     proc = subprocess.run(cmd, capture_output=True, text=True, timeout=90)
     assert proc.returncode == 0, proc.stderr[-2000:]
     return proc.stdout, page_requests(netlog)
@@ -334,8 +352,9 @@ def page_requests(netlog: Path) -> list[dict]:
 def test_netlog_check_sees_a_page_fetch(tmp_path):
     """Control: a page that fetches is caught, so an empty list below means no fetch."""
     page = tmp_path / "fetching.html"
-    page.write_text('<!DOCTYPE html><html><body><img src="http://example.invalid/a.png">'
-                    "</body></html>")  # fmt: skip
+    page.write_text(
+        '<!DOCTYPE html><html><body><img src="http://example.invalid/a.png"></body></html>'
+    )
     _, requests = run_chromium(tmp_path, page.as_uri(), "--dump-dom")
     assert any("example.invalid" in r["url"] for r in requests), requests
 
@@ -371,8 +390,9 @@ def test_demo_report_in_chromium(demo, tmp_path):
 def test_demo_report_screenshot_is_not_blank(demo, tmp_path):
     out, _, _ = demo
     shot = tmp_path / "demo.png"
-    _, requests = run_chromium(tmp_path, out.as_uri(), f"--screenshot={shot}",
-                               "--window-size=1280,2000")  # fmt: skip
+    _, requests = run_chromium(
+        tmp_path, out.as_uri(), f"--screenshot={shot}", "--window-size=1280,2000"
+    )
     assert requests == []
     assert shot.is_file() and shot.read_bytes().startswith(PNG_MAGIC)
     pixels = mpimg.imread(str(shot))[..., :3]

@@ -86,8 +86,11 @@ def test_dipole_rescues_dense_vertical_lines_that_conventional_cannot(tmp_path):
 
 
 def test_dipole_does_not_rescue_the_horizontal_twin(tmp_path):
-    dip = _scan(tmp_path, IMMERSION.replace("EXPOSURE", "dipx"),
-                lambda lib, top: _dense(lib, top, turn=True))  # fmt: skip
+    dip = _scan(
+        tmp_path,
+        IMMERSION.replace("EXPOSURE", "dipx"),
+        lambda lib, top: _dense(lib, top, turn=True),
+    )
     checks = _middle(dip)
     assert checks.get("unresolvable-pitch") == "fail"
     assert dip[0].orientation_deg == pytest.approx(0.0)
@@ -109,8 +112,9 @@ def test_mask_kind_changes_the_image(tmp_path):
 
     text = IMMERSION.replace("EXPOSURE", "conv").replace('field = "clear"', 'field = "dark"')
     att = parse_deck(text).layer("m")
-    binary = parse_deck(text.replace('{ kind = "attenuated", transmission = 0.06 }',
-                                     '{ kind = "binary" }')).layer("m")  # fmt: skip
+    binary = parse_deck(
+        text.replace('{ kind = "attenuated", transmission = 0.06 }', '{ kind = "binary" }')
+    ).layer("m")
     a, b = grating(att, 110, 45, 90.0), grating(binary, 110, 45, 90.0)
     assert a.metrics.nils != pytest.approx(b.metrics.nils, rel=0.02)
     assert a.metrics.contrast != pytest.approx(b.metrics.contrast, abs=0.01)
@@ -162,7 +166,9 @@ def test_anchor_enables_cd_error(tmp_path):
     from pitchguard.sweep import grating
 
     free = parse_deck(ARF_ANNULAR_P).layer("p")
-    anchored = parse_deck(ARF_ANNULAR_P + "anchor = { pitch_nm = 180.0, cd_nm = 90.0 }\n").layer("p")
+    anchored = parse_deck(ARF_ANNULAR_P + "anchor = { pitch_nm = 180.0, cd_nm = 90.0 }\n").layer(
+        "p"
+    )
     assert math.isnan(grating(free, 400, 90, 90.0).metrics.cd_error_pct)
     assert grating(anchored, 180, 90, 90.0).metrics.cd_error_pct == pytest.approx(0.0, abs=0.5)
     assert abs(grating(anchored, 400, 90, 90.0).metrics.cd_error_pct) > 1.0
@@ -174,8 +180,19 @@ def test_anchor_enables_cd_error(tmp_path):
 def test_probe_json_has_one_period_centred_on_the_feature(capsys):
     from .conftest import DEMO_DECK
 
-    code, out, _ = run_cli(capsys, "probe", "--rules", DEMO_DECK, "--layer", "poly",
-                           "--pitch", "250", "--cd", "125", "--json")  # fmt: skip
+    code, out, _ = run_cli(
+        capsys,
+        "probe",
+        "--rules",
+        DEMO_DECK,
+        "--layer",
+        "poly",
+        "--pitch",
+        "250",
+        "--cd",
+        "125",
+        "--json",
+    )
     assert code == 0
     obj = json.loads(out)
     for key in ("k1", "contrast", "nils", "image", "orders", "checks"):
@@ -194,8 +211,20 @@ def test_probe_text_and_plot(tmp_path, capsys):
     from .conftest import DEMO_DECK
 
     plot = tmp_path / "img.png"
-    code, out, _ = run_cli(capsys, "probe", "-r", DEMO_DECK, "--layer", "metal1", "--pitch",
-                           "80", "--cd", "40", "--plot", plot)  # fmt: skip
+    code, out, _ = run_cli(
+        capsys,
+        "probe",
+        "-r",
+        DEMO_DECK,
+        "--layer",
+        "metal1",
+        "--pitch",
+        "80",
+        "--cd",
+        "40",
+        "--plot",
+        plot,
+    )
     assert code == 0
     assert "k1 0.280" in out and "NILS at the drawn edges" in out
     assert "*" in out and "+" in out  # pupil picture with a +1st order inside
@@ -206,8 +235,22 @@ def test_sweep_table_bands_plot_and_json(tmp_path, capsys):
     from .conftest import DEMO_DECK
 
     plot, js = tmp_path / "sweep.svg", tmp_path / "sweep.json"
-    code, out, _ = run_cli(capsys, "sweep", "-r", DEMO_DECK, "--layer", "poly", "--cd", "75",
-                           "--pitches", "100:300:10", "--plot", plot, "--json", js)  # fmt: skip
+    code, out, _ = run_cli(
+        capsys,
+        "sweep",
+        "-r",
+        DEMO_DECK,
+        "--layer",
+        "poly",
+        "--cd",
+        "75",
+        "--pitches",
+        "100:300:10",
+        "--plot",
+        plot,
+        "--json",
+        js,
+    )
     assert code == 0
     data = json.loads(js.read_text())
     assert [p["pitch_nm"] for p in data["pitches"]] == list(range(100, 301, 10))
@@ -228,6 +271,7 @@ def test_sweep_without_cd_or_anchor_is_a_usage_error(capsys):
 def test_probe_unknown_layer(capsys):
     from .conftest import DEMO_DECK
 
-    code, _, err = run_cli(capsys, "probe", "-r", DEMO_DECK, "--layer", "nope", "--pitch", "100",
-                           "--cd", "50")  # fmt: skip
+    code, _, err = run_cli(
+        capsys, "probe", "-r", DEMO_DECK, "--layer", "nope", "--pitch", "100", "--cd", "50"
+    )
     assert code == 2 and "no layer named 'nope'" in err

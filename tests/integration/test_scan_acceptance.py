@@ -43,8 +43,9 @@ def _place(lib, top, cell, how: str, origin):
     elif how == "array":
         top.add(gdstk.Reference(cell, (x, y), columns=2, rows=2, spacing=(4, 4)))
     elif how == "rotated_array":
-        top.add(gdstk.Reference(cell, (x, y), rotation=math.pi / 2, columns=2, rows=1,
-                                spacing=(4, 0)))  # fmt: skip
+        top.add(
+            gdstk.Reference(cell, (x, y), rotation=math.pi / 2, columns=2, rows=1, spacing=(4, 0))
+        )
     elif how == "deep":
         mid = lib.new_cell(cell.name + "_MID")
         mid.add(gdstk.Reference(cell, (1, 1), rotation=math.pi))
@@ -53,8 +54,17 @@ def _place(lib, top, cell, how: str, origin):
         raise ValueError(how)
 
 
-PLACEMENTS = ["plain", "rot90", "rot45", "rot30", "mirror", "mirror_rot", "array",
-              "rotated_array", "deep"]  # fmt: skip
+PLACEMENTS = [
+    "plain",
+    "rot90",
+    "rot45",
+    "rot30",
+    "mirror",
+    "mirror_rot",
+    "array",
+    "rotated_array",
+    "deep",
+]
 
 
 def _write(lib, tmp_path, fmt):

@@ -14,9 +14,20 @@ from .conftest import DEMO_DECK, DRY_ARF_DECK, SAMPLE_GDS, SAMPLE_OAS, line_arra
 
 
 def _key(f):
-    return (f.layer, f.check, f.severity, round(f.pitch_nm, 2), round(f.pitch_max_nm, 2),
-            f.lines, f.sites, tuple(round(v, 3) for v in f.bbox_um), round(f.nils, 3),
-            round(f.k1, 4), round(f.run_nm, 1), f.hint)  # fmt: skip
+    return (
+        f.layer,
+        f.check,
+        f.severity,
+        round(f.pitch_nm, 2),
+        round(f.pitch_max_nm, 2),
+        f.lines,
+        f.sites,
+        tuple(round(v, 3) for v in f.bbox_um),
+        round(f.nils, 3),
+        round(f.k1, 4),
+        round(f.run_nm, 1),
+        f.hint,
+    )
 
 
 def _counts(result, features: bool) -> list[dict]:
@@ -51,8 +62,11 @@ def _arrays_across_borders(tmp_path):
     a = line_array_cell(lib, "A110", (7, 0), 110, 55, 40, 25_000, pieces=3)  # 25 um lines
     b = line_array_cell(lib, "B130", (7, 0), 130, 60, 30, 6_000)
     top.add(gdstk.Reference(a, (7.5, 3.0)))
-    top.add(gdstk.Reference(b, (0.0, 9.0), rotation=1.5707963267948966, columns=3, rows=2,
-                            spacing=(12.0, 7.0)))  # fmt: skip
+    top.add(
+        gdstk.Reference(
+            b, (0.0, 9.0), rotation=1.5707963267948966, columns=3, rows=2, spacing=(12.0, 7.0)
+        )
+    )
     path = tmp_path / "borders.oas"
     lib.write_oas(str(path))
     return path
@@ -71,9 +85,11 @@ def test_regions_cut_by_tile_borders_are_merged(tmp_path, tile_um, jobs):
 
 def test_dask_cluster_on_loopback_gives_the_same_findings(tmp_path):
     import distributed  # in the test extra
+
     deck = load_deck(DEMO_DECK)
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                  host="127.0.0.1", dashboard_address=None) as cluster:  # fmt: skip
+    with distributed.LocalCluster(
+        n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=None
+    ) as cluster:
         tiled = scan_tiled(SAMPLE_GDS, deck, tile_um=10, scheduler=cluster.scheduler_address)
     _same(scan_layout(SAMPLE_GDS, deck), tiled)
 
@@ -83,8 +99,9 @@ def test_cli_scans_tiled_by_default_like_untiled(tmp_path, capsys):
 
     code, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q")
     code0, out0, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q", "--untiled")
-    code2, out2, _ = run_cli(capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q", "--jobs", "2",
-                             "--tile-um", "10")  # fmt: skip
+    code2, out2, _ = run_cli(
+        capsys, "scan", SAMPLE_GDS, "-r", DEMO_DECK, "-q", "--jobs", "2", "--tile-um", "10"
+    )
     assert code == code0 == code2 == 1
     # The same summary, shape count included (tiles count the shapes they own), but
     # for the time taken.
@@ -155,14 +172,23 @@ def _random_chip(path, seed: int, overlap: bool) -> None:
             origin = (r * 45 + round(rng.uniform(0, 5), 3), round(rng.uniform(0, 5), 3))
             spacing = (round(rng.uniform(6, 9), 3), round(rng.uniform(6, 9), 3))
             n = 4
-        top.add(gdstk.Reference(rng.choice(cells), origin, rotation=rng.choice(turns),
-                                columns=rng.randint(1, n), rows=rng.randint(1, n),
-                                spacing=spacing, x_reflection=rng.random() < 0.2))  # fmt: skip
+        top.add(
+            gdstk.Reference(
+                rng.choice(cells),
+                origin,
+                rotation=rng.choice(turns),
+                columns=rng.randint(1, n),
+                rows=rng.randint(1, n),
+                spacing=spacing,
+                x_reflection=rng.random() < 0.2,
+            )
+        )
     lib.write_gds(str(path))
 
 
-@pytest.mark.parametrize(("seed", "overlap"), [(2, False), (5, False), (7, False), (0, True),
-                                               (2, True), (4, True)])  # fmt: skip
+@pytest.mark.parametrize(
+    ("seed", "overlap"), [(2, False), (5, False), (7, False), (0, True), (2, True), (4, True)]
+)
 def test_random_layouts_give_the_same_findings_tiled(tmp_path, seed, overlap):
     """Layouts this suite did not design: tile borders fall anywhere on 45 deg arrays,
     mirrored arrays, arrays of half-unit lattice steps and overlapping shapes
@@ -257,6 +283,7 @@ def test_reports_of_repeated_findings_equal_those_of_the_same_findings_listed(tm
         assert a_text == b_text, ext
     junit = (tmp_path / "set.xml").read_text(encoding="utf-8")
     assert junit == to_junit(tiled, deck, fail_on)  # streamed = built as one tree
-    assert junit.count("<failure") == sum(f.severity_rank <= (0 if fail_on == "fail" else 1)
-                                          for f in fs)  # fmt: skip
+    assert junit.count("<failure") == sum(
+        f.severity_rank <= (0 if fail_on == "fail" else 1) for f in fs
+    )
     assert "marginal | " in junit  # findings below fail_on, listed in system-out

@@ -290,7 +290,7 @@ def _array(cell, x0_um, y0_um, pitch_nm, width_nm, count=8, length_um=2.0):
         cell.add(
             gdstk.rectangle(
                 (x, y0_um), (x + width_nm / 1000.0, y0_um + length_um), layer=7, datatype=0
-            )  # fmt: skip
+            )
         )
 
 
@@ -351,13 +351,19 @@ def test_fingerprints_differ_for_different_pitches_and_number_equal_ones(tmp_pat
 
     f = result.findings[0]
     moved = dataclasses.replace(
-        f, bbox_nm=tuple(v + 1234.0 for v in f.bbox_nm),
+        f,
+        bbox_nm=tuple(v + 1234.0 for v in f.bbox_nm),
         outline_nm=tuple((x + 1234.0, y + 1234.0) for x, y in f.outline_nm),
-    )  # fmt: skip
+    )
     assert fingerprint_base(moved) == fingerprint_base(f)
-    for change in ({"pitch_nm": f.pitch_nm + 10}, {"width_nm": f.width_nm + 5},
-                   {"space_nm": f.space_nm + 5}, {"orientation_deg": (f.orientation_deg + 90) % 180},
-                   {"layer": f.layer + "_b"}, {"check": "low-k1"}):  # fmt: skip
+    for change in (
+        {"pitch_nm": f.pitch_nm + 10},
+        {"width_nm": f.width_nm + 5},
+        {"space_nm": f.space_nm + 5},
+        {"orientation_deg": (f.orientation_deg + 90) % 180},
+        {"layer": f.layer + "_b"},
+        {"check": "low-k1"},
+    ):
         assert fingerprint_base(dataclasses.replace(f, **change)) != fingerprint_base(f), change
 
 
@@ -392,9 +398,13 @@ def _check_counts(root: ET.Element) -> None:
 
 @pytest.mark.parametrize(
     ("fail_on", "counted"),
-    [("fail", {"fail"}), ("risk", {"fail", "risk"}),
-     ("marginal", {"fail", "risk", "marginal"}), ("never", set())],
-)  # fmt: skip
+    [
+        ("fail", {"fail"}),
+        ("risk", {"fail", "risk"}),
+        ("marginal", {"fail", "risk", "marginal"}),
+        ("never", set()),
+    ],
+)
 def test_junit_failures_equal_findings_at_or_above_fail_on(demo, fail_on, counted):
     result, _ = demo
     root = _junit(demo, fail_on)

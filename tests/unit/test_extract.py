@@ -115,8 +115,11 @@ def test_overlapping_rectangles_are_one_line():
 
 def test_a_line_drawn_in_pieces_inside_an_array_is_not_cut_at_the_seams():
     drawn = line_array(3, 50, 70, 1000)
-    drawn[1:2] = [rectangle(120, 0, 170, 300), rectangle(120, 300, 170, 700),
-                  rectangle(120, 700, 170, 1000)]  # fmt: skip
+    drawn[1:2] = [
+        rectangle(120, 0, 170, 300),
+        rectangle(120, 300, 170, 700),
+        rectangle(120, 700, 170, 1000),
+    ]
     _, sites, stats = extract(drawn)
     assert stats.sites == 6  # one site per long side: no seam splits a side
     assert rows(sites) == [(50.0, 70.0, 1000.0)] * 4 + [(50.0, math.inf, 1000.0)] * 2
@@ -139,20 +142,50 @@ def test_clockwise_and_closed_rings_are_oriented_with_material_on_the_left():
 FRAME_WITH_HOLE = {
     # One ring, hole joined to the outside by a diagonal cut line (out and back).
     "keyhole-diagonal-cut": [
-        np.array([[0, 0], [400, 0], [400, 1000], [0, 1000], [0, 0], [100, 100], [100, 900],
-                  [300, 900], [300, 100], [100, 100]], float),
+        np.array(
+            [
+                [0, 0],
+                [400, 0],
+                [400, 1000],
+                [0, 1000],
+                [0, 0],
+                [100, 100],
+                [100, 900],
+                [300, 900],
+                [300, 100],
+                [100, 100],
+            ],
+            float,
+        ),
     ],
     # One ring, hole joined by a horizontal cut line: splits the outer and hole sides.
     "keyhole-straight-cut": [
-        np.array([[0, 0], [400, 0], [400, 1000], [0, 1000], [0, 500], [100, 500], [100, 900],
-                  [300, 900], [300, 100], [100, 100], [100, 500], [0, 500]], float),
+        np.array(
+            [
+                [0, 0],
+                [400, 0],
+                [400, 1000],
+                [0, 1000],
+                [0, 500],
+                [100, 500],
+                [100, 900],
+                [300, 900],
+                [300, 100],
+                [100, 100],
+                [100, 500],
+                [0, 500],
+            ],
+            float,
+        ),
     ],
     # Four overlapping bars: the hole appears only when they are merged.
     "four-bars": [
-        rectangle(0, 0, 100, 1000), rectangle(300, 0, 400, 1000),
-        rectangle(0, 0, 400, 100), rectangle(0, 900, 400, 1000),
+        rectangle(0, 0, 100, 1000),
+        rectangle(300, 0, 400, 1000),
+        rectangle(0, 0, 400, 100),
+        rectangle(0, 900, 400, 1000),
     ],
-}  # fmt: skip
+}
 
 
 @pytest.mark.parametrize("drawing", list(FRAME_WITH_HOLE), ids=str)
@@ -244,8 +277,9 @@ def test_short_edges_are_counted_as_2d_not_judged():
 
 def test_piece_facing_a_short_neighbour_is_2d():
     # A 40 x 40 square 50 nm from a line: the 40 nm piece it faces is below min_run.
-    _, sites, stats = extract([rectangle(0, 0, 50, 1000), rectangle(100, 480, 140, 520)],
-                              min_run_nm=100.0)  # fmt: skip
+    _, sites, stats = extract(
+        [rectangle(0, 0, 50, 1000), rectangle(100, 480, 140, 520)], min_run_nm=100.0
+    )
     assert stats.short_edges == 6  # 2 line ends + 4 square sides
     assert stats.pieces_2d == 1
     right = sites.take(np.flatnonzero(np.all(sites.origin == [50.0, 0.0], axis=1)))
@@ -264,8 +298,9 @@ def test_non_parallel_neighbour_gives_2d_pieces_not_sites():
     assert np.all(np.isinf(sites.space))
     # The tilted line's width across its sides: 50 cos(14.04 deg) = 50 * 1000 / |(250, 1000)|.
     tilted_sites = sites.take(np.flatnonzero(sites.feature == sites.feature.max()))
-    assert tilted_sites.width == pytest.approx(50.0 * 1000.0 / math.hypot(250.0, 1000.0),
-                                               abs=EXACT_NM)  # fmt: skip
+    assert tilted_sites.width == pytest.approx(
+        50.0 * 1000.0 / math.hypot(250.0, 1000.0), abs=EXACT_NM
+    )
 
 
 @pytest.mark.parametrize("angle_deg", [45.0, 135.0, 30.0])
@@ -334,8 +369,12 @@ def check_array_sites(array: LineArray, placement: Placement) -> None:
     check(near(sites.width, array.width, tol), f"width {array.width}", drawn, sites)
     check(near(sites.space[finite], array.space, tol), f"space {array.space}", drawn, sites)
     check(near(sites.pitch[finite], array.pitch, tol), f"pitch {array.pitch}", drawn, sites)
-    check(near(sites.run, array.length, 0.0 if placement.manhattan else RUN_SLACK_NM),
-          f"run {array.length}", drawn, sites)  # fmt: skip
+    check(
+        near(sites.run, array.length, 0.0 if placement.manhattan else RUN_SLACK_NM),
+        f"run {array.length}",
+        drawn,
+        sites,
+    )
     ang = sites.orientation_deg
     dang = np.abs(ang - placement.line_orientation_deg)
     dang = np.minimum(dang, 180.0 - dang)
@@ -378,8 +417,9 @@ def test_the_space_of_a_site_ends_on_a_facing_side_of_another_line(array, placem
     facing = np.einsum("ik,jk->ij", nrm, nrm) < -0.99  # antiparallel pairs
     same = sites.feature[:, None] == sites.feature[None, :]
     finite = np.isfinite(sites.space)
-    across = _distance_to_segments(mid + nrm * np.where(finite, sites.space, 0)[:, None],
-                                   seg_a, seg_b)  # fmt: skip
+    across = _distance_to_segments(
+        mid + nrm * np.where(finite, sites.space, 0)[:, None], seg_a, seg_b
+    )
     hit = np.any((across <= tol) & facing & ~same, axis=1)
     check(bool(np.all(hit[finite])), "space ends on a neighbour", drawn, sites)
     inward = _distance_to_segments(mid - nrm * sites.width[:, None], seg_a, seg_b)
@@ -388,8 +428,7 @@ def test_the_space_of_a_site_ends_on_a_facing_side_of_another_line(array, placem
     # Every inner space is seen from both of its sides: finite spaces pair up.
     spaces = np.sort(sites.space[finite])
     check(len(spaces) % 2 == 0, "spaces come in pairs", drawn, sites)
-    check(bool(np.all(np.abs(spaces[0::2] - spaces[1::2]) <= 2 * tol)), "pairs match", drawn,
-          sites)  # fmt: skip
+    check(bool(np.all(np.abs(spaces[0::2] - spaces[1::2]) <= 2 * tol)), "pairs match", drawn, sites)
 
 
 # --------------------------------------------------------------------------- layout files
@@ -411,8 +450,9 @@ def _reference_library() -> gdstk.Library:
     lines.add(gdstk.rectangle((0.0, -1.0), (1.0, -0.5), layer=2, datatype=0))
     lines.add(gdstk.rectangle((0.0, 2.0), (1.0, 2.5), layer=1, datatype=5))
     top = lib.new_cell("TOP")
-    ref = gdstk.Reference(lines, origin=(10.0, 10.0), rotation=math.pi / 2, magnification=2.0,
-                          x_reflection=True)  # fmt: skip
+    ref = gdstk.Reference(
+        lines, origin=(10.0, 10.0), rotation=math.pi / 2, magnification=2.0, x_reflection=True
+    )
     ref.repetition = gdstk.Repetition(columns=2, rows=1, spacing=(20.0, 0.0))
     top.add(ref)
     bar = gdstk.rectangle((0.0, 50.0), (0.1, 51.0), layer=1, datatype=0)

@@ -29,10 +29,11 @@ def demo():
 def _placed(f, dx, dy):
     x0, y0, x1, y1 = f.bbox_nm
     return dataclasses.replace(
-        f, bbox_nm=(x0 + dx, y0 + dy, x1 + dx, y1 + dy),
+        f,
+        bbox_nm=(x0 + dx, y0 + dy, x1 + dx, y1 + dy),
         outline_nm=tuple((x + dx, y + dy) for x, y in f.outline_nm),
         cut_origin_nm=(f.cut_origin_nm[0] + dx, f.cut_origin_nm[1] + dy),
-    )  # fmt: skip
+    )
 
 
 @pytest.fixture(scope="module")
@@ -41,9 +42,14 @@ def placed(demo):
     n = 400
     which = np.array([rng.randrange(len(demo)) for _ in range(n)])
     # Tile-like offsets (whole nm) and arbitrary ones, plus some at the original place.
-    off = np.array([(rng.choice([0, 30000, -60000]), rng.choice([0, 45000]))
-                    if k % 2 else (rng.uniform(-1e6, 1e6), rng.uniform(-1e6, 1e6))
-                    for k in range(n)])  # fmt: skip
+    off = np.array(
+        [
+            (rng.choice([0, 30000, -60000]), rng.choice([0, 45000]))
+            if k % 2
+            else (rng.uniform(-1e6, 1e6), rng.uniform(-1e6, 1e6))
+            for k in range(n)
+        ]
+    )
     expected = [_placed(demo[w], dx, dy) for w, (dx, dy) in zip(which, off.tolist(), strict=True)]
     return FindingSet(demo, which, off), expected
 
@@ -87,14 +93,25 @@ def test_sorted_order_equals_python_sorted_on_the_documented_key(placed):
     fs, expected = placed
     rank = {s: k for k, s in enumerate(SEVERITIES)}
     items = expected + expected[:50]  # exact ties
-    items += [dataclasses.replace(f, bbox_nm=tuple(-0.0 if v == 0 else v for v in
-              (0.0, f.bbox_nm[1], 0.0, f.bbox_nm[3]))) for f in expected[:20]]  # fmt: skip
+    items += [
+        dataclasses.replace(
+            f, bbox_nm=tuple(-0.0 if v == 0 else v for v in (0.0, f.bbox_nm[1], 0.0, f.bbox_nm[3]))
+        )
+        for f in expected[:20]
+    ]
     items += [dataclasses.replace(f, bbox_nm=(0.0, *f.bbox_nm[1:])) for f in expected[:20]]
     # Boxes tied on the leading coordinates, whose later ones disagree in order.
     for f in expected[:10]:
-        items += [dataclasses.replace(f, bbox_nm=b) for b in
-                  ((5.0, 0.0, 10.0, 30.0), (5.0, 5.0, 10.0, 20.0), (5.0, 5.0, 9.0, 40.0),
-                   (5.0, 5.0, 9.0, 35.0), (4.0, 9.0, 1.0, 1.0))]  # fmt: skip
+        items += [
+            dataclasses.replace(f, bbox_nm=b)
+            for b in (
+                (5.0, 0.0, 10.0, 30.0),
+                (5.0, 5.0, 10.0, 20.0),
+                (5.0, 5.0, 9.0, 40.0),
+                (5.0, 5.0, 9.0, 35.0),
+                (4.0, 9.0, 1.0, 1.0),
+            )
+        ]
     want = sorted(items, key=lambda f: (rank[f.severity], f.k1, f.layer, f.bbox_nm))
     got = sort_findings(items)
     assert [id(f) for f in got] == [id(f) for f in want]
@@ -107,7 +124,8 @@ def test_counts_and_exit_code_from_columns_equal_those_of_the_list(placed):
         assert severity_counts(s) == severity_counts(lst)
         for layer in {f.layer for f in expected} | {"no-such-layer"}:
             assert severity_counts(s, layer) == severity_counts(
-                [f for f in lst if f.layer == layer])
+                [f for f in lst if f.layer == layer]
+            )
         for fail_on in (*SEVERITIES, "never"):
             assert exit_code(s, fail_on) == exit_code(lst, fail_on)
     assert sum(severity_counts(fs).values()) == len(fs)
@@ -142,8 +160,9 @@ def test_reports_of_a_tiled_scan_equal_those_of_its_findings_as_a_list():
     for fail_on in ("fail", "risk", "never"):
         assert to_junit(tiled, deck, fail_on) == to_junit(plain, deck, fail_on)
         assert to_json(tiled, deck, fail_on) == to_json(plain, deck, fail_on)
-        assert to_sarif(tiled, deck, SAMPLE_GDS, fail_on) == to_sarif(plain, deck, SAMPLE_GDS,
-                                                                   fail_on)
+        assert to_sarif(tiled, deck, SAMPLE_GDS, fail_on) == to_sarif(
+            plain, deck, SAMPLE_GDS, fail_on
+        )
 
 
 def test_sarif_fingerprints_number_equal_findings_by_place(placed):

@@ -62,8 +62,13 @@ WATER_INDEX = 1.44
 COHERENT = {"shape": "coherent"}
 ANNULAR_06_09 = {"shape": "annular", "sigma_inner": 0.6, "sigma_outer": 0.9}
 ANNULAR_03_09 = {"shape": "annular", "sigma_inner": 0.3, "sigma_outer": 0.9}
-DIPOLE_X = {"shape": "dipole", "sigma_inner": 0.6, "sigma_outer": 0.9, "opening_deg": 35.0,
-            "axis": "x"}  # fmt: skip
+DIPOLE_X = {
+    "shape": "dipole",
+    "sigma_inner": 0.6,
+    "sigma_outer": 0.9,
+    "opening_deg": 35.0,
+    "axis": "x",
+}
 QUADRUPOLE = {"shape": "quadrupole", "sigma_inner": 0.5, "sigma_outer": 0.8, "opening_deg": 30.0}
 FULL_DISC = {"shape": "conventional", "sigma": 1.0}
 BINARY = {"kind": "binary"}
@@ -183,8 +188,12 @@ def test_coherent_three_beam_image_through_focus(wavelength_nm, na, index, pitch
     samples = 128
     x = grid(pitch_nm, samples)
     for z in (-150.0, -40.0, 25.0, 90.0):
-        phi = 2 * math.pi * z * (math.sqrt((index / wavelength_nm) ** 2 - pitch_nm**-2)
-                                 - index / wavelength_nm)  # fmt: skip
+        phi = (
+            2
+            * math.pi
+            * z
+            * (math.sqrt((index / wavelength_nm) ** 2 - pitch_nm**-2) - index / wavelength_nm)
+        )
         field = 0.5 - (2 / math.pi) * np.cos(2 * math.pi * x / pitch_nm) * np.exp(1j * phi)
         expected = np.abs(field) ** 2
         socs = CoherentSystems(optics, src, pitch_nm, 5, z).image(spec, samples)[0]
@@ -215,8 +224,9 @@ def abbe_in_chunks(spec, period_nm, optics, src, defocus_nm, x, chunk=50_000):
     pts, w = src
     out = np.zeros(len(x))
     for k in range(0, len(w), chunk):
-        out += abbe_image(spec, period_nm, optics, (pts[k : k + chunk], w[k : k + chunk]),
-                          defocus_nm, x)  # fmt: skip
+        out += abbe_image(
+            spec, period_nm, optics, (pts[k : k + chunk], w[k : k + chunk]), defocus_nm, x
+        )
     return out
 
 
@@ -431,8 +441,10 @@ def grating_through_focus(e: Exposure, pitch_nm: float, focus_nm, samples=512):
     spec = grating_spectrum(pitch_nm, pitch_nm / 2, 0.0, 1.0, n_max)
     src = source_points(e, 0.0)
     ims = np.stack(
-        [CoherentSystems(optics, src, pitch_nm, n_max, float(z)).image(spec, samples)[0]
-         for z in focus_nm]  # fmt: skip
+        [
+            CoherentSystems(optics, src, pitch_nm, n_max, float(z)).image(spec, samples)[0]
+            for z in focus_nm
+        ]
     )
     return centred(pitch_nm, ims)
 
@@ -442,8 +454,18 @@ def dof_in_rayleigh_units(e: Exposure, k1: float) -> float:
     pitch = 2 * k1 * e.wavelength_nm / e.na
     focus = RAYLEIGH_UNITS * unit
     x, ims = grating_through_focus(e, pitch, focus)
-    m = evaluate(x, ims, focus, (-pitch / 4, pitch / 4), (-pitch / 2, pitch / 2), False,
-                 pitch / 2, None, CD_TOL, EL_MIN_PCT)  # fmt: skip
+    m = evaluate(
+        x,
+        ims,
+        focus,
+        (-pitch / 4, pitch / 4),
+        (-pitch / 2, pitch / 2),
+        False,
+        pitch / 2,
+        None,
+        CD_TOL,
+        EL_MIN_PCT,
+    )
     dof = m.dof_nm / unit
     # Measured, not clipped by the focus range.
     assert 0.0 < dof < RAYLEIGH_UNITS[-1] - RAYLEIGH_UNITS[0]
@@ -531,9 +553,15 @@ def test_sum_of_coherent_systems_equals_the_abbe_sum(illumination, mask):
             h = 1e-3  # nm: truncation (h^2) and rounding (1e-16 / h) errors both << tolerance
             abbe_r = np.stack([abbe_image(s, period, optics, src, z, xr) for s in specs])
             dabbe = np.stack(
-                [(abbe_image(s, period, optics, src, z, xr + h)
-                  - abbe_image(s, period, optics, src, z, xr - h)) / (2 * h) for s in specs]
-            )  # fmt: skip
+                [
+                    (
+                        abbe_image(s, period, optics, src, z, xr + h)
+                        - abbe_image(s, period, optics, src, z, xr - h)
+                    )
+                    / (2 * h)
+                    for s in specs
+                ]
+            )
             assert np.max(np.abs(inten - abbe_r)) < ENGINE_AGREEMENT
             assert np.max(np.abs(slope - dabbe)) * period < SLOPE_AGREEMENT
             # Open frame: 1 (source inside the pupil, weights summing to 1); exactly so
@@ -555,8 +583,10 @@ def test_all_dark_attenuated_mask_images_to_its_transmission():
     src = source_points(e, 0.0)
     inten = CoherentSystems(optics, src, period, n_max, 40.0, keep=0.0).image(spec, 64)
     assert np.max(np.abs(inten - 0.06)) < PRECISION
-    assert np.max(np.abs(abbe_image(spec, period, optics, src, 40.0, grid(period, 64)) - 0.06)) \
-        < PRECISION  # fmt: skip
+    assert (
+        np.max(np.abs(abbe_image(spec, period, optics, src, 40.0, grid(period, 64)) - 0.06))
+        < PRECISION
+    )
 
 
 # --------------------------------------------------------------------------- (h) printing metrics
@@ -571,8 +601,9 @@ def coherent_through_focus():
     e = exposure(COHERENT)
     optics = Optics.of(e)
     spec = grating_spectrum(P_ANALYTIC, P_ANALYTIC / 2, 0.0, 1.0, 5)  # clear field, dark line
-    systems = [CoherentSystems(optics, source_points(e, 0.0), P_ANALYTIC, 5, float(z))
-               for z in H_FOCUS_NM]  # fmt: skip
+    systems = [
+        CoherentSystems(optics, source_points(e, 0.0), P_ANALYTIC, 5, float(z)) for z in H_FOCUS_NM
+    ]
     x, ims = centred(P_ANALYTIC, np.stack([cs.image(spec, H_SAMPLES)[0] for cs in systems]))
     best = int(np.argmin(np.abs(H_FOCUS_NM)))
     edges = systems[best].at(spec, np.array([-P_ANALYTIC / 4, P_ANALYTIC / 4]))
@@ -581,8 +612,19 @@ def coherent_through_focus():
 
 def evaluate_analytic(x, ims, threshold, edge_values=None):
     p = P_ANALYTIC
-    return evaluate(x, ims, H_FOCUS_NM, (-p / 4, p / 4), (-p / 2, p / 2), False, p / 2,
-                    threshold, CD_TOL, EL_MIN_PCT, edge_values)  # fmt: skip
+    return evaluate(
+        x,
+        ims,
+        H_FOCUS_NM,
+        (-p / 4, p / 4),
+        (-p / 2, p / 2),
+        False,
+        p / 2,
+        threshold,
+        CD_TOL,
+        EL_MIN_PCT,
+        edge_values,
+    )
 
 
 def test_printed_cd_at_threshold_quarter_is_half_the_pitch(coherent_through_focus):
@@ -590,8 +632,9 @@ def test_printed_cd_at_threshold_quarter_is_half_the_pitch(coherent_through_focu
     x, ims, edges = coherent_through_focus
     best = int(np.argmin(np.abs(H_FOCUS_NM)))
     assert np.max(np.abs(ims[best] - three_beam_field(x, P_ANALYTIC, -1.0) ** 2)) < PRECISION
-    cd = cd_of_thresholds(x, ims[best], 0.0, -P_ANALYTIC / 2, P_ANALYTIC / 2, False,
-                          np.array([0.25]))  # fmt: skip
+    cd = cd_of_thresholds(
+        x, ims[best], 0.0, -P_ANALYTIC / 2, P_ANALYTIC / 2, False, np.array([0.25])
+    )
     # x = +-p/4 are grid points (1024 samples), so interpolation is exact there.
     assert abs(cd[0] - P_ANALYTIC / 2) < PRECISION * P_ANALYTIC
     m = evaluate_analytic(x, ims, 0.25, edges)
@@ -656,13 +699,24 @@ def test_image_everywhere_below_the_threshold_bridges_a_dark_line(case):
     else:
         img, threshold = three_beam_field(x, p, -1.0) ** 2, 1.5  # max (1/2 + 2/pi)^2 = 1.29
     assert cd_of_thresholds(x, img, 0.0, -p / 2, p / 2, False, np.array([threshold]))[0] == np.inf
-    m = evaluate(x, img[None, :], np.array([0.0]), (-p / 4, p / 4), (-p / 2, p / 2), False,
-                 p / 2, threshold, CD_TOL, EL_MIN_PCT)  # fmt: skip
+    m = evaluate(
+        x,
+        img[None, :],
+        np.array([0.0]),
+        (-p / 4, p / 4),
+        (-p / 2, p / 2),
+        False,
+        p / 2,
+        threshold,
+        CD_TOL,
+        EL_MIN_PCT,
+    )
     assert m.bridged
     assert not m.lost
 
 
 # --------------------------------------------------------------------------- shortcuts, checked
+
 
 def test_mirror_merged_source_gives_the_reference_images():
     """A 1-D mask's image depends on a source point's sy only as sy^2 (the scalar
@@ -710,5 +764,9 @@ def test_systems_at_minus_focus_are_the_conjugates_and_image_as_the_reference():
     plus = _systems(e, 0.0, pitch_nm, n_max, 80.0).image(spec, samples)[0]
     minus = _systems(e, 0.0, pitch_nm, n_max, -80.0).image(spec, samples)[0]
     assert np.max(np.abs(plus - minus)) > 100 * ENGINE_AGREEMENT  # a real difference
-    assert np.max(np.abs(minus - abbe_image(spec, pitch_nm, optics, src, -80.0, x))) < ENGINE_AGREEMENT
-    assert np.max(np.abs(plus - abbe_image(spec, pitch_nm, optics, src, 80.0, x))) < ENGINE_AGREEMENT
+    assert (
+        np.max(np.abs(minus - abbe_image(spec, pitch_nm, optics, src, -80.0, x))) < ENGINE_AGREEMENT
+    )
+    assert (
+        np.max(np.abs(plus - abbe_image(spec, pitch_nm, optics, src, 80.0, x))) < ENGINE_AGREEMENT
+    )

@@ -83,8 +83,11 @@ def test_auto_tile_size_is_near_the_best_by_real_content_keys(chip):
         t = k * SITE_CELL_NM
         tiles = tiles_for(st.extent_nm, t)
         distinct = len(set(keys_task(str(path), None, LAYERS, tiles, halo)))
-        real[t] = (distinct * density * (t + 2 * halo) ** 2 + KEY_COST_SHAPES * len(tiles)
-                   + TILE_COST_SHAPES * distinct)  # fmt: skip
+        real[t] = (
+            distinct * density * (t + 2 * halo) ** 2
+            + KEY_COST_SHAPES * len(tiles)
+            + TILE_COST_SHAPES * distinct
+        )
     picked, jobs = plan_tiles(st, halo, 2, None, None)
     assert jobs == 2
     assert real[picked] <= 1.25 * min(real.values()), (picked, real)
@@ -117,13 +120,16 @@ def test_asked_tile_size_is_rounded_up_to_whole_site_cells(chip):
     assert t == math.ceil(25_000 / SITE_CELL_NM) * SITE_CELL_NM
 
 
-@pytest.mark.parametrize(("extent", "tile", "region"), [
-    ((0, 0, 95_000, 47_000), 10_000, None),
-    ((0, 0, 95_000, 47_000), 10_000, (3_300, 7_700, 41_900, 18_100)),
-    ((-5, -5, 5, 5), 10_000, None),
-    ((0, 0, 30_000, 5_000), 10_000, None),
-    ((0, 0, 5_000, 30_000), 10_000, None),
-])  # fmt: skip
+@pytest.mark.parametrize(
+    ("extent", "tile", "region"),
+    [
+        ((0, 0, 95_000, 47_000), 10_000, None),
+        ((0, 0, 95_000, 47_000), 10_000, (3_300, 7_700, 41_900, 18_100)),
+        ((-5, -5, 5, 5), 10_000, None),
+        ((0, 0, 30_000, 5_000), 10_000, None),
+        ((0, 0, 5_000, 30_000), 10_000, None),
+    ],
+)
 def test_neighbouring_tiles_are_those_an_rtree_finds_touching(extent, tile, region):
     """Reference: an R-tree query of each tile's box, widened by 1e-3 nm (tiles that
     share a side or a corner touch)."""
@@ -135,7 +141,8 @@ def test_neighbouring_tiles_are_those_an_rtree_finds_touching(extent, tile, regi
     tiles = tiles_for(extent, tile, region)
     got = list(zip(*(v.tolist() for v in _neighbours(tiles)), strict=True))
     b = np.asarray(tiles, dtype=np.float64)
-    qi, qj = _query_pairs(_rtree(b[:, :2] - 1e-3, b[:, 2:] + 1e-3), b[:, :2] - 1e-3,
-                          b[:, 2:] + 1e-3)  # fmt: skip
+    qi, qj = _query_pairs(
+        _rtree(b[:, :2] - 1e-3, b[:, 2:] + 1e-3), b[:, :2] - 1e-3, b[:, 2:] + 1e-3
+    )
     want = set(zip(qi[qi < qj].tolist(), qj[qi < qj].tolist(), strict=True))
     assert len(got) == len(set(got)) and set(got) == want

@@ -32,8 +32,18 @@ def _library(tmp_path, fmt: str) -> gdstk.Library:
     leaf.add(gdstk.FlexPath([(0, 2), (1, 2.5)], 0.05, layer=7))  # a path
     leaf.add(gdstk.rectangle((0, 0), (9, 9), layer=9))  # a layer not asked for
     mid = lib.new_cell("MID")
-    mid.add(gdstk.Reference(leaf, (1, 1), rotation=0.3, magnification=1.5, x_reflection=True,
-                            columns=3, rows=2, spacing=(2, 3)))  # fmt: skip
+    mid.add(
+        gdstk.Reference(
+            leaf,
+            (1, 1),
+            rotation=0.3,
+            magnification=1.5,
+            x_reflection=True,
+            columns=3,
+            rows=2,
+            spacing=(2, 3),
+        )
+    )
     mid.add(gdstk.Reference(leaf, (-5, 2), rotation=math.pi / 2))
     top = lib.new_cell("TOP")
     top.add(gdstk.Reference(mid, (10, 10), rotation=1.1, columns=4, rows=5, spacing=(15, 12)))
@@ -61,8 +71,12 @@ def test_window_queries_match_the_full_flatten(tmp_path, fmt):
     lib = _library(tmp_path, fmt)
     tops = lib.top_level()
     q = HierarchyQuery(lib, tops, LAYERS, NM_PER_UM)
-    full = {ld: [p.points * NM_PER_UM for t in tops
-                 for p in t.get_polygons(layer=ld[0], datatype=ld[1])] for ld in LAYERS}  # fmt: skip
+    full = {
+        ld: [
+            p.points * NM_PER_UM for t in tops for p in t.get_polygons(layer=ld[0], datatype=ld[1])
+        ]
+        for ld in LAYERS
+    }
     bb = q.bounding_box()
     rng = random.Random(7)
     for _ in range(40):

@@ -33,7 +33,7 @@ PAYLOADS = [
     [],
     {"a": [], "b": {}, "c": [1, 2.5, None, True, "x"], "d": [{"k": 1}], "e": [[1], [2, 3]]},
     {"rows": [{"x": 1, "y": [1, 2]}, {"x": 2, "y": []}], "nested": {"deep": [{"z": {"w": 1}}]}},
-    {"text": "µm ✓ \"quoted\" \\ back\nslash", "one": [[{"a": 1}]], "t": (1, 2)},
+    {"text": 'µm ✓ "quoted" \\ back\nslash', "one": [[{"a": 1}]], "t": (1, 2)},
     [{"only": {"one": [1]}}],
     "plain",
     3.25,

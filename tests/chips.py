@@ -1,0 +1,48 @@
+"""Generated layouts shared by the benchmarks and the output-identity script.
+
+Demo data of our own invention, not check values.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+
+def build_bench_chip(path: Path, target: float) -> int:
+    """A hierarchical chip of about ``target`` flat shapes on layer 1/0; returns the exact count.
+
+    Memory-like arrays, standard-cell-like rows and routing at several pitches,
+    written as OASIS (or GDSII when ``path`` ends in ``.gds``).
+    """
+    import gdstk
+
+    lib = gdstk.Library()
+    # Memory-like: a 32-line cell at pitch 90, arrayed.
+    bit = lib.new_cell("BITS")
+    for k in range(32):
+        bit.add(gdstk.rectangle((k * 0.09, 0), (k * 0.09 + 0.045, 1.6), layer=1))
+    # Standard-cell-like: 6 lines at pitch 200 with a cut, in rows.
+    std = lib.new_cell("STD")
+    for k in range(6):
+        std.add(gdstk.rectangle((k * 0.2, 0), (k * 0.2 + 0.1, 0.7), layer=1))
+        std.add(gdstk.rectangle((k * 0.2, 0.8), (k * 0.2 + 0.1, 1.5), layer=1))
+    # Routing: long lines at pitch 140 and 180.
+    route = lib.new_cell("ROUTE")
+    for k in range(20):
+        route.add(gdstk.rectangle((0, k * 0.14), (40, k * 0.14 + 0.07), layer=1))
+    for k in range(20):
+        route.add(gdstk.rectangle((0, 3 + k * 0.18), (40, 3 + k * 0.18 + 0.09), layer=1))
+    block = lib.new_cell("BLOCK")  # 200 x 200 um
+    block.add(gdstk.Reference(bit, (0, 0), columns=30, rows=50, spacing=(3.0, 2.0)))
+    block.add(gdstk.Reference(std, (100, 0), columns=60, rows=60, spacing=(1.5, 1.65)))
+    block.add(gdstk.Reference(route, (0, 110), columns=4, rows=12, spacing=(45, 7.5)))
+    per_block = 30 * 50 * 32 + 60 * 60 * 12 + 4 * 12 * 40
+    n = max(1, math.ceil((target / per_block) ** 0.5))
+    top = lib.new_cell("CHIP")
+    top.add(gdstk.Reference(block, (0, 0), columns=n, rows=n, spacing=(210, 210)))
+    if str(path).endswith(".gds"):
+        lib.write_gds(str(path))
+    else:
+        lib.write_oas(str(path))
+    return per_block * n * n

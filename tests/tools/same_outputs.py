@@ -1,0 +1,273 @@
+#!/usr/bin/env python
+"""Check that a change leaves every output of the command as it was.
+
+A script, not a pytest test.  Run it once with the old code and once with
+the new, then compare::
+
+    python tests/tools/same_outputs.py run OLD_DIR --src /path/to/old/src
+    python tests/tools/same_outputs.py run NEW_DIR
+    python tests/tools/same_outputs.py compare OLD_DIR NEW_DIR
+
+``run`` scans the demo chip (GDSII and OASIS; tiled on 1 and 2 workers and
+untiled) with every bundled deck, and the benchmark chip (``--bench-shapes``,
+default about 10^7 flat shapes; 0 skips it), writing JSON, SARIF, JUnit and
+markers, and records ``probe --json``, ``sweep --json`` and the terminal
+table.  Each output is reduced to a digest after its timing fields are set
+to zero (JSON ``seconds``, JUnit ``time``, the elapsed time in the summary
+line); markers are compared by their cells, polygons and labels, since a
+GDSII file carries the time it was written.  ``--src`` runs another
+checkout's code (``PYTHONPATH``) with this interpreter.
+"""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import json
+import os
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+TESTS = Path(__file__).resolve().parents[1]
+REPO = TESTS.parent
+sys.path.insert(0, str(TESTS))
+
+from chips import build_bench_chip  # noqa: E402
+from decks import BENCH_DECK  # noqa: E402
+
+TIMING = [
+    (re.compile(rb'"seconds": [0-9.eE+-]+'), b'"seconds": 0'),
+    (re.compile(rb' time="[0-9.]+"'), b' time="0"'),
+    (re.compile(rb"shapes, [0-9.]+ s\b"), b"shapes, 0 s"),
+]
+
+
+def _digest(path: Path, drop_keys: tuple[str, ...] = ()) -> str:
+    """sha256 of a text output with its timing fields zeroed, read in lines."""
+    h = hashlib.sha256()
+    drops = [re.compile(rb',? *"' + k.encode() + rb'": "[^"]*"') for k in drop_keys]
+    with open(path, "rb") as fh:
+        for line in fh:
+            for pat, rep in TIMING:
+                line = pat.sub(rep, line)
+            for pat in drops:
+                line = pat.sub(b"", line)
+            h.update(line)
+    return h.hexdigest()
+
+
+def _marker_digest(path: Path) -> str:
+    import gdstk
+
+    lib = gdstk.read_oas(str(path)) if path.suffix == ".oas" else gdstk.read_gds(str(path))
+    h = hashlib.sha256(f"{lib.name} {lib.unit} {lib.precision}".encode())
+    for cell in sorted(lib.cells, key=lambda c: c.name):
+        h.update(cell.name.encode())
+        for p in cell.polygons:
+            h.update(f"P {p.layer} {p.datatype} {p.points.round(6).tolist()}".encode())
+        for lb in cell.labels:
+            h.update(f"L {lb.layer} {lb.texttype} {lb.text} {tuple(lb.origin)}".encode())
+        for r in cell.references:
+            h.update(f"R {r.cell.name} {tuple(r.origin)} {r.rotation} {r.repetition}".encode())
+    return h.hexdigest()
+
+
+def _command(src: str | None) -> tuple[list[str], dict]:
+    env = dict(os.environ, COLUMNS="160", TERM="dumb", NO_COLOR="1")
+    if src:
+        env["PYTHONPATH"] = src
+    cmd = [sys.executable, "-c", "import sys; from pitchguard.cli import main; sys.exit(main())"]
+    return cmd, env
+
+
+def _cases(work: Path, bench_shapes: float) -> list[tuple[str, list[str], bool]]:
+    """(name, arguments, writes report files) per run."""
+    demo_gds = REPO / "sample_layouts" / "demo_chip.gds"
+    demo_oas = REPO / "sample_layouts" / "demo_chip.oas"
+    demo_deck = REPO / "rules" / "demo_chip.toml"
+    cases = []
+    for deck in sorted((REPO / "rules").glob("*.toml")):
+        for layout, tiling in (
+            (demo_gds, ["--jobs", "2"]),
+            (demo_gds, ["--jobs", "1"]),
+            (demo_oas, ["--untiled"]),
+        ):  # noqa: E501
+            name = f"{deck.stem}-{layout.suffix[1:]}-{tiling[-1].strip('-')}"
+            cases.append((name, ["scan", str(layout), "--rules", str(deck), *tiling], True))
+    cases.append(
+        (
+            "demo-region",
+            [
+                "scan",
+                str(demo_gds),
+                "--rules",
+                str(demo_deck),
+                "--region",
+                "0,0,12,12",
+                "--fail-on",
+                "risk",
+            ],
+            True,
+        )
+    )
+    cases.append(
+        (
+            "probe",
+            [
+                "probe",
+                "--rules",
+                str(demo_deck),
+                "--layer",
+                "metal1",
+                "--pitch",
+                "90",
+                "--cd",
+                "45",
+                "--json",
+            ],
+            False,
+        )
+    )
+    cases.append(
+        (
+            "probe-text",
+            ["probe", "--rules", str(demo_deck), "--layer", "poly", "--pitch", "130", "--cd", "65"],
+            False,
+        )
+    )
+    cases.append(
+        (
+            "sweep",
+            [
+                "sweep",
+                "--rules",
+                str(demo_deck),
+                "--layer",
+                "poly",
+                "--cd",
+                "65",
+                "--json",
+                str(work / "sweep.json"),
+            ],
+            False,
+        )
+    )
+    cases.append(("rules-check", ["rules", "check", str(demo_deck)], False))
+    if bench_shapes > 0:
+        chip = work / "bench_chip.oas"
+        deck = work / "bench_deck.toml"
+        if not chip.exists():
+            build_bench_chip(chip, bench_shapes)
+        deck.write_text(BENCH_DECK)
+        cases.append(
+            (
+                "bench",
+                [
+                    "scan",
+                    str(chip),
+                    "--rules",
+                    str(deck),
+                    "--jobs",
+                    "2",
+                    "--max-shapes",
+                    "200000000",
+                ],
+                True,
+            )
+        )
+    return cases
+
+
+def cmd_run(out: Path, src: str | None, bench_shapes: float) -> int:
+    out.mkdir(parents=True, exist_ok=True)
+    cmd, env = _command(src)
+    digests = {}
+    for name, args, reports in _cases(out, bench_shapes):
+        files = {}
+        if reports:
+            files = {
+                "json": out / f"{name}.json",
+                "sarif": out / f"{name}.sarif",
+                "junit": out / f"{name}.xml",
+                "markers": out / f"{name}-markers.gds",
+            }
+            args = [
+                *args,
+                "--json",
+                str(files["json"]),
+                "--sarif",
+                str(files["sarif"]),
+                "--junit",
+                str(files["junit"]),
+                "--markers",
+                str(files["markers"]),
+            ]
+            if name != "bench":
+                files["markers_oas"] = out / f"{name}-markers.oas"
+                args = [*args, "--markers", str(files["markers_oas"])]
+        r = subprocess.run([*cmd, *args], env=env, capture_output=True, cwd=REPO)
+        (out / f"{name}.stdout").write_bytes(r.stdout)
+        (out / f"{name}.stderr").write_bytes(r.stderr)
+        d = {
+            "exit": r.returncode,
+            "stdout": _digest(out / f"{name}.stdout"),
+            "stderr": _digest(out / f"{name}.stderr"),
+        }
+        for kind, path in files.items():
+            if kind.startswith("markers"):
+                d[kind] = _marker_digest(path) if path.exists() else None
+            else:
+                d[kind] = _digest(path) if path.exists() else None
+                if kind == "sarif" and path.exists():
+                    d["sarif_no_help_uri"] = _digest(path, ("helpUri",))
+        if name == "sweep":
+            sweep = out / "sweep.json"
+            d["json"] = _digest(sweep) if sweep.exists() else None
+        digests[name] = d
+        print(f"{name}: exit {r.returncode}", flush=True)
+    (out / "digests.json").write_text(json.dumps(digests, indent=1))
+    return 0
+
+
+def cmd_compare(a: Path, b: Path, ignore: list[str]) -> int:
+    da = json.loads((a / "digests.json").read_text())
+    db = json.loads((b / "digests.json").read_text())
+    bad = 0
+    for name in sorted(set(da) | set(db)):
+        ka, kb = da.get(name, {}), db.get(name, {})
+        for kind in sorted(set(ka) | set(kb)):
+            if kind in ignore:
+                continue
+            same = ka.get(kind) == kb.get(kind)
+            bad += not same
+            print(f"{'same' if same else 'DIFFERENT':<10} {name} {kind}")
+    print(f"{bad} differences")
+    return 1 if bad else 0
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    sub = ap.add_subparsers(dest="cmd", required=True)
+    r = sub.add_parser("run")
+    r.add_argument("out", type=Path)
+    r.add_argument("--src", help="a checkout's src folder to run instead of the installed code")
+    r.add_argument("--bench-shapes", type=float, default=1e7)
+    c = sub.add_parser("compare")
+    c.add_argument("a", type=Path)
+    c.add_argument("b", type=Path)
+    c.add_argument(
+        "--ignore",
+        action="append",
+        default=[],
+        help="an output kind to leave out (e.g. sarif when only helpUri changed)",
+    )
+    args = ap.parse_args()
+    if args.cmd == "run":
+        return cmd_run(args.out, args.src, args.bench_shapes)
+    return cmd_compare(args.a, args.b, args.ignore)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
