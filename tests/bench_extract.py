@@ -90,7 +90,7 @@ def sample_deck(layout: Path) -> Path | None:
 GRID_NM = 1.0  # database unit of the generated layouts
 LAYER = (1, 0)
 
-# The deck: lambda/NA = 143 nm: min_run 71.5 nm, ambit 429 nm, cutoff pitch 75.3 nm.
+# The deck: lambda/NA = 143 nm: min_run 71.5 nm, interaction range 429 nm, cutoff pitch 75.3 nm.
 # The generated pitches (64 .. 200 nm) give fail, risk, marginal and clean sites.
 
 RESULT_TAG = "BENCH-RESULT "
@@ -160,7 +160,7 @@ def block_templates(rng: np.random.Generator) -> list[tuple[str, np.ndarray]]:
     row2[..., 0] = 4120.0 - row2[..., 0]  # mirror: the second row faces the first
     row2 = row2[:, ::-1]  # mirroring reverses orientation: restore CCW
     blocks.append(("stagger80", np.concatenate([row, row2])))
-    # Isolated lines at 90 deg: width 100, 1.5 um apart (beyond the ambit).
+    # Isolated lines at 90 deg: width 100, 1.5 um apart (beyond the interaction range).
     blocks.append(("iso", _line_array(5, 1500, 100, 3000)))
     # Relaxed pitch 200 at 90 deg, three pieces per line.
     blocks.append(("v200x3", _line_array(20, 200, 100, 3500, pieces=3, rng=rng)))
@@ -198,7 +198,7 @@ def generate(n_target: int, seed: int = 1):
 
 
 def to_polygonset(rects: np.ndarray):
-    from pitchguard.layout import PolygonSet
+    from pitchguard.layout.polygons import PolygonSet
 
     n = len(rects)
     return PolygonSet(
@@ -273,9 +273,10 @@ class Stages:
 
 def extract_layers(layers, deck, grid_nm, trace: bool, out: dict, label: str) -> dict:
     """build_features -> find_sites -> classify_layer for every deck layer, into ``out``."""
-    from pitchguard.classify import classify_layer
-    from pitchguard.extract import build_features, find_sites
-    from pitchguard.layout import PolygonSet
+    from pitchguard.geometry.features import build_features
+    from pitchguard.geometry.sites import find_sites
+    from pitchguard.judge.verdicts import classify_layer
+    from pitchguard.layout.polygons import PolygonSet
 
     st = Stages(trace, out, label)
     scale = deck.scale_to_wafer
@@ -285,7 +286,12 @@ def extract_layers(layers, deck, grid_nm, trace: bool, out: dict, label: str) ->
         edges = st.run("build", build_features, ps, grid_nm)
         out["edges"] += len(edges)
         sites, _ = st.run(
-            "sites", find_sites, edges, rule.min_run_nm / scale, rule.ambit_nm / scale, grid_nm
+            "sites",
+            find_sites,
+            edges,
+            rule.min_run_nm / scale,
+            rule.interaction_range_nm / scale,
+            grid_nm,
         )
         out["sites"] += len(sites)
         found = st.run("classify", classify_layer, sites, rule, scale)
@@ -302,7 +308,7 @@ def _bench_deck():
 def worker_extract(args) -> dict:
     """One extraction run in this (fresh) process."""
     from pitchguard.deck import load_deck
-    from pitchguard.layout import read_layout
+    from pitchguard.layout.reader import read_layout
 
     if args.trace:
         tracemalloc.start()
@@ -331,7 +337,7 @@ def worker_extract(args) -> dict:
 
 def _flatten_pack(lib, layers):
     """The baseline: what flattening + packing costs (read_layout's tail)."""
-    from pitchguard.layout import flatten_layer
+    from pitchguard.layout.reader import flatten_layer
 
     tops = [c for c in lib.top_level() if hasattr(c, "get_polygons")]
     return sum(len(flatten_layer(tops, ld, lib.unit * 1e9)) for ld in layers)
@@ -356,7 +362,7 @@ def worker_baseline(args) -> dict:
     import gdstk
 
     from pitchguard.deck import load_deck
-    from pitchguard.layout import read_layout
+    from pitchguard.layout.reader import read_layout
 
     out: dict = {}
     if args.file:

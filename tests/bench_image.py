@@ -37,10 +37,10 @@ SVD, since the number of kernels is bounded by the number of orders).
 
 The case is realistic for ArF immersion metal: 193 nm, NA 1.35, water
 (n 1.44), an annular 0.6-0.9 source and an x dipole 0.6-0.9 of 35 degrees,
-clear field binary mask, a window period ``2 ambit + 2 lambda/NA`` with
-``ambit = 3 lambda/NA`` (as ``cuts.window_period``), 1024 samples per period,
+clear field binary mask, a window period ``2 reach + 2 lambda/NA`` with
+``reach = 3 lambda/NA`` (as ``cuts.window_period``), 1024 samples per period,
 random multi-line profiles (lines 40-120 nm, spaces 40-200 nm, background
-beyond the ambit).
+beyond the interaction range).
 
 ``--prototype`` adds a row ``banded*`` for :func:`banded_image`, a faster
 way to use the same kernels (a prototype kept in this script, not the engine).
@@ -65,7 +65,7 @@ import time
 import numpy as np
 
 from pitchguard.deck import Exposure
-from pitchguard.image import (
+from pitchguard.optics.aerial import (
     IMAGE_SOURCE_STEP,
     SOCS_KEEP,
     CoherentSystems,
@@ -109,25 +109,25 @@ def exposure(illumination: dict) -> Exposure:
     )
 
 
-def random_profiles(rng, count: int, period: float, ambit: float, feat, bg):
+def random_profiles(rng, count: int, period: float, reach: float, feat, bg):
     """Edges ``(count, k + 1)`` and values ``(count, k)`` of random multi-line cuts.
 
-    Lines (``feat``) and spaces (``bg``) alternate across ``[-ambit, ambit]``;
+    Lines (``feat``) and spaces (``bg``) alternate across ``[-reach, reach]``;
     the rest of the period is background.  Rows are padded with zero-width
     segments at ``period / 2`` so they share one width (as measure.py does).
     """
     rows = []
     for _ in range(count):
-        x = -ambit + rng.uniform(0.0, SPACE_NM[1])
+        x = -reach + rng.uniform(0.0, SPACE_NM[1])
         edges, values = [-period / 2, x], [bg]
         while True:
             w = rng.uniform(*LINE_NM)
-            if x + w > ambit:
+            if x + w > reach:
                 break
             edges.append(x + w)
             values.append(feat)
             x += w + rng.uniform(*SPACE_NM)
-            if x > ambit:
+            if x > reach:
                 break
             edges.append(x)
             values.append(bg)
@@ -259,8 +259,8 @@ def main(argv=None) -> int:
     args = ap.parse_args(argv)
 
     lam_na = WAVELENGTH_NM / NA
-    ambit = 3.0 * lam_na
-    period = 2.0 * ambit + 2.0 * lam_na
+    reach = 3.0 * lam_na
+    period = 2.0 * reach + 2.0 * lam_na
     focus = np.linspace(-120.0, 120.0, args.focus)
     x = np.arange(args.samples) * period / args.samples
     keeps = sorted({float(k) for k in args.keeps.split(",")} | {SOCS_KEEP})
@@ -268,7 +268,7 @@ def main(argv=None) -> int:
     load = os.getloadavg()[0] if hasattr(os, "getloadavg") else math.nan
     print(
         f"ArF immersion {WAVELENGTH_NM:g} nm NA {NA} n {WATER_INDEX}; period {period:.1f} nm "
-        f"(ambit {ambit:.1f}); {args.samples} samples; {args.focus} focus values "
+        f"(reach {reach:.1f}); {args.samples} samples; {args.focus} focus values "
         f"{focus[0]:+g}..{focus[-1]:+g} nm; {args.profiles} profiles "
         f"(Abbe rows: first {n_abbe}); source step {args.step:g}; SOCS_KEEP {SOCS_KEEP:g}; "
         f"best of {args.repeat}; cpus {os.cpu_count()}, load {load:.2f}"
@@ -289,7 +289,7 @@ def main(argv=None) -> int:
         src = source_points(e, 0.0, args.step)
         n_max = n_orders(period, optics, e.sigma_max)
         feat, bg = mask_amplitudes(e, "clear")
-        edges, values = random_profiles(rng, args.profiles, period, ambit, feat, bg)
+        edges, values = random_profiles(rng, args.profiles, period, reach, feat, bg)
         spectra = segment_spectrum(period, edges, values, n_max)
         sub = spectra[:n_abbe]
 

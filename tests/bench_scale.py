@@ -97,7 +97,7 @@ def worker(kind: str, path: str, deck: str, jobs: int, tile: float) -> None:
     if kind == "flatten":
         out = _flatten(path)
     else:
-        from pitchguard.cli import main
+        from pitchguard.cli.app import main
 
         args = ["scan", path, "--rules", deck, "-q", "--max-shapes", "200000000"]
         if kind in ("tiled", "reports"):

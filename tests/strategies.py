@@ -35,7 +35,7 @@ SPACE_NM = (20, 300)
 COUNT = (1, 8)
 LENGTH_NM = (400, 2000)
 PIECES = (2, 4)
-COPY_MARGIN_NM = 100  # extra distance between copies, on top of the ambit
+COPY_MARGIN_NM = 100  # extra distance between copies, on top of the interaction range
 STACK_GAP_NM = (50, 600)  # gap between copies stacked end to end along the lines
 TRANSLATION_NM = 10_000_000  # +-10 mm: chip-sized coordinates
 

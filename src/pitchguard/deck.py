@@ -220,8 +220,9 @@ class Limits(_Model):
     * ``k1_marginal_below = 0.40``: between the two bands the pitch is demanding.
     * ``min_run_nm``: edges shorter than this are 2-D (line ends, jogs) and are
       counted, not judged.  Default 0.5 lambda/NA of the layer's exposure.
-    * ``ambit_nm``: how far from an edge neighbours are looked for.  Beyond it
-      an edge counts as isolated.  Default 3 lambda/NA.
+    * ``interaction_range_nm``: the optical interaction range, how far from an
+      edge neighbours are looked for.  Beyond it an edge counts as isolated.
+      Default 3 lambda/NA.
     * ``pitch_tolerance_nm = 1.0``: sites whose pitch differs by less than this
       belong to one pitch class (one region).
     * ``dense_min_lines = 5``: a region of at least this many lines is a dense
@@ -250,7 +251,7 @@ class Limits(_Model):
     k1_risk_below: Annotated[float, Field(gt=0.0, lt=2.0)] | None = None
     k1_marginal_below: Annotated[float, Field(gt=0.0, lt=2.0)] | None = None
     min_run_nm: Annotated[float, Field(gt=0.0)] | None = None
-    ambit_nm: Annotated[float, Field(gt=0.0)] | None = None
+    interaction_range_nm: Annotated[float, Field(gt=0.0)] | None = None
     pitch_tolerance_nm: Annotated[float, Field(gt=0.0)] | None = None
     dense_min_lines: Annotated[int, Field(ge=2)] | None = None
     image_checks: bool | None = None
@@ -288,9 +289,13 @@ LIMIT_DEFAULTS = {
 """Limit defaults that do not depend on the exposure (single source of truth)."""
 
 MIN_RUN_LAMBDA_NA = 0.5
-AMBIT_LAMBDA_NA = 3.0
+INTERACTION_RANGE_LAMBDA_NA = 3.0
 DOF_RAYLEIGH_K2 = 0.5
 """Default DOF floor and focus half range: 0.5 n lambda / NA^2."""
+
+
+RENAMED_KEYS = {"ambit_nm": "interaction_range_nm"}
+"""Deck keys that were renamed: an old deck gets an error naming the new key."""
 
 
 class LayerEntry(Limits):
@@ -369,7 +374,7 @@ class LayerRule:
         "k1_risk_below",
         "k1_marginal_below",
         "min_run_nm",
-        "ambit_nm",
+        "interaction_range_nm",
         "pitch_tolerance_nm",
         "dense_min_lines",
         "image_checks",
@@ -401,7 +406,9 @@ class LayerRule:
         self.k1_risk_below = pick("k1_risk_below", LIMIT_DEFAULTS["k1_risk_below"])
         self.k1_marginal_below = pick("k1_marginal_below", LIMIT_DEFAULTS["k1_marginal_below"])
         self.min_run_nm = pick("min_run_nm", MIN_RUN_LAMBDA_NA * exposure.lambda_over_na_nm)
-        self.ambit_nm = pick("ambit_nm", AMBIT_LAMBDA_NA * exposure.lambda_over_na_nm)
+        self.interaction_range_nm = pick(
+            "interaction_range_nm", INTERACTION_RANGE_LAMBDA_NA * exposure.lambda_over_na_nm
+        )
         self.pitch_tolerance_nm = pick("pitch_tolerance_nm", LIMIT_DEFAULTS["pitch_tolerance_nm"])
         self.dense_min_lines = int(pick("dense_min_lines", LIMIT_DEFAULTS["dense_min_lines"]))
         for key in (
@@ -522,7 +529,8 @@ def _format_validation_error(path: str, err: ValidationError, data: dict) -> str
     msg = first["msg"]
     kind = first["type"]
     if kind == "extra_forbidden":
-        msg = "unknown key"
+        renamed = RENAMED_KEYS.get(str(loc[-1]))
+        msg = f"unknown key: it is now called {renamed}" if renamed else "unknown key"
     elif kind == "missing":
         msg = "required key is missing"
     elif kind == "union_tag_invalid":

@@ -95,7 +95,7 @@ def test_reader_crash_is_contained_in_a_real_process(tmp_path, deck):
     """Find corpus files on which the reader dies by a signal; the command still exits 2."""
     import multiprocessing as mp
 
-    from pitchguard.layout import read_layout
+    from pitchguard.layout.reader import read_layout
 
     def reader(path):
         import faulthandler
@@ -361,7 +361,7 @@ def test_a_stop_lost_in_a_callback_is_still_honoured(tmp_path, deck, monkeypatch
     ignored in ..." and the scan ran on to exit 1 (seen once in the suite, the
     0.3 s case above).  The handler also notes the stop; here the raise is lost
     (the note alone, as then) after the scan: still exit 130, no output."""
-    import pitchguard.parallel as parallel
+    import pitchguard.run.tiled as parallel
     from pitchguard.errors import request_stop
 
     lib = gdstk.Library()
@@ -409,10 +409,11 @@ def test_one_far_coordinate_with_a_small_tile_is_refused(tmp_path, capsys, deck)
 _FORKED_CHILD_SCRIPT = r"""
 import os, signal, sys, time
 from multiprocessing import get_context
-from pitchguard import cli
+from pitchguard.cli import stops as cli
 
-signal.signal(signal.SIGTERM, cli._on_sigterm)  # as cli.main installs them
-signal.signal(signal.SIGINT, cli._on_sigint)
+signal.signal(signal.SIGTERM, cli.on_sigterm)  # as cli.main installs them
+signal.signal(signal.SIGINT, cli.on_sigint)
+cli.install_fork_hooks()
 
 def slow_init():
     print("in-init", flush=True)
@@ -434,7 +435,7 @@ for p in procs:
     p.join(10)
 blocked = signal.pthread_sigmask(signal.SIG_BLOCK, [])
 print("result", alive_after_sigint, [p.exitcode for p in procs],
-      signal.SIGTERM in blocked, signal.getsignal(signal.SIGTERM) is cli._on_sigterm, flush=True)
+      signal.SIGTERM in blocked, signal.getsignal(signal.SIGTERM) is cli.on_sigterm, flush=True)
 """
 
 
@@ -457,24 +458,25 @@ def test_forked_children_leave_stopping_to_the_command():
 
 _PENDING_AT_FORK_SCRIPT = r"""
 import os, signal
-from pitchguard import cli
+from pitchguard.cli import stops as cli
 from pitchguard.errors import check_stop
 
-signal.signal(signal.SIGTERM, cli._on_sigterm)  # as cli.main installs them
-signal.signal(signal.SIGINT, cli._on_sigint)
+signal.signal(signal.SIGTERM, cli.on_sigterm)  # as cli.main installs them
+signal.signal(signal.SIGINT, cli.on_sigint)
+cli.install_fork_hooks()
 # A SIGTERM that arrives while a fork has the stop signals blocked is pending
 # when the parent's after-fork hook unblocks them.
-signal.pthread_sigmask(signal.SIG_BLOCK, cli._STOP_SIGNALS)
+signal.pthread_sigmask(signal.SIG_BLOCK, cli.STOP_SIGNALS)
 os.kill(os.getpid(), signal.SIGTERM)
 try:
-    cli._after_fork_in_parent()
+    cli.after_fork_in_parent()
     print("hook returned", flush=True)
 except BaseException as exc:
     print("hook raised", type(exc).__name__, flush=True)
 try:
     check_stop()
     print("not honoured", flush=True)
-except cli._Terminated:
+except cli.Terminated:
     print("honoured", flush=True)
 """
 
@@ -500,14 +502,14 @@ def _sleeper(seconds):
 def test_waits_on_a_child_honour_a_noted_stop(tmp_path):
     """The guarded reader's wait wakes every STOP_POLL_S and raises a noted stop,
     killing the child, instead of waiting out the read (here 30 s)."""
-    from pitchguard.cli import _Terminated
+    from pitchguard.cli.stops import Terminated
     from pitchguard.errors import request_stop
-    from pitchguard.layout import run_isolated
+    from pitchguard.layout.isolated import run_isolated
 
-    request_stop(_Terminated)
+    request_stop(Terminated)
     t0 = time.monotonic()
     try:
-        with pytest.raises(_Terminated):
+        with pytest.raises(Terminated):
             run_isolated(_sleeper, (30,), tmp_path / "x.gds", "sleeping", 60)
     finally:
         request_stop(None)
@@ -518,7 +520,7 @@ def test_a_read_over_its_time_limit_is_stopped(tmp_path):
     """--read-timeout: the guarded read's wait (now in slices, see above) still
     ends at the limit with a clear error, and the child is killed."""
     from pitchguard.errors import LayoutError
-    from pitchguard.layout import run_isolated
+    from pitchguard.layout.isolated import run_isolated
 
     t0 = time.monotonic()
     with pytest.raises(LayoutError, match="took over 1 s; stopped"):
@@ -535,18 +537,19 @@ def test_a_stop_turned_into_another_exception_is_still_a_stop(
     handler's exception into a SchemaError, which ended the command with a
     traceback and exit 1.  Whatever exception a noted stop leaves behind, the
     command reports the stop (143 here) and nothing else."""
-    import pitchguard.cli as cli
-    import pitchguard.parallel as parallel
+    import pitchguard.cli.app as app
+    import pitchguard.run.tiled as parallel
+    from pitchguard.cli.stops import Terminated
     from pitchguard.errors import request_stop
 
     def stopped_then_wrapped(*args, **kwargs):
-        request_stop(cli._Terminated)  # what the handler notes before it raises
+        request_stop(Terminated)  # what the handler notes before it raises
         raise ValueError("a library's own error, raised from the handler's")
 
     if where == "scan":
         monkeypatch.setattr(parallel, "scan_tiled", stopped_then_wrapped)
     else:
-        monkeypatch.setattr(cli, "build_parser", stopped_then_wrapped)
+        monkeypatch.setattr(app, "build_parser", stopped_then_wrapped)
     code = main(["scan", str(tmp_path / "x.gds"), "--rules", str(deck), "-q"])
     err = capsys.readouterr().err
     assert code == 143, err
@@ -559,7 +562,7 @@ def test_a_stop_in_the_import_systems_lock_callback_is_noted_not_raised():
     ignored in: <function _get_module_lock.<locals>.cb>" with a traceback
     and drops the exception.  There the stop is only noted (and honoured at
     the next check); anywhere else it is raised at once."""
-    import pitchguard.cli as cli
+    import pitchguard.cli.stops as cli
     from pitchguard.errors import request_stop, stop_requested
 
     ns = {"sys": sys}
@@ -570,12 +573,12 @@ def test_a_stop_in_the_import_systems_lock_callback_is_noted_not_raised():
     in_callback = ns["cb"]()
     try:
         try:
-            cli._on_sigint(signal.SIGINT, in_callback)
+            cli.on_sigint(signal.SIGINT, in_callback)
         except KeyboardInterrupt:
             pytest.fail("raised inside the import system's callback")
         assert stop_requested() is KeyboardInterrupt
         request_stop(None)
         with pytest.raises(KeyboardInterrupt):
-            cli._on_sigint(signal.SIGINT, sys._getframe())
+            cli.on_sigint(signal.SIGINT, sys._getframe())
     finally:
         request_stop(None)

@@ -15,7 +15,7 @@ from decks import (  # noqa: F401 - re-exported to the integration tests
     SAMPLE_GDS,
     SAMPLE_OAS,
 )
-from pitchguard.cli import main
+from pitchguard.cli.app import main
 
 
 def run_cli(capsys, *argv: str) -> tuple[int, str, str]:

@@ -12,7 +12,7 @@ import gdstk
 import pytest
 
 from pitchguard.deck import load_deck
-from pitchguard.report import CAUTION
+from pitchguard.outputs.verdict import CAUTION
 
 from .conftest import DEMO_DECK, REPO, SAMPLE_GDS, SAMPLE_OAS, run_cli
 
@@ -23,7 +23,7 @@ from build_demo_chip import EXPECTED  # noqa: E402
 @pytest.fixture(scope="module")
 def demo_json(tmp_path_factory) -> dict:
     out = tmp_path_factory.mktemp("demo") / "f.json"
-    from pitchguard.cli import main
+    from pitchguard.cli.app import main
 
     assert (
         main(["scan", str(SAMPLE_GDS), "--rules", str(DEMO_DECK), "--json", str(out), "--quiet"])
@@ -166,7 +166,7 @@ def test_only_a_scan_that_lists_findings_sorts_them(tmp_path, capsys, monkeypatc
     without the sort; any output that lists findings gets them in report order
     (the order sort_findings gives, checked against Python's sorted in
     test_findingset.py)."""
-    import pitchguard.parallel as par
+    import pitchguard.run.tiled as par
 
     sorts = []
     real = par.sort_findings
@@ -178,7 +178,7 @@ def test_only_a_scan_that_lists_findings_sorts_them(tmp_path, capsys, monkeypatc
     assert len(sorts) == 1 and sorts[0] > 1
     assert (code, out.split(", ")[:3]) == (code2, out2.split(", ")[:3])  # all but the time
     listed = json.loads(js.read_text())["findings"]
-    from pitchguard.classify import SEVERITIES
+    from pitchguard.deck import SEVERITIES
 
     keys = [(SEVERITIES.index(f["severity"]), f["k1"], f["layer"]) for f in listed]
     assert keys == sorted(keys)
@@ -191,7 +191,7 @@ def test_garbage_collection_is_on_for_the_scan_and_as_it_was_after(capsys, monke
     collect garbage, and an embedding program gets its own setting back."""
     import gc
 
-    import pitchguard.parallel as par
+    import pitchguard.run.tiled as par
 
     seen = []
     real = par.scan_tiled
@@ -354,15 +354,21 @@ def test_a_quiet_scan_does_not_import_rich():
 def test_the_command_turns_off_numpys_huge_page_advice_unless_the_user_set_it():
     """numpy's NUMPY_MADVISE_HUGEPAGE (documented under numpy's global state),
     read when numpy is imported: the command sets 0 before that, and keeps a
-    value from the user's environment."""
-    code = "import os, pitchguard.cli, numpy; print(os.environ['NUMPY_MADVISE_HUGEPAGE'])"
+    value from the user's environment.  Importing the command does not import
+    numpy, so the variable is in place before numpy reads it."""
+    code = (
+        "import os, sys; from pitchguard.cli import main; "
+        "assert 'numpy' not in sys.modules; "
+        f"main(['rules', 'check', {str(DEMO_DECK)!r}]); "
+        "assert 'numpy' in sys.modules; print(os.environ['NUMPY_MADVISE_HUGEPAGE'])"
+    )
     env = {k: v for k, v in os.environ.items() if k != "NUMPY_MADVISE_HUGEPAGE"}
     for given, want in ((None, "0"), ("1", "1")):
         if given is not None:
             env["NUMPY_MADVISE_HUGEPAGE"] = given
         r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env)
         assert r.returncode == 0, r.stderr
-        assert r.stdout.strip() == want
+        assert r.stdout.splitlines()[-1] == want
 
 
 @pytest.mark.parametrize("quiet", [False, True])
@@ -402,9 +408,9 @@ def test_a_note_to_a_closed_stderr_does_not_end_the_command():
     (notes and progress on stderr, tables on stdout) drop the rest instead,
     and the command carries on to its own exit code (5 here)."""
     code = (
-        "import sys; from pitchguard import cli; "
-        "cli._console(stderr=True).print('note ' * 20000); "
-        "cli._console().print('row ' * 20000); sys.exit(5)"
+        "import sys; from pitchguard.cli.console import make_console; "
+        "make_console(stderr=True).print('note ' * 20000); "
+        "make_console().print('row ' * 20000); sys.exit(5)"
     )
     for closed in ("stdout", "stderr"):
         proc = subprocess.Popen(

@@ -26,17 +26,18 @@ from matplotlib import image as mpimg
 from decks import DEMO_DECK, DRY_ARF_DECK
 from decks import SAMPLE_GDS as DEMO_GDS
 from pitchguard.deck import load_deck
-from pitchguard.html_report import (
+from pitchguard.optics.cut_images import cut_image
+from pitchguard.outputs.html.groups import group_findings
+from pitchguard.outputs.html.page import write_html
+from pitchguard.outputs.html.pictures import (
     cut_mirrored,
-    group_findings,
     oriented_bounds,
     printed_edges,
     search_window,
-    write_html,
 )
-from pitchguard.measure import cut_image
-from pitchguard.report import CAUTION, one_line_summary
-from pitchguard.scan import scan_layout
+from pitchguard.outputs.table import one_line_summary
+from pitchguard.outputs.verdict import CAUTION
+from pitchguard.run.scan import scan_layout
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 SIGN_OFF = "sign-off stays with the fab's calibrated models"
@@ -187,8 +188,8 @@ def test_demo_report_pictures_are_png_data_uris(demo):
 
 def _asymmetric_layout(path: Path) -> None:
     """A 40 nm line with a 60 nm wide neighbour 60 nm to its left (pitch 100: unresolvable)
-    and a block reaching past the ambit 200 nm to its right.  Its cut is stored as drawn
-    (the block's side, reaching -ambit, sorts first); the last lines of the demo's arrays
+    and a block reaching past the interaction range 200 nm to its right.  Its cut is stored as drawn
+    (the block's side, reaching -interaction range, sorts first); the last lines of the demo's arrays
     are stored mirrored."""
     lib = gdstk.Library(unit=1e-6, precision=1e-9)
     top = lib.new_cell("ASYM_TOP")
@@ -422,8 +423,9 @@ def test_tiled_scan_report_draws_the_same_layout_clips(demo, tmp_path):
     import base64
     import io
 
-    from pitchguard.html_report import _Renderer
-    from pitchguard.parallel import add_clip_geometry, scan_tiled
+    from pitchguard.outputs.html.clips import add_clip_geometry
+    from pitchguard.outputs.html.pictures import FindingPictures
+    from pitchguard.run.tiled import scan_tiled
 
     _, whole, deck = demo
     tiled = add_clip_geometry(scan_tiled(DEMO_GDS, deck, tile_um=10, jobs=2), deck)
@@ -432,7 +434,7 @@ def test_tiled_scan_report_draws_the_same_layout_clips(demo, tmp_path):
     firsts_w = sorted((g.first for g in group_findings(whole.findings)), key=key)
     firsts_t = sorted((g.first for g in group_findings(tiled.findings)), key=key)
     assert len(firsts_w) == len(firsts_t) > 0
-    rw, rt = _Renderer(whole, deck), _Renderer(tiled, deck)
+    rw, rt = FindingPictures(whole, deck), FindingPictures(tiled, deck)
     for fw, ft in zip(firsts_w, firsts_t, strict=True):
         pw, _, _ = rw.layout_picture(fw)
         pt, caption, _ = rt.layout_picture(ft)

@@ -19,7 +19,7 @@ import gdstk
 import pytest
 
 from pitchguard.deck import parse_deck
-from pitchguard.scan import scan_layout
+from pitchguard.run.scan import scan_layout
 
 from .conftest import line_array_cell, run_cli
 
@@ -98,7 +98,7 @@ def test_dipole_does_not_rescue_the_horizontal_twin(tmp_path):
 
 def test_interior_of_dipole_array_images_well(tmp_path):
     """The middle line of the dipole array: NILS well above the 2.0 comfort band."""
-    from pitchguard.sweep import grating
+    from pitchguard.judge.gratings import grating
 
     rule = parse_deck(IMMERSION.replace("EXPOSURE", "dipx")).layer("m")
     conv = parse_deck(IMMERSION.replace("EXPOSURE", "conv")).layer("m")
@@ -108,7 +108,7 @@ def test_interior_of_dipole_array_images_well(tmp_path):
 
 def test_mask_kind_changes_the_image(tmp_path):
     """Attenuated phase shift steepens the edge of a dense dark-field pitch (common practice)."""
-    from pitchguard.sweep import grating
+    from pitchguard.judge.gratings import grating
 
     text = IMMERSION.replace("EXPOSURE", "conv").replace('field = "clear"', 'field = "dark"')
     att = parse_deck(text).layer("m")
@@ -163,7 +163,7 @@ def test_focus_range_decides_depth_of_focus_verdict(tmp_path):
 
 def test_anchor_enables_cd_error(tmp_path):
     """Iso-dense bias: with the dose anchored on a dense pitch, a looser pitch prints off size."""
-    from pitchguard.sweep import grating
+    from pitchguard.judge.gratings import grating
 
     free = parse_deck(ARF_ANNULAR_P).layer("p")
     anchored = parse_deck(ARF_ANNULAR_P + "anchor = { pitch_nm = 180.0, cd_nm = 90.0 }\n").layer(

@@ -13,9 +13,9 @@ import math
 import gdstk
 import pytest
 
-from pitchguard.classify import IMAGE_CHECKS
 from pitchguard.deck import parse_deck
-from pitchguard.scan import scan_layout
+from pitchguard.judge.checks import IMAGE_CHECKS
+from pitchguard.run.scan import scan_layout
 
 from .conftest import DRY_ARF_CUTOFF_NM, DRY_ARF_DECK, line_array_cell
 

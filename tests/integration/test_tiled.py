@@ -7,8 +7,8 @@ import gdstk
 import pytest
 
 from pitchguard.deck import load_deck, parse_deck
-from pitchguard.parallel import scan_tiled
-from pitchguard.scan import scan_layout
+from pitchguard.run.scan import scan_layout
+from pitchguard.run.tiled import scan_tiled
 
 from .conftest import DEMO_DECK, DRY_ARF_DECK, SAMPLE_GDS, SAMPLE_OAS, line_array_cell
 
@@ -212,28 +212,28 @@ def test_a_tile_size_that_defeats_reuse_gets_a_note(tmp_path, monkeypatch, capsy
     chip (2 x 2 blocks) --tile-um 45 ran 10.7 s against 1.9 s for the scan's own
     choice (measured once, this project's 2-core machine); the scan says so up
     front, once, on stderr, and not with -q."""
-    import pitchguard.parallel as parallel
     from bench_scale import DECK, build_chip
-    from pitchguard.cli import main
+    from pitchguard.cli.app import main
     from pitchguard.errors import LayoutError
+    from pitchguard.run import plan, tasks, tiled
 
     chip = tmp_path / "chip.oas"
     build_chip(chip, 1e5)
     deck_path = tmp_path / "deck.toml"
     deck_path.write_text(DECK)
     deck = parse_deck(DECK)
-    st = parallel.structure_task(str(chip), None, [(1, 0)], 10**9)
-    halo = parallel._halo(deck)
-    auto_nm, _ = parallel.plan_tiles(st, halo, 2, None, None)
-    assert parallel.tile_advice(st, halo, auto_nm, 2, None) is None
-    text = parallel.tile_advice(st, halo, 50_000.0, 2, None, tile_um=45.0)
+    st = tasks.structure_task(str(chip), None, [(1, 0)], 10**9)
+    halo = plan.tile_halo_nm(deck)
+    auto_nm, _ = plan.plan_tiles(st, halo, 2, None, None)
+    assert plan.tile_advice(st, halo, auto_nm, 2, None) is None
+    text = plan.tile_advice(st, halo, 50_000.0, 2, None, tile_um=45.0)
     assert text is not None and f"{auto_nm / 1000:g} um tiles" in text
     assert "--tile-um 45, rounded up" in text
 
     def stop(*args, **kwargs):  # the note comes before any tile runs: stop there
         raise LayoutError("stopped by the test")
 
-    monkeypatch.setattr(parallel, "_TileRun", stop)
+    monkeypatch.setattr(tiled, "TileScheduler", stop)
     args = ["scan", str(chip), "--rules", str(deck_path), "--tile-um", "45"]
     assert main(args) == 2
     err = capsys.readouterr().err
@@ -252,9 +252,10 @@ def test_reports_of_repeated_findings_equal_those_of_the_same_findings_listed(tm
     findings as a plain list (each finding made and written whole)."""
     import dataclasses
 
-    from pitchguard.ci_formats import to_junit, write_junit, write_sarif
-    from pitchguard.classify import FindingSet
-    from pitchguard.report import to_json, write_json
+    from pitchguard.judge.findings import FindingSet
+    from pitchguard.outputs.json_report import to_json, write_json
+    from pitchguard.outputs.junit import to_junit, write_junit
+    from pitchguard.outputs.sarif import write_sarif
 
     lib = gdstk.Library()
     a = line_array_cell(lib, "A100", (7, 0), 100, 50, 30, 2_400)  # fail on this dry ArF deck

@@ -26,22 +26,21 @@ import pytest
 
 from decks import DEMO_DECK, DRY_ARF_DECK, REPO
 from decks import SAMPLE_GDS as DEMO_GDS
-from pitchguard.ci_formats import (
+from pitchguard.deck import SEVERITIES, load_deck
+from pitchguard.errors import OutputError
+from pitchguard.judge.checks import CHECKS
+from pitchguard.outputs.junit import to_junit, write_junit
+from pitchguard.outputs.sarif import (
     FINGERPRINT_KEY,
     LEVEL,
     fingerprint_base,
     fingerprints,
     rule_name,
-    to_junit,
     to_sarif,
-    write_junit,
     write_sarif,
 )
-from pitchguard.classify import CHECKS
-from pitchguard.deck import SEVERITIES, load_deck
-from pitchguard.errors import OutputError
-from pitchguard.report import CAUTION
-from pitchguard.scan import scan_layout
+from pitchguard.outputs.verdict import CAUTION
+from pitchguard.run.scan import scan_layout
 
 SCHEMA_PATH = REPO / "tests" / "fixtures" / "sarif-schema-2.1.0.json"
 SCHEMA_SHA256 = "c3b4bb2d6093897483348925aaa73af03b3e3f4bd4ca38cef26dcb4212a2682e"
@@ -484,15 +483,15 @@ def test_a_sarif_too_big_for_code_scanning_services_gets_a_note(tmp_path, monkey
     have far more; the file is still written (valid SARIF), and the command says
     so on stderr, with --quiet too (CI runs quiet).  The limit is lowered here to
     the demo chip's 19 findings."""
-    import pitchguard.ci_formats as ci
-    from pitchguard.cli import main
+    import pitchguard.outputs.sarif as sarif
+    from pitchguard.cli.app import main
 
-    assert ci.SERVICE_RESULTS_MAX == 25_000
+    assert sarif.SERVICE_RESULTS_MAX == 25_000
     out = tmp_path / "demo.sarif"
     args = ["scan", str(DEMO_GDS), "--rules", str(DEMO_DECK), "--sarif", str(out), "-q"]
     assert main(args) == 1
     assert "code-scanning services" not in capsys.readouterr().err
-    monkeypatch.setattr(ci, "SERVICE_RESULTS_MAX", 18)
+    monkeypatch.setattr(sarif, "SERVICE_RESULTS_MAX", 18)
     assert main(args) == 1
     err = capsys.readouterr().err
     assert err.count("holds 19 results; code-scanning services take at most 18") == 1, err

@@ -10,7 +10,7 @@ import numpy as np
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from pitchguard.extract import components
+from pitchguard.geometry.spatial import components
 
 
 def _scipy(n, a, b):

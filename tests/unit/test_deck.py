@@ -13,7 +13,7 @@ from pathlib import Path
 import pytest
 
 from pitchguard.deck import (
-    AMBIT_LAMBDA_NA,
+    INTERACTION_RANGE_LAMBDA_NA,
     LIMIT_DEFAULTS,
     MIN_RUN_LAMBDA_NA,
     Deck,
@@ -64,7 +64,7 @@ source = "8/0"
 exposure = "arf_dry"
 field = "dark"
 min_run_nm = 40.0
-ambit_nm = 500.0
+interaction_range_nm = 500.0
 k1_risk_below = 0.28
 
 [[layers]]
@@ -137,13 +137,15 @@ def test_k1_bands_default_to_030_and_040(tmp_path):
         ("M2", 193.0, 1.35),  # same exposure, own layer: same defaults
     ],
 )
-def test_run_and_ambit_default_to_multiples_of_lambda_over_na(tmp_path, layer, wavelength_nm, na):
+def test_run_and_interaction_range_default_to_multiples_of_lambda_over_na(
+    tmp_path, layer, wavelength_nm, na
+):
     rule = load_deck(write_deck(tmp_path, VALID_DECK)).layer(layer)
     lam_na = wavelength_nm / na  # arithmetic
     assert rule.min_run_nm == pytest.approx(0.5 * lam_na, rel=REL)
-    assert rule.ambit_nm == pytest.approx(3.0 * lam_na, rel=REL)
+    assert rule.interaction_range_nm == pytest.approx(3.0 * lam_na, rel=REL)
     assert MIN_RUN_LAMBDA_NA == 0.5
-    assert AMBIT_LAMBDA_NA == 3.0
+    assert INTERACTION_RANGE_LAMBDA_NA == 3.0
 
 
 def test_layer_values_override_layer_defaults_which_override_builtins(tmp_path):
@@ -151,7 +153,7 @@ def test_layer_values_override_layer_defaults_which_override_builtins(tmp_path):
     m1, v1 = deck.layer("M1"), deck.layer("V1")
     # Set on the layer.
     assert v1.min_run_nm == 40.0
-    assert v1.ambit_nm == 500.0
+    assert v1.interaction_range_nm == 500.0
     assert v1.k1_risk_below == 0.28
     # Set in [layer_defaults]: reaches every layer.
     assert m1.pitch_tolerance_nm == 2.0
@@ -463,6 +465,6 @@ def test_infinite_min_run_is_refused(tmp_path):
 
 def test_nan_limits_are_refused(tmp_path):
     # NaN fails every comparison, so the gt=0 bound already refuses it.
-    text = replace_once(VALID_DECK, "ambit_nm = 500.0", "ambit_nm = nan")
+    text = replace_once(VALID_DECK, "interaction_range_nm = 500.0", "interaction_range_nm = nan")
     path, message = deck_error(tmp_path, text)
-    assert message.startswith(f"{path}: layers[1].ambit_nm: ")
+    assert message.startswith(f"{path}: layers[1].interaction_range_nm: ")

@@ -19,8 +19,10 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 
-from pitchguard.extract import Sites, build_features, find_sites
-from pitchguard.layout import PolygonSet, read_layout
+from pitchguard.geometry.features import build_features
+from pitchguard.geometry.sites import Sites, find_sites
+from pitchguard.layout.polygons import PolygonSet
+from pitchguard.layout.reader import read_layout
 from strategies import (
     AMBIT_NM,
     DIAGONAL_DEG,
@@ -53,10 +55,10 @@ HYPOTHESIS = settings(
 )
 
 
-def extract(polys, min_run_nm=MIN_RUN_NM, ambit_nm=AMBIT_NM, grid_nm=GRID_NM):
+def extract(polys, min_run_nm=MIN_RUN_NM, interaction_range_nm=AMBIT_NM, grid_nm=GRID_NM):
     """build_features + find_sites on a list of ``(n, 2)`` nm arrays."""
     edges = build_features(PolygonSet.from_arrays(polys), grid_nm=grid_nm)
-    sites, stats = find_sites(edges, min_run_nm, ambit_nm, grid_nm, cell_nm=None)
+    sites, stats = find_sites(edges, min_run_nm, interaction_range_nm, grid_nm, cell_nm=None)
     return edges, sites, stats
 
 
@@ -191,7 +193,9 @@ FRAME_WITH_HOLE = {
 @pytest.mark.parametrize("drawing", list(FRAME_WITH_HOLE), ids=str)
 def test_feature_with_a_hole(drawing):
     # Ambit 1200 nm: longer than any distance in the frame, so every side sees across.
-    edges, sites, stats = extract(FRAME_WITH_HOLE[drawing], min_run_nm=50.0, ambit_nm=1200.0)
+    edges, sites, stats = extract(
+        FRAME_WITH_HOLE[drawing], min_run_nm=50.0, interaction_range_nm=1200.0
+    )
     assert edges.n_features == 1
     assert len(edges) == 8  # 4 outer + 4 hole sides, cut lines dropped, sides rejoined
     assert sorted(edges.length) == [200.0, 200.0, 400.0, 400.0, 800.0, 800.0, 1000.0, 1000.0]
@@ -557,15 +561,15 @@ def _boxes_in_rows(rng: np.random.Generator, n_rows: int):
 @pytest.mark.parametrize("seed", range(6))
 def test_batched_queries_find_exactly_the_pairs_of_single_queries(seed):
     """Reference: one R-tree query per box (the rtree package's own bulk query)."""
-    from pitchguard.extract import _query_pairs, _query_pairs_batched, _rtree
+    from pitchguard.geometry.spatial import build_rtree, query_pairs, query_pairs_batched
 
     rng = np.random.default_rng(seed)
     item_lo, item_hi = _boxes_in_rows(rng, 60)
     q_lo, q_hi = _boxes_in_rows(rng, 60)
     q_lo, q_hi = np.concatenate([q_lo, item_lo]), np.concatenate([q_hi, item_hi])
-    tree = _rtree(item_lo, item_hi)
-    want = set(zip(*(v.tolist() for v in _query_pairs(tree, q_lo, q_hi)), strict=True))
-    got_q, got_j = _query_pairs_batched(tree, item_lo, item_hi, q_lo, q_hi)
+    tree = build_rtree(item_lo, item_hi)
+    want = set(zip(*(v.tolist() for v in query_pairs(tree, q_lo, q_hi)), strict=True))
+    got_q, got_j = query_pairs_batched(tree, item_lo, item_hi, q_lo, q_hi)
     got = list(zip(got_q.tolist(), got_j.tolist(), strict=True))
     assert len(got) == len(set(got))  # no pair twice
     assert set(got) == want

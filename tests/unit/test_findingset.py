@@ -15,10 +15,11 @@ import numpy as np
 import pytest
 
 from decks import DEMO_DECK, SAMPLE_GDS
-from pitchguard.classify import FindingSet, sort_findings
 from pitchguard.deck import SEVERITIES, load_deck
-from pitchguard.report import exit_code, severity_counts
-from pitchguard.scan import scan_layout
+from pitchguard.judge.findings import FindingSet
+from pitchguard.judge.order import sort_findings
+from pitchguard.outputs.verdict import exit_code, severity_counts
+from pitchguard.run.scan import scan_layout
 
 
 @pytest.fixture(scope="module")
@@ -133,7 +134,7 @@ def test_counts_and_exit_code_from_columns_equal_those_of_the_list(placed):
 
 def test_html_groups_of_a_set_equal_those_of_the_list(placed):
     """Reference: grouping the plain list one finding at a time."""
-    from pitchguard.html_report import group_findings
+    from pitchguard.outputs.html.groups import group_findings
 
     fs, expected = placed
     fs = sort_findings(fs)
@@ -149,9 +150,10 @@ def test_reports_of_a_tiled_scan_equal_those_of_its_findings_as_a_list():
     the report of the same findings as a plain list (the in-memory writers)."""
     import dataclasses as dc
 
-    from pitchguard.ci_formats import to_junit, to_sarif
-    from pitchguard.parallel import scan_tiled
-    from pitchguard.report import to_json
+    from pitchguard.outputs.json_report import to_json
+    from pitchguard.outputs.junit import to_junit
+    from pitchguard.outputs.sarif import to_sarif
+    from pitchguard.run.tiled import scan_tiled
 
     deck = load_deck(DEMO_DECK)
     tiled = scan_tiled(SAMPLE_GDS, deck, tile_um=10, jobs=2)
@@ -171,7 +173,7 @@ def test_sarif_fingerprints_number_equal_findings_by_place(placed):
     ties in the findings' order."""
     from collections import defaultdict
 
-    from pitchguard.ci_formats import fingerprint_base, fingerprints
+    from pitchguard.outputs.sarif import fingerprint_base, fingerprints
 
     fs, expected = placed
     groups = defaultdict(list)

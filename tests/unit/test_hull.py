@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.spatial import ConvexHull
 
-from pitchguard.classify import _hull
+from pitchguard.judge.regions import convex_hull
 
 
 def test_hull_vertices_equal_qhull_on_random_point_sets():
@@ -20,7 +20,7 @@ def test_hull_vertices_equal_qhull_on_random_point_sets():
             pts[:, 0] = np.round(pts[:, 0] / 1000) * 1000
         pts = np.unique(pts, axis=0)
         ref = pts[ConvexHull(pts).vertices]
-        got = _hull(np.concatenate([pts, pts[:5]]))  # repeats are dropped
+        got = convex_hull(np.concatenate([pts, pts[:5]]))  # repeats are dropped
         assert {tuple(p) for p in got.tolist()} == {tuple(p) for p in ref.tolist()}
         checked += 1
     assert checked == 300
@@ -29,7 +29,7 @@ def test_hull_vertices_equal_qhull_on_random_point_sets():
 def test_hull_of_a_rectangle_with_inner_points_is_its_corners():
     inner = np.array([[1.0, 1.0], [2.0, 0.5], [3.5, 1.5]])
     corners = np.array([[0.0, 0.0], [4.0, 0.0], [4.0, 2.0], [0.0, 2.0]])
-    got = _hull(np.concatenate([inner, corners]))
+    got = convex_hull(np.concatenate([inner, corners]))
     assert {tuple(p) for p in got.tolist()} == {tuple(p) for p in corners.tolist()}
 
 
@@ -37,8 +37,8 @@ def test_collinear_points_come_back_whole_and_silent(capfd):
     """Qhull prints an error on collinear input (it reaches the terminal from C);
     such points are returned as they are, unique, with nothing printed."""
     line = np.array([[0.0, 0.0], [1.0, 1.0], [3.0, 3.0], [2.0, 2.0], [1.0, 1.0]])
-    got = _hull(line)
+    got = convex_hull(line)
     assert got.tolist() == [[0.0, 0.0], [1.0, 1.0], [2.0, 2.0], [3.0, 3.0]]
-    assert len(_hull(np.array([[5.0, 5.0], [5.0, 5.0]]))) == 1
+    assert len(convex_hull(np.array([[5.0, 5.0], [5.0, 5.0]]))) == 1
     out, err = capfd.readouterr()
     assert out == "" and err == ""

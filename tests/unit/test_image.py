@@ -28,7 +28,7 @@ import numpy as np
 import pytest
 
 from pitchguard.deck import Exposure
-from pitchguard.image import (
+from pitchguard.optics.aerial import (
     IMAGE_SOURCE_STEP,
     CoherentSystems,
     Optics,
@@ -39,7 +39,7 @@ from pitchguard.image import (
     segment_spectrum,
     source_points,
 )
-from pitchguard.printing import THRESHOLD_SAMPLES, cd_of_thresholds, evaluate
+from pitchguard.optics.resist import THRESHOLD_SAMPLES, cd_of_thresholds, evaluate
 
 PRECISION = 1e-9  # absolute, open-frame units: closed-form images, rounding only
 ENGINE_AGREEMENT = 1e-6  # SOCS vs Abbe: kernels below SOCS_KEEP (1e-7) of the largest dropped
@@ -723,7 +723,7 @@ def test_mirror_merged_source_gives_the_reference_images():
     pupil is round: Goodman), so mirror pairs merge: half the points for the
     symmetric sources, the Abbe sum over every point (unmerged) as reference,
     at focus and defocused, for pitch directions 0, 30 and 90 degrees."""
-    from pitchguard.image import merge_mirrored
+    from pitchguard.optics.aerial import merge_mirrored
 
     samples = 128
     for illum, pitch_nm in ((ANNULAR_06_09, 100.0), (DIPOLE_X, 95.0), (QUADRUPOLE, 130.0)):
@@ -750,7 +750,7 @@ def test_systems_at_minus_focus_are_the_conjugates_and_image_as_the_reference():
     One line is phase-shifted by 90 degrees: with a real mask and a symmetric
     source the image is the same at +z and -z (common practice), which would
     not tell the two apart."""
-    from pitchguard.measure import _systems
+    from pitchguard.optics.cut_images import coherent_systems
 
     e = exposure(ANNULAR_06_09, ARF_NM, 1.35, 1.44)
     optics = Optics.of(e)
@@ -761,8 +761,8 @@ def test_systems_at_minus_focus_are_the_conjugates_and_image_as_the_reference():
     src = source_points(e, 0.0)
     samples = 128
     x = grid(pitch_nm, samples)
-    plus = _systems(e, 0.0, pitch_nm, n_max, 80.0).image(spec, samples)[0]
-    minus = _systems(e, 0.0, pitch_nm, n_max, -80.0).image(spec, samples)[0]
+    plus = coherent_systems(e, 0.0, pitch_nm, n_max, 80.0).image(spec, samples)[0]
+    minus = coherent_systems(e, 0.0, pitch_nm, n_max, -80.0).image(spec, samples)[0]
     assert np.max(np.abs(plus - minus)) > 100 * ENGINE_AGREEMENT  # a real difference
     assert (
         np.max(np.abs(minus - abbe_image(spec, pitch_nm, optics, src, -80.0, x))) < ENGINE_AGREEMENT

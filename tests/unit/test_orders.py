@@ -22,7 +22,7 @@ import numpy as np
 import pytest
 
 from pitchguard.deck import Exposure
-from pitchguard.orders import analyse_pitch, cutoff_pitch, pitch_direction
+from pitchguard.optics.orders import analyse_pitch, cutoff_pitch, pitch_direction
 
 PRECISION = 1e-9  # relative: closed-form quantities the code computes exactly
 REACH_PRECISION = 1e-3  # relative: sector reach found from a boundary sampled every 0.25 deg

@@ -17,19 +17,18 @@ from bench_scale import build_chip  # tests/ is on sys.path (conftest)
 from decks import BENCH_DECK
 from pitchguard.deck import parse_deck
 from pitchguard.errors import LayoutError
-from pitchguard.extract import SITE_CELL_NM
-from pitchguard.parallel import (
+from pitchguard.geometry.sites import SITE_CELL_NM
+from pitchguard.run.plan import (
     KEY_COST_SHAPES,
     PARENT_BASE_MB,
     TILE_COST_SHAPES,
-    _halo,
-    _phase_fraction,
-    _tile_work,
-    keys_task,
+    phase_fraction,
     plan_tiles,
-    structure_task,
+    tile_halo_nm,
+    tile_work,
     tiles_for,
 )
+from pitchguard.run.tasks import keys_task, structure_task
 
 DECK = parse_deck(BENCH_DECK)
 LAYERS = [(r.layer, r.datatype) for r in DECK.layers]
@@ -52,19 +51,19 @@ def test_phase_share_matches_a_brute_force_count():
         # Tile origins k t meet the array (period ``pitch``) at these phases.
         phases = len({(k * int(t)) % pitch for k in range(pitch)})
         expect = 1.0 if span <= 1 else min(span, phases + 1) / span
-        assert _phase_fraction(pitch, count, t) == pytest.approx(expect)
+        assert phase_fraction(pitch, count, t) == pytest.approx(expect)
 
 
 def test_nested_arrays_give_a_positive_cost_below_a_flat_scan(chip):
     _, st = chip
-    halo = _halo(DECK)
+    halo = tile_halo_nm(DECK)
     x0, y0, x1, y1 = st.extent_nm
     shares = []
     for k in range(1, 6):
         t = k * SITE_CELL_NM
         tiles = ((x1 - x0) / t + 1) * ((y1 - y0) / t + 1)
         flat = st.shapes * ((t + 2 * halo) / t) ** 2 + (KEY_COST_SHAPES + TILE_COST_SHAPES) * tiles
-        work = _tile_work(st, t, halo)
+        work = tile_work(st, t, halo)
         assert 0 < work <= flat
         shares.append(work / flat)
     # 10 um tiles meet the 210 um blocks and the arrays in them at few phases.
@@ -75,7 +74,7 @@ def test_auto_tile_size_is_near_the_best_by_real_content_keys(chip):
     """The planner's pick costs at most 25 % more than the best size, where each
     size's cost uses the distinct tiles counted from real content keys."""
     path, st = chip
-    halo = _halo(DECK)
+    halo = tile_halo_nm(DECK)
     x0, y0, x1, y1 = st.extent_nm
     density = st.shapes / ((x1 - x0) * (y1 - y0))
     real = {}
@@ -95,7 +94,7 @@ def test_auto_tile_size_is_near_the_best_by_real_content_keys(chip):
 
 def test_memory_cap_drops_workers_then_refuses(chip):
     _, st = chip
-    halo = _halo(DECK)
+    halo = tile_halo_nm(DECK)
     t_free, jobs_free = plan_tiles(st, halo, 4, None, None)
     assert jobs_free == 4
     t_roomy, jobs_roomy = plan_tiles(st, halo, 4, 8000, None)
@@ -109,14 +108,14 @@ def test_memory_cap_drops_workers_then_refuses(chip):
 
 def test_smaller_caps_never_get_larger_tiles(chip):
     _, st = chip
-    halo = _halo(DECK)
+    halo = tile_halo_nm(DECK)
     sizes = [plan_tiles(st, halo, 1, cap, None)[0] for cap in (2000, 1000, 700, 560, 480)]
     assert sizes == sorted(sizes, reverse=True)
 
 
 def test_asked_tile_size_is_rounded_up_to_whole_site_cells(chip):
     _, st = chip
-    t, _ = plan_tiles(st, _halo(DECK), 1, None, 25.0)
+    t, _ = plan_tiles(st, tile_halo_nm(DECK), 1, None, 25.0)
     assert t == math.ceil(25_000 / SITE_CELL_NM) * SITE_CELL_NM
 
 
@@ -135,14 +134,14 @@ def test_neighbouring_tiles_are_those_an_rtree_finds_touching(extent, tile, regi
     share a side or a corner touch)."""
     import numpy as np
 
-    from pitchguard.extract import _query_pairs, _rtree
-    from pitchguard.parallel import _neighbours
+    from pitchguard.geometry.spatial import build_rtree, query_pairs
+    from pitchguard.run.merge import neighbouring_tiles
 
     tiles = tiles_for(extent, tile, region)
-    got = list(zip(*(v.tolist() for v in _neighbours(tiles)), strict=True))
+    got = list(zip(*(v.tolist() for v in neighbouring_tiles(tiles)), strict=True))
     b = np.asarray(tiles, dtype=np.float64)
-    qi, qj = _query_pairs(
-        _rtree(b[:, :2] - 1e-3, b[:, 2:] + 1e-3), b[:, :2] - 1e-3, b[:, 2:] + 1e-3
+    qi, qj = query_pairs(
+        build_rtree(b[:, :2] - 1e-3, b[:, 2:] + 1e-3), b[:, :2] - 1e-3, b[:, 2:] + 1e-3
     )
     want = set(zip(qi[qi < qj].tolist(), qj[qi < qj].tolist(), strict=True))
     assert len(got) == len(set(got)) and set(got) == want

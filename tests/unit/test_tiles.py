@@ -14,7 +14,7 @@ import gdstk
 import numpy as np
 import pytest
 
-from pitchguard.tiles import HierarchyQuery
+from pitchguard.layout.hierarchy import HierarchyQuery
 
 LAYERS = [(7, 0), (8, 0)]
 NM_PER_UM = 1000.0

@@ -16,10 +16,12 @@ import math
 import pytest
 
 from decks import DEMO_DECK, SAMPLE_GDS
-from pitchguard.ci_formats import to_junit, to_sarif, write_junit, write_sarif
 from pitchguard.deck import load_deck
-from pitchguard.report import Rows, dump_json, to_json, write_json
-from pitchguard.scan import scan_layout
+from pitchguard.outputs.json_report import dump_json, to_json, write_json
+from pitchguard.outputs.junit import to_junit, write_junit
+from pitchguard.outputs.rows import Rows
+from pitchguard.outputs.sarif import to_sarif, write_sarif
+from pitchguard.run.scan import scan_layout
 
 
 @pytest.fixture(scope="module")
@@ -93,8 +95,8 @@ def test_placed_rows_keep_the_sign_of_a_negative_zero(demo):
 
     import numpy as np
 
-    from pitchguard.classify import FindingSet
-    from pitchguard.report import finding_rows, finding_to_dict
+    from pitchguard.judge.findings import FindingSet
+    from pitchguard.outputs.json_report import finding_rows, finding_to_dict
 
     result, _ = demo
     f = result.findings[0]

@@ -1,0 +1,7 @@
+"""``python -m pitchguard``: the command line."""
+
+import sys
+
+from pitchguard.cli import main
+
+sys.exit(main())

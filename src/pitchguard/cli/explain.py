@@ -1,0 +1,243 @@
+"""The probe, sweep and rules check commands."""
+
+from __future__ import annotations
+
+from pitchguard.cli.console import NullContext, make_console, number_text, say
+from pitchguard.errors import (
+    EXIT_OK,
+    PitchguardError,
+)
+
+
+def cmd_rules_check(args) -> int:
+    from rich.table import Table
+
+    from pitchguard.deck import load_deck
+    from pitchguard.optics.orders import cutoff_pitch
+
+    deck = load_deck(args.deck)
+    console = make_console()
+    scale = (
+        f"drawn at mask scale, reduction {deck.reduction:g}"
+        if deck.drawn_scale == "mask"
+        else "drawn at wafer scale"
+    )
+    console.print(f"{args.deck}: valid deck '{deck.name}', {len(deck.layers)} layers, {scale}")
+    t = Table(show_edge=False)
+    for col in (
+        "layer",
+        "source",
+        "field",
+        "exposure",
+        "λ nm",
+        "NA",
+        "σ max",
+        "cutoff x / y nm",
+        "k1 risk / marginal pitch nm",
+    ):
+        t.add_column(col)
+    for r in deck.layers:
+        e = r.exposure
+        cx, cy = cutoff_pitch(e, 90.0), cutoff_pitch(e, 0.0)
+        pr = 2 * r.k1_risk_below * e.wavelength_nm / e.na
+        pm = 2 * r.k1_marginal_below * e.wavelength_nm / e.na
+        t.add_row(
+            r.name,
+            r.source,
+            r.field,
+            r.exposure_name,
+            f"{e.wavelength_nm:g}",
+            f"{e.na:g}",
+            f"{e.sigma_max:g}",
+            f"{cx:.1f} / {cy:.1f}",
+            f"{pr:.1f} / {pm:.1f}",
+        )
+    console.print(t)
+    console.print("[dim]pitches at wafer scale; cutoff x is for lines along y (pitch along x)[/]")
+    return EXIT_OK
+
+
+def _grating_json(r) -> dict:
+    from pitchguard.outputs.json_report import clean_json
+
+    m = r.metrics
+    return clean_json(
+        {
+            "pitch_nm": r.pitch_nm,
+            "cd_nm": r.cd_nm,
+            "orientation_deg": r.orientation_deg,
+            "k1": r.orders.k1,
+            "orders": list(r.orders.orders),
+            "orders_on_axis": list(r.orders.orders_on_axis),
+            "two_beam_fraction": r.orders.two_beam_fraction,
+            "cutoff_pitch_nm": r.orders.cutoff_pitch_nm,
+            "contrast": m.contrast if m else None,
+            "nils": m.nils if m else None,
+            "printed_cd_nm": m.cd_nm if m else None,
+            "cd_error_pct": m.cd_error_pct if m else None,
+            "exposure_latitude_pct": m.el_pct if m else None,
+            "depth_of_focus_nm": m.dof_nm if m else None,
+            "threshold": m.threshold if m else None,
+            "dose_to_size": m.dose_to_size if m else None,
+            "severity": r.severity,
+            "checks": [
+                {
+                    "check": v.check,
+                    "severity": v.severity,
+                    "value": v.value,
+                    "limit": v.limit,
+                    "message": v.message,
+                }
+                for v in r.violations
+            ],
+        }
+    )
+
+
+def cmd_probe(args) -> int:
+    import json
+
+    from pitchguard.deck import load_deck
+    from pitchguard.judge.gratings import grating, pupil_picture
+    from pitchguard.outputs.json_report import clean_json
+    from pitchguard.outputs.verdict import CAUTION
+
+    deck = load_deck(args.rules)
+    rule = deck.layer(args.layer)
+    r = grating(rule, args.pitch, args.cd, args.orientation, args.focus)
+    if args.plot is not None:
+        from pitchguard.outputs.plots import plot_image
+
+        plot_image(rule, r, args.plot, [args.rules])
+    if args.json:
+        out = _grating_json(r)
+        out["focus_nm"] = args.focus
+        out["image"] = clean_json({"x_nm": r.x_nm.tolist(), "intensity": r.intensity.tolist()})
+        out["caution"] = CAUTION
+        say(json.dumps(out))
+        return EXIT_OK
+    console = make_console()
+    e = rule.exposure
+    ill = e.illumination
+    console.print(
+        f"[bold]{rule.name}[/] ({rule.field} field) on {rule.exposure_name}: "
+        f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {ill.shape} σmax {e.sigma_max:g}, "
+        f"{e.mask.kind} mask"
+    )
+    feature = "line" if rule.field == "clear" else "opening"
+    console.print(
+        f"grating: pitch {r.pitch_nm:g} nm, {feature} {r.cd_nm:g} nm, "
+        f"lines along {r.orientation_deg:g}°"
+    )
+    o = r.orders
+    console.print(
+        f"k1 {o.k1:.3f}; orders on axis {list(o.orders_on_axis)}; through the source "
+        f"{list(o.orders)}; source sending 0th + a 1st order: {100 * o.two_beam_fraction:.1f} %; "
+        f"cutoff pitch {o.cutoff_pitch_nm:.1f} nm"
+    )
+    console.print()
+    for line in pupil_picture(rule, r):
+        console.print("   " + line, highlight=False, markup=False)
+    console.print(
+        "   [dim]* pupil edge, 0 source (0th order), + / - source shifted by the "
+        "+1st / -1st order inside the pupil, 2 higher orders[/]"
+    )
+    console.print()
+    m = r.metrics
+    if m is not None:
+        rows = [
+            ("image contrast", number_text(m.contrast, "", 3)),
+            ("NILS at the drawn edges", number_text(m.nils, "", 2)),
+            (
+                "printed CD at nominal dose",
+                "lost" if m.lost else "bridged" if m.bridged else number_text(m.cd_nm, " nm", 1),
+            ),
+            (
+                "CD error",
+                number_text(m.cd_error_pct, " %", 1) if rule.anchor else "not judged (no anchor)",
+            ),
+            ("exposure latitude", number_text(m.el_pct, " %", 1)),
+            ("depth of focus", number_text(m.dof_nm, " nm", 0)),
+            (
+                "threshold / dose-to-size",
+                f"{m.threshold:.3f} / {number_text(m.dose_to_size, '', 3)}",
+            ),
+        ]
+        for k, v in rows:
+            console.print(f"  {k:<28} {v}")
+    console.print()
+    if r.violations:
+        for v in r.violations:
+            console.print(f"  [bold]{v.severity}[/] {v.check}: {v.message}")
+    else:
+        console.print("  ok: no limit of this layer is broken")
+    console.print(f"[dim]{CAUTION}[/]")
+    return EXIT_OK
+
+
+def cmd_sweep(args) -> int:
+    import numpy as np
+    from rich.table import Table
+
+    from pitchguard.deck import load_deck
+    from pitchguard.judge.gratings import bands, default_pitches, through_pitch
+    from pitchguard.outputs.json_report import write_json
+    from pitchguard.outputs.verdict import CAUTION
+
+    deck = load_deck(args.rules)
+    rule = deck.layer(args.layer)
+    cd = args.cd
+    if cd is None:
+        if rule.anchor is None:
+            raise PitchguardError(f"layer {rule.name!r} has no anchor in the deck: give --cd NM")
+        cd = rule.anchor.cd_nm
+    if args.pitches:
+        lo, hi, step = args.pitches
+        pitches = np.arange(lo, hi + step / 2, step)
+    else:
+        pitches = default_pitches(rule, cd)
+    console = make_console()
+    err = make_console(stderr=True)
+    with err.status(f"imaging {len(pitches)} pitches ...") if err.is_terminal else NullContext():
+        results = through_pitch(rule, cd, pitches, args.orientation)
+    if not results:
+        raise PitchguardError(f"no pitch in the range is larger than the CD ({cd:g} nm)")
+    t = Table(
+        title=f"{rule.name}: CD {cd:g} nm through pitch", title_justify="left", show_edge=False
+    )
+    for col in ("pitch nm", "k1", "contrast", "NILS", "CD err %", "EL %", "DOF nm", "verdict"):
+        t.add_column(col, justify="right" if col != "verdict" else "left")
+    for r in results:
+        m = r.metrics
+        t.add_row(
+            f"{r.pitch_nm:.1f}",
+            f"{r.orders.k1:.3f}",
+            number_text(m.contrast if m else None, "", 3),
+            number_text(m.nils if m else None),
+            number_text(m.cd_error_pct if m else None, "", 1),
+            number_text(m.el_pct if m else None, "", 1),
+            number_text(m.dof_nm if m else None, "", 0),
+            r.severity if r.severity == "ok" else f"{r.severity} ({r.violations[0].check})",
+        )
+    console.print(t)
+    for a, b, sev in bands(results):
+        console.print(f"  {sev:<8} pitch {a:.1f} - {b:.1f} nm")
+    console.print(f"[dim]{CAUTION}[/]")
+    inputs = [args.rules]
+    if args.plot is not None:
+        from pitchguard.outputs.plots import plot_sweep
+
+        plot_sweep(rule, results, args.plot, inputs)
+    if args.json is not None:
+        write_json(
+            args.json,
+            {
+                "layer": rule.name,
+                "cd_nm": cd,
+                "caution": CAUTION,
+                "bands": [{"from_nm": a, "to_nm": b, "severity": s} for a, b, s in bands(results)],
+                "pitches": [_grating_json(r) for r in results],
+            },
+            inputs,
+        )
+    return EXIT_OK

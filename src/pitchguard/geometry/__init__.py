@@ -1,0 +1,1 @@
+"""Geometry: spatial index helpers, features, sites (width, space, run) and 1-D cuts."""

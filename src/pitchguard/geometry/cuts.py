@@ -1,0 +1,261 @@
+"""Sites -> canonical 1-D cuts across each site, deduplicated."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from pitchguard.geometry.edge_frames import EdgeFrames
+from pitchguard.geometry.features import Edges
+from pitchguard.geometry.sites import Sites
+
+
+@dataclass(frozen=True)
+class Cut:
+    """A canonical drawn profile: boundaries (nm, relative to the feature centre).
+
+    ``bounds`` are sorted; material (drawn shape) lies between ``bounds[0]``
+    and ``bounds[1]``, ``bounds[2]`` and ``bounds[3]``, ... The profile is
+    clipped to ``[-reach, reach]``; the site's own feature is the interval
+    containing 0.
+    """
+
+    bounds: tuple[float, ...]
+    reach: float
+
+    @property
+    def feature(self) -> tuple[float, float]:
+        b = self.bounds
+        for k in range(0, len(b) - 1, 2):
+            if b[k] <= 0.0 <= b[k + 1]:
+                return b[k], b[k + 1]
+        raise ValueError("cut has no feature at its centre")
+
+    @property
+    def context(self) -> str:
+        """Where the feature sits: ``interior``, ``outer`` (one neighbour) or ``alone``."""
+        left, _ = self.feature
+        k = list(self.bounds).index(left)
+        n = (k >= 2) + (k + 2 < len(self.bounds))
+        return ("alone", "outer", "interior")[n]
+
+    @property
+    def search(self) -> tuple[float, float]:
+        """Where the feature's printed edges may lie: to the middle of each neighbouring space."""
+        left, right = self.feature
+        b = list(self.bounds)
+        k = b.index(left)
+        lo = 0.5 * (left + b[k - 1]) if k >= 1 else -self.reach
+        hi = 0.5 * (right + b[k + 2]) if k + 2 < len(b) else self.reach
+        return lo, hi
+
+
+def site_cuts(
+    edges: Edges,
+    sites: Sites,
+    reach_nm: float,
+    grid_nm: float,
+    turn_source: bool = True,
+) -> tuple[np.ndarray, list[Cut], list[float]]:
+    """Canonical cut of every site with a finite width.
+
+    Returns ``(which, cuts, angles)``: ``cuts[which[k]]`` is the cut of site
+    ``k`` (``which[k] = -1`` where the site has no cut: infinite width or an
+    inconsistent crossing pattern); ``angles[c]`` is the pitch direction of
+    cut ``c`` in degrees mod 180 (0 for every cut when ``turn_source`` is
+    False: a source that turning does not change).
+    """
+    n = len(sites)
+    which = np.full(n, -1, dtype=np.int64)
+    angles: list[float] = []
+    if n == 0 or len(edges) == 0:
+        return which, [], angles
+    a, b = edges.a, edges.b
+    vec = b - a
+    length = np.hypot(vec[:, 0], vec[:, 1])
+    d = vec / length[:, None]
+    eps = grid_nm * 0.25
+    frames = EdgeFrames(a, b, d, eps)
+
+    mid = sites.midpoints()
+    nrm = sites.normal
+    pitch_angle = np.degrees(np.arctan2(nrm[:, 1], nrm[:, 0])) % 180.0
+    angle_key = (
+        np.round(pitch_angle * 10).astype(np.int64) % 1800
+        if turn_source
+        else np.zeros(n, dtype=np.int64)
+    )
+    todo = np.flatnonzero(np.isfinite(sites.width) & (sites.width <= reach_nm))
+    keys: dict[tuple, int] = {}
+    cuts: list[Cut] = []
+    q = grid_nm
+    chunk = 50_000
+    for c0 in range(0, len(todo), chunk):
+        ids = todo[c0 : c0 + chunk]
+        p0 = mid[ids] - nrm[ids] * reach_nm
+        p1 = mid[ids] + nrm[ids] * reach_nm
+        qk, j = _segment_pairs(frames, p0, p1, sites.direction[ids])
+        # Intersection of cut k (mid + t n, |t| <= reach) with edge j.
+        m, nn = mid[ids][qk], nrm[ids][qk]
+        e0, ev = a[j], vec[j]
+        den = nn[:, 0] * ev[:, 1] - nn[:, 1] * ev[:, 0]
+        ok = np.abs(den) > 1e-12
+        r = e0 - m
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = (r[:, 0] * ev[:, 1] - r[:, 1] * ev[:, 0]) / den
+            u = (r[:, 0] * nn[:, 1] - r[:, 1] * nn[:, 0]) / den
+        ok &= (u >= -1e-9) & (u <= 1 + 1e-9) & (np.abs(t) <= reach_nm)
+        own = j == sites.edge[ids][qk]
+        ok &= ~own
+        # Entering material when moving against the edge's outward normal.
+        out_j = np.stack([d[j, 1], -d[j, 0]], axis=1)
+        entering = np.einsum("ij,ij->i", nn, out_j) < 0
+        qk, t, entering = qk[ok], t[ok], entering[ok]
+        order = np.lexsort((t, qk))
+        qk, t, entering = qk[order], t[order], entering[order]
+        starts = np.searchsorted(qk, np.arange(len(ids)))
+        ends = np.searchsorted(qk, np.arange(len(ids)), side="right")
+        # Sites whose raw crossing patterns (quantised) agree are worked out once:
+        # a 128-bit polynomial hash of each pattern, vectorised.
+        tq = np.round(t / q).astype(np.int64)
+        # A crossing within half a step of the site keeps its side (sub-grid slivers).
+        tiny = (tq == 0) & (t != 0)
+        tq[tiny] = np.sign(t[tiny]).astype(np.int64)
+        val = (tq * 2 + entering).astype(np.uint64)
+        rank = np.arange(len(qk)) - starts[qk]
+        h = np.zeros((len(ids), 2), dtype=np.uint64)
+        with np.errstate(over="ignore"):
+            for col, mult in enumerate(_HASH_MULT):
+                prod = val * _powers(mult, int(rank.max(initial=0)) + 1)[rank]
+                np.add.at(h[:, col], qk, prod)
+        wq = np.round(sites.width[ids] / q).astype(np.int64)
+        raw = np.stack(
+            [h[:, 0].view(np.int64), h[:, 1].view(np.int64), ends - starts, wq, angle_key[ids]],
+            axis=1,
+        )
+        _, first, inverse = np.unique(raw, axis=0, return_index=True, return_inverse=True)
+        inverse = inverse.ravel()
+        # The cut of a pattern is built from the quantised pattern alone (not from
+        # the exact crossings of whichever site came first), so every site with
+        # that pattern gets the same cut however the layout was split into tiles.
+        tq_l, ent_l, wq_l = tq.tolist(), entering.tolist(), wq.tolist()
+        rep_cut = np.full(len(first), -1, dtype=np.int64)
+        for u, k in enumerate(first.tolist()):
+            site = int(ids[k])
+            ts = [v * q for v in tq_l[starts[k] : ends[k]]]
+            bounds = _bounds(ts, ent_l[starts[k] : ends[k]], reach_nm, q)
+            if bounds is None:
+                continue
+            # Relative to the feature centre (at -width / 2), in half grid steps.
+            rel = tuple(round(2.0 * x / q) + wq_l[k] for x in bounds)
+            if not any(a <= 0 <= b for a, b in zip(rel[0::2], rel[1::2], strict=True)):
+                continue  # the crossings disagree with the width: inconsistent, no cut
+            mirrored = tuple(-v for v in reversed(rel))
+            prof = min(rel, mirrored)
+            key = (int(angle_key[site]), prof)
+            idx = keys.get(key)
+            if idx is None:
+                idx = len(cuts)
+                keys[key] = idx
+                cuts.append(Cut(tuple(v * 0.5 * q for v in prof), reach_nm))
+                angles.append(key[0] / 10.0)
+            rep_cut[u] = idx
+        which[ids] = rep_cut[inverse]
+    return which, cuts, angles
+
+
+_HASH_MULT = (0x9E3779B97F4A7C15, 0xC2B2AE3D27D4EB4F)
+"""Odd 64-bit multipliers of the two pattern hashes (golden-ratio and a mixing prime)."""
+
+
+def _powers(mult: int, n: int) -> np.ndarray:
+    """``mult ** k`` modulo 2^64 for k = 0..n-1 (uint64)."""
+    out = np.empty(n, dtype=np.uint64)
+    acc = 1
+    for k in range(n):
+        out[k] = acc
+        acc = (acc * mult) % (1 << 64)
+    return out
+
+
+def _segment_pairs(frames: EdgeFrames, p0, p1, line_dir):
+    """Candidate edges for cut segments p0-p1 (grouped by the site's orientation)."""
+    ang = np.degrees(np.arctan2(line_dir[:, 1], line_dir[:, 0])) % 90.0
+    key = np.round(ang * 2.0).astype(np.int64) % 180
+    group = np.where(np.isin(key, list(frames.turn)), key, 0)
+    out_k, out_j = [], []
+    for g in np.unique(group).tolist():
+        sel = np.flatnonzero(group == g)
+        th = frames.turn[g]
+        ends = np.stack([p0[sel], p1[sel]])
+        ends = frames._rotated(th, ends.reshape(-1, 2)).reshape(ends.shape)
+        qk, j = frames.query(g, ends.min(axis=0), ends.max(axis=0))
+        out_k.append(sel[qk])
+        out_j.append(j)
+    return np.concatenate(out_k), np.concatenate(out_j)
+
+
+def _bounds(ts: list[float], entering: list[bool], reach: float, q: float) -> list[float] | None:
+    """Material boundaries along one cut, or None when the crossings are inconsistent.
+
+    At ``t = 0-`` the cut is inside the site's feature and at ``0+`` in its
+    space.  Walking outward, crossings must alternate; a vertex hit twice
+    (two edges meeting on the cut) is merged.
+    """
+    neg = [(t, e) for t, e in zip(ts, entering, strict=True) if t < 0][::-1]  # outward
+    pos = [(t, e) for t, e in zip(ts, entering, strict=True) if t > 0]
+    out_neg: list[float] = []
+    inside = True  # walking towards -t from inside the feature
+    for t, ent in _dedupe(neg, q):
+        # Walking backwards along the cut, "entering" (forward) means leaving.
+        if inside != ent:
+            return None
+        inside = not inside
+        out_neg.append(t)
+    out_pos: list[float] = []
+    inside = False
+    for t, ent in _dedupe(pos, q):
+        if inside == ent:
+            return None
+        inside = not inside
+        out_pos.append(t)
+    lo = [-reach] if len(out_neg) % 2 == 0 else []  # material runs past the cut's end
+    hi = [reach] if len(out_pos) % 2 == 1 else []
+    bounds = lo + out_neg[::-1] + [0.0] + out_pos + hi
+    if len(bounds) % 2:
+        return None
+    return bounds
+
+
+def _dedupe(cross: list[tuple[float, bool]], q: float):
+    """Drop a crossing repeated at the same place with the same sense (a shared vertex)."""
+    out: list[tuple[float, bool]] = []
+    for t, e in cross:
+        if out and abs(out[-1][0] - t) <= 0.25 * q and out[-1][1] == e:
+            continue
+        out.append((t, e))
+    return out
+
+
+def cut_segments(cut: Cut, period_nm: float) -> tuple[np.ndarray, np.ndarray]:
+    """Period ``[-P/2, P/2)`` split at the cut's boundaries: ``(edges, is_material)``."""
+    half = period_nm / 2
+    b = [min(max(v, -half), half) for v in cut.bounds]
+    edges = [-half]
+    material = []
+    state = False
+    for v in b:
+        if v > edges[-1]:
+            edges.append(v)
+            material.append(state)
+        state = not state
+    if edges[-1] < half:
+        edges.append(half)
+        material.append(state)
+    return np.array(edges), np.array(material, dtype=bool)
+
+
+def window_period(reach_nm: float, lambda_over_na_nm: float) -> float:
+    """Image period of a cut: the cut (2 reach) plus one lambda/NA of padding each side."""
+    return 2.0 * reach_nm + 2.0 * lambda_over_na_nm

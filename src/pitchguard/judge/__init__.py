@@ -1,0 +1,1 @@
+"""Judging: checks, finding records, regions, fix hints, ideal gratings."""

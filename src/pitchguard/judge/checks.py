@@ -1,0 +1,173 @@
+"""Check identifiers and the rules that turn an order analysis and image metrics into violations."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from pitchguard.deck import SEVERITIES, LayerRule
+from pitchguard.optics.orders import OrderResult
+from pitchguard.optics.resist import Metrics
+
+OK = len(SEVERITIES)
+"""Severity code of a site that passes (codes 0.. are indexes into SEVERITIES)."""
+
+
+CHECKS = {
+    "unresolvable-pitch": "No source point sends the 0th and a 1st diffraction order "
+    "through the pupil: the pitch cannot image.",
+    "feature-not-printed": "At best focus and nominal dose the feature's image never "
+    "crosses the threshold: it does not print.",
+    "features-bridged": "At best focus and nominal dose the printed feature runs into "
+    "its neighbour.",
+    "low-k1": "k1 = (pitch/2) NA / lambda is below the layer's k1 band.",
+    "low-nils": "The normalised image log-slope at the drawn edges is below the layer's NILS band.",
+    "low-exposure-latitude": "The dose range holding CD within tolerance is below el_min_pct.",
+    "low-depth-of-focus": "The focus range holding CD within tolerance with el_min_pct "
+    "exposure latitude is below dof_min_nm.",
+    "cd-error": "At the anchored dose the printed CD is off the drawn CD by more than "
+    "cd_tolerance_pct.",
+}
+"""Check identifiers and one-line descriptions (stable: baselines refer to them)."""
+
+
+@dataclass(frozen=True)
+class Violation:
+    """One limit a site breaks: which check, how bad, the value against the limit."""
+
+    check: str
+    severity: str
+    value: float
+    limit: float
+    message: str
+
+
+def _fmt(x: float) -> str:
+    return f"{x:.1f}"
+
+
+def violations(
+    rule: LayerRule, res: OrderResult, metrics: Metrics | None, pitch_wafer: float
+) -> list[Violation]:
+    """Every limit a site breaks, worst first."""
+    out: list[Violation] = []
+    if math.isfinite(pitch_wafer) and not res.resolvable:
+        out.append(
+            Violation(
+                "unresolvable-pitch",
+                "fail",
+                pitch_wafer,
+                res.cutoff_pitch_nm,
+                f"pitch {_fmt(pitch_wafer)} nm (wafer) is below the {_fmt(res.cutoff_pitch_nm)} nm "
+                "this exposure can image in this direction: no source point sends a 1st order "
+                "through the pupil",
+            )
+        )
+    m = metrics
+    if m is not None:
+        if m.lost:
+            out.append(
+                Violation(
+                    "feature-not-printed",
+                    "fail",
+                    m.contrast,
+                    0.0,
+                    f"the feature does not print at best focus and nominal dose "
+                    f"(image contrast {m.contrast:.3f})",
+                )
+            )
+        elif m.bridged:
+            out.append(
+                Violation(
+                    "features-bridged",
+                    "fail",
+                    m.contrast,
+                    0.0,
+                    "the printed feature runs into its neighbour at best focus and nominal dose",
+                )
+            )
+    if math.isfinite(pitch_wafer):
+        k1_bands = (
+            ("risk", rule.k1_risk_below, "k1_risk_below"),
+            ("marginal", rule.k1_marginal_below, "k1_marginal_below"),
+        )
+        for sev, band, key in k1_bands:
+            if res.k1 < band:
+                out.append(
+                    Violation(
+                        "low-k1",
+                        sev,
+                        res.k1,
+                        band,
+                        f"k1 {res.k1:.3f} is below {band:g} ({key}) at pitch "
+                        f"{_fmt(pitch_wafer)} nm (wafer)",
+                    )
+                )
+                break
+    if m is not None and not (m.lost or m.bridged):
+        nils_bands = (
+            ("fail", rule.nils_fail_below, "nils_fail_below"),
+            ("risk", rule.nils_risk_below, "nils_risk_below"),
+            ("marginal", rule.nils_marginal_below, "nils_marginal_below"),
+        )
+        for sev, band, key in nils_bands:
+            if m.nils < band:
+                out.append(
+                    Violation(
+                        "low-nils",
+                        sev,
+                        m.nils,
+                        band,
+                        f"NILS {m.nils:.2f} at the drawn edges is below {band:g} ({key})",
+                    )
+                )
+                break
+        if m.el_pct < rule.el_min_pct:
+            out.append(
+                Violation(
+                    "low-exposure-latitude",
+                    "risk",
+                    m.el_pct,
+                    rule.el_min_pct,
+                    f"exposure latitude {m.el_pct:.1f} % is below {rule.el_min_pct:g} % "
+                    f"(CD within +-{rule.cd_tolerance_pct:g} %)",
+                )
+            )
+        if m.dof_nm < rule.dof_min_nm:
+            out.append(
+                Violation(
+                    "low-depth-of-focus",
+                    "risk",
+                    m.dof_nm,
+                    rule.dof_min_nm,
+                    f"depth of focus {m.dof_nm:.0f} nm is below {rule.dof_min_nm:.0f} nm "
+                    f"(at {rule.el_min_pct:g} % exposure latitude)",
+                )
+            )
+        if math.isfinite(m.cd_error_pct) and abs(m.cd_error_pct) > rule.cd_tolerance_pct:
+            out.append(
+                Violation(
+                    "cd-error",
+                    "risk",
+                    m.cd_error_pct,
+                    rule.cd_tolerance_pct,
+                    f"printed CD {m.cd_nm:.1f} nm is {m.cd_error_pct:+.1f} % off drawn at the "
+                    f"anchored dose (tolerance +-{rule.cd_tolerance_pct:g} %)",
+                )
+            )
+    out.sort(key=lambda v: SEVERITIES.index(v.severity))
+    return out
+
+
+def worst_severity_code(vs: list[Violation]) -> int:
+    return SEVERITIES.index(vs[0].severity) if vs else OK
+
+
+IMAGE_CHECKS = (
+    "feature-not-printed",
+    "features-bridged",
+    "low-nils",
+    "low-exposure-latitude",
+    "low-depth-of-focus",
+    "cd-error",
+)

@@ -1,0 +1,142 @@
+"""Ideal gratings: probe one pitch, sweep through pitch (the same limits as a scan)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from pitchguard.deck import SEVERITIES, LayerRule
+from pitchguard.errors import PitchguardError
+from pitchguard.judge.checks import OK, Violation, violations
+from pitchguard.optics.cut_images import grating_metrics
+from pitchguard.optics.orders import OrderResult, analyse_pitch, sample_source
+from pitchguard.optics.resist import Metrics
+
+
+@dataclass(frozen=True)
+class GratingResult:
+    """Everything known about one grating: orders, metrics, verdict."""
+
+    pitch_nm: float
+    cd_nm: float
+    orientation_deg: float
+    orders: OrderResult
+    metrics: Metrics | None
+    violations: tuple[Violation, ...]
+    x_nm: np.ndarray
+    intensity: np.ndarray
+    focus_nm: float
+
+    @property
+    def severity(self) -> str:
+        return self.violations[0].severity if self.violations else "ok"
+
+    @property
+    def severity_code(self) -> int:
+        return SEVERITIES.index(self.severity) if self.violations else OK
+
+
+def _check(rule: LayerRule, pitch_nm: float, cd_nm: float) -> None:
+    if not (math.isfinite(pitch_nm) and pitch_nm > 0):
+        raise PitchguardError(f"pitch must be a positive number of nm, got {pitch_nm}")
+    if not (math.isfinite(cd_nm) and 0 < cd_nm < pitch_nm):
+        raise PitchguardError(f"CD must be between 0 and the pitch ({pitch_nm} nm), got {cd_nm}")
+    if pitch_nm > 50 * rule.exposure.lambda_over_na_nm:
+        raise PitchguardError(
+            f"pitch {pitch_nm} nm is over 50 lambda/NA: not a pitch this tool can judge"
+        )
+
+
+def grating(
+    rule: LayerRule,
+    pitch_nm: float,
+    cd_nm: float,
+    orientation_deg: float = 90.0,
+    focus_nm: float = 0.0,
+) -> GratingResult:
+    """Judge an ideal grating (wafer nm); lines run at ``orientation_deg`` (90: along y).
+
+    Metrics through the deck's focus range; the returned image is at ``focus_nm``.
+    """
+    _check(rule, pitch_nm, cd_nm)
+    pitch_angle = (orientation_deg + 90.0) % 180.0
+    res = analyse_pitch(rule.exposure, pitch_nm, orientation_deg % 180.0)
+    m, x, inten = grating_metrics(rule, pitch_nm, cd_nm, pitch_angle)
+    if focus_nm:
+        _, x, inten = grating_metrics(rule, pitch_nm, cd_nm, pitch_angle, (focus_nm,))
+    vs = violations(rule, res, m if rule.image_checks else None, pitch_nm)
+    return GratingResult(pitch_nm, cd_nm, orientation_deg, res, m, tuple(vs), x, inten, focus_nm)
+
+
+def default_pitches(rule: LayerRule, cd_nm: float) -> np.ndarray:
+    """From just below the cutoff (or 1.2 CD) to 4 lambda/NA, in lambda/NA / 20 steps."""
+    lo = max(cd_nm * 1.2, 0.9 * rule.exposure.cutoff_pitch_nm)
+    hi = max(4.0 * rule.exposure.lambda_over_na_nm, lo * 1.5)
+    step = rule.exposure.lambda_over_na_nm / 20.0
+    return np.arange(lo, hi + step / 2, step)
+
+
+def through_pitch(
+    rule: LayerRule, cd_nm: float, pitches: np.ndarray, orientation_deg: float = 90.0
+) -> list[GratingResult]:
+    """One grating result per pitch (pitches at or below the CD are skipped)."""
+    return [grating(rule, float(p), cd_nm, orientation_deg) for p in pitches if p > cd_nm]
+
+
+def bands(results: list[GratingResult]) -> list[tuple[float, float, str]]:
+    """Contiguous pitch ranges sharing a severity other than ok: ``(from, to, severity)``."""
+    out: list[tuple[float, float, str]] = []
+    for r in results:
+        if r.severity == "ok":
+            continue
+        if out and out[-1][2] == r.severity and _adjacent(results, out[-1][1], r.pitch_nm):
+            out[-1] = (out[-1][0], r.pitch_nm, r.severity)
+        else:
+            out.append((r.pitch_nm, r.pitch_nm, r.severity))
+    return out
+
+
+def _adjacent(results: list[GratingResult], a: float, b: float) -> bool:
+    pitches = [r.pitch_nm for r in results]
+    return pitches.index(b) - pitches.index(a) == 1
+
+
+def pupil_picture(rule: LayerRule, result: GratingResult, width: int = 45) -> list[str]:
+    """A small text picture of the pupil with the source and the orders it sends through.
+
+    The pupil is the circle of radius NA/lambda (``*``); ``0`` marks the source
+    (the 0th order, where it lies); ``+``/``-`` the source shifted by the +1st /
+    -1st order where that copy falls inside the pupil (those points image the
+    grating); ``2`` higher orders inside the pupil.  Pitch runs left-right.
+    """
+    height = width // 2 + 1
+    q = rule.exposure.wavelength_nm / (result.pitch_nm * rule.exposure.na)
+    pts = sample_source(rule.exposure.illumination).grid
+    t = math.radians(-((result.orientation_deg + 90.0) % 180.0))
+    rot = np.array([[math.cos(t), -math.sin(t)], [math.sin(t), math.cos(t)]])
+    pts = pts @ rot.T
+    grid = [[" "] * width for _ in range(height)]
+
+    def put(x: float, y: float, ch: str, only_inside: bool = True) -> None:
+        if only_inside and x * x + y * y > 1.0:
+            return
+        col = int(round((x + 1.1) / 2.2 * (width - 1)))
+        row = int(round((1.1 - y) / 2.2 * (height - 1)))
+        if 0 <= row < height and 0 <= col < width:
+            grid[row][col] = ch
+
+    for k in range(180):
+        a = 2 * math.pi * k / 180
+        put(math.cos(a), math.sin(a), "*", only_inside=False)
+    n_max = int((1.0 + rule.exposure.sigma_max) / q) if q > 0 else 0
+    for n in range(-n_max, n_max + 1):
+        if n == 0:
+            continue
+        ch = "+" if n == 1 else "-" if n == -1 else "2" if abs(n) >= 2 else "?"
+        for sx, sy in pts[:: max(1, len(pts) // 600)]:
+            put(sx + n * q, sy, ch)
+    for sx, sy in pts[:: max(1, len(pts) // 600)]:
+        put(sx, sy, "0")
+    return ["".join(r).rstrip() for r in grid]

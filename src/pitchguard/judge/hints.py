@@ -1,0 +1,163 @@
+"""Fix hints: the nearest passing pitch of an ideal grating, made once per distinct finding."""
+
+from __future__ import annotations
+
+import math
+from functools import lru_cache
+
+from pitchguard.deck import LayerRule
+from pitchguard.judge.checks import Violation, violations
+from pitchguard.optics.orders import analyse_pitch
+
+HINT_RANGE = (0.6, 2.0)
+"""Pitches tried for a fix hint, as fractions of the flagged pitch."""
+
+
+HINT_IMAGES = 16
+"""At most this many candidate pitches are imaged per hint (nearest first)."""
+
+
+@lru_cache(maxsize=4096)
+def _grating_orders_ok(rule: LayerRule, pitch_q: int, angle_q: int, quantum: float) -> bool:
+    pitch, angle = pitch_q * quantum, angle_q / 10.0
+    res = analyse_pitch(rule.exposure, pitch, (angle - 90.0) % 180.0)
+    return not violations(rule, res, None, pitch)
+
+
+_passes_given: dict[tuple, bool] = {}  # (rule values, cd_q, pitch_q, angle_q, quantum) -> passes
+
+
+_passes_fresh: list[tuple] = []
+
+
+def _rule_values(rule: LayerRule) -> tuple:
+    """A layer rule by value (equal for equal exposures and limits, in any process)."""
+    return tuple(getattr(rule, k) for k in type(rule).__slots__)
+
+
+def take_grating_passes() -> list[tuple]:
+    """Ideal gratings judged here since the last call, to share with other
+    processes: rows ``(rule values, cd_q, pitch_q, angle_q, quantum, passes)``
+    (see :func:`give_grating_passes`)."""
+    rows = list(_passes_fresh)
+    _passes_fresh.clear()
+    return rows
+
+
+def give_grating_passes(rows) -> None:
+    """Take gratings another process judged (:func:`take_grating_passes`); a row
+    serves only a rule equal to the one it was judged under."""
+    if len(_passes_given) + len(rows) > 65536:
+        _passes_given.clear()
+    for *key, passes in rows:
+        _passes_given[tuple(key)] = passes
+
+
+@lru_cache(maxsize=4096)
+def _grating_passes(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
+    """True when an ideal grating of this CD and pitch (wafer nm) breaks no limit."""
+    key = (_rule_values(rule), cd_q, pitch_q, angle_q, quantum)
+    given = _passes_given.get(key)
+    if given is not None:
+        return given
+    passes = _judge_grating(rule, cd_q, pitch_q, angle_q, quantum)
+    _passes_fresh.append((*key, passes))
+    return passes
+
+
+def forget_grating_passes() -> None:
+    """Drop every judged grating this process holds, its own and those given to it."""
+    _grating_passes.cache_clear()
+    _passes_given.clear()
+    _passes_fresh.clear()
+
+
+def _judge_grating(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
+    from pitchguard.optics.cut_images import grating_metrics
+
+    if not _grating_orders_ok(rule, pitch_q, angle_q, quantum):
+        return False
+    if not rule.image_checks:
+        return True
+    cd, pitch, angle = cd_q * quantum, pitch_q * quantum, angle_q / 10.0
+    res = analyse_pitch(rule.exposure, pitch, (angle - 90.0) % 180.0)
+    m, _, _ = grating_metrics(rule, pitch, cd, angle)
+    return not violations(rule, res, m, pitch)
+
+
+def passing_pitch(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: float) -> float:
+    """Nearest pitch (wafer nm) at this CD whose ideal grating breaks no limit, or nan.
+
+    ``angle_deg`` is the pitch direction.  Pitches on a grid of lambda/NA / 20
+    between 0.6x and 2x the flagged pitch are tried nearest first; those that
+    pass the order and k1 rules are imaged, at most ``HINT_IMAGES`` of them.
+    """
+    quantum = rule.exposure.lambda_over_na_nm / 20.0
+    cd_q = int(round(cd_nm / quantum))
+    angle_q = int(round((angle_deg % 180.0) * 10))
+    lo = max(int(math.ceil(HINT_RANGE[0] * pitch_nm / quantum)), int(cd_q * 1.05) + 1)
+    hi = int(HINT_RANGE[1] * pitch_nm / quantum)
+    here = pitch_nm / quantum
+    imaged = 0
+    for q in sorted(range(lo, hi + 1), key=lambda q: (abs(q - here), q)):
+        if not _grating_orders_ok(rule, q, angle_q, quantum):
+            continue
+        if _grating_passes(rule, cd_q, q, angle_q, quantum):
+            return q * quantum
+        imaged += 1
+        if imaged >= HINT_IMAGES:
+            break
+    return math.nan
+
+
+def hint_key(
+    vs: list[Violation] | tuple,
+    cutoff_pitch_nm: float,
+    cd_w: float,
+    pitch_w: float,
+    angle: float,
+    scale: float,
+) -> tuple:
+    """All a finding's hint depends on, besides its layer's rule (plain values)."""
+    return (tuple(v.check for v in vs), cutoff_pitch_nm, cd_w, pitch_w, angle, scale)
+
+
+def hint_text(rule: LayerRule, key: tuple) -> str:
+    """What to change, in drawn nm (kept per process: hints recur)."""
+    return _hint_cached(rule, *key)
+
+
+@lru_cache(maxsize=65536)
+def _hint_cached(
+    rule: LayerRule,
+    checks: tuple[str, ...],
+    cutoff_pitch_nm: float,
+    cd_w: float,
+    pitch_w: float,
+    angle: float,
+    scale: float,
+) -> str:
+    first = checks[0]
+    feature = "line" if rule.field == "clear" else "opening"
+    if first == "unresolvable-pitch":
+        need = cutoff_pitch_nm / scale
+        return (
+            f"widen the pitch to at least {math.ceil(need * 10) / 10:.1f} nm, or use "
+            "illumination that reaches further along the pitch direction"
+        )
+    if all(c == "low-k1" for c in checks):
+        need = 2.0 * rule.k1_marginal_below * rule.exposure.lambda_over_na_nm / scale
+        return (
+            f"a pitch of at least {math.ceil(need * 10) / 10:.1f} nm reaches k1 "
+            f"{rule.k1_marginal_below:g}"
+        )
+    if not math.isfinite(cd_w) or not math.isfinite(pitch_w):
+        return f"widen the {feature} or give it neighbours at a regular pitch"
+    ok = passing_pitch(rule, cd_w, pitch_w, angle)
+    if math.isnan(ok):
+        return (
+            f"no nearby pitch passes at this {feature} width: widen the {feature}, or "
+            "change the exposure (try `pitchguard sweep` for this layer and width)"
+        )
+    p_d, s_d = ok / scale, (ok - cd_w) / scale
+    return f"at this {feature} width, pitch {p_d:.1f} nm (space {s_d:.1f} nm) passes every limit"

@@ -1,0 +1,1 @@
+"""Optics: diffraction orders, aerial images, the resist stand-in, imaging of cuts through focus."""

@@ -1,0 +1,312 @@
+"""The image stage: each distinct cut and ideal grating imaged through focus, into Metrics."""
+
+from __future__ import annotations
+
+import math
+from functools import lru_cache
+
+import numpy as np
+
+from pitchguard.deck import Exposure, LayerRule
+from pitchguard.geometry.cuts import Cut, cut_segments, window_period
+from pitchguard.optics.aerial import (
+    CoherentSystems,
+    Optics,
+    PupilFrame,
+    grating_spectrum,
+    mask_amplitudes,
+    n_orders,
+    segment_spectrum,
+    source_points,
+)
+from pitchguard.optics.resist import Metrics, evaluate
+
+BATCH = 256
+"""Cuts imaged per batch (bounds memory: focus x batch x samples x kernels)."""
+
+
+CUT_CACHE_MAX = 50_000
+"""Metrics of imaged cuts kept per process (about 0.5 kB each); the cache is
+emptied when it would grow past this."""
+
+
+_imaged: dict[tuple, Metrics] = {}
+
+
+_imaged_stats = {"hits": 0, "misses": 0}
+
+
+_fresh: list[tuple] = []  # keys imaged here since the last take_imaged()
+
+
+def cut_cache_info() -> dict[str, int]:
+    """This process's cut-metrics cache: ``hits``, ``misses`` and ``size``."""
+    return {**_imaged_stats, "size": len(_imaged)}
+
+
+def clear_cut_cache() -> None:
+    _imaged.clear()
+    _fresh.clear()
+    _imaged_stats.update(hits=0, misses=0)
+
+
+def _rule_key(rule: LayerRule, scale_to_wafer: float) -> tuple:
+    """All of a layer's rule that a cut's metrics depend on."""
+    return (
+        rule.exposure,
+        rule.field,
+        rule.interaction_range_nm,
+        rule.focus_nm,
+        rule.anchor,
+        rule.cd_tolerance_pct,
+        rule.el_min_pct,
+        scale_to_wafer,
+    )
+
+
+def take_imaged() -> list[tuple]:
+    """The cuts imaged in this process since the last call, to share with other
+    processes: rows ``(rule key, angle, bounds, reach, metrics)``, keyed by the
+    values of the rule they were imaged under (see :func:`give_imaged`)."""
+    rows = [(*k, _imaged[k]) for k in _fresh if k in _imaged]
+    _fresh.clear()
+    return rows
+
+
+def give_imaged(rows) -> None:
+    """Take cuts another process imaged (:func:`take_imaged`); a row serves only
+    layers whose exposure and limits equal those it was imaged under."""
+    if len(_imaged) + len(rows) > CUT_CACHE_MAX:
+        _imaged.clear()
+    for *key, m in rows:
+        _imaged.setdefault(tuple(key), m)
+
+
+def samples_for(period_nm: float, n_max: int, optics: Optics) -> int:
+    """FFT samples per period: at least 4x the orders, and a step of at most
+    lambda/NA / 128 (about 1 nm at ArF immersion)."""
+    step = optics.wavelength_nm / optics.na / 128.0
+    need = max(4 * n_max + 1, int(math.ceil(period_nm / step)), 64)
+    return 1 << (need - 1).bit_length()
+
+
+@lru_cache(maxsize=64)
+def _frame(exposure: Exposure, angle_deg: float, period_nm: float, n_max: int) -> PupilFrame:
+    return PupilFrame(Optics.of(exposure), source_points(exposure, angle_deg), period_nm, n_max)
+
+
+@lru_cache(maxsize=512)
+def coherent_systems(
+    exposure: Exposure, angle_deg: float, period_nm: float, n_max: int, focus_nm: float
+):
+    """The imaging systems at one focus.  Those at ``-z`` are the conjugates of
+    those at ``+z`` (:meth:`CoherentSystems.through_opposite_focus`): a deck's
+    focus values mostly come in such pairs, and each pair costs one TCC."""
+    if focus_nm < 0:
+        return coherent_systems(
+            exposure, angle_deg, period_nm, n_max, -focus_nm
+        ).through_opposite_focus()
+    return CoherentSystems.from_frame(
+        _frame(exposure, angle_deg, period_nm, n_max), period_nm, n_max, focus_nm
+    )
+
+
+def anchor_threshold(rule: LayerRule) -> float | None:
+    """Nominal threshold: the image at the drawn edge of the anchor grating, best focus."""
+    if rule.anchor is None:
+        return None
+    p, cd = rule.anchor.pitch_nm, rule.anchor.cd_nm
+    e = rule.exposure
+    optics = Optics.of(e)
+    n_max = n_orders(p, optics, e.sigma_max)
+    feat, bg = mask_amplitudes(e, rule.field)
+    spec = grating_spectrum(p, cd, feat, bg, n_max)
+    # Lines along y (pitch along x): angle 0.  Symmetric grating: both edges alike.
+    inten, _ = coherent_systems(e, 0.0, p, n_max, 0.0).at(spec, np.array([cd / 2.0]))
+    return float(inten[0, 0])
+
+
+def _centred_grid(period_nm: float, samples: int) -> tuple[np.ndarray, np.ndarray]:
+    """x on [-P/2, P/2) and the permutation from FFT order (x = k P / M) to it."""
+    x = np.arange(samples) * period_nm / samples
+    order = np.roll(np.arange(samples), samples // 2)
+    xs = x[order]
+    xs = np.where(xs >= period_nm / 2, xs - period_nm, xs)
+    return xs, order
+
+
+def measure_cuts(
+    cuts: list[Cut], angles_deg: list[float], rule: LayerRule, scale_to_wafer: float
+) -> list[Metrics]:
+    """Metrics of every cut (drawn nm) for one layer; ``angles_deg[k]`` turns cut k's source.
+
+    A cut's metrics depend only on its profile, its source turn and the
+    layer's exposure and limits, so they are kept per process: the tiles of
+    a tiled scan repeat each other's cuts, and a worker images each distinct
+    cut once, whichever tiles it meets it in (and none that another worker
+    imaged before its tile started: see :func:`take_imaged`).
+    """
+    if not cuts:
+        return []
+    rule_key = _rule_key(rule, scale_to_wafer)
+    keys = [
+        (rule_key, round(a, 1) % 180.0, c.bounds, c.reach)
+        for c, a in zip(cuts, angles_deg, strict=True)
+    ]
+    known = [_imaged.get(k) for k in keys]
+    todo = [k for k, m in enumerate(known) if m is None]
+    _imaged_stats["hits"] += len(cuts) - len(todo)
+    _imaged_stats["misses"] += len(todo)
+    if todo:
+        fresh = measure_one(
+            [cuts[k] for k in todo], [angles_deg[k] for k in todo], rule, scale_to_wafer
+        )
+        if len(_imaged) + len(todo) > CUT_CACHE_MAX:
+            _imaged.clear()
+        for k, m in zip(todo, fresh, strict=True):
+            known[k] = _imaged[keys[k]] = m
+            _fresh.append(keys[k])
+    return known  # type: ignore[return-value]
+
+
+def measure_one(
+    cuts: list[Cut], angles_deg: list[float], rule: LayerRule, scale_to_wafer: float
+) -> list[Metrics]:
+    """:func:`measure_cuts` without the cache."""
+    e = rule.exposure
+    optics = Optics.of(e)
+    reach = rule.interaction_range_nm
+    period = window_period(reach, e.lambda_over_na_nm)
+    n_max = n_orders(period, optics, e.sigma_max)
+    samples = samples_for(period, n_max, optics)
+    x, order = _centred_grid(period, samples)
+    feat, bg = mask_amplitudes(e, rule.field)
+    focus = np.array(rule.focus_nm)
+    best = int(np.argmin(np.abs(focus)))
+    t_nom = anchor_threshold(rule)
+    tol = rule.cd_tolerance_pct / 100.0
+    bright = rule.field == "dark"
+    out: list[Metrics | None] = [None] * len(cuts)
+
+    scaled = [
+        Cut(tuple(v * scale_to_wafer for v in c.bounds), c.reach * scale_to_wafer) for c in cuts
+    ]
+    groups: dict[float, list[int]] = {}
+    for k, a in enumerate(angles_deg):
+        groups.setdefault(round(a, 1) % 180.0, []).append(k)
+    for angle, members in groups.items():
+        for c0 in range(0, len(members), BATCH):
+            idx = members[c0 : c0 + BATCH]
+            segs = [cut_segments(scaled[k], period) for k in idx]
+            width = max(len(s[0]) for s in segs)
+            edges = np.full((len(idx), width), period / 2)
+            values = np.zeros((len(idx), width - 1), dtype=np.complex128)
+            for r, (ed, mat) in enumerate(segs):
+                edges[r, : len(ed)] = ed
+                values[r, : len(mat)] = np.where(mat, feat, bg)
+            spectra = segment_spectrum(period, edges, values, n_max)
+            stack = np.stack(
+                [
+                    coherent_systems(e, angle, period, n_max, float(z)).image(spectra, samples)[
+                        :, order
+                    ]
+                    for z in focus
+                ]
+            )  # (F, m, X)
+            feats = [scaled[k].feature for k in idx]
+            pts = np.array([[lft, rgt] for lft, rgt in feats])
+            i_e, d_e = coherent_systems(e, angle, period, n_max, float(focus[best])).at(
+                spectra, pts
+            )
+            for r, k in enumerate(idx):
+                lft, rgt = feats[r]
+                out[k] = evaluate(
+                    x,
+                    stack[:, r, :],
+                    focus,
+                    (lft, rgt),
+                    scaled[k].search,
+                    bright,
+                    rgt - lft,
+                    t_nom,
+                    tol,
+                    rule.el_min_pct,
+                    (i_e[r], d_e[r]),
+                )
+    return out  # type: ignore[return-value]
+
+
+def grating_metrics(
+    rule: LayerRule,
+    pitch_nm: float,
+    cd_nm: float,
+    angle_deg: float = 0.0,
+    focus_nm: tuple[float, ...] | None = None,
+) -> tuple[Metrics, np.ndarray, np.ndarray]:
+    """Metrics of an ideal grating (wafer nm), plus its best-focus image over one period.
+
+    Returns ``(metrics, x_nm, intensity)`` with ``x = 0`` at the centre of the
+    drawn feature.  ``angle_deg`` is the pitch direction (0: lines along y).
+    """
+    e = rule.exposure
+    optics = Optics.of(e)
+    n_max = n_orders(pitch_nm, optics, e.sigma_max)
+    samples = samples_for(pitch_nm, n_max, optics)
+    x, order = _centred_grid(pitch_nm, samples)
+    feat, bg = mask_amplitudes(e, rule.field)
+    spec = grating_spectrum(pitch_nm, cd_nm, feat, bg, n_max)
+    focus = np.array(focus_nm if focus_nm is not None else rule.focus_nm)
+    best = int(np.argmin(np.abs(focus)))
+    stack = np.stack(
+        [
+            coherent_systems(e, angle_deg, pitch_nm, n_max, float(z)).image(spec, samples)[0, order]
+            for z in focus
+        ]
+    )
+    h = cd_nm / 2.0
+    i_e, d_e = coherent_systems(e, angle_deg, pitch_nm, n_max, float(focus[best])).at(
+        spec, np.array([-h, h])
+    )
+    m = evaluate(
+        x,
+        stack,
+        focus,
+        (-h, h),
+        (-pitch_nm / 2, pitch_nm / 2),
+        rule.field == "dark",
+        cd_nm,
+        anchor_threshold(rule),
+        rule.cd_tolerance_pct / 100.0,
+        rule.el_min_pct,
+        (i_e[0], d_e[0]),
+    )
+    return m, x, stack[best]
+
+
+def cut_image(
+    rule: LayerRule, bounds_nm: tuple[float, ...], angle_deg: float, focus_nm: float = 0.0
+) -> tuple[np.ndarray, np.ndarray]:
+    """Aerial image ``(x_nm, intensity)`` of a cut given by its material boundaries.
+
+    ``bounds_nm`` are wafer nm relative to the feature centre (as in
+    :attr:`pitchguard.classify.Finding.cut_bounds_nm`); ``x`` spans the cut.
+    """
+    e = rule.exposure
+    optics = Optics.of(e)
+    period = window_period(rule.interaction_range_nm, e.lambda_over_na_nm)
+    n_max = n_orders(period, optics, e.sigma_max)
+    samples = samples_for(period, n_max, optics)
+    x, order = _centred_grid(period, samples)
+    feat, bg = mask_amplitudes(e, rule.field)
+    edges, mat = cut_segments(Cut(tuple(bounds_nm), rule.interaction_range_nm), period)
+    spec = segment_spectrum(period, edges, np.where(mat, feat, bg), n_max)
+    angle = (
+        0.0
+        if e.illumination.shape in ("coherent", "conventional", "annular")
+        else round(angle_deg, 1) % 180.0
+    )
+    inten = coherent_systems(e, angle, period, n_max, float(focus_nm)).image(spec, samples)[
+        0, order
+    ]
+    keep = np.abs(x) <= rule.interaction_range_nm
+    return x[keep], inten[keep]

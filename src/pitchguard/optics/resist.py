@@ -1,0 +1,239 @@
+"""From aerial image to printed result: the constant-threshold resist stand-in."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+THRESHOLD_SAMPLES = 512
+"""Thresholds tried per profile when inverting CD(threshold)."""
+
+
+@dataclass(frozen=True)
+class Metrics:
+    """Printing metrics of one drawn feature; lengths in nm (wafer)."""
+
+    contrast: float
+    nils: float
+    cd_nm: float  # printed CD at the nominal threshold, best focus (0: lost, inf: bridged)
+    cd_error_pct: float  # (cd - drawn) / drawn, % (nan when the dose is not anchored)
+    lost: bool
+    bridged: bool
+    el_pct: float  # at best focus
+    dof_nm: float  # at el_min_pct
+    threshold: float  # nominal threshold (relative to the open frame)
+    dose_to_size: float  # relative to the nominal dose (nan when never on size)
+
+
+def _edges_for_thresholds(x, g, lo_idx, c_idx, hi_idx, t):
+    """Printed edges around index ``c_idx`` for every threshold in ``t``.
+
+    ``g`` prints where ``g < t``.  Going out from the centre, an edge is where
+    ``g`` first reaches ``t``; found for all thresholds at once from the
+    running maxima.  Returns ``(left, right)`` arrays: ``nan`` where the
+    feature is lost (``g[c] >= t``), ``-inf``/``+inf`` where no crossing lies
+    inside ``[lo_idx, hi_idx]`` (the feature runs into its neighbour).
+    """
+    left_part = g[lo_idx : c_idx + 1][::-1]  # from the centre outward
+    right_part = g[c_idx : hi_idx + 1]
+    lx = x[lo_idx : c_idx + 1][::-1]
+    rx = x[c_idx : hi_idx + 1]
+
+    def side(part, px):
+        run = np.maximum.accumulate(part)
+        k = np.searchsorted(run, t, side="left")  # first index with run >= t
+        ok = (k > 0) & (k < len(part))
+        kk = np.clip(k, 1, len(part) - 1)
+        g0, g1 = part[kk - 1], part[kk]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            frac = np.where(g1 != g0, (t - g0) / (g1 - g0), 0.0)
+        pos = px[kk - 1] + frac * (px[kk] - px[kk - 1])
+        return np.where(ok, pos, np.where(k == 0, np.nan, np.inf * np.sign(px[-1] - px[0])))
+
+    return side(left_part, lx), side(right_part, rx)
+
+
+def cd_of_thresholds(x, inten, centre_nm, lo_nm, hi_nm, bright, t):
+    """Printed CD for each threshold in ``t`` (0 where lost, inf where bridged)."""
+    g = -inten if bright else inten
+    tt = -t if bright else t
+    c_idx = int(np.argmin(np.abs(x - centre_nm)))
+    lo_idx = int(np.searchsorted(x, lo_nm, side="left"))
+    hi_idx = int(np.searchsorted(x, hi_nm, side="right")) - 1
+    lo_idx = min(max(lo_idx, 0), c_idx)
+    hi_idx = max(min(hi_idx, len(x) - 1), c_idx)
+    left, right = _edges_for_thresholds(x, g, lo_idx, c_idx, hi_idx, tt)
+    cd = right - left
+    cd = np.where(np.isnan(cd), 0.0, cd)
+    return np.where(np.isinf(left) | np.isinf(right), np.inf, cd)
+
+
+def _threshold_window(t, cd, target, tol):
+    """(t_size, t_a, t_b): threshold on size, and the range keeping CD in tolerance.
+
+    CD grows with the threshold for a dark feature and shrinks for a bright
+    one; either way the window is the contiguous threshold range around
+    ``t_size`` where ``|cd - target| <= tol target``.  ``nan`` when never in
+    tolerance.
+    """
+    ok = np.isfinite(cd) & (np.abs(cd - target) <= tol * target)
+    if not ok.any():
+        return math.nan, math.nan, math.nan
+    # Threshold on size: where cd - target changes sign (linear interpolation).
+    diff = np.where(np.isfinite(cd), cd - target, np.nan)
+    size = math.nan
+    best = np.nanargmin(np.abs(diff))
+    for k in (best - 1, best):
+        if (
+            0 <= k < len(t) - 1
+            and np.isfinite(diff[k])
+            and np.isfinite(diff[k + 1])
+            and diff[k] * diff[k + 1] <= 0
+            and diff[k] != diff[k + 1]
+        ):
+            size = t[k] + (t[k + 1] - t[k]) * (-diff[k]) / (diff[k + 1] - diff[k])
+            break
+    if math.isnan(size):
+        size = t[best]
+    # Contiguous run of in-tolerance thresholds that contains the size threshold.
+    k0 = int(np.argmin(np.abs(t - size)))
+    if not ok[k0]:
+        k0 = int(np.flatnonzero(ok)[np.argmin(np.abs(np.flatnonzero(ok) - k0))])
+    a = k0
+    while a > 0 and ok[a - 1]:
+        a -= 1
+    b = k0
+    while b < len(t) - 1 and ok[b + 1]:
+        b += 1
+    return size, t[a], t[b]
+
+
+def evaluate(
+    x: np.ndarray,
+    images: np.ndarray,
+    focus_nm: np.ndarray,
+    feature: tuple[float, float],
+    search: tuple[float, float],
+    bright: bool,
+    drawn_cd: float,
+    nominal_threshold: float | None,
+    tol: float,
+    el_min_pct: float,
+    edge_values: tuple[np.ndarray, np.ndarray] | None = None,
+) -> Metrics:
+    """Metrics of one feature from its images through focus.
+
+    Parameters
+    ----------
+    x
+        Sample positions (nm, increasing) shared by all images.
+    images
+        ``(n_focus, len(x))`` intensities; ``focus_nm`` the matching focus
+        values; the one closest to 0 is best focus.
+    feature
+        Drawn feature ``(left, right)`` in nm.
+    search
+        Where its printed edges may lie ``(lo, hi)``: beyond, it has run into
+        a neighbour (the middle of each neighbouring space).
+    bright
+        True for an opening (prints where the image is above threshold).
+    nominal_threshold
+        The anchored threshold; None to size every feature at its own dose.
+    edge_values
+        ``(I, dI/dx)`` at the two drawn edges at best focus (exact values from
+        the engine); estimated from the samples when not given.
+    """
+    best = int(np.argmin(np.abs(focus_nm)))
+    inten0 = images[best]
+    left, right = feature
+    centre = 0.5 * (left + right)
+    lo, hi = search
+    region = (x >= min(lo, left)) & (x <= max(hi, right))
+    imax, imin = float(inten0[region].max()), float(inten0[region].min())
+    contrast = (imax - imin) / (imax + imin) if imax + imin > 0 else 0.0
+    if edge_values is None:
+        i_e = np.interp([left, right], x, inten0)
+        d_e = np.interp([left, right], x, np.gradient(inten0, x))
+    else:
+        i_e, d_e = edge_values
+    with np.errstate(divide="ignore", invalid="ignore"):
+        nils_each = drawn_cd * np.abs(d_e) / i_e
+    nils = float(np.nanmin(nils_each)) if np.all(i_e > 0) else 0.0
+
+    span_lo, span_hi = float(images.min()), float(images.max())
+    t = np.linspace(span_lo, span_hi, THRESHOLD_SAMPLES)
+    windows = []
+    for f in range(len(focus_nm)):
+        cd = cd_of_thresholds(x, images[f], centre, lo, hi, bright, t)
+        windows.append(_threshold_window(t, cd, drawn_cd, tol))
+    t_size, ta, tb = windows[best]
+    if nominal_threshold is None:
+        edge_mean = float(np.interp([left, right], x, inten0).mean())
+        t_nom = t_size if math.isfinite(t_size) else edge_mean
+    else:
+        t_nom = nominal_threshold
+    cd_nom = float(cd_of_thresholds(x, inten0, centre, lo, hi, bright, np.array([t_nom]))[0])
+    lost = cd_nom <= 0.0
+    bridged = math.isinf(cd_nom)
+    cd_err = math.nan
+    if nominal_threshold is not None and not lost and not bridged:
+        cd_err = 100.0 * (cd_nom - drawn_cd) / drawn_cd
+    el = _el_pct(windows[best : best + 1], t_size, bright)
+    dof = _dof(focus_nm, windows, t_size, bright, el_min_pct)
+    # Dose D prints like threshold t_nom / D, so the dose on size is t_nom / t_size.
+    dts = t_nom / t_size if (math.isfinite(t_size) and t_size > 0) else math.nan
+    # Python floats, not numpy scalars: metrics travel between processes in
+    # every tiled scan, and a numpy scalar pickles to 5x the bytes, slower.
+    return Metrics(
+        contrast=float(contrast),
+        nils=nils,
+        cd_nm=cd_nom,
+        cd_error_pct=float(cd_err),
+        lost=lost,
+        bridged=bridged,
+        el_pct=float(el),
+        dof_nm=float(dof),
+        threshold=float(t_nom),
+        dose_to_size=float(dts),
+    )
+
+
+def _dose_range(window, bright):  # noqa: ARG001 - same for both tones
+    """Relative dose range (1/threshold) of a threshold window."""
+    _, ta, tb = window
+    if not (math.isfinite(ta) and math.isfinite(tb)) or ta <= 0:
+        return math.nan, math.nan
+    # Dose D prints like threshold t0 / D: the window [ta, tb] is doses [1/tb, 1/ta].
+    return 1.0 / tb, 1.0 / ta
+
+
+def _el_pct(windows, t_size, bright) -> float:
+    """Common dose latitude of several focus windows, in % of the dose-to-size."""
+    if not math.isfinite(t_size) or t_size <= 0:
+        return 0.0
+    lows, highs = [], []
+    for w in windows:
+        d0, d1 = _dose_range(w, bright)
+        if math.isnan(d0):
+            return 0.0
+        lows.append(d0)
+        highs.append(d1)
+    width = min(highs) - max(lows)
+    return max(0.0, 100.0 * width * t_size)
+
+
+def _dof(focus_nm, windows, t_size, bright, el_min_pct) -> float:
+    """Longest contiguous focus span (containing best focus or not) keeping EL >= el_min."""
+    order = np.argsort(focus_nm)
+    f = np.asarray(focus_nm)[order]
+    w = [windows[k] for k in order]
+    best = 0.0
+    for i in range(len(f)):
+        for j in range(i, len(f)):
+            if _el_pct(w[i : j + 1], t_size, bright) >= el_min_pct:
+                best = max(best, float(f[j] - f[i]))
+            else:
+                break
+    return best

@@ -1,0 +1,1 @@
+"""Outputs: exit code, terminal table, JSON, SARIF, JUnit, markers, baselines, plots, HTML."""

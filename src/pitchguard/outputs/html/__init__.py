@@ -1,0 +1,1 @@
+"""The HTML report: grouped findings with pictures of the layout and the aerial image."""

@@ -1,0 +1,57 @@
+"""Escaping and number formats of the HTML report."""
+
+from __future__ import annotations
+
+import html
+import math
+
+from pitchguard.deck import LayerRule
+
+
+def esc(text) -> str:
+    """Text content (quotes stay readable)."""
+    return html.escape(str(text), quote=False)
+
+
+def attr_text(text) -> str:
+    """An attribute value (quotes escaped too)."""
+    return html.escape(str(text), quote=True)
+
+
+def html_number(v: float, fmt: str = ".1f", unit: str = "") -> str:
+    if v is None or not math.isfinite(v):
+        return "&ndash;"
+    return f"{v:{fmt}}{unit}"
+
+
+def orders_text(orders: tuple[int, ...]) -> str:
+    if not orders:
+        return "none"
+    top = max(abs(o) for o in orders)
+    if set(orders) == set(range(-top, top + 1)):
+        return "0 only" if top == 0 else ("0, ±1" if top == 1 else f"0, ±1 … ±{top}")
+    return ", ".join(f"{o:+d}" if o else "0" for o in sorted(orders))
+
+
+def value_vs_limit(check: str, value: float, limit: float) -> str:
+    """A violation's value against its limit, in words a designer reads."""
+    forms = {
+        "unresolvable-pitch": lambda v, lim: (
+            f"pitch {v:.1f} nm &lt; smallest imageable {lim:.1f} nm"
+        ),
+        "low-k1": lambda v, lim: f"k1 {v:.3f} &lt; {lim:g}",
+        "feature-not-printed": lambda v, lim: f"image contrast {v:.3f}; no threshold crossing",
+        "features-bridged": lambda v, lim: f"image contrast {v:.3f}; printed into neighbour",
+        "low-nils": lambda v, lim: f"NILS {v:.2f} &lt; {lim:g}",
+        "low-exposure-latitude": lambda v, lim: f"EL {v:.1f} % &lt; {lim:g} %",
+        "low-depth-of-focus": lambda v, lim: f"DOF {v:.0f} nm &lt; {lim:.0f} nm",
+        "cd-error": lambda v, lim: f"CD error {v:+.1f} % outside ±{lim:g} %",
+    }
+    if not (math.isfinite(value) and math.isfinite(limit)):
+        return f"{esc(value)} against {esc(limit)}"
+    form = forms.get(check)
+    return form(value, limit) if form else f"{value:.4g} against {limit:.4g}"
+
+
+def feature_word(rule: LayerRule | None) -> str:
+    return "opening" if rule is not None and rule.field == "dark" else "line"

@@ -1,0 +1,232 @@
+"""The JSON report, streamed."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Sequence
+from pathlib import Path
+
+import numpy as np
+
+from pitchguard import __version__
+from pitchguard.deck import Deck
+from pitchguard.judge.findings import Finding, FindingSet
+from pitchguard.outputs.files import atomic_write
+from pitchguard.outputs.rows import PlacedRows, Rows, hole, placed_fields, placed_numbers
+from pitchguard.outputs.verdict import CAUTION, exit_code, severity_counts
+from pitchguard.run.scan import ScanResult
+
+
+def json_number(x) -> float | None:
+    """A plain float, or None for inf and nan (JSON has neither)."""
+    x = float(x)
+    return x if x - x == 0.0 else None  # inf - inf and nan - nan are nan
+
+
+def json_numbers(xs) -> list:
+    return [json_number(x) for x in xs]
+
+
+def clean_json(obj):
+    """JSON-safe copy: non-finite floats become null, numpy scalars plain numbers."""
+    if isinstance(obj, dict):
+        return {k: clean_json(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [clean_json(v) for v in obj]
+    if isinstance(obj, float | np.floating):
+        return json_number(obj)
+    if isinstance(obj, np.integer):
+        return int(obj)
+    return obj
+
+
+def finding_to_dict(f: Finding, holes: bool = False) -> dict:
+    """A finding as plain JSON values (built field by field: a chip's report makes
+    10^5-10^6 of these, so no generic cleaning pass).  With ``holes`` the values
+    that depend on the place (see :func:`placed_fields`) are markers
+    (:func:`hole`), for :class:`PlacedRows`."""
+    if holes:
+        bbox, centre, outline = hole("bbox_um"), hole("centre_um"), hole("outline_um")
+        origin = hole("origin_um")
+    else:
+        b, c, points, o = placed_numbers(f, 0.0, 0.0)
+        bbox, centre, outline, origin = (
+            json_numbers(b),
+            json_numbers(c),
+            [json_numbers(p) for p in points],
+            json_numbers(o),
+        )
+    return {
+        "layer": f.layer,
+        "source": f.source,
+        "exposure": f.exposure,
+        "check": f.check,
+        "severity": f.severity,
+        "pitch_nm": json_number(f.pitch_nm),
+        "pitch_max_nm": json_number(f.pitch_max_nm),
+        "width_nm": json_number(f.width_nm),
+        "space_nm": json_number(f.space_nm),
+        "wafer_pitch_nm": json_number(f.wafer_pitch_nm),
+        "k1": json_number(f.k1),
+        "orientation_deg": json_number(f.orientation_deg),
+        "bbox_um": bbox,
+        "centre_um": centre,
+        "outline_um": outline,
+        "orders": [int(o) for o in f.orders],
+        "orders_on_axis": [int(o) for o in f.orders_on_axis],
+        "two_beam_fraction": json_number(f.two_beam_fraction),
+        "cutoff_pitch_nm": json_number(f.cutoff_pitch_nm),
+        "lines": int(f.lines),
+        "periodicity": f.periodicity,
+        "sites": int(f.sites),
+        "run_nm": json_number(f.run_nm),
+        "limit": f.limit,
+        "message": f.message,
+        "hint": f.hint,
+        "contrast": json_number(f.contrast),
+        "nils": json_number(f.nils),
+        "printed_cd_nm": json_number(f.cd_nm),
+        "cd_error_pct": json_number(f.cd_error_pct),
+        "exposure_latitude_pct": json_number(f.el_pct),
+        "depth_of_focus_nm": json_number(f.dof_nm),
+        "worst_line": f.context or None,
+        "cut": {
+            "bounds_nm": json_numbers(f.cut_bounds_nm),
+            "angle_deg": json_number(f.cut_angle_deg),
+            "origin_um": origin,
+            "threshold": json_number(f.threshold),
+        }
+        if f.cut_bounds_nm
+        else None,
+        "checks": [
+            {
+                "check": v.check,
+                "severity": v.severity,
+                "value": json_number(v.value),
+                "limit": json_number(v.limit),
+                "message": v.message,
+            }
+            for v in f.violations
+        ],
+    }
+
+
+def finding_rows(findings: Sequence[Finding]) -> Rows:
+    """:func:`finding_to_dict` of each finding, made as it is written."""
+    if not isinstance(findings, FindingSet):
+        return Rows(findings, finding_to_dict)
+    return PlacedRows(
+        findings,
+        lambda k: finding_to_dict(findings[k]),
+        lambda d: finding_to_dict(findings.distinct[d], holes=True),
+        lambda k, f, dx, dy: placed_fields(f, dx, dy),
+    )
+
+
+def to_json(result: ScanResult, deck: Deck, fail_on: str, lazy: bool = False) -> dict:
+    """The JSON report of a scan; with ``lazy`` its findings are :class:`Rows`, made
+    as they are written (for :func:`write_json`)."""
+    lay = result.layout
+    by_layer = {}
+    for st in result.layers:
+        counts = severity_counts(result.findings, st.name)
+        ex = st.extract
+        by_layer[st.name] = {
+            "source": st.source,
+            **counts,
+            "shapes": st.shapes,
+            "features": ex.features,
+            "edges": ex.edges,
+            "sites": ex.sites,
+            "edges_2d": ex.short_edges,
+            "pieces_2d": ex.pieces_2d,
+            "isolated_edges": ex.isolated_sites,
+            **ex.extra,
+            "seconds": round(st.seconds, 3),
+        }
+    return {
+        "tool": {"name": "pitchguard", "version": __version__},
+        "caution": CAUTION,
+        "layout": {
+            "path": str(lay.path) if lay else None,
+            "format": lay.format if lay else None,
+            "cells": list(lay.cells) if lay else [],
+            "unit_m": lay.unit_m if lay else None,
+            "grid_nm": lay.grid_nm if lay else None,
+        },
+        "deck": {
+            "path": str(deck.path) if deck.path else None,
+            "name": deck.name,
+            "drawn_scale": deck.drawn_scale,
+            "reduction": deck.reduction,
+        },
+        "findings": finding_rows(result.findings)
+        if lazy
+        else [finding_to_dict(f) for f in result.findings],
+        "summary": {
+            "findings": len(result.findings),
+            "by_severity": severity_counts(result.findings),
+            "by_layer": by_layer,
+            "fail_on": fail_on,
+            "tiling": result.tiling,
+            "exit_code": exit_code(result.findings, fail_on),
+            "seconds": round(result.seconds, 3),
+            "warnings": result.warnings,
+        },
+    }
+
+
+def dump_json(value, fh, ensure_ascii: bool = True, level: int = 0) -> None:
+    """Write ``value`` as JSON to ``fh``, a piece at a time.
+
+    Objects are indented by two spaces.  A list of several objects or lists
+    is written one compact line per item (by the C encoder: fast, and a diff
+    of two reports shows whole findings); a list holding one container is
+    expanded like an object; a list of plain values is one line.  Nothing
+    the size of the whole file is built in memory.
+    """
+    pad = "  " * (level + 1)
+
+    def one(v) -> str:
+        return json.dumps(v, ensure_ascii=ensure_ascii, allow_nan=False)
+
+    if isinstance(value, dict):
+        if not value:
+            fh.write("{}")
+            return
+        fh.write("{\n")
+        for k, (key, v) in enumerate(value.items()):
+            fh.write(pad + one(str(key)) + ": ")
+            dump_json(v, fh, ensure_ascii, level + 1)
+            fh.write(",\n" if k < len(value) - 1 else "\n")
+        fh.write("  " * level + "}")
+    elif isinstance(value, (list, tuple, Rows)):
+        if len(value) == 0:
+            fh.write("[]")
+        elif len(value) == 1 and isinstance(value[0], (dict, list, tuple)):
+            fh.write("[\n" + pad)
+            dump_json(value[0], fh, ensure_ascii, level + 1)
+            fh.write("\n" + "  " * level + "]")
+        elif not isinstance(value, Rows) and not any(
+            isinstance(v, (dict, list, tuple)) for v in value
+        ):
+            fh.write(one(list(value)))
+        else:
+            fh.write("[\n")
+            texts = value.texts(one) if isinstance(value, PlacedRows) else map(one, value)
+            for k, text in enumerate(texts):
+                fh.write(pad + text + (",\n" if k < len(value) - 1 else "\n"))
+            fh.write("  " * level + "]")
+    else:
+        fh.write(one(value))
+
+
+def write_json(out: Path, payload: dict, inputs: list[Path], ensure_ascii: bool = True) -> None:
+    """Write ``payload`` (see :func:`dump_json`) to ``out`` atomically."""
+
+    def w(tmp: Path) -> None:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            dump_json(payload, fh, ensure_ascii)
+            fh.write("\n")
+
+    atomic_write(out, w, inputs)

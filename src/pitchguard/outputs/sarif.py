@@ -1,0 +1,402 @@
+"""SARIF 2.1.0 report for code-scanning services."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import urllib.parse
+from collections.abc import Sequence
+from pathlib import Path
+
+import numpy as np
+
+from pitchguard import __version__
+from pitchguard.deck import Deck
+from pitchguard.judge.checks import CHECKS
+from pitchguard.judge.findings import Finding, FindingSet
+from pitchguard.outputs.json_report import finding_to_dict, write_json
+from pitchguard.outputs.rows import (
+    PlacedRows,
+    Rows,
+    hole,
+    placed_fields,
+    placed_numbers,
+)
+from pitchguard.outputs.texts import box_text, describe, reaches_fail_on, where_text
+from pitchguard.outputs.verdict import CAUTION, exit_code
+from pitchguard.run.scan import ScanResult
+
+SARIF_VERSION = "2.1.0"
+
+
+SARIF_SCHEMA_URI = (
+    "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
+)
+"""The OASIS SARIF 2.1.0 schema (errata 01): the ``id`` of the schema the tests use."""
+
+
+LEVEL = {"fail": "error", "risk": "warning", "marginal": "note"}
+"""SARIF result level of each pitchguard severity."""
+
+
+FINGERPRINT_KEY = "pitchguardRegion/v1"
+"""Key of our entry in ``result.partialFingerprints`` (bump the version if the recipe changes)."""
+
+
+_RULE_HELP: dict[str, dict[str, str]] = {
+    "unresolvable-pitch": {
+        "worst": "fail",
+        "flags": "Line/space regions whose pitch is smaller than the smallest pitch the "
+        "layer's exposure (wavelength, NA, illumination) can image in the direction of "
+        "the lines.",
+        "why": "Only the undiffracted (0th) order gets through the projection lens: the "
+        "image carries no pattern and the lines do not print at all, whatever the dose, "
+        "focus or mask correction. The limit depends on direction: a dipole source "
+        "images lines across its poles at a much tighter pitch than lines along them.",
+        "change": "Widen the pitch to at least the value in the finding's hint, turn the "
+        "lines to the direction the illumination serves, or move the layer to an exposure "
+        "set-up that resolves this pitch.",
+    },
+    "feature-not-printed": {
+        "worst": "fail",
+        "flags": "Regions where the simulated image of the feature (a line on a clear "
+        "field, an opening on a dark one) never crosses the print threshold at best "
+        "focus and nominal dose.",
+        "why": "The feature is missing on the wafer. It happens near the resolution limit "
+        "and often at the last line of an array, which images worse than the lines in "
+        "the middle.",
+        "change": "Widen the feature or the pitch (the hint gives the nearest pitch that "
+        "passes at this width). At the edge of an array, a dummy line beyond the last "
+        "real one makes it image like the interior lines.",
+    },
+    "features-bridged": {
+        "worst": "fail",
+        "flags": "Regions where the printed feature runs into its neighbour: the image "
+        "never crosses the threshold inside the space, at best focus and nominal dose.",
+        "why": "Neighbouring features merge on the wafer: lines short together, or "
+        "openings join into one.",
+        "change": "Widen the space (the hint gives the nearest pitch that passes at this "
+        "width), or narrow the feature.",
+    },
+    "low-k1": {
+        "worst": "risk",
+        "flags": "Regions whose k1 = (pitch / 2) x NA / wavelength is below the layer's "
+        "risk band (k1_risk_below, default 0.30) or marginal band (k1_marginal_below, "
+        "default 0.40).",
+        "why": "k1 says how hard the pitch is for the scanner. Below about 0.3 it needs "
+        "strong off-axis illumination and resolution enhancement, 0.3 to 0.4 is "
+        "demanding, above about 0.5 is comfortable. The lower k1, the smaller the dose "
+        "and focus window the fab has.",
+        "change": "Relax the pitch towards the value in the hint (the pitch that reaches "
+        "the layer's marginal band), or accept the risk with the fab's agreement.",
+    },
+    "low-nils": {
+        "worst": "fail",
+        "flags": "Regions where the normalised image log-slope (NILS) at the drawn edges "
+        "is below the layer's bands (defaults: fail below 1.0, risk below 1.5, marginal "
+        "below 2.0).",
+        "why": "NILS measures how sharply the image switches from dark to bright at the "
+        "feature edge. With a shallow edge, small changes of dose, focus or resist move "
+        "the printed edge a lot: the line width varies and the edges roughen. Below "
+        "about 1 the edge is not controllable.",
+        "change": "Move the pitch (or the width) to the value in the hint, which names "
+        "the nearest pitch whose ideal grating passes every limit of the layer.",
+    },
+    "low-exposure-latitude": {
+        "worst": "risk",
+        "flags": "Regions where the dose range that keeps the printed width within "
+        "tolerance (cd_tolerance_pct) is smaller than el_min_pct of the dose.",
+        "why": "Every scanner and wafer varies in dose. With little exposure latitude, "
+        "normal dose variation prints this pattern out of its width tolerance.",
+        "change": "Move the pitch or width to the value in the hint; patterns close to the "
+        "layer's anchor (dose-to-size) geometry usually have the most latitude.",
+    },
+    "low-depth-of-focus": {
+        "worst": "risk",
+        "flags": "Regions where the focus range that keeps the printed width within "
+        "tolerance, with el_min_pct of exposure latitude, is shorter than dof_min_nm.",
+        "why": "Wafer topography, flatness and scanner focus errors use up the focus "
+        "budget; a pattern with less depth of focus than that prints out of tolerance. "
+        "With off-axis illumination tuned for the densest pitch, some larger pitches "
+        "lose their depth of focus (forbidden pitches).",
+        "change": "Avoid this pitch: the hint gives the nearest pitch that passes; "
+        "`pitchguard sweep` shows the layer's forbidden pitch bands for this width.",
+    },
+    "cd-error": {
+        "worst": "risk",
+        "flags": "Regions whose printed width at the layer's anchored dose differs from "
+        "the drawn width by more than cd_tolerance_pct (iso-dense bias).",
+        "why": "One dose prints the whole layer. A pattern that prints too wide or too "
+        "narrow at that dose needs a correction of the mask (bias or OPC); large "
+        "corrections cost process margin and may not be possible at all.",
+        "change": "Move the pitch or width towards the layer's anchor geometry, or make "
+        "sure the fab's mask correction covers this pattern.",
+    },
+}
+
+
+def rule_name(check: str) -> str:
+    """CamelCase name of a check id: ``low-k1`` -> ``LowK1``."""
+    return "".join(part[:1].upper() + part[1:] for part in check.split("-"))
+
+
+def _rule(check: str) -> dict:
+    short = CHECKS.get(check, check)
+    info = _RULE_HELP.get(check)
+    if info is None:  # a check added to CHECKS without help here: still a valid rule
+        info = {"worst": "fail", "flags": short, "why": "", "change": "See the finding's hint."}
+    full = f"{info['flags']} {info['why']}".strip()
+    text = (
+        f"What it flags: {info['flags']}\n\n"
+        f"Why it matters for printing: {info['why']}\n\n"
+        f"What to change: {info['change']}\n\n"
+        f"{CAUTION}"
+    )
+    markdown = (
+        f"**What it flags.** {info['flags']}\n\n"
+        f"**Why it matters for printing.** {info['why']}\n\n"
+        f"**What to change.** {info['change']}\n\n"
+        f"_{CAUTION}_"
+    )
+    return {
+        "id": check,
+        "name": rule_name(check),
+        "shortDescription": {"text": short},
+        "fullDescription": {"text": full},
+        "help": {"text": text, "markdown": markdown},
+        "defaultConfiguration": {"level": LEVEL[info["worst"]]},
+        "properties": {"tags": ["lithography", "printability"]},
+    }
+
+
+def _artifact_uri(layout_path: Path) -> str:
+    """The layout relative to the current directory when it lies inside it, else a file URI."""
+    p = Path(layout_path)
+    cwd = Path.cwd()
+    for a, b in ((p.absolute(), cwd.absolute()), (p.resolve(), cwd.resolve())):
+        try:
+            rel = a.relative_to(b)
+        except ValueError:
+            continue
+        # Percent-encode (spaces, '%', '#', and ':' which would read as a scheme).
+        return urllib.parse.quote(rel.as_posix(), safe="/")
+    return p.resolve().as_uri()
+
+
+def _fp_value(x: float) -> str:
+    if not math.isfinite(x):
+        return "inf" if x > 0 else "nan"
+    return f"{round(x):d}"
+
+
+def fingerprint_base(f: Finding) -> str:
+    """Hash of what a region is, not where: layer, check, pitch, width, space, direction.
+
+    Lengths are rounded to whole nanometres and the line direction to whole
+    degrees (mod 180), so grid snapping of rotated geometry does not change it.
+    """
+    orient = round(f.orientation_deg) % 180
+    key = "|".join(
+        (
+            "v1",
+            f.layer,
+            f.check,
+            _fp_value(f.pitch_nm),
+            _fp_value(f.width_nm),
+            _fp_value(f.space_nm),
+            str(orient),
+        )
+    )
+    return hashlib.sha256(key.encode("utf-8")).hexdigest()[:32]
+
+
+def fingerprints(findings: Sequence[Finding], compact: bool = False) -> Sequence[str]:
+    """Stable fingerprint per finding: base hash plus ``:n``, the occurrence among equals.
+
+    Equal base hashes are numbered in order of position (lower-left corner,
+    x then y, then severity), an order a translation of the whole layout
+    keeps.  Worked out on columns: a base depends only on what a finding is,
+    so a FindingSet's distinct findings are hashed once.
+    """
+    fs = FindingSet.of(findings)
+    n = len(fs)
+    if n == 0:
+        return []
+    # ``compact``: the same texts, made when read (see _Fingerprints).
+    names: dict[str, int] = {}
+    d_base = np.array(
+        [names.setdefault(fingerprint_base(f), len(names)) for f in fs.distinct], dtype=np.int64
+    )
+    d_rank = np.array([f.severity_rank for f in fs.distinct], dtype=np.int64)
+    base, rank, box = d_base[fs.which], d_rank[fs.which], fs.boxes()
+    # By base, then box (x0, y0, x1, y1) and severity; ties keep the findings' order.
+    order = np.lexsort((rank, box[:, 3], box[:, 2], box[:, 1], box[:, 0], base))
+    sorted_base = base[order]
+    first = np.r_[True, sorted_base[1:] != sorted_base[:-1]]
+    occurrence = np.arange(n) - np.maximum.accumulate(np.where(first, np.arange(n), 0)) + 1
+    text = list(names)
+    if compact:
+        item_occ = np.empty(n, dtype=np.int64)
+        item_occ[order] = occurrence
+        return _Fingerprints(text, base, item_occ)
+    out = [""] * n
+    for i, b, k in zip(order.tolist(), sorted_base.tolist(), occurrence.tolist(), strict=True):
+        out[i] = f"{text[b]}:{k}"
+    return out
+
+
+class _Fingerprints(Sequence):
+    """:func:`fingerprints` as columns (base hash and occurrence per finding), each
+    text made when read: a chip's 10^5-10^6 strings are not all held at once."""
+
+    def __init__(self, text: list[str], base: np.ndarray, occurrence: np.ndarray):
+        self.text, self.base, self.occurrence = text, base, occurrence
+
+    def __len__(self) -> int:
+        return len(self.base)
+
+    def __getitem__(self, k):
+        if isinstance(k, slice):
+            return [self[i] for i in range(*k.indices(len(self)))]
+        return f"{self.text[self.base[k]]}:{self.occurrence[k]}"
+
+
+SERVICE_RESULTS_MAX = 25_000
+"""Results per run a code-scanning service accepts: GitHub's documented hard
+limit ("Results per run: 25,000", GitHub Docs, SARIF results exceed limits).
+A file with more is still valid SARIF; the command says so when it writes one."""
+
+
+def to_sarif(
+    result: ScanResult, deck: Deck, layout_path: Path, fail_on: str, lazy: bool = False
+) -> dict:
+    """A SARIF 2.1.0 log of a scan: one run, one rule per check, one result per finding.
+
+    With ``lazy`` the results are :class:`~pitchguard.report.Rows`, made as
+    they are written (for :func:`write_sarif`).
+    """
+    # A check missing from CHECKS (not expected) still gets a rule, after the known ones.
+    fs = FindingSet.of(result.findings)
+    present = {f.check for f, n in zip(fs.distinct, fs.counts().tolist(), strict=True) if n}
+    checks = list(CHECKS) + sorted(present - set(CHECKS))
+    rules = [_rule(c) for c in checks]
+    uri = _artifact_uri(layout_path)
+    cells = list(result.layout.cells) if result.layout else []
+    fps = fingerprints(result.findings, compact=lazy)
+    rule_index = {c: k for k, c in enumerate(checks)}
+
+    def result_of(k: int, f: Finding | None = None, holes: bool = False) -> dict:
+        if f is None:
+            f = result.findings[k]
+        fp = hole("fp") if holes else fps[k]
+        # Logical locations.  A cell is a named, self-contained unit of design that
+        # other cells instantiate, the layout's counterpart of a code module: kind
+        # "module".  A layer is a part of every cell (the shapes drawn on it), as a
+        # member is part of a type: kind "member", with the cell as parent when the
+        # scan had one top cell, and the layout's "layer/datatype" as its
+        # machine-readable (decorated) name.
+        logical = [{"name": c, "kind": "module"} for c in cells]
+        layer_loc = {
+            "name": f.layer,
+            "fullyQualifiedName": f"{cells[0]}/{f.layer}" if len(cells) == 1 else f.layer,
+            "decoratedName": f.source,
+            "kind": "member",
+        }
+        logical.append(layer_loc)
+        props = finding_to_dict(f, holes)
+        props["fail_on"] = fail_on
+        props["at_or_above_fail_on"] = reaches_fail_on(f, fail_on)
+        return {
+            "ruleId": f.check,
+            "ruleIndex": rule_index[f.check],
+            "level": LEVEL[f.severity],
+            "message": {"text": describe(f, holes)},
+            "locations": [
+                {
+                    "physicalLocation": {"artifactLocation": {"uri": uri}},
+                    "logicalLocations": logical,
+                }
+            ],
+            "partialFingerprints": {FINGERPRINT_KEY: fp},
+            "properties": props,
+        }
+
+    rows: Rows
+    if isinstance(result.findings, FindingSet):
+        fs_ = result.findings
+
+        def fill(k: int, f: Finding, dx: float, dy: float) -> dict[str, str]:
+            numbers = placed_numbers(f, dx, dy)
+            out = placed_fields(f, dx, dy, numbers)
+            out["where"] = where_text(numbers[1])
+            out["box"] = box_text(numbers[0])
+            out["fp"] = json.dumps(fps[k])
+            return out
+
+        rows = PlacedRows(
+            fs_, result_of, lambda d: result_of(-1, fs_.distinct[d], holes=True), fill
+        )
+    else:
+        rows = Rows(range(len(result.findings)), result_of)
+    results = rows if lazy else list(rows)
+    run_props = {
+        "caution": CAUTION,
+        "deck": {
+            "name": deck.name,
+            "path": str(deck.path) if deck.path else None,
+            "drawn_scale": deck.drawn_scale,
+            "reduction": deck.reduction,
+        },
+        "layout": {
+            "path": str(layout_path),
+            "format": result.layout.format if result.layout else None,
+            "cells": cells,
+        },
+        "fail_on": fail_on,
+    }
+    invocation: dict = {
+        "executionSuccessful": True,
+        "exitCode": exit_code(result.findings, fail_on),
+    }
+    if result.warnings:
+        invocation["toolExecutionNotifications"] = [
+            {"level": "warning", "message": {"text": f"layout library: {w}"}}
+            for w in result.warnings
+        ]
+    run = {
+        "tool": {
+            "driver": {
+                "name": "pitchguard",
+                "version": __version__,
+                "semanticVersion": __version__,
+                "rules": rules,
+            }
+        },
+        "invocations": [invocation],
+        "results": results,  # present even when empty: "scanned, nothing found"
+        "properties": run_props,
+    }
+    return {"$schema": SARIF_SCHEMA_URI, "version": SARIF_VERSION, "runs": [run]}
+
+
+def default_inputs(layout_path: Path, deck: Deck) -> list[Path]:
+    return [Path(layout_path)] + ([Path(deck.path)] if deck.path else [])
+
+
+def write_sarif(
+    out: Path,
+    result: ScanResult,
+    deck: Deck,
+    layout_path: Path,
+    fail_on: str,
+    inputs: list[Path] | None = None,
+) -> None:
+    """Write :func:`to_sarif` to ``out`` atomically (never over an input file)."""
+    log = to_sarif(result, deck, layout_path, fail_on, lazy=True)
+    write_json(
+        out,
+        log,
+        inputs if inputs is not None else default_inputs(layout_path, deck),
+        ensure_ascii=False,
+    )

@@ -1,0 +1,45 @@
+"""The exit code and severity counts: decided only here."""
+
+from __future__ import annotations
+
+from collections import Counter
+from collections.abc import Sequence
+
+from pitchguard.deck import SEVERITIES
+from pitchguard.errors import EXIT_FINDINGS, EXIT_OK
+from pitchguard.judge.findings import Finding, FindingSet
+
+CAUTION = (
+    "pitchguard is a screening aid built on a scalar thin-mask optical model; "
+    "sign-off stays with the fab's calibrated models and processes."
+)
+
+
+FAIL_ON_CHOICES = (*SEVERITIES, "never")
+
+
+def _tally(findings: Sequence[Finding], layer: str | None = None) -> Counter:
+    """Findings per severity (of ``layer`` only, if given); a FindingSet from its columns."""
+    c: Counter = Counter()
+    if isinstance(findings, FindingSet):
+        for f, n in zip(findings.distinct, findings.counts().tolist(), strict=True):
+            if n and (layer is None or f.layer == layer):
+                c[f.severity] += n
+    else:
+        c.update(f.severity for f in findings if layer is None or f.layer == layer)
+    return c
+
+
+def exit_code(findings: Sequence[Finding], fail_on: str) -> int:
+    """0 when no finding is at or above ``fail_on``, else 1 (the one place this is decided)."""
+    if fail_on == "never":
+        return EXIT_OK
+    limit = SEVERITIES.index(fail_on)
+    c = _tally(findings)
+    return EXIT_FINDINGS if any(c[s] for s in SEVERITIES[: limit + 1]) else EXIT_OK
+
+
+def severity_counts(findings: Sequence[Finding], layer: str | None = None) -> dict[str, int]:
+    """Findings per severity, worst first (of ``layer`` only, if given)."""
+    c = _tally(findings, layer)
+    return {s: c.get(s, 0) for s in SEVERITIES}

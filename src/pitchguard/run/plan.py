@@ -1,0 +1,288 @@
+"""Tile planning: the tile size from a memory model and a cost model of repeated arrays."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from pitchguard.deck import Deck
+from pitchguard.errors import LayoutError
+from pitchguard.geometry.sites import SITE_CELL_NM
+
+SPARSE_TILES_MIN = 10_000
+
+
+SPARSE_TILES_PER_SHAPE = 10
+"""A tiling of more than SPARSE_TILES_MIN tiles and SPARSE_TILES_PER_SHAPE tiles per
+shape is refused: mutated files with one vertex far out made 1.46 million 10 um
+tiles for 245 shapes (ran for more than 15 minutes) and 70,509 for 277 (more than
+2 minutes: a polygon read whole into every tile it crosses makes each distinct)."""
+
+
+DEFAULT_TILED_MAX_SHAPES = 2_000_000_000
+"""Tiled scans hold one tile at a time per worker, so they accept far larger
+layouts than a flattening scan; the limit still refuses absurd arrays (a
+10^5 x 10^5 array is 10^10 shapes) before any work is done."""
+
+
+@dataclass(frozen=True)
+class Structure:
+    """What the guarded first read learns about a layout."""
+
+    unit_m: float
+    grid_nm: float
+    cells: tuple[str, ...]
+    extent_nm: tuple[float, float, float, float] | None
+    fmt: str
+    shapes: int = 0  # flat shapes on the deck layers, counted from the hierarchy
+    # The hierarchy in brief, for planning tiles: per cell (children first), its own
+    # shapes and its references (child, instances, x pitch, y pitch, columns,
+    # rows; pitches in nm, 0 for anything but an axis-aligned array); and the
+    # numbers of the top cells.
+    cells_brief: tuple = ()
+    tops_brief: tuple = ()
+
+
+def tile_halo_nm(deck: Deck) -> float:
+    scale = deck.scale_to_wafer
+    return max((2 * r.interaction_range_nm + r.min_run_nm) / scale for r in deck.layers)
+
+
+def clip_extent(extent, region):
+    """``extent`` within ``region`` (None: all of it)."""
+    if region is None:
+        return tuple(extent)
+    return (
+        max(extent[0], region[0]),
+        max(extent[1], region[1]),
+        min(extent[2], region[2]),
+        min(extent[3], region[3]),
+    )
+
+
+def tiles_for(extent, tile_nm: float, region=None):
+    """Tiles covering ``extent``, aligned to multiples of ``tile_nm``, clipped to ``region``."""
+    x0, y0, x1, y1 = clip_extent(extent, region)
+    if x0 > x1 or y0 > y1:
+        return []
+    i0, i1 = math.floor(x0 / tile_nm), math.floor(x1 / tile_nm)
+    j0, j1 = math.floor(y0 / tile_nm), math.floor(y1 / tile_nm)
+    tiles = [
+        (i * tile_nm, j * tile_nm, (i + 1) * tile_nm, (j + 1) * tile_nm)
+        for j in range(j0, j1 + 1)
+        for i in range(i0, i1 + 1)
+    ]
+    if region is None:
+        return tiles
+    rx0, ry0, rx1, ry1 = region
+    return [(max(a, rx0), max(b, ry0), min(c, rx1), min(d, ry1)) for a, b, c, d in tiles]
+
+
+# Memory model of a scan: a worker holds the opened file and one tile; the parent
+# holds the findings.  Fitted roughly to worker peaks seen on the bench_scale chip
+# (about 110, 300 and 520 MB for 30, 70 and 210 um tiles); not validated further.
+WORKER_BASE_MB = 150.0
+
+
+PARENT_BASE_MB = 300.0
+
+
+KB_PER_TILE_SHAPE = 8.0
+
+
+DENSITY_MARGIN = 4.0
+"""Shapes are rarely spread evenly: a tile is planned for this many times the
+layout's mean shape density."""
+
+
+MAX_AUTO_TILE_UM = 50.0
+
+
+SMALL_LAYOUT_SHAPES = 20_000
+
+
+# Costs of tiling in shapes-scanned equivalents, measured on the bench_scale chip
+# (1.1e7 shapes, 2-core machine): a shape scanned about 65 us, a tile's content
+# key about 85 us, a distinct tile's fixed setup about 22 ms.
+KEY_COST_SHAPES = 1.3
+
+
+TILE_COST_SHAPES = 340.0
+
+
+DEFAULT_WORKER_MB = 2048.0
+"""A worker's memory budget when no --max-memory-mb is given."""
+
+
+def _per_worker_mb(max_memory_mb: float | None, jobs: int, distributed: bool) -> float:
+    if max_memory_mb is None:
+        return DEFAULT_WORKER_MB
+    return (max_memory_mb - (0 if distributed else PARENT_BASE_MB)) / max(1, jobs)
+
+
+def tile_shape_limit(max_memory_mb: float | None, jobs: int, distributed: bool = False) -> int:
+    """The most shapes one tile may hold within a worker's budget (the memory model)."""
+    per_worker = _per_worker_mb(max_memory_mb, jobs, distributed)
+    return max(1, int((per_worker - WORKER_BASE_MB) * 1024.0 / KB_PER_TILE_SHAPE))
+
+
+def plan_tiles(
+    st: Structure,
+    halo_nm: float,
+    jobs: int,
+    max_memory_mb: float | None,
+    tile_um: float | None,
+    distributed: bool = False,
+) -> tuple[float, int]:
+    """Tile size (nm) and local worker count for a memory cap (MB, all processes).
+
+    Without a cap each worker may use about 2 GB.  With one, the parent's share
+    is set aside and the rest split between the workers; workers are dropped
+    while even the smallest tile does not fit.
+    """
+    if st.extent_nm:
+        x0, y0, x1, y1 = st.extent_nm
+        area = max((x1 - x0) * (y1 - y0), 1.0)
+        density = DENSITY_MARGIN * st.shapes / area  # shapes per nm^2
+    else:
+        density = 0.0
+
+    def worker_mb(t_nm: float) -> float:
+        return WORKER_BASE_MB + KB_PER_TILE_SHAPE / 1024.0 * density * (t_nm + 2 * halo_nm) ** 2
+
+    if max_memory_mb is None:
+        per_worker = DEFAULT_WORKER_MB
+    else:
+        n = 1 if distributed else jobs
+        while n > 1 and PARENT_BASE_MB + n * worker_mb(SITE_CELL_NM) > max_memory_mb:
+            n -= 1
+        per_worker = _per_worker_mb(max_memory_mb, n, distributed)
+        if per_worker < worker_mb(SITE_CELL_NM):
+            need = PARENT_BASE_MB + worker_mb(SITE_CELL_NM)
+            raise LayoutError(
+                f"--max-memory-mb {max_memory_mb:g} is too small for this layout: "
+                f"a scan needs about {math.ceil(need)} MB or more"
+            )
+        jobs = n
+    if tile_um is not None:
+        t = max(SITE_CELL_NM, math.ceil(tile_um * 1000.0 / SITE_CELL_NM) * SITE_CELL_NM)
+        return t, jobs
+    if st.extent_nm and st.shapes <= SMALL_LAYOUT_SHAPES:
+        # Small layouts: one tile (up to four, by alignment) is fastest, and a
+        # sparse layout of huge extent does not turn into millions of tiles.
+        x0, y0, x1, y1 = st.extent_nm
+        side = max(x1 - x0, y1 - y0, SITE_CELL_NM)
+        return math.ceil(side / SITE_CELL_NM) * SITE_CELL_NM, jobs
+    sizes = [
+        t
+        for t in (
+            k * SITE_CELL_NM for k in range(1, int(MAX_AUTO_TILE_UM * 1000 // SITE_CELL_NM) + 1)
+        )
+        if t == SITE_CELL_NM or worker_mb(t) <= per_worker
+    ]
+    return min(sizes, key=lambda t: (tile_work(st, t, halo_nm), -t)), jobs
+
+
+TILE_ADVICE_RATIO = 3.0
+"""A chosen tile size whose estimated work is this many times the automatic
+one's is worth a note (the estimate, :func:`tile_work`, was within a factor of
+two of measured times on the benchmark chip: 45 um, 12x estimated, 25x
+measured; 60 um, 5.9x and 4.7x)."""
+
+
+def tile_advice(
+    st: Structure,
+    halo_nm: float,
+    tile_nm: float,
+    jobs: int,
+    max_memory_mb: float | None,
+    distributed: bool = False,
+    tile_um: float | None = None,
+) -> str | None:
+    """A note when the tile size asked for repeats the layout's arrays much worse
+    than the size the scan would choose (tiles that repeat are scanned once).
+    ``tile_um``: the size asked for, named when rounding changed it."""
+    if not st.extent_nm or st.shapes <= SMALL_LAYOUT_SHAPES:
+        return None
+    auto_nm, _ = plan_tiles(st, halo_nm, jobs, max_memory_mb, None, distributed)
+    ratio = tile_work(st, tile_nm, halo_nm) / max(tile_work(st, auto_nm, halo_nm), 1e-9)
+    if ratio < TILE_ADVICE_RATIO:
+        return None
+    asked = ""
+    if tile_um is not None and abs(tile_um * 1000.0 - tile_nm) > 1e-6:
+        asked = f" (--tile-um {tile_um:g}, rounded up to whole {SITE_CELL_NM / 1000:g} um)"
+    return (
+        f"tiles of {tile_nm / 1000:g} um{asked} meet this layout's arrays at many "
+        f"phases: about {ratio:.0f}x the work of {auto_nm / 1000:g} um tiles, the scan's "
+        "choice (an estimate; leave out --tile-um to use it)"
+    )
+
+
+def phase_fraction(pitch: float, count: int, t: float) -> float:
+    """Of the tiles (size ``t``) along an array of ``count`` at ``pitch``, the share
+    that differ: the tile grid meets the array at ``pitch / gcd(t, pitch)`` phases
+    (a fact of arithmetic), plus one for the array's ends; 1 when the array fits in
+    one tile."""
+    span = count * pitch / t
+    if span <= 1.0:
+        return 1.0
+    g = math.gcd(int(round(t)), int(round(pitch))) or 1
+    return min(span, pitch / g + 1.0) / span
+
+
+def tile_work(st: Structure, t: float, halo_nm: float = 0.0) -> float:
+    """Rough cost of tile size ``t`` (nm), in shapes-scanned equivalents.
+
+    Shapes in distinct tiles: every cell's own shapes, plus each reference's
+    child work times its instances, times, for an axis-aligned array, the
+    share of distinct tiles along each axis (:func:`phase_fraction`), so
+    arrays nested in arrays multiply.  Scanned with their halo, plus a cost per
+    tile (its content key) and per distinct tile (setting up its scan).
+    """
+    work: list[float] = []
+    for own, refs in st.cells_brief:
+        w = float(own)
+        for child, count, px, py, cols, rows in refs:
+            share = 1.0
+            if px > 0 and py > 0:
+                share = phase_fraction(px, cols, t) * phase_fraction(py, rows, t)
+            w += count * work[child] * share
+        work.append(w)
+    scanned = sum(work[k] for k in st.tops_brief)
+    if not st.extent_nm:
+        return scanned
+    x0, y0, x1, y1 = st.extent_nm
+    tiles = ((x1 - x0) / t + 1) * ((y1 - y0) / t + 1)
+    distinct = max(1.0, tiles * min(1.0, scanned / max(st.shapes, 1)))
+    halo = ((t + 2 * halo_nm) / t) ** 2
+    return scanned * halo + KEY_COST_SHAPES * tiles + TILE_COST_SHAPES * distinct
+
+
+MAX_TILES = 2_000_000
+"""More tiles than this means coordinates far out of any mask's range (a corrupt
+file) or a tile size far too small for the chip: refused before any work."""
+
+
+def check_tile_count(path, extent, region, tile_nm: float, shapes: int = 0) -> None:
+    """Refuse tilings too large to be meant: more tiles than MAX_TILES, or a layout
+    whose tiles would be mostly empty (a corrupt coordinate far out, say)."""
+    if not extent:
+        return
+    x0, y0, x1, y1 = clip_extent(extent, region)
+    if not all(math.isfinite(v) for v in (x0, y0, x1, y1)):
+        raise LayoutError(f"{path}: coordinates are not finite numbers")
+    n = (math.floor(x1 / tile_nm) - math.floor(x0 / tile_nm) + 1) * (
+        math.floor(y1 / tile_nm) - math.floor(y0 / tile_nm) + 1
+    )
+    if n > MAX_TILES:
+        raise LayoutError(
+            f"{path}: the layout spans {(x1 - x0) / 1e6:,.1f} x {(y1 - y0) / 1e6:,.1f} mm, "
+            f"{n:,} tiles of {tile_nm / 1000:g} um (limit {MAX_TILES:,}): coordinates out of "
+            "range, or use a larger --tile-um or a --region"
+        )
+    if n > SPARSE_TILES_MIN and n > SPARSE_TILES_PER_SHAPE * max(shapes, 1):
+        raise LayoutError(
+            f"{path}: the layout spans {(x1 - x0) / 1e6:,.4g} x {(y1 - y0) / 1e6:,.4g} mm with "
+            f"only {shapes:,} shapes: {n:,} tiles of {tile_nm / 1000:g} um would be almost "
+            "all empty (a coordinate may be corrupt); use a larger --tile-um or a --region"
+        )

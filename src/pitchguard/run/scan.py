@@ -1,0 +1,165 @@
+"""The scan of one region's polygons (extract -> cuts -> image -> judge); whole-layout scans."""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from pitchguard.deck import Deck
+from pitchguard.geometry.cuts import site_cuts
+from pitchguard.geometry.features import build_features
+from pitchguard.geometry.sites import ExtractStats, find_sites, in_region
+from pitchguard.judge.findings import Finding
+from pitchguard.judge.order import sort_findings
+from pitchguard.judge.verdicts import classify_layer
+from pitchguard.layout.isolated import read_layout_isolated
+from pitchguard.layout.polygons import PolygonSet
+from pitchguard.layout.reader import DEFAULT_MAX_SHAPES, Layout
+from pitchguard.optics.aerial import source_is_symmetric
+from pitchguard.optics.cut_images import measure_cuts
+
+Progress = Callable[[str, int, int], None]
+"""``progress(label, done, total)``: called before each stage of each layer
+(three stages a layer: features, sites, classify)."""
+
+
+@dataclass
+class LayerStats:
+    """What one layer of a scan counted."""
+
+    name: str
+    source: str
+    shapes: int = 0
+    extract: ExtractStats = field(default_factory=ExtractStats)
+    seconds: float = 0.0
+    # Tiles only: the distinct cuts imaged (cut, source turn), so that a tiled
+    # scan can count the distinct cuts of the whole layout.
+    cut_keys: frozenset = frozenset()
+
+
+@dataclass
+class ScanResult:
+    findings: Sequence[Finding]  # a list, or a FindingSet from tiled scans
+    layers: list[LayerStats]
+    layout: Layout | None = None
+    warnings: list[str] = field(default_factory=list)
+    seconds: float = 0.0
+    # Tiled scans: {"tile_um", "tiles", "distinct", "workers"}; None for a whole scan.
+    tiling: dict | None = None
+
+
+def _in_region(ps: PolygonSet, region_nm, margin: float) -> PolygonSet:
+    if region_nm is None or len(ps) == 0:
+        return ps
+    x0, y0, x1, y1 = region_nm
+    bb = ps.bounding_boxes()
+    keep = (bb[:, 2] >= x0 - margin) & (bb[:, 0] <= x1 + margin)
+    keep &= (bb[:, 3] >= y0 - margin) & (bb[:, 1] <= y1 + margin)
+    return ps.select(keep)
+
+
+def scan_polygons(
+    polygons: dict[tuple[int, int], PolygonSet],
+    deck: Deck,
+    grid_nm: float,
+    region_nm: tuple[float, float, float, float] | None = None,
+    progress: Progress | None = None,
+    tile: bool = False,
+) -> tuple[list[Finding], list[LayerStats]]:
+    """Scan the deck's layers in ``polygons`` (nm, as drawn).
+
+    With ``region_nm`` only sites whose midpoint lies in the region are judged;
+    shapes up to one interaction range outside it are still seen as neighbours.  With
+    ``tile`` the region is a tile of a tiled scan: findings keep the sites
+    that regions of other tiles may join through (``Finding.border_sites``),
+    and their hints are left to the caller (``Finding.hint_key``).
+    """
+    findings: list[Finding] = []
+    stats: list[LayerStats] = []
+    scale = deck.scale_to_wafer
+    total = 3 * len(deck.layers)
+
+    def tick(label: str, done: int) -> None:
+        if progress:
+            progress(label, done, total)
+
+    for k, rule in enumerate(deck.layers):
+        t0 = time.perf_counter()
+        tick(f"{rule.name}: features", 3 * k)
+        # Deck lengths are wafer-scale; the geometry is as drawn.
+        reach = rule.interaction_range_nm / scale
+        min_run = rule.min_run_nm / scale
+        ps = polygons.get((rule.layer, rule.datatype), PolygonSet.empty())
+        ps = _in_region(ps, region_nm, 2 * reach)
+        edges = build_features(ps, grid_nm)
+        tick(f"{rule.name}: sites", 3 * k + 1)
+        sites, ex = find_sites(edges, min_run, reach, grid_nm, region=region_nm)
+        ex.shapes = len(ps)
+        if region_nm is not None and len(ps):
+            # A shape counts where the centre of its box lies: once over a tiling.
+            bb = ps.bounding_boxes()
+            ex.shapes = int(in_region(0.5 * (bb[:, :2] + bb[:, 2:]), region_nm).sum())
+        tick(f"{rule.name}: images", 3 * k + 2)
+        metrics, which_cut, cuts = None, None, None
+        cut_keys: frozenset = frozenset()
+        if rule.image_checks and len(sites):
+            which_cut, cuts, angles = site_cuts(
+                edges, sites, reach, grid_nm, turn_source=not source_is_symmetric(rule.exposure)
+            )
+            metrics = measure_cuts(cuts, angles, rule, scale)
+            ex.extra["unique_cuts"] = len(cuts)
+            ex.extra["imaged_sites"] = int((which_cut >= 0).sum())
+            if tile:
+                cut_keys = frozenset(
+                    (c, round(a, 1) % 180.0) for c, a in zip(cuts, angles, strict=True)
+                )
+        findings.extend(
+            classify_layer(
+                sites,
+                rule,
+                scale,
+                grid_nm,
+                metrics,
+                which_cut,
+                cuts,
+                tile_nm=region_nm if tile else None,
+                defer_hints=tile,
+            )
+        )
+        stats.append(
+            LayerStats(rule.name, rule.source, ex.shapes, ex, time.perf_counter() - t0, cut_keys)
+        )
+    tick("done", total)
+    return findings, stats
+
+
+def scan_layout(
+    path: str | Path,
+    deck: Deck,
+    cell: str | None = None,
+    region_um: tuple[float, float, float, float] | None = None,
+    max_shapes: int = DEFAULT_MAX_SHAPES,
+    progress: Progress | None = None,
+    read_timeout_s: float | None = None,
+) -> ScanResult:
+    """Read ``path`` (in a child process) and scan it with ``deck``."""
+    t0 = time.perf_counter()
+    warnings: list[str] = []
+    if progress:
+        progress("reading layout", 0, 3 * len(deck.layers))
+    layout = read_layout_isolated(
+        path,
+        [(r.layer, r.datatype) for r in deck.layers],
+        cell=cell,
+        max_shapes=max_shapes,
+        warnings=warnings,
+        **({"timeout_s": read_timeout_s} if read_timeout_s else {}),
+    )
+    region_nm = tuple(v * 1000.0 for v in region_um) if region_um else None
+    findings, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
+    for f in findings:  # regions are final: their line points served the line count
+        object.__setattr__(f, "line_points", None)
+    findings = sort_findings(findings)
+    return ScanResult(findings, stats, layout, warnings, time.perf_counter() - t0)
