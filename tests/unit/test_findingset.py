@@ -16,8 +16,9 @@ import pytest
 
 from decks import DEMO_DECK, SAMPLE_GDS
 from pitchguard.deck import SEVERITIES, load_deck
-from pitchguard.judge.findings import FindingSet
-from pitchguard.judge.order import sort_findings
+from pitchguard.judge.findings import FIELDS, FindingSet, replaced
+from pitchguard.judge.findings import placed as placed_copy
+from pitchguard.judge.order import sort_findings, sort_findings_plain
 from pitchguard.outputs.verdict import exit_code, severity_counts
 from pitchguard.run.scan import scan_layout
 
@@ -64,6 +65,22 @@ def test_items_equal_the_findings_made_at_each_place(placed):
     assert fs != expected[:-1]
     # A slice is a FindingSet of those items.
     assert isinstance(fs[10:20], FindingSet) and list(fs[10:20]) == expected[10:20]
+
+
+def test_fast_copies_equal_dataclasses_replace(demo):
+    """``replaced`` and ``placed`` (positional copies) against the library's
+    ``dataclasses.replace`` on every field, one at a time and all at once."""
+    rng = random.Random(11)
+    for f in demo:
+        for name in FIELDS:
+            value = getattr(demo[rng.randrange(len(demo))], name)
+            assert replaced(f, **{name: value}) == dataclasses.replace(f, **{name: value})
+        other = demo[rng.randrange(len(demo))]
+        every = {name: getattr(other, name) for name in FIELDS}
+        assert replaced(f, **every) == dataclasses.replace(f, **every) == other
+        dx, dy = rng.uniform(-1e5, 1e5), rng.uniform(-1e5, 1e5)
+        assert placed_copy(f, dx, dy) == _placed(f, dx, dy)
+        assert placed_copy(f, dx, dy) != f
 
 
 def test_an_item_at_its_own_place_is_the_distinct_finding_itself(demo):
@@ -116,6 +133,10 @@ def test_sorted_order_equals_python_sorted_on_the_documented_key(placed):
     want = sorted(items, key=lambda f: (rank[f.severity], f.k1, f.layer, f.bbox_nm))
     got = sort_findings(items)
     assert [id(f) for f in got] == [id(f) for f in want]
+    assert [id(f) for f in sort_findings_plain(items)] == [id(f) for f in want]
+    # A FindingSet is sorted on its columns: the same order as the plain sort.
+    got_set = sort_findings(fs)
+    assert list(got_set) == sort_findings_plain(list(fs))
 
 
 def test_counts_and_exit_code_from_columns_equal_those_of_the_list(placed):

@@ -32,6 +32,12 @@ def sort_findings(findings: Sequence[Finding]) -> Sequence[Finding]:
     return [findings[k] for k in order.tolist()]
 
 
+def sort_findings_plain(findings: Sequence[Finding]) -> list[Finding]:
+    """The report order by Python's stable ``sorted``: the reference for
+    :func:`sort_findings` (tests check that the two agree)."""
+    return sorted(findings, key=lambda f: (f.severity_rank, f.k1, f.layer, f.bbox_nm))
+
+
 def _severity_k1_layer_ranks(findings: Sequence[Finding]) -> np.ndarray:
     """Dense ranks of ``(severity rank, k1, layer)``: equal keys, equal rank."""
     rank = {s: k for k, s in enumerate(SEVERITIES)}

@@ -3,15 +3,46 @@
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numpy as np
 
 from pitchguard.geometry.sites import Sites
 from pitchguard.geometry.spatial import build_rtree, components, query_pairs_batched
+from pitchguard.judge.findings import Finding
 
 ORIENTATION_TOL_DEG = 0.5
 """Sites whose lines differ in direction by less than this may share a region (grid
 snapping tilts the edges of rotated geometry by a few hundredths of a degree)."""
+
+
+class Region(NamedTuple):
+    """A flagged region: its finding and the geometry behind it (drawn nm).
+
+    ``line_points``: one point on the axis of each line, as seen from each
+    long edge of the region (k, 2); lines are counted from them, exactly also
+    when a region cut by tile borders is merged.  A region of a tile of a
+    tiled scan also keeps ``border_sites``, rows (4 corners x, y;
+    orientation; pitch) of its sites near the tile's border, through which
+    regions of neighbouring tiles join, with ``extent_nm``, the convex hull
+    of all its sites' corners; and ``hint_key``, when its hint is left to the
+    caller (see :func:`pitchguard.judge.hints.hint_text`).
+    """
+
+    finding: Finding
+    line_points: np.ndarray | None = None
+    border_sites: np.ndarray | None = None
+    extent_nm: np.ndarray | None = None
+    hint_key: tuple | None = None
+
+    @property
+    def on_border(self) -> bool:
+        """Has sites near its tile's border (it may join regions of other tiles)."""
+        return self.border_sites is not None and len(self.border_sites) > 0
+
+    def finished(self) -> Region:
+        """The region without what only a merge needs (its hint key stays)."""
+        return Region(self.finding, hint_key=self.hint_key)
 
 
 LINE_GAP_NM = 4.0

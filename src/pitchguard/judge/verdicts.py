@@ -13,6 +13,7 @@ from pitchguard.judge.findings import Finding
 from pitchguard.judge.hints import hint_key, hint_text
 from pitchguard.judge.regions import (
     SNAP_PITCH_SPREAD,
+    Region,
     canonical_normal,
     convex_hull,
     count_lines,
@@ -82,16 +83,16 @@ def classify_layer(
     cuts: list | None = None,
     tile_nm: tuple[float, float, float, float] | None = None,
     defer_hints: bool = False,
-) -> list[Finding]:
-    """Findings (one per region) for the sites of one layer.
+) -> list[Region]:
+    """Regions, each with its finding, for the sites of one layer.
 
     ``metrics[which_cut[k]]`` are the image metrics of site ``k`` (-1: not
     imaged).  Sites merge into a region when their pitches differ by at most
     ``max(pitch_tolerance_nm, SNAP_PITCH_SPREAD * grid_nm)`` (drawn nm).
-    With ``tile_nm`` (a tile of a tiled scan) each finding keeps its sites
-    that sites of other tiles could touch (:attr:`Finding.border_sites`).
-    With ``defer_hints`` findings get an empty hint and the key to make it
-    from (:attr:`Finding.hint_key`, see :func:`hint_text`).
+    With ``tile_nm`` (a tile of a tiled scan) each region keeps its sites
+    that sites of other tiles could touch (:attr:`Region.border_sites`).
+    With ``defer_hints`` findings get an empty hint and the region the key to
+    make it from (:attr:`Region.hint_key`, see :func:`hint_text`).
     """
     severity, results, which, found = judge_sites(sites, rule, scale_to_wafer, metrics, which_cut)
     flagged = np.flatnonzero(severity < OK)
@@ -179,54 +180,48 @@ def classify_layer(
             message += " (at the last line of the array)"
         elif context == "alone" and top.check in IMAGE_CHECKS:
             message += " (isolated line)"
-        out.append(
-            Finding(
-                layer=rule.name,
-                source=rule.source,
-                exposure=rule.exposure_name,
-                check=top.check,
-                severity=SEVERITIES[code],
-                pitch_nm=round(pitch_drawn, 3),
-                pitch_max_nm=round(float(pitch_all[members].max()), 3),
-                width_nm=round(width_drawn, 3),
-                space_nm=round(float(fs.space[worst]), 3),
-                wafer_pitch_nm=round(pitch_drawn * scale_to_wafer, 3),
-                k1=round(res.k1, 4),
-                orientation_deg=round(float(angle_all[worst]), 3),
-                orders=res.orders,
-                orders_on_axis=res.orders_on_axis,
-                two_beam_fraction=round(res.two_beam_fraction, 4),
-                cutoff_pitch_nm=round(res.cutoff_pitch_nm, 3),
-                lines=lines,
-                periodicity=periodicity_class(lines, rule.dense_min_lines),
-                sites=len(members),
-                run_nm=round(float(u1 - u0), 3),
-                bbox_nm=bbox,
-                outline_nm=outline,
-                limit=limit,
-                message=message,
-                hint=hint,
-                contrast=round(m.contrast, 4) if m else math.nan,
-                nils=round(m.nils, 3) if m else math.nan,
-                cd_nm=round(m.cd_nm, 2) if m and math.isfinite(m.cd_nm) else math.nan,
-                cd_error_pct=round(m.cd_error_pct, 2) if m else math.nan,
-                el_pct=round(m.el_pct, 2) if m else math.nan,
-                dof_nm=round(m.dof_nm, 1) if m else math.nan,
-                violations=tuple(vs),
-                context=context,
-                cut_bounds_nm=tuple(round(b * scale_to_wafer, 3) for b in cut.bounds)
-                if cut
-                else (),
-                cut_angle_deg=round(pitch_angle % 360.0, 3),
-                cut_origin_nm=(float(mid[0]), float(mid[1])),
-                threshold=round(m.threshold, 5) if m else math.nan,
-                line_points=line_points,
-                border_sites=border,
-                extent_nm=convex_hull(corners_all[members].reshape(-1, 2))
-                if border is not None and len(border)
-                else None,
-                hint_key=key if defer_hints else None,
-            )
+        finding = Finding(
+            layer=rule.name,
+            source=rule.source,
+            exposure=rule.exposure_name,
+            check=top.check,
+            severity=SEVERITIES[code],
+            pitch_nm=round(pitch_drawn, 3),
+            pitch_max_nm=round(float(pitch_all[members].max()), 3),
+            width_nm=round(width_drawn, 3),
+            space_nm=round(float(fs.space[worst]), 3),
+            wafer_pitch_nm=round(pitch_drawn * scale_to_wafer, 3),
+            k1=round(res.k1, 4),
+            orientation_deg=round(float(angle_all[worst]), 3),
+            orders=res.orders,
+            orders_on_axis=res.orders_on_axis,
+            two_beam_fraction=round(res.two_beam_fraction, 4),
+            cutoff_pitch_nm=round(res.cutoff_pitch_nm, 3),
+            lines=lines,
+            periodicity=periodicity_class(lines, rule.dense_min_lines),
+            sites=len(members),
+            run_nm=round(float(u1 - u0), 3),
+            bbox_nm=bbox,
+            outline_nm=outline,
+            limit=limit,
+            message=message,
+            hint=hint,
+            contrast=round(m.contrast, 4) if m else math.nan,
+            nils=round(m.nils, 3) if m else math.nan,
+            cd_nm=round(m.cd_nm, 2) if m and math.isfinite(m.cd_nm) else math.nan,
+            cd_error_pct=round(m.cd_error_pct, 2) if m else math.nan,
+            el_pct=round(m.el_pct, 2) if m else math.nan,
+            dof_nm=round(m.dof_nm, 1) if m else math.nan,
+            violations=tuple(vs),
+            context=context,
+            cut_bounds_nm=tuple(round(b * scale_to_wafer, 3) for b in cut.bounds) if cut else (),
+            cut_angle_deg=round(pitch_angle % 360.0, 3),
+            cut_origin_nm=(float(mid[0]), float(mid[1])),
+            threshold=round(m.threshold, 5) if m else math.nan,
         )
-    out.sort(key=lambda f: (f.severity_rank, f.k1, f.bbox_nm))
+        extent = None
+        if border is not None and len(border):
+            extent = convex_hull(corners_all[members].reshape(-1, 2))
+        out.append(Region(finding, line_points, border, extent, key if defer_hints else None))
+    out.sort(key=lambda r: (r.finding.severity_rank, r.finding.k1, r.finding.bbox_nm))
     return out

@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 
 from pitchguard.deck import SEVERITIES, Deck
-from pitchguard.judge.findings import Finding, FindingSet, finding_copier
+from pitchguard.judge.findings import FindingSet, placed, replaced
 from pitchguard.judge.regions import (
     SNAP_PITCH_SPREAD,
+    Region,
     canonical_normal,
     count_lines,
     periodicity_class,
@@ -16,13 +19,27 @@ from pitchguard.judge.regions import (
 )
 
 
+class Assembled(NamedTuple):
+    """A tiled scan's findings: every tile's, as distinct findings and offsets.
+
+    ``hint_keys[i]`` is what the hint of ``findings.distinct[i]`` is made from
+    (None when it has its hint); ``per_group`` pairs each distinct tile's
+    counts with its number of tiles.
+    """
+
+    findings: FindingSet
+    hint_keys: list
+    per_group: list
+
+
 class TileAssembly:
     """Findings of every tile from those of the distinct tiles, merged across borders.
 
     :meth:`add` takes each distinct tile's result as it arrives (in any order);
     :meth:`finish` merges the regions cut by tile borders and returns a
-    :class:`~pitchguard.classify.FindingSet`: each distinct tile's findings
-    once, with the offsets of the tiles they recur on.  No per-copy record is
+    :class:`~pitchguard.judge.findings.FindingSet`: each distinct tile's
+    findings once, with the offsets of the tiles they recur on, and the hint
+    key of each distinct finding.  No per-copy record is
     made here: the copies of a chip's findings (10^5-10^6) are made by
     whoever reads them, one at a time.  The outcome does not depend on the
     arrival order.
@@ -36,8 +53,8 @@ class TileAssembly:
     def __init__(self, tiles):
         self.tiles = tiles
         self.members: list[list[int]] = []  # per group: its tiles, the first scanned
-        self.inner: list = []  # final findings, away from the tile's border
-        self.reps: list = []  # findings with sites near the border
+        self.inner: list[list[Region]] = []  # final regions, away from the tile's border
+        self.reps: list[list[Region]] = []  # regions with sites near the border
         self.stats: list = []
 
     def group(self, members: list[int]) -> int:
@@ -48,31 +65,30 @@ class TileAssembly:
         self.stats.append(None)
         return len(self.members) - 1
 
-    def add(self, g: int, result) -> None:
-        fs, stats = result
-        # Only findings with sites near a tile's border can join other tiles'; the
-        # others came final from tile_task.
-        self.inner[g] = [f for f in fs if not on_border(f)]
-        self.reps[g] = [f for f in fs if on_border(f)]
+    def add(self, g: int, regions: list[Region], stats) -> None:
+        # Only regions with sites near a tile's border can join other tiles'; the
+        # others came finished from tile_task.
+        self.inner[g] = [r for r in regions if not r.on_border]
+        self.reps[g] = [r for r in regions if r.on_border]
         self.stats[g] = stats
 
-    def finish(self, deck: Deck, grid_nm: float) -> tuple[FindingSet, list]:
+    def finish(self, deck: Deck, grid_nm: float) -> Assembled:
         if any(s is None for s in self.stats):
             raise RuntimeError("a distinct tile's result is missing")
         boxes = np.asarray(self.tiles, dtype=np.float64).reshape(-1, 4)
         # Each group's tiles, from its first tile, (m, 2) nm.
         offsets = [boxes[m, :2] - boxes[m[0], :2] for m in self.members]
         size = np.array([len(m) for m in self.members])
-        distinct: list[Finding] = []
+        distinct: list[Region] = []
         which: list[np.ndarray] = []
         offset: list[np.ndarray] = []
-        for g, fs in enumerate(self.inner):  # by group, finding, then tile
-            which.append(np.repeat(np.arange(len(distinct), len(distinct) + len(fs)), size[g]))
-            offset.append(np.tile(offsets[g], (len(fs), 1)))
-            distinct.extend(fs)
+        for g, rs in enumerate(self.inner):  # by group, finding, then tile
+            which.append(np.repeat(np.arange(len(distinct), len(distinct) + len(rs)), size[g]))
+            offset.append(np.tile(offsets[g], (len(rs), 1)))
+            distinct.extend(rs)
         # Border copies, numbered group by group, finding-major: the copy of
         # group g's border finding r on its tile m is start[g] + r size[g] + m.
-        raw = [f for reps in self.reps for f in reps]
+        raw = [r for reps in self.reps for r in reps]
         n_reps = np.array([len(r) for r in self.reps])
         rep0 = np.r_[0, np.cumsum(n_reps)[:-1]]
         start = np.r_[0, np.cumsum(n_reps * size)[:-1]]
@@ -128,12 +144,10 @@ class TileAssembly:
         kind, moved, first_of = _kinds(inside, sizes, b_which, b_off)
         parts = {k: _moved_part(raw[b_which[k]], b_off[k]) for g in first_of for k in g.tolist()}
         merged = merge_regions(parts, first_of, deck, grid_nm)
-        for f in merged:  # line points served the line count
-            _set(f, "line_points", None)
         # In the order of each region's first part: a part alone is a copy of its
         # distinct finding; a merged region a copy of its kind's.
         base = len(distinct)
-        distinct.extend(finalised(f) for f in raw)
+        distinct.extend(raw)
         distinct.extend(merged)
         lone = slot < 0
         w = np.empty(len(slot), dtype=np.int64)
@@ -145,7 +159,10 @@ class TileAssembly:
         which.append(w)
         offset.append(o)
         per_group = [(st, len(m)) for st, m in zip(self.stats, self.members, strict=True)]
-        return FindingSet(distinct, np.concatenate(which), np.concatenate(offset)), per_group
+        findings = FindingSet(
+            [r.finding for r in distinct], np.concatenate(which), np.concatenate(offset)
+        )
+        return Assembled(findings, [r.hint_key for r in distinct], per_group)
 
 
 def _kinds(inside: np.ndarray, sizes: np.ndarray, which: np.ndarray, off: np.ndarray):
@@ -174,31 +191,15 @@ def _kinds(inside: np.ndarray, sizes: np.ndarray, which: np.ndarray, off: np.nda
     return kind, moved, [inside[start[i] : start[i] + sizes[i]] for i in first_group]
 
 
-def on_border(f: Finding) -> bool:
-    """Has sites near its tile's border (it may join other tiles' findings)."""
-    return f.border_sites is not None and len(f.border_sites) > 0
-
-
-def finalised(f: Finding) -> Finding:
-    """``f`` without what only served the merge (line points, border sites, hull)."""
-    if f.line_points is None and f.border_sites is None and f.extent_nm is None:
-        return f
-    return _stripped(f, None, None, None)
-
-
-def _moved_part(f: Finding, off: np.ndarray) -> Finding:
-    """A border finding moved by ``off`` (nm), line points and hull included."""
+def _moved_part(r: Region, off: np.ndarray) -> Region:
+    """A border region moved by ``off`` (nm), line points and hull included."""
     dx, dy = off.tolist()
-    x0, y0, x1, y1 = f.bbox_nm
-    cx, cy = f.cut_origin_nm
-    return _mover(
-        f,
-        (x0 + dx, y0 + dy, x1 + dx, y1 + dy),
-        tuple([(x + dx, y + dy) for x, y in f.outline_nm]),
-        (cx + dx, cy + dy),
-        None if f.line_points is None else f.line_points + off,
+    return Region(
+        placed(r.finding, dx, dy),
+        None if r.line_points is None else r.line_points + off,
         None,
-        None if f.extent_nm is None else f.extent_nm + off,
+        None if r.extent_nm is None else r.extent_nm + off,
+        r.hint_key,
     )
 
 
@@ -263,38 +264,6 @@ def neighbouring_tiles(tiles) -> tuple[np.ndarray, np.ndarray]:
     return qi[keep], qj[keep]
 
 
-_MOVED = ("bbox_nm", "outline_nm", "cut_origin_nm", "line_points", "border_sites", "extent_nm")
-
-
-_MERGED = (
-    "pitch_max_nm",
-    "lines",
-    "periodicity",
-    "sites",
-    "run_nm",
-    "bbox_nm",
-    "outline_nm",
-    "line_points",
-    "border_sites",
-    "extent_nm",
-)
-
-
-_mover = finding_copier(_MOVED)
-
-
-_stripped = finding_copier(("line_points", "border_sites", "extent_nm"))
-
-
-hinted = finding_copier(("hint", "hint_key"))
-
-
-_set = object.__setattr__  # findings are frozen; only fresh copies made here are set
-
-
-_merged = finding_copier(_MERGED)
-
-
 class BorderSites:
     """Which findings of two neighbouring tiles are parts of one region.
 
@@ -310,7 +279,7 @@ class BorderSites:
     """Candidate boxes are padded by this much (far below any grid) so that the
     R-tree passes every pair the exact test, which allows 1e-6 nm, may accept."""
 
-    def __init__(self, reps: list[list[Finding]], deck: Deck, grid_nm: float):
+    def __init__(self, reps: list[list[Region]], deck: Deck, grid_nm: float):
         self.reps = reps
         self.names = [r.name for r in deck.layers]
         self.tol_of = np.array(
@@ -325,10 +294,10 @@ class BorderSites:
     def sites(self, g: int) -> tuple:
         """Group ``g``'s border sites: corners (k, 4, 2), angle, pitch, layer, owner."""
         if g not in self._sites:
-            fs = self.reps[g]
-            rows = np.concatenate([f.border_sites for f in fs])
-            owner = np.repeat(np.arange(len(fs)), [len(f.border_sites) for f in fs])
-            layer = np.array([self.names.index(f.layer) for f in fs])[owner]
+            rs = self.reps[g]
+            rows = np.concatenate([r.border_sites for r in rs])
+            owner = np.repeat(np.arange(len(rs)), [len(r.border_sites) for r in rs])
+            layer = np.array([self.names.index(r.finding.layer) for r in rs])[owner]
             self._sites[g] = (rows[:, :8].reshape(-1, 4, 2), rows[:, 8], rows[:, 9], layer, owner)
         return self._sites[g]
 
@@ -360,10 +329,10 @@ class BorderSites:
 
 
 def merge_regions(
-    findings: dict[int, Finding], groups: list[np.ndarray], deck: Deck, grid_nm: float
-) -> list[Finding]:
-    """One finding per group of parts (``findings`` by number): the worst part's,
-    spanning all parts.
+    regions: dict[int, Region], groups: list[np.ndarray], deck: Deck, grid_nm: float
+) -> list[Region]:
+    """One region per group of parts (``regions`` by number): the worst part's
+    finding, spanning all parts, with the worst part's hint key.
 
     The region's frame is its worst site's (the worst part's outline); the
     outline is the parts' extent in that frame; line positions are united,
@@ -374,7 +343,7 @@ def merge_regions(
     members = np.concatenate(groups)
     gid = np.repeat(np.arange(len(groups)), [len(g) for g in groups])
     rank = {s: k for k, s in enumerate(SEVERITIES)}
-    parts = [findings[k] for k in members.tolist()]
+    parts = [regions[k].finding for k in members.tolist()]
     sev = np.array([rank[f.severity] for f in parts])
     pitch = np.array([f.pitch_nm for f in parts])
     cut = np.round(np.array([f.cut_origin_nm for f in parts], dtype=np.float64), 3)
@@ -382,10 +351,10 @@ def merge_regions(
     order = np.lexsort((np.arange(len(parts)), cut[:, 0], cut[:, 1], pitch, sev, gid))
     first = np.r_[True, gid[order][1:] != gid[order][:-1]]
     best = members[order[first]]
-    o = np.array([findings[k].outline_nm for k in best.tolist()], dtype=np.float64)
+    o = np.array([regions[k].finding.outline_nm for k in best.tolist()], dtype=np.float64)
     d = o[:, 1] - o[:, 0]
     length = np.hypot(d[:, 0], d[:, 1])
-    rad = np.radians([findings[k].orientation_deg for k in best.tolist()])
+    rad = np.radians([regions[k].finding.orientation_deg for k in best.tolist()])
     d = np.where(
         length[:, None] > 0,
         d / np.where(length > 0, length, 1.0)[:, None],
@@ -394,9 +363,9 @@ def merge_regions(
     nrm = np.stack([d[:, 1], -d[:, 0]], axis=1)
     # The parts' extents (hulls of their sites' corners) in the frame of the worst.
     hulls = [
-        findings[k].extent_nm
-        if findings[k].extent_nm is not None
-        else np.asarray(findings[k].outline_nm, dtype=np.float64)
+        regions[k].extent_nm
+        if regions[k].extent_nm is not None
+        else np.asarray(regions[k].finding.outline_nm, dtype=np.float64)
         for k in members.tolist()
     ]
     sizes = np.array([len(h) for h in hulls])
@@ -427,25 +396,21 @@ def merge_regions(
     for g, (b, corner, box) in enumerate(
         zip(best.tolist(), corners.tolist(), boxes.tolist(), strict=True)
     ):
-        f = findings[b]
-        parts = [findings[k].line_points for k in groups[g].tolist()]
+        f = regions[b].finding
+        parts = [regions[k].line_points for k in groups[g].tolist()]
         points = np.unique(
             np.concatenate([q for q in parts if q is not None] or [np.zeros((0, 2))]), axis=0
         )
         lines = count_lines(points, canonical_normal(nrm[g]), grid_nm)
-        out.append(
-            _merged(
-                f,
-                float(pmax[g]),
-                lines,
-                periodicity_class(lines, dense[f.layer]),
-                int(sites[g]),
-                round(float(u1[g] - u0[g]), 3),
-                tuple(box),
-                tuple(map(tuple, corner)),
-                points,
-                None,
-                None,
-            )
+        merged = replaced(
+            f,
+            pitch_max_nm=float(pmax[g]),
+            lines=lines,
+            periodicity=periodicity_class(lines, dense[f.layer]),
+            sites=int(sites[g]),
+            run_nm=round(float(u1[g] - u0[g]), 3),
+            bbox_nm=tuple(box),
+            outline_nm=tuple(map(tuple, corner)),
         )
+        out.append(Region(merged, hint_key=regions[b].hint_key))
     return out

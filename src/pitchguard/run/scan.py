@@ -13,6 +13,7 @@ from pitchguard.geometry.features import build_features
 from pitchguard.geometry.sites import ExtractStats, find_sites, in_region
 from pitchguard.judge.findings import Finding
 from pitchguard.judge.order import sort_findings
+from pitchguard.judge.regions import Region
 from pitchguard.judge.verdicts import classify_layer
 from pitchguard.layout.isolated import read_layout_isolated
 from pitchguard.layout.polygons import PolygonSet
@@ -67,16 +68,16 @@ def scan_polygons(
     region_nm: tuple[float, float, float, float] | None = None,
     progress: Progress | None = None,
     tile: bool = False,
-) -> tuple[list[Finding], list[LayerStats]]:
-    """Scan the deck's layers in ``polygons`` (nm, as drawn).
+) -> tuple[list[Region], list[LayerStats]]:
+    """Scan the deck's layers in ``polygons`` (nm, as drawn): flagged regions and counts.
 
     With ``region_nm`` only sites whose midpoint lies in the region are judged;
     shapes up to one interaction range outside it are still seen as neighbours.  With
-    ``tile`` the region is a tile of a tiled scan: findings keep the sites
-    that regions of other tiles may join through (``Finding.border_sites``),
-    and their hints are left to the caller (``Finding.hint_key``).
+    ``tile`` the region is a tile of a tiled scan: regions keep the sites
+    that regions of other tiles may join through (``Region.border_sites``),
+    and their hints are left to the caller (``Region.hint_key``).
     """
-    findings: list[Finding] = []
+    regions: list[Region] = []
     stats: list[LayerStats] = []
     scale = deck.scale_to_wafer
     total = 3 * len(deck.layers)
@@ -115,7 +116,7 @@ def scan_polygons(
                 cut_keys = frozenset(
                     (c, round(a, 1) % 180.0) for c, a in zip(cuts, angles, strict=True)
                 )
-        findings.extend(
+        regions.extend(
             classify_layer(
                 sites,
                 rule,
@@ -132,7 +133,7 @@ def scan_polygons(
             LayerStats(rule.name, rule.source, ex.shapes, ex, time.perf_counter() - t0, cut_keys)
         )
     tick("done", total)
-    return findings, stats
+    return regions, stats
 
 
 def scan_layout(
@@ -158,8 +159,6 @@ def scan_layout(
         **({"timeout_s": read_timeout_s} if read_timeout_s else {}),
     )
     region_nm = tuple(v * 1000.0 for v in region_um) if region_um else None
-    findings, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
-    for f in findings:  # regions are final: their line points served the line count
-        object.__setattr__(f, "line_points", None)
-    findings = sort_findings(findings)
+    regions, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
+    findings = sort_findings([r.finding for r in regions])
     return ScanResult(findings, stats, layout, warnings, time.perf_counter() - t0)

@@ -6,16 +6,17 @@ import functools
 import os
 from dataclasses import replace
 from pathlib import Path
+from typing import NamedTuple
 
 from pitchguard.deck import Deck, parse_deck
 from pitchguard.errors import LayoutError
 from pitchguard.geometry.sites import SITE_CELL_NM
 from pitchguard.judge.hints import give_grating_passes, hint_text, take_grating_passes
+from pitchguard.judge.regions import Region
 from pitchguard.layout.polygons import PolygonSet, snap_to_grid
 from pitchguard.optics.cut_images import give_imaged, take_imaged
-from pitchguard.run.merge import finalised, on_border
 from pitchguard.run.plan import Structure
-from pitchguard.run.scan import scan_polygons
+from pitchguard.run.scan import LayerStats, scan_polygons
 
 _OPEN: dict = {}
 
@@ -103,6 +104,16 @@ def keys_task(path: str, cell: str | None, layers, tiles, halo: float) -> list[b
     ]
 
 
+class TileResult(NamedTuple):
+    """What a tile task returns: the tile's flagged regions (those near its
+    border with what a merge needs), counts per deck layer, and the cuts this
+    worker imaged since its last tile (for the tasks that start later)."""
+
+    regions: list[Region]
+    stats: list[LayerStats]
+    imaged: list
+
+
 def tile_task(
     path: str,
     deck_text: str,
@@ -112,7 +123,7 @@ def tile_task(
     max_shapes: int | None = None,
     imaged=(),
 ):
-    """Scan one tile; returns ``(findings, stats per layer, cuts imaged)``.
+    """Scan one tile (see :class:`TileResult`).
 
     A tile holding more than ``max_shapes`` shapes (counted from the hierarchy
     before any is read: a corrupt or extreme array can pile millions into one
@@ -143,11 +154,11 @@ def tile_task(
     # depend on where the finding is); a region merged across tiles keeps its worst
     # part's.
     give_imaged(imaged)
-    findings, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile), tile=True)
-    # Findings with no site near the border are final here: what only served a
-    # merge is dropped before they travel (half the bytes of such findings).
-    findings = [f if on_border(f) else finalised(f) for f in findings]
-    return findings, stats, take_imaged()
+    regions, stats = scan_polygons(polys, deck, st.grid_nm, region_nm=tuple(tile), tile=True)
+    # Regions with no site near the border are final here: what only a merge
+    # needs is dropped before they travel (half the bytes of such regions).
+    regions = [r if r.on_border else r.finished() for r in regions]
+    return TileResult(regions, stats, take_imaged())
 
 
 def hints_task(deck_text: str, keys: list[tuple], judged=()) -> tuple[dict, list]:

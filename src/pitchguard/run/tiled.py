@@ -8,11 +8,11 @@ from pathlib import Path
 
 from pitchguard.deck import Deck
 from pitchguard.geometry.sites import ExtractStats
-from pitchguard.judge.findings import FindingSet
+from pitchguard.judge.findings import FindingSet, replaced
 from pitchguard.judge.order import sort_findings
 from pitchguard.layout.reader import Layout
 from pitchguard.run.engine import WorkerPool
-from pitchguard.run.merge import TileAssembly, hinted
+from pitchguard.run.merge import TileAssembly
 from pitchguard.run.plan import (
     DEFAULT_TILED_MAX_SHAPES,
     Structure,
@@ -37,11 +37,12 @@ CUTS_SHARED = 2000
 """Most cuts imaged elsewhere passed to a tile task (about 1 kB each, pickled)."""
 
 
-def with_hints(findings: FindingSet, texts: dict) -> FindingSet:
-    """``findings`` with their hints made (:func:`hints_task`)."""
+def with_hints(findings: FindingSet, keys: list, texts: dict) -> FindingSet:
+    """``findings`` with their hints made (:func:`hints_task`) from the hint
+    keys of the distinct findings."""
     distinct = [
-        f if f.hint_key is None else hinted(f, texts[(f.layer, repr(f.hint_key))], None)
-        for f in findings.distinct
+        f if key is None else replaced(f, hint=texts[(f.layer, repr(key))])
+        for f, key in zip(findings.distinct, keys, strict=True)
     ]
     return FindingSet(distinct, findings.which, findings.offset)
 
@@ -141,15 +142,15 @@ def scan_tiled(
         else:
             first = [run.tile(assembly.group([k])) for k in range(len(tiles))]
         engine.stream(first, run.arrived, in_flight=2 * engine.workers)
-        findings, per_group_stats = assembly.finish(deck, st.grid_nm)
+        assembled = assembly.finish(deck, st.grid_nm)
         tiling = {
             "tile_um": tile_nm / 1000.0,
             "tiles": len(tiles),
             "distinct": len(assembly.members),
             "workers": engine.workers,
         }
-    findings = with_hints(findings, run.texts)
-    stats = sum_stats(deck, per_group_stats)
+    findings = with_hints(assembled.findings, assembled.hint_keys, run.texts)
+    stats = sum_stats(deck, assembled.per_group)
     if ordered:
         findings = sort_findings(findings)
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})
@@ -231,19 +232,18 @@ class TileScheduler:
             if self.chunks:
                 more.insert(0, self.next_chunk())
         else:
-            fs, layer_stats, fresh = result
-            for row in fresh:
+            for row in result.imaged:
                 self.imaged.setdefault(row[:4], row)
-            self.assembly.add(tag, (fs, layer_stats))
+            self.assembly.add(tag, result.regions, result.stats)
             self.scanned += 1
             if self.engine.progress:
                 n = len(self.assembly.members)
                 so_far = " so far" if self.keyed < len(self.tiles) else ""
                 self.engine.progress(f"tiles ({n} distinct{so_far})", self.scanned, n)
             new = {
-                (f.layer, repr(f.hint_key)): (f.layer, f.hint_key)
-                for f in fs
-                if f.hint_key is not None and (f.layer, repr(f.hint_key)) not in self.asked
+                (r.finding.layer, repr(r.hint_key)): (r.finding.layer, r.hint_key)
+                for r in result.regions
+                if r.hint_key is not None and (r.finding.layer, repr(r.hint_key)) not in self.asked
             }
             self.asked.update(new)
             self.hint_keys.extend(k for _, k in sorted(new.items()))
