@@ -41,9 +41,8 @@ def main(argv: list[str] | None = None) -> int:
     request_stop(None)
     # No garbage collection while the command starts: importing numpy, pydantic
     # and the deck's models makes objects that live to the end, and collections
-    # that walk them found nothing (a quiet scan's start, up to the scan, took
-    # 0.163 s instead of 0.176 s: medians of 8 interleaved runs).  Resumed before
-    # any scan (workers fork with it on) and before other commands' work.
+    # that walk them find nothing.  Resumed before any scan (workers fork with
+    # it on) and before other commands' work.
     if gc.isenabled():
         gc.disable()
         GC_PAUSED["by_us"] = True
@@ -81,8 +80,8 @@ def main(argv: list[str] | None = None) -> int:
         sys.stderr.flush()
         os._exit(code)
     if argv is None:
-        # The interpreter's last collections would walk every object left (the
-        # imports alone: about 40 ms a run, measured); the process ends anyway.
+        # The interpreter's last collections would walk every object left; the
+        # process ends anyway.
         gc.freeze()
     return code
 

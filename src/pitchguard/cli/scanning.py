@@ -41,7 +41,7 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
     from pitchguard.run.scan import scan_layout
 
     err = bar = update = None
-    if not args.quiet:  # quiet: no bar, no notes, and no rich to import (15 ms, measured)
+    if not args.quiet:  # quiet: no bar, no notes, and no rich to import
         err = make_console(stderr=True)
         bar, update = progress_callback(err)
     if update and label:

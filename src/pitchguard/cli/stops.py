@@ -76,7 +76,7 @@ def after_fork_in_child() -> None:
     stopping to the command: SIGTERM kills it quietly, SIGINT (a Ctrl-C reaches
     the whole process group) is ignored.  Run with the handlers of the command,
     it would raise in the middle of whatever it was doing and print a traceback
-    (seen: a SIGTERM in a tile worker still running its initializer)."""
+    (a SIGTERM in a tile worker still running its initializer, say)."""
     if signal.getsignal(signal.SIGTERM) is on_sigterm:
         signal.signal(signal.SIGTERM, signal.SIG_DFL)
         signal.signal(signal.SIGINT, signal.SIG_IGN)

@@ -10,9 +10,8 @@ QUERY_CHUNK = 100_000
 
 
 RTREE_CAPACITY = 16
-"""Node capacity of the R-trees.  A bulk self-query of 10^6 line-shaped boxes
-took 3.3 s against 6.5 s with the library default of 100; end to end on the
-10^6-shape benchmark the two settings were within run-to-run noise."""
+"""Node capacity of the R-trees: smaller than the library's default of 100,
+which makes bulk self-queries of line-shaped boxes about twice as fast."""
 
 
 def components(n: int, a: np.ndarray, b: np.ndarray) -> tuple[int, np.ndarray]:
@@ -25,9 +24,9 @@ def components(n: int, a: np.ndarray, b: np.ndarray) -> tuple[int, np.ndarray]:
     points every node straight at its root; edges inside one component are
     dropped.  Every root left with an edge has a neighbour that hooked, so
     the roots still to merge at least halve per round.  Written here because
-    scipy's version was the only use of scipy.sparse in a scan, and importing
-    it cost 0.13 s in every scan (it pulls in scipy.linalg); the test checks
-    this one against scipy's.
+    scipy's version would be a scan's only use of scipy.sparse, whose import
+    (it pulls in scipy.linalg) costs more than the work; the test checks this
+    one against scipy's.
     """
     parent = np.arange(n, dtype=np.intp)
     a = np.asarray(a, dtype=np.intp)
@@ -75,10 +74,10 @@ BATCH_MAX = 8
 def query_pairs_batched(index, item_lo, item_hi, mins, maxs) -> tuple[np.ndarray, np.ndarray]:
     """:func:`query_pairs` for many boxes in rows, at a fraction of the cost.
 
-    An R-tree query costs about 3 us whatever it returns and about 0.15 us per
-    item found (measured with the rtree package on this project's edge
-    trees).  The boxes of an array's edges and cuts come in rows: the same
-    extent in y (or x), one after another in x (or y).  Up to
+    An R-tree query has a fixed cost many times that of each item it finds
+    (see DEVELOPERS.md, "Performance").  The boxes of an array's edges and
+    cuts come in rows: the same extent in y (or x), one after another in x
+    (or y).  Up to
     :data:`BATCH_MAX` such neighbours are queried as one box covering them
     (a batch spans at most one box's width plus height), and each item found
     is kept for each box it touches (closed intervals, the R-tree's own

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 from pitchguard.deck import SEVERITIES, LayerRule
@@ -46,6 +47,23 @@ def _fmt(x: float) -> str:
     return f"{x:.1f}"
 
 
+def _band_violation(
+    rule: LayerRule,
+    check: str,
+    value: float,
+    bands: tuple[tuple[str, str], ...],
+    words: Callable[[float, str], str],
+) -> Violation | None:
+    """The first band, worst first, that ``value`` falls below: ``bands`` pairs a
+    severity with the rule's key of its limit; ``words(limit, key)`` is the
+    message."""
+    for severity, key in bands:
+        limit = getattr(rule, key)
+        if value < limit:
+            return Violation(check, severity, value, limit, words(limit, key))
+    return None
+
+
 def violations(
     rule: LayerRule, res: OrderResult, metrics: Metrics | None, pitch_wafer: float
 ) -> list[Violation]:
@@ -87,41 +105,34 @@ def violations(
                 )
             )
     if math.isfinite(pitch_wafer):
-        k1_bands = (
-            ("risk", rule.k1_risk_below, "k1_risk_below"),
-            ("marginal", rule.k1_marginal_below, "k1_marginal_below"),
+        k1_bands = (("risk", "k1_risk_below"), ("marginal", "k1_marginal_below"))
+        v = _band_violation(
+            rule,
+            "low-k1",
+            res.k1,
+            k1_bands,
+            lambda limit, key: (
+                f"k1 {res.k1:.3f} is below {limit:g} ({key}) at pitch "
+                f"{_fmt(pitch_wafer)} nm (wafer)"
+            ),
         )
-        for sev, band, key in k1_bands:
-            if res.k1 < band:
-                out.append(
-                    Violation(
-                        "low-k1",
-                        sev,
-                        res.k1,
-                        band,
-                        f"k1 {res.k1:.3f} is below {band:g} ({key}) at pitch "
-                        f"{_fmt(pitch_wafer)} nm (wafer)",
-                    )
-                )
-                break
+        if v is not None:
+            out.append(v)
     if m is not None and not (m.lost or m.bridged):
         nils_bands = (
-            ("fail", rule.nils_fail_below, "nils_fail_below"),
-            ("risk", rule.nils_risk_below, "nils_risk_below"),
-            ("marginal", rule.nils_marginal_below, "nils_marginal_below"),
+            ("fail", "nils_fail_below"),
+            ("risk", "nils_risk_below"),
+            ("marginal", "nils_marginal_below"),
         )
-        for sev, band, key in nils_bands:
-            if m.nils < band:
-                out.append(
-                    Violation(
-                        "low-nils",
-                        sev,
-                        m.nils,
-                        band,
-                        f"NILS {m.nils:.2f} at the drawn edges is below {band:g} ({key})",
-                    )
-                )
-                break
+        v = _band_violation(
+            rule,
+            "low-nils",
+            m.nils,
+            nils_bands,
+            lambda limit, key: f"NILS {m.nils:.2f} at the drawn edges is below {limit:g} ({key})",
+        )
+        if v is not None:
+            out.append(v)
         if m.el_pct < rule.el_min_pct:
             out.append(
                 Violation(

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 from functools import lru_cache
+from typing import NamedTuple
 
 from pitchguard.deck import LayerRule
 from pitchguard.judge.checks import Violation, violations
@@ -27,7 +28,7 @@ def _grating_orders_ok(rule: LayerRule, pitch_q: int, angle_q: int, quantum: flo
 _passes_given: dict[tuple, bool] = {}  # (rule values, cd_q, pitch_q, angle_q, quantum) -> passes
 
 
-_passes_fresh: list[tuple] = []
+_passes_fresh: list[JudgedGrating] = []
 
 
 def _rule_values(rule: LayerRule) -> tuple:
@@ -35,22 +36,37 @@ def _rule_values(rule: LayerRule) -> tuple:
     return tuple(getattr(rule, k) for k in type(rule).__slots__)
 
 
-def take_grating_passes() -> list[tuple]:
+class JudgedGrating(NamedTuple):
+    """An ideal grating judged for a hint, as passed between processes: keyed
+    by the rule's values and the grating on the hint search's grid."""
+
+    rule_values: tuple
+    cd_q: int
+    pitch_q: int
+    angle_q: int
+    quantum: float
+    passes: bool
+
+    @property
+    def key(self) -> tuple:
+        return (self.rule_values, self.cd_q, self.pitch_q, self.angle_q, self.quantum)
+
+
+def take_grating_passes() -> list[JudgedGrating]:
     """Ideal gratings judged here since the last call, to share with other
-    processes: rows ``(rule values, cd_q, pitch_q, angle_q, quantum, passes)``
-    (see :func:`give_grating_passes`)."""
+    processes (see :func:`give_grating_passes`)."""
     rows = list(_passes_fresh)
     _passes_fresh.clear()
     return rows
 
 
-def give_grating_passes(rows) -> None:
+def give_grating_passes(rows: list[JudgedGrating]) -> None:
     """Take gratings another process judged (:func:`take_grating_passes`); a row
     serves only a rule equal to the one it was judged under."""
     if len(_passes_given) + len(rows) > 65536:
         _passes_given.clear()
-    for *key, passes in rows:
-        _passes_given[tuple(key)] = passes
+    for row in rows:
+        _passes_given[row.key] = row.passes
 
 
 @lru_cache(maxsize=4096)
@@ -61,7 +77,7 @@ def _grating_passes(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quan
     if given is not None:
         return given
     passes = _judge_grating(rule, cd_q, pitch_q, angle_q, quantum)
-    _passes_fresh.append((*key, passes))
+    _passes_fresh.append(JudgedGrating(*key, passes))
     return passes
 
 

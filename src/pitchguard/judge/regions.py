@@ -88,9 +88,9 @@ def convex_hull(points: np.ndarray) -> np.ndarray:
     collinear: the extremes are among them).
 
     gdstk's hull (the layout reader, loaded in every tile worker already; it
-    runs Qhull), not scipy.spatial's: importing that took 0.32 s in every
-    tile worker, for this alone (measured on the 10^7-shape benchmark chip).
-    Qhull prints an error on collinear input, so that is caught first.
+    runs Qhull), not scipy.spatial's, whose import in every tile worker would
+    cost more than the hulls.  Qhull prints an error on collinear input, so
+    that is caught first.
     """
     import gdstk
 

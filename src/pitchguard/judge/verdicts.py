@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numpy as np
 
@@ -27,22 +28,28 @@ from pitchguard.optics.orders import OrderResult, analyse_pitch
 from pitchguard.optics.resist import Metrics
 
 
+class SiteVerdicts(NamedTuple):
+    """Sites judged: ``results[which[k]]`` is the order analysis of site ``k``
+    (identical pitch/orientation pairs are analysed once) and
+    ``found[(which[k], which_cut[k])]`` its violations, worst first."""
+
+    severity: np.ndarray  # code per site: an index into SEVERITIES, or OK
+    results: list[OrderResult]
+    which: np.ndarray
+    found: dict
+
+
 def judge_sites(
     sites: Sites,
     rule: LayerRule,
     scale_to_wafer: float,
     metrics: list[Metrics] | None = None,
     which_cut: np.ndarray | None = None,
-) -> tuple[np.ndarray, list[OrderResult], np.ndarray, dict]:
-    """Severity code per site, with the analyses behind it.
-
-    Returns ``(severity, results, which, found)``: ``results[which[k]]`` is
-    the order analysis of site ``k`` (identical pitch/orientation pairs are
-    analysed once) and ``found[(which[k], which_cut[k])]`` its violations.
-    """
+) -> SiteVerdicts:
+    """Severity code per site, with the analyses behind it (:class:`SiteVerdicts`)."""
     n = len(sites)
     if n == 0:
-        return np.zeros(0, dtype=np.int8), [], np.zeros(0, dtype=np.int64), {}
+        return SiteVerdicts(np.zeros(0, dtype=np.int8), [], np.zeros(0, dtype=np.int64), {})
     pitch = sites.pitch * scale_to_wafer
     finite = np.isfinite(pitch)
     key = np.stack(
@@ -70,7 +77,7 @@ def judge_sites(
         vs = violations(rule, results[w], m, p if p > 0 else math.inf)
         found[(w, c - 1)] = vs
         codes[k] = worst_severity_code(vs)
-    return codes[inv.ravel()], results, which, found
+    return SiteVerdicts(codes[inv.ravel()], results, which, found)
 
 
 def classify_layer(

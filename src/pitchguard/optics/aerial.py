@@ -14,9 +14,8 @@ from pitchguard.optics.orders import sample_source
 IMAGE_SOURCE_STEP = 0.02
 """Source sampling step (sigma units) for imaging, edge cells refined
 (``orders.sample_source``).  Refining it to 0.01 changes the image by less
-than 3e-3 of the open frame through pitch (measured worst case 2.0e-3:
-quadrupole, k1 0.4; unit test).  The image cost does not depend on it, only
-the one-off TCC build does."""
+than 3e-3 of the open frame through pitch (a unit test holds it to that).
+The image cost does not depend on it, only the one-off TCC build does."""
 
 
 SOCS_KEEP = 1e-7
@@ -234,8 +233,8 @@ class CoherentSystems:
         self.n_max = n_max
         a = frame.amplitudes(defocus_nm)  # (S, N)
         # TCC = A^H A (N x N, Hermitian) = V diag(ev) V^H; the kernels are the
-        # rows of V^H.  (An SVD of A gives the same but was measured up to 100x
-        # slower on these mostly-zero matrices with the machine's LAPACK.)
+        # rows of V^H (an SVD of A gives the same, far slower on these mostly
+        # zero matrices).
         tcc = a.conj().T @ a
         ev, v = np.linalg.eigh(tcc)
         order = np.argsort(ev)[::-1]

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 from functools import lru_cache
+from typing import NamedTuple
 
 import numpy as np
 
@@ -64,22 +65,36 @@ def _rule_key(rule: LayerRule, scale_to_wafer: float) -> tuple:
     )
 
 
-def take_imaged() -> list[tuple]:
+class ImagedCut(NamedTuple):
+    """A cut's metrics as passed between processes, keyed by values only (a
+    forked worker may hold leftovers of another deck's rules)."""
+
+    rule_key: tuple  # all of the layer's rule the metrics depend on
+    angle_deg: float
+    bounds_nm: tuple[float, ...]
+    reach_nm: float
+    metrics: Metrics
+
+    @property
+    def key(self) -> tuple:
+        return (self.rule_key, self.angle_deg, self.bounds_nm, self.reach_nm)
+
+
+def take_imaged() -> list[ImagedCut]:
     """The cuts imaged in this process since the last call, to share with other
-    processes: rows ``(rule key, angle, bounds, reach, metrics)``, keyed by the
-    values of the rule they were imaged under (see :func:`give_imaged`)."""
-    rows = [(*k, _imaged[k]) for k in _fresh if k in _imaged]
+    processes (see :func:`give_imaged`)."""
+    rows = [ImagedCut(*k, _imaged[k]) for k in _fresh if k in _imaged]
     _fresh.clear()
     return rows
 
 
-def give_imaged(rows) -> None:
+def give_imaged(rows: list[ImagedCut]) -> None:
     """Take cuts another process imaged (:func:`take_imaged`); a row serves only
     layers whose exposure and limits equal those it was imaged under."""
     if len(_imaged) + len(rows) > CUT_CACHE_MAX:
         _imaged.clear()
-    for *key, m in rows:
-        _imaged.setdefault(tuple(key), m)
+    for row in rows:
+        _imaged.setdefault(row.key, row.metrics)
 
 
 def samples_for(period_nm: float, n_max: int, optics: Optics) -> int:

@@ -62,9 +62,9 @@ class Signature:
                 str(e["layer"]),
                 str(e["check"]),
                 str(e.get("context", "")),
-                _num(e["pitch_nm"]),
-                _num(e["width_nm"]),
-                _num(e["space_nm"]),
+                _as_float(e["pitch_nm"]),
+                _as_float(e["width_nm"]),
+                _as_float(e["space_nm"]),
                 float(e["orientation_deg"]),
                 int(e["lines"]),
                 (float(e["centre_um"][0]), float(e["centre_um"][1])),
@@ -73,7 +73,7 @@ class Signature:
             raise PitchguardError(f"{where}: baseline entry is malformed ({exc})") from None
 
 
-def _num(v) -> float:
+def _as_float(v) -> float:
     return math.inf if v is None else float(v)
 
 

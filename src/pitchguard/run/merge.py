@@ -133,7 +133,7 @@ class TileAssembly:
             mt, mu = slot_of[t[ks]], slot_of[u[ks]]
             ea.append((start[g] + rg[None, :] * size[g] + mt[:, None]).ravel())
             eb.append((start[h] + rh[None, :] * size[h] + mu[:, None]).ravel())
-        (alone, slot), (inside, sizes) = _joined_groups(
+        joined = _joined_groups(
             len(b_which),
             np.concatenate(ea or [np.zeros(0, np.int64)]),
             np.concatenate(eb or [np.zeros(0, np.int64)]),
@@ -141,7 +141,8 @@ class TileAssembly:
         # Regions cut by borders are merged.  Regions whose parts are the same
         # distinct findings placed alike are the same region moved: each such
         # kind is merged once (its parts made, line points and hulls moved).
-        kind, moved, first_of = _kinds(inside, sizes, b_which, b_off)
+        kind, moved, first_of = _kinds(joined.inside, joined.sizes, b_which, b_off)
+        alone, slot = joined.alone, joined.slot
         parts = {k: _moved_part(raw[b_which[k]], b_off[k]) for g in first_of for k in g.tolist()}
         merged = merge_regions(parts, first_of, deck, grid_nm)
         # In the order of each region's first part: a part alone is a copy of its
@@ -165,11 +166,19 @@ class TileAssembly:
         return Assembled(findings, [r.hint_key for r in distinct], per_group)
 
 
+class RegionKinds(NamedTuple):
+    """Groups of parts that are the same region moved: group ``i`` is the group
+    ``first_of[kind[i]]`` (its members) moved by ``moved[i]`` (nm)."""
+
+    kind: np.ndarray
+    moved: np.ndarray
+    first_of: list[np.ndarray]
+
+
 def _kinds(inside: np.ndarray, sizes: np.ndarray, which: np.ndarray, off: np.ndarray):
-    """Groups of parts that are the same region moved: the same distinct findings,
-    placed alike.  Groups are ``inside`` cut into runs of ``sizes``.  Returns
-    ``(kind, moved, first_of)``: group ``i`` is the group ``first_of[kind[i]]``
-    (its members) moved by ``moved[i]`` (nm)."""
+    """Groups of parts that are the same region moved (:class:`RegionKinds`): the
+    same distinct findings, placed alike.  Groups are ``inside`` cut into runs
+    of ``sizes``."""
     n = len(sizes)
     kind = np.empty(n, dtype=np.int64)
     start = np.r_[0, np.cumsum(sizes)[:-1]].astype(np.int64)
@@ -188,7 +197,7 @@ def _kinds(inside: np.ndarray, sizes: np.ndarray, which: np.ndarray, off: np.nda
         kind[sel] = len(first_group) + rank[inverse.ravel()]
         first_group.extend(sel[first[by_first]].tolist())
     moved = at - at[np.array(first_group, dtype=np.int64)[kind]] if n else np.zeros((0, 2))
-    return kind, moved, [inside[start[i] : start[i] + sizes[i]] for i in first_group]
+    return RegionKinds(kind, moved, [inside[start[i] : start[i] + sizes[i]] for i in first_group])
 
 
 def _moved_part(r: Region, off: np.ndarray) -> Region:
@@ -203,20 +212,26 @@ def _moved_part(r: Region, off: np.ndarray) -> Region:
     )
 
 
-def _joined_groups(n: int, ea: np.ndarray, eb: np.ndarray):
-    """Connected groups of ``n`` parts joined by pairs ``ea``-``eb``.
+class JoinedParts(NamedTuple):
+    """Connected groups of parts, over all groups in the order of their first
+    part: ``slot`` is -1 for a lone part and otherwise the index of its group
+    among the groups of two or more, whose members (in index order) are
+    ``inside`` cut into runs of ``sizes``; ``alone`` lists the lone parts in
+    that order."""
 
-    Returns ``((alone, slot), (inside, sizes))``: over all groups in the order
-    of their first part, ``slot`` is -1 for a lone part and otherwise the
-    index of its group among the groups of two or more, whose members (in
-    index order) are ``inside`` cut into runs of ``sizes``; ``alone`` lists
-    the lone parts in that order.
-    """
+    alone: np.ndarray
+    slot: np.ndarray
+    inside: np.ndarray
+    sizes: np.ndarray
+
+
+def _joined_groups(n: int, ea: np.ndarray, eb: np.ndarray) -> JoinedParts:
+    """Connected groups of ``n`` parts joined by pairs ``ea``-``eb``."""
     from pitchguard.geometry.spatial import components
 
     if n == 0:
         z = np.zeros(0, np.int64)
-        return (z, z), (z, z)
+        return JoinedParts(z, z, z, z)
     n_lab, labels = components(n, ea, eb)  # numbered in the order of their first part
     count = np.bincount(labels, minlength=n_lab)
     multi = count > 1
@@ -227,7 +242,7 @@ def _joined_groups(n: int, ea: np.ndarray, eb: np.ndarray):
     # Members of the groups of two or more, group by group, in index order.
     inside = np.flatnonzero(multi[labels])
     inside = inside[np.argsort(labels[inside], kind="stable")]
-    return (alone, slot), (inside, count[multi])
+    return JoinedParts(alone, slot, inside, count[multi])
 
 
 def neighbouring_tiles(tiles) -> tuple[np.ndarray, np.ndarray]:

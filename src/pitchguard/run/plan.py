@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import NamedTuple
 
 from pitchguard.deck import Deck
 from pitchguard.errors import LayoutError
@@ -25,6 +26,25 @@ layouts than a flattening scan; the limit still refuses absurd arrays (a
 10^5 x 10^5 array is 10^10 shapes) before any work is done."""
 
 
+class RefBrief(NamedTuple):
+    """A reference in brief: the child's number, its instances, and for an
+    axis-aligned array its pitches (nm) and counts (0 for anything else)."""
+
+    child: int
+    instances: int
+    pitch_x_nm: float
+    pitch_y_nm: float
+    columns: int
+    rows: int
+
+
+class CellBrief(NamedTuple):
+    """A cell in brief: its own shapes on the deck layers and its references."""
+
+    own_shapes: int
+    refs: tuple[RefBrief, ...]
+
+
 @dataclass(frozen=True)
 class Structure:
     """What the guarded first read learns about a layout."""
@@ -35,12 +55,10 @@ class Structure:
     extent_nm: tuple[float, float, float, float] | None
     fmt: str
     shapes: int = 0  # flat shapes on the deck layers, counted from the hierarchy
-    # The hierarchy in brief, for planning tiles: per cell (children first), its own
-    # shapes and its references (child, instances, x pitch, y pitch, columns,
-    # rows; pitches in nm, 0 for anything but an axis-aligned array); and the
-    # numbers of the top cells.
-    cells_brief: tuple = ()
-    tops_brief: tuple = ()
+    # The hierarchy in brief, for planning tiles: every cell (children first)
+    # and the numbers of the top cells.
+    cells_brief: tuple[CellBrief, ...] = ()
+    tops_brief: tuple[int, ...] = ()
 
 
 def tile_halo_nm(deck: Deck) -> float:
@@ -101,9 +119,8 @@ MAX_AUTO_TILE_UM = 50.0
 SMALL_LAYOUT_SHAPES = 20_000
 
 
-# Costs of tiling in shapes-scanned equivalents, measured on the bench_scale chip
-# (1.1e7 shapes, 2-core machine): a shape scanned about 65 us, a tile's content
-# key about 85 us, a distinct tile's fixed setup about 22 ms.
+# Costs of tiling in shapes-scanned equivalents: a tile's content key, and a
+# distinct tile's fixed setup (fitted on the benchmark chip; DEVELOPERS.md).
 KEY_COST_SHAPES = 1.3
 
 
@@ -185,9 +202,8 @@ def plan_tiles(
 
 TILE_ADVICE_RATIO = 3.0
 """A chosen tile size whose estimated work is this many times the automatic
-one's is worth a note (the estimate, :func:`tile_work`, was within a factor of
-two of measured times on the benchmark chip: 45 um, 12x estimated, 25x
-measured; 60 um, 5.9x and 4.7x)."""
+one's is worth a note (the estimate, :func:`tile_work`, is rough: within a
+factor of two of measured times, see DEVELOPERS.md)."""
 
 
 def tile_advice(

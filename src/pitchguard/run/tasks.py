@@ -15,7 +15,7 @@ from pitchguard.judge.hints import give_grating_passes, hint_text, take_grating_
 from pitchguard.judge.regions import Region
 from pitchguard.layout.polygons import PolygonSet, snap_to_grid
 from pitchguard.optics.cut_images import give_imaged, take_imaged
-from pitchguard.run.plan import Structure
+from pitchguard.run.plan import CellBrief, RefBrief, Structure
 from pitchguard.run.scan import LayerStats, scan_polygons
 
 _OPEN: dict = {}
@@ -81,8 +81,8 @@ def _brief(q) -> tuple[tuple, tuple]:
                     cols, rows = rows, cols
             else:
                 count = len(data) if kind == "list" else 1
-            refs.append((number[child], count, float(px), float(py), cols, rows))
-        cells.append((own, tuple(refs)))
+            refs.append(RefBrief(number[child], count, float(px), float(py), cols, rows))
+        cells.append(CellBrief(own, tuple(refs)))
     return tuple(cells), tuple(number[name] for name in q.tops)
 
 
@@ -193,9 +193,7 @@ def init_worker() -> None:
     SIGTERM handler and print a traceback when the pool is stopped.  Each
     worker runs its linear algebra on one thread: the workers already fill
     the cores, and the numerical library's own threads on top of them
-    oversubscribe them (measured on the 10^7-shape benchmark chip, 2 cores:
-    2 workers scanned in 4.3 s of tile time with the default threads, 3.9 s
-    with one each; 1 worker was no faster with more).  dask.distributed
+    oversubscribe them.  dask.distributed
     workers started by a nanny get the same by default.
     """
     import signal

@@ -52,10 +52,7 @@ def preload_for_fork() -> None:
     import for itself: the layout library and the hierarchy query (the
     structure read and each worker), numpy.ma (np.unique imports it on first
     use, in each worker and again here for the merge), numpy.fft and
-    threadpoolctl (each worker).  Measured with ``python -X importtime`` on a
-    2-worker scan: 93 ms of these imports summed over the processes (the
-    structure read, both workers importing at once, then the merge) became
-    12 ms, once, here."""
+    threadpoolctl (each worker): once here instead of once per process."""
     import gdstk  # noqa: F401
     import numpy.fft  # noqa: F401
     import numpy.ma  # noqa: F401
@@ -101,7 +98,7 @@ def scan_tiled(
     before the tiles start (a ``tile_um`` that defeats reuse, say).  With
     ``ordered`` the findings come in report order (:func:`sort_findings`);
     without, in no set order, for a caller that only counts them (the sort
-    took 0.2 s of a 2-worker scan finding 1.3 million regions, measured).
+    of a chip's million findings is a visible share of a scan).
     """
     import time
 
@@ -208,7 +205,7 @@ class TileScheduler:
             texts, judged = result
             self.texts.update(texts)
             for row in judged:
-                self.judged.setdefault(row[:5], row)
+                self.judged.setdefault(row.key, row)
             self.hinting = False
             more.extend(self._hints())
         elif isinstance(tag, tuple):  # content keys of a chunk, from tile ``start`` on
@@ -218,10 +215,8 @@ class TileScheduler:
                 if g is None and k == 0:  # group 0, started with the keys
                     self.group_of[key] = 0
                 elif g is None:
-                    # Started at once, with the cuts imaged so far.  (Holding the
-                    # others back until the first tile was in, so that they would
-                    # start with its cuts, left a worker idle and saved no work:
-                    # measured on the benchmark chip, 2 workers.)
+                    # Started at once, with the cuts imaged so far: holding it
+                    # back for the first tile's cuts would leave a worker idle.
                     self.group_of[key] = g = self.assembly.group([k])
                     more.append(self.tile(g))
                 else:
@@ -233,7 +228,7 @@ class TileScheduler:
                 more.insert(0, self.next_chunk())
         else:
             for row in result.imaged:
-                self.imaged.setdefault(row[:4], row)
+                self.imaged.setdefault(row.key, row)
             self.assembly.add(tag, result.regions, result.stats)
             self.scanned += 1
             if self.engine.progress:
@@ -253,8 +248,7 @@ class TileScheduler:
     def _hints(self) -> list:
         """A task for the hint keys waiting, unless one is running: hints of one
         layer search overlapping gratings, and a task running beside another
-        would judge them again (measured on the benchmark chip, 2 workers:
-        1.24 s of hint work against 0.66 s on 1 worker)."""
+        would judge them again."""
         if self.hinting or not self.hint_keys:
             return []
         keys, self.hint_keys = self.hint_keys, []
