@@ -28,7 +28,7 @@ from pydantic import (
     model_validator,
 )
 
-from pitchguard.errors import DeckError
+from pitchguard.errors import DeckError, read_input_text
 
 SEVERITIES = ("fail", "risk", "marginal")
 """Finding severities, worst first."""
@@ -569,14 +569,4 @@ def parse_deck(text: str, path: Path | None = None) -> Deck:
 def load_deck(path: str | Path) -> Deck:
     """Read and validate a deck file.  Raises DeckError with a one-line message."""
     p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise DeckError(f"{p}: deck file not found") from None
-    except IsADirectoryError:
-        raise DeckError(f"{p}: is a directory, not a deck file") from None
-    except UnicodeDecodeError:
-        raise DeckError(f"{p}: not a text (UTF-8) file") from None
-    except OSError as exc:
-        raise DeckError(f"{p}: cannot read deck: {exc.strerror}") from None
-    return parse_deck(text, p)
+    return parse_deck(read_input_text(p, "deck", DeckError), p)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 EXIT_OK = 0
 """No finding at or above the ``--fail-on`` severity."""
 EXIT_FINDINGS = 1
@@ -26,6 +28,28 @@ class LayoutError(PitchguardError):
 
 class OutputError(PitchguardError):
     """An output file cannot be written (or would overwrite an input)."""
+
+
+def read_input(path: Path, what: str, error: type[PitchguardError], size: int = -1) -> bytes:
+    """The first ``size`` bytes (all: -1) of an input file, or ``error`` with one
+    line naming the file and what it was to be (``what``: "layout", "deck")."""
+    try:
+        with Path(path).open("rb") as fh:
+            return fh.read(size)
+    except FileNotFoundError:
+        raise error(f"{path}: {what} file not found") from None
+    except IsADirectoryError:
+        raise error(f"{path}: is a directory, not a {what} file") from None
+    except OSError as exc:
+        raise error(f"{path}: cannot read {what}: {exc.strerror or exc}") from None
+
+
+def read_input_text(path: Path, what: str, error: type[PitchguardError]) -> str:
+    """An input file as UTF-8 text (see :func:`read_input`)."""
+    try:
+        return read_input(path, what, error).decode("utf-8")
+    except UnicodeDecodeError:
+        raise error(f"{path}: not a text (UTF-8) file") from None
 
 
 _pending_stop: type[BaseException] | None = None

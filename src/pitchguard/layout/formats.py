@@ -8,7 +8,7 @@ import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
-from pitchguard.errors import LayoutError
+from pitchguard.errors import LayoutError, read_input
 
 GDS_MAGIC = b"\x00\x06\x00\x02"
 
@@ -18,15 +18,7 @@ OASIS_MAGIC = b"%SEMI-OASIS\r\n"
 
 def sniff_format(path: Path) -> str:
     """Return "gds" or "oas" from the file's first bytes."""
-    try:
-        with path.open("rb") as fh:
-            head = fh.read(len(OASIS_MAGIC))
-    except FileNotFoundError:
-        raise LayoutError(f"{path}: layout file not found") from None
-    except IsADirectoryError:
-        raise LayoutError(f"{path}: is a directory, not a layout file") from None
-    except OSError as exc:
-        raise LayoutError(f"{path}: cannot read layout: {exc.strerror}") from None
+    head = read_input(path, "layout", LayoutError, len(OASIS_MAGIC))
     if head.startswith(OASIS_MAGIC):
         return "oas"
     if head.startswith(GDS_MAGIC):

@@ -8,7 +8,7 @@ from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from pitchguard.errors import PitchguardError
+from pitchguard.errors import PitchguardError, read_input_text
 from pitchguard.judge.findings import Finding
 from pitchguard.outputs.files import atomic_write
 
@@ -210,12 +210,9 @@ def entry_of(f: Finding, reason: str = "", owner: str = "") -> dict:
 
 def load_baseline(path: Path) -> list[dict]:
     where = str(path)
+    text = read_input_text(Path(path), "baseline", PitchguardError)
     try:
-        data = json.loads(Path(path).read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise PitchguardError(f"{where}: baseline file not found") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise PitchguardError(f"{where}: cannot read baseline: {exc}") from None
+        data = json.loads(text)
     except json.JSONDecodeError as exc:
         raise PitchguardError(
             f"{where}: not a JSON baseline: {exc.msg} at line {exc.lineno}"
