@@ -15,7 +15,8 @@ markers, and records ``probe --json``, ``sweep --json`` and the terminal
 table.  Each output is reduced to a digest after its timing fields are set
 to zero (JSON ``seconds``, JUnit ``time``, the elapsed time in the summary
 line); markers are compared by their cells, polygons and labels, since a
-GDSII file carries the time it was written.  ``--src`` runs another
+GDSII file carries the time it was written.  SARIF is also compared without
+its rule descriptors (``sarif_results``).  ``--src`` runs another
 checkout's code (``PYTHONPATH``) with this interpreter.
 """
 
@@ -44,16 +45,20 @@ TIMING = [
 ]
 
 
-def _digest(path: Path, drop_keys: tuple[str, ...] = ()) -> str:
-    """sha256 of a text output with its timing fields zeroed, read in lines."""
+RULE_LINE = re.compile(rb'^ *\{"id": "[a-z0-9-]+", "name": ')
+
+
+def _digest(path: Path, skip_rules: bool = False) -> str:
+    """sha256 of a text output with its timing fields zeroed, read in lines;
+    ``skip_rules``: without SARIF's rule descriptors (one per line), so that a
+    change of the rules' help texts alone can be told from one of the results."""
     h = hashlib.sha256()
-    drops = [re.compile(rb',? *"' + k.encode() + rb'": "[^"]*"') for k in drop_keys]
     with open(path, "rb") as fh:
         for line in fh:
+            if skip_rules and RULE_LINE.match(line):
+                continue
             for pat, rep in TIMING:
                 line = pat.sub(rep, line)
-            for pat in drops:
-                line = pat.sub(b"", line)
             h.update(line)
     return h.hexdigest()
 
@@ -180,67 +185,74 @@ def _cases(work: Path, bench_shapes: float) -> list[tuple[str, list[str], bool]]
     return cases
 
 
+KINDS = {
+    "json": ".json",
+    "sarif": ".sarif",
+    "junit": ".xml",
+    "markers": "-markers.gds",
+    "markers_oas": "-markers.oas",
+    "stdout": ".stdout",
+    "stderr": ".stderr",
+}
+
+
 def cmd_run(out: Path, src: str | None, bench_shapes: float) -> int:
     out.mkdir(parents=True, exist_ok=True)
     cmd, env = _command(src)
-    digests = {}
+    exits = {}
     for name, args, reports in _cases(out, bench_shapes):
-        files = {}
         if reports:
-            files = {
-                "json": out / f"{name}.json",
-                "sarif": out / f"{name}.sarif",
-                "junit": out / f"{name}.xml",
-                "markers": out / f"{name}-markers.gds",
-            }
             args = [
                 *args,
                 "--json",
-                str(files["json"]),
+                str(out / f"{name}.json"),
                 "--sarif",
-                str(files["sarif"]),
+                str(out / f"{name}.sarif"),
                 "--junit",
-                str(files["junit"]),
+                str(out / f"{name}.xml"),
                 "--markers",
-                str(files["markers"]),
+                str(out / f"{name}-markers.gds"),
             ]
             if name != "bench":
-                files["markers_oas"] = out / f"{name}-markers.oas"
-                args = [*args, "--markers", str(files["markers_oas"])]
+                args = [*args, "--markers", str(out / f"{name}-markers.oas")]
         r = subprocess.run([*cmd, *args], env=env, capture_output=True, cwd=REPO)
         (out / f"{name}.stdout").write_bytes(r.stdout)
         (out / f"{name}.stderr").write_bytes(r.stderr)
-        d = {
-            "exit": r.returncode,
-            "stdout": _digest(out / f"{name}.stdout"),
-            "stderr": _digest(out / f"{name}.stderr"),
-        }
-        for kind, path in files.items():
-            if kind.startswith("markers"):
-                d[kind] = _marker_digest(path) if path.exists() else None
-            else:
-                d[kind] = _digest(path) if path.exists() else None
-                if kind == "sarif" and path.exists():
-                    d["sarif_no_help_uri"] = _digest(path, ("helpUri",))
-        if name == "sweep":
-            sweep = out / "sweep.json"
-            d["json"] = _digest(sweep) if sweep.exists() else None
-        digests[name] = d
+        exits[name] = r.returncode
         print(f"{name}: exit {r.returncode}", flush=True)
-    (out / "digests.json").write_text(json.dumps(digests, indent=1))
+    (out / "exits.json").write_text(json.dumps(exits, indent=1))
     return 0
 
 
+def _digests(folder: Path, name: str) -> dict:
+    """Digest of each output of run ``name`` (None where there is none)."""
+    d = {}
+    for kind, suffix in KINDS.items():
+        path = (
+            folder / "sweep.json" if (name, kind) == ("sweep", "json") else folder / (name + suffix)
+        )
+        if not path.exists():
+            d[kind] = None
+        elif kind.startswith("markers"):
+            d[kind] = _marker_digest(path)
+        else:
+            d[kind] = _digest(path)
+            if kind == "sarif":
+                d["sarif_results"] = _digest(path, skip_rules=True)
+    return d
+
+
 def cmd_compare(a: Path, b: Path, ignore: list[str]) -> int:
-    da = json.loads((a / "digests.json").read_text())
-    db = json.loads((b / "digests.json").read_text())
+    ea = json.loads((a / "exits.json").read_text())
+    eb = json.loads((b / "exits.json").read_text())
     bad = 0
-    for name in sorted(set(da) | set(db)):
-        ka, kb = da.get(name, {}), db.get(name, {})
-        for kind in sorted(set(ka) | set(kb)):
+    for name in sorted(set(ea) | set(eb)):
+        da = {"exit": ea.get(name), **_digests(a, name)}
+        db = {"exit": eb.get(name), **_digests(b, name)}
+        for kind in sorted(set(da) | set(db)):
             if kind in ignore:
                 continue
-            same = ka.get(kind) == kb.get(kind)
+            same = da.get(kind) == db.get(kind)
             bad += not same
             print(f"{'same' if same else 'DIFFERENT':<10} {name} {kind}")
     print(f"{bad} differences")

@@ -141,22 +141,33 @@ def rule_name(check: str) -> str:
     return "".join(part[:1].upper() + part[1:] for part in check.split("-"))
 
 
-def _rule(check: str) -> dict:
+def check_page(check: str) -> str:
+    """The documentation page of a check, relative to the project's sources (a
+    path, not a URI: SARIF's helpUri must be absolute, and the pages are read
+    where the sources are)."""
+    return f"rules/checks/{check}.md"
+
+
+def sarif_rule(check: str) -> dict:
+    """The SARIF reportingDescriptor of a check."""
     short = CHECKS.get(check, check)
     info = _RULE_HELP.get(check)
     if info is None:  # a check added to CHECKS without help here: still a valid rule
         info = {"worst": "fail", "flags": short, "why": "", "change": "See the finding's hint."}
     full = f"{info['flags']} {info['why']}".strip()
+    page = check_page(check)
     text = (
         f"What it flags: {info['flags']}\n\n"
         f"Why it matters for printing: {info['why']}\n\n"
         f"What to change: {info['change']}\n\n"
+        f"More: {page} in the pitchguard sources.\n\n"
         f"{CAUTION}"
     )
     markdown = (
         f"**What it flags.** {info['flags']}\n\n"
         f"**Why it matters for printing.** {info['why']}\n\n"
         f"**What to change.** {info['change']}\n\n"
+        f"More: `{page}` in the pitchguard sources.\n\n"
         f"_{CAUTION}_"
     )
     return {
@@ -166,7 +177,7 @@ def _rule(check: str) -> dict:
         "fullDescription": {"text": full},
         "help": {"text": text, "markdown": markdown},
         "defaultConfiguration": {"level": LEVEL[info["worst"]]},
-        "properties": {"tags": ["lithography", "printability"]},
+        "properties": {"tags": ["lithography", "printability"], "documentation": page},
     }
 
 
@@ -280,7 +291,7 @@ def to_sarif(
     fs = FindingSet.of(result.findings)
     present = {f.check for f, n in zip(fs.distinct, fs.counts().tolist(), strict=True) if n}
     checks = list(CHECKS) + sorted(present - set(CHECKS))
-    rules = [_rule(c) for c in checks]
+    rules = [sarif_rule(c) for c in checks]
     uri = _artifact_uri(layout_path)
     cells = list(result.layout.cells) if result.layout else []
     fps = fingerprints(result.findings, compact=lazy)
