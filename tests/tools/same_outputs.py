@@ -98,7 +98,7 @@ def _cases(work: Path, bench_shapes: float) -> list[tuple[str, list[str], bool]]
             (demo_gds, ["--jobs", "2"]),
             (demo_gds, ["--jobs", "1"]),
             (demo_oas, ["--untiled"]),
-        ):  # noqa: E501
+        ):
             name = f"{deck.stem}-{layout.suffix[1:]}-{tiling[-1].strip('-')}"
             cases.append((name, ["scan", str(layout), "--rules", str(deck), *tiling], True))
     cases.append(

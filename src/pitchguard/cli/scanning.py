@@ -47,7 +47,7 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
     if update and label:
         inner = update
 
-        def update(stage, done, total):  # noqa: F811 - labelled wrapper
+        def update(stage, done, total):
             inner(f"{label} {stage}", done, total)
 
     resume_gc()

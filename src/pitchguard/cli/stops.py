@@ -39,13 +39,13 @@ def _raise_now(frame) -> bool:
     return True
 
 
-def on_sigterm(signum, frame):  # noqa: ARG001 - signal handler signature
+def on_sigterm(signum, frame):
     request_stop(Terminated)
     if _raise_now(frame):
         raise Terminated()
 
 
-def on_sigint(signum, frame):  # noqa: ARG001 - signal handler signature
+def on_sigint(signum, frame):
     request_stop(KeyboardInterrupt)
     if _raise_now(frame):
         raise KeyboardInterrupt

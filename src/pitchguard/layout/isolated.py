@@ -24,7 +24,7 @@ def _child(conn, fn, args, path) -> None:  # runs in the child process
         conn.send(("error", str(exc)))
     except MemoryError:
         conn.send(("error", f"{path}: out of memory while reading the layout"))
-    except Exception as exc:  # noqa: BLE001 - any reader failure is a bad-input error here
+    except Exception as exc:  # any reader failure is a bad-input error here
         conn.send(("error", f"{path}: cannot read layout: {type(exc).__name__}: {exc}"))
     finally:
         conn.close()

@@ -54,7 +54,7 @@ def preload_for_fork() -> None:
     use, in each worker and again here for the merge), numpy.fft and
     threadpoolctl (each worker): once here instead of once per process."""
     import gdstk  # noqa: F401
-    import numpy.fft  # noqa: F401
+    import numpy.fft
     import numpy.ma  # noqa: F401
     import threadpoolctl  # noqa: F401
 
