@@ -49,17 +49,20 @@ RULE_LINE = re.compile(rb'^ *\{"id": "[a-z0-9-]+", "name": ')
 
 
 def _digest(path: Path, skip_rules: bool = False) -> str:
-    """sha256 of a text output with its timing fields zeroed, read in lines;
-    ``skip_rules``: without SARIF's rule descriptors (one per line), so that a
-    change of the rules' help texts alone can be told from one of the results."""
+    """sha256 of a text output with its timing fields zeroed and its own folder
+    (where the run put the generated chip and the outputs) written as OUT,
+    read in lines; ``skip_rules``: without SARIF's rule descriptors (one per
+    line), so that a change of the rules' help texts alone can be told from
+    one of the results."""
     h = hashlib.sha256()
+    folder = str(path.parent.resolve()).encode()
     with open(path, "rb") as fh:
         for line in fh:
             if skip_rules and RULE_LINE.match(line):
                 continue
             for pat, rep in TIMING:
                 line = pat.sub(rep, line)
-            h.update(line)
+            h.update(line.replace(folder, b"OUT"))
     return h.hexdigest()
 
 
