@@ -27,15 +27,13 @@ from decks import DEMO_DECK, DRY_ARF_DECK
 from decks import SAMPLE_GDS as DEMO_GDS
 from pitchguard.deck import load_deck
 from pitchguard.optics.cut_images import cut_image
+from pitchguard.optics.resist import printed_edges
 from pitchguard.outputs.html.groups import group_findings
+from pitchguard.outputs.html.image_picture import oriented_bounds, search_window
 from pitchguard.outputs.html.page import write_html
-from pitchguard.outputs.html.pictures import (
-    cut_mirrored,
-    oriented_bounds,
-    printed_edges,
-    search_window,
-)
+from pitchguard.outputs.html.pictures import cut_mirrored
 from pitchguard.outputs.table import one_line_summary
+from pitchguard.outputs.texts import orders_text
 from pitchguard.outputs.verdict import CAUTION
 from pitchguard.run.scan import scan_layout
 
@@ -186,6 +184,36 @@ def test_demo_report_pictures_are_png_data_uris(demo):
         assert html.escape(f"{g.first.pitch_nm:.1f} nm") in sec
 
 
+@pytest.mark.parametrize(
+    ("orders", "text"),
+    [
+        ((), "-"),  # none
+        ((0,), "0"),  # below the cutoff: the 0th order alone
+        ((-1, 0, 1), "0, ±1"),
+        ((-3, -2, -1, 0, 1, 2, 3), "0, ±1..3"),
+        ((-1, 0), "-1, 0"),  # not a symmetric run: each order, signed
+        ((0, 1, 2), "0, +1, +2"),
+    ],
+)
+def test_orders_text(orders, text):
+    """The terminal table's form (its output is compared byte for byte), shared by the page."""
+    assert orders_text(orders) == text
+
+
+def test_demo_report_orders_read_as_in_the_terminal(demo):
+    out, result, _ = demo
+    sections = out.read_text(encoding="utf-8").split('<details class="group ')[1:]
+    groups = group_findings(result.findings)
+    assert {g.first.orders for g in groups} >= {(0,), (-1, 0, 1)}  # both forms on the page
+    for g, sec in zip(groups, sections, strict=True):
+        f = g.first
+        row = (
+            f"<td>{orders_text(f.orders)} <span class='note'>(on axis: "
+            f"{orders_text(f.orders_on_axis)};"
+        )
+        assert row in sec
+
+
 def _asymmetric_layout(path: Path) -> None:
     """A 40 nm line with a 60 nm wide neighbour 60 nm to its left (pitch 100: unresolvable)
     and a block reaching past the interaction range 200 nm to its right.  Its cut is stored as drawn
@@ -249,21 +277,6 @@ def test_many_identical_findings_are_grouped_and_capped(many):
         assert f"href='#g{k}'" in text and f'id="g{k}"' in text
 
 
-def test_printed_edges_of_a_sampled_image():
-    """Edges where the image crosses the threshold nearest the feature (linear interpolation)."""
-    x = np.linspace(-100, 100, 2001)
-    dark_line = 1.0 - 0.8 * np.exp(-((x / 30.0) ** 2))  # dark at the centre: a printed line
-    # 1 - 0.8 exp(-(x/30)^2) = 0.5 at x = 30 sqrt(ln 1.6) = 20.57 nm (arithmetic).
-    left, right, state = printed_edges(x, dark_line, 0.5, False, (-20.0, 20.0))
-    assert state == "printed"
-    assert left == pytest.approx(-20.57, abs=0.02) and right == pytest.approx(20.57, abs=0.02)
-    assert printed_edges(x, dark_line, 0.1, False, (-20.0, 20.0))[2] == "lost"
-    # Crossings beyond the middle of the neighbouring spaces: bridged.
-    assert printed_edges(x, dark_line, 0.5, False, (-20.0, 20.0), (-15.0, 15.0))[2] == "bridged"
-    # An opening on a dark field prints where the image is above the threshold.
-    assert printed_edges(x, 1.0 - dark_line, 0.5, True, (-20.0, 20.0))[2] == "printed"
-
-
 def test_printed_edges_agree_with_the_findings(demo):
     """The edges marked in the pictures are the ones the verdicts were computed from."""
     _, result, deck = demo
@@ -273,8 +286,9 @@ def test_printed_edges_agree_with_the_findings(demo):
         x, inten = cut_image(rule, f.cut_bounds_nm, f.cut_angle_deg)
         b = np.asarray(f.cut_bounds_nm)
         feat = next((lo, hi) for lo, hi in zip(b[::2], b[1::2], strict=True) if lo <= 0 <= hi)
+        centre = 0.5 * (feat[0] + feat[1])
         left, right, state = printed_edges(
-            x, inten, f.threshold, rule.field == "dark", feat, search_window(b, feat)
+            x, inten, f.threshold, rule.field == "dark", centre, search_window(b, feat)
         )
         checks = {v.check for v in f.violations}
         states.add(state)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -33,26 +34,29 @@ def _edges_for_thresholds(x, g, lo_idx, c_idx, hi_idx, t):
     ``g`` prints where ``g < t``.  Going out from the centre, an edge is where
     ``g`` first reaches ``t``; found for all thresholds at once from the
     running maxima.  Returns ``(left, right)`` arrays: ``nan`` where the
-    feature is lost (``g[c] >= t``), ``-inf``/``+inf`` where no crossing lies
-    inside ``[lo_idx, hi_idx]`` (the feature runs into its neighbour).
+    feature is lost (``g[c] >= t``), ``-inf`` (left) or ``+inf`` (right)
+    where no crossing lies inside ``[lo_idx, hi_idx]`` (the feature runs into
+    its neighbour).
     """
     left_part = g[lo_idx : c_idx + 1][::-1]  # from the centre outward
     right_part = g[c_idx : hi_idx + 1]
     lx = x[lo_idx : c_idx + 1][::-1]
     rx = x[c_idx : hi_idx + 1]
 
-    def side(part, px):
+    def side(part, px, beyond):
         run = np.maximum.accumulate(part)
         k = np.searchsorted(run, t, side="left")  # first index with run >= t
+        if len(part) == 1:  # no sample beyond the centre on this side: nothing to interpolate
+            return np.where(k == 0, np.nan, beyond)
         ok = (k > 0) & (k < len(part))
         kk = np.clip(k, 1, len(part) - 1)
         g0, g1 = part[kk - 1], part[kk]
         with np.errstate(divide="ignore", invalid="ignore"):
             frac = np.where(g1 != g0, (t - g0) / (g1 - g0), 0.0)
         pos = px[kk - 1] + frac * (px[kk] - px[kk - 1])
-        return np.where(ok, pos, np.where(k == 0, np.nan, np.inf * np.sign(px[-1] - px[0])))
+        return np.where(ok, pos, np.where(k == 0, np.nan, beyond))
 
-    return side(left_part, lx), side(right_part, rx)
+    return side(left_part, lx, -np.inf), side(right_part, rx, np.inf)
 
 
 def cd_of_thresholds(x, inten, centre_nm, lo_nm, hi_nm, bright, t):
@@ -68,6 +72,71 @@ def cd_of_thresholds(x, inten, centre_nm, lo_nm, hi_nm, bright, t):
     cd = right - left
     cd = np.where(np.isnan(cd), 0.0, cd)
     return np.where(np.isinf(left) | np.isinf(right), np.inf, cd)
+
+
+class PrintedEdges(NamedTuple):
+    """A feature's printed edges at one threshold (nm along the cut)."""
+
+    left: float | None  # None: no crossing on this side anywhere along the cut
+    right: float | None
+    state: str  # "printed", "lost" or "bridged"
+
+
+def printed_edges(
+    x: np.ndarray,
+    intensity: np.ndarray,
+    threshold: float,
+    bright: bool,
+    centre_nm: float,
+    search: tuple[float, float] | None = None,
+) -> PrintedEdges:
+    """Printed edges of the feature centred at ``centre_nm``, at one threshold.
+
+    Parameters
+    ----------
+    x
+        Sample positions (nm, increasing).
+    intensity
+        The image at ``x``.
+    threshold
+        Intensity at which the resist stand-in prints.
+    bright
+        True for an opening (prints where the image is above the threshold),
+        False for a line (prints where it is below).
+    centre_nm
+        Centre of the drawn feature; the sample nearest it is the start.
+    search
+        Where the edges may lie ``(lo, hi)``: the middle of each neighbouring
+        space.  None: anywhere along the cut.
+
+    Returns
+    -------
+    PrintedEdges
+        ``left`` and ``right`` are the first threshold crossings going out
+        from the centre sample on each side, anywhere along the cut (linear
+        interpolation between samples), None where there is none.  ``state``
+        is ``lost`` when the centre does not print (both edges None),
+        ``bridged`` when an edge is missing or lies beyond ``search`` (the
+        printed feature runs into its neighbour), else ``printed``.
+
+    Notes
+    -----
+    Built on the same edge search as :func:`cd_of_thresholds`, over the
+    whole cut instead of the search window, so a picture can mark crossings
+    that lie beyond it.
+    """
+    x = np.asarray(x, dtype=float)
+    g = np.asarray(intensity, dtype=float)
+    g, t = (-g, -threshold) if bright else (g, threshold)
+    c_idx = int(np.argmin(np.abs(x - centre_nm)))
+    left_a, right_a = _edges_for_thresholds(x, g, 0, c_idx, len(x) - 1, np.array([t], dtype=float))
+    left, right = float(left_a[0]), float(right_a[0])
+    if math.isnan(left):
+        return PrintedEdges(None, None, "lost")
+    edges = [None if math.isinf(e) else e for e in (left, right)]
+    lo, hi = search if search is not None else (-math.inf, math.inf)
+    ok = None not in edges and edges[0] >= lo and edges[1] <= hi
+    return PrintedEdges(edges[0], edges[1], "printed" if ok else "bridged")
 
 
 def _threshold_window(t, cd, target, tol):
@@ -180,8 +249,8 @@ def evaluate(
     cd_err = math.nan
     if nominal_threshold is not None and not lost and not bridged:
         cd_err = 100.0 * (cd_nom - drawn_cd) / drawn_cd
-    el = _el_pct(windows[best : best + 1], t_size, bright)
-    dof = _dof(focus_nm, windows, t_size, bright, el_min_pct)
+    el = _el_pct(windows[best : best + 1], t_size)
+    dof = _dof(focus_nm, windows, t_size, el_min_pct)
     # Dose D prints like threshold t_nom / D, so the dose on size is t_nom / t_size.
     dts = t_nom / t_size if (math.isfinite(t_size) and t_size > 0) else math.nan
     # Python floats, not numpy scalars: metrics travel between processes in
@@ -200,8 +269,8 @@ def evaluate(
     )
 
 
-def _dose_range(window, bright):  # noqa: ARG001 - same for both tones
-    """Relative dose range (1/threshold) of a threshold window."""
+def _dose_range(window):
+    """Relative dose range (1/threshold) of a threshold window (the same for both tones)."""
     _, ta, tb = window
     if not (math.isfinite(ta) and math.isfinite(tb)) or ta <= 0:
         return math.nan, math.nan
@@ -209,13 +278,13 @@ def _dose_range(window, bright):  # noqa: ARG001 - same for both tones
     return 1.0 / tb, 1.0 / ta
 
 
-def _el_pct(windows, t_size, bright) -> float:
+def _el_pct(windows, t_size) -> float:
     """Common dose latitude of several focus windows, in % of the dose-to-size."""
     if not math.isfinite(t_size) or t_size <= 0:
         return 0.0
     lows, highs = [], []
     for w in windows:
-        d0, d1 = _dose_range(w, bright)
+        d0, d1 = _dose_range(w)
         if math.isnan(d0):
             return 0.0
         lows.append(d0)
@@ -224,7 +293,7 @@ def _el_pct(windows, t_size, bright) -> float:
     return max(0.0, 100.0 * width * t_size)
 
 
-def _dof(focus_nm, windows, t_size, bright, el_min_pct) -> float:
+def _dof(focus_nm, windows, t_size, el_min_pct) -> float:
     """Longest contiguous focus span (containing best focus or not) keeping EL >= el_min."""
     order = np.argsort(focus_nm)
     f = np.asarray(focus_nm)[order]
@@ -232,7 +301,7 @@ def _dof(focus_nm, windows, t_size, bright, el_min_pct) -> float:
     best = 0.0
     for i in range(len(f)):
         for j in range(i, len(f)):
-            if _el_pct(w[i : j + 1], t_size, bright) >= el_min_pct:
+            if _el_pct(w[i : j + 1], t_size) >= el_min_pct:
                 best = max(best, float(f[j] - f[i]))
             else:
                 break

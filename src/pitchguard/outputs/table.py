@@ -11,14 +11,6 @@ from pitchguard.run.scan import ScanResult
 SEVERITY_STYLE = {"fail": "bold red", "risk": "bold yellow", "marginal": "magenta"}
 
 
-def _orders_text(orders: tuple[int, ...]) -> str:
-    if not orders:
-        return "-"
-    if orders == tuple(range(orders[0], orders[-1] + 1)) and orders[0] == -orders[-1]:
-        return f"0, ±1..{orders[-1]}" if orders[-1] > 1 else ("0, ±1" if orders[-1] else "0")
-    return ", ".join(f"{o:+d}" if o else "0" for o in orders)
-
-
 def one_line_summary(result: ScanResult, fail_on: str) -> str:
     c = severity_counts(result.findings)
     code = exit_code(result.findings, fail_on)
@@ -34,6 +26,8 @@ def one_line_summary(result: ScanResult, fail_on: str) -> str:
 def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> None:
     """Counts per layer and severity, then the worst regions."""
     from rich.table import Table
+
+    from pitchguard.outputs.texts import orders_text  # here: a quiet scan prints no table
 
     counts = Table(title="Findings per layer", title_justify="left", show_edge=False)
     counts.add_column("layer")
@@ -90,7 +84,7 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
                 f"{f.width_nm:.0f} / {f.space_nm:.0f}",
                 f"{f.k1:.3f}",
                 f"{f.nils:.2f}" if math.isfinite(f.nils) else "-",
-                _orders_text(f.orders),
+                orders_text(f.orders),
                 str(f.lines),
                 f.check,
             )

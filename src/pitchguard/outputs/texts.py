@@ -1,4 +1,4 @@
-"""Short texts about a finding shared by the CI formats."""
+"""Short texts about a finding shared by the reports (CI formats, terminal table, HTML)."""
 
 from __future__ import annotations
 
@@ -16,6 +16,17 @@ from pitchguard.outputs.rows import (
 
 def nm_text(x: float, digits: int = 1) -> str:
     return f"{x:.{digits}f}" if math.isfinite(x) else "-"
+
+
+def orders_text(orders: tuple[int, ...]) -> str:
+    """Diffraction orders in a few characters: ``0, ±1..3`` for a full symmetric run
+    (``0``, ``0, ±1`` for the shortest), else each order signed, ``-`` for none."""
+    if not orders:
+        return "-"
+    orders = tuple(orders)
+    if orders == tuple(range(orders[0], orders[-1] + 1)) and orders[0] == -orders[-1]:
+        return f"0, ±1..{orders[-1]}" if orders[-1] > 1 else ("0, ±1" if orders[-1] else "0")
+    return ", ".join(f"{o:+d}" if o else "0" for o in orders)
 
 
 def reaches_fail_on(f: Finding, fail_on: str) -> bool:

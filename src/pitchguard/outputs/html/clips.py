@@ -22,7 +22,7 @@ def add_clip_geometry(
     neighbourhood of each drawn finding, which is a small part of the chip.
     """
     from pitchguard.layout.isolated import READ_TIMEOUT_S, run_isolated
-    from pitchguard.outputs.html.pictures import picture_windows
+    from pitchguard.outputs.html.layout_picture import picture_windows
 
     lay = result.layout
     if lay is None or lay.layers:

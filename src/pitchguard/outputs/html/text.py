@@ -24,15 +24,6 @@ def html_number(v: float, fmt: str = ".1f", unit: str = "") -> str:
     return f"{v:{fmt}}{unit}"
 
 
-def orders_text(orders: tuple[int, ...]) -> str:
-    if not orders:
-        return "none"
-    top = max(abs(o) for o in orders)
-    if set(orders) == set(range(-top, top + 1)):
-        return "0 only" if top == 0 else ("0, ±1" if top == 1 else f"0, ±1 … ±{top}")
-    return ", ".join(f"{o:+d}" if o else "0" for o in sorted(orders))
-
-
 def value_vs_limit(check: str, value: float, limit: float) -> str:
     """A violation's value against its limit, in words a designer reads."""
     forms = {

@@ -1,0 +1,53 @@
+// The HTML report's filter bar: show findings by severity and layer, open linked groups.
+(function () {
+  var nav = document.getElementById('filters');
+  if (!nav || !document.querySelectorAll) { return; }
+  nav.hidden = false;
+  function picked(name) {
+    var on = {};
+    var boxes = nav.querySelectorAll('input[name="' + name + '"]');
+    for (var i = 0; i < boxes.length; i++) { if (boxes[i].checked) { on[boxes[i].value] = 1; } }
+    return on;
+  }
+  function apply() {
+    var sev = picked('severity'), lay = picked('layer'), shown = 0, locs = 0;
+    var items = document.querySelectorAll('[data-severity][data-layer]');
+    for (var i = 0; i < items.length; i++) {
+      var el = items[i];
+      var ok = sev[el.getAttribute('data-severity')] && lay[el.getAttribute('data-layer')];
+      el.hidden = !ok;
+      if (ok && el.classList.contains('group')) {
+        shown++; locs += parseInt(el.getAttribute('data-count'), 10) || 0;
+      }
+    }
+    var out = document.getElementById('shown');
+    if (out) { out.textContent = shown + ' groups (' + locs + ' findings) shown'; }
+  }
+  // A link may preset the filter: report.html#severity=fail,risk&layer=metal1
+  var hash = (window.location.hash || '').replace(/^#/, '');
+  if (hash.indexOf('=') > 0) {
+    var parts = hash.split('&');
+    for (var p = 0; p < parts.length; p++) {
+      var kv = parts[p].split('='), want = {}, vals = decodeURIComponent(kv[1] || '').split(',');
+      for (var v = 0; v < vals.length; v++) { want[vals[v]] = 1; }
+      var boxes = nav.querySelectorAll('input[name="' + kv[0] + '"]');
+      for (var b = 0; b < boxes.length; b++) { boxes[b].checked = !!want[boxes[b].value]; }
+    }
+  }
+  nav.addEventListener('change', apply);
+  function openAll(state) {
+    var gs = document.querySelectorAll('details.group');
+    for (var i = 0; i < gs.length; i++) { if (!gs[i].hidden) { gs[i].open = state; } }
+  }
+  document.getElementById('expand').addEventListener('click', function () { openAll(true); });
+  document.getElementById('collapse').addEventListener('click', function () { openAll(false); });
+  function openTarget() {
+    var id = (window.location.hash || '').replace(/^#/, '');
+    var el = id && id.indexOf('=') < 0 ? document.getElementById(id) : null;
+    if (el && el.tagName === 'DETAILS') { el.open = true; el.hidden = false; }
+  }
+  window.addEventListener('hashchange', openTarget);
+  apply();
+  openTarget();
+  document.documentElement.setAttribute('data-filters', 'ready');
+})();

@@ -1,0 +1,191 @@
+"""The HTML report's card for one group of identical findings: pictures, numbers, places."""
+
+from __future__ import annotations
+
+import math
+
+from pitchguard.deck import LayerRule
+from pitchguard.judge.checks import CHECKS
+from pitchguard.judge.findings import Finding
+from pitchguard.outputs.html.groups import LOCATIONS_LISTED, OPEN_GROUPS, Group
+from pitchguard.outputs.html.pictures import FindingPictures
+from pitchguard.outputs.html.style import IMAGE_PX, LAYOUT_PX, degrees_text
+from pitchguard.outputs.html.text import (
+    attr_text,
+    esc,
+    feature_word,
+    html_number,
+    value_vs_limit,
+)
+from pitchguard.outputs.texts import orders_text
+
+
+def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
+    fw = feature_word(rule)
+    rows = [
+        (
+            "pitch (drawn)",
+            f"{f.pitch_nm:.1f} nm"
+            + (
+                f" … {f.pitch_max_nm:.1f} nm"
+                if math.isfinite(f.pitch_max_nm) and f.pitch_max_nm - f.pitch_nm > 0.05
+                else ""
+            ),
+        ),
+    ]
+    if abs(scale - 1.0) > 1e-12:
+        rows.append(("pitch (wafer)", f"{f.wafer_pitch_nm:.1f} nm"))
+    rows += [
+        (
+            f"{fw} width / space (drawn)",
+            f"{html_number(f.width_nm)} / {html_number(f.space_nm)} nm",
+        ),
+        (
+            "smallest imageable pitch",
+            f"{html_number(f.cutoff_pitch_nm)} nm (wafer, this direction)",
+        ),
+        ("k1", html_number(f.k1, ".3f")),
+        (
+            "diffraction orders captured",
+            f"{orders_text(f.orders)} "
+            f"<span class='note'>(on axis: {orders_text(f.orders_on_axis)}; two-beam source "
+            f"fraction {f.two_beam_fraction:.0%})</span>",
+        ),
+        ("image contrast", html_number(f.contrast, ".3f")),
+        ("NILS at the drawn edges", html_number(f.nils, ".2f")),
+        ("exposure latitude (EL)", html_number(f.el_pct, ".1f", " %")),
+        ("depth of focus (DOF)", html_number(f.dof_nm, ".0f", " nm")),
+        ("printed CD (wafer)", _printed_cd(f, scale)),
+        (
+            "CD error at the anchored dose",
+            html_number(f.cd_error_pct, "+.1f", " %")
+            if math.isfinite(f.cd_error_pct)
+            else "not judged (no dose anchor, or not printed)",
+        ),
+        ("lines, sites", f"{f.lines} lines ({esc(f.periodicity)}), {f.sites} sites"),
+        ("line direction", f"{degrees_text(f.orientation_deg)} (0° = along x)"),
+        (
+            "worst line",
+            esc(
+                {
+                    "outer": "last line of the array",
+                    "interior": "inside the array",
+                    "alone": "isolated line",
+                }.get(f.context, f.context or "–")
+            ),
+        ),
+    ]
+    body = "".join(f"<tr><th>{esc(k)}</th><td>{v}</td></tr>" for k, v in rows)
+    return f'<h3>Numbers (worst site)</h3><table class="numbers">{body}</table>'
+
+
+def _printed_cd(f: Finding, scale: float) -> str:
+    drawn = f.width_nm * scale
+    if not math.isfinite(f.cd_nm):
+        bridged = any(v.check == "features-bridged" for v in f.violations)
+        return "runs into its neighbour (bridged)" if bridged else "&ndash;"
+    if f.cd_nm <= 0:
+        return "not printed"
+    return f"{f.cd_nm:.1f} nm <span class='note'>(drawn {drawn:.1f} nm)</span>"
+
+
+def _violations_html(f: Finding) -> str:
+    rows = "".join(
+        f'<tr><td><span class="sev {attr_text(v.severity)}">{esc(v.severity)}</span></td>'
+        f'<td><code title="{attr_text(CHECKS.get(v.check, ""))}">{esc(v.check)}</code></td>'
+        f"<td>{value_vs_limit(v.check, v.value, v.limit)}</td><td>{esc(v.message)}</td></tr>"
+        for v in f.violations
+    )
+    if not rows:
+        rows = (
+            f"<tr><td><span class='sev {attr_text(f.severity)}'>{esc(f.severity)}</span></td>"
+            f"<td><code>{esc(f.check)}</code></td><td>{esc(f.limit)}</td>"
+            f"<td>{esc(f.message)}</td></tr>"
+        )
+    return (
+        "<h3>Limits tripped</h3><table class='violations'><thead><tr><th>severity</th>"
+        "<th>check</th><th>value against limit</th><th>what it means</th></tr></thead>"
+        f"<tbody>{rows}</tbody></table>"
+        f"<p class='hint'><strong>What to change:</strong> {esc(f.hint)} "
+        "<span class='note'>(drawn nm)</span></p>"
+    )
+
+
+def _locations_html(g: Group) -> str:
+    n = len(g.findings)
+    rows = []
+    for k, f in enumerate(g.findings[:LOCATIONS_LISTED], 1):
+        cx, cy = f.centre_um
+        x0, y0, x1, y1 = f.bbox_um
+        rows.append(
+            f"<tr><td class='n'>{k}</td><td class='n'>{cx:.3f}, {cy:.3f}</td>"
+            f"<td class='n'>{x0:.3f}, {y0:.3f} – {x1:.3f}, {y1:.3f}</td>"
+            f"<td class='n'>{f.lines}</td><td class='n'>{f.sites}</td>"
+            f"<td class='n'>{f.pitch_nm:.1f}</td><td>{esc(f.context or '–')}</td></tr>"
+        )
+    more = (
+        f"<p class='note'>… and {n - LOCATIONS_LISTED} more locations (the JSON output "
+        "lists them all).</p>"
+        if n > LOCATIONS_LISTED
+        else ""
+    )
+    label = "1 location" if n == 1 else f"all {n} locations"
+    return (
+        f"<details class='locs'{' open' if n <= 12 else ''}><summary>{label} "
+        "(centre and box in µm, as drawn; the pictures show the first)</summary>"
+        "<table><thead><tr><th class='n'>#</th><th class='n'>centre x, y</th>"
+        "<th class='n'>box x0, y0 – x1, y1</th><th class='n'>lines</th><th class='n'>sites</th>"
+        "<th class='n'>pitch nm</th><th>worst line</th></tr></thead><tbody>"
+        + "".join(rows)
+        + f"</tbody></table>{more}</details>"
+    )
+
+
+def _group_title(g: Group, rule: LayerRule | None) -> str:
+    f = g.first
+    fw = feature_word(rule)
+    n = len(g.findings)
+    cx, cy = f.centre_um
+    return (
+        f'<span class="sev {attr_text(f.severity)}">{esc(f.severity)}</span>'
+        f'<span class="what">{esc(f.layer)} · {esc(f.check)}</span>'
+        f'<span class="meta">pitch {f.pitch_nm:.1f} nm, {fw} {html_number(f.width_nm)} / space '
+        f"{html_number(f.space_nm)} nm, k1 {f.k1:.3f}, lines at {degrees_text(f.orientation_deg)}"
+        f"{', ' + esc(f.context) + ' line' if f.context else ''}</span>"
+        f'<span class="count">{n} location{"s" if n != 1 else ""} · '
+        f"{'first ' if n > 1 else ''}at ({cx:.3f}, {cy:.3f}) µm</span>"
+    )
+
+
+def group_card_html(idx: int, g: Group, renderer: FindingPictures) -> str:
+    """The card of group ``idx`` (from 0): its first finding drawn, every place listed."""
+    f = g.first
+    rule = renderer.rules.get(f.layer)
+    lay_png, lay_cap, info = renderer.layout_picture(f)
+    img_png, img_cap = renderer.image_picture(f, info.mirrored)
+    figs = []
+    for png, cap, alt, px in (
+        (lay_png, lay_cap, f"layout of {f.layer} around the region", LAYOUT_PX),
+        (img_png, img_cap, f"aerial image across the cut on {f.layer}", IMAGE_PX),
+    ):
+        if png is None:
+            figs.append(f"<figure><p class='note'>{esc(cap)}</p></figure>")
+        else:
+            figs.append(
+                f'<figure style="width:{px[0] + 2}px"><img src="data:image/png;base64,{png}" '
+                f'width="{px[0]}" '
+                f'height="{px[1]}" alt="{attr_text(alt)}">'
+                f"<figcaption>{esc(cap)}</figcaption></figure>"
+            )
+    opened = " open" if idx < OPEN_GROUPS else ""
+    return (
+        f'<details class="group {attr_text(f.severity)}" id="g{idx + 1}" '
+        f'data-severity="{attr_text(f.severity)}" data-layer="{attr_text(f.layer)}" '
+        f'data-count="{len(g.findings)}"{opened}>'
+        f"<summary>{_group_title(g, rule)}</summary><div class='body'>"
+        f"<p class='message'>{esc(f.message.rstrip('.'))}.</p>"
+        f"<div class='pics'>{''.join(figs)}</div>"
+        f"<div class='cols'><div>{_numbers_html(f, rule, renderer.scale)}</div>"
+        f"<div>{_violations_html(f)}</div></div>"
+        f"{_locations_html(g)}</div></details>"
+    )

@@ -1,0 +1,190 @@
+"""The HTML report's sections around the group cards: summary, filter bar, index, overflow list."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from pitchguard.deck import SEVERITIES, Deck
+from pitchguard.outputs.html.groups import REMAINING_LISTED, Group
+from pitchguard.outputs.html.text import attr_text, esc, html_number
+from pitchguard.outputs.table import one_line_summary
+from pitchguard.outputs.verdict import exit_code, severity_counts
+from pitchguard.run.scan import ScanResult
+
+
+def summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Group]) -> str:
+    """The verdict line, the scan's facts and the counts per layer and severity."""
+    counts = severity_counts(result.findings)
+    line = one_line_summary(result, fail_on)
+    bad = exit_code(result.findings, fail_on) != 0
+    lay = result.layout
+    parts = ['<section id="summary"><h2>Summary</h2>']
+    parts.append(f'<p class="verdict {"bad" if bad else "good"}" id="one-line">{esc(line)}</p>')
+    facts = []
+    if lay is not None:
+        cells = ", ".join(lay.cells) or "–"
+        facts.append(
+            (
+                "Layout",
+                f"<strong>{esc(Path(lay.path).name)}</strong> "
+                f"<span class='note'>({esc(lay.path)})</span>",
+            )
+        )
+        facts.append(("Format, top cells", f"{esc(lay.format.upper())}, {esc(cells)}"))
+        facts.append(("Database grid", f"{lay.grid_nm:g} nm"))
+    facts.append(
+        (
+            "Rule deck",
+            f"<strong>{esc(deck.name)}</strong>"
+            + (f" <span class='note'>({esc(deck.path)})</span>" if deck.path else ""),
+        )
+    )
+    scale = (
+        "wafer scale"
+        if deck.drawn_scale == "wafer"
+        else f"mask scale, {deck.reduction:g}× reduction"
+    )
+    facts.append(("Drawn at", scale))
+    facts.append(
+        (
+            "Findings",
+            f"{len(result.findings)} regions in {len(groups)} groups of identical findings",
+        )
+    )
+    facts.append(("Gate", f"fail-on <code>{esc(fail_on)}</code>"))
+    parts.append(
+        '<dl class="facts">' + "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in facts) + "</dl>"
+    )
+
+    rules = {r.name: r for r in deck.layers}
+    head = "".join(f'<th class="n">{s}</th>' for s in SEVERITIES)
+    rows = []
+    for st in result.layers:
+        c = severity_counts(result.findings, st.name)
+        rule = rules.get(st.name)
+        if rule is not None:
+            e = rule.exposure
+            expo = (
+                f"{esc(rule.exposure_name)}: {e.wavelength_nm:g} nm, NA {e.na:g}, "
+                f"{esc(e.illumination.shape)}; {esc(rule.field)} field"
+            )
+        else:
+            expo = "–"
+        ex = st.extract
+        cells = "".join(
+            f'<td class="n {"c-" + s if c[s] else "zero"}">{c[s]}</td>' for s in SEVERITIES
+        )
+        rows.append(
+            f"<tr><td><strong>{esc(st.name)}</strong></td><td>{esc(st.source)}</td>"
+            f"<td>{expo}</td>{cells}<td class='n'>{ex.sites:,}</td>"
+            f"<td class='n'>{ex.isolated_sites:,}</td>"
+            f"<td class='n'>{ex.short_edges + ex.pieces_2d:,}</td><td class='n'>{st.shapes:,}</td>"
+            "</tr>"
+        )
+    total = "".join(f'<td class="n">{counts[s]}</td>' for s in SEVERITIES)
+    rows.append(
+        f'<tr class="total"><td colspan="3">all layers</td>{total}'
+        f"<td class='n'>{sum(s.extract.sites for s in result.layers):,}</td><td></td>"
+        f"<td></td><td class='n'>{sum(s.shapes for s in result.layers):,}</td></tr>"
+    )
+    parts.append(
+        '<table id="counts"><thead><tr><th>layer</th><th>source</th><th>exposure</th>'
+        f"{head}<th class='n'>sites</th><th class='n'>isolated edges</th>"
+        "<th class='n'>2-D edges</th><th class='n'>shapes</th></tr></thead><tbody>"
+        + "".join(rows)
+        + "</tbody></table>"
+    )
+    if result.warnings:
+        items = "".join(f"<li>{esc(w)}</li>" for w in result.warnings[:20])
+        more = f"<li>… {len(result.warnings) - 20} more</li>" if len(result.warnings) > 20 else ""
+        parts.append(f"<h3>Layout reader warnings</h3><ul class='note'>{items}{more}</ul>")
+    parts.append("</section>")
+    return "".join(parts)
+
+
+def filters_html(result: ScanResult, groups: list[Group]) -> str:
+    """The filter bar (hidden until the page's script shows it)."""
+    present = {g.first.severity for g in groups}
+    sev = "".join(
+        f'<label><input type="checkbox" name="severity" value="{s}" checked> '
+        f'<span class="sev {s}">{s}</span></label>'
+        for s in SEVERITIES
+        if s in present
+    )
+    layers = [st.name for st in result.layers]
+    for g in groups:
+        if g.first.layer not in layers:
+            layers.append(g.first.layer)
+    lay = "".join(
+        f'<label><input type="checkbox" name="layer" value="{attr_text(n)}" checked> '
+        f"{esc(n)}</label>"
+        for n in layers
+    )
+    return (
+        '<nav id="filters" hidden aria-label="Filter findings">'
+        f"<span><strong>Show:</strong> {sev}</span><span><strong>Layers:</strong> {lay}</span>"
+        '<span><button type="button" id="expand">expand all</button> '
+        '<button type="button" id="collapse">collapse all</button></span>'
+        '<span id="shown" class="note"></span></nav>'
+    )
+
+
+def index_html(groups: list[Group]) -> str:
+    """A compact table of the drawn groups with links to their sections."""
+    rows = []
+    for k, g in enumerate(groups, 1):
+        f = g.first
+        rows.append(
+            f'<tr data-severity="{attr_text(f.severity)}" data-layer="{attr_text(f.layer)}">'
+            f"<td class='n'><a href='#g{k}'>{k}</a></td><td><span class='sev "
+            f"{attr_text(f.severity)}'>{esc(f.severity)}</span></td><td>{esc(f.layer)}</td>"
+            f"<td><a href='#g{k}'>{esc(f.check)}</a></td><td class='n'>{f.pitch_nm:.1f}</td>"
+            f"<td class='n'>{html_number(f.width_nm)} / {html_number(f.space_nm)}</td>"
+            f"<td class='n'>{f.k1:.3f}</td><td class='n'>{len(g.findings)}</td></tr>"
+        )
+    opened = " open" if len(groups) <= 30 else ""
+    return (
+        f"<details id='index'{opened}><summary>Index of the {len(groups)} groups drawn below"
+        "</summary><table><thead><tr><th class='n'>#</th><th>severity</th><th>layer</th>"
+        "<th>check</th><th class='n'>pitch nm</th><th class='n'>width / space nm</th>"
+        "<th class='n'>k1</th><th class='n'>locations</th></tr></thead><tbody>"
+        + "".join(rows)
+        + "</tbody></table></details>"
+    )
+
+
+def remaining_html(groups: list[Group], start: int) -> str:
+    """The groups beyond the drawn ones, listed without pictures (empty if none)."""
+    rest = groups[start:]
+    if not rest:
+        return ""
+    n_find = sum(len(g.findings) for g in rest)
+    rows = []
+    for k, g in enumerate(rest[:REMAINING_LISTED], start + 1):
+        f = g.first
+        cx, cy = f.centre_um
+        rows.append(
+            f'<tr data-severity="{attr_text(f.severity)}" data-layer="{attr_text(f.layer)}">'
+            f"<td class='n'>{k}</td><td><span class='sev {attr_text(f.severity)}'>"
+            f"{esc(f.severity)}</span></td><td>{esc(f.layer)}</td><td>{esc(f.check)}</td>"
+            f"<td class='n'>{f.pitch_nm:.1f}</td><td class='n'>{html_number(f.width_nm)} / "
+            f"{html_number(f.space_nm)}</td><td class='n'>{f.k1:.3f}</td>"
+            f"<td class='n'>{len(g.findings)}</td><td class='n'>{cx:.3f}, {cy:.3f}</td></tr>"
+        )
+    more = (
+        f"<p class='note'>… {len(rest) - REMAINING_LISTED} groups more are not listed "
+        "here; the JSON output has every finding.</p>"
+        if len(rest) > REMAINING_LISTED
+        else ""
+    )
+    return (
+        '<section id="more-groups"><h2>More findings without pictures</h2>'
+        f'<p id="cap-message"><strong>{len(rest)} more group{"s" if len(rest) != 1 else ""} '
+        f"({n_find} finding{'s' if n_find != 1 else ''})</strong> "
+        f"{'exists' if len(rest) == 1 else 'exist'} beyond the {start} drawn with pictures "
+        "(the report's limit); listed below, worst first.</p>"
+        "<table><thead><tr><th class='n'>#</th><th>severity</th><th>layer</th>"
+        "<th>check</th><th class='n'>pitch nm</th><th class='n'>width / space nm</th>"
+        "<th class='n'>k1</th><th class='n'>locations</th><th class='n'>first at, µm</th>"
+        "</tr></thead><tbody>" + "".join(rows) + f"</tbody></table>{more}</section>"
+    )
