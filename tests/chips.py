@@ -1,4 +1,4 @@
-"""Generated layouts shared by the benchmarks and the output-identity script.
+"""Generated layouts shared by the tests, the benchmarks and the output-identity script.
 
 Demo data of our own invention, not check values.
 """

@@ -29,8 +29,8 @@ DRY_ARF_DECK = textwrap.dedent(
 )
 DRY_ARF_CUTOFF_NM = 193.0 / (0.93 * 1.8)
 
-# The benchmarks' deck (tests/bench_*.py): ArF immersion, annular 0.6-0.9, one
-# dark-field layer on 1/0.  Demo data, not a check value.
+# The benchmark chip's deck (tests/benchmarks/, chips.py): ArF immersion, annular
+# 0.6-0.9, one dark-field layer on 1/0.  Demo data, not a check value.
 BENCH_DECK = textwrap.dedent(
     """
     [deck]

@@ -10,12 +10,12 @@ The ranges keep the expected answer unambiguous:
 
 * every width is below ``MIN_RUN_NM`` and every line length above it, so line
   ends are 2-D (counted, not judged) and only the long sides are sites;
-* every width and space is below ``AMBIT_NM``, so each long side finds its far
-  side and (inside the array) its neighbour;
-* copies side by side are either at least ``AMBIT_NM`` plus a margin apart,
-  so the outer sides of each copy are isolated, or exactly one pitch apart, so
-  together they continue one longer array (an array assembled from arrayed
-  references, as layouts often are).
+* every width and space is below ``INTERACTION_RANGE_NM``, so each long side
+  finds its far side and (inside the array) its neighbour;
+* copies side by side are either at least ``INTERACTION_RANGE_NM`` plus a
+  margin apart, so the outer sides of each copy are isolated, or exactly one
+  pitch apart, so together they continue one longer array (an array assembled
+  from arrayed references, as layouts often are).
 """
 
 from __future__ import annotations
@@ -28,7 +28,7 @@ from hypothesis import strategies as st
 
 GRID_NM = 1.0
 MIN_RUN_NM = 250.0
-AMBIT_NM = 400.0
+INTERACTION_RANGE_NM = 400.0
 
 WIDTH_NM = (20, 200)
 SPACE_NM = (20, 300)
@@ -130,7 +130,7 @@ def polygons(array: LineArray, placement: Placement, grid_nm: float = GRID_NM) -
     if placement.continuous:
         span_x = array.count * array.pitch
     else:
-        span_x = array.count * array.pitch - array.space + AMBIT_NM + COPY_MARGIN_NM
+        span_x = array.count * array.pitch - array.space + INTERACTION_RANGE_NM + COPY_MARGIN_NM
     span_y = array.length + placement.stack_gap
     local = array.local_polygons()
     m = placement.matrix()

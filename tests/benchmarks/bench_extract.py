@@ -3,17 +3,17 @@
 
 A script, not a pytest test.  Run it with the project's interpreter::
 
-    python tests/bench_extract.py                 # 1e4, 1e5, 1e6 rectangles (+ sample)
-    python tests/bench_extract.py --quick         # 1e4, 1e5 only
-    python tests/bench_extract.py --sizes 2e4,2e5 --no-gds
-    python tests/bench_extract.py --trace-max 1e6 # tracemalloc pass at 1e6 too
+    python tests/benchmarks/bench_extract.py                  # 1e4, 1e5, 1e6 rectangles (+ sample)
+    python tests/benchmarks/bench_extract.py --quick          # 1e4, 1e5 only
+    python tests/benchmarks/bench_extract.py --sizes 2e4,2e5 --no-gds
+    python tests/benchmarks/bench_extract.py --trace-max 1e6  # tracemalloc pass at 1e6 too
 
 Rows
     * ``sample``: every ``sample_layouts/*.gds`` scanned with ``rules/demo.toml``
       (or, failing that, ``rules/<layout stem>.toml``); skipped with a note when
       the layout or the deck is missing.
     * ``gen N``: about N rectangles generated as numpy arrays straight into a
-      :class:`pitchguard.layout.PolygonSet`: dense line arrays at several pitches
+      :class:`pitchguard.layout.polygons.PolygonSet`: dense line arrays at several pitches
       and at 0, 90, 45 and 135 degrees, lines drawn as abutting pieces, isolated
       lines, and line ends staggered and facing tip to tip.
 
@@ -21,9 +21,9 @@ Stages (seconds each)
     ``read``      read_layout of a GDSII file (for generated layouts: the same
                   rectangles written to a temporary GDSII and read back; not
                   part of ``total``)
-    ``build``     extract.build_features
-    ``sites``     extract.find_sites
-    ``classify``  classify.classify_layer (rule from a small TOML deck)
+    ``build``     geometry.features.build_features
+    ``sites``     geometry.sites.find_sites
+    ``classify``  judge.verdicts.classify_layer (rule from a small TOML deck)
     ``total``     build + sites + classify
 
 Memory
@@ -72,9 +72,13 @@ from pathlib import Path
 
 import numpy as np
 
-from decks import BENCH_DECK as DECK_TOML  # tests/ is sys.path[0] when run
+TESTS = Path(__file__).resolve().parents[1]
+if str(TESTS) not in sys.path:  # run as a script: the deck is shared with the tests
+    sys.path.insert(0, str(TESTS))
 
-ROOT = Path(__file__).resolve().parent.parent
+from decks import BENCH_DECK as DECK_TOML  # noqa: E402
+
+ROOT = TESTS.parent
 SAMPLE_DIR = ROOT / "sample_layouts"
 SAMPLE_DECK = ROOT / "rules" / "demo.toml"
 

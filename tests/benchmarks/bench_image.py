@@ -3,20 +3,20 @@
 
 A script, not a pytest test.  Run it with the project's interpreter::
 
-    python tests/bench_image.py                   # 300 profiles, 9 focus values
-    python tests/bench_image.py --profiles 100 --abbe-profiles 10 --quick
+    python tests/benchmarks/bench_image.py  # 300 profiles, 9 focus values
+    python tests/benchmarks/bench_image.py --profiles 100 --abbe-profiles 10 --quick
 
 What is compared, side by side, on the same source sampling
-(``image.source_points``), the same orders and the
+(``optics.aerial.source_points``), the same orders and the
 same x grid (``samples`` points per period):
 
 ``socs``
-    :class:`pitchguard.image.CoherentSystems`: for each focus value the
+    :class:`pitchguard.optics.aerial.CoherentSystems`: for each focus value the
     transmission cross coefficients are built and decomposed once (the SVD;
     its time is included, amortised over the batch), then ``image`` is called
     on the profiles in batches of ``--batch`` (as the scan does).
 ``abbe``
-    :func:`pitchguard.image.abbe_image`, the project's reference: one coherent
+    :func:`pitchguard.optics.aerial.abbe_image`, the project's reference: one coherent
     image per source point, summed (called once per profile and focus).
 ``abbe-fft``
     The same per-source-point sum done the fast way a user would write it:
@@ -38,7 +38,7 @@ SVD, since the number of kernels is bounded by the number of orders).
 The case is realistic for ArF immersion metal: 193 nm, NA 1.35, water
 (n 1.44), an annular 0.6-0.9 source and an x dipole 0.6-0.9 of 35 degrees,
 clear field binary mask, a window period ``2 reach + 2 lambda/NA`` with
-``reach = 3 lambda/NA`` (as ``cuts.window_period``), 1024 samples per period,
+``reach = 3 lambda/NA`` (as ``geometry.cuts.window_period``), 1024 samples per period,
 random multi-line profiles (lines 40-120 nm, spaces 40-200 nm, background
 beyond the interaction range).
 

@@ -3,12 +3,12 @@
 
 A script, not a pytest test::
 
-    python tests/bench_scale.py                      # about 10^7 flat shapes
-    python tests/bench_scale.py --shapes 1e6         # smaller, quicker
+    python tests/benchmarks/bench_scale.py               # about 10^7 flat shapes
+    python tests/benchmarks/bench_scale.py --shapes 1e6  # smaller, quicker
 
-It generates a hierarchical chip (OASIS) on one deck layer: memory-like
-arrays, standard-cell-like rows and routing at several pitches, then runs,
-each in a fresh process, side by side:
+It generates a hierarchical chip (OASIS, ``tests/chips.py``) on one deck
+layer: memory-like arrays, standard-cell-like rows and routing at several
+pitches, then runs, each in a fresh process, side by side:
 
 * ``read+flatten``: gdstk reads the file and flattens the layer (what any
   flat tool pays before it starts);
@@ -33,7 +33,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import os
 import resource
 import subprocess
@@ -42,39 +41,12 @@ import tempfile
 import time
 from pathlib import Path
 
-from decks import BENCH_DECK as DECK  # tests/ is sys.path[0] when run
+TESTS = Path(__file__).resolve().parents[1]
+if str(TESTS) not in sys.path:  # run as a script: decks and chips are shared with the tests
+    sys.path.insert(0, str(TESTS))
 
-
-def build_chip(path: Path, target: float) -> int:
-    """A hierarchical chip of about ``target`` flat shapes; returns the exact count."""
-    import gdstk
-
-    lib = gdstk.Library()
-    # Memory-like: a 32-line cell at pitch 90, arrayed.
-    bit = lib.new_cell("BITS")
-    for k in range(32):
-        bit.add(gdstk.rectangle((k * 0.09, 0), (k * 0.09 + 0.045, 1.6), layer=1))
-    # Standard-cell-like: 6 lines at pitch 200 with a cut, in rows.
-    std = lib.new_cell("STD")
-    for k in range(6):
-        std.add(gdstk.rectangle((k * 0.2, 0), (k * 0.2 + 0.1, 0.7), layer=1))
-        std.add(gdstk.rectangle((k * 0.2, 0.8), (k * 0.2 + 0.1, 1.5), layer=1))
-    # Routing: long lines at pitch 140 and 180.
-    route = lib.new_cell("ROUTE")
-    for k in range(20):
-        route.add(gdstk.rectangle((0, k * 0.14), (40, k * 0.14 + 0.07), layer=1))
-    for k in range(20):
-        route.add(gdstk.rectangle((0, 3 + k * 0.18), (40, 3 + k * 0.18 + 0.09), layer=1))
-    block = lib.new_cell("BLOCK")  # 200 x 200 um
-    block.add(gdstk.Reference(bit, (0, 0), columns=30, rows=50, spacing=(3.0, 2.0)))
-    block.add(gdstk.Reference(std, (100, 0), columns=60, rows=60, spacing=(1.5, 1.65)))
-    block.add(gdstk.Reference(route, (0, 110), columns=4, rows=12, spacing=(45, 7.5)))
-    per_block = 30 * 50 * 32 + 60 * 60 * 12 + 4 * 12 * 40
-    n = max(1, math.ceil((target / per_block) ** 0.5))
-    top = lib.new_cell("CHIP")
-    top.add(gdstk.Reference(block, (0, 0), columns=n, rows=n, spacing=(210, 210)))
-    lib.write_oas(str(path))
-    return per_block * n * n
+from chips import build_bench_chip  # noqa: E402
+from decks import BENCH_DECK as DECK  # noqa: E402
 
 
 def _flatten(path: str) -> dict:
@@ -190,7 +162,7 @@ def main() -> int:
         chip = Path(tmp) / "chip.oas"
         deck = Path(tmp) / "deck.toml"
         deck.write_text(DECK)
-        n = build_chip(chip, args.shapes)
+        n = build_bench_chip(chip, args.shapes)
         print(
             f"chip: {n:,} flat shapes on the deck layer, {chip.stat().st_size / 1e6:.1f} MB "
             f"OASIS; tile {args.tile or 'auto'} um; {os.cpu_count()} cpus"

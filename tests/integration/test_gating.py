@@ -13,7 +13,7 @@ import json
 import gdstk
 import pytest
 
-from .conftest import DRY_ARF_DECK, line_array_cell, run_cli
+from .conftest import DRY_ARF_CUTOFF_NM, line_array_cell, run_cli
 
 
 def _chip(path, shift=(0.0, 0.0), add=False, remove_b=False):
@@ -152,9 +152,22 @@ def test_diff_fixed_only_passes(revs, capsys):
     assert data["diff"]["fixed_findings"][0]["pitch_nm"] == pytest.approx(120.0, abs=1.0)
 
 
-def test_deck_text_unchanged():
-    # The fixture deck these tests use is the dry ArF one (cutoff 115.3 nm).
-    assert "sigma = 0.8" in DRY_ARF_DECK
+def test_the_revisions_arrays_sit_either_side_of_the_decks_cutoff(revs, capsys):
+    """What the tests above rest on: the dry ArF deck images pitches down to
+    193 / (0.93 * 1.8) = 115.3 nm (lambda / (NA (1 + sigma)), arithmetic), so the
+    110 nm array is unresolvable, and the 120 nm one resolves at k1 = 60 * 0.93 /
+    193 = 0.289 (arithmetic), below the 0.30 risk band (common practice)."""
+    js = revs["tmp"] / "r1.json"
+    code, _, _ = run_cli(capsys, "scan", revs["r1"], "-r", revs["deck"], "-q", "--json", js)
+    assert code == 1
+    found = {round(f["pitch_nm"]): f for f in json.loads(js.read_text())["findings"]}
+    assert set(found) == {110, 120}
+    checks = {p: {c["check"]: c["severity"] for c in f["checks"]} for p, f in found.items()}
+    assert found[110]["cutoff_pitch_nm"] == pytest.approx(DRY_ARF_CUTOFF_NM, abs=1e-3)
+    assert checks[110]["unresolvable-pitch"] == "fail"
+    assert "unresolvable-pitch" not in checks[120]
+    assert checks[120]["low-k1"] == "risk"
+    assert found[120]["k1"] == pytest.approx(60 * 0.93 / 193, abs=1e-4)  # JSON: 4 places
 
 
 def test_diff_writes_every_ci_output(revs, capsys):

@@ -226,6 +226,7 @@ def _asymmetric_layout(path: Path) -> None:
     lib.write_gds(str(path))
 
 
+@pytest.mark.slow
 def test_image_plot_runs_along_the_arrow(demo, tmp_path):
     """+x of the image plot points from the worst edge into its space: the facing neighbour's
     edge lies at half the width plus the space (cuts are stored as the smaller of a profile
@@ -364,6 +365,7 @@ def page_requests(netlog: Path) -> list[dict]:
     return out
 
 
+@pytest.mark.slow
 def test_netlog_check_sees_a_page_fetch(tmp_path):
     """Control: a page that fetches is caught, so an empty list below means no fetch."""
     page = tmp_path / "fetching.html"
@@ -374,6 +376,7 @@ def test_netlog_check_sees_a_page_fetch(tmp_path):
     assert any("example.invalid" in r["url"] for r in requests), requests
 
 
+@pytest.mark.slow
 def test_demo_report_in_chromium(demo, tmp_path):
     out, result, _ = demo
     groups = group_findings(result.findings)
@@ -402,6 +405,7 @@ def test_demo_report_in_chromium(demo, tmp_path):
     assert len(hidden) == len(groups) - risk and "risk" not in hidden
 
 
+@pytest.mark.slow
 def test_demo_report_screenshot_is_not_blank(demo, tmp_path):
     out, _, _ = demo
     shot = tmp_path / "demo.png"
@@ -421,6 +425,7 @@ def test_demo_report_screenshot_is_not_blank(demo, tmp_path):
     assert red.sum() > 500
 
 
+@pytest.mark.slow
 def test_many_report_in_chromium(many, tmp_path):
     out, result, _ = many
     dom, requests = run_chromium(tmp_path, out.as_uri(), "--dump-dom")
@@ -431,6 +436,7 @@ def test_many_report_in_chromium(many, tmp_path):
     assert 'id="cap-message"' in dom
 
 
+@pytest.mark.slow
 def test_tiled_scan_report_draws_the_same_layout_clips(demo, tmp_path):
     """A tiled scan keeps no geometry; the report reads the findings' neighbourhoods
     back from the file and must draw what the untiled report draws."""

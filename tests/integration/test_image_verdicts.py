@@ -97,13 +97,14 @@ def test_dipole_does_not_rescue_the_horizontal_twin(tmp_path):
 
 
 def test_interior_of_dipole_array_images_well(tmp_path):
-    """The middle line of the dipole array: NILS well above the 2.0 comfort band."""
+    """The middle line of the dipole array: NILS above every band (the marginal one,
+    2.0 by default); the conventional source's, below the fail band (1.0)."""
     from pitchguard.judge.gratings import grating
 
     rule = parse_deck(IMMERSION.replace("EXPOSURE", "dipx")).layer("m")
     conv = parse_deck(IMMERSION.replace("EXPOSURE", "conv")).layer("m")
-    assert grating(rule, 80, 40, 90.0).metrics.nils > 2.0
-    assert grating(conv, 80, 40, 90.0).metrics.nils < 1.0
+    assert grating(rule, 80, 40, 90.0).metrics.nils > rule.nils_marginal_below
+    assert grating(conv, 80, 40, 90.0).metrics.nils < conv.nils_fail_below
 
 
 def test_mask_kind_changes_the_image(tmp_path):
@@ -116,8 +117,10 @@ def test_mask_kind_changes_the_image(tmp_path):
         text.replace('{ kind = "attenuated", transmission = 0.06 }', '{ kind = "binary" }')
     ).layer("m")
     a, b = grating(att, 110, 45, 90.0), grating(binary, 110, 45, 90.0)
-    assert a.metrics.nils != pytest.approx(b.metrics.nils, rel=0.02)
-    assert a.metrics.contrast != pytest.approx(b.metrics.contrast, abs=0.01)
+    # Steeper and of more contrast, by more than the 2 % / 0.01 a change of
+    # source sampling could explain (SOURCE_STEP_CLAIM in test_image.py: 3e-3).
+    assert a.metrics.nils > 1.02 * b.metrics.nils
+    assert a.metrics.contrast > b.metrics.contrast + 0.01
 
 
 # Dry ArF, annular 0.6-0.9, one clear-field layer "p" on 1/0 (limits: the defaults).

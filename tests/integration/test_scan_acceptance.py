@@ -140,6 +140,7 @@ def test_relaxed_and_isolated_wide_lines_are_not_flagged(tmp_path, fmt):
     top.add(gdstk.rectangle((20, 0), (20.5, 5), layer=7))  # isolated wide line
     top.add(gdstk.rectangle((30, 0), (40, 10), layer=7))  # pad
     res = scan_layout(_write(lib, tmp_path, fmt), DECK)
+    assert res.layers[0].shapes == 2 * 12 + 2  # every shape was read
     assert not [f for f in res.findings if f.severity in ("fail", "risk")]
 
 

@@ -44,6 +44,7 @@ def _same(a, b, features: bool = True):
     """Same findings, and the same counts per layer: each tile counts what it owns.
     ``features=False``: a large concave feature cut by a tile's window may be
     counted once per part (a documented limit of tiled counts)."""
+    assert len(a.findings) > 0, "no findings to compare"
     assert sorted(map(_key, a.findings)) == sorted(map(_key, b.findings))
     assert _counts(a, features) == _counts(b, features)
 
@@ -83,6 +84,7 @@ def test_regions_cut_by_tile_borders_are_merged(tmp_path, tile_um, jobs):
     assert any(f.lines == 40 for f in tiled.findings)
 
 
+@pytest.mark.slow
 def test_dask_cluster_on_loopback_gives_the_same_findings(tmp_path):
     import distributed  # in the test extra
 
@@ -120,6 +122,7 @@ def test_region_scans_match_untiled(region):
     _same(whole, tiled)
 
 
+@pytest.mark.slow
 def test_repeated_tiles_are_scanned_once_and_give_the_same_findings(tmp_path):
     """A 160 x 160 um array of 10 um line-array cells: most 10 um tiles hold the same
     polygons up to a shift, so only a few distinct tiles are scanned; the findings
@@ -189,6 +192,7 @@ def _random_chip(path, seed: int, overlap: bool) -> None:
 @pytest.mark.parametrize(
     ("seed", "overlap"), [(2, False), (5, False), (7, False), (0, True), (2, True), (4, True)]
 )
+@pytest.mark.slow
 def test_random_layouts_give_the_same_findings_tiled(tmp_path, seed, overlap):
     """Layouts this suite did not design: tile borders fall anywhere on 45 deg arrays,
     mirrored arrays, arrays of half-unit lattice steps and overlapping shapes
@@ -199,29 +203,27 @@ def test_random_layouts_give_the_same_findings_tiled(tmp_path, seed, overlap):
     whole = scan_layout(path, deck)
     assert len(whole.findings) > 5
     for tile_um in (10, 30):
-        # Overlapping arrays merge into large concave features: their count is
-        # the documented limit (seeds 0 and 2: 514 whole against 536 tiled, 1,189
-        # against 1,191).
+        # Overlapping arrays merge into large concave features, which a tile's
+        # window may cut into parts counted apiece: the documented limit (_same).
         _same(whole, scan_tiled(path, deck, tile_um=tile_um, jobs=2), features=not overlap)
 
 
 def test_a_tile_size_that_defeats_reuse_gets_a_note(tmp_path, monkeypatch, capsys):
-    """Tiles that repeat are scanned once; a tile size that meets the arrays at
-    many phases repeats little (arithmetic: a 3 um pitch meets 50 um tiles at
-    3000 / gcd(50000, 3000) = 3 phases and 10 um tiles at 3).  On the benchmark's
-    chip (2 x 2 blocks) --tile-um 45 ran 10.7 s against 1.9 s for the scan's own
-    choice (measured once, this project's 2-core machine); the scan says so up
-    front, once, on stderr, and not with -q."""
-    from bench_scale import DECK, build_chip
+    """Tiles that repeat are scanned once, so a tile size that meets the layout's
+    arrays at many phases costs far more work than the scan's own choice.  Asked
+    for one (45 um, rounded up to 50 um, on the benchmark chip), the scan says so
+    up front, once, on stderr, and not with -q; its own choice gets no note."""
+    from chips import build_bench_chip
+    from decks import BENCH_DECK
     from pitchguard.cli.app import main
     from pitchguard.errors import LayoutError
     from pitchguard.run import plan, tasks, tiled
 
     chip = tmp_path / "chip.oas"
-    build_chip(chip, 1e5)
+    build_bench_chip(chip, 1e5)
     deck_path = tmp_path / "deck.toml"
-    deck_path.write_text(DECK)
-    deck = parse_deck(DECK)
+    deck_path.write_text(BENCH_DECK)
+    deck = parse_deck(BENCH_DECK)
     st = tasks.structure_task(str(chip), None, [(1, 0)], 10**9)
     halo = plan.tile_halo_nm(deck)
     auto_nm, _ = plan.plan_tiles(st, halo, 2, None, None)
@@ -247,8 +249,8 @@ def test_a_tile_size_that_defeats_reuse_gets_a_note(tmp_path, monkeypatch, capsy
 @pytest.mark.parametrize("fail_on", ["fail", "risk"])
 def test_reports_of_repeated_findings_equal_those_of_the_same_findings_listed(tmp_path, fail_on):
     """Reports of a tiled scan's findings are written from text made once per
-    distinct finding, with only the place filled in per copy (3-4x faster on the
-    benchmark chip).  They must be byte for byte the reports of the same
+    distinct finding, with only the place filled in per copy (a chip repeats
+    most of its findings).  They must be byte for byte the reports of the same
     findings as a plain list (each finding made and written whole)."""
     import dataclasses
 

@@ -1,4 +1,5 @@
-"""Tests for the CI formats (pitchguard.ci_formats): SARIF 2.1.0 and JUnit XML.
+"""Tests for the CI formats: SARIF 2.1.0 (pitchguard.outputs.sarif) and JUnit XML
+(pitchguard.outputs.junit).
 
 References outside the project:
 
@@ -177,6 +178,7 @@ def test_rule_default_levels_follow_the_worst_severity_a_check_raises(demo):
 
 def test_levels_map_from_severity(demo):
     result, deck = demo
+    # SARIF 2.1.0 result levels (OASIS SARIF 2.1.0, result.level): error, warning, note.
     assert LEVEL == {"fail": "error", "risk": "warning", "marginal": "note"}
     log = _demo_sarif(demo)
     res = log["runs"][0]["results"]

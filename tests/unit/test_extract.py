@@ -1,4 +1,6 @@
-"""Unit and property tests for feature building and site finding (pitchguard.extract).
+"""Unit and property tests for feature building and site finding
+(pitchguard.geometry.features and pitchguard.geometry.sites), and for the
+layout reader that feeds them (pitchguard.layout.reader).
 
 Expected values come from the geometry as drawn: a line of width w next to a
 line at space s gives width w, space s and pitch w + s on the facing sides
@@ -24,9 +26,9 @@ from pitchguard.geometry.sites import Sites, find_sites
 from pitchguard.layout.polygons import PolygonSet
 from pitchguard.layout.reader import read_layout
 from strategies import (
-    AMBIT_NM,
     DIAGONAL_DEG,
     GRID_NM,
+    INTERACTION_RANGE_NM,
     MANHATTAN_DEG,
     MIN_RUN_NM,
     LineArray,
@@ -55,7 +57,9 @@ HYPOTHESIS = settings(
 )
 
 
-def extract(polys, min_run_nm=MIN_RUN_NM, interaction_range_nm=AMBIT_NM, grid_nm=GRID_NM):
+def extract(
+    polys, min_run_nm=MIN_RUN_NM, interaction_range_nm=INTERACTION_RANGE_NM, grid_nm=GRID_NM
+):
     """build_features + find_sites on a list of ``(n, 2)`` nm arrays."""
     edges = build_features(PolygonSet.from_arrays(polys), grid_nm=grid_nm)
     sites, stats = find_sites(edges, min_run_nm, interaction_range_nm, grid_nm, cell_nm=None)
@@ -192,7 +196,7 @@ FRAME_WITH_HOLE = {
 
 @pytest.mark.parametrize("drawing", list(FRAME_WITH_HOLE), ids=str)
 def test_feature_with_a_hole(drawing):
-    # Ambit 1200 nm: longer than any distance in the frame, so every side sees across.
+    # Interaction range 1200 nm: longer than any distance in the frame, so every side sees across.
     edges, sites, stats = extract(
         FRAME_WITH_HOLE[drawing], min_run_nm=50.0, interaction_range_nm=1200.0
     )
@@ -490,7 +494,7 @@ def test_layout_file_is_flattened_with_references_and_repetitions(tmp_path, fmt)
     )
 
     edges = build_features(ps, grid_nm=layout.grid_nm)
-    sites, stats = find_sites(edges, MIN_RUN_NM, AMBIT_NM, layout.grid_nm, cell_nm=None)
+    sites, stats = find_sites(edges, MIN_RUN_NM, INTERACTION_RANGE_NM, layout.grid_nm, cell_nm=None)
     assert edges.n_features == 13
     finite = np.isfinite(sites.pitch)
     placed = finite & (np.abs(sites.orientation_deg - 0.0) < 1e-6)  # the placed, rotated lines

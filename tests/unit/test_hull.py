@@ -1,4 +1,4 @@
-"""The hull of a region's site corners (classify._hull), against an independent one.
+"""The hull of a region's site corners (judge.regions.convex_hull), against an independent one.
 
 Reference: scipy.spatial.ConvexHull (Qhull), a separate build from gdstk's.
 """
@@ -10,20 +10,35 @@ from scipy.spatial import ConvexHull
 
 from pitchguard.judge.regions import convex_hull
 
+MIN_CASES = 40  # of 300 seeded sets, each kind below must occur at least this often
+
+
+def _boundary_points_off_the_vertices(pts: np.ndarray, vertices: np.ndarray) -> int:
+    """Points lying on a hull edge strictly between its two vertices (collinear with it)."""
+    a, b = vertices, np.roll(vertices, -1, axis=0)
+    ab, ap = b - a, pts[:, None, :] - a[None, :, :]
+    cross = ab[None, :, 0] * ap[..., 1] - ab[None, :, 1] * ap[..., 0]
+    along = np.einsum("pek,ek->pe", ap, ab)
+    on_edge = (np.abs(cross) < 1e-6) & (along > 0) & (along < np.einsum("ek,ek->e", ab, ab))
+    return int(on_edge.any(axis=1).sum())
+
 
 def test_hull_vertices_equal_qhull_on_random_point_sets():
+    """Both kinds of set are compared: general ones, and ones with points on a hull
+    edge between its corners (site corners share lines), which a hull must leave out."""
     rng = np.random.default_rng(5)
-    checked = 0
+    kinds = {"points on an edge": 0, "general": 0}
     for k in range(300):
         pts = np.round(rng.uniform(-5000, 5000, (int(rng.integers(3, 80)), 2)), 1)
         if k % 3 == 0:  # many points on shared lines, as site corners are
             pts[:, 0] = np.round(pts[:, 0] / 1000) * 1000
         pts = np.unique(pts, axis=0)
-        ref = pts[ConvexHull(pts).vertices]
+        ref = pts[ConvexHull(pts).vertices]  # counter-clockwise in 2-D (scipy docs)
         got = convex_hull(np.concatenate([pts, pts[:5]]))  # repeats are dropped
         assert {tuple(p) for p in got.tolist()} == {tuple(p) for p in ref.tolist()}
-        checked += 1
-    assert checked == 300
+        on_edge = _boundary_points_off_the_vertices(pts, ref)
+        kinds["points on an edge" if on_edge else "general"] += 1
+    assert min(kinds.values()) >= MIN_CASES, kinds
 
 
 def test_hull_of_a_rectangle_with_inner_points_is_its_corners():

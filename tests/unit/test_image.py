@@ -1,5 +1,5 @@
-"""Unit tests for 1-D partially coherent imaging (pitchguard.image) and the
-constant-threshold metrics on its images (pitchguard.printing).
+"""Unit tests for 1-D partially coherent imaging (pitchguard.optics.aerial) and
+the constant-threshold metrics on its images (pitchguard.optics.resist).
 
 Every expected value comes from outside the project, its source named beside it:
 
@@ -14,7 +14,7 @@ Every expected value comes from outside the project, its source named beside it:
 * the Abbe and Hopkins formulations describe the same image (Hopkins 1953;
   common practice), so the two engines must agree to rounding;
 * NILS = CD |dI/dx| / I and the exposure-latitude definition (common practice,
-  see printing.py).
+  see optics/resist.py).
 
 Images are in units of the open frame (an all-clear mask images to 1).
 """
@@ -48,7 +48,7 @@ LATTICE_TOL = 1e-3  # areas counted on a 0.01-sigma lattice: errors of a few 1e-
 NO_MODULATION = 1e-9  # max - min of an image below the cutoff
 MIN_MODULATION = 1e-5  # 10^4 times NO_MODULATION: a first order is really getting through
 MARGIN = 0.01  # 1 % either side of a cutoff
-SOURCE_STEP_CLAIM = 3e-3  # image.IMAGE_SOURCE_STEP docstring: change < 3e-3 of the open frame
+SOURCE_STEP_CLAIM = 3e-3  # optics.aerial.IMAGE_SOURCE_STEP docstring: < 3e-3 of the open frame
 NILS_SAMPLED = 1e-4  # relative: NILS from np.gradient on 1024 samples per period
 
 # Scanner families (common practice): wavelengths, NAs, water at 193 nm.
@@ -281,7 +281,7 @@ def test_source_much_larger_than_pupil_gives_the_incoherent_otf(big_disc, shift)
 # --------------------------------------------------------------------------- (c) cutoff pitch
 
 # Disc radii on and off multiples of the sampling step: the sampling refines
-# the cells cut by the rim (orders.sample_source), so the extreme source
+# the cells cut by the rim (optics.orders.sample_source), so the extreme source
 # points lie within step / (2 SUB) of the rim whatever sigma, far inside the
 # 1 % margin (a sliver of ~0.01 (1 + sigma) in sigma units).
 SIGMAS = [0.3, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0]
@@ -652,7 +652,7 @@ def test_exposure_latitude_of_the_coherent_image(coherent_through_focus):
     # (|field| < sqrt t) has CD(t) = (p/pi) acos((pi/2)(1/2 - sqrt t)).  CD =
     # (1 -+ 10 %) p/2 at theta = (pi/2)(1 -+ 0.1): sqrt t = 1/2 - (2/pi) cos theta.
     # A dose D prints like threshold 1/(4 D) (sized at t = 1/4), so
-    # EL = 100 (1/4) (1/t_a - 1/t_b) % (definition in printing.py; common practice).
+    # EL = 100 (1/4) (1/t_a - 1/t_b) % (definition in optics/resist.py; common practice).
     x, ims, edges = coherent_through_focus
     t_a = (0.5 - (2 / math.pi) * math.cos(math.pi / 2 * (1 - CD_TOL))) ** 2
     t_b = (0.5 - (2 / math.pi) * math.cos(math.pi / 2 * (1 + CD_TOL))) ** 2
@@ -689,7 +689,7 @@ def test_uniform_image_below_the_cutoff_is_lost_with_zero_latitude():
 
 @pytest.mark.parametrize("case", ["uniform", "three-beam"])
 def test_image_everywhere_below_the_threshold_bridges_a_dark_line(case):
-    # Constant-threshold model (printing.py): a dark feature prints where I < t.
+    # Constant-threshold model (optics/resist.py): a dark feature prints where I < t.
     # Where I < t everywhere the whole period is resist: the line runs into its
     # neighbours.  x includes both ends +-p/2 (where the three-beam image peaks).
     p = P_ANALYTIC

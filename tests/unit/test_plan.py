@@ -13,15 +13,18 @@ import random
 
 import pytest
 
-from bench_scale import build_chip  # tests/ is on sys.path (conftest)
+from chips import build_bench_chip  # tests/ is on sys.path (conftest)
 from decks import BENCH_DECK
 from pitchguard.deck import parse_deck
 from pitchguard.errors import LayoutError
 from pitchguard.geometry.sites import SITE_CELL_NM
 from pitchguard.run.plan import (
+    DENSITY_MARGIN,
+    KB_PER_TILE_SHAPE,
     KEY_COST_SHAPES,
     PARENT_BASE_MB,
     TILE_COST_SHAPES,
+    WORKER_BASE_MB,
     phase_fraction,
     plan_tiles,
     tile_halo_nm,
@@ -37,7 +40,7 @@ LAYERS = [(r.layer, r.datatype) for r in DECK.layers]
 @pytest.fixture(scope="module")
 def chip(tmp_path_factory):
     path = tmp_path_factory.mktemp("plan") / "chip.oas"
-    build_chip(path, 3.5e5)  # 2 x 2 blocks of 210 um with arrays nested inside
+    build_bench_chip(path, 3.5e5)  # 2 x 2 blocks of 210 um with arrays nested inside
     return path, structure_task(str(path), None, LAYERS, 10**9)
 
 
@@ -92,18 +95,38 @@ def test_auto_tile_size_is_near_the_best_by_real_content_keys(chip):
     assert real[picked] <= 1.25 * min(real.values()), (picked, real)
 
 
+def _smallest_worker_mb(st, halo) -> float:
+    """A worker scanning the smallest tile (one site cell and its halo, both sides),
+    by the memory model of run.plan: WORKER_BASE_MB plus KB_PER_TILE_SHAPE per
+    shape, at DENSITY_MARGIN times the layout's mean density."""
+    x0, y0, x1, y1 = st.extent_nm
+    density = DENSITY_MARGIN * st.shapes / ((x1 - x0) * (y1 - y0))  # shapes per nm^2
+    shapes = density * (SITE_CELL_NM + 2 * halo) ** 2
+    return WORKER_BASE_MB + shapes * KB_PER_TILE_SHAPE / 1024.0
+
+
 def test_memory_cap_drops_workers_then_refuses(chip):
     _, st = chip
     halo = tile_halo_nm(DECK)
-    t_free, jobs_free = plan_tiles(st, halo, 4, None, None)
+    _, jobs_free = plan_tiles(st, halo, 4, None, None)
     assert jobs_free == 4
-    t_roomy, jobs_roomy = plan_tiles(st, halo, 4, 8000, None)
+    _, jobs_roomy = plan_tiles(st, halo, 4, 8000, None)
     assert jobs_roomy == 4
-    # Room for the parent and about one worker: one worker.
-    _, jobs_tight = plan_tiles(st, halo, 4, PARENT_BASE_MB + 260, None)
-    assert jobs_tight == 1
-    with pytest.raises(LayoutError, match="too small"):
-        plan_tiles(st, halo, 4, PARENT_BASE_MB + 10, None)
+    # The cap must hold the parent (PARENT_BASE_MB) and n workers of at least w MB
+    # each; 1 MB either side of a boundary is far above float round-off.
+    w = _smallest_worker_mb(st, halo)
+    _, jobs = plan_tiles(st, halo, 4, PARENT_BASE_MB + 1.5 * w, None)
+    assert jobs == 1  # room for one worker, not two
+    _, jobs = plan_tiles(st, halo, 4, PARENT_BASE_MB + 2 * w - 1.0, None)
+    assert jobs == 1
+    _, jobs = plan_tiles(st, halo, 4, PARENT_BASE_MB + 2 * w + 1.0, None)
+    assert jobs == 2
+    _, jobs = plan_tiles(st, halo, 4, PARENT_BASE_MB + w + 1.0, None)
+    assert jobs == 1
+    # Below the parent and one worker: refused, naming what a scan needs.
+    with pytest.raises(LayoutError, match="too small") as info:
+        plan_tiles(st, halo, 4, PARENT_BASE_MB + w - 1.0, None)
+    assert f"about {math.ceil(PARENT_BASE_MB + w)} MB" in str(info.value)
 
 
 def test_smaller_caps_never_get_larger_tiles(chip):

@@ -54,6 +54,7 @@ def _awkward(fs: FindingSet) -> FindingSet:
     return FindingSet(distinct, fs.which, fs.offset)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("awkward", [False, True])
 def test_json_rows_from_templates_equal_the_plain_rows(tiled, awkward):
     result, _ = tiled
@@ -65,6 +66,7 @@ def test_json_rows_from_templates_equal_the_plain_rows(tiled, awkward):
     assert len(fast) == len(fs) and fast == plain
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("awkward", [False, True])
 def test_sarif_results_from_templates_equal_the_plain_results(tiled, awkward):
     result, deck = tiled
