@@ -12,6 +12,7 @@ from pathlib import Path
 
 import pytest
 
+from decks import DRY_ARF_DECK
 from pitchguard.deck import (
     LIMIT_DEFAULTS,
     Deck,
@@ -463,3 +464,30 @@ def test_nan_limits_are_refused(tmp_path):
     text = replace_once(VALID_DECK, "interaction_range_nm = 500.0", "interaction_range_nm = nan")
     path, message = deck_error(tmp_path, text)
     assert message.startswith(f"{path}: layers[1].interaction_range_nm: ")
+
+
+def test_a_renamed_key_names_its_new_name(tmp_path):
+    """An old deck's key gets one line naming the key that replaced it."""
+    old = DRY_ARF_DECK.replace('field = "clear"', 'field = "clear"\nambit_nm = 400.0')
+    with pytest.raises(DeckError) as info:
+        parse_deck(old)
+    assert str(info.value).endswith(
+        "layers[0].ambit_nm: unknown key: it is now called interaction_range_nm"
+    )
+    new = parse_deck(old.replace("ambit_nm", "interaction_range_nm"))
+    assert new.layers[0].interaction_range_nm == 400.0
+
+
+@pytest.mark.parametrize(
+    ("make", "message"),
+    [
+        (lambda p: p.mkdir(), "is a directory, not a deck file"),
+        (lambda p: p.write_bytes(b"\xff\xfe\x00bad"), "not a text (UTF-8) file"),
+    ],
+)
+def test_unreadable_deck_files_name_the_file(tmp_path, make, message):
+    path = tmp_path / "deck.toml"
+    make(path)
+    with pytest.raises(DeckError) as info:
+        load_deck(path)
+    assert str(info.value) == f"{path}: {message}"
