@@ -304,7 +304,7 @@ def cut_image(
     """Aerial image ``(x_nm, intensity)`` of a cut given by its material boundaries.
 
     ``bounds_nm`` are wafer nm relative to the feature centre (as in
-    :attr:`pitchguard.classify.Finding.cut_bounds_nm`); ``x`` spans the cut.
+    :attr:`pitchguard.judge.findings.Finding.cut_bounds_nm`); ``x`` spans the cut.
     """
     e = rule.exposure
     optics = Optics.of(e)

@@ -75,7 +75,7 @@ def placed_fields(f: Finding, dx: float, dy: float, numbers=None) -> dict[str, s
 
 
 class PlacedRows(Rows):
-    """The rows of a :class:`~pitchguard.classify.FindingSet`'s items, written from a
+    """The rows of a :class:`~pitchguard.judge.findings.FindingSet`'s items, written from a
     text template made once per distinct finding.
 
     Items are distinct findings moved; a row differs from its distinct

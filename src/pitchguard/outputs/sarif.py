@@ -284,7 +284,7 @@ def to_sarif(
 ) -> dict:
     """A SARIF 2.1.0 log of a scan: one run, one rule per check, one result per finding.
 
-    With ``lazy`` the results are :class:`~pitchguard.report.Rows`, made as
+    With ``lazy`` the results are :class:`~pitchguard.outputs.rows.Rows`, made as
     they are written (for :func:`write_sarif`).
     """
     # A check missing from CHECKS (not expected) still gets a rule, after the known ones.

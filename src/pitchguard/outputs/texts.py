@@ -56,7 +56,7 @@ def box_text(bbox_um) -> str:
 
 def describe(f: Finding, holes: bool = False) -> str:
     """One sentence a designer can act on: layer, place, pitch, what tripped, the fix.
-    With ``holes`` the place is left as markers (see report.PlacedRows)."""
+    With ``holes`` the place is left as markers (see outputs.rows.PlacedRows)."""
     where = hole("where", in_text=True) if holes else where_text_of(f)
     box = hole("box", in_text=True) if holes else box_text(f.bbox_um)
     return (

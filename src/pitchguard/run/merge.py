@@ -283,7 +283,7 @@ class BorderSites:
     """Which findings of two neighbouring tiles are parts of one region.
 
     Exactly the rule a whole-layout scan forms regions by
-    (``classify._regions``), applied to the findings' sites near the border:
+    (``judge.regions.region_labels``), applied to the findings' sites near the border:
     two parts join when a site of each touches the other's, on the same
     layer, with lines the same way (within ``ORIENTATION_TOL_DEG``) and
     pitches within the layer's tolerance (or either infinite).  Each group's

@@ -92,7 +92,7 @@ def keys_task(path: str, cell: str | None, layers, tiles, halo: float) -> list[b
 
     faulthandler.disable()
     q, _ = _open(path, cell, layers)
-    # Site pieces are cut on a global grid (extract.SITE_CELL_NM): tiles can
+    # Site pieces are cut on a global grid (geometry.sites.SITE_CELL_NM): tiles can
     # stand in for each other only at the same phase of that grid.
     return [
         (
@@ -128,7 +128,7 @@ def tile_task(
     A tile holding more than ``max_shapes`` shapes (counted from the hierarchy
     before any is read: a corrupt or extreme array can pile millions into one
     tile) is refused with a LayoutError rather than run out of memory.
-    ``imaged``: cuts other workers imaged (see measure.take_imaged); the cuts
+    ``imaged``: cuts other workers imaged (see optics.cut_images.take_imaged); the cuts
     this worker imaged since its last tile are returned for the others.
     """
     import faulthandler
@@ -162,9 +162,9 @@ def tile_task(
 
 
 def hints_task(deck_text: str, keys: list[tuple], judged=()) -> tuple[dict, list]:
-    """Hint texts for ``(layer name, hint key)`` pairs (see classify.hint_text).
+    """Hint texts for ``(layer name, hint key)`` pairs (see judge.hints.hint_text).
 
-    ``judged``: ideal gratings other workers judged (classify.take_grating_passes);
+    ``judged``: ideal gratings other workers judged (judge.hints.take_grating_passes);
     returns the texts and the gratings judged here.
     """
     deck = _deck(deck_text)

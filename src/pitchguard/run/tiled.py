@@ -259,7 +259,7 @@ class TileScheduler:
 def sum_stats(deck: Deck, per_group: list[tuple[list[LayerStats], int]]) -> list[LayerStats]:
     """Counts of every tile, from each distinct tile's counts times its tiles.
 
-    Each tile counts what it owns (see :func:`pitchguard.extract.find_sites`),
+    Each tile counts what it owns (see :func:`pitchguard.geometry.sites.find_sites`),
     so the sums are the whole layout's; distinct cuts are counted over the
     union of the tiles' cuts.  Seconds are those spent: each distinct tile's
     once.
