@@ -49,3 +49,45 @@ BENCH_DECK = textwrap.dedent(
     field = "dark"
     """
 )
+
+# Decks for the SkyWater 130 nm cells in tests/fixtures/sky130/ (layer numbers
+# from the PDK's layer map: poly 66/20, li1 67/20, met1 68/20, met2 69/20).
+# A capable KrF scanner for a 130 nm node (NA 0.8, annular 0.55-0.85, 6 %
+# attenuated PSM: common practice for that node, from memory) and a weak one
+# (NA 0.7, conventional sigma 0.6, binary), which flags the tightest pitches.
+SKY130_LAYERS = (("poly", "66/20"), ("li1", "67/20"), ("met1", "68/20"), ("met2", "69/20"))
+_SKY130_LAYERS_TOML = "".join(
+    f'\n[[layers]]\nname = "{name}"\nsource = "{src}"\nexposure = "krf"\nfield = "clear"\n'
+    for name, src in SKY130_LAYERS
+)
+SKY130_CAPABLE_DECK = (
+    textwrap.dedent(
+        """
+        [deck]
+        name = "sky130-krf-capable"
+
+        [exposures.krf]
+        wavelength_nm = 248.0
+        na = 0.8
+        illumination = { shape = "annular", sigma_inner = 0.55, sigma_outer = 0.85 }
+        mask = { kind = "attenuated", transmission = 0.06 }
+        """
+    )
+    + _SKY130_LAYERS_TOML
+)
+SKY130_WEAK_DECK = (
+    textwrap.dedent(
+        """
+        [deck]
+        name = "sky130-krf-weak"
+
+        [exposures.krf]
+        wavelength_nm = 248.0
+        na = 0.7
+        illumination = { shape = "conventional", sigma = 0.6 }
+        mask = { kind = "binary" }
+        """
+    )
+    + _SKY130_LAYERS_TOML
+)
+SKY130_CELLS = REPO / "tests" / "fixtures" / "sky130"

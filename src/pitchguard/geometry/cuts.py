@@ -203,8 +203,9 @@ def _bounds(ts: list[float], entering: list[bool], reach: float, q: float) -> li
     space.  Walking outward, crossings must alternate; a vertex hit twice
     (two edges meeting on the cut) is merged.
     """
-    neg = [(t, e) for t, e in zip(ts, entering, strict=True) if t < 0][::-1]  # outward
-    pos = [(t, e) for t, e in zip(ts, entering, strict=True) if t > 0]
+    # A crossing at the very end of the cut bounds nothing inside it.
+    neg = [(t, e) for t, e in zip(ts, entering, strict=True) if -reach < t < 0][::-1]  # outward
+    pos = [(t, e) for t, e in zip(ts, entering, strict=True) if 0 < t < reach]
     out_neg: list[float] = []
     inside = True  # walking towards -t from inside the feature
     for t, ent in _dedupe(neg, q):

@@ -80,6 +80,99 @@ def _drop_cut_lines(a, b, grid_nm):
     return ~cut
 
 
+def _cancel_shared_edges(a, b, feat, n_features: int, grid_nm: float):
+    """Remove the parts of boundary that two outlines (or one outline with itself)
+    run over in opposite directions, and join the outlines that met there.
+
+    The union engine leaves shapes that only share a stretch of edge (a T or L
+    junction, abutting pieces, a self-touching polygon) as separate outlines;
+    on the wafer they print as one piece.  On each line, boundary runs with the
+    material on opposite sides cancel where they overlap; what is left is the
+    outline of the merged feature.  Exact on the database grid: lines are
+    keyed by integer direction and offset.
+    """
+    q = np.round(a / grid_nm).astype(np.int64)
+    r = np.round(b / grid_nm).astype(np.int64)
+    d = r - q
+    g = np.gcd(np.abs(d[:, 0]), np.abs(d[:, 1]))
+    g = np.where(g == 0, 1, g)
+    u = d // g[:, None]
+    # Canonical direction (first nonzero component positive); sign: the edge's way.
+    flip = (u[:, 0] < 0) | ((u[:, 0] == 0) & (u[:, 1] < 0))
+    sign = np.where(flip, -1, 1)
+    u = np.where(flip[:, None], -u, u)
+    offset = u[:, 1] * q[:, 0] - u[:, 0] * q[:, 1]
+    t0 = u[:, 0] * q[:, 0] + u[:, 1] * q[:, 1]
+    t1 = u[:, 0] * r[:, 0] + u[:, 1] * r[:, 1]
+    lo, hi = np.minimum(t0, t1), np.maximum(t0, t1)
+    key = np.stack([u[:, 0], u[:, 1], offset], axis=1)
+    _, line = np.unique(key, axis=0, return_inverse=True)
+    line = line.ravel()
+    # Lines that hold runs both ways are the only candidates.
+    both = np.zeros(line.max() + 1, dtype=np.int8)
+    np.bitwise_or.at(both, line, np.where(sign > 0, 1, 2).astype(np.int8))
+    cand = np.flatnonzero(both[line] == 3)
+    if len(cand) == 0:
+        return a, b, feat, n_features
+    parent = np.arange(n_features)
+
+    def root(x: int) -> int:
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    drop = np.zeros(len(a), dtype=bool)
+    new_a, new_b, new_f = [], [], []
+    order = cand[np.argsort(line[cand], kind="stable")]
+    groups = np.split(order, np.flatnonzero(np.diff(line[order])) + 1)
+    for grp in groups:
+        lo_g, hi_g, s_g = lo[grp], hi[grp], sign[grp]
+        cuts = np.unique(np.concatenate([lo_g, hi_g]))
+        if len(cuts) < 2:
+            continue
+        left, right = cuts[:-1], cuts[1:]
+        # Per elementary piece: the edges covering it, each way.
+        cover = (lo_g[:, None] <= left[None, :]) & (hi_g[:, None] >= right[None, :])
+        fwd = cover & (s_g[:, None] > 0)
+        bwd = cover & (s_g[:, None] < 0)
+        shared = fwd.any(axis=0) & bwd.any(axis=0)
+        if not shared.any():
+            continue
+        for k in np.flatnonzero(shared).tolist():
+            fa = feat[grp[np.flatnonzero(fwd[:, k])[0]]]
+            fb = feat[grp[np.flatnonzero(bwd[:, k])[0]]]
+            ra, rb = root(int(fa)), root(int(fb))
+            if ra != rb:
+                parent[max(ra, rb)] = min(ra, rb)
+        # The group's edges are replaced by the pieces covered one way only.
+        drop[grp] = True
+        ux, uy = int(u[grp[0], 0]), int(u[grp[0], 1])
+        off = int(offset[grp[0]])
+        norm2 = ux * ux + uy * uy
+        for k in range(len(left)):
+            if shared[k] or not cover[:, k].any():
+                continue
+            e = grp[np.flatnonzero(cover[:, k])[0]]
+            # The point at parameter t on the line: (t u + off (uy, -ux)) / |u|^2.
+            pa = np.array([left[k] * ux + off * uy, left[k] * uy - off * ux]) / norm2
+            pb = np.array([right[k] * ux + off * uy, right[k] * uy - off * ux]) / norm2
+            if sign[e] < 0:
+                pa, pb = pb, pa
+            new_a.append(pa * grid_nm)
+            new_b.append(pb * grid_nm)
+            new_f.append(feat[e])
+    if not drop.any():
+        return a, b, feat, n_features
+    keep = ~drop
+    a = np.concatenate([a[keep], np.array(new_a).reshape(-1, 2)])
+    b = np.concatenate([b[keep], np.array(new_b).reshape(-1, 2)])
+    feat = np.concatenate([feat[keep], np.array(new_f, dtype=feat.dtype)])
+    roots = np.array([root(x) for x in range(n_features)])
+    _, renum = np.unique(roots, return_inverse=True)
+    return a, b, renum.ravel()[feat], int(renum.max()) + 1
+
+
 def _join_straight(a, b, feat, grid_nm):
     """Join consecutive edges of one feature that continue in a straight line.
 
@@ -220,6 +313,8 @@ def build_features(ps: PolygonSet, grid_nm: float) -> Edges:
     a, b, feat = a[nonzero], b[nonzero], feat[nonzero]
     keep = _drop_cut_lines(a, b, grid_nm)
     a, b, feat = a[keep], b[keep], feat[keep]
+    if len(a):
+        a, b, feat, n_features = _cancel_shared_edges(a, b, feat, n_features, grid_nm)
     if len(a):
         a, b, feat = _join_straight(a, b, feat, grid_nm)
     return Edges(a, b, feat, n_features)

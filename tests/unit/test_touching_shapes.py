@@ -1,0 +1,120 @@
+"""Shapes that touch print as one piece: one feature, and no cut holds two
+abutting intervals (geometry.features, geometry.cuts).
+
+The layout library's union leaves shapes that only share a stretch of edge
+as separate outlines; these cases are the junctions of real cells (see
+tests/integration/test_real_cells.py) drawn small.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from pitchguard.geometry.cuts import site_cuts
+from pitchguard.geometry.features import build_features
+from pitchguard.geometry.sites import find_sites
+from pitchguard.layout.polygons import PolygonSet
+
+
+def _rect(x0, y0, x1, y1):
+    return np.array([(x0, y0), (x1, y0), (x1, y1), (x0, y1)], dtype=np.float64)
+
+
+def _area(edges) -> float:
+    """Area enclosed by the oriented edges (shoelace over the edge soup)."""
+    a, b = edges.a, edges.b
+    return 0.5 * float(np.sum(a[:, 0] * b[:, 1] - b[:, 0] * a[:, 1]))
+
+
+CASES = {
+    # name: (shapes, features, area nm^2) -- areas by arithmetic
+    "T junction": (
+        [_rect(0, 0, 140, 2000), _rect(-1000, 2000, 1140, 2330)],
+        1,
+        140 * 2000 + 2140 * 330,
+    ),
+    "L junction": ([_rect(0, 0, 150, 1000), _rect(150, 850, 900, 1000)], 1, 150_000 + 750 * 150),
+    "abutting pieces": ([_rect(0, 0, 100, 500), _rect(0, 500, 100, 1200)], 1, 100 * 1200),
+    "comb on a bar": (
+        [_rect(-200, 2000, 1500, 2300)]
+        + [_rect(k * 280, 0, k * 280 + 140, 2000) for k in range(5)],
+        1,
+        1700 * 300 + 5 * 140 * 2000,
+    ),
+    "apart by one grid step": ([_rect(0, 0, 100, 500), _rect(0, 501, 100, 1200)], 2, 100 * 1199),
+}
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_touching_shapes_are_one_feature(name):
+    shapes, features, area = CASES[name]
+    edges = build_features(PolygonSet.from_arrays(shapes), 1.0)
+    assert len(np.unique(edges.feature)) == features == edges.n_features
+    assert _area(edges) == pytest.approx(area)
+
+
+def test_a_polygon_touching_itself_is_one_clean_outline():
+    """A polygon whose boundary runs over one stretch twice (a zero-width slit,
+    as drawn in a manufactured transistor cell): the doubled stretch is no edge."""
+    slit = np.array(
+        [
+            (615, 2025),
+            (545, 2025),
+            (545, 4175),
+            (615, 4175),
+            (615, 4870),
+            (395, 4870),
+            (395, 2025),
+            (115, 2025),
+            (115, 4175),
+            (395, 4175),
+            (395, 4870),
+            (-105, 4870),
+            (-105, 4175),
+            (-35, 4175),
+            (-35, 2025),
+            (-105, 2025),
+            (-105, 1330),
+            (615, 1330),
+        ],
+        dtype=np.float64,
+    )
+    edges = build_features(PolygonSet.from_arrays([slit]), 1.0)
+    on_slit = (edges.a[:, 0] == 395) & (edges.b[:, 0] == 395)
+    ys = np.sort(np.concatenate([edges.a[on_slit, 1], edges.b[on_slit, 1]]))
+    # Only the notch's side (2025..4175) is boundary at x = 395; 4175..4870 is inside.
+    assert ys.tolist() == [2025.0, 4175.0]
+
+
+def _cut_bounds(shapes, reach=900.0):
+    edges = build_features(PolygonSet.from_arrays(shapes), 1.0)
+    sites, _ = find_sites(edges, 100.0, reach, 1.0)
+    _, cuts, _ = site_cuts(edges, sites, reach, 1.0)
+    return [c.bounds for c in cuts]
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_no_cut_holds_abutting_intervals(name):
+    bounds = _cut_bounds(CASES[name][0])
+    assert bounds, "no cut to check"
+    for b in bounds:
+        assert all(b[k] < b[k + 1] for k in range(len(b) - 1)), b
+
+
+def test_random_junctions_never_give_abutting_intervals():
+    """Random combs, bars and stubs on a 5 nm grid that touch end to side."""
+    rng = np.random.default_rng(16)
+    checked = 0
+    for _ in range(40):
+        shapes = []
+        for _ in range(rng.integers(3, 9)):
+            x, y = rng.integers(0, 200) * 5, rng.integers(0, 200) * 5
+            w, h = rng.integers(20, 40) * 5, rng.integers(60, 300) * 5
+            shapes.append(_rect(x, y, x + w, y + h))
+            # A bar across its top end, touching it.
+            shapes.append(_rect(x - 200, y + h, x + w + 300, y + h + 150))
+        for b in _cut_bounds(shapes):
+            assert all(b[k] < b[k + 1] for k in range(len(b) - 1)), b
+            checked += 1
+    assert checked > 100  # cuts exist to check (each layout has several sites)
