@@ -80,7 +80,7 @@ def _drop_cut_lines(a, b, grid_nm):
     return ~cut
 
 
-def _cancel_shared_edges(a, b, feat, n_features: int, grid_nm: float):
+def _cancel_shared_edges(a, b, feat, n_features: int, grid_nm: float, renumber=None):
     """Remove the parts of boundary that two outlines (or one outline with itself)
     run over in opposite directions, and join the outlines that met there.
 
@@ -89,8 +89,11 @@ def _cancel_shared_edges(a, b, feat, n_features: int, grid_nm: float):
     on the wafer they print as one piece.  On each line, boundary runs with the
     material on opposite sides cancel where they overlap; what is left is the
     outline of the merged feature.  Exact on the database grid: lines are
-    keyed by integer direction and offset.
+    keyed by integer direction and offset.  Returns the edges, their feature
+    ids (``renumber``, the feature ids of edges left out of the call, first,
+    then these edges'), and the number of features.
     """
+    other = np.zeros(0, dtype=feat.dtype) if renumber is None else renumber
     q = np.round(a / grid_nm).astype(np.int64)
     r = np.round(b / grid_nm).astype(np.int64)
     d = r - q
@@ -113,7 +116,7 @@ def _cancel_shared_edges(a, b, feat, n_features: int, grid_nm: float):
     np.bitwise_or.at(both, line, np.where(sign > 0, 1, 2).astype(np.int8))
     cand = np.flatnonzero(both[line] == 3)
     if len(cand) == 0:
-        return a, b, feat, n_features
+        return a, b, np.concatenate([other, feat]), n_features
     parent = np.arange(n_features)
 
     def root(x: int) -> int:
@@ -163,14 +166,15 @@ def _cancel_shared_edges(a, b, feat, n_features: int, grid_nm: float):
             new_b.append(pb * grid_nm)
             new_f.append(feat[e])
     if not drop.any():
-        return a, b, feat, n_features
+        return a, b, np.concatenate([other, feat]), n_features
     keep = ~drop
     a = np.concatenate([a[keep], np.array(new_a).reshape(-1, 2)])
     b = np.concatenate([b[keep], np.array(new_b).reshape(-1, 2)])
     feat = np.concatenate([feat[keep], np.array(new_f, dtype=feat.dtype)])
     roots = np.array([root(x) for x in range(n_features)])
     _, renum = np.unique(roots, return_inverse=True)
-    return a, b, renum.ravel()[feat], int(renum.max()) + 1
+    renum = renum.ravel()
+    return a, b, renum[np.concatenate([other, feat])], int(renum.max()) + 1
 
 
 def _join_straight(a, b, feat, grid_nm):
@@ -314,7 +318,18 @@ def build_features(ps: PolygonSet, grid_nm: float) -> Edges:
     keep = _drop_cut_lines(a, b, grid_nm)
     a, b, feat = a[keep], b[keep], feat[keep]
     if len(a):
-        a, b, feat, n_features = _cancel_shared_edges(a, b, feat, n_features, grid_nm)
+        # Only merged outlines and polygons other than rectangles can share or
+        # retrace a stretch of boundary (a lone rectangle touches nothing).
+        rect = np.zeros(n_features, dtype=bool)
+        rect[: len(singles)] = np.diff(singles.starts) == 4
+        plain = rect[feat]
+        if not plain.all():
+            ca, cb, cf, n_features = _cancel_shared_edges(
+                a[~plain], b[~plain], feat[~plain], n_features, grid_nm, renumber=feat[plain]
+            )
+            a = np.concatenate([a[plain], ca])
+            b = np.concatenate([b[plain], cb])
+            feat = cf
     if len(a):
         a, b, feat = _join_straight(a, b, feat, grid_nm)
     return Edges(a, b, feat, n_features)
