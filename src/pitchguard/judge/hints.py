@@ -170,6 +170,15 @@ def _hint_cached(
     if not math.isfinite(cd_w) or not math.isfinite(pitch_w):
         return f"widen the {feature} or give it neighbours at a regular pitch"
     ok = passing_pitch(rule, cd_w, pitch_w, angle)
+    quantum = rule.exposure.lambda_over_na_nm / 20.0
+    if abs(ok - pitch_w) <= quantum:
+        # The ideal grating passes at this pitch: the real neighbourhood fails.
+        return (
+            f"an even grating of this {feature} width and pitch passes every limit: "
+            "what fails here is the neighbourhood (unequal spaces, an open side or the "
+            f"last {feature} of an array); make the spacing regular, or add a dummy "
+            f"{feature} beyond the last one"
+        )
     if math.isnan(ok):
         return (
             f"no nearby pitch passes at this {feature} width: widen the {feature}, or "
