@@ -127,3 +127,27 @@ def test_hints_never_propose_the_flagged_pitch_or_a_tighter_one(cells):
         assert float(m.group(1)) > f.pitch_nm, (f.pitch_nm, f.hint)
     local = [f for f, m in hinted if not m and "what fails here is the neighbourhood" in f.hint]
     assert any(f.pitch_nm == 340.0 for f in local)
+
+
+def test_wide_lines_beside_minimum_spaces_are_not_flagged_without_an_anchor(tmp_path):
+    """Without an anchor each site is printed at the dose that sizes its own
+    line.  A wide line sized so must not close a minimum space beside it: met1
+    lines of 140 nm to 2 um, each between 140 nm lines at 140 nm spaces (the
+    layer's minimum width and space, from memory of the sky130 rules), under
+    the capable deck: no fail and no bridged verdict; what is flagged is the
+    narrow lines' NILS (marginal), as on the real cells."""
+    lib = gdstk.Library()
+    cell = lib.new_cell("WIDE")
+    x = 0.0
+    for w in (0.14, 0.2, 0.3, 0.5, 0.8, 1.2, 2.0):
+        for width in (0.14, w, 0.14):
+            cell.add(gdstk.rectangle((x, 0), (x + width, 5), layer=68, datatype=20))
+            x += width + 0.14
+        x += 3.0
+    path = tmp_path / "wide.gds"
+    lib.write_gds(str(path))
+    result = scan_layout(path, parse_deck(SKY130_CAPABLE_DECK))
+    assert result.findings, "the narrow lines' NILS is expected to be flagged"
+    assert all(f.severity != "fail" for f in result.findings)
+    assert all(f.check != "features-bridged" for f in result.findings)
+    assert {(f.check, f.width_nm) for f in result.findings} == {("low-nils", 140.0)}
