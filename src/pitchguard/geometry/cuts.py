@@ -189,7 +189,7 @@ def _segment_pairs(frames: EdgeFrames, p0, p1, line_dir):
         sel = np.flatnonzero(group == g)
         th = frames.turn[g]
         ends = np.stack([p0[sel], p1[sel]])
-        ends = frames._rotated(th, ends.reshape(-1, 2)).reshape(ends.shape)
+        ends = frames.rotated(th, ends.reshape(-1, 2)).reshape(ends.shape)
         qk, j = frames.query(g, ends.min(axis=0), ends.max(axis=0))
         out_k.append(sel[qk])
         out_j.append(j)

@@ -75,7 +75,7 @@ class EdgeFrames:
         self._trees: dict[int, rtree.index.Index] = {}
         self.boxes: dict[int, tuple[np.ndarray, np.ndarray]] = {}  # each tree's item boxes
 
-    def _rotated(self, theta: float, pts: np.ndarray) -> np.ndarray:
+    def rotated(self, theta: float, pts: np.ndarray) -> np.ndarray:
         if theta == 0.0:
             return pts
         c, s_ = math.cos(-theta), math.sin(-theta)
@@ -84,7 +84,7 @@ class EdgeFrames:
     def _tree(self, group: int) -> rtree.index.Index:
         if group not in self._trees:
             th = self.turn[group]
-            ra, rb = self._rotated(th, self.a), self._rotated(th, self.b)
+            ra, rb = self.rotated(th, self.a), self.rotated(th, self.b)
             lo, hi = np.minimum(ra, rb) - self.eps, np.maximum(ra, rb) + self.eps
             self._trees[group] = build_rtree(lo, hi)
             self.boxes[group] = (lo, hi)
@@ -106,7 +106,7 @@ class EdgeFrames:
             ends = np.stack(
                 [self.a[sel] + sweep, self.a[sel] - sweep, self.b[sel] + sweep, self.b[sel] - sweep]
             )
-            ends = self._rotated(th, ends.reshape(-1, 2)).reshape(ends.shape)
+            ends = self.rotated(th, ends.reshape(-1, 2)).reshape(ends.shape)
             qk, j = self.query(g, ends.min(axis=0), ends.max(axis=0))
             out_i.append(sel[qk])
             out_j.append(j)
