@@ -90,7 +90,7 @@ def test_a_polygon_touching_itself_is_one_clean_outline():
 def _cut_bounds(shapes, reach=900.0):
     edges = build_features(PolygonSet.from_arrays(shapes), 1.0)
     sites, _ = find_sites(edges, 100.0, reach, 1.0)
-    _, cuts, _ = site_cuts(edges, sites, reach, 1.0)
+    cuts = site_cuts(edges, sites, reach, 1.0).cuts
     return [c.bounds for c in cuts]
 
 
@@ -118,3 +118,44 @@ def test_random_junctions_never_give_abutting_intervals():
             assert all(b[k] < b[k + 1] for k in range(len(b) - 1)), b
             checked += 1
     assert checked > 100  # cuts exist to check (each layout has several sites)
+
+
+def _changes(shapes, probe, reach=900.0):
+    edges = build_features(PolygonSet.from_arrays(shapes), 1.0)
+    sites, _ = find_sites(edges, 100.0, reach, 1.0)
+    cut_set = site_cuts(edges, sites, reach, 1.0, probe_nm=probe)
+    return sites, cut_set.changes
+
+
+def test_a_site_near_a_line_end_or_junction_is_not_a_1d_cut():
+    """Lines 3 um long at pitch 280 nm, one of them only 300 nm long: its sites lie
+    within 200 nm of its ends, so a cut there does not see a line that runs on
+    unchanged (the probe finds the end); the long lines' sites far from any end
+    and from the short line do."""
+    shapes = [_rect(k * 280, 0, k * 280 + 140, 3000) for k in range(5)]
+    shapes.append(_rect(5 * 280, 1350, 5 * 280 + 140, 1650))  # a 300 nm stub
+    sites, changes = _changes(shapes, probe=200.0)
+    mid = sites.midpoints()
+    on_stub = (mid[:, 0] > 5 * 280 - 1) & (mid[:, 0] < 5 * 280 + 141)
+    assert on_stub.any() and changes[on_stub].all()
+    far = (mid[:, 0] < 3 * 280) & (np.abs(mid[:, 1] - 1500) > 900)
+    assert far.any() and not changes[far].any()
+    # Without the probe nothing is flagged (the default of site_cuts).
+    assert not _changes(shapes, probe=0.0)[1].any()
+
+
+def test_a_slanted_array_is_not_a_change_along_its_lines():
+    """Grid snapping makes a 45 degree edge a staircase: crossings of the probe
+    cuts move by a grid step or two, which is not a change of the neighbourhood."""
+    import math
+
+    c, s = math.cos(math.pi / 4), math.sin(math.pi / 4)
+    shapes = []
+    for k in range(6):
+        x0 = k * 200.0
+        box = np.array([(x0, 0), (x0 + 100, 0), (x0 + 100, 4000), (x0, 4000)])
+        rot = np.round(box @ np.array([[c, s], [-s, c]]))
+        shapes.append(rot)
+    sites, changes = _changes(shapes, probe=150.0)
+    long_ = (sites.u1 - sites.u0) > 1000
+    assert long_.any() and not changes[long_].any()

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -51,26 +52,38 @@ class Cut:
         return lo, hi
 
 
+class CutSet(NamedTuple):
+    """The cuts of a layer's sites (see :func:`site_cuts`)."""
+
+    which: np.ndarray
+    cuts: list[Cut]
+    angles: list[float]
+    changes: np.ndarray
+
+
 def site_cuts(
     edges: Edges,
     sites: Sites,
     reach_nm: float,
     grid_nm: float,
     turn_source: bool = True,
-) -> tuple[np.ndarray, list[Cut], list[float]]:
+    probe_nm: float = 0.0,
+) -> CutSet:
     """Canonical cut of every site with a finite width.
 
-    Returns ``(which, cuts, angles)``: ``cuts[which[k]]`` is the cut of site
-    ``k`` (``which[k] = -1`` where the site has no cut: infinite width or an
-    inconsistent crossing pattern); ``angles[c]`` is the pitch direction of
-    cut ``c`` in degrees mod 180 (0 for every cut when ``turn_source`` is
-    False: a source that turning does not change).
+    ``cuts[which[k]]`` is the cut of site ``k`` (``which[k] = -1`` where the
+    site has no cut: infinite width or an inconsistent crossing pattern);
+    ``angles[c]`` is the pitch direction of cut ``c`` in degrees mod 180 (0
+    for every cut when ``turn_source`` is False: a source that turning does
+    not change).  With ``probe_nm``, ``changes[k]`` flags sites whose cut
+    pattern differs ``probe_nm`` along the edge either way.
     """
     n = len(sites)
     which = np.full(n, -1, dtype=np.int64)
+    changes = np.zeros(n, dtype=bool)
     angles: list[float] = []
     if n == 0 or len(edges) == 0:
-        return which, [], angles
+        return CutSet(which, [], angles, changes)
     a, b = edges.a, edges.b
     vec = b - a
     length = np.hypot(vec[:, 0], vec[:, 1])
@@ -93,42 +106,14 @@ def site_cuts(
     chunk = 50_000
     for c0 in range(0, len(todo), chunk):
         ids = todo[c0 : c0 + chunk]
-        p0 = mid[ids] - nrm[ids] * reach_nm
-        p1 = mid[ids] + nrm[ids] * reach_nm
-        qk, j = _segment_pairs(frames, p0, p1, sites.direction[ids])
-        # Intersection of cut k (mid + t n, |t| <= reach) with edge j.
-        m, nn = mid[ids][qk], nrm[ids][qk]
-        e0, ev = a[j], vec[j]
-        den = nn[:, 0] * ev[:, 1] - nn[:, 1] * ev[:, 0]
-        ok = np.abs(den) > 1e-12
-        r = e0 - m
-        with np.errstate(divide="ignore", invalid="ignore"):
-            t = (r[:, 0] * ev[:, 1] - r[:, 1] * ev[:, 0]) / den
-            u = (r[:, 0] * nn[:, 1] - r[:, 1] * nn[:, 0]) / den
-        ok &= (u >= -1e-9) & (u <= 1 + 1e-9) & (np.abs(t) <= reach_nm)
-        own = j == sites.edge[ids][qk]
-        ok &= ~own
-        # Entering material when moving against the edge's outward normal.
-        out_j = np.stack([d[j, 1], -d[j, 0]], axis=1)
-        entering = np.einsum("ij,ij->i", nn, out_j) < 0
-        qk, t, entering = qk[ok], t[ok], entering[ok]
-        order = np.lexsort((t, qk))
-        qk, t, entering = qk[order], t[order], entering[order]
-        starts = np.searchsorted(qk, np.arange(len(ids)))
-        ends = np.searchsorted(qk, np.arange(len(ids)), side="right")
-        # Sites whose raw crossing patterns (quantised) agree are worked out once:
-        # a 128-bit polynomial hash of each pattern, vectorised.
-        tq = np.round(t / q).astype(np.int64)
-        # A crossing within half a step of the site keeps its side (sub-grid slivers).
-        tiny = (tq == 0) & (t != 0)
-        tq[tiny] = np.sign(t[tiny]).astype(np.int64)
-        val = (tq * 2 + entering).astype(np.uint64)
-        rank = np.arange(len(qk)) - starts[qk]
-        h = np.zeros((len(ids), 2), dtype=np.uint64)
-        with np.errstate(over="ignore"):
-            for col, mult in enumerate(_HASH_MULT):
-                prod = val * _powers(mult, int(rank.max(initial=0)) + 1)[rank]
-                np.add.at(h[:, col], qk, prod)
+        own = sites.edge[ids]
+        tq, entering, starts, ends, h = _crossings(
+            frames, a, vec, d, mid[ids], nrm[ids], sites.direction[ids], own, reach_nm, q
+        )
+        if probe_nm > 0:
+            changes[ids] = _changes_along(
+                frames, a, vec, d, sites, ids, mid, nrm, reach_nm, q, probe_nm, grid_nm
+            )
         wq = np.round(sites.width[ids] / q).astype(np.int64)
         raw = np.stack(
             [h[:, 0].view(np.int64), h[:, 1].view(np.int64), ends - starts, wq, angle_key[ids]],
@@ -162,7 +147,7 @@ def site_cuts(
                 angles.append(key[0] / 10.0)
             rep_cut[u] = idx
         which[ids] = rep_cut[inverse]
-    return which, cuts, angles
+    return CutSet(which, cuts, angles, changes)
 
 
 _HASH_MULT = (0x9E3779B97F4A7C15, 0xC2B2AE3D27D4EB4F)
@@ -179,8 +164,114 @@ def _powers(mult: int, n: int) -> np.ndarray:
     return out
 
 
-def _segment_pairs(frames: EdgeFrames, p0, p1, line_dir):
-    """Candidate edges for cut segments p0-p1 (grouped by the site's orientation)."""
+def _crossings(
+    frames, a, vec, d, origin, nrm, line_dir, own_edge, reach_nm, q, pairs=None, hashed=True
+):
+    """Where cuts ``origin + t nrm`` (|t| <= reach) cross the edges other than
+    ``own_edge``: per crossing its cut, quantised position and whether the cut
+    enters material there (sorted by cut, then position), each cut's slice,
+    and (with ``hashed``) a 128-bit hash of each cut's quantised pattern.
+    ``pairs``: candidate (cut, edge) pairs found already (covering these cuts)."""
+    n = len(origin)
+    p0 = origin - nrm * reach_nm
+    p1 = origin + nrm * reach_nm
+    qk, j = _segment_pairs(frames, p0, p1, line_dir) if pairs is None else pairs
+    m, nn = origin[qk], nrm[qk]
+    e0, ev = a[j], vec[j]
+    den = nn[:, 0] * ev[:, 1] - nn[:, 1] * ev[:, 0]
+    ok = np.abs(den) > 1e-12
+    r = e0 - m
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = (r[:, 0] * ev[:, 1] - r[:, 1] * ev[:, 0]) / den
+        u = (r[:, 0] * nn[:, 1] - r[:, 1] * nn[:, 0]) / den
+    ok &= (u >= -1e-9) & (u <= 1 + 1e-9) & (np.abs(t) <= reach_nm)
+    ok &= j != own_edge[qk]
+    # Entering material when moving against the edge's outward normal.
+    out_j = np.stack([d[j, 1], -d[j, 0]], axis=1)
+    entering = np.einsum("ij,ij->i", nn, out_j) < 0
+    qk, t, entering = qk[ok], t[ok], entering[ok]
+    order = np.lexsort((t, qk))
+    qk, t, entering = qk[order], t[order], entering[order]
+    starts = np.searchsorted(qk, np.arange(n))
+    ends = np.searchsorted(qk, np.arange(n), side="right")
+    tq = np.round(t / q).astype(np.int64)
+    # A crossing within half a step of the site keeps its side (sub-grid slivers).
+    tiny = (tq == 0) & (t != 0)
+    tq[tiny] = np.sign(t[tiny]).astype(np.int64)
+    if not hashed:
+        return tq, entering, starts, ends, None
+    val = (tq * 2 + entering).astype(np.uint64)
+    rank = np.arange(len(qk)) - starts[qk]
+    h = np.zeros((n, 2), dtype=np.uint64)
+    with np.errstate(over="ignore"):
+        for col, mult in enumerate(_HASH_MULT):
+            prod = val * _powers(mult, int(rank.max(initial=0)) + 1)[rank]
+            np.add.at(h[:, col], qk, prod)
+    return tq, entering, starts, ends, h
+
+
+def _changes_along(frames, a, vec, d, sites, ids, mid, nrm, reach_nm, q, probe_nm, grid_nm):
+    """Sites ``ids`` whose cut pattern is not the same ``probe_nm`` along the edge
+    both ways: the line does not run on unchanged around the cut (a junction,
+    a jog, a line end).  Only a site within ``probe_nm`` of its piece's end is
+    probed: pieces end where the neighbourhood changes (or on the site grid)."""
+    out = np.zeros(len(ids), dtype=bool)
+    near = np.flatnonzero(0.5 * (sites.u1[ids] - sites.u0[ids]) < probe_nm + grid_nm)
+    if len(near) == 0:
+        return out
+    sub = ids[near]
+    own, line_dir = sites.edge[sub], sites.direction[sub]
+    along = line_dir * probe_nm
+    c0, c1 = mid[sub] - nrm[sub] * reach_nm, mid[sub] + nrm[sub] * reach_nm
+    pairs = _segment_pairs(frames, c0 - along, c1 - along, line_dir, c0 + along, c1 + along)
+    here = _crossings(
+        frames, a, vec, d, mid[sub], nrm[sub], line_dir, own, reach_nm, q, pairs, hashed=False
+    )
+    for sign in (-1.0, 1.0):
+        there = _crossings(
+            frames,
+            a,
+            vec,
+            d,
+            mid[sub] + sign * along,
+            nrm[sub],
+            line_dir,
+            own,
+            reach_nm,
+            q,
+            pairs,
+            hashed=False,
+        )
+        out[near] |= _patterns_differ(*here[:4], *there[:4])
+    return out
+
+
+PROBE_TOL_STEPS = 3
+"""Crossings of the probe cuts may move this many grid steps from the site's
+cut without counting as a change: snapping a slanted edge to the grid moves it
+by up to about 0.7 step (SNAP_PITCH_SPREAD in judge.regions)."""
+
+
+def _patterns_differ(tq, ent, starts, ends, tq2, ent2, s2, e2) -> np.ndarray:
+    """Per cut: the second pattern has other crossings than the first (a crossing
+    more or less, the other way, or moved by more than PROBE_TOL_STEPS)."""
+    count, count2 = ends - starts, e2 - s2
+    differ = count != count2
+    same = np.flatnonzero(~differ & (count > 0))
+    if len(same):
+        reps = count[same]
+        rank = np.arange(int(reps.sum())) - np.repeat(np.cumsum(reps) - reps, reps)
+        i1 = np.repeat(starts[same], reps) + rank
+        i2 = np.repeat(s2[same], reps) + rank
+        bad = (np.abs(tq[i1] - tq2[i2]) > PROBE_TOL_STEPS) | (ent[i1] != ent2[i2])
+        owner = np.repeat(same, reps)
+        differ[np.unique(owner[bad])] = True
+    return differ
+
+
+def _segment_pairs(frames: EdgeFrames, p0, p1, line_dir, *more):
+    """Candidate edges for cut segments p0-p1, or for the boxes around them and the
+    points ``more`` (grouped by the site's orientation)."""
     ang = np.degrees(np.arctan2(line_dir[:, 1], line_dir[:, 0])) % 90.0
     key = np.round(ang * 2.0).astype(np.int64) % 180
     group = np.where(np.isin(key, list(frames.turn)), key, 0)
@@ -188,7 +279,7 @@ def _segment_pairs(frames: EdgeFrames, p0, p1, line_dir):
     for g in np.unique(group).tolist():
         sel = np.flatnonzero(group == g)
         th = frames.turn[g]
-        ends = np.stack([p0[sel], p1[sel]])
+        ends = np.stack([p0[sel], p1[sel], *(m[sel] for m in more)])
         ends = frames.rotated(th, ends.reshape(-1, 2)).reshape(ends.shape)
         qk, j = frames.query(g, ends.min(axis=0), ends.max(axis=0))
         out_k.append(sel[qk])

@@ -7,6 +7,8 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
+
 from pitchguard.deck import Deck
 from pitchguard.geometry.cuts import site_cuts
 from pitchguard.geometry.features import build_features
@@ -106,9 +108,29 @@ def scan_polygons(
         metrics, which_cut, cuts = None, None, None
         cut_keys: frozenset = frozenset()
         if rule.image_checks and len(sites):
-            which_cut, cuts, angles = site_cuts(
-                edges, sites, reach, grid_nm, turn_source=not source_is_symmetric(rule.exposure)
+            cut_set = site_cuts(
+                edges,
+                sites,
+                reach,
+                grid_nm,
+                turn_source=not source_is_symmetric(rule.exposure),
+                probe_nm=min_run,
             )
+            # A site whose neighbourhood changes within min_run along the line (a
+            # junction, a jog, a line end) is 2-D: counted, not judged as a 1-D cut.
+            keep = ~cut_set.changes
+            if not keep.all():
+                sites = sites.take(np.flatnonzero(keep))
+                ex.sites -= int((~keep).sum())
+                ex.pieces_2d += int((~keep).sum())
+            which_cut, cuts, angles = cut_set.which[keep], cut_set.cuts, cut_set.angles
+            if not keep.all():  # only the cuts of the sites kept are imaged
+                used = np.unique(which_cut[which_cut >= 0])
+                remap = np.full(len(cuts), -1, dtype=np.int64)
+                remap[used] = np.arange(len(used))
+                which_cut = np.where(which_cut >= 0, remap[which_cut], -1)
+                cuts = [cuts[i] for i in used.tolist()]
+                angles = [angles[i] for i in used.tolist()]
             metrics = measure_cuts(cuts, angles, rule, scale)
             ex.extra["unique_cuts"] = len(cuts)
             ex.extra["imaged_sites"] = int((which_cut >= 0).sum())
