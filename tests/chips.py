@@ -46,3 +46,34 @@ def build_bench_chip(path: Path, target: float) -> int:
     else:
         lib.write_oas(str(path))
     return per_block * n * n
+
+
+def place_side_by_side(files, path: Path, gap_um: float = 5.0, row_um: float = math.inf) -> int:
+    """Every top cell of the GDSII ``files`` placed left to right, ``gap_um`` apart,
+    in rows up to ``row_um`` wide, in one layout written to ``path``; returns how
+    many were placed.  Cells of the same name are taken once (the first file's)."""
+    import warnings
+
+    import gdstk
+
+    lib = gdstk.Library(unit=1e-6, precision=1e-9)
+    top = lib.new_cell("CELLS")
+    x = y = row = 0.0
+    names: set[str] = set()
+    placed = 0
+    for f in files:
+        with warnings.catch_warnings():  # real cells hold records gdstk skips (NODE)
+            warnings.simplefilter("ignore", RuntimeWarning)
+            src = gdstk.read_gds(str(f))
+        for c in src.cells:
+            if c.name not in names:
+                names.add(c.name)
+                lib.add(c)
+        for t in src.top_level():
+            (x0, y0), (x1, y1) = t.bounding_box()
+            if x > 0 and x + x1 - x0 > row_um:
+                x, y, row = 0.0, y + row + gap_um, 0.0
+            top.add(gdstk.Reference(t, (x - x0, y - y0)))
+            x, row, placed = x + x1 - x0 + gap_um, max(row, y1 - y0), placed + 1
+    lib.write_gds(str(path))
+    return placed

@@ -13,11 +13,11 @@ from __future__ import annotations
 
 import collections
 import re
-import warnings
 
 import gdstk
 import pytest
 
+from chips import place_side_by_side
 from decks import SKY130_CAPABLE_DECK, SKY130_CELLS, SKY130_LAYERS, SKY130_WEAK_DECK
 from pitchguard.deck import parse_deck
 from pitchguard.geometry.cuts import site_cuts
@@ -34,23 +34,8 @@ CELL_FILES = sorted(SKY130_CELLS.glob("*.gds"))
 def cells(tmp_path_factory):
     """Every vendored cell placed side by side in one layout (5 um apart)."""
     assert len(CELL_FILES) == 17, "tests/fixtures/sky130/ should hold 17 cells"
-    lib = gdstk.Library(unit=1e-6, precision=1e-9)
-    top = lib.new_cell("CELLS")
-    x, names = 0.0, set()
-    for f in CELL_FILES:
-        with warnings.catch_warnings():  # the files hold records gdstk skips (NODE)
-            warnings.simplefilter("ignore", RuntimeWarning)
-            src = gdstk.read_gds(str(f))
-        for c in src.cells:
-            if c.name not in names:
-                names.add(c.name)
-                lib.add(c)
-        for t in src.top_level():
-            (x0, y0), (x1, _) = t.bounding_box()
-            top.add(gdstk.Reference(t, (x - x0, -y0)))
-            x += x1 - x0 + 5.0
     path = tmp_path_factory.mktemp("cells") / "cells.gds"
-    lib.write_gds(str(path))
+    assert place_side_by_side(CELL_FILES, path) == 17
     return path
 
 
@@ -64,8 +49,9 @@ def test_no_cut_of_a_real_cell_holds_touching_features(cells):
     checked = 0
     for rule in deck.layers:
         edges = build_features(layout.layers[(rule.layer, rule.datatype)], layout.grid_nm)
-        sites, _ = find_sites(edges, rule.min_run_nm, rule.interaction_range_nm, 1.0)
-        cuts = site_cuts(edges, sites, rule.interaction_range_nm, 1.0).cuts
+        grid = layout.grid_nm
+        sites, _ = find_sites(edges, rule.min_run_nm, rule.interaction_range_nm, grid)
+        cuts = site_cuts(edges, sites, rule.interaction_range_nm, grid).cuts
         bad = [c.bounds for c in cuts if _abutting(c.bounds)]
         assert not bad, f"{rule.name}: {len(bad)} cuts with touching intervals, e.g. {bad[0]}"
         checked += len(cuts)

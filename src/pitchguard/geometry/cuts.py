@@ -112,7 +112,19 @@ def site_cuts(
         )
         if probe_nm > 0:
             changes[ids] = _changes_along(
-                frames, a, vec, d, sites, ids, mid, nrm, reach_nm, q, probe_nm, grid_nm
+                frames,
+                a,
+                vec,
+                d,
+                sites,
+                ids,
+                mid,
+                nrm,
+                reach_nm,
+                q,
+                probe_nm,
+                grid_nm,
+                (tq, entering, starts, ends),
             )
         wq = np.round(sites.width[ids] / q).astype(np.int64)
         raw = np.stack(
@@ -210,11 +222,12 @@ def _crossings(
     return tq, entering, starts, ends, h
 
 
-def _changes_along(frames, a, vec, d, sites, ids, mid, nrm, reach_nm, q, probe_nm, grid_nm):
+def _changes_along(frames, a, vec, d, sites, ids, mid, nrm, reach_nm, q, probe_nm, grid_nm, here):
     """Sites ``ids`` whose cut pattern is not the same ``probe_nm`` along the edge
     both ways: the line does not run on unchanged around the cut (a junction,
     a jog, a line end).  Only a site within ``probe_nm`` of its piece's end is
-    probed: pieces end where the neighbourhood changes (or on the site grid)."""
+    probed: pieces end where the neighbourhood changes (or on the site grid).
+    ``here``: the crossings of the sites' own cuts (:func:`_crossings`)."""
     out = np.zeros(len(ids), dtype=bool)
     near = np.flatnonzero(0.5 * (sites.u1[ids] - sites.u0[ids]) < probe_nm + grid_nm)
     if len(near) == 0:
@@ -224,9 +237,7 @@ def _changes_along(frames, a, vec, d, sites, ids, mid, nrm, reach_nm, q, probe_n
     along = line_dir * probe_nm
     c0, c1 = mid[sub] - nrm[sub] * reach_nm, mid[sub] + nrm[sub] * reach_nm
     pairs = _segment_pairs(frames, c0 - along, c1 - along, line_dir, c0 + along, c1 + along)
-    here = _crossings(
-        frames, a, vec, d, mid[sub], nrm[sub], line_dir, own, reach_nm, q, pairs, hashed=False
-    )
+    tq, ent, starts, ends = here
     for sign in (-1.0, 1.0):
         there = _crossings(
             frames,
@@ -242,7 +253,7 @@ def _changes_along(frames, a, vec, d, sites, ids, mid, nrm, reach_nm, q, probe_n
             pairs,
             hashed=False,
         )
-        out[near] |= _patterns_differ(*here[:4], *there[:4])
+        out[near] |= _patterns_differ(tq, ent, starts[near], ends[near], *there[:4])
     return out
 
 
