@@ -102,9 +102,10 @@ def test_a_weak_scanner_flags_only_tight_pitches_with_consistent_verdicts(cells)
 
 
 def test_hints_never_propose_the_flagged_pitch_or_a_tighter_one(cells):
-    """Hints come from the ideal grating.  Where the grating passes at the flagged
-    pitch (met1 at 340 nm here: a real cut with one neighbour farther off images
-    worse), the hint names the neighbourhood instead of a pitch around it."""
+    """A pitch hint must pass on the finding's own cut, respaced, and on an ideal
+    grating.  Where the grating passes at the flagged pitch (met1 at 340 nm
+    here: a real cut with one neighbour farther off images worse), the hint
+    names the neighbourhood instead of a pitch around it."""
     result = scan_layout(cells, parse_deck(SKY130_WEAK_DECK))
     hinted = [(f, HINT_PITCH.search(f.hint)) for f in result.findings]
     pitched = [(f, m) for f, m in hinted if m]

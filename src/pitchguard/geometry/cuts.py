@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import NamedTuple
 
@@ -339,6 +340,69 @@ def _dedupe(cross: list[tuple[float, bool]], q: float):
             continue
         out.append((t, e))
     return out
+
+
+def respaced(cut: Cut, space: float, new_space: float, tol: float) -> Cut:
+    """The cut redrawn with its spaces of ``space`` (within ``tol``) set to
+    ``new_space``; when widening, every space narrower than ``new_space`` widens
+    to it.  Features keep their widths and the site's feature its centre; the
+    rest moves outward (or in).  When no space matches, the narrower space
+    beside the feature changes.
+
+    A cut spans ``reach`` from its site's edge: ``reach + w/2`` from the feature
+    centre on the site's side and ``reach - w/2`` on the other (``w`` the
+    feature width).  A bound there is material running past the cut's end and
+    stays there; a side with no such bound is taken to span the longer way.
+    """
+    b, r = list(cut.bounds), cut.reach
+    left, right = cut.feature
+    k = b.index(left)
+    half = 0.5 * (right - left)
+    spans = (r + half, r - half)
+    # Each side as distances from the feature centre, outward from the feature's edge.
+    sides = [b[k + 1 :], [-v for v in reversed(b[: k + 1])]]
+    ends = []
+    for side in sides:
+        last = side[-1]
+        ends.append(last if len(side) > 1 and any(abs(last - e) < 1e-6 for e in spans) else None)
+    if ends[0] is None and ends[1] is not None:
+        ends[0] = spans[1] if abs(ends[1] - spans[0]) < 1e-6 else spans[0]
+    if ends[1] is None and ends[0] is not None:
+        ends[1] = spans[1] if abs(ends[0] - spans[0]) < 1e-6 else spans[0]
+    ends = [spans[0] if e is None else e for e in ends]
+
+    def spaces_of(s: int) -> list[int]:
+        # Indexes i of the spaces side[i] -> side[i + 1] (those ending in material).
+        side = sides[s]
+        return [i for i in range(0, len(side) - 1, 2) if side[i + 1] < ends[s] - 1e-6]
+
+    def changes(g: float) -> bool:
+        return abs(g - space) <= tol or (new_space > space and g < new_space)
+
+    chosen = [{i for i in spaces_of(s) if changes(sides[s][i + 1] - sides[s][i])} for s in (0, 1)]
+    if not chosen[0] and not chosen[1]:
+        near = [(sides[s][1] - sides[s][0], s) for s in (0, 1) if spaces_of(s)]
+        if near:
+            chosen[min(near)[1]] = {0}
+
+    def moved(s: int) -> list[float]:
+        side, end = sides[s], ends[s]
+        out, shift = [side[0]], 0.0
+        for i in range(len(side) - 1):
+            if i in chosen[s]:
+                shift += new_space - (side[i + 1] - side[i])
+            v = side[i + 1]
+            out.append(math.inf if v >= end - 1e-6 else v + shift)
+        # Keep what lies inside the cut: (start, end) of each neighbour, outward.
+        kept = [out[0]]
+        for i in range(1, len(out) - 1, 2):
+            if out[i] >= end:
+                break
+            kept += [out[i], min(out[i + 1], end)]
+        return kept
+
+    bounds = [-v for v in reversed(moved(1))] + moved(0)
+    return Cut(tuple(bounds), r)
 
 
 def cut_segments(cut: Cut, period_nm: float) -> tuple[np.ndarray, np.ndarray]:

@@ -1,4 +1,5 @@
-"""Fix hints: the nearest passing pitch of an ideal grating, made once per distinct finding."""
+"""Fix hints: the nearest pitch at which the finding's own cut, respaced, and
+an ideal grating both pass; made once per distinct finding."""
 
 from __future__ import annotations
 
@@ -16,6 +17,10 @@ HINT_RANGE = (0.6, 2.0)
 
 HINT_IMAGES = 16
 """At most this many candidate pitches are imaged per hint (nearest first)."""
+
+
+HINT_CUTS = 8
+"""At most this many respaced real cuts are imaged per hint (nearest first)."""
 
 
 @lru_cache(maxsize=4096)
@@ -101,12 +106,46 @@ def _judge_grating(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quant
     return not violations(rule, res, m, pitch)
 
 
-def passing_pitch(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: float) -> float:
+class RealCut(NamedTuple):
+    """A finding's own cut, for checking a hint on it (drawn nm, plain values)."""
+
+    bounds: tuple[float, ...]
+    reach: float
+    source_angle: float  # the source turn the cut is imaged with (degrees)
+    space: float  # the flagged site's space
+    tol: float  # spaces within this of ``space`` are the flagged ones
+
+
+def _cut_passes(
+    rule: LayerRule, real: RealCut, cd_w: float, pitch_w: float, angle: float, scale: float
+) -> bool:
+    """True when ``real`` with its flagged spaces set to ``pitch_w - cd_w`` (wafer
+    nm) breaks no limit at that pitch."""
+    from pitchguard.geometry.cuts import Cut, respaced
+    from pitchguard.optics.cut_images import measure_cuts
+
+    cut = respaced(Cut(real.bounds, real.reach), real.space, (pitch_w - cd_w) / scale, real.tol)
+    res = analyse_pitch(rule.exposure, pitch_w, (angle - 90.0) % 180.0)
+    (m,) = measure_cuts([cut], [real.source_angle], rule, scale)
+    return not violations(rule, res, m, pitch_w)
+
+
+def passing_pitch(
+    rule: LayerRule,
+    cd_nm: float,
+    pitch_nm: float,
+    angle_deg: float,
+    real: RealCut | None = None,
+    scale: float = 1.0,
+) -> float:
     """Nearest pitch (wafer nm) at this CD whose ideal grating breaks no limit, or nan.
 
     ``angle_deg`` is the pitch direction.  Pitches on a grid of lambda/NA / 20
     between 0.6x and 2x the flagged pitch are tried nearest first; those that
     pass the order and k1 rules are imaged, at most ``HINT_IMAGES`` of them.
+    With ``real`` (drawn nm, ``scale`` to wafer) a pitch must also pass on
+    that cut respaced to it (:func:`pitchguard.geometry.cuts.respaced`), at
+    most ``HINT_CUTS`` of which are imaged.
     """
     quantum = rule.exposure.lambda_over_na_nm / 20.0
     cd_q = int(round(cd_nm / quantum))
@@ -114,12 +153,18 @@ def passing_pitch(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: flo
     lo = max(int(math.ceil(HINT_RANGE[0] * pitch_nm / quantum)), int(cd_q * 1.05) + 1)
     hi = int(HINT_RANGE[1] * pitch_nm / quantum)
     here = pitch_nm / quantum
-    imaged = 0
+    imaged = cuts = 0
     for q in sorted(range(lo, hi + 1), key=lambda q: (abs(q - here), q)):
         if not _grating_orders_ok(rule, q, angle_q, quantum):
             continue
         if _grating_passes(rule, cd_q, q, angle_q, quantum):
-            return q * quantum
+            if real is None or not rule.image_checks:
+                return q * quantum
+            if _cut_passes(rule, real, cd_nm, q * quantum, angle_deg, scale):
+                return q * quantum
+            cuts += 1
+            if cuts >= HINT_CUTS:
+                break
         imaged += 1
         if imaged >= HINT_IMAGES:
             break
@@ -133,9 +178,10 @@ def hint_key(
     pitch_w: float,
     angle: float,
     scale: float,
+    real: RealCut | None = None,
 ) -> tuple:
     """All a finding's hint depends on, besides its layer's rule (plain values)."""
-    return (tuple(v.check for v in vs), cutoff_pitch_nm, cd_w, pitch_w, angle, scale)
+    return (tuple(v.check for v in vs), cutoff_pitch_nm, cd_w, pitch_w, angle, scale, real)
 
 
 def hint_text(rule: LayerRule, key: tuple) -> str:
@@ -152,6 +198,7 @@ def _hint_cached(
     pitch_w: float,
     angle: float,
     scale: float,
+    real: RealCut | None,
 ) -> str:
     first = checks[0]
     feature = "line" if rule.field == "clear" else "opening"
@@ -169,8 +216,10 @@ def _hint_cached(
         )
     if not math.isfinite(cd_w) or not math.isfinite(pitch_w):
         return f"widen the {feature} or give it neighbours at a regular pitch"
-    ok = passing_pitch(rule, cd_w, pitch_w, angle)
+    ok = ideal = passing_pitch(rule, cd_w, pitch_w, angle)
     quantum = rule.exposure.lambda_over_na_nm / 20.0
+    if real is not None and not abs(ok - pitch_w) <= quantum:
+        ok = passing_pitch(rule, cd_w, pitch_w, angle, real, scale)
     if abs(ok - pitch_w) <= quantum:
         # The ideal grating passes at this pitch: the real neighbourhood fails.
         return (
@@ -179,10 +228,20 @@ def _hint_cached(
             f"last {feature} of an array); make the spacing regular, or add a dummy "
             f"{feature} beyond the last one"
         )
+    if math.isnan(ok) and not math.isnan(ideal):
+        return (
+            f"an even grating of this {feature} width passes at pitch {ideal / scale:.1f} nm, "
+            f"but with this neighbourhood no nearby pitch passes: widen the {feature}, or "
+            "change the exposure (try `pitchguard sweep` for this layer and width)"
+        )
     if math.isnan(ok):
         return (
             f"no nearby pitch passes at this {feature} width: widen the {feature}, or "
             "change the exposure (try `pitchguard sweep` for this layer and width)"
         )
     p_d, s_d = ok / scale, (ok - cd_w) / scale
-    return f"at this {feature} width, pitch {p_d:.1f} nm (space {s_d:.1f} nm) passes every limit"
+    where = ", here and in an even grating" if real is not None and rule.image_checks else ""
+    return (
+        f"at this {feature} width, pitch {p_d:.1f} nm (space {s_d:.1f} nm) passes every "
+        f"limit{where}"
+    )

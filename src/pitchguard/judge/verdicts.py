@@ -11,7 +11,7 @@ from pitchguard.deck import SEVERITIES, LayerRule
 from pitchguard.geometry.sites import Sites
 from pitchguard.judge.checks import IMAGE_CHECKS, OK, violations, worst_severity_code
 from pitchguard.judge.findings import Finding
-from pitchguard.judge.hints import hint_key, hint_text
+from pitchguard.judge.hints import RealCut, hint_key, hint_text
 from pitchguard.judge.regions import (
     SNAP_PITCH_SPREAD,
     Region,
@@ -88,13 +88,15 @@ def classify_layer(
     metrics: list[Metrics] | None = None,
     which_cut: np.ndarray | None = None,
     cuts: list | None = None,
+    cut_angles: list[float] | None = None,
     tile_nm: tuple[float, float, float, float] | None = None,
     defer_hints: bool = False,
 ) -> list[Region]:
     """Regions, each with its finding, for the sites of one layer.
 
     ``metrics[which_cut[k]]`` are the image metrics of site ``k`` (-1: not
-    imaged).  Sites merge into a region when their pitches differ by at most
+    imaged), ``cuts[which_cut[k]]`` its cut, imaged with the source turned
+    by ``cut_angles[which_cut[k]]``.  Sites merge into a region when their pitches differ by at most
     ``max(pitch_tolerance_nm, SNAP_PITCH_SPREAD * grid_nm)`` (drawn nm).
     With ``tile_nm`` (a tile of a tiled scan) each region keeps its sites
     that sites of other tiles could touch (:attr:`Region.border_sites`).
@@ -164,6 +166,13 @@ def classify_layer(
         width_drawn = float(fs.width[worst])
         top = vs[0]
         pitch_angle = math.degrees(math.atan2(normal_all[worst][1], normal_all[worst][0]))
+        limit = f"{top.check}: {top.value:.4g} against {top.limit:.4g}"
+        context = cuts[c_idx].context if (cuts and c_idx >= 0) else ""
+        cut = cuts[c_idx] if (cuts and c_idx >= 0) else None
+        real = None
+        if cut is not None and cut_angles is not None:
+            space = float(fs.space[worst])
+            real = RealCut(cut.bounds, cut.reach, cut_angles[c_idx], space, tol)
         key = hint_key(
             vs,
             res.cutoff_pitch_nm,
@@ -171,11 +180,9 @@ def classify_layer(
             pitch_drawn * scale_to_wafer,
             pitch_angle,
             scale_to_wafer,
+            real,
         )
         hint = "" if defer_hints else hint_text(rule, key)
-        limit = f"{top.check}: {top.value:.4g} against {top.limit:.4g}"
-        context = cuts[c_idx].context if (cuts and c_idx >= 0) else ""
-        cut = cuts[c_idx] if (cuts and c_idx >= 0) else None
         mid = mid_all[worst]
         border = (
             None

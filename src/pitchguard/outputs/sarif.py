@@ -101,7 +101,8 @@ _RULE_HELP: dict[str, dict[str, str]] = {
         "the printed edge a lot: the line width varies and the edges roughen. Below "
         "about 1 the edge is not controllable.",
         "change": "Move the pitch (or the width) to the value in the hint, which names "
-        "the nearest pitch whose ideal grating passes every limit of the layer.",
+        "the nearest pitch at which this cut, respaced, and an ideal grating pass every "
+        "limit of the layer.",
     },
     "low-exposure-latitude": {
         "worst": "risk",

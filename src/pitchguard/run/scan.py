@@ -105,7 +105,7 @@ def scan_polygons(
             bb = ps.bounding_boxes()
             ex.shapes = int(in_region(0.5 * (bb[:, :2] + bb[:, 2:]), region_nm).sum())
         tick(f"{rule.name}: images", 3 * k + 2)
-        metrics, which_cut, cuts = None, None, None
+        metrics, which_cut, cuts, angles = None, None, None, None
         cut_keys: frozenset = frozenset()
         if rule.image_checks and len(sites):
             cut_set = site_cuts(
@@ -147,6 +147,7 @@ def scan_polygons(
                 metrics,
                 which_cut,
                 cuts,
+                angles,
                 tile_nm=region_nm if tile else None,
                 defer_hints=tile,
             )
