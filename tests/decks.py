@@ -90,4 +90,23 @@ SKY130_WEAK_DECK = (
     )
     + _SKY130_LAYERS_TOML
 )
+# A KrF scanner with a diagonal quadrupole (NA 0.75, poles 0.55-0.85 of 30
+# degrees, 6 % attenuated PSM): it images dense lines well and semi-isolated
+# spaces poorly, the forbidden pitches of off-axis illumination (common
+# practice).
+SKY130_QUADRUPOLE_DECK = (
+    textwrap.dedent(
+        """
+        [deck]
+        name = "sky130-krf-quadrupole"
+
+        [exposures.krf]
+        wavelength_nm = 248.0
+        na = 0.75
+        illumination = { shape = "quadrupole", sigma_inner = 0.55, sigma_outer = 0.85, opening_deg = 30.0 }
+        mask = { kind = "attenuated", transmission = 0.06 }
+        """
+    )
+    + _SKY130_LAYERS_TOML
+)
 SKY130_CELLS = REPO / "tests" / "fixtures" / "sky130"

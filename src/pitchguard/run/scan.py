@@ -115,9 +115,11 @@ def scan_polygons(
                 grid_nm,
                 turn_source=not source_is_symmetric(rule.exposure),
                 probe_nm=min_run,
+                near_nm=rule.exposure.lambda_over_na_nm / scale,
             )
-            # A site whose neighbourhood changes within min_run along the line (a
-            # junction, a jog, a line end) is 2-D: counted, not judged as a 1-D cut.
+            # A site whose neighbourhood (within lambda/NA of its feature) changes
+            # within min_run along the line (a junction, a jog, a line end) is 2-D:
+            # counted, not judged as a 1-D cut.
             keep = ~cut_set.changes
             if not keep.all():
                 sites = sites.take(np.flatnonzero(keep))
