@@ -110,3 +110,9 @@ SKY130_QUADRUPOLE_DECK = (
     + _SKY130_LAYERS_TOML
 )
 SKY130_CELLS = REPO / "tests" / "fixtures" / "sky130"
+
+
+def with_optional_layers(deck_text: str) -> str:
+    """``deck_text`` with every layer marked optional: for test layouts drawn on
+    some of a deck's layers only (a missing required layer is an error)."""
+    return deck_text.replace("[[layers]]\n", "[[layers]]\noptional = true\n")

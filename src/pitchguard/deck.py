@@ -305,6 +305,9 @@ class LayerEntry(Limits):
     source: LayerSpec
     exposure: str
     field: Literal["clear", "dark"]
+    # A layer the scanned cell may lack (without it, a layer with no shapes is
+    # an error: a layer map that does not match the layout would pass forever).
+    optional: bool = False
 
 
 class Markers(_Model):
@@ -387,6 +390,7 @@ class LayerRule:
         "focus_steps",
         "anchor",
         "nils_fail_below",
+        "optional",
     )
 
     def __init__(self, entry: LayerEntry, exposure: Exposure, defaults: Limits):
@@ -395,6 +399,7 @@ class LayerRule:
         self.exposure_name = entry.exposure
         self.exposure = exposure
         self.field = entry.field
+        self.optional = entry.optional
 
         def pick(key: str, fallback: float) -> float:
             own = getattr(entry, key)

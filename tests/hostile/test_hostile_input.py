@@ -37,6 +37,7 @@ name = "active"
 source = "1/0"
 exposure = "a"
 field = "clear"
+optional = true
 [[layers]]
 name = "poly"
 source = "7/0"
@@ -47,6 +48,7 @@ name = "metal1"
 source = "17/0"
 exposure = "a"
 field = "dark"
+optional = true
 """
 
 CORPUS_SIZE = 200  # seeded: the same files every run
@@ -200,7 +202,7 @@ def _case_far_coordinates(tmp_path):
 def _case_empty_layout(tmp_path):
     lib = gdstk.Library()
     lib.new_cell("EMPTY")
-    return _lib_write(tmp_path, lib), [], 0, None
+    return _lib_write(tmp_path, lib), [], 2, "no shapes in cell EMPTY: poly (7/0)"
 
 
 def _case_no_cells(tmp_path):
@@ -211,7 +213,8 @@ def _case_layers_absent(tmp_path):
     lib = gdstk.Library()
     top = lib.new_cell("TOP")
     top.add(gdstk.rectangle((0, 0), (1, 1), layer=99))
-    return _lib_write(tmp_path, lib), [], 0, None
+    # A deck whose layer map misses the layout must not pass: exit 2, naming both.
+    return _lib_write(tmp_path, lib), [], 2, "poly (7/0); the file has 99/0"
 
 
 def _case_not_a_layout(tmp_path):
@@ -327,10 +330,10 @@ def test_array_piled_into_one_tile_is_refused_quickly(tmp_path, capsys):
     before any is read (the memory model's limit: about 243,000 at 2 GB)."""
     lib = gdstk.Library()
     leaf = lib.new_cell("LEAF")
-    leaf.add(gdstk.rectangle((0, 0), (0.05, 1), layer=1))
+    leaf.add(gdstk.rectangle((0, 0), (0.05, 1), layer=7))
     top = lib.new_cell("TOP")
     top.add(gdstk.Reference(leaf, (0, 0), columns=1000, rows=1000, spacing=(0, 0)))
-    top.add(gdstk.rectangle((5000, 5000), (5000.05, 5001), layer=1))  # a 5 mm extent
+    top.add(gdstk.rectangle((5000, 5000), (5000.05, 5001), layer=7))  # a 5 mm extent
     path = tmp_path / "piled.gds"
     lib.write_gds(str(path))
     deck = tmp_path / "deck.toml"

@@ -19,7 +19,7 @@ import re
 import gdstk
 import pytest
 
-from decks import SKY130_QUADRUPOLE_DECK, SKY130_WEAK_DECK
+from decks import SKY130_QUADRUPOLE_DECK, SKY130_WEAK_DECK, with_optional_layers
 from pitchguard.deck import parse_deck
 from pitchguard.run.scan import scan_layout
 
@@ -62,7 +62,7 @@ def _line_at(lines, x_nm: float) -> int:
 
 @pytest.mark.parametrize("name", sorted(NEIGHBOURHOODS))
 def test_a_pitch_hint_applied_to_the_drawing_makes_the_line_pass(name, tmp_path):
-    deck = parse_deck(SKY130_WEAK_DECK)
+    deck = parse_deck(with_optional_layers(SKY130_WEAK_DECK))
     widths, spaces = NEIGHBOURHOODS[name]
     lines = _draw(tmp_path / "before.gds", widths, spaces)
     findings = scan_layout(tmp_path / "before.gds", deck).findings
@@ -93,7 +93,7 @@ def test_a_line_failing_where_the_even_grating_passes_is_blamed_on_its_neighbour
     from pitchguard.optics.cut_images import grating_metrics
     from pitchguard.optics.orders import analyse_pitch
 
-    deck = parse_deck(SKY130_QUADRUPOLE_DECK)
+    deck = parse_deck(with_optional_layers(SKY130_QUADRUPOLE_DECK))
     rule = next(r for r in deck.layers if r.name == "met1")
     m, _, _ = grating_metrics(rule, 400.0, 260.0, 0.0)
     assert violations(rule, analyse_pitch(rule.exposure, 400.0, 90.0), m, 400.0) == []

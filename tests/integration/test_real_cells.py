@@ -18,7 +18,13 @@ import gdstk
 import pytest
 
 from chips import place_side_by_side
-from decks import SKY130_CAPABLE_DECK, SKY130_CELLS, SKY130_LAYERS, SKY130_WEAK_DECK
+from decks import (
+    SKY130_CAPABLE_DECK,
+    SKY130_CELLS,
+    SKY130_LAYERS,
+    SKY130_WEAK_DECK,
+    with_optional_layers,
+)
 from pitchguard.deck import parse_deck
 from pitchguard.geometry.cuts import site_cuts
 from pitchguard.geometry.features import build_features
@@ -131,7 +137,7 @@ def test_wide_lines_beside_minimum_spaces_are_not_flagged_without_an_anchor(tmp_
         x += 3.0
     path = tmp_path / "wide.gds"
     lib.write_gds(str(path))
-    result = scan_layout(path, parse_deck(SKY130_CAPABLE_DECK))
+    result = scan_layout(path, parse_deck(with_optional_layers(SKY130_CAPABLE_DECK)))
     assert result.findings, "the narrow lines' NILS is expected to be flagged"
     assert all(f.severity != "fail" for f in result.findings)
     assert all(f.check != "features-bridged" for f in result.findings)

@@ -16,6 +16,7 @@ import pytest
 from pitchguard.deck import parse_deck
 from pitchguard.judge.checks import IMAGE_CHECKS
 from pitchguard.run.scan import scan_layout
+from pitchguard.run.tiled import scan_tiled
 
 from .conftest import DRY_ARF_CUTOFF_NM, DRY_ARF_DECK, line_array_cell
 
@@ -164,14 +165,25 @@ def test_isolated_narrow_line_is_judged_on_its_image_only(tmp_path):
 
 
 def test_layers_not_in_the_deck_are_ignored(tmp_path):
+    """Shapes on 8/0 and 7/1 beside the deck's 7/0: a deck layer marked
+    optional scans nothing and passes; not marked, the scan is refused with
+    both layer maps named (a wrong layer map must not pass a CI gate)."""
+    from pitchguard.errors import LayoutError
+
     lib = gdstk.Library()
     top = lib.new_cell("TOP")
     for layer in ((8, 0), (7, 1)):  # not 7/0
         cell = line_array_cell(lib, f"X{layer[0]}_{layer[1]}", layer, 60, 30, 9, 1000)
         top.add(gdstk.Reference(cell, (0, 0)))
-    res = scan_layout(_write(lib, tmp_path, "gds"), DECK)
+    path = _write(lib, tmp_path, "gds")
+    optional = parse_deck(DRY_ARF_DECK.replace("[[layers]]", "[[layers]]\noptional = true"))
+    res = scan_layout(path, optional)
     assert res.findings == []
     assert res.layers[0].shapes == 0
+    with pytest.raises(LayoutError, match=r"poly \(7/0\); the file has 7/1, 8/0"):
+        scan_layout(path, DECK)
+    with pytest.raises(LayoutError, match=r"poly \(7/0\); the file has 7/1, 8/0"):
+        scan_tiled(path, DECK, jobs=1)
 
 
 def test_region_scans_only_its_window(tmp_path):

@@ -30,10 +30,13 @@ def _key(f):
     )
 
 
-def _counts(result, features: bool) -> list[dict]:
+def _counts(result, features: bool, approx: bool = False) -> list[dict]:
     out = []
     for st in result.layers:
         c = {**vars(st.extract), "layer_shapes": st.shapes}
+        if approx:  # lengths summed in another order over tiles: equal to rounding
+            c["edge_nm"] = pytest.approx(c["edge_nm"], rel=1e-9)
+            c["judged_nm"] = pytest.approx(c["judged_nm"], rel=1e-9)
         if not features:
             del c["features"]
         out.append(c)
@@ -46,7 +49,7 @@ def _same(a, b, features: bool = True):
     counted once per part (a documented limit of tiled counts)."""
     assert len(a.findings) > 0, "no findings to compare"
     assert sorted(map(_key, a.findings)) == sorted(map(_key, b.findings))
-    assert _counts(a, features) == _counts(b, features)
+    assert _counts(a, features) == _counts(b, features, approx=True)
 
 
 @pytest.mark.parametrize("layout", [SAMPLE_GDS, SAMPLE_OAS], ids=["gds", "oas"])

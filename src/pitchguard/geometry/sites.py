@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -107,7 +108,14 @@ class ExtractStats:
     pieces_2d: int = 0  # pieces of long edges that are 2-D (non-parallel neighbour, short)
     sites: int = 0
     isolated_sites: int = 0  # no neighbour within the interaction range
+    edge_nm: float = 0.0  # total length of the features' edges
+    judged_nm: float = 0.0  # length of the sites some check judged
     extra: dict = field(default_factory=dict)
+
+    @property
+    def coverage(self) -> float:
+        """Share of the edge length some check judged (nan: no edges)."""
+        return self.judged_nm / self.edge_nm if self.edge_nm > 0 else math.nan
 
     def add(self, other: ExtractStats, times: int = 1) -> None:
         """Add ``other``'s counts ``times`` over (a tile reused on ``times`` tiles)."""
@@ -119,6 +127,8 @@ class ExtractStats:
             "pieces_2d",
             "sites",
             "isolated_sites",
+            "edge_nm",
+            "judged_nm",
         ):
             setattr(self, k, getattr(self, k) + times * getattr(other, k))
         for k, v in other.extra.items():
@@ -167,6 +177,7 @@ def find_sites(
     long_ = length >= min_run_nm
     eps = grid_nm * 0.5
     wanted = long_
+    stats.edge_nm = float(length.sum()) if region is None else length_in_region(a, b, region)
     if region is not None:
         owned = in_region(_lowest_left(a, b), region)
         stats.edges = int(owned.sum())
@@ -270,6 +281,29 @@ def find_sites(
     stats.sites = len(sites)
     stats.isolated_sites = int(np.isinf(sites.space).sum())
     return sites, stats
+
+
+def length_in_region(a: np.ndarray, b: np.ndarray, region) -> float:
+    """Total length of segments ``a``-``b`` inside ``region`` (x0, y0, x1, y1), taken
+    as ``x0 <= x < x1``, ``y0 <= y < y1`` so the regions of a tiling add up."""
+    x0, y0, x1, y1 = region
+    hi_x, hi_y = np.nextafter(x1, -np.inf), np.nextafter(y1, -np.inf)
+    d = b - a
+    w0, w1 = np.zeros(len(a)), np.ones(len(a))
+    miss = np.zeros(len(a), dtype=bool)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for p, room in (
+            (-d[:, 0], a[:, 0] - x0),
+            (d[:, 0], hi_x - a[:, 0]),
+            (-d[:, 1], a[:, 1] - y0),
+            (d[:, 1], hi_y - a[:, 1]),
+        ):
+            r = room / p
+            w0 = np.where(p < 0, np.maximum(w0, r), w0)
+            w1 = np.where(p > 0, np.minimum(w1, r), w1)
+            miss |= (p == 0) & (room < 0)
+    keep = ~miss & (w1 > w0)
+    return float((np.hypot(d[keep, 0], d[keep, 1]) * (w1[keep] - w0[keep])).sum())
 
 
 def _cut_at_cells(sites: Sites, cell: float, eps: float) -> Sites:

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Iterable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from pitchguard.errors import LayoutError
@@ -24,6 +24,9 @@ class Layout:
     grid_nm: float  # database unit in nanometres
     cells: tuple[str, ...]  # the top cells scanned
     layers: dict[tuple[int, int], PolygonSet]
+    shapes_by_layer: dict = field(default_factory=dict)  # flat shapes per layer read
+    # Layer/datatypes in the file, listed only when a layer read has no shapes.
+    present: tuple[tuple[int, int], ...] = ()
 
     @property
     def nm_per_user_unit(self) -> float:
@@ -62,42 +65,60 @@ def _find_cycle(cells) -> list[str] | None:
     return None
 
 
-def _count_shapes(cell, wanted: set[tuple[int, int]], memo: dict) -> int:
-    """Number of polygons ``cell`` flattens to on ``wanted`` layers, without flattening."""
+def _count_shapes(cell, wanted: set[tuple[int, int]], memo: dict) -> dict:
+    """Polygons ``cell`` flattens to per ``wanted`` layer, without flattening."""
     key = cell.name
     if key in memo:
         return memo[key]
-    n = 0
+    n: dict = {}
     for p in list(cell.polygons) + list(cell.paths):
         layers = (
             zip(p.layers, p.datatypes, strict=True)
             if hasattr(p, "layers")
             else [(p.layer, p.datatype)]
         )
-        hits = sum(1 for ld in layers if ld in wanted)
-        if hits:
-            rep = p.repetition.size if p.repetition.size else 1
-            n += hits * rep
+        rep = p.repetition.size if p.repetition.size else 1
+        for ld in layers:
+            if ld in wanted:
+                n[ld] = n.get(ld, 0) + rep
     for ref in cell.references:
         if isinstance(ref.cell, str) or ref.cell is None:
             continue  # an unresolved reference (rawcell or missing): nothing to flatten
         rep = ref.repetition.size if ref.repetition.size else 1
-        n += rep * _count_shapes(ref.cell, wanted, memo)
+        for ld, k in _count_shapes(ref.cell, wanted, memo).items():
+            n[ld] = n.get(ld, 0) + rep * k
     memo[key] = n
     return n
 
 
-def count_shapes_within(path: Path, tops, wanted: set, max_shapes: int) -> tuple[int, dict]:
-    """Flat shape count of ``tops`` on ``wanted`` layers, from the hierarchy; refuse
-    (LayoutError) more than ``max_shapes``.  Returns the count and the per-cell counts."""
+def count_shapes_within(path: Path, tops, wanted: set, max_shapes: int) -> dict:
+    """Flat shape count of ``tops`` per ``wanted`` layer (absent layers: 0), from
+    the hierarchy; refuse (LayoutError) more than ``max_shapes`` in all."""
     memo: dict = {}
-    total = sum(_count_shapes(c, wanted, memo) for c in tops)
+    by_layer = dict.fromkeys(wanted, 0)
+    for c in tops:
+        for ld, k in _count_shapes(c, wanted, memo).items():
+            by_layer[ld] += k
+    total = sum(by_layer.values())
     if total > max_shapes:
         raise LayoutError(
             f"{path}: deck layers flatten to {total:,} shapes, over the limit of {max_shapes:,} "
             "(raise --max-shapes or scan a --region)"
         )
-    return total, memo
+    return by_layer
+
+
+def layers_in_file(lib, fmt: str, path: Path) -> tuple[tuple[int, int], ...]:
+    """Every layer/datatype holding shapes in the file (a GDSII library read
+    through a layer filter holds only those layers, so the file is asked)."""
+    import gdstk
+
+    if fmt == "gds":
+        with captured_stderr():
+            found = gdstk.gds_info(str(path))["layers_and_datatypes"]
+    else:
+        found = lib.layers_and_datatypes()
+    return tuple(sorted(tuple(int(v) for v in ld) for ld in found))
 
 
 def flatten_layer(tops, layer_datatype: tuple[int, int], scale: float) -> PolygonSet:
@@ -188,7 +209,8 @@ def read_layout(
     if warnings is not None:
         warnings.extend(noise)
 
-    count_shapes_within(p, tops, wanted, max_shapes)
+    by_layer = count_shapes_within(p, tops, wanted, max_shapes)
+    present = layers_in_file(lib, fmt, p) if not all(by_layer.values()) else ()
 
     scale = lib.unit * 1e9
     out: dict[tuple[int, int], PolygonSet] = {}
@@ -204,4 +226,6 @@ def read_layout(
         grid_nm=lib.precision * 1e9,
         cells=tuple(c.name for c in tops),
         layers=out,
+        shapes_by_layer=by_layer,
+        present=present,
     )

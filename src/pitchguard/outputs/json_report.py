@@ -13,7 +13,7 @@ from pitchguard.deck import Deck
 from pitchguard.judge.findings import Finding, FindingSet
 from pitchguard.outputs.files import atomic_write
 from pitchguard.outputs.rows import PlacedRows, Rows, hole, placed_fields, placed_numbers
-from pitchguard.outputs.verdict import CAUTION, exit_code, severity_counts
+from pitchguard.outputs.verdict import CAUTION, coverage_notes, exit_code, severity_counts
 from pitchguard.run.scan import ScanResult
 
 
@@ -141,6 +141,9 @@ def to_json(result: ScanResult, deck: Deck, fail_on: str, lazy: bool = False) ->
             "edges_2d": ex.short_edges,
             "pieces_2d": ex.pieces_2d,
             "isolated_edges": ex.isolated_sites,
+            "edge_um": round(ex.edge_nm / 1000.0, 3),
+            "judged_um": round(ex.judged_nm / 1000.0, 3),
+            "judged_pct": None if ex.edge_nm <= 0 else round(100.0 * ex.coverage, 1),
             **ex.extra,
             "seconds": round(st.seconds, 3),
         }
@@ -172,6 +175,7 @@ def to_json(result: ScanResult, deck: Deck, fail_on: str, lazy: bool = False) ->
             "exit_code": exit_code(result.findings, fail_on),
             "seconds": round(result.seconds, 3),
             "warnings": result.warnings,
+            "notes": coverage_notes(result.layers),
         },
     }
 

@@ -5,7 +5,13 @@ from __future__ import annotations
 import math
 
 from pitchguard.deck import SEVERITIES
-from pitchguard.outputs.verdict import CAUTION, exit_code, severity_counts
+from pitchguard.outputs.verdict import (
+    CAUTION,
+    coverage_notes,
+    coverage_text,
+    exit_code,
+    severity_counts,
+)
 from pitchguard.run.scan import ScanResult
 
 SEVERITY_STYLE = {"fail": "bold red", "risk": "bold yellow", "marginal": "magenta"}
@@ -37,6 +43,7 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
     counts.add_column("sites", justify="right")
     counts.add_column("isolated", justify="right")
     counts.add_column("2-D edges", justify="right")
+    counts.add_column("judged", justify="right")
     counts.add_column("shapes", justify="right")
     for st in result.layers:
         c = severity_counts(result.findings, st.name)
@@ -48,9 +55,12 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
             f"{ex.sites:,}",
             f"{ex.isolated_sites:,}",
             f"{ex.short_edges + ex.pieces_2d:,}",
+            coverage_text(ex),
             f"{st.shapes:,}",
         )
     console.print(counts)
+    for note in coverage_notes(result.layers):
+        console.print(f"[yellow]note:[/] {note}", markup=True, highlight=False)
 
     if result.findings:
         shown = result.findings[:top]

@@ -43,3 +43,29 @@ def severity_counts(findings: Sequence[Finding], layer: str | None = None) -> di
     """Findings per severity, worst first (of ``layer`` only, if given)."""
     c = _tally(findings, layer)
     return {s: c.get(s, 0) for s in SEVERITIES}
+
+
+COVERAGE_NOTE_BELOW = 0.5
+"""A layer with shapes whose judged share of edge length is below this gets a note."""
+
+
+def coverage_text(ex) -> str:
+    """A layer's judged share of edge length, as a table cell ("-": no edges)."""
+    c = ex.coverage
+    return "-" if c != c else f"{100.0 * c:.0f} %"
+
+
+def coverage_notes(layers) -> list[str]:
+    """One line per layer with shapes whose edges are mostly unjudged (``layers``:
+    a scan's :class:`LayerStats`): what is not judged must be said."""
+    out = []
+    for st in layers:
+        ex = st.extract
+        if st.shapes and not ex.coverage >= COVERAGE_NOTE_BELOW:
+            pct = 0.0 if ex.edge_nm <= 0 else 100.0 * ex.coverage
+            out.append(
+                f"layer {st.name}: only {pct:.0f} % of its edge length was judged; the rest "
+                "(line ends, junctions, contacts and vias: 2-D; edges with no neighbour and "
+                "no image) passed unexamined"
+            )
+    return out

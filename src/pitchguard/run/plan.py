@@ -59,6 +59,8 @@ class Structure:
     # and the numbers of the top cells.
     cells_brief: tuple[CellBrief, ...] = ()
     tops_brief: tuple[int, ...] = ()
+    shapes_by_layer: tuple[tuple[tuple[int, int], int], ...] = ()  # flat shapes per deck layer
+    present: tuple[tuple[int, int], ...] = ()  # layers in the file, when a deck layer has none
 
 
 def tile_halo_nm(deck: Deck) -> float:

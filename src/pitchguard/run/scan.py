@@ -140,6 +140,10 @@ def scan_polygons(
                 cut_keys = frozenset(
                     (c, round(a, 1) % 180.0) for c, a in zip(cuts, angles, strict=True)
                 )
+        judged = np.isfinite(sites.pitch)  # the order rules judge every finite pitch
+        if which_cut is not None:
+            judged |= which_cut >= 0
+        ex.judged_nm = float((sites.u1 - sites.u0)[judged].sum())
         regions.extend(
             classify_layer(
                 sites,
@@ -159,6 +163,26 @@ def scan_polygons(
         )
     tick("done", total)
     return regions, stats
+
+
+def require_layers(
+    deck: Deck, path: Path, cells: Sequence[str], by_layer: dict, present: Sequence
+) -> None:
+    """Refuse (LayoutError, exit 2) a scan in which a deck layer not marked
+    ``optional`` has no shapes: a layer map that does not match the layout
+    would otherwise pass every scan."""
+    from pitchguard.errors import LayoutError
+
+    missing = [r for r in deck.layers if not r.optional and not by_layer.get((r.layer, r.datatype))]
+    if not missing:
+        return
+    names = ", ".join(f"{r.name} ({r.source})" for r in missing)
+    has = ", ".join(f"{lay}/{dt}" for lay, dt in present) or "no shapes on any layer"
+    where = "cell " + ", ".join(cells) if cells else "the layout"
+    raise LayoutError(
+        f"{path}: deck layers with no shapes in {where}: {names}; the file has {has} "
+        "(fix the deck's source numbers, or mark the layer optional = true)"
+    )
 
 
 def scan_layout(
@@ -183,6 +207,7 @@ def scan_layout(
         warnings=warnings,
         **({"timeout_s": read_timeout_s} if read_timeout_s else {}),
     )
+    require_layers(deck, Path(path), layout.cells, layout.shapes_by_layer, layout.present)
     region_nm = tuple(v * 1000.0 for v in region_um) if region_um else None
     regions, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
     findings = sort_findings([r.finding for r in regions])

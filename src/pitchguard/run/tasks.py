@@ -52,13 +52,21 @@ def _deck(text: str) -> Deck:
 
 def structure_task(path: str, cell: str | None, layers, max_shapes: int) -> Structure:
     """Open the layout, count its flat shapes from the hierarchy and refuse too many."""
-    from pitchguard.layout.reader import count_shapes_within, open_layout
+    from pitchguard.layout.reader import count_shapes_within, layers_in_file, open_layout
 
     lib, fmt, tops = open_layout(Path(path), set(layers), cell)
-    total, memo = count_shapes_within(Path(path), tops, set(layers), max_shapes)
+    by_layer = count_shapes_within(Path(path), tops, set(layers), max_shapes)
+    present = layers_in_file(lib, fmt, Path(path)) if not all(by_layer.values()) else ()
     q, st = _index(lib, fmt, tops, layers)
     cells, tops = _brief(q)
-    return replace(st, shapes=total, cells_brief=cells, tops_brief=tops)
+    return replace(
+        st,
+        shapes=sum(by_layer.values()),
+        cells_brief=cells,
+        tops_brief=tops,
+        shapes_by_layer=tuple(sorted(by_layer.items())),
+        present=present,
+    )
 
 
 def _brief(q) -> tuple[tuple, tuple]:

@@ -23,7 +23,7 @@ from pitchguard.run.plan import (
     tile_shape_limit,
     tiles_for,
 )
-from pitchguard.run.scan import LayerStats, ScanResult
+from pitchguard.run.scan import LayerStats, ScanResult, require_layers
 from pitchguard.run.tasks import hints_task, keys_task, structure_task, tile_task
 
 KEY_CHUNKS = 16
@@ -112,6 +112,7 @@ def scan_tiled(
     if not scheduler:
         preload_for_fork()
     st = _guarded_structure(p, cell, layers, max_shapes, read_timeout_s or READ_TIMEOUT_S)
+    require_layers(deck, p, st.cells, dict(st.shapes_by_layer), st.present)
     halo = tile_halo_nm(deck)
     tile_nm, jobs = plan_tiles(
         st, halo, jobs or os.cpu_count() or 1, max_memory_mb, tile_um, distributed=bool(scheduler)

@@ -8,7 +8,7 @@ from pitchguard.deck import SEVERITIES, Deck
 from pitchguard.outputs.html.groups import REMAINING_LISTED, Group
 from pitchguard.outputs.html.text import attr_text, esc, html_number
 from pitchguard.outputs.table import one_line_summary
-from pitchguard.outputs.verdict import exit_code, severity_counts
+from pitchguard.outputs.verdict import coverage_notes, coverage_text, exit_code, severity_counts
 from pitchguard.run.scan import ScanResult
 
 
@@ -78,22 +78,26 @@ def summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Grou
             f"<tr><td><strong>{esc(st.name)}</strong></td><td>{esc(st.source)}</td>"
             f"<td>{expo}</td>{cells}<td class='n'>{ex.sites:,}</td>"
             f"<td class='n'>{ex.isolated_sites:,}</td>"
-            f"<td class='n'>{ex.short_edges + ex.pieces_2d:,}</td><td class='n'>{st.shapes:,}</td>"
+            f"<td class='n'>{ex.short_edges + ex.pieces_2d:,}</td>"
+            f"<td class='n'>{coverage_text(ex)}</td><td class='n'>{st.shapes:,}</td>"
             "</tr>"
         )
     total = "".join(f'<td class="n">{counts[s]}</td>' for s in SEVERITIES)
     rows.append(
         f'<tr class="total"><td colspan="3">all layers</td>{total}'
         f"<td class='n'>{sum(s.extract.sites for s in result.layers):,}</td><td></td>"
-        f"<td></td><td class='n'>{sum(s.shapes for s in result.layers):,}</td></tr>"
+        f"<td></td><td></td><td class='n'>{sum(s.shapes for s in result.layers):,}</td></tr>"
     )
     parts.append(
         '<table id="counts"><thead><tr><th>layer</th><th>source</th><th>exposure</th>'
         f"{head}<th class='n'>sites</th><th class='n'>isolated edges</th>"
-        "<th class='n'>2-D edges</th><th class='n'>shapes</th></tr></thead><tbody>"
-        + "".join(rows)
-        + "</tbody></table>"
+        "<th class='n'>2-D edges</th><th class='n'>judged</th><th class='n'>shapes</th></tr>"
+        "</thead><tbody>" + "".join(rows) + "</tbody></table>"
     )
+    notes = coverage_notes(result.layers)
+    if notes:
+        items = "".join(f"<li>{esc(n)}</li>" for n in notes)
+        parts.append(f"<h3>Not judged</h3><ul class='note'>{items}</ul>")
     if result.warnings:
         items = "".join(f"<li>{esc(w)}</li>" for w in result.warnings[:20])
         more = f"<li>… {len(result.warnings) - 20} more</li>" if len(result.warnings) > 20 else ""
