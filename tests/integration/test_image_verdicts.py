@@ -210,6 +210,25 @@ def test_probe_json_has_one_period_centred_on_the_feature(capsys):
     assert inten[centre] == pytest.approx(min(inten), abs=1e-9)
 
 
+def test_probe_reports_the_contrast_of_the_image_it_shows(capsys):
+    """With --focus the image is taken out of focus; its contrast in the JSON
+    must be that image's own (Imax - Imin) / (Imax + Imin) over the period
+    (the definition), not the best-focus value, which differs."""
+    from .conftest import DEMO_DECK
+
+    args = ["probe", "--rules", DEMO_DECK, "--layer", "poly", "--pitch", "130", "--cd", "65"]
+    shown = {}
+    for focus in ("0", "80"):
+        code, out, _ = run_cli(capsys, *args, "--focus", focus, "--json")
+        assert code == 0
+        obj = json.loads(out)
+        inten = obj["image"]["intensity"]
+        want = (max(inten) - min(inten)) / (max(inten) + min(inten))
+        assert obj["contrast"] == pytest.approx(want, abs=2e-3)
+        shown[focus] = obj["contrast"]
+    assert shown["80"] < shown["0"] - 0.02  # defocus lowers it: the two are told apart
+
+
 def test_probe_text_and_plot(tmp_path, capsys):
     from .conftest import DEMO_DECK
 

@@ -112,6 +112,8 @@ def cmd_probe(args) -> int:
     if args.json:
         out = _grating_json(r)
         out["focus_nm"] = args.focus
+        # The image's own contrast and NILS, at the focus it was taken.
+        out["contrast"], out["nils"] = clean_json([r.shown.contrast, r.shown.nils])
         out["image"] = clean_json({"x_nm": r.x_nm.tolist(), "intensity": r.intensity.tolist()})
         out["caution"] = CAUTION
         say(json.dumps(out))
@@ -145,9 +147,10 @@ def cmd_probe(args) -> int:
     console.print()
     m = r.metrics
     if m is not None:
+        at = f" (focus {r.focus_nm:g} nm)" if r.focus_nm else ""
         rows = [
-            ("image contrast", number_text(m.contrast, "", 3)),
-            ("NILS at the drawn edges", number_text(m.nils, "", 2)),
+            (f"image contrast{at}", number_text(r.shown.contrast, "", 3)),
+            (f"NILS at the drawn edges{at}", number_text(r.shown.nils, "", 2)),
             (
                 "printed CD at nominal dose",
                 "lost" if m.lost else "bridged" if m.bridged else number_text(m.cd_nm, " nm", 1),

@@ -28,6 +28,9 @@ class GratingResult:
     x_nm: np.ndarray
     intensity: np.ndarray
     focus_nm: float
+    # Metrics of the image shown (at focus_nm); the verdict, EL and DOF are
+    # through the deck's focus range (``metrics``).
+    shown: Metrics | None = None
 
     @property
     def severity(self) -> str:
@@ -58,16 +61,20 @@ def grating(
 ) -> GratingResult:
     """Judge an ideal grating (wafer nm); lines run at ``orientation_deg`` (90: along y).
 
-    Metrics through the deck's focus range; the returned image is at ``focus_nm``.
+    Metrics through the deck's focus range; the returned image, and the
+    metrics of it (``shown``), are at ``focus_nm``.
     """
     _check(rule, pitch_nm, cd_nm)
     pitch_angle = (orientation_deg + 90.0) % 180.0
     res = analyse_pitch(rule.exposure, pitch_nm, orientation_deg % 180.0)
     m, x, inten = grating_metrics(rule, pitch_nm, cd_nm, pitch_angle)
+    shown = m
     if focus_nm:
-        _, x, inten = grating_metrics(rule, pitch_nm, cd_nm, pitch_angle, (focus_nm,))
+        shown, x, inten = grating_metrics(rule, pitch_nm, cd_nm, pitch_angle, (focus_nm,))
     vs = violations(rule, res, m if rule.image_checks else None, pitch_nm)
-    return GratingResult(pitch_nm, cd_nm, orientation_deg, res, m, tuple(vs), x, inten, focus_nm)
+    return GratingResult(
+        pitch_nm, cd_nm, orientation_deg, res, m, tuple(vs), x, inten, focus_nm, shown
+    )
 
 
 def default_pitches(rule: LayerRule, cd_nm: float) -> np.ndarray:
