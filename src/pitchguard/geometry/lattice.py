@@ -1,0 +1,1306 @@
+"""Lattices of compact features: contacts, vias, posts and short lines in arrays.
+
+Three steps, each usable on its own:
+
+``compact_features``
+    Polygons of one layer -> features (touching shapes merged) whose extents in
+    their own frame are both below ``max_extent_nm`` (the layer's ``min_run_nm``),
+    Manhattan (at any rotation) and without holes; every polygon that is not
+    part of one gets a reason.
+``lattice_sites``
+    Per compact feature, its local lattice: the shortest vector to a feature of
+    the same shape within the interaction range and the shortest one
+    independent of it, reduced and made canonical; and its links to the
+    features it shares an array with.  Every value depends only on the layout
+    within ``HALO_RANGES`` interaction ranges of the feature, so tiles with that
+    much halo give the whole layout's values (``region`` keeps what a tile owns,
+    ``LatticeSites.joined`` puts tiles together).
+``find_arrays``
+    Links -> arrays: basis fitted to all members, lattice class, feature size,
+    rows and columns, bounding box, hull, and each member's place (interior,
+    last column, last row, corner).
+
+``extract_lattices`` runs all three on one layer.
+
+Conventions (all lengths nm as drawn):
+
+* Feature frame: the direction of the feature's edges (modulo 90 degrees),
+  ``angle_deg`` in (-22.5, 67.5]; ``w`` is the extent along that direction,
+  ``h`` across it.  The cut sits away from the usual placements (0, 30, 45, 60,
+  90 degrees), so snapping noise does not swap ``w`` and ``h`` there.
+* Basis: ``a1`` is the shortest lattice vector; among vectors within the
+  tolerance of the shortest length, the one whose direction is smallest in
+  [0, 180) degrees.  ``a2`` is the shortest vector independent of ``a1``; among
+  near-ties, one at no more than 90 degrees from ``a1``, then the one
+  counter-clockwise from ``a1``.  So ``|a1| <= |a2|``, the angle between them is
+  60 to 90 degrees, and the basis is reduced (Lagrange-Gauss).
+* Lattice classes from the reduced basis (tolerance ``tol``): square
+  (``|a1| = |a2|``, 90 degrees), rectangular (90 degrees), hexagonal
+  (``|a1| = |a2|``, 60 degrees), centred (staggered rows: ``|a1| = |a2|`` at
+  another angle, or ``a2`` projecting onto half of ``a1``), oblique; ``row``
+  for features in a line with no second direction within the interaction
+  range (``a2`` is NaN).
+* Lattice coordinates ``(u, v)`` of a member: its centroid is
+  ``origin + u a1 + v a2``, with ``u, v >= 0`` and both reaching 0 in the array.
+
+The tolerance ``tol`` is ``tol_grid`` database grid steps (2 by default): the
+centroid of a snapped, rotated shape moves by up to half a step per axis.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, fields
+from typing import NamedTuple
+
+import numpy as np
+
+from pitchguard.geometry.features import build_features
+from pitchguard.geometry.spatial import build_rtree, components, query_pairs
+from pitchguard.layout.polygons import PolygonSet
+
+TOL_GRID = 2.0
+"""Default tolerance in database grid steps (snapping noise of centroids)."""
+
+HALO_RANGES = 3
+"""A tile's values equal the whole layout's when it reads shapes this many
+interaction ranges (plus twice the largest compact diagonal) around its region:
+a local lattice needs the features within one range, a link also its
+neighbour's lattice, an attachment also its partner's links."""
+
+MIN_MEMBERS = 4
+"""Members an array of two directions needs (three points always lie on a lattice)."""
+
+MIN_MEMBERS_ROW = 3
+"""Members a row needs (two points are a pair, not a period)."""
+
+FRAME_CUT_DEG = 67.5
+"""Upper end of the feature frame's angle range (-22.5, 67.5] (see the module notes)."""
+
+BASIS_ANGLE_EPS_DEG = 1e-6
+"""Directions are taken in [-eps, 180 - eps): a fitted basis vector along +x with
+float noise in y must not flip to -x."""
+
+LEVEL_BASE_GRID = 8.0
+"""Neighbour search radii are this many grid steps times powers of two."""
+
+PAIR_CHUNK = 1 << 16
+"""Features whose candidate neighbours are expanded at once (bounds memory)."""
+
+KEY_STEPS = 16
+"""Centroids are keyed on a grid this many times finer than the database grid."""
+
+# Lattice classes.
+NONE, ROW, SQUARE, RECTANGULAR, CENTRED, HEXAGONAL, OBLIQUE = range(7)
+LATTICE_NAMES = ("none", "row", "square", "rectangular", "centred", "hexagonal", "oblique")
+
+# Why a polygon is not part of a compact feature.
+COMPACT, LARGE, NOT_MANHATTAN, HOLE, DEGENERATE = range(5)
+REASON_NAMES = ("compact", "large", "not Manhattan", "hole", "degenerate")
+
+# A member's place in its array.
+INTERIOR, END_A1, END_A2, CORNER, NOTCH = range(5)
+ROLE_NAMES = ("interior", "last column", "last row", "corner", "notch")
+
+NEIGHBOUR_STEPS = np.array([(1, 0), (1, 1), (0, 1), (-1, 1), (-1, 0), (-1, -1), (0, -1), (1, -1)])
+"""Lattice steps of the neighbour bits (bit k: a member at ``NEIGHBOUR_STEPS[k]``)."""
+
+_SQRT2 = math.sqrt(2.0)
+
+
+# ---------------------------------------------------------------------------
+# Records
+
+
+@dataclass(frozen=True)
+class FeatureColumns:
+    """Compact features as columns (one row per feature, nm)."""
+
+    centroid: np.ndarray  # (n, 2) area centroid
+    size: np.ndarray  # (n, 2) w, h: extents along the frame and across it
+    angle_deg: np.ndarray  # (n,) frame direction in (-22.5, 67.5]
+    area: np.ndarray  # (n,)
+    bbox: np.ndarray  # (n, 4) x0, y0, x1, y1
+    centre: np.ndarray  # (n, 2) centre of the frame rectangle
+
+    def __len__(self) -> int:
+        return len(self.area)
+
+    def take(self, idx: np.ndarray) -> FeatureColumns:
+        return FeatureColumns(*(getattr(self, f.name)[idx] for f in fields(FeatureColumns)))
+
+    @classmethod
+    def empty(cls) -> FeatureColumns:
+        z2 = np.zeros((0, 2))
+        return cls(z2, z2, np.zeros(0), np.zeros(0), np.zeros((0, 4)), z2)
+
+    @classmethod
+    def joined(cls, parts: list[FeatureColumns]) -> FeatureColumns:
+        if not parts:
+            return cls.empty()
+        return cls(*(np.concatenate([getattr(p, f.name) for p in parts]) for f in fields(cls)))
+
+    def corners(self, idx: np.ndarray) -> np.ndarray:
+        """The frame rectangles of features ``idx`` as (k, 4, 2) corners."""
+        t = np.radians(self.angle_deg[idx])
+        eu = np.stack([np.cos(t), np.sin(t)], axis=1)
+        ev = np.stack([-np.sin(t), np.cos(t)], axis=1)
+        hw = 0.5 * self.size[idx, :1] * eu
+        hh = 0.5 * self.size[idx, 1:] * ev
+        c = self.centre[idx]
+        return np.stack([c - hw - hh, c + hw - hh, c + hw + hh, c - hw + hh], axis=1)
+
+
+@dataclass(frozen=True)
+class CompactFeatures:
+    """Compact features of one layer and what became of every polygon.
+
+    ``polygon_feature[k]``: the compact feature polygon ``k`` is part of, or -1;
+    ``polygon_reason[k]``: ``COMPACT`` or why not (``LARGE``: its feature, or a
+    shape it touches, is too large; ``NOT_MANHATTAN``; ``HOLE``; ``DEGENERATE``).
+    """
+
+    features: FeatureColumns
+    polygon_feature: np.ndarray
+    polygon_reason: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.features)
+
+    def reason_counts(self) -> dict[str, int]:
+        """Polygons per reason, by name."""
+        counts = np.bincount(self.polygon_reason, minlength=len(REASON_NAMES))
+        return {name: int(c) for name, c in zip(REASON_NAMES, counts, strict=True)}
+
+
+@dataclass(frozen=True)
+class LatticeSites:
+    """Compact features with their local lattices and links (one tile's own, or joined).
+
+    Per feature: ``a1``, ``a2`` the canonical reduced basis of its local
+    lattice (NaN where missing), ``lattice`` its class (``NONE``: no feature of
+    its shape within range), ``core`` whether it has a link to a feature of the
+    same local lattice.  Links go from a feature (row index ``link_from``) to a
+    feature named by its centroid key (``link_to``, see :func:`centroid_keys`),
+    which may belong to another tile; ``link_core`` tells same-lattice links
+    from attachments (a feature whose own lattice differs, placed on its
+    neighbour's lattice).
+    """
+
+    features: FeatureColumns
+    a1: np.ndarray
+    a2: np.ndarray
+    lattice: np.ndarray
+    core: np.ndarray
+    link_from: np.ndarray
+    link_to: np.ndarray
+    link_core: np.ndarray
+    grid_nm: float
+    tol_nm: float
+    range_nm: float
+
+    def __len__(self) -> int:
+        return len(self.features)
+
+    @classmethod
+    def joined(cls, parts: list[LatticeSites]) -> LatticeSites:
+        """The sites of tiles (disjoint regions), one after the other."""
+        if not parts:
+            raise ValueError("no parts to join")
+        offsets = np.cumsum([0] + [len(p) for p in parts[:-1]])
+        return cls(
+            FeatureColumns.joined([p.features for p in parts]),
+            np.concatenate([p.a1 for p in parts]),
+            np.concatenate([p.a2 for p in parts]),
+            np.concatenate([p.lattice for p in parts]),
+            np.concatenate([p.core for p in parts]),
+            np.concatenate([p.link_from + o for p, o in zip(parts, offsets, strict=True)]),
+            np.concatenate([p.link_to for p in parts]),
+            np.concatenate([p.link_core for p in parts]),
+            parts[0].grid_nm,
+            parts[0].tol_nm,
+            parts[0].range_nm,
+        )
+
+
+class LatticeArray(NamedTuple):
+    """One array of compact features (nm as drawn; see the module notes for conventions)."""
+
+    index: int
+    lattice: str  # square, rectangular, centred, hexagonal, oblique, row
+    a1_nm: tuple[float, float]
+    a2_nm: tuple[float, float]  # NaN for a row
+    pitch_nm: tuple[float, float]  # |a1|, |a2|
+    angle_deg: float  # between a1 and a2 (NaN for a row)
+    feature_nm: tuple[float, float]  # mean w, h in the feature frame
+    feature_angle_deg: float
+    count: int
+    columns: int  # lattice sites spanned along a1
+    rows: int  # along a2 (1 for a row)
+    origin_nm: tuple[float, float]  # the site u = v = 0
+    bbox_nm: tuple[float, float, float, float]
+    interior: int
+    edge: int  # last column, last row or notch
+    corner: int
+    max_residual_nm: float  # largest distance of a member's centroid from its site
+
+
+@dataclass(frozen=True)
+class LatticeArrays:
+    """Arrays found among lattice sites, as columns.
+
+    Per site (the rows of ``sites``): ``array`` (-1 for isolated features),
+    ``uv`` lattice coordinates, ``role`` (``INTERIOR``, ``END_A1``: a neighbour
+    missing along a1, i.e. first or last column; ``END_A2``: first or last
+    row; ``CORNER``: both; ``NOTCH``: only a diagonal neighbour missing), and
+    ``neighbours``: bit k set when a member sits at ``NEIGHBOUR_STEPS[k]``.
+    Only neighbour sites within the interaction range decide the role.  Per
+    array: the fields of :class:`LatticeArray`; ``records()`` yields them.
+    """
+
+    sites: LatticeSites
+    array: np.ndarray
+    uv: np.ndarray
+    role: np.ndarray
+    neighbours: np.ndarray
+    lattice: np.ndarray
+    a1: np.ndarray
+    a2: np.ndarray
+    origin: np.ndarray
+    count: np.ndarray
+    extent: np.ndarray  # (k, 2) columns, rows
+    bbox: np.ndarray
+    feature: np.ndarray  # (k, 2) w, h
+    feature_angle_deg: np.ndarray
+    role_counts: np.ndarray  # (k, 3) interior, edge, corner
+    residual: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.count)
+
+    @property
+    def isolated(self) -> int:
+        """Compact features in no array."""
+        return int(np.sum(self.array < 0))
+
+    def members(self, k: int) -> np.ndarray:
+        """Site rows of array ``k``, in increasing order."""
+        return np.flatnonzero(self.array == k)
+
+    def record(self, k: int) -> LatticeArray:
+        a1, a2 = self.a1[k], self.a2[k]
+        p1, p2 = float(np.hypot(*a1)), float(np.hypot(*a2))
+        angle = math.degrees(math.atan2(abs(_cross(a1, a2)), float(a1 @ a2)))
+        rc = self.role_counts[k]
+        return LatticeArray(
+            index=k,
+            lattice=LATTICE_NAMES[self.lattice[k]],
+            a1_nm=(float(a1[0]), float(a1[1])),
+            a2_nm=(float(a2[0]), float(a2[1])),
+            pitch_nm=(p1, p2),
+            angle_deg=angle,
+            feature_nm=(float(self.feature[k, 0]), float(self.feature[k, 1])),
+            feature_angle_deg=float(self.feature_angle_deg[k]),
+            count=int(self.count[k]),
+            columns=int(self.extent[k, 0]),
+            rows=int(self.extent[k, 1]),
+            origin_nm=(float(self.origin[k, 0]), float(self.origin[k, 1])),
+            bbox_nm=tuple(float(x) for x in self.bbox[k]),
+            interior=int(rc[0]),
+            edge=int(rc[1]),
+            corner=int(rc[2]),
+            max_residual_nm=float(self.residual[k]),
+        )
+
+    def records(self):
+        for k in range(len(self)):
+            yield self.record(k)
+
+    def hull(self, k: int) -> np.ndarray:
+        """Convex hull (counter-clockwise, nm) of the frame rectangles of array ``k``."""
+        m = self.members(k)
+        m = m[self.role[m] != INTERIOR]  # the hull's corners lie on the array's edge
+        return convex_hull(self.sites.features.corners(m).reshape(-1, 2))
+
+
+# ---------------------------------------------------------------------------
+# Small helpers
+
+
+def _cross(a, b):
+    return a[..., 0] * b[..., 1] - a[..., 1] * b[..., 0]
+
+
+def _dot(a, b):
+    return a[..., 0] * b[..., 0] + a[..., 1] * b[..., 1]
+
+
+def _norm(a):
+    return np.hypot(a[..., 0], a[..., 1])
+
+
+def _coords(a1, a2, v):
+    """Coordinates ``(t1, t2)`` of ``v`` in the basis ``a1, a2``: ``v = t1 a1 + t2 a2``."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        det = _cross(a1, a2)
+        return _cross(v, a2) / det, _cross(a1, v) / det
+
+
+_HASH_WEIGHTS = np.random.default_rng(20261205).standard_normal(16)
+
+
+def _dedupe_rows(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Distinct rows of ``x`` (exact, NaN equal to NaN): one representative row index
+    per class and each row's class.  Rows are hashed to one float and checked
+    against their representative; a row that collides with another is a class
+    of its own."""
+    n = len(x)
+    if n == 0:
+        z = np.zeros(0, dtype=np.int64)
+        return z, z
+    nan = np.isnan(x)
+    y = np.hstack([np.where(nan, 0.0, x), nan])
+    h = y @ _HASH_WEIGHTS[: y.shape[1]]
+    _, rep, inv = np.unique(h, return_index=True, return_inverse=True)
+    inv = inv.ravel()
+    bad = np.flatnonzero(np.any(y != y[rep[inv]], axis=1))
+    if len(bad):
+        inv[bad] = len(rep) + np.arange(len(bad))
+        rep = np.r_[rep, bad]
+    return rep, inv
+
+
+def _first_per_group(group: np.ndarray, n: int) -> np.ndarray:
+    """Position of the first row of each group in ``group`` (sorted), -1 where empty."""
+    first = np.full(n, -1, dtype=np.int64)
+    if len(group):
+        new = np.r_[True, group[1:] != group[:-1]]
+        first[group[new]] = np.flatnonzero(new)
+    return first
+
+
+def _expand(starts: np.ndarray, counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """For runs ``starts[k] .. starts[k] + counts[k] - 1``: (run k, position) per element."""
+    counts = counts.astype(np.int64)
+    total = int(counts.sum())
+    run = np.repeat(np.arange(len(counts)), counts)
+    offset = np.arange(total) - np.repeat(np.cumsum(counts) - counts, counts)
+    return run, starts[run] + offset
+
+
+def _pack(cx: np.ndarray, cy: np.ndarray) -> np.ndarray:
+    """One int64 per (cx, cy) cell, order-preserving in (cx, cy)."""
+    lo_y = cy.min(initial=0) - 1
+    span = int(cy.max(initial=0) - lo_y) + 2
+    return (cx - cx.min(initial=0) + 1) * span + (cy - lo_y)
+
+
+def centroid_keys(centroid: np.ndarray, grid_nm: float) -> np.ndarray:
+    """One int64 per centroid: its position on a grid ``KEY_STEPS`` times finer than
+    the database grid (x in the high 32 bits, y in the low 32), how tiles name
+    features of other tiles."""
+    q = np.floor(centroid / (grid_nm / KEY_STEPS) + 0.5).astype(np.int64)
+    if len(q) and (np.abs(q).max() >= 1 << 31):
+        raise ValueError("coordinates too large for centroid keys")
+    return (q[:, 0] << 32) + (q[:, 1] + (1 << 31))
+
+
+def in_region(points: np.ndarray, region) -> np.ndarray:
+    """Which ``points`` lie in ``region`` (x0, y0, x1, y1): ``x0 <= x < x1``, ``y0 <= y < y1``."""
+    x0, y0, x1, y1 = region
+    x, y = points[:, 0], points[:, 1]
+    return (x >= x0) & (x < x1) & (y >= y0) & (y < y1)
+
+
+def convex_hull(points: np.ndarray) -> np.ndarray:
+    """Convex hull, counter-clockwise from the lowest-left point (Andrew's monotone chain);
+    collinear points give the two extremes."""
+    pts = np.unique(np.asarray(points, dtype=np.float64), axis=0)
+    if len(pts) < 3:
+        return pts
+    p = pts.tolist()
+
+    def half(seq):
+        out: list = []
+        for q in seq:
+            while len(out) >= 2:
+                (ax, ay), (bx, by) = out[-2], out[-1]
+                if (bx - ax) * (q[1] - ay) - (by - ay) * (q[0] - ax) > 0:
+                    break
+                out.pop()
+            out.append(q)
+        return out
+
+    lower, upper = half(p), half(p[::-1])
+    return np.array(lower[:-1] + upper[:-1], dtype=np.float64)
+
+
+# ---------------------------------------------------------------------------
+# Feature properties
+
+
+def _ring_properties(a: np.ndarray, b: np.ndarray, starts: np.ndarray, tol: float):
+    """Properties of features given as edges ``a -> b`` grouped by feature
+    (feature ``k``: rows ``starts[k]:starts[k + 1]``), any orientation.
+
+    Returns centroid, size (w, h), angle_deg, area, bbox, centre, Manhattan flag.
+    Coordinates are taken from each feature's lowest-left bounding corner so that
+    chip-sized offsets do not cancel in the area sums.
+    """
+    s = starts[:-1]
+    owner = np.repeat(np.arange(len(s)), np.diff(starts))
+    lo = np.minimum.reduceat(np.minimum(a, b), s, axis=0)
+    hi = np.maximum.reduceat(np.maximum(a, b), s, axis=0)
+    la, lb = a - lo[owner], b - lo[owner]
+    cross = la[:, 0] * lb[:, 1] - lb[:, 0] * la[:, 1]
+    area2 = np.add.reduceat(cross, s)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        cx = np.add.reduceat((la[:, 0] + lb[:, 0]) * cross, s) / (3.0 * area2)
+        cy = np.add.reduceat((la[:, 1] + lb[:, 1]) * cross, s) / (3.0 * area2)
+    centroid = lo + np.stack([cx, cy], axis=1)
+    # Frame: length-weighted mean of 4 theta (edges modulo 90 degrees); exact for
+    # edges along the axes or the diagonals.
+    d = b - a
+    l2 = _dot(d, d)
+    length = np.sqrt(l2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        c2 = np.where(l2 > 0, (d[:, 0] ** 2 - d[:, 1] ** 2) / l2, 0.0)
+        s2 = np.where(l2 > 0, 2.0 * d[:, 0] * d[:, 1] / l2, 0.0)
+    c4 = np.add.reduceat(length * (c2 * c2 - s2 * s2), s)
+    s4 = np.add.reduceat(length * (2.0 * s2 * c2), s)
+    phi = np.degrees(np.arctan2(s4, c4)) / 4.0  # (-45, 45]
+    phi = np.where(phi <= FRAME_CUT_DEG - 90.0, phi + 90.0, phi)
+    t = np.radians(phi)
+    cu, su = np.cos(t), np.sin(t)
+    # Axis frames exactly: cos and sin of 0 and 90 degrees without round-off.
+    cu = np.where(phi == 0.0, 1.0, np.where(phi == 90.0, 0.0, cu))
+    su = np.where(phi == 0.0, 0.0, np.where(phi == 90.0, 1.0, su))
+    pu = la[:, 0] * cu[owner] + la[:, 1] * su[owner]
+    pv = -la[:, 0] * su[owner] + la[:, 1] * cu[owner]
+    u0, u1 = np.minimum.reduceat(pu, s), np.maximum.reduceat(pu, s)
+    v0, v1 = np.minimum.reduceat(pv, s), np.maximum.reduceat(pv, s)
+    size = np.stack([u1 - u0, v1 - v0], axis=1)
+    um, vm = 0.5 * (u0 + u1), 0.5 * (v0 + v1)
+    centre = lo + np.stack([um * cu - vm * su, um * su + vm * cu], axis=1)
+    off = np.minimum(
+        np.abs(d[:, 0] * cu[owner] + d[:, 1] * su[owner]),
+        np.abs(-d[:, 0] * su[owner] + d[:, 1] * cu[owner]),
+    )
+    manhattan = np.maximum.reduceat(off, s) <= tol
+    area = 0.5 * np.abs(area2)
+    cols = FeatureColumns(centroid, size, phi, area, np.hstack([lo, hi]), centre)
+    return cols, manhattan
+
+
+def _quad_edges(ps: PolygonSet) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Edges of every polygon of ``ps`` as drawn, grouped by polygon."""
+    p = ps.points
+    nxt = np.arange(len(p)) + 1
+    nxt[ps.starts[1:] - 1] = ps.starts[:-1]
+    return p, p[nxt], ps.starts
+
+
+def _quad_properties(qs: PolygonSet, tol: float):
+    """:func:`_ring_properties` of four-vertex polygons, worked out once per distinct
+    shape (vertices relative to the lowest-left bounding corner) and placed."""
+    pts = qs.points.reshape(-1, 4, 2)
+    lo = pts.min(axis=1)
+    rel = (pts - lo[:, None, :]).reshape(-1, 8)
+    rep, inv = _dedupe_rows(rel)
+    uniq = PolygonSet(rel[rep].reshape(-1, 2), np.arange(0, 4 * len(rep) + 1, 4))
+    u, man = _ring_properties(*_quad_edges(uniq), tol)
+    cols = FeatureColumns(
+        lo + u.centroid[inv],
+        u.size[inv],
+        u.angle_deg[inv],
+        u.area[inv],
+        u.bbox[inv] + np.hstack([lo, lo]),
+        lo + u.centre[inv],
+    )
+    return cols, man[inv]
+
+
+def _overlapping_pairs(lo: np.ndarray, hi: np.ndarray, cell: float):
+    """Pairs ``i < j`` of boxes that overlap or touch, each once.
+
+    Boxes are filed in every cell of a square grid they cover; a pair is kept
+    in the one cell holding the lower-left corner of their intersection."""
+    n = len(lo)
+    if n < 2:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    c0 = np.floor(lo / cell).astype(np.int64)
+    c1 = np.floor(hi / cell).astype(np.int64)
+    span = c1 - c0 + 1
+    box, k = _expand(np.zeros(n, np.int64), span[:, 0] * span[:, 1])
+    cx = c0[box, 0] + k % span[box, 0]
+    cy = c0[box, 1] + k // span[box, 0]
+    key = _pack(cx, cy)
+    order = np.argsort(key, kind="stable")
+    key_s, box_s = key[order], box[order]
+    cx_s, cy_s = cx[order], cy[order]
+    new = np.r_[True, key_s[1:] != key_s[:-1]]
+    gid = np.cumsum(new) - 1
+    gstart = np.flatnonzero(new)
+    gend = np.r_[gstart[1:], len(key_s)]
+    after = gend[gid] - np.arange(len(key_s)) - 1
+    qi, qj = _expand(np.arange(len(key_s)) + 1, after)
+    a, b = box_s[qi], box_s[qj]
+    keep = np.all(lo[a] <= hi[b], axis=1) & np.all(lo[b] <= hi[a], axis=1)
+    corner = np.floor(np.maximum(lo[a], lo[b]) / cell).astype(np.int64)
+    keep &= (corner[:, 0] == cx_s[qi]) & (corner[:, 1] == cy_s[qi])
+    a, b = a[keep], b[keep]
+    return np.minimum(a, b), np.maximum(a, b)
+
+
+def _touching_large(lo, hi, small, large, block: float) -> np.ndarray:
+    """Which boxes ``small`` (indices) touch one of the boxes ``large``.
+
+    The R-tree holds the large boxes; it is queried once per block of small
+    boxes (their common bounding box), not once per box."""
+    hit_small = np.zeros(len(small), dtype=bool)
+    if not len(large) or not len(small):
+        return hit_small
+    tree = build_rtree(lo[large], hi[large])
+    centre = 0.5 * (lo[small] + hi[small])
+    bk = np.floor(centre / block).astype(np.int64)
+    bkey = _pack(bk[:, 0], bk[:, 1])
+    order = np.argsort(bkey, kind="stable")
+    new = np.r_[True, bkey[order][1:] != bkey[order][:-1]]
+    gstart = np.flatnonzero(new)
+    gsize = np.diff(np.r_[gstart, len(order)])
+    bmin = np.minimum.reduceat(lo[small][order], gstart, axis=0)
+    bmax = np.maximum.reduceat(hi[small][order], gstart, axis=0)
+    q, hit = query_pairs(tree, bmin, bmax)
+    run, pos = _expand(gstart[q], gsize[q])
+    s_local = order[pos]
+    s_box, l_box = small[s_local], large[hit[run]]
+    touch = np.all(lo[s_box] <= hi[l_box], axis=1) & np.all(lo[l_box] <= hi[s_box], axis=1)
+    hit_small[s_local[touch]] = True
+    return hit_small
+
+
+def _ring_counts(a: np.ndarray, b: np.ndarray, feature: np.ndarray, n: int, grid_nm: float):
+    """Closed rings per feature: components of the graph of edges joined end to start."""
+    pts = np.round(np.concatenate([a, b]) / (grid_nm * 1e-3)).astype(np.int64)
+    _, pid = np.unique(pts, axis=0, return_inverse=True)
+    pid = pid.ravel()
+    m = len(a)
+    _, label = components(int(pid.max(initial=-1)) + 1, pid[:m], pid[m:])
+    ring = label[pid[:m]]
+    pairs = np.unique(np.stack([feature, ring], axis=1), axis=0)
+    return np.bincount(pairs[:, 0], minlength=n)
+
+
+def compact_features(
+    ps: PolygonSet, grid_nm: float, max_extent_nm: float, tol_grid: float = TOL_GRID
+) -> CompactFeatures:
+    """Compact features of one layer: touching shapes merged, both frame extents
+    below ``max_extent_nm``, Manhattan at some rotation (every edge within ``tol``
+    of the frame's axes), no hole.
+
+    Fast path: a shape whose box touches no other box and has four vertices is a
+    feature as drawn; shapes whose box is at least ``sqrt(2) max_extent_nm`` wide
+    cannot belong to a compact feature, nor can what touches them; the other
+    groups of touching shapes are merged by :func:`build_features`.  The plain
+    twin is :func:`compact_features_plain` (everything merged).
+    """
+    tol = tol_grid * grid_nm
+    n = len(ps)
+    feature_of = np.full(n, -1, dtype=np.int64)
+    reason = np.full(n, LARGE, dtype=np.int8)
+    if n == 0:
+        return CompactFeatures(FeatureColumns.empty(), feature_of, reason)
+    boxes = ps.bounding_boxes()
+    eps = 0.25 * grid_nm  # as build_features: boxes this close touch
+    lo, hi = boxes[:, :2] - eps, boxes[:, 2:] + eps
+    extent = np.max(boxes[:, 2:] - boxes[:, :2], axis=1)
+    large = extent >= _SQRT2 * max_extent_nm
+    small = np.flatnonzero(~large)
+    large_idx = np.flatnonzero(large)
+    cell = max(float(np.median(extent[small])) if len(small) else 1.0, 4.0 * grid_nm)
+    pa, pb = _overlapping_pairs(lo[small], hi[small], cell)
+    n_comp, label = components(len(small), pa, pb)
+    bad = np.zeros(n_comp, dtype=bool)
+    bad[label[_touching_large(lo, hi, small, large_idx, 64.0 * cell)]] = True
+    comp_size = np.bincount(label, minlength=n_comp)
+    nverts = np.diff(ps.starts)[small]
+    quad = (comp_size[label] == 1) & (nverts == 4) & ~bad[label]
+    rest = ~quad & ~bad[label]
+
+    parts, manh, holes, owners = [], [], [], []
+    q_idx = small[quad]
+    if len(q_idx):
+        cols, man = _quad_properties(ps.take(q_idx), tol)
+        parts.append(cols)
+        manh.append(man)
+        holes.append(np.zeros(len(q_idx), dtype=bool))
+        owners.append(("quad", q_idx))
+    r_idx = small[rest]
+    if len(r_idx):
+        sub = ps.take(r_idx)
+        edges = build_features(sub, grid_nm)
+        order = np.argsort(edges.feature, kind="stable")
+        a, b, f = edges.a[order], edges.b[order], edges.feature[order]
+        present = np.unique(f)
+        starts = np.r_[np.searchsorted(f, present), len(f)]
+        cols, man = _ring_properties(a, b, starts, tol)
+        rings = _ring_counts(a, b, np.searchsorted(present, f), len(present), grid_nm)
+        parts.append(cols)
+        manh.append(man)
+        holes.append(rings > 1)
+        owners.append(("merged", r_idx))
+    cols = FeatureColumns.joined(parts)
+    man = np.concatenate(manh) if manh else np.zeros(0, bool)
+    hole = np.concatenate(holes) if holes else np.zeros(0, bool)
+    why = np.full(len(cols), COMPACT, dtype=np.int8)
+    why[np.any(cols.size >= max_extent_nm, axis=1)] = LARGE
+    why[(why == COMPACT) & ~man] = NOT_MANHATTAN
+    why[(why == COMPACT) & hole] = HOLE
+    why[(why == COMPACT) & ~(cols.area > 0)] = DEGENERATE
+    keep = why == COMPACT
+    new_index = np.cumsum(keep) - 1
+
+    # Polygons to features: a lone shape is its feature; a merged shape belongs to
+    # the smallest merged feature whose box holds its box.
+    first = 0
+    for kind, idx in owners:
+        if kind == "quad":
+            fid = first + np.arange(len(idx))
+            first += len(idx)
+        else:
+            m = len(cols) - first
+            fb = cols.bbox[first:]
+            tree = build_rtree(fb[:, :2] - eps, fb[:, 2:] + eps)
+            pb_ = boxes[idx]
+            qq, hh = query_pairs(tree, pb_[:, :2], pb_[:, 2:])
+            inside = np.all(fb[hh, :2] - eps <= pb_[qq, :2], axis=1)
+            inside &= np.all(fb[hh, 2:] + eps >= pb_[qq, 2:], axis=1)
+            qq, hh = qq[inside], hh[inside]
+            fa = (fb[hh, 2] - fb[hh, 0]) * (fb[hh, 3] - fb[hh, 1])
+            o = np.lexsort((hh, fa, qq))
+            qq, hh = qq[o], hh[o]
+            best = _first_per_group(qq, len(idx))
+            fid = np.where(best >= 0, first + hh[np.maximum(best, 0)], -1)
+            first += m
+        ok = fid >= 0
+        reason[idx[~ok]] = DEGENERATE
+        reason[idx[ok]] = why[fid[ok]]
+        feature_of[idx[ok]] = np.where(keep[fid[ok]], new_index[fid[ok]], -1)
+    return CompactFeatures(cols.take(np.flatnonzero(keep)), feature_of, reason)
+
+
+def compact_features_plain(
+    ps: PolygonSet, grid_nm: float, max_extent_nm: float, tol_grid: float = TOL_GRID
+) -> FeatureColumns:
+    """Plain twin of :func:`compact_features`: every shape through
+    :func:`build_features`, then the same tests (features only, no polygon map)."""
+    tol = tol_grid * grid_nm
+    if len(ps) == 0:
+        return FeatureColumns.empty()
+    edges = build_features(ps, grid_nm)
+    order = np.argsort(edges.feature, kind="stable")
+    a, b, f = edges.a[order], edges.b[order], edges.feature[order]
+    present = np.unique(f)
+    starts = np.r_[np.searchsorted(f, present), len(f)]
+    cols, man = _ring_properties(a, b, starts, tol)
+    rings = _ring_counts(a, b, np.searchsorted(present, f), len(present), grid_nm)
+    keep = np.all(cols.size < max_extent_nm, axis=1) & man & (rings == 1) & (cols.area > 0)
+    return cols.take(np.flatnonzero(keep))
+
+
+# ---------------------------------------------------------------------------
+# Local lattices
+
+
+def same_shape(f: FeatureColumns, i: np.ndarray, j: np.ndarray, tol: float) -> np.ndarray:
+    """Features ``i`` and ``j`` have the same size and shape, the same way round:
+    extents within ``tol``, frames turned by less than ``tol`` at the corners,
+    areas within ``tol`` times half the perimeter."""
+    wi, hi = f.size[i, 0], f.size[i, 1]
+    dphi = f.angle_deg[j] - f.angle_deg[i]  # (-90, 90): both in (-22.5, 67.5]
+    swap = np.abs(dphi) > 45.0
+    wj = np.where(swap, f.size[j, 1], f.size[j, 0])
+    hj = np.where(swap, f.size[j, 0], f.size[j, 1])
+    turn = np.radians(np.where(swap, 90.0 - np.abs(dphi), np.abs(dphi)))
+    half_diag = 0.5 * np.hypot(np.maximum(wi, wj), np.maximum(hi, hj))
+    ok = (np.abs(wi - wj) <= tol) & (np.abs(hi - hj) <= tol) & (turn * half_diag <= tol)
+    return ok & (np.abs(f.area[i] - f.area[j]) <= tol * 0.5 * (wi + hi + wj + hj))
+
+
+def _direction_key(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Direction of the line of ``v`` in [-eps, 180 - eps) degrees, and whether ``v``
+    itself points that way (else ``-v`` does)."""
+    ang = np.degrees(np.arctan2(v[..., 1], v[..., 0]))  # (-180, 180]
+    eps = BASIS_ANGLE_EPS_DEG
+    fwd = (ang >= -eps) & (ang < 180.0 - eps)
+    return np.where(fwd, ang, np.where(ang < -eps, ang + 180.0, ang - 180.0)), fwd
+
+
+def _pair_order(group: np.ndarray, v: np.ndarray, d2: np.ndarray) -> np.ndarray:
+    """Pairs by group, then length, then direction (exact ties on the grid must not
+    be decided by input order)."""
+    return np.lexsort((np.arctan2(v[:, 1], v[:, 0]), d2, group))
+
+
+def _select_basis(loc, v, d2, m: int, tol: float):
+    """Per point (local index ``loc`` of each pair, ``m`` points): the shortest vector
+    (a1) and the shortest one further than ``tol`` from a1's line (a2), NaN where
+    missing.  Returns a1, a2 and the pair order used."""
+    order = _pair_order(loc, v, d2)
+    loc, v = loc[order], v[order]
+    a1 = np.full((m, 2), np.nan)
+    a2 = np.full((m, 2), np.nan)
+    f1 = _first_per_group(loc, m)
+    has = f1 >= 0
+    a1[has] = v[f1[has]]
+    w = a1[loc]
+    indep = np.abs(_cross(w, v)) > tol * _norm(w)
+    sel = np.flatnonzero(indep)
+    f2 = _first_per_group(loc[sel], m)
+    has2 = f2 >= 0
+    a2[has2] = v[sel[f2[has2]]]
+    return a1, a2, order
+
+
+def _level_radii(range_nm: float, base_nm: float) -> np.ndarray:
+    radii = []
+    r = base_nm
+    while r < range_nm:
+        radii.append(r)
+        r *= 2.0
+    radii.append(range_nm)
+    return np.array(radii)
+
+
+def _cell_keys(c: np.ndarray, r: float) -> tuple[np.ndarray, int]:
+    """Grid cell (side ``r``) of each point as one int64, and the stride of x;
+    neighbouring cells are ``key + dx * stride + dy`` without wrapping."""
+    k = np.floor(c / r).astype(np.int64)
+    k -= k.min(axis=0) - 1
+    stride = int(k[:, 1].max()) + 2
+    return k[:, 0] * stride + k[:, 1], stride
+
+
+_CELL_STEPS = np.array([(dx, dy) for dx in (-1, 0, 1) for dy in (-1, 0, 1)])
+
+
+def neighbour_lattices(f: FeatureColumns, range_nm: float, grid_nm: float, tol: float):
+    """Local lattice of every feature among features of its shape within ``range_nm``.
+
+    Returns ``a1``, ``a2`` (n, 2) as found (the shortest neighbour vector and
+    the shortest one further than ``tol`` from its line; NaN where missing;
+    exact ties go by direction), ``reach`` (n,): ``|a2| + tol`` capped at
+    ``range_nm`` (``range_nm`` without ``a2``), and the pairs ``(i, j)`` of
+    same-shape features with ``|c_j - c_i| <= reach_i``, in no set order.
+
+    Searched on numpy grids of growing cell size (radii ``LEVEL_BASE_GRID``
+    grid steps times powers of two, then ``range_nm``; a grid of cell ``r``
+    holds every neighbour within ``r`` in the 3 x 3 cells around a point): a
+    feature is finished at the first radius that holds ``|a2| + tol``.  One
+    R-tree query per feature costs more than the whole search (13 s for 10^6
+    features, measured); the plain twin, :func:`neighbour_lattices_plain`,
+    does exactly that.
+    """
+    n = len(f)
+    c = f.centroid
+    a1 = np.full((n, 2), np.nan)
+    a2 = np.full((n, 2), np.nan)
+    reach = np.zeros(n)
+    done = np.zeros(n, dtype=bool)
+    out_i, out_j = [], []
+    if n == 0:
+        z = np.zeros(0, dtype=np.int64)
+        return a1, a2, reach, z, z
+    radii = _level_radii(range_nm, LEVEL_BASE_GRID * grid_nm)
+    start = 2.0 * np.min(f.size, axis=1)  # same-shape neighbours sit at least ~one size apart
+    level0 = np.minimum(np.searchsorted(radii, start), len(radii) - 1)
+    for lvl, r in enumerate(radii):
+        act = np.flatnonzero(~done & (level0 <= lvl))
+        if not len(act):
+            continue
+        key, stride = _cell_keys(c, r)
+        order = np.argsort(key, kind="stable")
+        sk = key[order]
+        new = np.r_[True, sk[1:] != sk[:-1]]
+        ukey, ustart = sk[new], np.flatnonzero(new)
+        ucount = np.diff(np.r_[ustart, n])
+        offs = _CELL_STEPS[:, 0] * stride + _CELL_STEPS[:, 1]
+        last = r >= range_nm
+        for lo in range(0, len(act), PAIR_CHUNK):
+            chunk = act[lo : lo + PAIR_CHUNK]
+            m = len(chunk)
+            q = (key[chunk][:, None] + offs[None, :]).ravel()
+            pos = np.minimum(np.searchsorted(ukey, q), len(ukey) - 1)
+            cnt = np.where(ukey[pos] == q, ucount[pos], 0)
+            run, p = _expand(ustart[pos], cnt)
+            loc = run // len(offs)
+            i, j = chunk[loc], order[p]
+            v = c[j] - c[i]
+            d2 = _dot(v, v)
+            keep = (j != i) & (d2 <= r * r)
+            loc, i, j, v, d2 = loc[keep], i[keep], j[keep], v[keep], d2[keep]
+            keep = same_shape(f, i, j, tol)
+            loc, i, j, v, d2 = loc[keep], i[keep], j[keep], v[keep], d2[keep]
+            s1, s2, _ = _select_basis(loc, v, d2, m, tol)
+            l2 = _norm(s2)
+            has2 = ~np.isnan(l2)
+            fin = (has2 & (l2 + tol <= r)) | last
+            rch = np.where(has2, np.minimum(range_nm, l2 + tol), range_nm)
+            idx = chunk[fin]
+            a1[idx], a2[idx], reach[idx] = s1[fin], s2[fin], rch[fin]
+            done[idx] = True
+            take = fin[loc] & (d2 <= rch[loc] ** 2)
+            out_i.append(i[take])
+            out_j.append(j[take])
+    return a1, a2, reach, np.concatenate(out_i), np.concatenate(out_j)
+
+
+def neighbour_lattices_plain(f: FeatureColumns, range_nm: float, grid_nm: float, tol: float):
+    """Plain twin of :func:`neighbour_lattices`: one R-tree query per feature for
+    every feature within ``range_nm``, then a loop per feature."""
+    n = len(f)
+    c = f.centroid
+    a1 = np.full((n, 2), np.nan)
+    a2 = np.full((n, 2), np.nan)
+    reach = np.zeros(n)
+    out_i, out_j = [np.zeros(0, np.int64)], [np.zeros(0, np.int64)]
+    tree = build_rtree(c, c) if n else None
+    for i in range(n):
+        found = np.array(
+            sorted(tree.intersection((*(c[i] - range_nm), *(c[i] + range_nm)))), dtype=np.int64
+        )
+        found = found[found != i]
+        v = c[found] - c[i]
+        d2 = _dot(v, v)
+        ok = (d2 <= range_nm * range_nm) & same_shape(f, np.full(len(found), i), found, tol)
+        found, v, d2 = found[ok], v[ok], d2[ok]
+        o = _pair_order(np.zeros(len(found)), v, d2)
+        found, v, d2 = found[o], v[o], d2[o]
+        rch = range_nm
+        if len(found):
+            a1[i] = v[0]
+            for k in range(1, len(found)):
+                if abs(_cross(v[0], v[k])) > tol * math.hypot(*v[0]):
+                    a2[i] = v[k]
+                    rch = min(range_nm, math.hypot(*v[k]) + tol)
+                    break
+        reach[i] = rch
+        near = d2 <= rch * rch
+        out_i.append(np.full(int(near.sum()), i, dtype=np.int64))
+        out_j.append(found[near])
+    return a1, a2, reach, np.concatenate(out_i), np.concatenate(out_j)
+
+
+_STEPS = np.array([(1, 0), (0, 1), (1, 1), (1, -1), (-1, 0), (0, -1), (-1, -1), (-1, 1)])
+
+
+def reduced_basis(b1: np.ndarray, b2: np.ndarray, tol: float):
+    """Canonical reduced basis of the lattices spanned by rows ``b1``, ``b2``.
+
+    Lagrange-Gauss reduction (swap so that ``|b1| <= |b2|``, subtract the
+    nearest integer multiple of ``b1`` from ``b2``, until that multiple is 0),
+    then the canonical choice of the module notes among the lattice's shortest
+    vectors, which for a reduced basis are among ``±b1, ±b2, ±(b1 + b2),
+    ±(b1 - b2)``.  Rows with ``b2`` NaN are lines: ``a1 = ±b1``.  Rows with
+    ``b1`` NaN stay NaN.  Returns ``a1``, ``a2`` and integer ``T`` (n, 2, 2)
+    with ``[a1 a2] = [b1 b2] T`` (vectors as columns).
+    """
+    n = len(b1)
+    a1 = np.array(b1, dtype=np.float64).reshape(n, 2)
+    a2 = np.array(b2, dtype=np.float64).reshape(n, 2)
+    T = np.zeros((n, 2, 2), dtype=np.int64)
+    T[:, 0, 0] = T[:, 1, 1] = 1
+    line = ~np.isnan(a1[:, 0]) & np.isnan(a2[:, 0])
+    if line.any():
+        _, fwd = _direction_key(a1[line])
+        s = np.where(fwd, 1, -1)
+        a1[line] *= s[:, None]
+        T[line, 0, 0] = s
+    two = np.flatnonzero(~np.isnan(a1[:, 0]) & ~np.isnan(a2[:, 0]))
+    if not len(two):
+        return a1, a2, T
+    x, y, t = a1[two], a2[two], T[two]
+    todo = np.arange(len(two))
+    while len(todo):
+        xs, ys, ts = x[todo], y[todo], t[todo]
+        sw = _dot(ys, ys) < _dot(xs, xs)
+        xs[sw], ys[sw] = ys[sw].copy(), xs[sw].copy()
+        ts[sw] = ts[sw][:, :, ::-1]
+        mu = np.rint(_dot(xs, ys) / _dot(xs, xs))
+        ys -= mu[:, None] * xs
+        ts[:, :, 1] -= mu.astype(np.int64)[:, None] * ts[:, :, 0]
+        x[todo], y[todo], t[todo] = xs, ys, ts
+        todo = todo[mu != 0]
+    S0, S1 = _STEPS[None, :, 0, None], _STEPS[None, :, 1, None]
+    V = x[:, None, :] * S0 + y[:, None, :] * S1
+    C = t[:, None, :, 0] * S0 + t[:, None, :, 1] * S1  # coefficients in b1, b2
+    length = _norm(V)
+    key, fwd = _direction_key(V)
+    lam1 = length.min(axis=1, keepdims=True)
+    k1 = np.argmin(np.where(fwd & (length <= lam1 + tol), key, np.inf), axis=1)
+    rows = np.arange(len(two))
+    v1 = V[rows, k1]
+    l1 = _norm(v1)[:, None]
+    cr = _cross(v1[:, None, :], V)
+    indep = np.abs(cr) > tol * l1
+    lam2 = np.where(indep, length, np.inf).min(axis=1, keepdims=True)
+    obtuse = _dot(V, v1[:, None, :]) < -tol * l1
+    score2 = 1000.0 * obtuse + 400.0 * (cr <= 0) + (key + 1.0)
+    k2 = np.argmin(np.where(indep & (length <= lam2 + tol), score2, np.inf), axis=1)
+    t_out = np.stack([C[rows, k1], C[rows, k2]], axis=2)
+    det = t_out[:, 0, 0] * t_out[:, 1, 1] - t_out[:, 0, 1] * t_out[:, 1, 0]
+    ok = np.abs(det) == 1  # near-ties may pick two vectors that are no basis: keep the reduced one
+    a1[two] = np.where(ok[:, None], v1, x)
+    a2[two] = np.where(ok[:, None], V[rows, k2], y)
+    T[two] = np.where(ok[:, None, None], t_out, t)
+    return a1, a2, T
+
+
+def lattice_class(a1: np.ndarray, a2: np.ndarray, tol: float) -> np.ndarray:
+    """Class of each canonical reduced basis (see the module notes)."""
+    l1, l2 = _norm(a1), _norm(a2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        proj = np.abs(_dot(a1, a2)) / l1
+    eq = l2 - l1 <= tol
+    right = proj <= tol
+    half = np.abs(proj - 0.5 * l1) <= tol
+    cls = np.where(
+        right,
+        np.where(eq, SQUARE, RECTANGULAR),
+        np.where(eq & half, HEXAGONAL, np.where(eq | half, CENTRED, OBLIQUE)),
+    ).astype(np.int8)
+    cls[np.isnan(a2[:, 0])] = ROW
+    cls[np.isnan(a1[:, 0])] = NONE
+    return cls
+
+
+def _short_step(a1, a2, line, v, tol):
+    """``v`` is within ``tol`` of a lattice vector with coordinates in {-1, 0, 1},
+    not both 0 (lines: of ``±a1``)."""
+    t1, t2 = _coords(a1, a2, v)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        m, k = np.rint(t1), np.rint(t2)
+        res = v - m[:, None] * a1 - k[:, None] * a2
+        ok2 = (np.maximum(np.abs(m), np.abs(k)) <= 1) & (np.abs(m) + np.abs(k) > 0)
+        ok2 &= _norm(res) <= tol
+        s = np.rint(_dot(v, a1) / _dot(a1, a1))
+        ok1 = (np.abs(s) == 1) & (_norm(v - s[:, None] * a1) <= tol)
+    return np.where(line, ok1, ok2)
+
+
+def _same_lattice(a1i, a2i, line_i, a1j, a2j, line_j, tol):
+    """The lattices ``i`` and ``j`` are one: each vector of ``j``'s basis within ``tol``
+    of an integer combination of ``i``'s, with determinant ±1 (rows: parallel
+    ``a1`` of one length)."""
+    p1, q1 = (np.rint(t) for t in _coords(a1i, a2i, a1j))
+    p2, q2 = (np.rint(t) for t in _coords(a1i, a2i, a2j))
+    with np.errstate(invalid="ignore"):
+        r1 = a1j - p1[:, None] * a1i - q1[:, None] * a2i
+        r2 = a2j - p2[:, None] * a1i - q2[:, None] * a2i
+        ok2 = (_norm(r1) <= tol) & (_norm(r2) <= tol) & (np.abs(p1 * q2 - p2 * q1) == 1)
+        ok1 = np.minimum(_norm(a1j - a1i), _norm(a1j + a1i)) <= tol
+    return np.where(line_i & line_j, ok1, np.where(~line_i & ~line_j, ok2, False))
+
+
+def lattice_sites(
+    ps: PolygonSet | None,
+    grid_nm: float,
+    max_extent_nm: float,
+    interaction_range_nm: float,
+    region: tuple[float, float, float, float] | None = None,
+    tol_grid: float = TOL_GRID,
+    compact: CompactFeatures | None = None,
+    plain: bool = False,
+) -> LatticeSites:
+    """Local lattices of the compact features of ``ps`` and their links.
+
+    A link joins feature ``i`` to a feature ``j`` of the same shape within
+    ``i``'s reach when ``c_j - c_i`` is a lattice step (coordinates in {-1, 0, 1})
+    and both local lattices are one lattice (core link); or, for a feature with
+    no core link, to the nearest feature with one whose lattice has ``c_i - c_j``
+    as a step (attachment: the last column of an array beside another array,
+    whose nearest neighbours belong to the other).  Ties between partners go
+    by distance, then the partner's pitches, then its centroid key.
+
+    With ``region`` only features whose centroid lies in it are kept (with
+    their links); read shapes ``HALO_RANGES`` ranges plus ``2 sqrt(2)
+    max_extent_nm`` around it.  ``compact``: features already selected from
+    ``ps``.  ``plain``: the R-tree neighbour search (the plain twin, for tests).
+    Identical raw bases (the common case in arrays) are reduced once.
+    """
+    tol = tol_grid * grid_nm
+    cf = compact if compact is not None else compact_features(ps, grid_nm, max_extent_nm, tol_grid)
+    f = cf.features
+    c = f.centroid
+    search = neighbour_lattices_plain if plain else neighbour_lattices
+    r1, r2, _, pi, pj = search(f, interaction_range_nm, grid_nm, tol)
+    rep, bid = _dedupe_rows(np.hstack([r1, r2]))
+    ua1, ua2, _ = reduced_basis(r1[rep], r2[rep], tol)
+    ucls = lattice_class(ua1, ua2, tol)
+    uline = ucls == ROW
+    a1, a2, cls = ua1[bid], ua2[bid], ucls[bid]
+    v = c[pj] - c[pi]
+    bi, bj = bid[pi], bid[pj]
+    core_pair = _short_step(ua1[bi], ua2[bi], uline[bi], v, tol)
+    nb = len(rep)
+    upair, pinv = np.unique(bi * nb + bj, return_inverse=True)
+    ui, uj = upair // nb, upair % nb
+    same = _same_lattice(ua1[ui], ua2[ui], uline[ui], ua1[uj], ua2[uj], uline[uj], tol)
+    core_pair &= same[pinv.ravel()]
+    core = np.zeros(len(f), dtype=bool)
+    core[pi[core_pair]] = True
+    core[pj[core_pair]] = True
+    # Attachments: the nearest core neighbour on whose lattice the feature sits.
+    cand = np.flatnonzero(~core[pi] & core[pj])
+    ci, cj = pi[cand], pj[cand]
+    b = bid[cj]
+    fit = _short_step(ua1[b], ua2[b], uline[b], -v[cand], tol)
+    ci, cj = ci[fit], cj[fit]
+    keys = centroid_keys(c, grid_nm)
+    dv = c[cj] - c[ci]
+    order = np.lexsort(
+        (keys[cj], np.nan_to_num(_norm(a2[cj]), nan=np.inf), _norm(a1[cj]), _dot(dv, dv), ci)
+    )
+    ci, cj = ci[order], cj[order]
+    best = _first_per_group(ci, len(f))
+    att = best[best >= 0]
+    link_from = np.concatenate([pi[core_pair], ci[att]])
+    link_to = keys[np.concatenate([pj[core_pair], cj[att]])]
+    link_core = np.r_[np.ones(int(core_pair.sum()), bool), np.zeros(len(att), bool)]
+    if region is not None:
+        own = in_region(c, region)
+        new_index = np.cumsum(own) - 1
+        keep = own[link_from]
+        link_from, link_to, link_core = new_index[link_from[keep]], link_to[keep], link_core[keep]
+        idx = np.flatnonzero(own)
+        f, a1, a2, cls, core = f.take(idx), a1[idx], a2[idx], cls[idx], core[idx]
+    return LatticeSites(
+        f, a1, a2, cls, core, link_from, link_to, link_core, grid_nm, tol, interaction_range_nm
+    )
+
+
+# ---------------------------------------------------------------------------
+# Arrays
+
+FIT_DECIMALS = 6
+"""Fitted bases and origins are rounded to 1e-6 nm: float noise of the sums must
+not differ between a tiled and a whole run."""
+
+
+def _reduce_groups(ufunc, values: np.ndarray, starts: np.ndarray, k: int, fill) -> np.ndarray:
+    """``ufunc.reduceat`` over runs starting at ``starts`` (k runs, all non-empty)."""
+    if k == 0:
+        return np.full((0,) + values.shape[1:], fill)
+    return ufunc.reduceat(values, starts, axis=0)
+
+
+def find_arrays(
+    sites: LatticeSites, min_members: int = MIN_MEMBERS, min_members_row: int = MIN_MEMBERS_ROW
+) -> LatticeArrays:
+    """Arrays: the features joined by links, with at least ``min_members`` (rows:
+    ``min_members_row``).
+
+    Each array's basis is fitted to all its members by least squares (lattice
+    coordinates from the links' steps in its reference member's basis, so
+    exact for arrays on the grid) and made canonical; its class, rows and
+    columns, feature size, bounding box and each member's role follow.  The
+    reference member is the linked member with the least centroid key (least
+    x, then least y); arrays are numbered in the order of their reference
+    members, so nothing depends on the order of the input or on a tiling.
+    """
+    f = sites.features
+    n = len(f)
+    tol, R = sites.tol_nm, sites.range_nm
+    c = f.centroid
+    keys = centroid_keys(c, sites.grid_nm)
+    korder = np.argsort(keys, kind="stable")
+    sk = keys[korder]
+    if n:
+        pos = np.minimum(np.searchsorted(sk, sites.link_to), n - 1)
+        found = sk[pos] == sites.link_to
+    else:
+        pos = found = np.zeros(len(sites.link_to), dtype=bool)
+    lf, lt = sites.link_from[found], korder[pos[found]]
+    n_comp, comp = components(n, lf, lt)
+    size = np.bincount(comp, minlength=n_comp)
+    two = sites.core & (sites.lattice != ROW)
+    comp_two = np.bincount(comp, weights=two, minlength=n_comp) > 0
+    comp_core = np.bincount(comp, weights=sites.core, minlength=n_comp) > 0
+    is_array = comp_core & (size >= np.where(comp_two, min_members, min_members_row))
+    ref_order = np.lexsort((keys, ~sites.core, comp))
+    first = _first_per_group(comp[ref_order], n_comp)
+    arr_comp = np.flatnonzero(is_array)
+    ref = ref_order[first[arr_comp]]
+    numbering = np.argsort(keys[ref], kind="stable")
+    arr_comp, ref = arr_comp[numbering], ref[numbering]
+    k = len(arr_comp)
+    label_of_comp = np.full(n_comp, -1, dtype=np.int64)
+    label_of_comp[arr_comp] = np.arange(k)
+    array = label_of_comp[comp] if n else np.zeros(0, np.int64)
+    line = ~comp_two[arr_comp]
+
+    # Members by array.
+    mem = np.flatnonzero(array >= 0)
+    mem = mem[np.argsort(array[mem], kind="stable")]
+    lab = array[mem]
+    starts = np.searchsorted(lab, np.arange(k))
+    count = np.bincount(lab, minlength=k)
+    ml = line[lab]
+
+    def sums(w):
+        return np.bincount(lab, weights=w, minlength=k)
+
+    # Basis from the links: their vectors and integer steps in the reference basis.
+    b1 = sites.a1[ref]
+    b2 = np.where(line[:, None], np.nan, sites.a2[ref])
+    inl = (array[lf] >= 0) & (array[lf] == array[lt])
+    el = array[lf[inl]]
+    ev = c[lt[inl]] - c[lf[inl]]
+    t1, t2 = _coords(b1[el], b2[el], ev)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s1 = np.rint(_dot(ev, b1[el]) / _dot(b1[el], b1[el]))
+    sm = np.where(line[el], s1, np.rint(t1))
+    sn = np.where(line[el], 0.0, np.rint(t2))
+
+    def esums(w):
+        return np.bincount(el, weights=w, minlength=k)
+
+    g00, g01, g11 = esums(sm * sm), esums(sm * sn), esums(sn * sn)
+    h0 = np.stack([esums(sm * ev[:, 0]), esums(sm * ev[:, 1])], axis=1)
+    h1 = np.stack([esums(sn * ev[:, 0]), esums(sn * ev[:, 1])], axis=1)
+    det = g00 * g11 - g01 * g01
+    g1, g2 = b1.copy(), b2.copy()
+    fit2 = ~line & (det > 0.5)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        g1[fit2] = ((g11[:, None] * h0 - g01[:, None] * h1) / det[:, None])[fit2]
+        g2[fit2] = ((g00[:, None] * h1 - g01[:, None] * h0) / det[:, None])[fit2]
+        fit1 = line & (g00 > 0.5)
+        g1[fit1] = (h0 / g00[:, None])[fit1]
+    # Lattice coordinates of every member, from the reference member.
+    rel = c[mem] - c[ref[lab]]
+    t1, t2 = _coords(g1[lab], g2[lab], rel)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        u1 = np.rint(_dot(rel, g1[lab]) / _dot(g1[lab], g1[lab]))
+    u = np.where(ml, u1, np.rint(t1))
+    v = np.where(ml, 0.0, np.rint(t2))
+    # Least squares over the members: rel = o + u f1 + v f2.
+    S = [sums(w) for w in (np.ones(len(mem)), u, v, u * u, u * v, v * v)]
+    Y = [np.stack([sums(w * rel[:, 0]), sums(w * rel[:, 1])], axis=1) for w in (1.0, u, v)]
+    N3 = np.stack(
+        [
+            np.stack([S[0], S[1], S[2]], 1),
+            np.stack([S[1], S[3], S[4]], 1),
+            np.stack([S[2], S[4], S[5]], 1),
+        ],
+        axis=1,
+    )
+    Y3 = np.stack(Y, axis=1)
+    o = np.zeros((k, 2))
+    f1, f2 = g1.copy(), g2.copy()
+    d3 = np.linalg.det(N3) if k else np.zeros(0)
+    ok3 = ~line & (d3 > 0.5)
+    if ok3.any():
+        sol = np.linalg.solve(N3[ok3], Y3[ok3])
+        o[ok3], f1[ok3], f2[ok3] = sol[:, 0], sol[:, 1], sol[:, 2]
+    d2 = S[0] * S[3] - S[1] * S[1]
+    ok2 = line & (d2 > 0.5)
+    if ok2.any():
+        sol = np.linalg.solve(N3[ok2][:, :2, :2], Y3[ok2][:, :2])
+        o[ok2], f1[ok2] = sol[:, 0], sol[:, 1]
+    rest = ~ok3 & ~ok2  # too few distinct sites to fit both: the mean offset, the links' basis
+    if rest.any():
+        mean = (Y[0] - S[1][:, None] * g1 - S[2][:, None] * np.nan_to_num(g2)) / S[0][:, None]
+        o[rest] = mean[rest]
+    a1, a2, T = reduced_basis(f1, f2, tol)
+    a1, a2 = np.round(a1, FIT_DECIMALS) + 0.0, np.round(a2, FIT_DECIMALS) + 0.0
+    # Coordinates in the canonical basis: T^-1 (u, v), T unimodular.
+    td = T[:, 0, 0] * T[:, 1, 1] - T[:, 0, 1] * T[:, 1, 0]
+    T, td, ui, vi = T[lab], td[lab], u.astype(np.int64), v.astype(np.int64)
+    uvi = np.stack(
+        [(T[:, 1, 1] * ui - T[:, 0, 1] * vi) * td, (-T[:, 1, 0] * ui + T[:, 0, 0] * vi) * td], 1
+    )
+    umin = _reduce_groups(np.minimum, uvi, starts, k, 0)
+    umax = _reduce_groups(np.maximum, uvi, starts, k, 0)
+    uvi -= umin[lab]
+    a2z = np.nan_to_num(a2)
+    origin = c[ref] + o + umin[:, :1] * a1 + umin[:, 1:] * a2z
+    origin = np.round(origin, FIT_DECIMALS) + 0.0
+    site = origin[lab] + uvi[:, :1] * a1[lab] + uvi[:, 1:] * a2z[lab]
+    resid = _reduce_groups(np.maximum, _norm(c[mem] - site), starts, k, 0.0)
+    extent = umax - umin + 1
+    lattice = np.where(line, ROW, lattice_class(a1, a2, tol)).astype(np.int8)
+
+    # Roles: which of the eight neighbouring sites hold a member.
+    if k and (extent.max() + 2 >= 1 << 21 or k >= 1 << 21):
+        raise ValueError("array too large for site keys")
+    skey = (lab << 42) + ((uvi[:, 0] + 1) << 21) + (uvi[:, 1] + 1)
+    sorted_keys = np.sort(skey)
+    bits = np.zeros(len(mem), dtype=np.uint8)
+    present = np.zeros((len(mem), 8), dtype=bool)
+    for bit, (du, dv) in enumerate(NEIGHBOUR_STEPS.tolist()):
+        q = skey + (du << 21) + dv
+        p = np.minimum(np.searchsorted(sorted_keys, q), max(len(sorted_keys) - 1, 0))
+        present[:, bit] = sorted_keys[p] == q if len(mem) else False
+        bits |= present[:, bit].astype(np.uint8) << bit
+    step = (
+        NEIGHBOUR_STEPS[None, :, :1] * a1[:, None, :]
+        + NEIGHBOUR_STEPS[None, :, 1:] * a2z[:, None, :]
+    )
+    within = _norm(step) <= R + tol
+    within[line] = NEIGHBOUR_STEPS[:, 1] == 0  # a row has neighbours along a1 only
+    missing = within[lab] & ~present
+    miss1 = missing[:, [0, 4]].any(axis=1)
+    miss2 = missing[:, [2, 6]].any(axis=1)
+    diag = missing[:, [1, 3, 5, 7]].any(axis=1)
+    role_m = np.select(
+        [miss1 & miss2, miss1, miss2, diag], [CORNER, END_A1, END_A2, NOTCH], INTERIOR
+    ).astype(np.int8)
+    kind = np.select([role_m == INTERIOR, role_m == CORNER], [0, 2], 1)
+    role_counts = np.stack([sums(kind == q) for q in range(3)], axis=1).astype(np.int64)
+
+    # Bounding boxes and feature size (in the reference member's frame).
+    lo = _reduce_groups(np.minimum, f.bbox[mem, :2], starts, k, 0.0)
+    hi = _reduce_groups(np.maximum, f.bbox[mem, 2:], starts, k, 0.0)
+    fang = f.angle_deg[ref]
+    swap = np.abs(f.angle_deg[mem] - fang[lab]) > 45.0
+    wh = np.where(swap[:, None], f.size[mem][:, ::-1], f.size[mem])
+    feature = np.stack([sums(wh[:, 0]), sums(wh[:, 1])], axis=1) / np.maximum(count, 1)[:, None]
+
+    out_uv = np.full((n, 2), -1, dtype=np.int64)
+    out_uv[mem] = uvi
+    out_role = np.full(n, -1, dtype=np.int8)
+    out_role[mem] = role_m
+    out_bits = np.zeros(n, dtype=np.uint8)
+    out_bits[mem] = bits
+    return LatticeArrays(
+        sites=sites,
+        array=array,
+        uv=out_uv,
+        role=out_role,
+        neighbours=out_bits,
+        lattice=lattice,
+        a1=a1,
+        a2=a2,
+        origin=origin,
+        count=count,
+        extent=extent.astype(np.int64),
+        bbox=np.hstack([lo, hi]),
+        feature=feature,
+        feature_angle_deg=fang,
+        role_counts=role_counts,
+        residual=resid,
+    )
+
+
+def extract_lattices(
+    ps: PolygonSet,
+    grid_nm: float,
+    max_extent_nm: float,
+    interaction_range_nm: float,
+    tol_grid: float = TOL_GRID,
+) -> LatticeArrays:
+    """Arrays of compact features on one layer (nm as drawn): :func:`lattice_sites`
+    then :func:`find_arrays`."""
+    return find_arrays(
+        lattice_sites(ps, grid_nm, max_extent_nm, interaction_range_nm, tol_grid=tol_grid)
+    )
