@@ -104,6 +104,8 @@ def cmd_probe(args) -> int:
 
     deck = load_deck(args.rules)
     rule = deck.layer(args.layer)
+    if args.pitch_y is not None or args.cd_y is not None:
+        return _probe_array(args, rule)
     r = grating(rule, args.pitch, args.cd, args.orientation, args.focus)
     if args.plot is not None:
         from pitchguard.outputs.plots import plot_image
@@ -243,4 +245,127 @@ def cmd_sweep(args) -> int:
             },
             inputs,
         )
+    return EXIT_OK
+
+
+def _array_json(r) -> dict:
+    from pitchguard.outputs.json_report import clean_json
+
+    m, shown, lo = r.metrics, r.shown, r.orders
+    row = r.intensity[r.intensity.shape[0] // 2]  # the cut along x through the feature centre
+    return clean_json(
+        {
+            "pitch_nm": r.pitch_nm[0],
+            "pitch_y_nm": r.pitch_nm[1],
+            "cd_nm": r.cd_nm[0],
+            "cd_y_nm": r.cd_nm[1],
+            "k1": lo.k1,
+            "rank": lo.rank,
+            "directions": [
+                {
+                    "order": list(d.order),
+                    "pitch_nm": d.pitch_nm,
+                    "angle_deg": d.angle_deg,
+                    "cutoff_pitch_nm": d.cutoff_pitch_nm,
+                    "resolved": d.resolved,
+                    "two_beam_fraction": d.two_beam_fraction,
+                }
+                for d in lo.first
+            ],
+            "contrast": shown.contrast,
+            "nils": shown.nils_x,
+            "nils_y": shown.nils_y,
+            "printed_nm": [m.size_x_nm, m.size_y_nm],
+            "missing": m.missing,
+            "merged": m.merged,
+            "exposure_latitude_pct": m.el_pct,
+            "depth_of_focus_nm": m.dof_nm,
+            "threshold": m.threshold,
+            "severity": r.severity,
+            "checks": [
+                {
+                    "check": v.check,
+                    "severity": v.severity,
+                    "value": v.value,
+                    "limit": v.limit,
+                    "message": v.message,
+                }
+                for v in r.violations
+            ],
+            "focus_nm": r.focus_nm,
+            "image": {"x_nm": r.x_nm.tolist(), "intensity": row.tolist()},
+            "image_2d": {
+                "x_nm": r.x_nm.tolist(),
+                "y_nm": r.y_nm.tolist(),
+                "intensity": r.intensity.tolist(),
+            },
+        }
+    )
+
+
+def _probe_array(args, rule) -> int:
+    """``probe`` of a rectangular array of compact features."""
+    import json
+
+    from pitchguard.judge.gratings import array_probe
+    from pitchguard.outputs.verdict import CAUTION
+
+    pitch_y = args.pitch_y if args.pitch_y is not None else args.pitch
+    cd_y = args.cd_y if args.cd_y is not None else args.cd
+    r = array_probe(rule, args.pitch, args.cd, pitch_y, cd_y, args.focus)
+    if args.plot is not None:
+        from pitchguard.outputs.plots import plot_array
+
+        plot_array(rule, r, args.plot, [args.rules])
+    if args.json:
+        out = _array_json(r)
+        out["caution"] = CAUTION
+        say(json.dumps(out))
+        return EXIT_OK
+    console = make_console()
+    e = rule.exposure
+    feature = "posts" if rule.field == "clear" else "holes"
+    console.print(
+        f"[bold]{rule.name}[/] ({rule.field} field) on {rule.exposure_name}: "
+        f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {e.illumination.shape}, {e.mask.kind} mask"
+    )
+    console.print(
+        f"array: {r.cd_nm[0]:g} x {r.cd_nm[1]:g} nm {feature} at pitch "
+        f"{r.pitch_nm[0]:g} x {r.pitch_nm[1]:g} nm"
+    )
+    lo = r.orders
+    console.print(f"k1 {lo.k1:.3f} (finest lattice spacing {lo.pitch_min_nm:.1f} nm)")
+    for d in lo.first:
+        state = "imaged" if d.resolved else "[bold red]not imaged[/]"
+        console.print(
+            f"  orders {list(d.order)} at {d.angle_deg:5.1f}°: spacing {d.pitch_nm:.1f} nm, "
+            f"cutoff {d.cutoff_pitch_nm:.1f} nm, {state}"
+        )
+    m, shown = r.metrics, r.shown
+    at = f" (focus {r.focus_nm:g} nm)" if r.focus_nm else ""
+    printed = (
+        "missing"
+        if m.missing
+        else "merged with its neighbours"
+        if m.merged
+        else f"{number_text(m.size_x_nm, '', 1)} x {number_text(m.size_y_nm, ' nm', 1)}"
+    )
+    for k, v in (
+        (f"image contrast{at}", number_text(shown.contrast, "", 3)),
+        (
+            f"NILS x / y{at}",
+            f"{number_text(shown.nils_x, '', 2)} / {number_text(shown.nils_y, '', 2)}",
+        ),
+        ("printed at nominal dose", printed),
+        ("exposure latitude", number_text(m.el_pct, " %", 1)),
+        ("depth of focus", number_text(m.dof_nm, " nm", 0)),
+    ):
+        console.print(f"  {k:<28} {v}")
+    console.print()
+    if r.violations:
+        for v in r.violations:
+            console.print(f"  [bold]{v.severity}[/] {v.check}: {v.message}")
+    else:
+        console.print("  ok: no limit of this layer is broken")
+    console.print(f"[dim]{CAUTION}[/]")
     return EXIT_OK

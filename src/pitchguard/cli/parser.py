@@ -117,6 +117,19 @@ def build_parser() -> argparse.ArgumentParser:
         help="feature width: line on a clear field, opening on a dark one",
     )
     probe.add_argument(
+        "--pitch-y",
+        type=_positive_float,
+        metavar="NM",
+        help="an array of compact features instead of lines: the pitch along y "
+        "(default: --pitch when --cd-y is given)",
+    )
+    probe.add_argument(
+        "--cd-y",
+        type=_positive_float,
+        metavar="NM",
+        help="the features' size along y (default: --cd when --pitch-y is given)",
+    )
+    probe.add_argument(
         "--focus",
         type=float,
         default=0.0,

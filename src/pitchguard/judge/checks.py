@@ -47,7 +47,7 @@ def _fmt(x: float) -> str:
     return f"{x:.1f}"
 
 
-def _band_violation(
+def band_violation(
     rule: LayerRule,
     check: str,
     value: float,
@@ -106,7 +106,7 @@ def violations(
             )
     if math.isfinite(pitch_wafer):
         k1_bands = (("risk", "k1_risk_below"), ("marginal", "k1_marginal_below"))
-        v = _band_violation(
+        v = band_violation(
             rule,
             "low-k1",
             res.k1,
@@ -124,7 +124,7 @@ def violations(
             ("risk", "nils_risk_below"),
             ("marginal", "nils_marginal_below"),
         )
-        v = _band_violation(
+        v = band_violation(
             rule,
             "low-nils",
             m.nils,

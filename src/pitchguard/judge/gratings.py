@@ -147,3 +147,54 @@ def pupil_picture(rule: LayerRule, result: GratingResult, width: int = 45) -> li
     for sx, sy in pts[:: max(1, len(pts) // 600)]:
         put(sx, sy, "0")
     return ["".join(r).rstrip() for r in grid]
+
+
+@dataclass(frozen=True)
+class ArrayResult:
+    """An ideal rectangular array of compact features: orders, metrics, verdict."""
+
+    pitch_nm: tuple[float, float]  # x, y
+    cd_nm: tuple[float, float]
+    orders: object  # optics.lattice_orders.LatticeOrders
+    metrics: object  # optics.resist2d.Metrics2D through the deck's focus range
+    shown: object  # Metrics2D of the image shown (at focus_nm)
+    violations: tuple[Violation, ...]
+    x_nm: np.ndarray
+    y_nm: np.ndarray
+    intensity: np.ndarray  # (y, x) at focus_nm, one unit cell, feature at the centre
+    focus_nm: float
+
+    @property
+    def severity(self) -> str:
+        return self.violations[0].severity if self.violations else "ok"
+
+
+def array_probe(
+    rule: LayerRule,
+    pitch_nm: float,
+    cd_nm: float,
+    pitch_y_nm: float,
+    cd_y_nm: float,
+    focus_nm: float = 0.0,
+) -> ArrayResult:
+    """Judge a rectangular lattice (wafer nm) of ``cd x cd_y`` rectangles at
+    ``pitch x pitch_y``, one centred on the origin: holes on a dark field,
+    posts on a clear one.  Metrics through the deck's focus range; the image
+    returned, and ``shown``, at ``focus_nm``."""
+    from pitchguard.judge.array_checks import array_violations
+    from pitchguard.optics.aerial2d import array_cell
+    from pitchguard.optics.lattice_orders import lattice_orders
+    from pitchguard.optics.resist2d import cell_metrics
+
+    _check(rule, pitch_nm, cd_nm)
+    _check(rule, pitch_y_nm, cd_y_nm)
+    lo = lattice_orders(rule.exposure, (pitch_nm, 0.0), (0.0, pitch_y_nm))
+    cell = array_cell(pitch_nm, pitch_y_nm, cd_nm, cd_y_nm)
+    m, x, y, image = cell_metrics(rule, cell)
+    shown = m
+    if focus_nm:
+        shown, x, y, image = cell_metrics(rule, cell, focus_nm=(focus_nm,))
+    vs = array_violations(rule, lo, m if rule.image_checks else None)
+    return ArrayResult(
+        (pitch_nm, pitch_y_nm), (cd_nm, cd_y_nm), lo, m, shown, tuple(vs), x, y, image, focus_nm
+    )

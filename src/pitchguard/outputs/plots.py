@@ -74,6 +74,48 @@ def plot_image(rule: LayerRule, r: GratingResult, out: Path, inputs: list[Path])
     _save(fig, out, inputs)
 
 
+def plot_array(rule: LayerRule, r, out: Path, inputs: list[Path]) -> None:
+    """The 2-D aerial image of an array probe (3 x 3 unit cells), the printed
+    contour at the nominal threshold over the drawn rectangles."""
+    from matplotlib.patches import Rectangle
+
+    plt = _figure_module()
+    fig, ax = plt.subplots(figsize=(6.4, 5.6))
+    px, py = r.pitch_nm
+    nx, ny = len(r.x_nm), len(r.y_nm)
+    image = np.tile(r.intensity, (3, 3))
+    x = np.concatenate([r.x_nm - px, r.x_nm, r.x_nm + px])
+    y = np.concatenate([r.y_nm - py, r.y_nm, r.y_nm + py])
+    assert image.shape == (3 * ny, 3 * nx)
+    mesh = ax.pcolormesh(x, y, image, shading="nearest", cmap="magma")
+    fig.colorbar(mesh, ax=ax, label="intensity (open frame = 1)")
+    m = r.metrics
+    if m is not None and math.isfinite(m.threshold):
+        ax.contour(x, y, image, levels=[m.threshold], colors="#2ca02c", linewidths=1.5)
+        ax.plot([], [], color="#2ca02c", label=f"printed (threshold {m.threshold:.3f})")
+    w, h = r.cd_nm
+    for i in (-1, 0, 1):
+        for j in (-1, 0, 1):
+            ax.add_patch(
+                Rectangle(
+                    (i * px - w / 2, j * py - h / 2), w, h, fill=False, ec="#cccccc", ls="--", lw=1
+                )
+            )
+    ax.plot([], [], color="#cccccc", ls="--", label="drawn")
+    ax.set_aspect("equal")
+    ax.set_xlabel("x (nm, wafer)")
+    ax.set_ylabel("y (nm, wafer)")
+    feature = "posts" if rule.field == "clear" else "holes"
+    ax.set_title(
+        f"{rule.name}: {w:g} x {h:g} nm {feature} at {px:g} x {py:g} nm, focus "
+        f"{r.focus_nm:g} nm - {r.severity}",
+        fontsize=10,
+    )
+    ax.legend(fontsize=8, loc="upper right")
+    fig.text(0.01, -0.02, CAUTION, fontsize=6.5, color="#555555", wrap=True)
+    _save(fig, out, inputs)
+
+
 def plot_sweep(
     rule: LayerRule, results: list[GratingResult], out: Path, inputs: list[Path]
 ) -> None:

@@ -1,0 +1,128 @@
+"""Arrays of compact features (holes, posts): 2-D orders + 2-D image metrics -> Violations.
+
+The same check identifiers and deck limits as lines (judge.checks), read
+for a lattice: a direction the pupil does not image is ``unresolvable-pitch``
+(the holes merge into lines along it, or vanish), k1 comes from the finest
+lattice spacing, NILS is the smaller of the two directions'.
+"""
+
+from __future__ import annotations
+
+import math
+
+from pitchguard.deck import SEVERITIES, LayerRule
+from pitchguard.judge.checks import Violation, band_violation
+from pitchguard.optics.lattice_orders import LatticeOrders
+from pitchguard.optics.resist2d import Metrics2D
+
+
+def _fmt(x: float) -> str:
+    return f"{x:.1f}"
+
+
+def array_violations(rule: LayerRule, lo: LatticeOrders, m: Metrics2D | None) -> list[Violation]:
+    """Every limit an array of compact features breaks, worst first (wafer nm)."""
+    out: list[Violation] = []
+    lost = [d for d in lo.first if not d.resolved]
+    if lost and not lo.resolved:
+        d = min(lost, key=lambda d: d.pitch_nm)
+        out.append(
+            Violation(
+                "unresolvable-pitch",
+                "fail",
+                d.pitch_nm,
+                d.cutoff_pitch_nm,
+                f"lattice spacing {_fmt(d.pitch_nm)} nm (wafer) at {d.angle_deg:.0f} degrees is "
+                f"below the {_fmt(d.cutoff_pitch_nm)} nm this exposure can image there: the "
+                + ("features do not print" if lo.rank == 0 else "features merge into lines"),
+            )
+        )
+    if m is not None:
+        if m.missing:
+            out.append(
+                Violation(
+                    "feature-not-printed",
+                    "fail",
+                    m.contrast,
+                    0.0,
+                    f"the feature does not print at best focus and nominal dose "
+                    f"(image contrast {m.contrast:.3f})",
+                )
+            )
+        elif m.merged:
+            out.append(
+                Violation(
+                    "features-bridged",
+                    "fail",
+                    m.contrast,
+                    0.0,
+                    "the printed feature joins its neighbours at best focus and nominal dose",
+                )
+            )
+    v = band_violation(
+        rule,
+        "low-k1",
+        lo.k1,
+        (("risk", "k1_risk_below"), ("marginal", "k1_marginal_below")),
+        lambda limit, key: (
+            f"k1 {lo.k1:.3f} is below {limit:g} ({key}) at lattice spacing "
+            f"{_fmt(lo.pitch_min_nm)} nm (wafer)"
+        ),
+    )
+    if v is not None:
+        out.append(v)
+    if m is not None and not (m.missing or m.merged):
+        nils = min(m.nils_x, m.nils_y)
+        v = band_violation(
+            rule,
+            "low-nils",
+            nils,
+            (
+                ("fail", "nils_fail_below"),
+                ("risk", "nils_risk_below"),
+                ("marginal", "nils_marginal_below"),
+            ),
+            lambda limit, key: (
+                f"NILS {nils:.2f} at the drawn edges (x {m.nils_x:.2f}, y {m.nils_y:.2f}) "
+                f"is below {limit:g} ({key})"
+            ),
+        )
+        if v is not None:
+            out.append(v)
+        if m.el_pct < rule.el_min_pct:
+            out.append(
+                Violation(
+                    "low-exposure-latitude",
+                    "risk",
+                    m.el_pct,
+                    rule.el_min_pct,
+                    f"exposure latitude {m.el_pct:.1f} % is below {rule.el_min_pct:g} % "
+                    f"(both sizes within +-{rule.cd_tolerance_pct:g} %)",
+                )
+            )
+        if m.dof_nm < rule.dof_min_nm:
+            out.append(
+                Violation(
+                    "low-depth-of-focus",
+                    "risk",
+                    m.dof_nm,
+                    rule.dof_min_nm,
+                    f"depth of focus {m.dof_nm:.0f} nm is below {rule.dof_min_nm:.0f} nm "
+                    f"(at {rule.el_min_pct:g} % exposure latitude)",
+                )
+            )
+        errors = [e for e in (m.size_error_x_pct, m.size_error_y_pct) if math.isfinite(e)]
+        worst = max(errors, key=abs, default=math.nan)
+        if math.isfinite(worst) and abs(worst) > rule.cd_tolerance_pct:
+            out.append(
+                Violation(
+                    "cd-error",
+                    "risk",
+                    worst,
+                    rule.cd_tolerance_pct,
+                    f"printed size {m.size_x_nm:.1f} x {m.size_y_nm:.1f} nm is {worst:+.1f} % off "
+                    f"drawn at the anchored dose (tolerance +-{rule.cd_tolerance_pct:g} %)",
+                )
+            )
+    out.sort(key=lambda v: SEVERITIES.index(v.severity))
+    return out
