@@ -142,3 +142,24 @@ def test_array_probe_agrees_with_an_independent_abbe_sum(name, tmp_path, capsys)
     )
     nils = wx * abs(i_p - i_m) / (2 * d) / i_e
     assert obj["nils"] == pytest.approx(nils, rel=0.05)
+
+
+def test_rules_check_shows_the_square_array_cutoff(tmp_path, capsys):
+    """A square lattice of pitch p has its first orders at 1/p, as lines of
+    pitch p: its cutoff is the line cutoff lambda / (NA (1 + sigma)) for a disc
+    source (see domain notes; arithmetic: 248 / (0.8 x 1.5) = 206.7 nm)."""
+    from pitchguard.deck import parse_deck
+    from pitchguard.judge.gratings import square_array_cutoff
+
+    text = (
+        "[exposures.e]\nwavelength_nm = 248.0\nna = 0.8\nillumination = { shape = "
+        '"conventional", sigma = 0.5 }\n[[layers]]\nname = "a"\nsource = "1/0"\n'
+        'exposure = "e"\nfield = "dark"\n'
+    )
+    want = 248.0 / (0.8 * 1.5)
+    e = parse_deck(text).layers[0].exposure
+    assert square_array_cutoff(e) == pytest.approx(want, abs=0.5)
+    deck = tmp_path / "deck.toml"
+    deck.write_text(text)
+    assert main(["rules", "check", str(deck)]) == 0
+    assert f"{square_array_cutoff(e):.1f}" in capsys.readouterr().out

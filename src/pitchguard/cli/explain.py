@@ -13,6 +13,7 @@ def cmd_rules_check(args) -> int:
     from rich.table import Table
 
     from pitchguard.deck import load_deck
+    from pitchguard.judge.gratings import square_array_cutoff
     from pitchguard.optics.orders import cutoff_pitch
 
     deck = load_deck(args.deck)
@@ -33,6 +34,7 @@ def cmd_rules_check(args) -> int:
         "NA",
         "σ max",
         "cutoff x / y nm",
+        "square array cutoff nm",
         "k1 risk / marginal pitch nm",
     ):
         t.add_column(col)
@@ -50,6 +52,7 @@ def cmd_rules_check(args) -> int:
             f"{e.na:g}",
             f"{e.sigma_max:g}",
             f"{cx:.1f} / {cy:.1f}",
+            number_text(square_array_cutoff(e), "", 1),
             f"{pr:.1f} / {pm:.1f}",
         )
     console.print(t)

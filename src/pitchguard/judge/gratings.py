@@ -198,3 +198,23 @@ def array_probe(
     return ArrayResult(
         (pitch_nm, pitch_y_nm), (cd_nm, cd_y_nm), lo, m, shown, tuple(vs), x, y, image, focus_nm
     )
+
+
+def square_array_cutoff(exposure) -> float:
+    """Smallest pitch (wafer nm) of a square array whose image is 2-D: the
+    pupil passes two independent first orders (bisection on the pitch, to
+    0.01 nm; for a disc source it is the line cutoff lambda / (NA (1 + sigma)))."""
+    from pitchguard.optics.lattice_orders import lattice_orders
+
+    def two_d(p: float) -> bool:
+        return lattice_orders(exposure, (p, 0.0), (0.0, p)).rank == 2
+
+    lo, hi = 0.05 * exposure.lambda_over_na_nm, 0.5 * exposure.lambda_over_na_nm
+    while not two_d(hi):
+        hi *= 2.0
+        if hi > 100 * exposure.lambda_over_na_nm:
+            return math.inf  # e.g. a dipole: one direction is never imaged
+    while hi - lo > 0.01:
+        mid = 0.5 * (lo + hi)
+        lo, hi = (lo, mid) if two_d(mid) else (mid, hi)
+    return hi
