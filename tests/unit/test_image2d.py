@@ -30,6 +30,7 @@ import zlib
 
 import numpy as np
 import pytest
+from threadpoolctl import threadpool_limits
 
 from pitchguard.deck import Exposure, parse_deck
 from pitchguard.geometry.cuts import window_period
@@ -98,6 +99,14 @@ DIPOLE_X = {
 QUADRUPOLE = {"shape": "quadrupole", "sigma_inner": 0.5, "sigma_outer": 0.8, "opening_deg": 30.0}
 BINARY = {"kind": "binary"}
 ATTENUATED_6 = {"kind": "attenuated", "transmission": 0.06}  # 6 % att. PSM (common practice)
+
+
+@pytest.fixture(autouse=True, scope="module")
+def one_blas_thread():
+    """BLAS on one thread, as the scan's workers run it (run.tasks): the TCC builds are
+    many small products, which BLAS threads slow down on a busy machine."""
+    with threadpool_limits(1):
+        yield
 
 
 def exposure(illumination, wavelength_nm=ARF_NM, na=DRY_ARF_NA, index=1.0, mask=BINARY):
@@ -723,11 +732,11 @@ def isolated_contact_centre(e, w, pad):
 def test_isolated_contact_barely_sees_the_copies_of_its_clip():
     # A finite group imaged as periodic: with the copies 2 lambda/NA away or more
     # the centre of an isolated hole moves by less than 0.5 % as the padding grows
-    # from 1 to 4 lambda/NA (measured spread 0.2 %: 0.4353, 0.4357, 0.4362 for
-    # KrF NA 0.8, ring 0.6-0.9, 6 % att. PSM, 250 nm hole).  The image of a
-    # clip is that of an isolated group only to this order.
+    # from 1 to 3 lambda/NA (measured: 0.4353, 0.4357, 0.4365, a spread of 0.3 %,
+    # for KrF NA 0.8, ring 0.6-0.9, 6 % att. PSM, 250 nm hole; not monotone).
+    # The image of a clip is that of an isolated group only to this order.
     e = exposure(ANNULAR_06_09, KRF_NM, 0.8, mask=ATTENUATED_6)
-    values = np.array([isolated_contact_centre(e, 250.0, pad) for pad in (1.0, 2.0, 4.0)])
+    values = np.array([isolated_contact_centre(e, 250.0, pad) for pad in (1.0, 2.0, 3.0)])
     assert np.ptp(values) < 5e-3 * values.mean()
     assert values.min() > 0.3  # a bright hole (not a trivial image)
 

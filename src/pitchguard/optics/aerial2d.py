@@ -52,7 +52,13 @@ from pitchguard.optics.aerial import (
 )
 
 SOURCE_CHUNK = 512
-"""Source points per block when summing over the source (bounds memory: block x orders)."""
+"""Source points per block of the Abbe sum (bounds memory: block x orders x points)."""
+
+
+FRAME_ELEMENTS = 1 << 21
+"""Source points x orders per block of a pupil frame (32 MB of amplitudes): few, large
+products (each BLAS call costs a thread start-up, which dominates small ones on a busy
+machine)."""
 
 
 FIELD_BUDGET = 1 << 22
@@ -415,6 +421,38 @@ def resample(inten: np.ndarray, orders: CellOrders, nx: int, ny: int) -> np.ndar
     return inten
 
 
+class PupilFrame2D:
+    """What the coherent systems of one source and cell period share through focus: where
+    each order of each source point falls in the pupil, and the defocus phase per unit
+    focus there (the 2-D counterpart of ``aerial.PupilFrame``), in blocks of source
+    points.  :meth:`blocks` gives ``A = sqrt(w_s) P(f_k + s)`` block by block at any
+    focus, the same values as ``aerial.pupil``, for one complex exponential per passing
+    order."""
+
+    def __init__(self, optics: Optics, src: tuple[np.ndarray, np.ndarray], orders: CellOrders):
+        pts, w = src
+        self.orders = orders
+        n_over_l = optics.n_medium / optics.wavelength_nm
+        rows = max(SOURCE_CHUNK, FRAME_ELEMENTS // len(orders))
+        self._blocks = []
+        for k in range(0, len(w), rows):
+            s = pts[k : k + rows]
+            fx = orders.fx[None, :] + s[:, 0:1] * optics.cutoff
+            fy = orders.fy[None, :] + s[:, 1:2] * optics.cutoff
+            f2 = fx * fx + fy * fy
+            inside = f2 <= optics.cutoff**2 * (1.0 + 1e-12)  # as aerial.pupil decides
+            root_w = np.broadcast_to(np.sqrt(w[k : k + rows])[:, None], f2.shape)[inside]
+            kz = np.sqrt(np.maximum(n_over_l**2 - f2[inside], 0.0)) - n_over_l
+            self._blocks.append((inside, root_w, kz))
+
+    def blocks(self, defocus_nm: float):
+        """``A`` at ``defocus_nm``, one block of source points at a time."""
+        for inside, root_w, kz in self._blocks:
+            a = np.zeros(inside.shape, dtype=np.complex128)
+            a[inside] = root_w * np.exp(2j * np.pi * defocus_nm * kz) if defocus_nm else root_w
+            yield a
+
+
 class CoherentSystems2D:
     """Hopkins imaging of one cell period at one focus, as a sum of coherent systems.
 
@@ -436,26 +474,27 @@ class CoherentSystems2D:
         defocus_nm: float = 0.0,
         keep: float = SOCS_KEEP,
     ):
-        pts, w = src
-        fx, fy = orders.fx, orders.fy
-        tcc = np.zeros((len(orders), len(orders)), dtype=np.complex128)
-        for k in range(0, len(w), SOURCE_CHUNK):
-            s = pts[k : k + SOURCE_CHUNK]
-            a = (
-                pupil(
-                    fx[None, :] + s[:, 0:1] * optics.cutoff,
-                    fy[None, :] + s[:, 1:2] * optics.cutoff,
-                    optics,
-                    defocus_nm,
-                )
-                * np.sqrt(w[k : k + SOURCE_CHUNK])[:, None]
-            )
+        self._decompose(PupilFrame2D(optics, src, orders), defocus_nm, keep)
+
+    @classmethod
+    def from_frame(
+        cls, frame: PupilFrame2D, defocus_nm: float = 0.0, keep: float = SOCS_KEEP
+    ) -> CoherentSystems2D:
+        """The systems at one focus from a :class:`PupilFrame2D` kept for several."""
+        out = object.__new__(cls)
+        out._decompose(frame, defocus_nm, keep)
+        return out
+
+    def _decompose(self, frame: PupilFrame2D, defocus_nm: float, keep: float) -> None:
+        n = len(frame.orders)
+        tcc = np.zeros((n, n), dtype=np.complex128)
+        for a in frame.blocks(defocus_nm):
             tcc += a.conj().T @ a
         ev, v = np.linalg.eigh(tcc)
         order = np.argsort(ev)[::-1]
         ev, v = ev[order], v[:, order]
         kept = ev >= keep * (ev[0] if len(ev) and ev[0] > 0 else 1.0)
-        self.orders = orders
+        self.orders = frame.orders
         self.eigenvalues = ev[kept]
         self.kernels = v[:, kept].conj().T  # (K, N)
 
@@ -549,9 +588,13 @@ def coherent_systems_2d(
         return coherent_systems_2d(
             exposure, px_nm, py_nm, -focus_nm, angle
         ).through_opposite_focus()
-    return CoherentSystems2D(
+    return CoherentSystems2D.from_frame(_frame(exposure, px_nm, py_nm, angle), focus_nm)
+
+
+@lru_cache(maxsize=16)
+def _frame(exposure: Exposure, px_nm: float, py_nm: float, angle_deg: float) -> PupilFrame2D:
+    return PupilFrame2D(
         Optics.of(exposure),
-        source_points(exposure, angle),
+        source_points(exposure, angle_deg),
         exposure_orders(exposure, px_nm, py_nm),
-        focus_nm,
     )
