@@ -104,6 +104,8 @@ def main() -> int:
             f"  sites {sum(v['sites'] for v in layers):,}, imaged {judged:,}; "
             f"2-D pieces (counted, not judged) {sum(v['pieces_2d'] for v in layers):,}"
         )
+        share = ", ".join(f"{name} {v['judged_pct']} %" for name, v in s["by_layer"].items())
+        print(f"  edge length judged: {share}")
     return 0
 
 
