@@ -572,7 +572,6 @@ def source_angle(exposure: Exposure, angle_deg: float) -> float:
     return 0.0 if source_is_symmetric(exposure) else round(angle_deg, 1) % 180.0
 
 
-@lru_cache(maxsize=512)
 def coherent_systems_2d(
     exposure: Exposure, px_nm: float, py_nm: float, focus_nm: float, angle_deg: float = 0.0
 ) -> CoherentSystems2D:
@@ -581,14 +580,24 @@ def coherent_systems_2d(
     The systems at ``-z`` are the conjugates of those at ``+z``
     (:meth:`CoherentSystems2D.through_opposite_focus`): a focus pair costs one TCC.
     """
-    angle = source_angle(exposure, angle_deg)
-    if angle != angle_deg:
-        return coherent_systems_2d(exposure, px_nm, py_nm, focus_nm, angle)
+    return _systems(
+        exposure, float(px_nm), float(py_nm), float(focus_nm), source_angle(exposure, angle_deg)
+    )
+
+
+@lru_cache(maxsize=512)
+def _systems(
+    exposure: Exposure, px_nm: float, py_nm: float, focus_nm: float, angle_deg: float
+) -> CoherentSystems2D:
     if focus_nm < 0:
-        return coherent_systems_2d(
-            exposure, px_nm, py_nm, -focus_nm, angle
-        ).through_opposite_focus()
-    return CoherentSystems2D.from_frame(_frame(exposure, px_nm, py_nm, angle), focus_nm)
+        return _systems(exposure, px_nm, py_nm, -focus_nm, angle_deg).through_opposite_focus()
+    return CoherentSystems2D.from_frame(_frame(exposure, px_nm, py_nm, angle_deg), focus_nm)
+
+
+def clear_systems_cache() -> None:
+    """Forget this process's imaging systems and pupil frames (:func:`coherent_systems_2d`)."""
+    _systems.cache_clear()
+    _frame.cache_clear()
 
 
 @lru_cache(maxsize=16)
