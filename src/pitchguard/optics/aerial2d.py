@@ -25,8 +25,9 @@ Scalar, thin mask, the conventions of ``optics.aerial`` carried to 2-D:
 * The source is sampled as for 1-D cuts (``aerial.IMAGE_SOURCE_STEP``, so a
   pattern of lines gives the 1-D image exactly).  Against a 0.01 step, images
   of square contact arrays (k1 0.3 to 1.2, ArF immersion) change by less than
-  5e-3 of the open frame (4.2e-3 worst, dipole; 1.8e-3 for discs and rings):
-  more orders meet the pupil's rim than for lines (a unit test holds the 5e-3).
+  5e-3 of the open frame (4.2e-3 worst, dipole; 3.0e-3 quadrupole; 1.8e-3
+  discs and rings; a unit test holds the 5e-3), more than lines (3e-3): more
+  orders meet the pupil's rim.
 * A lattice that is not rectangular is imaged through its rectangular
   supercell (:func:`lattice_cell`); a finite group of features (the last
   rows of an array, line ends) through a clip window (:func:`clip_cell`),
@@ -68,7 +69,7 @@ FIELD_BUDGET = 1 << 22
 RASTER_PER_LAMBDA_NA = 64
 """Image samples per lambda/NA along each axis by default (:func:`default_samples`).  Halving
 the step moves the printed size of contact arrays (k1 0.3 to 1) by less than 0.1 nm (0.09 nm
-measured worst: a 68 nm side printing at 36 nm, KrF; a unit test holds the 0.1 nm)."""
+measured worst: a 152 nm side printing at 36 nm, KrF; a unit test holds the 0.1 nm)."""
 
 
 LATTICE_SEARCH = 12
