@@ -10,15 +10,17 @@ Three steps, each usable on its own:
 ``lattice_sites``
     Per compact feature, its local lattice: the shortest vector to a feature of
     the same shape within the interaction range and the shortest one
-    independent of it, reduced and made canonical; and its links to the
-    features it shares an array with.  Every value depends only on the layout
-    within ``HALO_RANGES`` interaction ranges of the feature, so tiles with that
-    much halo give the whole layout's values (``region`` keeps what a tile owns,
+    independent of it, reduced and made canonical; its links to neighbours of
+    the same lattice; and, where its lattice is not confirmed, its same-shape
+    neighbours.  Every value depends only on the layout within ``HALO_RANGES``
+    interaction ranges of the feature, so tiles with that much halo give the
+    whole layout's values (``region`` keeps what a tile owns,
     ``LatticeSites.joined`` puts tiles together).
 ``find_arrays``
-    Links -> arrays: basis fitted to all members, lattice class, feature size,
-    rows and columns, bounding box, hull, and each member's place (interior,
-    last column, last row, corner).
+    Linked features -> arrays, grown by the features that sit on an array's
+    lattice next to it; basis fitted to all members, lattice class, feature
+    size, rows and columns, bounding box, hull, and each member's place
+    (interior, last column, last row, corner).
 
 ``extract_lattices`` runs all three on one layer.
 
@@ -62,11 +64,11 @@ from pitchguard.layout.polygons import PolygonSet
 TOL_GRID = 2.0
 """Default tolerance in database grid steps (snapping noise of centroids)."""
 
-HALO_RANGES = 3
+HALO_RANGES = 2
 """A tile's values equal the whole layout's when it reads shapes this many
 interaction ranges (plus twice the largest compact diagonal) around its region:
 a local lattice needs the features within one range, a link also its
-neighbour's lattice, an attachment also its partner's links."""
+neighbour's lattice."""
 
 MIN_MEMBERS = 4
 """Members an array of two directions needs (three points always lie on a lattice)."""
@@ -179,12 +181,14 @@ class LatticeSites:
 
     Per feature: ``a1``, ``a2`` the canonical reduced basis of its local
     lattice (NaN where missing), ``lattice`` its class (``NONE``: no feature of
-    its shape within range), ``core`` whether it has a link to a feature of the
-    same local lattice.  Links go from a feature (row index ``link_from``) to a
+    its shape within range), ``core`` whether neighbours of the same lattice
+    confirm it (see :func:`lattice_sites`).  Links join core features of one
+    lattice one step apart: from a feature (row index ``link_from``) to a
     feature named by its centroid key (``link_to``, see :func:`centroid_keys`),
-    which may belong to another tile; ``link_core`` tells same-lattice links
-    from attachments (a feature whose own lattice differs, placed on its
-    neighbour's lattice).
+    which may belong to another tile.  ``near_from``, ``near_to``: every
+    same-shape neighbour (by key) of each feature that is not core, in either
+    one's reach; :func:`find_arrays` places such features on a neighbouring
+    array's lattice.
     """
 
     features: FeatureColumns
@@ -194,7 +198,8 @@ class LatticeSites:
     core: np.ndarray
     link_from: np.ndarray
     link_to: np.ndarray
-    link_core: np.ndarray
+    near_from: np.ndarray
+    near_to: np.ndarray
     grid_nm: float
     tol_nm: float
     range_nm: float
@@ -216,7 +221,8 @@ class LatticeSites:
             np.concatenate([p.core for p in parts]),
             np.concatenate([p.link_from + o for p, o in zip(parts, offsets, strict=True)]),
             np.concatenate([p.link_to for p in parts]),
-            np.concatenate([p.link_core for p in parts]),
+            np.concatenate([p.near_from + o for p, o in zip(parts, offsets, strict=True)]),
+            np.concatenate([p.near_to for p in parts]),
             parts[0].grid_nm,
             parts[0].tol_nm,
             parts[0].range_nm,
@@ -880,9 +886,9 @@ def neighbour_lattices_plain(f: FeatureColumns, range_nm: float, grid_nm: float,
         if len(found):
             a1[i] = v[0]
             for k in range(1, len(found)):
-                if abs(_cross(v[0], v[k])) > tol * math.hypot(*v[0]):
+                if abs(_cross(v[0], v[k])) > tol * _norm(v[0]):
                     a2[i] = v[k]
-                    rch = min(range_nm, math.hypot(*v[k]) + tol)
+                    rch = min(range_nm, _norm(v[k]) + tol)
                     break
         reach[i] = rch
         near = d2 <= rch * rch
@@ -926,7 +932,9 @@ def reduced_basis(b1: np.ndarray, b2: np.ndarray, tol: float):
         sw = _dot(ys, ys) < _dot(xs, xs)
         xs[sw], ys[sw] = ys[sw].copy(), xs[sw].copy()
         ts[sw] = ts[sw][:, :, ::-1]
-        mu = np.rint(_dot(xs, ys) / _dot(xs, xs))
+        ratio = _dot(xs, ys) / _dot(xs, xs)
+        # A ratio of +-1/2 is reduced already: rounding it by float noise cycles.
+        mu = np.where(np.abs(ratio) <= 0.5 + 1e-9, 0.0, np.rint(ratio))
         ys -= mu[:, None] * xs
         ts[:, :, 1] -= mu.astype(np.int64)[:, None] * ts[:, :, 0]
         x[todo], y[todo], t[todo] = xs, ys, ts
@@ -1002,6 +1010,25 @@ def _same_lattice(a1i, a2i, line_i, a1j, a2j, line_j, tol):
     return np.where(line_i & line_j, ok1, np.where(~line_i & ~line_j, ok2, False))
 
 
+def _confirmed(n: int, i, j, v, a1, a2, line) -> np.ndarray:
+    """Features whose lattice is confirmed by same-lattice neighbours along two
+    independent steps (rows: along one).  Two features alone always agree on
+    the lattice their own vector spans (where two arrays meet, facing features
+    do); a lattice seen along two directions is an array's."""
+    seen = np.zeros((4, n), dtype=bool)
+    for a, w in ((i, v), (j, -v)):
+        t1, t2 = _coords(a1[a], a2[a], w)
+        m = np.where(line[a], 1.0, np.rint(t1))
+        k = np.where(line[a], 0.0, np.rint(t2))
+        flip = (m < 0) | ((m == 0) & (k < 0))  # the step's line: (1,0), (0,1), (1,1), (1,-1)
+        m, k = np.where(flip, -m, m), np.where(flip, -k, k)
+        kind = np.select([k == 0, m == 0, k == 1], [0, 1, 2], 3)
+        for q in range(4):
+            seen[q] |= np.bincount(a[kind == q], minlength=n) > 0
+    directions = seen.sum(axis=0)
+    return np.where(line, directions >= 1, directions >= 2)
+
+
 def lattice_sites(
     ps: PolygonSet | None,
     grid_nm: float,
@@ -1016,11 +1043,11 @@ def lattice_sites(
 
     A link joins feature ``i`` to a feature ``j`` of the same shape within
     ``i``'s reach when ``c_j - c_i`` is a lattice step (coordinates in {-1, 0, 1})
-    and both local lattices are one lattice (core link); or, for a feature with
-    no core link, to the nearest feature with one whose lattice has ``c_i - c_j``
-    as a step (attachment: the last column of an array beside another array,
-    whose nearest neighbours belong to the other).  Ties between partners go
-    by distance, then the partner's pitches, then its centroid key.
+    and both local lattices are one lattice, each confirmed along two
+    independent steps (core features, see :func:`_confirmed`).  A feature
+    that is not core (the last columns of an array beside another array see
+    the other's features among their nearest) keeps its same-shape
+    neighbours for :func:`find_arrays`.
 
     With ``region`` only features whose centroid lies in it are kept (with
     their links); read shapes ``HALO_RANGES`` ranges plus ``2 sqrt(2)
@@ -1047,35 +1074,38 @@ def lattice_sites(
     ui, uj = upair // nb, upair % nb
     same = _same_lattice(ua1[ui], ua2[ui], uline[ui], ua1[uj], ua2[uj], uline[uj], tol)
     core_pair &= same[pinv.ravel()]
-    core = np.zeros(len(f), dtype=bool)
-    core[pi[core_pair]] = True
-    core[pj[core_pair]] = True
-    # Attachments: the nearest core neighbour on whose lattice the feature sits.
-    cand = np.flatnonzero(~core[pi] & core[pj])
-    ci, cj = pi[cand], pj[cand]
-    b = bid[cj]
-    fit = _short_step(ua1[b], ua2[b], uline[b], -v[cand], tol)
-    ci, cj = ci[fit], cj[fit]
+    core = _confirmed(len(f), pi[core_pair], pj[core_pair], v[core_pair], a1, a2, cls == ROW)
+    core_pair &= core[pi] & core[pj]
+    # Features that are not core keep their same-shape neighbours, from both ends: a
+    # feature's own reach can be too short to see the array it ends (its nearest
+    # neighbours belong to another array).
+    loose_i, loose_j = ~core[pi], ~core[pj]
+    near_from = np.concatenate([pi[loose_i], pj[loose_j]])
+    near_to = np.concatenate([pj[loose_i], pi[loose_j]])
     keys = centroid_keys(c, grid_nm)
-    dv = c[cj] - c[ci]
-    order = np.lexsort(
-        (keys[cj], np.nan_to_num(_norm(a2[cj]), nan=np.inf), _norm(a1[cj]), _dot(dv, dv), ci)
-    )
-    ci, cj = ci[order], cj[order]
-    best = _first_per_group(ci, len(f))
-    att = best[best >= 0]
-    link_from = np.concatenate([pi[core_pair], ci[att]])
-    link_to = keys[np.concatenate([pj[core_pair], cj[att]])]
-    link_core = np.r_[np.ones(int(core_pair.sum()), bool), np.zeros(len(att), bool)]
+    link_from, link_to = pi[core_pair], pj[core_pair]
     if region is not None:
         own = in_region(c, region)
         new_index = np.cumsum(own) - 1
         keep = own[link_from]
-        link_from, link_to, link_core = new_index[link_from[keep]], link_to[keep], link_core[keep]
+        link_from, link_to = new_index[link_from[keep]], link_to[keep]
+        keep = own[near_from]
+        near_from, near_to = new_index[near_from[keep]], near_to[keep]
         idx = np.flatnonzero(own)
         f, a1, a2, cls, core = f.take(idx), a1[idx], a2[idx], cls[idx], core[idx]
     return LatticeSites(
-        f, a1, a2, cls, core, link_from, link_to, link_core, grid_nm, tol, interaction_range_nm
+        f,
+        a1,
+        a2,
+        cls,
+        core,
+        link_from,
+        keys[link_to],
+        near_from,
+        keys[near_to],
+        grid_nm,
+        tol,
+        interaction_range_nm,
     )
 
 
@@ -1097,16 +1127,23 @@ def _reduce_groups(ufunc, values: np.ndarray, starts: np.ndarray, k: int, fill) 
 def find_arrays(
     sites: LatticeSites, min_members: int = MIN_MEMBERS, min_members_row: int = MIN_MEMBERS_ROW
 ) -> LatticeArrays:
-    """Arrays: the features joined by links, with at least ``min_members`` (rows:
+    """Arrays: core features joined by links, grown by the features that sit on
+    their lattice next to them, with at least ``min_members`` members (rows:
     ``min_members_row``).
 
-    Each array's basis is fitted to all its members by least squares (lattice
-    coordinates from the links' steps in its reference member's basis, so
-    exact for arrays on the grid) and made canonical; its class, rows and
-    columns, feature size, bounding box and each member's role follow.  The
-    reference member is the linked member with the least centroid key (least
-    x, then least y); arrays are numbered in the order of their reference
-    members, so nothing depends on the order of the input or on a tiling.
+    Growth goes in rounds: a feature that is not core joins the array of a
+    same-shape neighbour already in one when it sits one lattice step
+    (coordinates in {-1, 0, 1}, within ``tol``) from it on that array's
+    lattice (its reference member's); of several, the nearest neighbour, then
+    the array with the shorter pitches, then the neighbour with the least key.
+    Each array's basis is then fitted to all its members by least squares
+    (lattice coordinates from the links' steps in its reference member's
+    basis, so exact for arrays on the grid) and made canonical; its class,
+    rows and columns, feature size, bounding box and each member's role
+    follow.  The reference member is the core member with the least centroid
+    key (least x, then least y); arrays are numbered in the order of their
+    reference members, so nothing depends on the order of the input or on a
+    tiling.
     """
     f = sites.features
     n = len(f)
@@ -1115,29 +1152,51 @@ def find_arrays(
     keys = centroid_keys(c, sites.grid_nm)
     korder = np.argsort(keys, kind="stable")
     sk = keys[korder]
-    if n:
-        pos = np.minimum(np.searchsorted(sk, sites.link_to), n - 1)
-        found = sk[pos] == sites.link_to
-    else:
-        pos = found = np.zeros(len(sites.link_to), dtype=bool)
-    lf, lt = sites.link_from[found], korder[pos[found]]
+
+    def resolve(frm, to):
+        if not n:
+            return frm[:0], frm[:0]
+        pos = np.minimum(np.searchsorted(sk, to), n - 1)
+        found = sk[pos] == to
+        return frm[found], korder[pos[found]]
+
+    lf, lt = resolve(sites.link_from, sites.link_to)
+    nf, nt = resolve(sites.near_from, sites.near_to)
     n_comp, comp = components(n, lf, lt)
-    size = np.bincount(comp, minlength=n_comp)
-    two = sites.core & (sites.lattice != ROW)
-    comp_two = np.bincount(comp, weights=two, minlength=n_comp) > 0
-    comp_core = np.bincount(comp, weights=sites.core, minlength=n_comp) > 0
-    is_array = comp_core & (size >= np.where(comp_two, min_members, min_members_row))
+    # Seeds: components of core features; their reference member and its lattice.
+    seed_of = np.where(sites.core, comp, -1)
     ref_order = np.lexsort((keys, ~sites.core, comp))
     first = _first_per_group(comp[ref_order], n_comp)
+    ref = ref_order[np.maximum(first, 0)]
+    is_seed = sites.core[ref] if n else np.zeros(0, bool)
+    line = sites.lattice[ref] == ROW
+    s1, s2 = sites.a1[ref], np.where(line[:, None], np.nan, sites.a2[ref])
+    pitch = np.stack([_norm(s1), np.nan_to_num(_norm(s2), nan=np.inf)], axis=1)
+    # Growth, round by round, from the features already placed.
+    while True:
+        go = (seed_of[nf] < 0) & (seed_of[nt] >= 0)
+        i, j = nf[go], nt[go]
+        a = seed_of[j]
+        fit = _short_step(s1[a], s2[a], line[a], c[i] - c[j], tol)
+        if not fit.any():
+            break
+        i, j, a = i[fit], j[fit], a[fit]
+        dv = c[i] - c[j]
+        order = np.lexsort((keys[j], pitch[a, 1], pitch[a, 0], _dot(dv, dv), i))
+        i, a = i[order], a[order]
+        best = _first_per_group(i, n)
+        chosen = best[best >= 0]
+        seed_of[i[chosen]] = a[chosen]
+    size = np.bincount(seed_of[seed_of >= 0], minlength=n_comp)
+    is_array = is_seed & (size >= np.where(line, min_members_row, min_members))
     arr_comp = np.flatnonzero(is_array)
-    ref = ref_order[first[arr_comp]]
-    numbering = np.argsort(keys[ref], kind="stable")
-    arr_comp, ref = arr_comp[numbering], ref[numbering]
+    numbering = np.argsort(keys[ref[arr_comp]], kind="stable")
+    arr_comp = arr_comp[numbering]
+    ref, line = ref[arr_comp], line[arr_comp]
     k = len(arr_comp)
     label_of_comp = np.full(n_comp, -1, dtype=np.int64)
     label_of_comp[arr_comp] = np.arange(k)
-    array = label_of_comp[comp] if n else np.zeros(0, np.int64)
-    line = ~comp_two[arr_comp]
+    array = np.where(seed_of >= 0, label_of_comp[np.maximum(seed_of, 0)], -1)
 
     # Members by array.
     mem = np.flatnonzero(array >= 0)
@@ -1304,3 +1363,46 @@ def extract_lattices(
     return find_arrays(
         lattice_sites(ps, grid_nm, max_extent_nm, interaction_range_nm, tol_grid=tol_grid)
     )
+
+
+def member_roles_plain(arrays: LatticeArrays) -> tuple[np.ndarray, np.ndarray]:
+    """Plain twin of the roles and neighbour bits of :func:`find_arrays`: the
+    occupied sites in a set, one loop per member and neighbour."""
+    n = len(arrays.array)
+    R, tol = arrays.sites.range_nm, arrays.sites.tol_nm
+    occupied = {
+        (int(a), int(u), int(v))
+        for a, (u, v) in zip(arrays.array, arrays.uv, strict=True)
+        if a >= 0
+    }
+    role = np.full(n, -1, dtype=np.int8)
+    bits = np.zeros(n, dtype=np.uint8)
+    for i in range(n):
+        a = int(arrays.array[i])
+        if a < 0:
+            continue
+        u, v = (int(x) for x in arrays.uv[i])
+        missing = []
+        for bit, (du, dv) in enumerate(NEIGHBOUR_STEPS.tolist()):
+            here = (a, u + du, v + dv) in occupied
+            bits[i] |= int(here) << bit
+            if arrays.lattice[a] == ROW:
+                considered = dv == 0
+            else:
+                step = du * arrays.a1[a] + dv * arrays.a2[a]
+                considered = math.hypot(*step) <= R + tol
+            if considered and not here:
+                missing.append((du, dv))
+        m1 = (1, 0) in missing or (-1, 0) in missing
+        m2 = (0, 1) in missing or (0, -1) in missing
+        if m1 and m2:
+            role[i] = CORNER
+        elif m1:
+            role[i] = END_A1
+        elif m2:
+            role[i] = END_A2
+        elif missing:
+            role[i] = NOTCH
+        else:
+            role[i] = INTERIOR
+    return role, bits
