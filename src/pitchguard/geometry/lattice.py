@@ -964,6 +964,35 @@ def reduced_basis(b1: np.ndarray, b2: np.ndarray, tol: float):
     return a1, a2, T
 
 
+def reduced_basis_plain(b1: np.ndarray, b2: np.ndarray, tol: float, span: int = 12):
+    """Plain twin of :func:`reduced_basis` for one lattice: every vector ``m b1 + n
+    b2`` with ``|m|, |n| <= span``, then the convention of the module notes applied
+    by a loop (enough when the given basis is not too skewed).  Returns a1, a2."""
+    vecs = [
+        m * b1 + n * b2 for m in range(-span, span + 1) for n in range(-span, span + 1) if m or n
+    ]
+    eps = BASIS_ANGLE_EPS_DEG
+
+    def direction(v):
+        ang = math.degrees(math.atan2(v[1], v[0]))
+        return ang + 180.0 if ang < -eps else ang - 180.0 if ang >= 180.0 - eps else ang
+
+    def forward(v):
+        return -eps <= math.degrees(math.atan2(v[1], v[0])) < 180.0 - eps
+
+    lam1 = min(math.hypot(*v) for v in vecs)
+    first = min((v for v in vecs if math.hypot(*v) <= lam1 + tol and forward(v)), key=direction)
+    l1 = math.hypot(*first)
+    indep = [v for v in vecs if abs(first[0] * v[1] - first[1] * v[0]) > tol * l1]
+    lam2 = min(math.hypot(*v) for v in indep)
+
+    def rank(v):
+        cross = first[0] * v[1] - first[1] * v[0]
+        return (bool(v @ first < -tol * l1), bool(cross <= 0), direction(v))
+
+    return first, min((v for v in indep if math.hypot(*v) <= lam2 + tol), key=rank)
+
+
 def lattice_class(a1: np.ndarray, a2: np.ndarray, tol: float) -> np.ndarray:
     """Class of each canonical reduced basis (see the module notes)."""
     l1, l2 = _norm(a1), _norm(a2)
@@ -982,18 +1011,44 @@ def lattice_class(a1: np.ndarray, a2: np.ndarray, tol: float) -> np.ndarray:
     return cls
 
 
-def _short_step(a1, a2, line, v, tol):
-    """``v`` is within ``tol`` of a lattice vector with coordinates in {-1, 0, 1},
-    not both 0 (lines: of ``±a1``)."""
-    t1, t2 = _coords(a1, a2, v)
+STEP_CHUNK = 1 << 20
+"""Pairs whose lattice steps are worked out at once (bounds the temporaries)."""
+
+
+def _step_table(a1: np.ndarray, a2: np.ndarray, line: np.ndarray) -> np.ndarray:
+    """Per basis, the columns :func:`_step_code` reads: the rows of the inverse basis
+    matrix, then a1 and a2.  A row (line) is the basis ``a1, 0`` with the
+    projection on ``a1`` as its first coordinate."""
     with np.errstate(invalid="ignore", divide="ignore"):
-        m, k = np.rint(t1), np.rint(t2)
-        res = v - m[:, None] * a1 - k[:, None] * a2
-        ok2 = (np.maximum(np.abs(m), np.abs(k)) <= 1) & (np.abs(m) + np.abs(k) > 0)
-        ok2 &= _norm(res) <= tol
-        s = np.rint(_dot(v, a1) / _dot(a1, a1))
-        ok1 = (np.abs(s) == 1) & (_norm(v - s[:, None] * a1) <= tol)
-    return np.where(line, ok1, ok2)
+        det = _cross(a1, a2)
+        n1 = _dot(a1, a1)
+        inv = np.stack([a2[:, 1] / det, -a2[:, 0] / det, -a1[:, 1] / det, a1[:, 0] / det])
+        inv_line = np.stack([a1[:, 0] / n1, a1[:, 1] / n1, 0.0 * n1, 0.0 * n1])
+    inv = np.where(line[None, :], inv_line, inv)
+    second = np.where(line[:, None], 0.0, a2)
+    return np.vstack([inv, a1.T, second.T])
+
+
+def _step_code(table: np.ndarray, b: np.ndarray, v: np.ndarray, tol: float) -> np.ndarray:
+    """Which lattice step ``v`` is in basis ``b`` (a column of ``table``, see
+    :func:`_step_table`): 0 for ±a1, 1 for ±a2, 2 for ±(a1 + a2), 3 for ±(a1 - a2),
+    -1 when ``v`` is not within ``tol`` of one."""
+    out = np.empty(len(b), dtype=np.int8)
+    for lo in range(0, len(b), STEP_CHUNK):
+        bb, w = b[lo : lo + STEP_CHUNK], v[lo : lo + STEP_CHUNK]
+        vx, vy = w[:, 0], w[:, 1]
+        with np.errstate(invalid="ignore"):
+            m = np.rint(table[0][bb] * vx + table[1][bb] * vy)
+            k = np.rint(table[2][bb] * vx + table[3][bb] * vy)
+            rx = vx - m * table[4][bb] - k * table[6][bb]
+            ry = vy - m * table[5][bb] - k * table[7][bb]
+            ok = (np.abs(m) <= 1) & (np.abs(k) <= 1) & ((m != 0) | (k != 0))
+            ok &= rx * rx + ry * ry <= tol * tol
+        flip = (m < 0) | ((m == 0) & (k < 0))
+        m, k = np.where(flip, -m, m), np.where(flip, -k, k)
+        code = np.select([k == 0, m == 0, k == m], [0, 1, 2], 3)
+        out[lo : lo + STEP_CHUNK] = np.where(ok, code, -1)
+    return out
 
 
 def _same_lattice(a1i, a2i, line_i, a1j, a2j, line_j, tol):
@@ -1010,21 +1065,29 @@ def _same_lattice(a1i, a2i, line_i, a1j, a2j, line_j, tol):
     return np.where(line_i & line_j, ok1, np.where(~line_i & ~line_j, ok2, False))
 
 
-def _confirmed(n: int, i, j, v, a1, a2, line) -> np.ndarray:
+def _same_lattice_of_pairs(a1, a2, line, bi, bj, tol) -> np.ndarray:
+    """:func:`_same_lattice` for the basis pairs ``(bi, bj)``: from a table of all
+    pairs of bases when there are few (arrays), else per distinct pair."""
+    nb = len(a1)
+    if nb * nb <= max(4 * len(bi), 1 << 16):
+        ii, jj = np.divmod(np.arange(nb * nb), nb)
+        table = _same_lattice(a1[ii], a2[ii], line[ii], a1[jj], a2[jj], line[jj], tol)
+        return table[bi * nb + bj]
+    upair, inv = np.unique(bi * nb + bj, return_inverse=True)
+    ui, uj = np.divmod(upair, nb)
+    return _same_lattice(a1[ui], a2[ui], line[ui], a1[uj], a2[uj], line[uj], tol)[inv.ravel()]
+
+
+def _confirmed(n: int, i, code_i, j, code_j, line) -> np.ndarray:
     """Features whose lattice is confirmed by same-lattice neighbours along two
-    independent steps (rows: along one).  Two features alone always agree on
+    independent steps (rows: along one); ``code_*``: the step's line (see
+    :func:`_step_code`) seen from each end.  Two features alone always agree on
     the lattice their own vector spans (where two arrays meet, facing features
     do); a lattice seen along two directions is an array's."""
     seen = np.zeros((4, n), dtype=bool)
-    for a, w in ((i, v), (j, -v)):
-        t1, t2 = _coords(a1[a], a2[a], w)
-        m = np.where(line[a], 1.0, np.rint(t1))
-        k = np.where(line[a], 0.0, np.rint(t2))
-        flip = (m < 0) | ((m == 0) & (k < 0))  # the step's line: (1,0), (0,1), (1,1), (1,-1)
-        m, k = np.where(flip, -m, m), np.where(flip, -k, k)
-        kind = np.select([k == 0, m == 0, k == 1], [0, 1, 2], 3)
+    for a, code in ((i, code_i), (j, code_j)):
         for q in range(4):
-            seen[q] |= np.bincount(a[kind == q], minlength=n) > 0
+            seen[q] |= np.bincount(a[code == q], minlength=n) > 0
     directions = seen.sum(axis=0)
     return np.where(line, directions >= 1, directions >= 2)
 
@@ -1068,14 +1131,15 @@ def lattice_sites(
     a1, a2, cls = ua1[bid], ua2[bid], ucls[bid]
     v = c[pj] - c[pi]
     bi, bj = bid[pi], bid[pj]
-    core_pair = _short_step(ua1[bi], ua2[bi], uline[bi], v, tol)
-    nb = len(rep)
-    upair, pinv = np.unique(bi * nb + bj, return_inverse=True)
-    ui, uj = upair // nb, upair % nb
-    same = _same_lattice(ua1[ui], ua2[ui], uline[ui], ua1[uj], ua2[uj], uline[uj], tol)
-    core_pair &= same[pinv.ravel()]
-    core = _confirmed(len(f), pi[core_pair], pj[core_pair], v[core_pair], a1, a2, cls == ROW)
-    core_pair &= core[pi] & core[pj]
+    table = _step_table(ua1, ua2, uline)
+    code_i = _step_code(table, bi, v, tol)
+    cand = np.flatnonzero(code_i >= 0)
+    cand = cand[_same_lattice_of_pairs(ua1, ua2, uline, bi[cand], bj[cand], tol)]
+    code_j = _step_code(table, bj[cand], -v[cand], tol)
+    cand, code_j = cand[code_j >= 0], code_j[code_j >= 0]
+    core = _confirmed(len(f), pi[cand], code_i[cand], pj[cand], code_j, cls == ROW)
+    core_pair = np.zeros(len(pi), dtype=bool)
+    core_pair[cand] = core[pi[cand]] & core[pj[cand]]
     # Features that are not core keep their same-shape neighbours, from both ends: a
     # feature's own reach can be too short to see the array it ends (its nearest
     # neighbours belong to another array).
@@ -1124,18 +1188,81 @@ def _reduce_groups(ufunc, values: np.ndarray, starts: np.ndarray, k: int, fill) 
     return ufunc.reduceat(values, starts, axis=0)
 
 
+def grow_arrays(seed_of, near_from, near_to, centroid, keys, steps, pitch, tol) -> np.ndarray:
+    """Arrays grown round by round: a feature in none (``seed_of`` -1) joins the
+    array of a neighbour in one (pairs ``near_from`` -> ``near_to``) when it sits
+    one lattice step from that neighbour on the array's lattice (``steps``, see
+    :func:`_step_table`); of several, the nearest neighbour, then the array of
+    shorter pitches (``pitch`` (k, 2)), then the neighbour of least key.  Every
+    feature that can join in a round joins in it.  Returns the new ``seed_of``;
+    the plain twin is :func:`grow_arrays_plain`."""
+    seed_of = seed_of.copy()
+    n = len(seed_of)
+    while True:
+        go = (seed_of[near_from] < 0) & (seed_of[near_to] >= 0)
+        i, j = near_from[go], near_to[go]
+        a = seed_of[j]
+        fit = _step_code(steps, a, centroid[i] - centroid[j], tol) >= 0
+        if not fit.any():
+            return seed_of
+        i, j, a = i[fit], j[fit], a[fit]
+        dv = centroid[i] - centroid[j]
+        order = np.lexsort((keys[j], pitch[a, 1], pitch[a, 0], _dot(dv, dv), i))
+        i, a = i[order], a[order]
+        best = _first_per_group(i, n)
+        chosen = best[best >= 0]
+        seed_of[i[chosen]] = a[chosen]
+
+
+def grow_arrays_plain(seed_of, near_from, near_to, centroid, keys, steps, pitch, tol):
+    """Plain twin of :func:`grow_arrays`: breadth first, one feature at a time."""
+    seed_of = seed_of.copy()
+    partners: dict[int, list[int]] = {}
+    for i, j in zip(near_from.tolist(), near_to.tolist(), strict=True):
+        partners.setdefault(i, []).append(j)
+    while True:
+        joined = {}
+        for i, js in partners.items():
+            if seed_of[i] >= 0:
+                continue
+            best = None
+            for j in js:
+                a = int(seed_of[j])
+                if a < 0:
+                    continue
+                dv = centroid[i] - centroid[j]
+                code = _step_code(steps, np.array([a]), dv[None, :], tol)[0]
+                if code < 0:
+                    continue
+                rank = (float(_dot(dv, dv)), pitch[a, 0], pitch[a, 1], int(keys[j]))
+                if best is None or rank < best[0]:
+                    best = (rank, a)
+            if best is not None:
+                joined[i] = best[1]
+        if not joined:
+            return seed_of
+        for i, a in joined.items():
+            seed_of[i] = a
+
+
 def find_arrays(
-    sites: LatticeSites, min_members: int = MIN_MEMBERS, min_members_row: int = MIN_MEMBERS_ROW
+    sites: LatticeSites,
+    min_members: int = MIN_MEMBERS,
+    min_members_row: int = MIN_MEMBERS_ROW,
+    plain: bool = False,
 ) -> LatticeArrays:
     """Arrays: core features joined by links, grown by the features that sit on
     their lattice next to them, with at least ``min_members`` members (rows:
     ``min_members_row``).
 
-    Growth goes in rounds: a feature that is not core joins the array of a
-    same-shape neighbour already in one when it sits one lattice step
-    (coordinates in {-1, 0, 1}, within ``tol``) from it on that array's
-    lattice (its reference member's); of several, the nearest neighbour, then
-    the array with the shorter pitches, then the neighbour with the least key.
+    Growth goes in rounds (:func:`grow_arrays`): a feature that is not core
+    joins the array of a same-shape neighbour already in one when it sits one
+    lattice step (coordinates in {-1, 0, 1}, within ``tol``) from it on that
+    array's lattice (its reference member's); of several, the nearest
+    neighbour, then the array with the shorter pitches, then the neighbour
+    with the least key.  Of the features left, neighbours that are each
+    other's shortest vector (``a1`` up to sign) form rows (a row running
+    beside an array, within range, has the array in its second vector).
     Each array's basis is then fitted to all its members by least squares
     (lattice coordinates from the links' steps in its reference member's
     basis, so exact for arrays on the grid) and made canonical; its class,
@@ -1143,7 +1270,7 @@ def find_arrays(
     follow.  The reference member is the core member with the least centroid
     key (least x, then least y); arrays are numbered in the order of their
     reference members, so nothing depends on the order of the input or on a
-    tiling.
+    tiling.  ``plain``: grow with :func:`grow_arrays_plain` (for tests).
     """
     f = sites.features
     n = len(f)
@@ -1172,21 +1299,31 @@ def find_arrays(
     line = sites.lattice[ref] == ROW
     s1, s2 = sites.a1[ref], np.where(line[:, None], np.nan, sites.a2[ref])
     pitch = np.stack([_norm(s1), np.nan_to_num(_norm(s2), nan=np.inf)], axis=1)
-    # Growth, round by round, from the features already placed.
-    while True:
-        go = (seed_of[nf] < 0) & (seed_of[nt] >= 0)
-        i, j = nf[go], nt[go]
-        a = seed_of[j]
-        fit = _short_step(s1[a], s2[a], line[a], c[i] - c[j], tol)
-        if not fit.any():
-            break
-        i, j, a = i[fit], j[fit], a[fit]
-        dv = c[i] - c[j]
-        order = np.lexsort((keys[j], pitch[a, 1], pitch[a, 0], _dot(dv, dv), i))
-        i, a = i[order], a[order]
-        best = _first_per_group(i, n)
-        chosen = best[best >= 0]
-        seed_of[i[chosen]] = a[chosen]
+    grow = grow_arrays_plain if plain else grow_arrays
+    seed_of = grow(seed_of, nf, nt, c, keys, _step_table(s1, s2, line), pitch, tol)
+    # Rows among the features left over: neighbours that are each other's shortest
+    # vector (a row beside an array sees the array in its second vector).
+    free = (seed_of < 0)[nf] & (seed_of < 0)[nt]
+    rf, rt = nf[free], nt[free]
+    v = c[rt] - c[rf]
+    along = np.ones(len(rf), dtype=bool)
+    for end in (rf, rt):
+        w = sites.a1[end]
+        along &= np.minimum(_norm(v - w), _norm(v + w)) <= tol
+    rf, rt = rf[along], rt[along]
+    n_row, row_comp = components(n, rf, rt)
+    row_size = np.bincount(row_comp, minlength=n_row)
+    in_row = np.flatnonzero(row_size[row_comp] >= min_members_row)
+    if len(in_row):
+        rows_found, row_id = np.unique(row_comp[in_row], return_inverse=True)
+        seed_of[in_row] = n_comp + row_id.ravel()
+        order = np.lexsort((keys[in_row], row_id.ravel()))
+        row_ref = in_row[order][_first_per_group(row_id.ravel()[order], len(rows_found))]
+        ref = np.r_[ref, row_ref]
+        is_seed = np.r_[is_seed, np.ones(len(rows_found), dtype=bool)]
+        line = np.r_[line, np.ones(len(rows_found), dtype=bool)]
+        n_comp += len(rows_found)
+        lf, lt = np.r_[lf, rf], np.r_[lt, rt]
     size = np.bincount(seed_of[seed_of >= 0], minlength=n_comp)
     is_array = is_seed & (size >= np.where(line, min_members_row, min_members))
     arr_comp = np.flatnonzero(is_array)
@@ -1212,7 +1349,7 @@ def find_arrays(
     # Basis from the links: their vectors and integer steps in the reference basis.
     b1 = sites.a1[ref]
     b2 = np.where(line[:, None], np.nan, sites.a2[ref])
-    inl = (array[lf] >= 0) & (array[lf] == array[lt])
+    inl = (array[lf] >= 0) & (array[lf] == array[lt]) & (keys[lf] < keys[lt])  # each link once
     el = array[lf[inl]]
     ev = c[lt[inl]] - c[lf[inl]]
     t1, t2 = _coords(b1[el], b2[el], ev)
