@@ -789,6 +789,58 @@ def test_deduplicated_rows_and_lattice_table_equal_direct_work():
     assert direct.any() and not direct.all()
 
 
+SKY130 = Path(__file__).resolve().parents[1] / "fixtures" / "sky130"
+CONTACTS = [(66, 44), (67, 44)]  # licon, mcon in the sky130 layer map (from memory)
+
+
+# The RF transistor cells hold a GDSII record gdstk skips with this warning (on every
+# layer); the shapes are read.
+@pytest.mark.filterwarnings("ignore:Unsupported record in file:RuntimeWarning")
+def test_contacts_of_manufactured_cells():
+    """licon and mcon of the 17 SkyWater 130 nm cells (tests/fixtures/sky130):
+    every shape is a compact 170 x 170 nm feature (the sky130 contact size, from
+    memory), and cutting each cell into four tiles changes no array.  The
+    inverter's licon, as drawn (centres read from the file: x 465 and 885 nm,
+    y 400, 740 and 1660, 2000, 2340 nm, and the gate contact at (485, 1160)):
+    a 2 x 2 and a 3 x 2 rectangular array of pitches 340 x 420 nm, one isolated."""
+    cells = sorted(SKY130.glob("*.gds"))
+    assert len(cells) == 17
+    arrays = 0
+    for path in cells:
+        layout = read_layout(path, CONTACTS)
+        for ps in layout.layers.values():
+            if not len(ps):
+                continue
+            cf = L.compact_features(ps, layout.grid_nm, MAX_EXTENT_NM)
+            assert (cf.polygon_reason == L.COMPACT).all(), path.name
+            np.testing.assert_array_equal(cf.features.size, 170.0)
+            sites = L.lattice_sites(None, layout.grid_nm, MAX_EXTENT_NM, 500.0, compact=cf)
+            whole = L.find_arrays(sites)
+            bb = ps.bounding_boxes()
+            mid = 0.5 * (bb[:, :2].min(axis=0) + bb[:, 2:].max(axis=0))
+            parts = []
+            for rx in ((-np.inf, mid[0]), (mid[0], np.inf)):
+                for ry in ((-np.inf, mid[1]), (mid[1], np.inf)):
+                    region = (rx[0], ry[0], rx[1], ry[1])
+                    parts.append(
+                        L.lattice_sites(ps, layout.grid_nm, MAX_EXTENT_NM, 500.0, region=region)
+                    )
+            same_arrays(whole, L.find_arrays(L.LatticeSites.joined(parts)))
+            arrays += len(whole)
+    assert arrays > 30
+    layout = read_layout(SKY130 / "sky130_fd_sc_hd__inv_1.gds", [(66, 44)])
+    res = L.extract_lattices(layout.layers[(66, 44)], layout.grid_nm, MAX_EXTENT_NM, 500.0)
+    got = [
+        (r.lattice, r.count, r.a1_nm, r.a2_nm, r.columns, r.rows, r.origin_nm)
+        for r in res.records()
+    ]
+    assert got == [
+        ("rectangular", 4, (0.0, 340.0), (-420.0, 0.0), 2, 2, (885.0, 400.0)),
+        ("rectangular", 6, (0.0, 340.0), (-420.0, 0.0), 3, 2, (885.0, 1660.0)),
+    ]
+    assert res.isolated == 1
+
+
 def test_hull_and_empty_input():
     """The hull of an axis-aligned 4 x 3 array at pitch 100 with 50 nm vias is its
     bounding rectangle; an empty layer gives no feature and no array."""
