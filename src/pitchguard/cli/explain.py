@@ -61,7 +61,7 @@ def cmd_rules_check(args) -> int:
 
 
 def _grating_json(r) -> dict:
-    from pitchguard.outputs.json_report import clean_json
+    from pitchguard.outputs.json_report import clean_json, violation_to_dict
 
     m = r.metrics
     return clean_json(
@@ -83,16 +83,7 @@ def _grating_json(r) -> dict:
             "threshold": m.threshold if m else None,
             "dose_to_size": m.dose_to_size if m else None,
             "severity": r.severity,
-            "checks": [
-                {
-                    "check": v.check,
-                    "severity": v.severity,
-                    "value": v.value,
-                    "limit": v.limit,
-                    "message": v.message,
-                }
-                for v in r.violations
-            ],
+            "checks": [violation_to_dict(v) for v in r.violations],
         }
     )
 
@@ -252,7 +243,7 @@ def cmd_sweep(args) -> int:
 
 
 def _array_json(r) -> dict:
-    from pitchguard.outputs.json_report import clean_json
+    from pitchguard.outputs.json_report import clean_json, violation_to_dict
 
     m, shown, lo = r.metrics, r.shown, r.orders
     row = r.intensity[r.intensity.shape[0] // 2]  # the cut along x through the feature centre
@@ -285,16 +276,7 @@ def _array_json(r) -> dict:
             "depth_of_focus_nm": m.dof_nm,
             "threshold": m.threshold,
             "severity": r.severity,
-            "checks": [
-                {
-                    "check": v.check,
-                    "severity": v.severity,
-                    "value": v.value,
-                    "limit": v.limit,
-                    "message": v.message,
-                }
-                for v in r.violations
-            ],
+            "checks": [violation_to_dict(v) for v in r.violations],
             "focus_nm": r.focus_nm,
             "image": {"x_nm": r.x_nm.tolist(), "intensity": row.tolist()},
             "image_2d": {

@@ -11,13 +11,15 @@ from __future__ import annotations
 import math
 
 from pitchguard.deck import SEVERITIES, LayerRule
-from pitchguard.judge.checks import Violation, band_violation
+from pitchguard.judge.checks import (
+    K1_BANDS,
+    NILS_BANDS,
+    Violation,
+    band_violation,
+    window_violations,
+)
 from pitchguard.optics.lattice_orders import LatticeOrders
 from pitchguard.optics.resist2d import Metrics2D
-
-
-def _fmt(x: float) -> str:
-    return f"{x:.1f}"
 
 
 def array_violations(rule: LayerRule, lo: LatticeOrders, m: Metrics2D | None) -> list[Violation]:
@@ -32,8 +34,8 @@ def array_violations(rule: LayerRule, lo: LatticeOrders, m: Metrics2D | None) ->
                 "fail",
                 d.pitch_nm,
                 d.cutoff_pitch_nm,
-                f"lattice spacing {_fmt(d.pitch_nm)} nm (wafer) at {d.angle_deg:.0f} degrees is "
-                f"below the {_fmt(d.cutoff_pitch_nm)} nm this exposure can image there: the "
+                f"lattice spacing {d.pitch_nm:.1f} nm (wafer) at {d.angle_deg:.0f} degrees is "
+                f"below the {d.cutoff_pitch_nm:.1f} nm this exposure can image there: the "
                 + ("features do not print" if lo.rank == 0 else "features merge into lines"),
             )
         )
@@ -63,10 +65,10 @@ def array_violations(rule: LayerRule, lo: LatticeOrders, m: Metrics2D | None) ->
         rule,
         "low-k1",
         lo.k1,
-        (("risk", "k1_risk_below"), ("marginal", "k1_marginal_below")),
+        K1_BANDS,
         lambda limit, key: (
             f"k1 {lo.k1:.3f} is below {limit:g} ({key}) at lattice spacing "
-            f"{_fmt(lo.pitch_min_nm)} nm (wafer)"
+            f"{lo.pitch_min_nm:.1f} nm (wafer)"
         ),
     )
     if v is not None:
@@ -77,11 +79,7 @@ def array_violations(rule: LayerRule, lo: LatticeOrders, m: Metrics2D | None) ->
             rule,
             "low-nils",
             nils,
-            (
-                ("fail", "nils_fail_below"),
-                ("risk", "nils_risk_below"),
-                ("marginal", "nils_marginal_below"),
-            ),
+            NILS_BANDS,
             lambda limit, key: (
                 f"NILS {nils:.2f} at the drawn edges (x {m.nils_x:.2f}, y {m.nils_y:.2f}) "
                 f"is below {limit:g} ({key})"
@@ -89,28 +87,7 @@ def array_violations(rule: LayerRule, lo: LatticeOrders, m: Metrics2D | None) ->
         )
         if v is not None:
             out.append(v)
-        if m.el_pct < rule.el_min_pct:
-            out.append(
-                Violation(
-                    "low-exposure-latitude",
-                    "risk",
-                    m.el_pct,
-                    rule.el_min_pct,
-                    f"exposure latitude {m.el_pct:.1f} % is below {rule.el_min_pct:g} % "
-                    f"(both sizes within +-{rule.cd_tolerance_pct:g} %)",
-                )
-            )
-        if m.dof_nm < rule.dof_min_nm:
-            out.append(
-                Violation(
-                    "low-depth-of-focus",
-                    "risk",
-                    m.dof_nm,
-                    rule.dof_min_nm,
-                    f"depth of focus {m.dof_nm:.0f} nm is below {rule.dof_min_nm:.0f} nm "
-                    f"(at {rule.el_min_pct:g} % exposure latitude)",
-                )
-            )
+        out.extend(window_violations(rule, m.el_pct, m.dof_nm, "both sizes"))
         errors = [e for e in (m.size_error_x_pct, m.size_error_y_pct) if math.isfinite(e)]
         worst = max(errors, key=abs, default=math.nan)
         if math.isfinite(worst) and abs(worst) > rule.cd_tolerance_pct:

@@ -43,6 +43,18 @@ class Violation:
     message: str
 
 
+K1_BANDS = (("risk", "k1_risk_below"), ("marginal", "k1_marginal_below"))
+"""k1 bands, worst first: severity and the deck key of its limit."""
+
+
+NILS_BANDS = (
+    ("fail", "nils_fail_below"),
+    ("risk", "nils_risk_below"),
+    ("marginal", "nils_marginal_below"),
+)
+"""NILS bands, worst first."""
+
+
 def _fmt(x: float) -> str:
     return f"{x:.1f}"
 
@@ -105,12 +117,11 @@ def violations(
                 )
             )
     if math.isfinite(pitch_wafer):
-        k1_bands = (("risk", "k1_risk_below"), ("marginal", "k1_marginal_below"))
         v = band_violation(
             rule,
             "low-k1",
             res.k1,
-            k1_bands,
+            K1_BANDS,
             lambda limit, key: (
                 f"k1 {res.k1:.3f} is below {limit:g} ({key}) at pitch "
                 f"{_fmt(pitch_wafer)} nm (wafer)"
@@ -119,42 +130,16 @@ def violations(
         if v is not None:
             out.append(v)
     if m is not None and not (m.lost or m.bridged):
-        nils_bands = (
-            ("fail", "nils_fail_below"),
-            ("risk", "nils_risk_below"),
-            ("marginal", "nils_marginal_below"),
-        )
         v = band_violation(
             rule,
             "low-nils",
             m.nils,
-            nils_bands,
+            NILS_BANDS,
             lambda limit, key: f"NILS {m.nils:.2f} at the drawn edges is below {limit:g} ({key})",
         )
         if v is not None:
             out.append(v)
-        if m.el_pct < rule.el_min_pct:
-            out.append(
-                Violation(
-                    "low-exposure-latitude",
-                    "risk",
-                    m.el_pct,
-                    rule.el_min_pct,
-                    f"exposure latitude {m.el_pct:.1f} % is below {rule.el_min_pct:g} % "
-                    f"(CD within +-{rule.cd_tolerance_pct:g} %)",
-                )
-            )
-        if m.dof_nm < rule.dof_min_nm:
-            out.append(
-                Violation(
-                    "low-depth-of-focus",
-                    "risk",
-                    m.dof_nm,
-                    rule.dof_min_nm,
-                    f"depth of focus {m.dof_nm:.0f} nm is below {rule.dof_min_nm:.0f} nm "
-                    f"(at {rule.el_min_pct:g} % exposure latitude)",
-                )
-            )
+        out.extend(window_violations(rule, m.el_pct, m.dof_nm, "CD"))
         if math.isfinite(m.cd_error_pct) and abs(m.cd_error_pct) > rule.cd_tolerance_pct:
             out.append(
                 Violation(
@@ -167,6 +152,35 @@ def violations(
                 )
             )
     out.sort(key=lambda v: SEVERITIES.index(v.severity))
+    return out
+
+
+def window_violations(rule: LayerRule, el_pct: float, dof_nm: float, sized: str) -> list[Violation]:
+    """Exposure latitude and depth of focus below the layer's floors; ``sized``
+    names what the tolerance holds ("CD", "both sizes")."""
+    out = []
+    if el_pct < rule.el_min_pct:
+        out.append(
+            Violation(
+                "low-exposure-latitude",
+                "risk",
+                el_pct,
+                rule.el_min_pct,
+                f"exposure latitude {el_pct:.1f} % is below {rule.el_min_pct:g} % "
+                f"({sized} within +-{rule.cd_tolerance_pct:g} %)",
+            )
+        )
+    if dof_nm < rule.dof_min_nm:
+        out.append(
+            Violation(
+                "low-depth-of-focus",
+                "risk",
+                dof_nm,
+                rule.dof_min_nm,
+                f"depth of focus {dof_nm:.0f} nm is below {rule.dof_min_nm:.0f} nm "
+                f"(at {rule.el_min_pct:g} % exposure latitude)",
+            )
+        )
     return out
 
 

@@ -98,16 +98,18 @@ def finding_to_dict(f: Finding, holes: bool = False) -> dict:
         }
         if f.cut_bounds_nm
         else None,
-        "checks": [
-            {
-                "check": v.check,
-                "severity": v.severity,
-                "value": json_number(v.value),
-                "limit": json_number(v.limit),
-                "message": v.message,
-            }
-            for v in f.violations
-        ],
+        "checks": [violation_to_dict(v) for v in f.violations],
+    }
+
+
+def violation_to_dict(v) -> dict:
+    """One broken limit as the JSON reports give it."""
+    return {
+        "check": v.check,
+        "severity": v.severity,
+        "value": json_number(v.value),
+        "limit": json_number(v.limit),
+        "message": v.message,
     }
 
 
