@@ -35,11 +35,9 @@ import numpy as np
 from pitchguard.deck import Exposure
 from pitchguard.optics.aerial import Optics, mask_amplitudes, source_points
 from pitchguard.optics.aerial2d import (
-    Cell,
     abbe_image_2d,
     cell_spectra,
     clear_systems_cache,
-    clip_cell,
     coarse_size,
     coherent_systems_2d,
     default_samples,
@@ -47,6 +45,7 @@ from pitchguard.optics.aerial2d import (
     image_axes,
     resample,
 )
+from pitchguard.optics.cells2d import Cell, clip_cell
 
 WAVELENGTH_NM = 193.0
 NA = 1.35

@@ -46,22 +46,19 @@ from pitchguard.optics.aerial import (
 )
 from pitchguard.optics.aerial2d import (
     RASTER_PER_LAMBDA_NA,
-    Cell,
     CoherentSystems2D,
     abbe_image_2d,
-    array_cell,
     cell_orders,
     cell_spectra,
-    clip_cell,
     coherent_systems_2d,
     default_samples,
     exposure_orders,
     image_axes,
-    lattice_cell,
     polygon_spectrum,
     rect_spectrum,
     source_angle,
 )
+from pitchguard.optics.cells2d import Cell, array_cell, clip_cell, lattice_cell
 from pitchguard.optics.resist import THRESHOLD_SAMPLES, evaluate
 from pitchguard.optics.resist2d import anchor_threshold_2d, cell_metrics, evaluate_2d
 

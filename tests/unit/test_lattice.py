@@ -769,7 +769,7 @@ def test_deduplicated_rows_and_lattice_table_equal_direct_work():
     base = rng.integers(0, 5, (300, 4)).astype(float)
     base[rng.random(300) < 0.2, 2:] = np.nan
     base[::7, 0] += 1e-12
-    rep, inv = L._dedupe_rows(base)
+    rep, inv = L.dedupe_rows(base)
     key = np.nan_to_num(base, nan=-1.0)
     _, ref_inv = np.unique(key, axis=0, return_inverse=True)
     # Same partition: classes map one to one.
@@ -781,11 +781,11 @@ def test_deduplicated_rows_and_lattice_table_equal_direct_work():
     a2 = np.array([[0, 100], [-100, 0], [0, 160], [np.nan, np.nan], [np.nan, np.nan]])
     line = np.isnan(a2[:, 0])
     bi, bj = rng.integers(0, 5, 200), rng.integers(0, 5, 200)
-    direct = L._same_lattice(a1[bi], a2[bi], line[bi], a1[bj], a2[bj], line[bj], 2.0)
-    np.testing.assert_array_equal(L._same_lattice_of_pairs(a1, a2, line, bi, bj, 2.0), direct)
+    direct = L.same_lattice(a1[bi], a2[bi], line[bi], a1[bj], a2[bj], line[bj], 2.0)
+    np.testing.assert_array_equal(L.same_lattice_of_pairs(a1, a2, line, bi, bj, 2.0), direct)
     many = np.repeat(a1, 300, axis=0), np.repeat(a2, 300, axis=0), np.repeat(line, 300)
     bi2, bj2 = bi * 300 + rng.integers(0, 300, 200), bj * 300 + rng.integers(0, 300, 200)
-    np.testing.assert_array_equal(L._same_lattice_of_pairs(*many, bi2, bj2, 2.0), direct)
+    np.testing.assert_array_equal(L.same_lattice_of_pairs(*many, bi2, bj2, 2.0), direct)
     assert direct.any() and not direct.all()
 
 

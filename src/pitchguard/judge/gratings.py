@@ -182,7 +182,7 @@ def array_probe(
     posts on a clear one.  Metrics through the deck's focus range; the image
     returned, and ``shown``, at ``focus_nm``."""
     from pitchguard.judge.array_checks import array_violations
-    from pitchguard.optics.aerial2d import array_cell
+    from pitchguard.optics.cells2d import array_cell
     from pitchguard.optics.lattice_orders import lattice_orders
     from pitchguard.optics.resist2d import cell_metrics
 

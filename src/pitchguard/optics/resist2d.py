@@ -19,14 +19,13 @@ from scipy import ndimage
 from pitchguard.deck import Anchor, Exposure, LayerRule
 from pitchguard.optics.aerial import Optics, mask_amplitudes
 from pitchguard.optics.aerial2d import (
-    Cell,
-    array_cell,
     cell_spectra,
     coherent_systems_2d,
     default_samples,
     exposure_orders,
     image_axes,
 )
+from pitchguard.optics.cells2d import Cell, array_cell
 from pitchguard.optics.resist import THRESHOLD_SAMPLES, cd_of_thresholds
 
 
