@@ -118,7 +118,9 @@ def via_arrays(draw, kinds: tuple[str, ...] = KINDS, max_side: int = 6) -> ViaAr
         a1, a2 = (a, 0), (0, a)
     elif kind == "rectangular":
         a = draw(st.integers(span, 250))
-        b = draw(st.integers(a + 8, 380))
+        # |a2 + a1| - |a2| is about a^2 / (2 b): it must exceed twice the extraction's
+        # tolerance (3 nm) for a snapped, turned copy to keep a2 (arithmetic).
+        b = draw(st.integers(a + 8, min(380, a * a // 12)))
         a1, a2 = (a, 0), (0, b)
     elif kind == "centred":
         s = draw(st.integers(math.ceil(span / 2), math.floor((340 - 8 - span) / math.sqrt(3))))

@@ -223,6 +223,10 @@ class Limits(_Model):
     * ``interaction_range_nm``: the optical interaction range, how far from an
       edge neighbours are looked for.  Beyond it an edge counts as isolated.
       Default 3 lambda/NA.
+    * ``compact_max_nm``: features whose extents are both below this (contacts,
+      vias, posts, short lines) are judged as 2-D patterns: arrays of them by
+      their lattice's orders and 2-D image, not by 1-D cuts.  Default
+      1 lambda/NA: smaller features image as 2-D blobs.
     * ``pitch_tolerance_nm = 1.0``: sites whose pitch differs by less than this
       belong to one pitch class (one region).
     * ``dense_min_lines = 5``: a region of at least this many lines is a dense
@@ -252,6 +256,7 @@ class Limits(_Model):
     k1_marginal_below: Annotated[float, Field(gt=0.0, lt=2.0)] | None = None
     min_run_nm: Annotated[float, Field(gt=0.0)] | None = None
     interaction_range_nm: Annotated[float, Field(gt=0.0)] | None = None
+    compact_max_nm: Annotated[float, Field(gt=0.0)] | None = None
     pitch_tolerance_nm: Annotated[float, Field(gt=0.0)] | None = None
     dense_min_lines: Annotated[int, Field(ge=2)] | None = None
     image_checks: bool | None = None
@@ -290,6 +295,7 @@ LIMIT_DEFAULTS = {
 
 MIN_RUN_LAMBDA_NA = 0.5
 INTERACTION_RANGE_LAMBDA_NA = 3.0
+COMPACT_LAMBDA_NA = 1.0
 DOF_RAYLEIGH_K2 = 0.5
 """Default DOF floor and focus half range: 0.5 n lambda / NA^2."""
 
@@ -378,6 +384,7 @@ class LayerRule:
         "k1_marginal_below",
         "min_run_nm",
         "interaction_range_nm",
+        "compact_max_nm",
         "pitch_tolerance_nm",
         "dense_min_lines",
         "image_checks",
@@ -414,6 +421,7 @@ class LayerRule:
         self.interaction_range_nm = pick(
             "interaction_range_nm", INTERACTION_RANGE_LAMBDA_NA * exposure.lambda_over_na_nm
         )
+        self.compact_max_nm = pick("compact_max_nm", COMPACT_LAMBDA_NA * exposure.lambda_over_na_nm)
         self.pitch_tolerance_nm = pick("pitch_tolerance_nm", LIMIT_DEFAULTS["pitch_tolerance_nm"])
         self.dense_min_lines = int(pick("dense_min_lines", LIMIT_DEFAULTS["dense_min_lines"]))
         for key in (

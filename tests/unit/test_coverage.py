@@ -66,14 +66,44 @@ def test_a_line_array_is_judged_along_its_sides_and_not_at_its_ends(tmp_path):
     assert ex.coverage == pytest.approx(3000 / 3200)
 
 
-def test_a_via_array_is_not_judged_and_says_so(tmp_path, capsys):
+def _vias(path, places_um, size_um=0.06):
     lib = gdstk.Library()
     top = lib.new_cell("VIAS")
-    for i in range(20):
-        for j in range(20):
-            top.add(gdstk.rectangle((i * 0.11, j * 0.11), (i * 0.11 + 0.06, j * 0.11 + 0.06), 17))
+    for x, y in places_um:
+        top.add(gdstk.rectangle((x, y), (x + size_um, y + size_um), 17))
+    lib.write_gds(str(path))
+
+
+def test_a_via_array_is_judged_whole(tmp_path, capsys):
+    """20 x 20 vias of 60 nm at 110 nm: below the square-array cutoff of this
+    annular source, lambda / (NA (1 + sigma_outer)) = 193 / (0.93 x 1.8) =
+    115.3 nm (arithmetic): every edge is judged, and the array fails."""
     layout = tmp_path / "vias.gds"
-    lib.write_gds(str(layout))
+    _vias(layout, [(i * 0.11, j * 0.11) for i in range(20) for j in range(20)])
+    deck = tmp_path / "deck.toml"
+    deck.write_text(DECK_1)
+    report = tmp_path / "r.json"
+    code = main(["scan", str(layout), "--rules", str(deck), "--json", str(report)])
+    capsys.readouterr()
+    data = json.loads(report.read_text())
+    layer = data["summary"]["by_layer"]["via"]
+    assert (layer["edge_um"], layer["judged_um"], layer["judged_pct"]) == (96.0, 96.0, 100.0)
+    assert (layer["arrays"], layer["array_features"], layer["compact_not_in_array"]) == (1, 400, 0)
+    assert data["summary"]["notes"] == []
+    (f,) = data["findings"]
+    assert (f["severity"], f["check"], f["array"]["lattice"]) == (
+        "fail",
+        "unresolvable-pitch",
+        "square",
+    )
+    assert code == 1
+
+
+def test_vias_in_no_array_are_not_judged_and_say_so(tmp_path, capsys):
+    """Three vias microns apart form no array: their edges (4 x 60 nm each) are
+    counted and not judged, and the note says so."""
+    layout = tmp_path / "vias.gds"
+    _vias(layout, [(0.0, 0.0), (5.0, 0.0), (0.0, 7.0)])
     deck = tmp_path / "deck.toml"
     deck.write_text(DECK_1)
     report = tmp_path / "r.json"
@@ -82,7 +112,8 @@ def test_a_via_array_is_not_judged_and_says_so(tmp_path, capsys):
     assert "only 0 % of its edge length was judged" in out
     summary = json.loads(report.read_text())["summary"]
     layer = summary["by_layer"]["via"]
-    assert (layer["edge_um"], layer["judged_um"], layer["judged_pct"]) == (400 * 0.24, 0.0, 0.0)
+    assert (layer["edge_um"], layer["judged_um"], layer["judged_pct"]) == (3 * 0.24, 0.0, 0.0)
+    assert layer["compact_not_in_array"] == 3
     assert len(summary["notes"]) == 1 and summary["notes"][0].startswith("layer via:")
     assert code == 0  # nothing judged, nothing flagged: the note is what tells
 

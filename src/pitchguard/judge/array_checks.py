@@ -27,7 +27,8 @@ def array_violations(rule: LayerRule, lo: LatticeOrders, m: Metrics2D | None) ->
     out: list[Violation] = []
     lost = [d for d in lo.first if not d.resolved]
     if lost and not lo.resolved:
-        d = min(lost, key=lambda d: d.pitch_nm)
+        # The coarsest direction lost tells most: finer ones are lost with it.
+        d = max(lost, key=lambda d: d.pitch_nm)
         out.append(
             Violation(
                 "unresolvable-pitch",

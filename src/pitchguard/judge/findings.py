@@ -6,11 +6,27 @@ import math
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, fields
 from operator import attrgetter
+from typing import NamedTuple
 
 import numpy as np
 
 from pitchguard.deck import SEVERITIES
 from pitchguard.judge.checks import Violation
+
+
+class ArrayShape(NamedTuple):
+    """What a finding on an array of compact features adds (drawn nm, layout frame)."""
+
+    lattice: str  # square, rectangular, centred, hexagonal, oblique, row
+    a1_nm: tuple[float, float]  # shortest lattice vector
+    a2_nm: tuple[float, float]  # shortest one independent of it (NaN for a row)
+    feature_nm: tuple[float, float]  # w, h in the feature's frame
+    feature_angle_deg: float
+    features: int
+    columns: int  # along a1
+    rows: int  # along a2
+    orders: tuple[tuple[int, int], ...]  # (m, n) of a1, a2's reciprocal vectors passed
+    worst_angle_deg: float  # pitch direction of the worst lattice direction
 
 
 @dataclass(frozen=True, slots=True)
@@ -59,6 +75,8 @@ class Finding:
     cut_angle_deg: float = math.nan
     cut_origin_nm: tuple[float, float] = (math.nan, math.nan)
     threshold: float = math.nan
+    # Arrays of compact features (contacts, vias, posts): the lattice; None for lines.
+    array: ArrayShape | None = None
 
     @property
     def bbox_um(self) -> tuple[float, float, float, float]:

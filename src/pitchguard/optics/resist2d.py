@@ -3,9 +3,12 @@ compact features (contacts, vias, posts).
 
 The definitions are those of ``optics.resist`` carried to two axes: the
 printed size is read along x and along y through the feature centre (the
-same edge search, :func:`resist.cd_of_thresholds`), the exposure latitude
-is the dose range keeping *both* sizes within tolerance, and the depth of
-focus the longest focus span keeping that latitude at ``el_min_pct``.
+same edge search, :func:`resist.cd_of_thresholds`).  Exposure latitude and
+depth of focus are worked out per axis, each size around its own
+dose-to-size (a size the other axis misses at that dose is a bias OPC
+corrects; with an anchor it shows as ``cd-error``), and the smaller of the
+two axes is reported.  Depth of focus is the longest focus span keeping
+the latitude at ``el_min_pct``, its ends interpolated between focus samples.
 """
 
 from __future__ import annotations
@@ -42,8 +45,8 @@ class Metrics2D:
     size_error_y_pct: float
     missing: bool  # the feature's centre does not print (nominal threshold, best focus)
     merged: bool  # the printed feature connects to another feature or its own copy
-    el_pct: float  # at best focus, both sizes within tolerance
-    dof_nm: float  # at el_min_pct
+    el_pct: float  # at best focus, the smaller of the two axes'
+    dof_nm: float  # at el_min_pct, the smaller of the two axes'
     threshold: float  # nominal threshold (relative to the open frame)
     dose_to_size: float  # relative to the nominal dose: the x size on size (nan when never)
 
@@ -90,6 +93,33 @@ def _latitudes(lows: np.ndarray, highs: np.ndarray, t_size: float) -> np.ndarray
     hi = np.minimum.accumulate(np.where(upper, highs[None, :], np.inf), axis=1)
     el = np.maximum(0.0, 100.0 * (hi - lo) * t_size)
     return np.where(upper, el, -np.inf)
+
+
+def focus_span(fs: np.ndarray, lat: np.ndarray, el_min_pct: float) -> float:
+    """Longest focus span (sorted samples ``fs``) whose common latitude ``lat[i, j]``
+    (:func:`_latitudes`) stays at ``el_min_pct``, each end carried past its last
+    sample by linear interpolation of the latitude towards the next one (the
+    samples alone round the span down by up to two steps)."""
+    n = len(fs)
+    i, j = np.nonzero(lat >= el_min_pct)
+    if not len(i):
+        return 0.0
+    here = lat[i, j]
+    gap = np.diff(fs)
+
+    def beyond(go: np.ndarray, nxt: np.ndarray, step: np.ndarray) -> np.ndarray:
+        out = np.zeros(len(i))
+        h = here[go]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            frac = np.where(nxt < el_min_pct, (h - el_min_pct) / (h - nxt), 0.0)
+        out[go] = np.clip(frac, 0.0, 1.0) * step
+        return out
+
+    r = j + 1 < n
+    right = beyond(r, lat[i[r], j[r] + 1], gap[j[r]])
+    left_go = i >= 1
+    left = beyond(left_go, lat[i[left_go] - 1, j[left_go]], gap[i[left_go] - 1])
+    return float((fs[j] - fs[i] + right + left).max())
 
 
 def _joined(printed, x, y, centre, others) -> bool:
@@ -197,19 +227,22 @@ def evaluate_2d(
     t = np.linspace(float(images.min()), float(images.max()), THRESHOLD_SAMPLES)
     rows = images[:, iy, :]  # (F, nx): through the centre along x
     cols = images[:, :, ix]  # (F, ny): along y
-    lows = np.full(len(focus), np.nan)
-    highs = np.full(len(focus), np.nan)
-    sizes = []
+    # Per axis (0: x, 1: y), per focus: the dose window keeping that size within
+    # tolerance around its own dose-to-size (as OPC would size each axis).
+    lows = np.full((2, len(focus)), np.nan)
+    highs = np.full((2, len(focus)), np.nan)
+    sizes = np.full((2, len(focus)), np.nan)
     for f in range(len(focus)):
-        cdx = cd_of_thresholds(x, rows[f], xc, xlo, xhi, bright, t)
-        cdy = cd_of_thresholds(y, cols[f], yc, ylo, yhi, bright, t)
-        ok = (np.abs(cdx - wx) <= tol * wx) & (np.abs(cdy - wy) <= tol * wy)
-        t_f = _size_threshold(t, cdx, wx)
-        sizes.append(t_f)
-        ta, tb = _window(t, ok, t_f)
-        if math.isfinite(ta) and ta > 0:
-            lows[f], highs[f] = 1.0 / tb, 1.0 / ta
-    t_size = sizes[best]
+        cds = (
+            cd_of_thresholds(x, rows[f], xc, xlo, xhi, bright, t),
+            cd_of_thresholds(y, cols[f], yc, ylo, yhi, bright, t),
+        )
+        for a, (cd, w) in enumerate(zip(cds, (wx, wy), strict=True)):
+            sizes[a, f] = _size_threshold(t, cd, w)
+            ta, tb = _window(t, np.abs(cd - w) <= tol * w, sizes[a, f])
+            if math.isfinite(ta) and ta > 0:
+                lows[a, f], highs[a, f] = 1.0 / tb, 1.0 / ta
+    t_size = sizes[0, best]
 
     if nominal_threshold is None:
         t_nom = t_size if math.isfinite(t_size) else float(np.mean(i_e[:2]))
@@ -227,19 +260,17 @@ def evaluate_2d(
     missing = not bool(printed[iy, ix])  # as resist: the centre does not print
     merged = not missing and _joined(printed, x, y, (xc, yc), others)
 
-    if math.isfinite(t_size) and t_size > 0 and math.isfinite(lows[best]):
-        el = float(max(0.0, 100.0 * (highs[best] - lows[best]) * t_size))
-    else:
-        el = 0.0
-    dof = 0.0
-    if math.isfinite(t_size) and t_size > 0:
-        order = np.argsort(focus)
-        lo = np.where(np.isfinite(lows[order]), lows[order], np.inf)
-        hi = np.where(np.isfinite(highs[order]), highs[order], -np.inf)
-        lat = _latitudes(lo, hi, t_size)
-        fs = focus[order]
-        span = np.where(lat >= el_min_pct, fs[None, :] - fs[:, None], 0.0)
-        dof = float(span.max()) if span.size else 0.0
+    el, dof = math.inf, math.inf
+    order = np.argsort(focus)
+    for a in range(2):
+        t_a = sizes[a, best]
+        if not (math.isfinite(t_a) and t_a > 0 and math.isfinite(lows[a, best])):
+            el = dof = 0.0
+            break
+        el = min(el, float(max(0.0, 100.0 * (highs[a, best] - lows[a, best]) * t_a)))
+        lo = np.where(np.isfinite(lows[a, order]), lows[a, order], np.inf)
+        hi = np.where(np.isfinite(highs[a, order]), highs[a, order], -np.inf)
+        dof = min(dof, focus_span(focus[order], _latitudes(lo, hi, t_a), el_min_pct))
     dts = t_nom / t_size if (math.isfinite(t_size) and t_size > 0) else math.nan
     # Python floats: metrics travel between processes (see resist.evaluate).
     return Metrics2D(

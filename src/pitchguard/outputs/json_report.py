@@ -99,6 +99,23 @@ def finding_to_dict(f: Finding, holes: bool = False) -> dict:
         if f.cut_bounds_nm
         else None,
         "checks": [violation_to_dict(v) for v in f.violations],
+        "array": array_to_dict(f.array) if f.array is not None else None,
+    }
+
+
+def array_to_dict(a) -> dict:
+    """The lattice of a finding on an array of compact features (drawn nm)."""
+    return {
+        "lattice": a.lattice,
+        "a1_nm": json_numbers(a.a1_nm),
+        "a2_nm": json_numbers(a.a2_nm),
+        "feature_nm": json_numbers(a.feature_nm),
+        "feature_angle_deg": json_number(a.feature_angle_deg),
+        "features": int(a.features),
+        "columns": int(a.columns),
+        "rows": int(a.rows),
+        "orders": [[int(m), int(n)] for m, n in a.orders],
+        "worst_direction_deg": json_number(a.worst_angle_deg),
     }
 
 

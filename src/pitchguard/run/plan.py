@@ -64,8 +64,19 @@ class Structure:
 
 
 def tile_halo_nm(deck: Deck) -> float:
+    """Shapes read around a tile: what its sites' cuts and probes reach, and what the
+    lattices of its compact features depend on (geometry.lattice.lattice_sites)."""
+    from pitchguard.geometry.lattice import HALO_RANGES, SQRT2
+
     scale = deck.scale_to_wafer
-    return max((2 * r.interaction_range_nm + r.min_run_nm) / scale for r in deck.layers)
+    return max(
+        max(
+            2 * r.interaction_range_nm + r.min_run_nm,
+            HALO_RANGES * r.interaction_range_nm + 2 * SQRT2 * r.compact_max_nm,
+        )
+        / scale
+        for r in deck.layers
+    )
 
 
 def clip_extent(extent, region):

@@ -12,7 +12,16 @@ import numpy as np
 from pitchguard.deck import Deck
 from pitchguard.geometry.cuts import site_cuts
 from pitchguard.geometry.features import build_features
+from pitchguard.geometry.lattice import (
+    HALO_RANGES,
+    SQRT2,
+    compact_features,
+    find_arrays,
+    lattice_sites,
+    points_on_features,
+)
 from pitchguard.geometry.sites import ExtractStats, find_sites, in_region
+from pitchguard.judge.arrays import ArrayVerdicts, judge_arrays
 from pitchguard.judge.findings import Finding
 from pitchguard.judge.order import sort_findings
 from pitchguard.judge.regions import Region
@@ -40,6 +49,9 @@ class LayerStats:
     # Tiles only: the distinct cuts imaged (cut, source turn), so that a tiled
     # scan can count the distinct cuts of the whole layout.
     cut_keys: frozenset = frozenset()
+    # Tiles only: the lattice sites of the compact features the tile owns; the
+    # caller joins them and judges the arrays they form (run.arrays).
+    lattice: object = None
 
 
 @dataclass
@@ -104,6 +116,25 @@ def scan_polygons(
             # A shape counts where the centre of its box lies: once over a tiling.
             bb = ps.bounding_boxes()
             ex.shapes = int(in_region(0.5 * (bb[:, :2] + bb[:, 2:]), region_nm).sum())
+        # Compact features (contacts, vias, posts, short lines): judged as 2-D
+        # patterns (arrays), so their own edges are no 1-D sites.
+        compact_max = rule.compact_max_nm / scale
+        margin = HALO_RANGES * reach + 2.0 * SQRT2 * compact_max
+        near = _in_region(
+            polygons.get((rule.layer, rule.datatype), PolygonSet.empty()), region_nm, margin
+        )
+        compact = compact_features(near, grid_nm, compact_max)
+        lattice = lattice_sites(
+            near, grid_nm, compact_max, reach, region=region_nm, compact=compact
+        )
+        if len(compact) and len(sites):
+            mid = sites.origin + sites.direction * (0.5 * (sites.u0 + sites.u1))[:, None]
+            inward = mid - sites.normal * (0.25 * grid_nm)
+            on = points_on_features(inward, compact.features, 0.5 * grid_nm)
+            if on.any():
+                sites = sites.take(np.flatnonzero(~on))
+                ex.sites -= int(on.sum())
+                ex.extra["compact_sites"] = int(on.sum())
         tick(f"{rule.name}: images", 3 * k + 2)
         metrics, which_cut, cuts, angles = None, None, None, None
         cut_keys: frozenset = frozenset()
@@ -144,6 +175,10 @@ def scan_polygons(
         if which_cut is not None:
             judged |= which_cut >= 0
         ex.judged_nm = float((sites.u1 - sites.u0)[judged].sum())
+        if not tile:
+            verdicts = judge_arrays(find_arrays(lattice), rule, scale)
+            regions.extend(Region(f) for f in verdicts.findings)
+            add_array_counts(ex, verdicts)
         regions.extend(
             classify_layer(
                 sites,
@@ -159,10 +194,29 @@ def scan_polygons(
             )
         )
         stats.append(
-            LayerStats(rule.name, rule.source, ex.shapes, ex, time.perf_counter() - t0, cut_keys)
+            LayerStats(
+                rule.name,
+                rule.source,
+                ex.shapes,
+                ex,
+                time.perf_counter() - t0,
+                cut_keys,
+                lattice if tile else None,
+            )
         )
     tick("done", total)
     return regions, stats
+
+
+def add_array_counts(ex: ExtractStats, v: ArrayVerdicts) -> None:
+    """Count what the arrays of a layer gave into its stats; their members' edges
+    are judged."""
+    ex.judged_nm += v.judged_nm
+    ex.extra["arrays"] = ex.extra.get("arrays", 0) + v.arrays
+    ex.extra["array_features"] = ex.extra.get("array_features", 0) + v.members
+    ex.extra["compact_not_in_array"] = ex.extra.get("compact_not_in_array", 0) + v.isolated
+    if v.orders_only:
+        ex.extra["arrays_orders_only"] = ex.extra.get("arrays_orders_only", 0) + v.orders_only
 
 
 def require_layers(

@@ -11,6 +11,7 @@ from pitchguard.geometry.sites import ExtractStats
 from pitchguard.judge.findings import FindingSet, replaced
 from pitchguard.judge.order import sort_findings
 from pitchguard.layout.reader import Layout
+from pitchguard.run.arrays import tiled_arrays, with_findings
 from pitchguard.run.engine import WorkerPool
 from pitchguard.run.merge import TileAssembly
 from pitchguard.run.plan import (
@@ -23,7 +24,7 @@ from pitchguard.run.plan import (
     tile_shape_limit,
     tiles_for,
 )
-from pitchguard.run.scan import LayerStats, ScanResult, require_layers
+from pitchguard.run.scan import LayerStats, ScanResult, add_array_counts, require_layers
 from pitchguard.run.tasks import hints_task, keys_task, structure_task, tile_task
 
 KEY_CHUNKS = 16
@@ -58,6 +59,7 @@ def preload_for_fork() -> None:
     import numpy.ma  # noqa: F401
     import threadpoolctl  # noqa: F401
 
+    import pitchguard.geometry.lattice
     import pitchguard.layout.hierarchy  # noqa: F401
 
 
@@ -149,6 +151,10 @@ def scan_tiled(
         }
     findings = with_hints(assembled.findings, assembled.hint_keys, run.texts)
     stats = sum_stats(deck, assembled.per_group)
+    verdicts = tiled_arrays(deck, assembly)
+    for s, v in zip(stats, verdicts, strict=True):
+        add_array_counts(s.extract, v)
+    findings = with_findings(findings, [f for v in verdicts for f in v.findings])
     if ordered:
         findings = sort_findings(findings)
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})

@@ -125,6 +125,8 @@ from pitchguard.geometry.lattice.common import (  # noqa: F401
 from pitchguard.geometry.lattice.compact import (  # noqa: F401
     compact_features,
     compact_features_plain,
+    points_on_features,
+    points_on_features_plain,
 )
 from pitchguard.geometry.lattice.neighbours import (  # noqa: F401
     STEP_CHUNK,

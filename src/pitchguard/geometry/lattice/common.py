@@ -6,8 +6,10 @@ import math
 
 import numpy as np
 
-TOL_GRID = 2.0
-"""Default tolerance in database grid steps (snapping noise of centroids)."""
+TOL_GRID = 3.0
+"""Default tolerance in database grid steps: a snapped, rotated shape's centroid moves
+by up to half a step per axis, so a vector between two by one, and two such vectors
+differ by up to two steps per axis (2.8 in length)."""
 
 HALO_RANGES = 2
 """A tile's values equal the whole layout's when it reads shapes this many

@@ -294,3 +294,35 @@ def compact_features_plain(
     rings = _ring_counts(a, b, np.searchsorted(present, f), len(present), grid_nm)
     keep = np.all(cols.size < max_extent_nm, axis=1) & man & (rings == 1) & (cols.area > 0)
     return cols.take(np.flatnonzero(keep))
+
+
+def points_on_features(points: np.ndarray, f: FeatureColumns, tol: float) -> np.ndarray:
+    """Per point: whether it lies in (or within ``tol`` of) the frame rectangle of
+    one of the features ``f``; candidates from an R-tree of their boxes."""
+    out = np.zeros(len(points), dtype=bool)
+    if not len(points) or not len(f):
+        return out
+    index = build_rtree(f.bbox[:, :2] - tol, f.bbox[:, 2:] + tol)
+    q, hit = query_pairs(index, points, points)
+    t = np.radians(f.angle_deg[hit])
+    d = points[q] - f.centre[hit]
+    du = d[:, 0] * np.cos(t) + d[:, 1] * np.sin(t)
+    dv = -d[:, 0] * np.sin(t) + d[:, 1] * np.cos(t)
+    inside = (np.abs(du) <= 0.5 * f.size[hit, 0] + tol) & (np.abs(dv) <= 0.5 * f.size[hit, 1] + tol)
+    out[q[inside]] = True
+    return out
+
+
+def points_on_features_plain(points: np.ndarray, f: FeatureColumns, tol: float) -> np.ndarray:
+    """Plain twin of :func:`points_on_features`: every point against every feature."""
+    out = np.zeros(len(points), dtype=bool)
+    for i, p in enumerate(np.asarray(points, dtype=np.float64)):
+        for k in range(len(f)):
+            t = np.radians(f.angle_deg[k])
+            d = p - f.centre[k]
+            du = d[0] * np.cos(t) + d[1] * np.sin(t)
+            dv = -d[0] * np.sin(t) + d[1] * np.cos(t)
+            if abs(du) <= 0.5 * f.size[k, 0] + tol and abs(dv) <= 0.5 * f.size[k, 1] + tol:
+                out[i] = True
+                break
+    return out

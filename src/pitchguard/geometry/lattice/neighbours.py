@@ -435,6 +435,14 @@ def lattice_sites(
     r1, r2, _, pi, pj = search(f, interaction_range_nm, grid_nm, tol)
     rep, bid = dedupe_rows(np.hstack([r1, r2]))
     ua1, ua2, _ = reduced_basis(r1[rep], r2[rep], tol)
+    # Round a feature inside a lattice its nearest neighbours are a reduced basis.
+    # A basis that reduces to shorter vectors implies sites nobody occupies (four
+    # contacts in a zigzag, or the last column beside another array): such a
+    # feature confirms no lattice; it may still join a neighbouring array's.
+    with np.errstate(invalid="ignore"):
+        short = (row_norm(ua1) < row_norm(r1[rep]) - tol) | (
+            row_norm(ua2) < row_norm(r2[rep]) - tol
+        )
     ucls = lattice_class(ua1, ua2, tol)
     uline = ucls == ROW
     a1, a2, cls = ua1[bid], ua2[bid], ucls[bid]
@@ -447,6 +455,7 @@ def lattice_sites(
     code_j = step_code(table, bj[cand], -v[cand], tol)
     cand, code_j = cand[code_j >= 0], code_j[code_j >= 0]
     core = _confirmed(len(f), pi[cand], code_i[cand], pj[cand], code_j, cls == ROW)
+    core &= ~short[bid]
     core_pair = np.zeros(len(pi), dtype=bool)
     core_pair[cand] = core[pi[cand]] & core[pj[cand]]
     # Features that are not core keep their same-shape neighbours, from both ends: a

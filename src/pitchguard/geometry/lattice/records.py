@@ -10,6 +10,7 @@ import numpy as np
 
 from pitchguard.geometry.lattice.common import (
     INTERIOR,
+    KEY_STEPS,
     LATTICE_NAMES,
     REASON_NAMES,
     convex_hull,
@@ -112,6 +113,37 @@ class LatticeSites:
 
     def __len__(self) -> int:
         return len(self.features)
+
+    def shifted(self, dx: float, dy: float) -> LatticeSites:
+        """The same sites moved by ``(dx, dy)`` nm, a whole number of key steps
+        (``grid_nm / KEY_STEPS``; tiles of one content group are): coordinates
+        and the keys that name linked features move together."""
+        step = self.grid_nm / KEY_STEPS
+        qx, qy = round(dx / step), round(dy / step)
+        if abs(qx * step - dx) > 1e-6 * step or abs(qy * step - dy) > 1e-6 * step:
+            raise ValueError(f"shift ({dx}, {dy}) nm is not a whole number of key steps")
+        if dx == 0.0 and dy == 0.0:
+            return self
+        f = self.features
+        d2 = np.array([dx, dy])
+        moved = FeatureColumns(
+            f.centroid + d2, f.size, f.angle_deg, f.area, f.bbox + np.tile(d2, 2), f.centre + d2
+        )
+        dkey = (qx << 32) + qy
+        return LatticeSites(
+            moved,
+            self.a1,
+            self.a2,
+            self.lattice,
+            self.core,
+            self.link_from,
+            self.link_to + dkey,
+            self.near_from,
+            self.near_to + dkey,
+            self.grid_nm,
+            self.tol_nm,
+            self.range_nm,
+        )
 
     @classmethod
     def joined(cls, parts: list[LatticeSites]) -> LatticeSites:

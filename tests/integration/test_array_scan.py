@@ -1,0 +1,119 @@
+"""Arrays of contacts and vias in scans: found through the hierarchy, judged by
+their lattice, the same whole and tiled, in GDSII and OASIS.
+
+Check values (arithmetic on published formulas):
+
+* The deck is dry ArF, NA 0.93, conventional sigma 0.8, binary mask.  The
+  smallest pitch it images along a lattice direction is lambda / (NA (1 +
+  sigma)) = 193 / (0.93 x 1.8) = 115.3 nm; a square lattice's first orders
+  (1, 0) and (0, 1) sit at 1 / p, so a square array below 115.3 nm images
+  no 2-D pattern (tests/unit/test_lattice_orders.py holds the 2-D cases).
+* 60 nm holes at 110 nm, in any orientation, and a 110 x 300 nm rectangular
+  lattice (its 110 nm direction lost: the holes merge into lines) fail.
+* 150 nm holes at 300 nm (2.6 times the cutoff) are relaxed: no risk or fail.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import gdstk
+import pytest
+
+from decks import DRY_ARF_CUTOFF_NM, DRY_ARF_DECK
+from pitchguard.cli import main
+
+DECK = DRY_ARF_DECK.replace('"clear"', '"dark"')
+
+# name, hole (um), spacing (um), rotation (deg), origin (um), columns, rows
+ARRAYS = (
+    ("square", 0.06, (0.11, 0.11), 0.0, (0.0, 0.0), 20, 20),
+    ("rectangular", 0.06, (0.11, 0.30), 0.0, (0.0, 8.0), 30, 10),
+    ("turned", 0.06, (0.11, 0.11), 30.0, (12.0, 0.0), 15, 15),
+    ("relaxed", 0.15, (0.30, 0.30), 0.0, (5.0, 12.0), 12, 12),
+    ("relaxed-turned", 0.15, (0.30, 0.30), 45.0, (20.0, 12.0), 8, 8),
+)
+BELOW = {"square", "rectangular", "turned"}
+
+
+def _layout(path) -> None:
+    """Each array as one arrayed reference of a one-hole cell."""
+    lib = gdstk.Library(unit=1e-6, precision=1e-9)
+    top = lib.new_cell("TOP")
+    for name, hole, (sx, sy), rot, origin, cols, rows in ARRAYS:
+        cell = lib.new_cell(f"HOLE_{name}")
+        cell.add(gdstk.rectangle((-hole / 2, -hole / 2), (hole / 2, hole / 2), layer=7))
+        top.add(
+            gdstk.Reference(
+                cell, origin, rotation=math.radians(rot), columns=cols, rows=rows, spacing=(sx, sy)
+            )
+        )
+    if str(path).endswith(".oas"):
+        lib.write_oas(str(path))
+    else:
+        lib.write_gds(str(path))
+
+
+def _scan(tmp_path, layout, *extra) -> tuple[int, dict]:
+    deck = tmp_path / "deck.toml"
+    deck.write_text(DECK)
+    out = tmp_path / f"r{len(list(tmp_path.iterdir()))}.json"
+    code = main(["scan", str(layout), "--rules", str(deck), "--json", str(out), "-q", *extra])
+    return code, json.loads(out.read_text())
+
+
+def _array_at(findings, origin_um):
+    """The finding whose box holds the array's first hole."""
+    x, y = origin_um
+    hits = [
+        f
+        for f in findings
+        if f["bbox_um"][0] - 0.2 <= x <= f["bbox_um"][2] + 0.2
+        and f["bbox_um"][1] - 0.2 <= y <= f["bbox_um"][3] + 0.2
+    ]
+    return hits
+
+
+@pytest.mark.parametrize("suffix", [".gds", ".oas"])
+def test_arrays_below_the_cutoff_fail_and_relaxed_ones_pass(tmp_path, suffix):
+    layout = tmp_path / f"holes{suffix}"
+    _layout(layout)
+    code, data = _scan(tmp_path, layout, "--untiled")
+    findings = data["findings"]
+    for name, _, _, _, origin, cols, rows in ARRAYS:
+        hits = _array_at(findings, origin)
+        if name in BELOW:
+            assert len(hits) == 1, name
+            f = hits[0]
+            assert (f["severity"], f["check"]) == ("fail", "unresolvable-pitch"), name
+            assert f["array"]["features"] == cols * rows
+            assert f["cutoff_pitch_nm"] == pytest.approx(DRY_ARF_CUTOFF_NM, abs=0.01)
+            assert min(f["array"]["columns"], f["array"]["rows"]) == min(cols, rows)
+        else:
+            assert all(f["severity"] not in ("fail", "risk") for f in hits), name
+    assert data["findings"][0]["array"]["lattice"] in ("square", "rectangular")
+    kinds = {f["array"]["lattice"] for f in findings if f["severity"] == "fail"}
+    assert kinds == {"square", "rectangular"}
+    layer = data["summary"]["by_layer"]["poly"]
+    assert layer["arrays"] == len(ARRAYS)
+    assert layer["compact_not_in_array"] == 0
+    assert layer["judged_pct"] == 100.0
+    assert code == 1
+
+
+def test_tiled_scan_finds_the_same_arrays_as_the_whole_one(tmp_path):
+    """Tiles of 2.5 um cut every array; reused tiles (the interiors of the
+    square arrays) are judged from shifted lattice sites."""
+    layout = tmp_path / "holes.gds"
+    _layout(layout)
+    _, whole = _scan(tmp_path, layout, "--untiled")
+    for extra in (("--tile-um", "2.5"), ("--tile-um", "2.5", "--jobs", "2")):
+        _, tiled = _scan(tmp_path, layout, *extra)
+        assert tiled["summary"]["tiling"]["tiles"] > 10
+        assert tiled["findings"] == whole["findings"]
+        for key in ("arrays", "array_features", "judged_um", "edge_um"):
+            assert (
+                tiled["summary"]["by_layer"]["poly"][key]
+                == whole["summary"]["by_layer"]["poly"][key]
+            )
