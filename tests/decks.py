@@ -109,6 +109,31 @@ SKY130_QUADRUPOLE_DECK = (
     )
     + _SKY130_LAYERS_TOML
 )
+# The contact and via layers of the same cells (licon1 66/44, mcon 67/44, via 68/44,
+# via2 69/44: the PDK's layer map), holes on dark-field masks, printed with a
+# small conventional source (sigma 0.4) and a 6 % attenuated PSM on the same KrF
+# NA 0.8 scanner: a usual set-up for contact layers (common practice, from memory).
+SKY130_CONTACT_LAYERS = (
+    ("licon1", "66/44"),
+    ("mcon", "67/44"),
+    ("via", "68/44"),
+    ("via2", "69/44"),
+)
+SKY130_CONTACT_DECK = textwrap.dedent(
+    """
+    [deck]
+    name = "sky130-krf-contacts"
+
+    [exposures.krf_holes]
+    wavelength_nm = 248.0
+    na = 0.8
+    illumination = { shape = "conventional", sigma = 0.4 }
+    mask = { kind = "attenuated", transmission = 0.06 }
+    """
+) + "".join(
+    f'\n[[layers]]\nname = "{name}"\nsource = "{src}"\nexposure = "krf_holes"\nfield = "dark"\n'
+    for name, src in SKY130_CONTACT_LAYERS
+)
 SKY130_CELLS = REPO / "tests" / "fixtures" / "sky130"
 
 

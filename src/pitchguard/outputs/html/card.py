@@ -75,8 +75,46 @@ def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
             ),
         ),
     ]
+    if f.array is not None:
+        rows = _array_rows(f, rows)
     body = "".join(f"<tr><th>{esc(k)}</th><td>{v}</td></tr>" for k, v in rows)
     return f'<h3>Numbers (worst site)</h3><table class="numbers">{body}</table>'
+
+
+_LINE_ROWS = (
+    "width / space (drawn)",
+    "diffraction orders captured",
+    "lines, sites",
+    "line direction",
+    "worst line",
+)
+
+
+def _array_rows(f: Finding, rows: list) -> list:
+    """The numbers of an array finding: its lattice in place of the line rows."""
+    a = f.array
+    keep = [(k, v) for k, v in rows if not k.endswith(_LINE_ROWS)]
+    w, h = a.feature_nm
+    vec = "({:.1f}, {:.1f}) nm"
+    lattice = f"{esc(a.lattice)}: a1 = {vec.format(*a.a1_nm)}"
+    if a.lattice != "row":
+        lattice += f", a2 = {vec.format(*a.a2_nm)}"
+    extra = [
+        ("lattice (drawn)", lattice),
+        (
+            "feature (drawn)",
+            f"{html_number(w)} x {html_number(h)} nm, edges at {degrees_text(a.feature_angle_deg)}",
+        ),
+        ("features", f"{a.features} ({a.columns} x {a.rows} lattice sites)"),
+        (
+            "diffraction orders captured",
+            f"{len(a.orders)} orders (m, n) through the pupil "
+            f"<span class='note'>(worst direction: pitch at {degrees_text(a.worst_angle_deg)}; "
+            f"two-beam source fraction {f.two_beam_fraction:.0%})</span>",
+        ),
+        ("judged on", "the array's periodic unit cell (its interior)"),
+    ]
+    return keep[:1] + extra + keep[1:]
 
 
 def _printed_cd(f: Finding, scale: float) -> str:
@@ -146,12 +184,23 @@ def _group_title(g: Group, rule: LayerRule | None) -> str:
     fw = feature_word(rule)
     n = len(g.findings)
     cx, cy = f.centre_um
+    if f.array is not None:
+        w, h = f.array.feature_nm
+        meta = (
+            f"{esc(f.array.lattice)} lattice {f.pitch_nm:.1f} x {f.pitch_max_nm:.1f} nm, "
+            f"{html_number(w)} x {html_number(h)} nm features, k1 {f.k1:.3f}"
+        )
+    else:
+        meta = (
+            f"pitch {f.pitch_nm:.1f} nm, {fw} {html_number(f.width_nm)} / space "
+            f"{html_number(f.space_nm)} nm, k1 {f.k1:.3f}, lines at "
+            f"{degrees_text(f.orientation_deg)}"
+            f"{', ' + esc(f.context) + ' line' if f.context else ''}"
+        )
     return (
         f'<span class="sev {attr_text(f.severity)}">{esc(f.severity)}</span>'
         f'<span class="what">{esc(f.layer)} · {esc(f.check)}</span>'
-        f'<span class="meta">pitch {f.pitch_nm:.1f} nm, {fw} {html_number(f.width_nm)} / space '
-        f"{html_number(f.space_nm)} nm, k1 {f.k1:.3f}, lines at {degrees_text(f.orientation_deg)}"
-        f"{', ' + esc(f.context) + ' line' if f.context else ''}</span>"
+        f'<span class="meta">{meta}</span>'
         f'<span class="count">{n} location{"s" if n != 1 else ""} · '
         f"{'first ' if n > 1 else ''}at ({cx:.3f}, {cy:.3f}) µm</span>"
     )

@@ -40,6 +40,10 @@ def group_key(f: Finding) -> tuple:
         group_number(f.space_nm),
         group_number(f.orientation_deg % 180.0),
         f.context,
+        # Arrays: the lattice (the pitches above are |a1| and the feature's width).
+        (f.array.lattice, group_number(f.pitch_max_nm), group_number(f.array.feature_nm[1]))
+        if f.array is not None
+        else None,
     )
 
 

@@ -170,10 +170,13 @@ def draw_layout(
     cap = (
         f"Dark: the region's drawn {fw}s (dashed outline); grey: neighbours within the "
         f"optical interaction range ({rule.interaction_range_nm:.0f} nm, wafer; dotted); "
-        "pale: farther shapes. "
-        "Arrow: the cut through the worst edge (circle), ±range, pointing along +x of "
-        "the image plot."
+        "pale: farther shapes."
     )
+    if has_cut:
+        cap += (
+            " Arrow: the cut through the worst edge (circle), ±range, pointing along +x of "
+            "the image plot."
+        )
     if clamped:
         cap += (
             f" The region ({(x1 - x0) / 1000:.2f} × {(y1 - y0) / 1000:.2f} µm) is "
