@@ -56,58 +56,48 @@ BENCH_DECK = textwrap.dedent(
 # attenuated PSM: common practice for that node, from memory) and a weak one
 # (NA 0.7, conventional sigma 0.6, binary), which flags the tightest pitches.
 SKY130_LAYERS = (("poly", "66/20"), ("li1", "67/20"), ("met1", "68/20"), ("met2", "69/20"))
-_SKY130_LAYERS_TOML = "".join(
-    f'\n[[layers]]\nname = "{name}"\nsource = "{src}"\nexposure = "krf"\nfield = "clear"\n'
-    for name, src in SKY130_LAYERS
-)
-SKY130_CAPABLE_DECK = (
-    textwrap.dedent(
-        """
-        [deck]
-        name = "sky130-krf-capable"
+ATT_PSM = '{ kind = "attenuated", transmission = 0.06 }'
 
-        [exposures.krf]
-        wavelength_nm = 248.0
-        na = 0.8
-        illumination = { shape = "annular", sigma_inner = 0.55, sigma_outer = 0.85 }
-        mask = { kind = "attenuated", transmission = 0.06 }
-        """
-    )
-    + _SKY130_LAYERS_TOML
-)
-SKY130_WEAK_DECK = (
-    textwrap.dedent(
-        """
-        [deck]
-        name = "sky130-krf-weak"
 
-        [exposures.krf]
-        wavelength_nm = 248.0
-        na = 0.7
-        illumination = { shape = "conventional", sigma = 0.6 }
-        mask = { kind = "binary" }
-        """
+def _krf_deck(name: str, na: float, illumination: str, mask: str, layers, field: str) -> str:
+    """A deck with one KrF exposure (248 nm) for ``layers`` ((name, source) pairs)."""
+    head = (
+        f'[deck]\nname = "{name}"\n\n[exposures.krf]\nwavelength_nm = 248.0\nna = {na}\n'
+        f"illumination = {illumination}\nmask = {mask}\n"
     )
-    + _SKY130_LAYERS_TOML
+    return head + "".join(
+        f'\n[[layers]]\nname = "{n}"\nsource = "{src}"\nexposure = "krf"\nfield = "{field}"\n'
+        for n, src in layers
+    )
+
+
+SKY130_CAPABLE_DECK = _krf_deck(
+    "sky130-krf-capable",
+    0.8,
+    '{ shape = "annular", sigma_inner = 0.55, sigma_outer = 0.85 }',
+    ATT_PSM,
+    SKY130_LAYERS,
+    "clear",
+)
+SKY130_WEAK_DECK = _krf_deck(
+    "sky130-krf-weak",
+    0.7,
+    '{ shape = "conventional", sigma = 0.6 }',
+    '{ kind = "binary" }',
+    SKY130_LAYERS,
+    "clear",
 )
 # A KrF scanner with a diagonal quadrupole (NA 0.75, poles 0.55-0.85 of 30
 # degrees, 6 % attenuated PSM): it images dense lines well and semi-isolated
 # spaces poorly, the forbidden pitches of off-axis illumination (common
 # practice).
-SKY130_QUADRUPOLE_DECK = (
-    textwrap.dedent(
-        """
-        [deck]
-        name = "sky130-krf-quadrupole"
-
-        [exposures.krf]
-        wavelength_nm = 248.0
-        na = 0.75
-        illumination = { shape = "quadrupole", sigma_inner = 0.55, sigma_outer = 0.85, opening_deg = 30.0 }
-        mask = { kind = "attenuated", transmission = 0.06 }
-        """
-    )
-    + _SKY130_LAYERS_TOML
+SKY130_QUADRUPOLE_DECK = _krf_deck(
+    "sky130-krf-quadrupole",
+    0.75,
+    '{ shape = "quadrupole", sigma_inner = 0.55, sigma_outer = 0.85, opening_deg = 30.0 }',
+    ATT_PSM,
+    SKY130_LAYERS,
+    "clear",
 )
 # The contact and via layers of the same cells (licon1 66/44, mcon 67/44, via 68/44,
 # via2 69/44: the PDK's layer map), holes on dark-field masks, printed with a
@@ -119,20 +109,13 @@ SKY130_CONTACT_LAYERS = (
     ("via", "68/44"),
     ("via2", "69/44"),
 )
-SKY130_CONTACT_DECK = textwrap.dedent(
-    """
-    [deck]
-    name = "sky130-krf-contacts"
-
-    [exposures.krf_holes]
-    wavelength_nm = 248.0
-    na = 0.8
-    illumination = { shape = "conventional", sigma = 0.4 }
-    mask = { kind = "attenuated", transmission = 0.06 }
-    """
-) + "".join(
-    f'\n[[layers]]\nname = "{name}"\nsource = "{src}"\nexposure = "krf_holes"\nfield = "dark"\n'
-    for name, src in SKY130_CONTACT_LAYERS
+SKY130_CONTACT_DECK = _krf_deck(
+    "sky130-krf-contacts",
+    0.8,
+    '{ shape = "conventional", sigma = 0.4 }',
+    ATT_PSM,
+    SKY130_CONTACT_LAYERS,
+    "dark",
 )
 SKY130_CELLS = REPO / "tests" / "fixtures" / "sky130"
 
