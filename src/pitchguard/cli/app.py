@@ -34,7 +34,7 @@ def main(argv: list[str] | None = None) -> int:
     # numpy asks the kernel for huge pages for every array of 4 MB or more; a
     # scan makes and drops such arrays by the thousand, and where the kernel
     # compacts memory to find huge pages that costs more than it saves (see
-    # DEVELOPERS.md, "Performance").  numpy reads the variable when it is first
+    # DEVELOPERS.md).  numpy reads the variable when it is first
     # imported, which the command does after this; a value the user set is kept.
     os.environ.setdefault("NUMPY_MADVISE_HUGEPAGE", "0")
     install_fork_hooks()

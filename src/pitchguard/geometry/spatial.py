@@ -75,7 +75,7 @@ def query_pairs_batched(index, item_lo, item_hi, mins, maxs) -> tuple[np.ndarray
     """:func:`query_pairs` for many boxes in rows, at a fraction of the cost.
 
     An R-tree query has a fixed cost many times that of each item it finds
-    (see DEVELOPERS.md, "Performance").  The boxes of an array's edges and
+    (see docs/performance.md).  The boxes of an array's edges and
     cuts come in rows: the same extent in y (or x), one after another in x
     (or y).  Up to
     :data:`BATCH_MAX` such neighbours are queried as one box covering them
