@@ -165,13 +165,7 @@ def cmd_probe(args) -> int:
         for k, v in rows:
             console.print(f"  {k:<28} {v}")
     console.print()
-    if r.violations:
-        for v in r.violations:
-            console.print(f"  [bold]{v.severity}[/] {v.check}: {v.message}")
-    else:
-        console.print("  ok: no limit of this layer is broken")
-    console.print(f"[dim]{CAUTION}[/]")
-    return EXIT_OK
+    return _print_verdict(console, r.violations)
 
 
 def cmd_sweep(args) -> int:
@@ -347,8 +341,15 @@ def _probe_array(args, rule) -> int:
     ):
         console.print(f"  {k:<28} {v}")
     console.print()
-    if r.violations:
-        for v in r.violations:
+    return _print_verdict(console, r.violations)
+
+
+def _print_verdict(console, violations) -> int:
+    """Each broken limit (or "ok") and the screening caution; the exit code."""
+    from pitchguard.outputs.verdict import CAUTION
+
+    if violations:
+        for v in violations:
             console.print(f"  [bold]{v.severity}[/] {v.check}: {v.message}")
     else:
         console.print("  ok: no limit of this layer is broken")

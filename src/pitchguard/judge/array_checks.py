@@ -16,6 +16,7 @@ from pitchguard.judge.checks import (
     NILS_BANDS,
     Violation,
     band_violation,
+    printing_violations,
     window_violations,
 )
 from pitchguard.optics.lattice_orders import LatticeOrders
@@ -41,27 +42,7 @@ def array_violations(rule: LayerRule, lo: LatticeOrders, m: Metrics2D | None) ->
             )
         )
     if m is not None:
-        if m.missing:
-            out.append(
-                Violation(
-                    "feature-not-printed",
-                    "fail",
-                    m.contrast,
-                    0.0,
-                    f"the feature does not print at best focus and nominal dose "
-                    f"(image contrast {m.contrast:.3f})",
-                )
-            )
-        elif m.merged:
-            out.append(
-                Violation(
-                    "features-bridged",
-                    "fail",
-                    m.contrast,
-                    0.0,
-                    "the printed feature joins its neighbours at best focus and nominal dose",
-                )
-            )
+        out.extend(printing_violations(m.missing, m.merged, m.contrast, "joins its neighbours"))
     v = band_violation(
         rule,
         "low-k1",

@@ -95,27 +95,7 @@ def violations(
         )
     m = metrics
     if m is not None:
-        if m.lost:
-            out.append(
-                Violation(
-                    "feature-not-printed",
-                    "fail",
-                    m.contrast,
-                    0.0,
-                    f"the feature does not print at best focus and nominal dose "
-                    f"(image contrast {m.contrast:.3f})",
-                )
-            )
-        elif m.bridged:
-            out.append(
-                Violation(
-                    "features-bridged",
-                    "fail",
-                    m.contrast,
-                    0.0,
-                    "the printed feature runs into its neighbour at best focus and nominal dose",
-                )
-            )
+        out.extend(printing_violations(m.lost, m.bridged, m.contrast, "runs into its neighbour"))
     if math.isfinite(pitch_wafer):
         v = band_violation(
             rule,
@@ -153,6 +133,33 @@ def violations(
             )
     out.sort(key=lambda v: SEVERITIES.index(v.severity))
     return out
+
+
+def printing_violations(lost: bool, joined: bool, contrast: float, how: str) -> list[Violation]:
+    """The fails of a feature that does not print (``lost``) or prints into its
+    neighbour (``joined``: the printed feature ``how``), at best focus and nominal dose."""
+    if lost:
+        return [
+            Violation(
+                "feature-not-printed",
+                "fail",
+                contrast,
+                0.0,
+                f"the feature does not print at best focus and nominal dose "
+                f"(image contrast {contrast:.3f})",
+            )
+        ]
+    if joined:
+        return [
+            Violation(
+                "features-bridged",
+                "fail",
+                contrast,
+                0.0,
+                f"the printed feature {how} at best focus and nominal dose",
+            )
+        ]
+    return []
 
 
 def window_violations(rule: LayerRule, el_pct: float, dof_nm: float, sized: str) -> list[Violation]:
