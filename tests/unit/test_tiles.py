@@ -45,6 +45,19 @@ def _library(tmp_path, fmt: str) -> gdstk.Library:
         )
     )
     mid.add(gdstk.Reference(leaf, (-5, 2), rotation=math.pi / 2))
+    # Vias placed one by one (kept as one reference with a list of offsets when
+    # there are many of one orientation), and by an explicit list of offsets
+    # (OASIS keeps the list; GDSII writes single references).
+    via = lib.new_cell("VIA")
+    via.add(gdstk.rectangle((-0.02, -0.02), (0.02, 0.02), layer=8))
+    rng = random.Random(3)
+    for _ in range(30):
+        mid.add(gdstk.Reference(via, (rng.uniform(-6, 8), rng.uniform(-2, 6)), rotation=0.7))
+    for _ in range(3):
+        mid.add(gdstk.Reference(via, (rng.uniform(-6, 8), rng.uniform(-2, 6))))
+    listed = gdstk.Reference(via, (1, -1))
+    listed.repetition = gdstk.Repetition(offsets=[(0.5 * k, 0.3 * k * k % 2) for k in range(12)])
+    mid.add(listed)
     top = lib.new_cell("TOP")
     top.add(gdstk.Reference(mid, (10, 10), rotation=1.1, columns=4, rows=5, spacing=(15, 12)))
     top.add(gdstk.Reference(mid, (0, 0), x_reflection=True))

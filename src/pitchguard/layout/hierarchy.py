@@ -51,13 +51,19 @@ class _Affine:
         return (min(xs) + tx, min(ys) + ty, max(xs) + tx, max(ys) + ty)
 
 
+def _matrix(rotation: float, magnification: float, x_reflection: bool) -> np.ndarray:
+    """A reference's 2x2 placement matrix."""
+    mag = magnification or 1.0
+    c, s = math.cos(rotation), math.sin(rotation)
+    m = np.array([[c, -s], [s, c]]) * mag
+    if x_reflection:
+        m = m @ np.array([[1.0, 0.0], [0.0, -1.0]])
+    return m
+
+
 def _ref_affine(ref, scale: float) -> _Affine:
     """Reference placement (without repetition) in nm."""
-    mag = ref.magnification or 1.0
-    c, s = math.cos(ref.rotation), math.sin(ref.rotation)
-    m = np.array([[c, -s], [s, c]]) * mag
-    if ref.x_reflection:
-        m = m @ np.array([[1.0, 0.0], [0.0, -1.0]])
+    m = _matrix(ref.rotation, ref.magnification, ref.x_reflection)
     return _Affine(m, np.asarray(ref.origin, dtype=np.float64) * scale)
 
 
@@ -82,6 +88,38 @@ def _moved_box_hits(box, offsets: np.ndarray, w: Box) -> np.ndarray:
         & (box[1] + offsets[:, 1] <= w[3])
         & (box[3] + offsets[:, 1] >= w[1])
     )
+
+
+class _OffsetList:
+    """Explicit instance offsets (n, 2) of one reference, sorted by x so that a
+    window meets a slice of them: a cell placed one by one many thousand times
+    (vias, fill) costs a search per window, not a loop."""
+
+    def __init__(self, xy: np.ndarray):
+        xy = np.asarray(xy, dtype=np.float64).reshape(-1, 2)
+        self.xy = xy[np.argsort(xy[:, 0], kind="stable")]
+        self.x = np.ascontiguousarray(self.xy[:, 0])
+
+    def __len__(self) -> int:
+        return len(self.xy)
+
+    def extremes(self) -> list[np.ndarray]:
+        """The lower-left and upper-right corners of the offsets' box."""
+        if not len(self.xy):
+            return [np.zeros(2)]
+        return [self.xy.min(axis=0), self.xy.max(axis=0)]
+
+    def within(self, x0: float, y0: float, x1: float, y1: float) -> np.ndarray:
+        """The offsets inside the box (x0, y0, x1, y1), in x order."""
+        a = int(np.searchsorted(self.x, x0, side="left"))
+        b = int(np.searchsorted(self.x, x1, side="right"))
+        o = self.xy[a:b]
+        return o[(o[:, 1] >= y0) & (o[:, 1] <= y1)]
+
+
+GROUP_SINGLE_REFS = 8
+"""Single references of one cell with one orientation in one parent, at least
+this many, are kept as one reference with a list of offsets."""
 
 
 @dataclass
@@ -126,15 +164,19 @@ class HierarchyQuery:
             ps = PolygonSet.from_arrays((q.points for q in own), self.scale)
             polys[ld] = (ps, ps.bounding_boxes())
         refs = []
+        singles: dict[tuple, list] = {}  # (child, orientation) -> [origins]
         for ref in cell.references:
             child = ref.cell if not isinstance(ref.cell, str) else by_name.get(ref.cell)
             if child is None or not hasattr(child, "references"):
                 continue  # unresolved reference: nothing to place
-            aff = _ref_affine(ref, self.scale)
             rep = ref.repetition
             if not rep.size:
-                offs = ("one", None)
-            elif rep.columns and rep.rows and rep.v1 is not None and rep.v2 is not None:
+                key = (child.name, ref.rotation, ref.magnification, ref.x_reflection)
+                singles.setdefault(key, []).append(ref.origin)
+                self._load(child, by_name)
+                continue
+            aff = _ref_affine(ref, self.scale)
+            if rep.columns and rep.rows and rep.v1 is not None and rep.v2 is not None:
                 offs = (
                     "lattice",
                     (
@@ -156,9 +198,16 @@ class HierarchyQuery:
                     ),
                 )
             else:
-                offs = ("list", np.asarray(rep.get_offsets()) * self.scale)
+                offs = ("list", _OffsetList(np.asarray(rep.get_offsets()) * self.scale))
             refs.append((child.name, aff, offs))
             self._load(child, by_name)
+        for (child, *orientation), origins in singles.items():
+            m = _matrix(*orientation)
+            t = np.array(origins, dtype=np.float64).reshape(-1, 2) * self.scale
+            if len(t) < GROUP_SINGLE_REFS:
+                refs.extend((child, _Affine(m, o), ("one", None)) for o in t)
+            else:
+                refs.append((child, _Affine(m, np.zeros(2)), ("list", _OffsetList(t))))
         own = [bb for _, bb in polys.values() if len(bb)]
         own_bbox = None
         if own:
@@ -197,7 +246,7 @@ class HierarchyQuery:
         if kind == "lattice":
             cols, rows, v1, v2 = data
             return [i * v1 + j * v2 for i in (0, cols - 1) for j in (0, rows - 1)]
-        return list(data) if len(data) else [np.zeros(2)]
+        return data.extremes()
 
     # -- queries -------------------------------------------------------------
     def bounding_box(self) -> Box | None:
@@ -405,7 +454,18 @@ class HierarchyQuery:
         if kind == "one":
             return np.zeros((1, 2)) if _hits(tuple(base), window) else np.zeros((0, 2))
         if kind == "list":
-            o = np.asarray(data, dtype=np.float64).reshape(-1, 2) @ aff.m.T
+            # Copies of ``base`` moved by m @ o meet the window only for m @ o in
+            # the box below; its preimage's box (a little wider) bounds o.
+            wx0, wy0, wx1, wy1 = window
+            bx0, by0, bx1, by1 = (float(v) for v in base)
+            lo, hi = np.array([wx0 - bx1, wy0 - by1]), np.array([wx1 - bx0, wy1 - by0])
+            if (lo > hi).any():
+                return np.zeros((0, 2))
+            if not np.array_equal(aff.m, np.eye(2)):
+                c = np.array([lo, [hi[0], lo[1]], hi, [lo[0], hi[1]]]) @ np.linalg.inv(aff.m).T
+                lo, hi = c.min(axis=0), c.max(axis=0)
+            slack = 1e-6 * (1.0 + np.abs(lo).max() + np.abs(hi).max())
+            o = data.within(lo[0] - slack, lo[1] - slack, hi[0] + slack, hi[1] + slack) @ aff.m.T
             return o[_moved_box_hits(base, o, window)]
         cols, rows, v1, v2 = data
         a1, a2 = aff.m @ v1, aff.m @ v2
