@@ -3,7 +3,7 @@
 Scenario (invented for the demo): "Wren-3", a small mixed-signal test chip.
 Its front end is checked with ``rules/demo_chip.toml``: active on a KrF annular
 tool, poly on a dry ArF tool, metal1 (dark field) on an ArF immersion tool with
-an x dipole.  Every layer carries line/space arrays comfortably inside, near
+an x dipole, via1 (dark field) on the same tool with an annular source.  Every layer carries line/space arrays comfortably inside, near
 and past what its tool resolves, placed through the hierarchy the checker must
 see through: arrays of references, rotated (90 and 45 degrees), mirrored and
 magnified references, lines drawn as abutting pieces, paths, and (in the OASIS
@@ -15,7 +15,8 @@ Usage::
     python sample_layouts/build_demo_chip.py [OUTPUT_DIR]
 
 All dimensions are in nm at wafer scale; the layout unit is 1 um with a 1 nm
-grid.  Expected verdicts with the demo deck are listed in EXPECTED below.
+grid.  Expected verdicts with the demo deck are listed in EXPECTED and
+EXPECTED_2D below.
 """
 
 from __future__ import annotations
@@ -31,6 +32,7 @@ UM = 1e-3  # nm -> um (layout user unit)
 ACTIVE = (1, 0)
 POLY = (7, 0)
 METAL1 = (17, 0)
+VIA1 = (18, 0)
 ANNOTATION = (63, 0)  # not in the deck: must be ignored
 
 # (block, layer, drawn pitch nm, line direction deg, expected severity with
@@ -59,6 +61,20 @@ EXPECTED = [
     # k1 0.49 passes the k1 bands, but 40 nm trenches at this pitch do not print
     # at the anchored dose under the dipole: flagged on image grounds only.
     ("metal1 narrow trenches, pitch 140", "metal1", 140, 90, "fail"),
+]
+
+# 2-D blocks: (block, layer, check, expected severity or None, a point in the
+# block in um).  Line ends are judged on 2-D clips, via arrays by their lattice.
+EXPECTED_2D = [
+    # Poly lines 90 nm wide ending 40 nm apart (0.19 lambda/NA): the gap cannot open.
+    ("poly tip to tip, gap 40", "poly", "line-end-bridged", "fail", (20.065, 9.52)),
+    ("poly tip to tip, gap 160", "poly", "line-end-bridged", None, (21.265, 9.58)),
+    # 50 nm vias at 70 nm: below lambda / (NA (1 + sigma)) = 75.2 nm, no 2-D image.
+    ("via1 array, pitch 70", "via1", "unresolvable-pitch", "fail", (0.5, 24.5)),
+    # 50 nm vias 200 nm apart: each opening's light at its centre barely
+    # outweighs the 6 % background of opposite phase; they do not print.
+    ("via1 50 nm array, pitch 200", "via1", "feature-not-printed", "fail", (4.5, 24.5)),
+    ("via1 80 nm array, pitch 160", "via1", None, None, (8.5, 24.5)),
 ]
 
 
@@ -145,6 +161,27 @@ def build() -> gdstk.Library:
 
     m1_140 = line_cell(lib, "M1_P140_NARROW", METAL1, 140, 40, 10, 1500)
     top.add(gdstk.Reference(m1_140, (23, 18)))
+
+    # Line ends facing each other across 40 and 160 nm: four pairs each, at a
+    # relaxed 300 nm pitch.
+    tips = lib.new_cell("POLY_TIPS")
+    for k, gap in enumerate((40, 160)):
+        x0 = k * 1200
+        for j in range(4):
+            x = (x0 + j * 300) * UM
+            tips.add(gdstk.rectangle((x, 8.0), (x + 0.09, 9.5), layer=POLY[0], datatype=POLY[1]))
+            y = 9.5 + gap * UM
+            tips.add(gdstk.rectangle((x, y), (x + 0.09, y + 1.5), layer=POLY[0], datatype=POLY[1]))
+    top.add(gdstk.Reference(tips, (20, 0)))
+
+    # ------------------------------------------------------------ via1 (immersion, annular)
+    via = lib.new_cell("VIA1_50")
+    via.add(gdstk.rectangle((0, 0), (0.05, 0.05), layer=VIA1[0], datatype=VIA1[1]))
+    top.add(gdstk.Reference(via, (0, 24), columns=16, rows=16, spacing=(0.07, 0.07)))
+    top.add(gdstk.Reference(via, (3, 24), columns=10, rows=10, spacing=(0.2, 0.2)))
+    via80 = lib.new_cell("VIA1_80")
+    via80.add(gdstk.rectangle((0, 0), (0.08, 0.08), layer=VIA1[0], datatype=VIA1[1]))
+    top.add(gdstk.Reference(via80, (7, 24), columns=12, rows=12, spacing=(0.16, 0.16)))
 
     # ------------------------------------------------------------ ignored layer
     notes = line_cell(lib, "NOTES_P20", ANNOTATION, 20, 10, 20, 1000)

@@ -227,6 +227,10 @@ class Limits(_Model):
       vias, posts, short lines) are judged as 2-D patterns: arrays of them by
       their lattice's orders and 2-D image, not by 1-D cuts.  Default
       1 lambda/NA: smaller features image as 2-D blobs.
+    * ``line_end_pullback_max_nm``: the most a printed line end may fall short of
+      the drawn one (2-D clip, best focus, nominal dose).  Default 0.25
+      lambda/NA: an order of magnitude of what end extensions in OPC make up;
+      set it from your process.
     * ``pitch_tolerance_nm = 1.0``: sites whose pitch differs by less than this
       belong to one pitch class (one region).
     * ``dense_min_lines = 5``: a region of at least this many lines is a dense
@@ -257,6 +261,7 @@ class Limits(_Model):
     min_run_nm: Annotated[float, Field(gt=0.0)] | None = None
     interaction_range_nm: Annotated[float, Field(gt=0.0)] | None = None
     compact_max_nm: Annotated[float, Field(gt=0.0)] | None = None
+    line_end_pullback_max_nm: Annotated[float, Field(ge=0.0)] | None = None
     pitch_tolerance_nm: Annotated[float, Field(gt=0.0)] | None = None
     dense_min_lines: Annotated[int, Field(ge=2)] | None = None
     image_checks: bool | None = None
@@ -296,6 +301,7 @@ LIMIT_DEFAULTS = {
 MIN_RUN_LAMBDA_NA = 0.5
 INTERACTION_RANGE_LAMBDA_NA = 3.0
 COMPACT_LAMBDA_NA = 1.0
+PULLBACK_LAMBDA_NA = 0.25
 DOF_RAYLEIGH_K2 = 0.5
 """Default DOF floor and focus half range: 0.5 n lambda / NA^2."""
 
@@ -385,6 +391,7 @@ class LayerRule:
         "min_run_nm",
         "interaction_range_nm",
         "compact_max_nm",
+        "line_end_pullback_max_nm",
         "pitch_tolerance_nm",
         "dense_min_lines",
         "image_checks",
@@ -422,6 +429,9 @@ class LayerRule:
             "interaction_range_nm", INTERACTION_RANGE_LAMBDA_NA * exposure.lambda_over_na_nm
         )
         self.compact_max_nm = pick("compact_max_nm", COMPACT_LAMBDA_NA * exposure.lambda_over_na_nm)
+        self.line_end_pullback_max_nm = pick(
+            "line_end_pullback_max_nm", PULLBACK_LAMBDA_NA * exposure.lambda_over_na_nm
+        )
         self.pitch_tolerance_nm = pick("pitch_tolerance_nm", LIMIT_DEFAULTS["pitch_tolerance_nm"])
         self.dense_min_lines = int(pick("dense_min_lines", LIMIT_DEFAULTS["dense_min_lines"]))
         for key in (

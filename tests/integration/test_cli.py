@@ -17,7 +17,7 @@ from pitchguard.outputs.verdict import CAUTION
 from .conftest import DEMO_DECK, REPO, SAMPLE_GDS, SAMPLE_OAS, run_cli
 
 sys.path.insert(0, str(REPO / "sample_layouts"))
-from build_demo_chip import EXPECTED
+from build_demo_chip import EXPECTED, EXPECTED_2D
 
 
 @pytest.fixture(scope="module")
@@ -45,6 +45,8 @@ def test_sample_blocks_get_their_expected_verdict(demo_json, block, layer, pitch
         f["severity"]
         for f in demo_json["findings"]
         if f["layer"] == layer
+        and f["pitch_nm"] is not None
+        and f["line_end"] is None
         and abs(f["pitch_nm"] - pitch) <= 1.0
         and abs(f["orientation_deg"] - angle) < 0.5
     }
@@ -54,10 +56,29 @@ def test_sample_blocks_get_their_expected_verdict(demo_json, block, layer, pitch
         assert found == {severity}, block
 
 
+@pytest.mark.parametrize(("block", "layer", "check", "severity", "point"), EXPECTED_2D)
+def test_sample_2d_blocks_get_their_expected_verdict(
+    demo_json, block, layer, check, severity, point
+):
+    """Line ends and via arrays of the demo chip, as listed by its build script."""
+    x, y = point
+    found = {
+        (f["check"], f["severity"])
+        for f in demo_json["findings"]
+        if f["layer"] == layer
+        and f["bbox_um"][0] <= x <= f["bbox_um"][2]
+        and f["bbox_um"][1] <= y <= f["bbox_um"][3]
+    }
+    if severity is None:
+        assert not {c for c, s in found if c == check or check is None}, block
+    else:
+        assert (check, severity) in found, block
+
+
 def test_sample_ignores_layer_not_in_deck(demo_json):
     # Layer 63/0 holds a 20 nm pitch the deck does not name.
-    assert all(f["pitch_nm"] > 50 for f in demo_json["findings"])
-    assert set(demo_json["summary"]["by_layer"]) == {"active", "poly", "metal1"}
+    assert all(f["pitch_nm"] is None or f["pitch_nm"] > 50 for f in demo_json["findings"])
+    assert set(demo_json["summary"]["by_layer"]) == {"active", "poly", "metal1", "via1"}
 
 
 def test_json_finding_fields(demo_json):
@@ -127,7 +148,7 @@ def test_oasis_sample_gives_same_findings_as_gdsii(tmp_path, capsys, demo_json):
     code, _, _ = run_cli(capsys, "scan", SAMPLE_OAS, "--rules", DEMO_DECK, "--json", out, "-q")
     assert code == 1
     oas = json.loads(out.read_text())
-    key = lambda f: (f["layer"], f["severity"], f["pitch_nm"], tuple(f["bbox_um"]))  # noqa: E731
+    key = lambda f: (f["layer"], f["severity"], f["pitch_nm"] or -1.0, tuple(f["bbox_um"]))  # noqa: E731
     assert sorted(map(key, oas["findings"])) == sorted(map(key, demo_json["findings"]))
 
 
@@ -180,7 +201,11 @@ def test_only_a_scan_that_lists_findings_sorts_them(tmp_path, capsys, monkeypatc
     listed = json.loads(js.read_text())["findings"]
     from pitchguard.deck import SEVERITIES
 
-    keys = [(SEVERITIES.index(f["severity"]), f["k1"], f["layer"]) for f in listed]
+    # No k1 (a line end) after every k1 of its severity.
+    keys = [
+        (SEVERITIES.index(f["severity"]), f["k1"] if f["k1"] is not None else 9.0, f["layer"])
+        for f in listed
+    ]
     assert keys == sorted(keys)
     run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK)  # the table lists the worst
     assert len(sorts) == 2

@@ -181,7 +181,10 @@ def test_demo_report_pictures_are_png_data_uris(demo):
         for v in g.first.violations:
             assert f">{v.check}</code>" in sec
         assert "What to change:" in sec and html.escape(g.first.hint, quote=False) in sec
-        assert html.escape(f"{g.first.pitch_nm:.1f} nm") in sec
+        if g.first.tip is None:
+            assert html.escape(f"{g.first.pitch_nm:.1f} nm") in sec
+        else:  # a line end: its gap, no pitch
+            assert f"{g.first.space_nm:.1f} nm, {g.first.tip.kind}" in sec
 
 
 @pytest.mark.parametrize(
@@ -205,13 +208,20 @@ def test_demo_report_orders_read_as_in_the_terminal(demo):
     sections = out.read_text(encoding="utf-8").split('<details class="group ')[1:]
     groups = group_findings(result.findings)
     assert {g.first.orders for g in groups} >= {(0,), (-1, 0, 1)}  # both forms on the page
+    kinds = set()
     for g, sec in zip(groups, sections, strict=True):
         f = g.first
+        if f.array is not None or f.tip is not None:
+            # Arrays list their 2-D orders, line ends none.
+            kinds.add("array" if f.array is not None else "tip")
+            assert ("orders (m, n) through the pupil" in sec) == (f.array is not None)
+            continue
         row = (
             f"<td>{orders_text(f.orders)} <span class='note'>(on axis: "
             f"{orders_text(f.orders_on_axis)};"
         )
         assert row in sec
+    assert kinds == {"array", "tip"}  # the demo has both
 
 
 def _asymmetric_layout(path: Path) -> None:
@@ -283,6 +293,8 @@ def test_printed_edges_agree_with_the_findings(demo):
     _, result, deck = demo
     states = set()
     for f in result.findings:
+        if not f.cut_bounds_nm:  # arrays and line ends: 2-D, no cut
+            continue
         rule = deck.layer(f.layer)
         x, inten = cut_image(rule, f.cut_bounds_nm, f.cut_angle_deg)
         b = np.asarray(f.cut_bounds_nm)

@@ -13,18 +13,23 @@ from pitchguard.run.tiled import scan_tiled
 from .conftest import DEMO_DECK, DRY_ARF_DECK, SAMPLE_GDS, SAMPLE_OAS, line_array_cell
 
 
+def _r(v: float, digits: int) -> float:
+    """Rounded; NaN (a line end has no pitch or k1) as -1, so keys sort and compare."""
+    return round(v, digits) if v == v else -1.0
+
+
 def _key(f):
     return (
         f.layer,
         f.check,
         f.severity,
-        round(f.pitch_nm, 2),
-        round(f.pitch_max_nm, 2),
+        _r(f.pitch_nm, 2),
+        _r(f.pitch_max_nm, 2),
         f.lines,
         f.sites,
         tuple(round(v, 3) for v in f.bbox_um),
-        round(f.nils, 3),
-        round(f.k1, 4),
+        _r(f.nils, 3),
+        _r(f.k1, 4),
         round(f.run_nm, 1),
         f.hint,
     )

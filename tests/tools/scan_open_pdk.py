@@ -119,6 +119,11 @@ def main() -> int:
             for name, v in s["by_layer"].items()
         )
         print(f"  arrays of compact features: {arrays}")
+        ends = ", ".join(
+            f"{name} {v.get('line_ends_judged', 0):,} of {v.get('line_ends', 0):,}"
+            for name, v in s["by_layer"].items()
+        )
+        print(f"  line ends judged on clips: {ends}")
     return 0
 
 

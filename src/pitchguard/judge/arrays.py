@@ -240,6 +240,9 @@ def _finding(rule, arrays, k, rec, j: ArrayJudgement, a1, a2, scale) -> Finding:
         violations=vs,
         context="interior",
         threshold=round(m.threshold, 5) if m else math.nan,
+        # The box's centre (finite, so the finding moves with its placement); no
+        # 1-D cut: the angle stays NaN.
+        cut_origin_nm=(0.5 * (bbox[0] + bbox[2]), 0.5 * (bbox[1] + bbox[3])),
         array=ArrayShape(
             lattice=rec.lattice,
             a1_nm=tuple(round(v, 3) for v in rec.a1_nm),

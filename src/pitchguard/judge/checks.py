@@ -28,6 +28,10 @@ CHECKS = {
     "exposure latitude is below dof_min_nm.",
     "cd-error": "At the anchored dose the printed CD is off the drawn CD by more than "
     "cd_tolerance_pct.",
+    "line-end-bridged": "The gap in front of a line end (to another line end or a line "
+    "side) does not print open: at best focus (fail) or within the focus range (risk).",
+    "line-end-pullback": "The printed line end falls short of the drawn one by more than "
+    "line_end_pullback_max_nm.",
 }
 """Check identifiers and one-line descriptions (stable: baselines refer to them)."""
 

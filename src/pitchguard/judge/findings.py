@@ -29,6 +29,17 @@ class ArrayShape(NamedTuple):
     worst_angle_deg: float  # pitch direction of the worst lattice direction
 
 
+class TipShape(NamedTuple):
+    """What a finding on a line end adds: the clip it was judged on."""
+
+    kind: str  # tip-to-tip | tip-to-side
+    pullback_nm: float  # drawn minus printed tip at best focus, wafer (+ = short; nan: closed)
+    gap_printed_nm: float  # unprinted length in front of the tip at best focus, wafer
+    closes_at_focus_nm: float  # least defocus at which the gap closes (nan: never in range)
+    angle_deg: float  # the tip's outward direction in the layout (the clip frame's x axis)
+    rects_nm: tuple[tuple[float, float, float, float], ...]  # the clip, tip frame, drawn
+
+
 @dataclass(frozen=True, slots=True)
 class Finding:
     """One region of one layer that breaks a check.  Every report renders this."""
@@ -77,6 +88,8 @@ class Finding:
     threshold: float = math.nan
     # Arrays of compact features (contacts, vias, posts): the lattice; None for lines.
     array: ArrayShape | None = None
+    # Line ends (context "line-end"): the clip; None otherwise.
+    tip: TipShape | None = None
 
     @property
     def bbox_um(self) -> tuple[float, float, float, float]:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 
 import numpy as np
@@ -11,7 +12,8 @@ from pitchguard.judge.findings import Finding, FindingSet
 
 
 def sort_findings(findings: Sequence[Finding]) -> Sequence[Finding]:
-    """Worst first: by severity, k1, layer, then position (the order every report uses).
+    """Worst first: by severity, k1 (none last), layer, then position (the order every
+    report uses).
 
     The same order as ``sorted`` on ``(severity_rank, k1, layer, bbox_nm)``, worked
     out with numpy: a scan of a chip may hold 10^5 to 10^6 findings.  A
@@ -35,7 +37,12 @@ def sort_findings(findings: Sequence[Finding]) -> Sequence[Finding]:
 def sort_findings_plain(findings: Sequence[Finding]) -> list[Finding]:
     """The report order by Python's stable ``sorted``: the reference for
     :func:`sort_findings` (tests check that the two agree)."""
-    return sorted(findings, key=lambda f: (f.severity_rank, f.k1, f.layer, f.bbox_nm))
+    return sorted(findings, key=lambda f: (f.severity_rank, _k1_key(f.k1), f.layer, f.bbox_nm))
+
+
+def _k1_key(k1: float) -> float:
+    """k1 as a sort key: none (a line end) after every k1."""
+    return k1 if k1 == k1 else math.inf
 
 
 def _severity_k1_layer_ranks(findings: Sequence[Finding]) -> np.ndarray:
@@ -43,6 +50,7 @@ def _severity_k1_layer_ranks(findings: Sequence[Finding]) -> np.ndarray:
     rank = {s: k for k, s in enumerate(SEVERITIES)}
     sev = np.array([rank[f.severity] for f in findings], dtype=np.float64)
     k1 = np.array([f.k1 for f in findings], dtype=np.float64)
+    k1[np.isnan(k1)] = np.inf  # none (a line end) after every k1, as _k1_key
     _, layer = np.unique([f.layer for f in findings], return_inverse=True)
     key = np.stack([sev, k1, layer.reshape(-1).astype(np.float64)], 1)
     _, dense = np.unique(key, axis=0, return_inverse=True)

@@ -432,8 +432,11 @@ class CoherentSystems2D:
             )
         return resample(inten, o, nx, ny)
 
-    def at(self, spectra: np.ndarray, x_nm, y_nm) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Intensity and its x and y derivatives ``(m, P)`` at points ``(x, y)``.
+    def at(
+        self, spectra: np.ndarray, x_nm, y_nm, slopes: bool = True
+    ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
+        """Intensity and its x and y derivatives ``(m, P)`` at points ``(x, y)``
+        (derivatives None without ``slopes``).
 
         ``x``, ``y`` are ``(P,)`` (shared) or ``(m, P)`` (one row per spectrum).
         """
@@ -447,9 +450,11 @@ class CoherentSystems2D:
         shape = (len(spectra),) + basis.shape[1:]
         basis = np.broadcast_to(basis, shape)
         field = np.einsum("kmn,mnp->kmp", coef, basis)
+        ev = self.eigenvalues
+        if not slopes:
+            return np.einsum("k,kmp->mp", ev, field.real**2 + field.imag**2), None, None
         dfx = np.einsum("kmn,mnp->kmp", coef * (2j * np.pi * o.fx), basis)
         dfy = np.einsum("kmn,mnp->kmp", coef * (2j * np.pi * o.fy), basis)
-        ev = self.eigenvalues
         inten = np.einsum("k,kmp->mp", ev, field.real**2 + field.imag**2)
         d_x = np.einsum("k,kmp->mp", ev, 2 * np.real(np.conj(field) * dfx))
         d_y = np.einsum("k,kmp->mp", ev, 2 * np.real(np.conj(field) * dfy))

@@ -78,8 +78,9 @@ def _as_float(v) -> float:
 
 
 def _close(a: float, b: float) -> bool:
-    if math.isinf(a) or math.isinf(b):
-        return math.isinf(a) and math.isinf(b)
+    # No pitch (an isolated line, a line end) is stored as null and read as inf.
+    if not (math.isfinite(a) and math.isfinite(b)):
+        return not (math.isfinite(a) or math.isfinite(b))
     return abs(a - b) <= max(PITCH_TOL_NM, PITCH_TOL_REL * max(abs(a), abs(b)))
 
 
@@ -102,7 +103,7 @@ def compatible(a: Signature, b: Signature) -> bool:
 def _bucket(s: Signature) -> tuple:
     """Coarse class: compatible signatures share it or sit in a neighbouring one."""
     p = s.pitch_nm
-    pb = -1 if math.isinf(p) else int(math.floor(math.log(max(p, 1e-3)) / math.log(1.02)))
+    pb = -1 if not math.isfinite(p) else int(math.floor(math.log(max(p, 1e-3)) / math.log(1.02)))
     return (s.layer, s.check, s.context, pb)
 
 

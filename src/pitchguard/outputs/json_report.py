@@ -100,6 +100,18 @@ def finding_to_dict(f: Finding, holes: bool = False) -> dict:
         else None,
         "checks": [violation_to_dict(v) for v in f.violations],
         "array": array_to_dict(f.array) if f.array is not None else None,
+        "line_end": tip_to_dict(f.tip) if f.tip is not None else None,
+    }
+
+
+def tip_to_dict(t) -> dict:
+    """The clip of a finding on a line end (wafer nm; the angle in the layout)."""
+    return {
+        "kind": t.kind,
+        "pullback_nm": json_number(t.pullback_nm),
+        "gap_printed_nm": json_number(t.gap_printed_nm),
+        "closes_at_focus_nm": json_number(t.closes_at_focus_nm),
+        "angle_deg": json_number(t.angle_deg),
     }
 
 

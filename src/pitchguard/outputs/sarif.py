@@ -134,6 +134,28 @@ _RULE_HELP: dict[str, dict[str, str]] = {
         "change": "Move the pitch or width towards the layer's anchor geometry, or make "
         "sure the fab's mask correction covers this pattern.",
     },
+    "line-end-bridged": {
+        "worst": "fail",
+        "flags": "Line ends whose gap to what they face (another line end, or a line's "
+        "side, within lambda/NA) does not print open on a 2-D image of the tip and its "
+        "surroundings: at best focus and nominal dose (fail), or at some focus within the "
+        "layer's focus range (risk).",
+        "why": "The two lines print as one: a short circuit on a wiring layer, a joined "
+        "gate on poly. Line ends blur in two directions at once, so a gap closes long "
+        "before a space of the same width between two long lines does.",
+        "change": "Widen the gap, or shorten one of the lines. Mask correction can move "
+        "a line end a little but cannot open a gap the optics cannot resolve.",
+    },
+    "line-end-pullback": {
+        "worst": "risk",
+        "flags": "Line ends whose printed tip falls short of the drawn one by more than "
+        "line_end_pullback_max_nm, on a 2-D image at best focus and nominal dose.",
+        "why": "A line end that prints short can miss the via or contact it should "
+        "cover, or leave a gate short of the active it should cross. Mask correction "
+        "extends line ends, but only by so much.",
+        "change": "Extend the drawn line end (or its enclosure of the via), or check that "
+        "the fab's mask correction makes up the pullback for this layer.",
+    },
 }
 
 

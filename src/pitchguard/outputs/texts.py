@@ -54,6 +54,11 @@ def box_text(bbox_um) -> str:
     return f"{x0}, {y0} to {x1}, {y1}"
 
 
+def k1_text(f: Finding) -> str:
+    """ ", k1 0.312" when the finding has a k1 (a line end has none)."""
+    return f", k1 {f.k1:.3f}" if math.isfinite(f.k1) else ""
+
+
 def describe(f: Finding, holes: bool = False) -> str:
     """One sentence a designer can act on: layer, place, pitch, what tripped, the fix.
     With ``holes`` the place is left as markers (see outputs.rows.PlacedRows)."""
@@ -62,13 +67,18 @@ def describe(f: Finding, holes: bool = False) -> str:
     return (
         f"{f.severity} on layer {f.layer} ({f.source}): region centred at "
         f"{where} (box {box} um), "
-        f"{pattern_text(f)}, k1 {f.k1:.3f}. {f.check}: {f.message}. Fix: {f.hint}."
+        f"{pattern_text(f)}{k1_text(f)}. {f.check}: {f.message}. Fix: {f.hint}."
     )
 
 
 def pattern_text(f: Finding) -> str:
     """What the region holds: lines with their pitch, or an array's lattice."""
     a = f.array
+    if f.context == "line-end":
+        return (
+            f"a line end {nm_text(f.width_nm)} nm wide, {f.periodicity} across a "
+            f"{nm_text(f.space_nm)} nm gap, the line running at {f.orientation_deg:g} deg"
+        )
     if a is None:
         return (
             f"{f.lines} lines ({f.periodicity}) running at {f.orientation_deg:g} deg, "
@@ -118,6 +128,8 @@ def finding_line(f: Finding, where: str | None = None) -> str:
 
 def pattern_brief(f: Finding) -> str:
     """:func:`pattern_text` in a few words."""
+    if f.context == "line-end":
+        return f"{f.periodicity} gap {nm_text(f.space_nm)} nm (line {nm_text(f.width_nm)} nm)"
     if f.array is None:
         return (
             f"pitch {nm_text(f.pitch_nm)} nm "

@@ -23,6 +23,7 @@ from pitchguard.geometry.lattice import (
 from pitchguard.geometry.sites import ExtractStats, find_sites, in_region
 from pitchguard.judge.arrays import ArrayVerdicts, judge_arrays
 from pitchguard.judge.findings import Finding
+from pitchguard.judge.line_ends import TipVerdicts, judge_line_ends
 from pitchguard.judge.order import sort_findings
 from pitchguard.judge.regions import Region
 from pitchguard.judge.verdicts import classify_layer
@@ -135,6 +136,18 @@ def scan_polygons(
                 sites = sites.take(np.flatnonzero(~on))
                 ex.sites -= int(on.sum())
                 ex.extra["compact_sites"] = int(on.sum())
+        tips = TipVerdicts()
+        if rule.image_checks:
+            tips = judge_line_ends(
+                edges,
+                ps,
+                rule,
+                scale,
+                grid_nm,
+                region=region_nm,
+                compact=compact.features,
+            )
+            regions.extend(Region(f) for f in tips.findings)
         tick(f"{rule.name}: images", 3 * k + 2)
         metrics, which_cut, cuts, angles = None, None, None, None
         cut_keys: frozenset = frozenset()
@@ -174,7 +187,8 @@ def scan_polygons(
         judged = np.isfinite(sites.pitch)  # the order rules judge every finite pitch
         if which_cut is not None:
             judged |= which_cut >= 0
-        ex.judged_nm = float((sites.u1 - sites.u0)[judged].sum())
+        ex.judged_nm = float((sites.u1 - sites.u0)[judged].sum()) + tips.judged_nm
+        add_tip_counts(ex, tips)
         if not tile:
             verdicts = judge_arrays(find_arrays(lattice), rule, scale)
             regions.extend(Region(f) for f in verdicts.findings)
@@ -206,6 +220,18 @@ def scan_polygons(
         )
     tick("done", total)
     return regions, stats
+
+
+def add_tip_counts(ex: ExtractStats, v: TipVerdicts) -> None:
+    """Count a layer's line ends into its stats: found, imaged, and not judged."""
+    for key, n in (
+        ("line_ends", v.ends),
+        ("line_ends_judged", v.judged),
+        ("line_ends_nothing_in_reach", v.open_by_distance),
+        ("line_ends_not_manhattan", v.not_manhattan),
+    ):
+        if n:
+            ex.extra[key] = ex.extra.get(key, 0) + n
 
 
 def add_array_counts(ex: ExtractStats, v: ArrayVerdicts) -> None:

@@ -15,11 +15,33 @@ SNAP_TOL_NM = 3.0
 """Basis components this close to an axis are on it (the extraction's tolerance at 1 nm)."""
 
 
+def image_2d_png(x, y, image, threshold: float, boxes, xlabel: str, title: str) -> str:
+    """PNG (base64) of a 2-D aerial image with its printed contour at ``threshold``
+    and drawn rectangles ``boxes`` (x0, y0, x1, y1) dashed, equal axes."""
+    from matplotlib.patches import Rectangle
+
+    fig = new_figure(IMAGE_PX)
+    ax = fig.add_axes((0.10, 0.15, 0.88, 0.76))
+    ax.pcolormesh(x, y, image, shading="nearest", cmap="magma")
+    if math.isfinite(threshold) and image.min() < threshold < image.max():
+        ax.contour(x, y, image, levels=[threshold], colors=PRINTED_COLOUR, linewidths=1.2)
+    for x0, y0, x1, y1 in boxes:
+        ax.add_patch(
+            Rectangle((x0, y0), x1 - x0, y1 - y0, fill=False, ec="#dddddd", ls="--", lw=0.8)
+        )
+    ax.set_aspect("equal")
+    ax.set_xlim(float(x[0]), float(x[-1]))
+    ax.set_ylim(float(y[0]), float(y[-1]))
+    ax.tick_params(labelsize=7, length=2)
+    ax.set_xlabel(xlabel, fontsize=7, labelpad=1)
+    ax.set_ylabel("y (nm)", fontsize=7, labelpad=1)
+    ax.set_title(title, fontsize=8.5, pad=3)
+    return png_base64(fig)
+
+
 def array_picture(f: Finding, rule: LayerRule, scale: float) -> tuple[str | None, str]:
     """PNG (base64) of the best-focus image of ``f``'s unit cell, 3 x 3 periods,
     with the printed contour and the drawn features, and a caption."""
-    from matplotlib.patches import Rectangle
-
     from pitchguard.judge.arrays import finding_cell
     from pitchguard.optics.resist2d import cell_metrics
 
@@ -34,34 +56,22 @@ def array_picture(f: Finding, rule: LayerRule, scale: float) -> tuple[str | None
     tiled = np.tile(image, (3, 3))
     xs = np.concatenate([x - px, x, x + px])
     ys = np.concatenate([y - py, y, y + py])
-    fig = new_figure(IMAGE_PX)
-    ax = fig.add_axes((0.10, 0.15, 0.88, 0.76))
-    ax.pcolormesh(xs, ys, tiled, shading="nearest", cmap="magma")
-    if math.isfinite(m.threshold) and tiled.min() < m.threshold < tiled.max():
-        ax.contour(xs, ys, tiled, levels=[m.threshold], colors=PRINTED_COLOUR, linewidths=1.2)
     cx, cy = cell.centre_of(0)
-    for x0, y0, x1, y1 in cell.rects_nm:
-        for i in (-1, 0, 1):
-            for j in (-1, 0, 1):
-                ax.add_patch(
-                    Rectangle(
-                        (x0 - cx + i * px, y0 - cy + j * py),
-                        x1 - x0,
-                        y1 - y0,
-                        fill=False,
-                        ec="#dddddd",
-                        ls="--",
-                        lw=0.8,
-                    )
-                )
-    ax.set_aspect("equal")
-    ax.set_xlim(float(xs[0]), float(xs[-1]))
-    ax.set_ylim(float(ys[0]), float(ys[-1]))
-    ax.tick_params(labelsize=7, length=2)
-    ax.set_xlabel("x (nm, wafer, the features' frame)", fontsize=7, labelpad=1)
-    ax.set_ylabel("y (nm)", fontsize=7, labelpad=1)
-    ax.set_title(f"Aerial image of the unit cell ({rule.exposure_name})", fontsize=8.5, pad=3)
-    png = png_base64(fig)
+    boxes = [
+        (x0 - cx + i * px, y0 - cy + j * py, x1 - cx + i * px, y1 - cy + j * py)
+        for x0, y0, x1, y1 in cell.rects_nm
+        for i in (-1, 0, 1)
+        for j in (-1, 0, 1)
+    ]
+    png = image_2d_png(
+        xs,
+        ys,
+        tiled,
+        m.threshold,
+        boxes,
+        "x (nm, wafer, the features' frame)",
+        f"Aerial image of the unit cell ({rule.exposure_name})",
+    )
     fw = feature_word(rule)
     printed = (
         "Nothing prints at the nominal threshold."

@@ -77,6 +77,8 @@ def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
     ]
     if f.array is not None:
         rows = _array_rows(f, rows)
+    if f.tip is not None:
+        rows = _tip_rows(f, rows)
     body = "".join(f"<tr><th>{esc(k)}</th><td>{v}</td></tr>" for k, v in rows)
     return f'<h3>Numbers (worst site)</h3><table class="numbers">{body}</table>'
 
@@ -115,6 +117,45 @@ def _array_rows(f: Finding, rows: list) -> list:
         ("judged on", "the array's periodic unit cell (its interior)"),
     ]
     return keep[:1] + extra + keep[1:]
+
+
+_TIP_DROPS = _LINE_ROWS + (
+    "pitch (drawn)",
+    "pitch (wafer)",
+    "smallest imageable pitch",
+    "k1",
+    "NILS at the drawn edges",
+    "exposure latitude (EL)",
+    "depth of focus (DOF)",
+    "printed CD (wafer)",
+    "CD error at the anchored dose",
+)
+
+
+def _tip_rows(f: Finding, rows: list) -> list:
+    """The numbers of a line-end finding: its gap and printed tip in place of pitch rows."""
+    t = f.tip
+    keep = [(k, v) for k, v in rows if not k.endswith(_TIP_DROPS)]
+    closes = (
+        "at best focus"
+        if t.closes_at_focus_nm == 0
+        else f"at {t.closes_at_focus_nm:.0f} nm defocus"
+        if math.isfinite(t.closes_at_focus_nm)
+        else "stays open through the focus range"
+    )
+    extra = [
+        (
+            "line end (drawn)",
+            f"{html_number(f.width_nm)} nm wide, running at {degrees_text(f.orientation_deg)}",
+        ),
+        ("gap (drawn)", f"{html_number(f.space_nm)} nm, {esc(t.kind)}"),
+        ("printed gap (wafer, best focus)", html_number(t.gap_printed_nm, ".1f", " nm")),
+        ("pullback (wafer, best focus)", html_number(t.pullback_nm, "+.1f", " nm")),
+        ("gap closes", closes),
+        ("NILS at the drawn tip", html_number(f.nils, ".2f")),
+        ("judged on", "a 2-D clip around the tip and its gap"),
+    ]
+    return extra + keep
 
 
 def _printed_cd(f: Finding, scale: float) -> str:
@@ -159,7 +200,7 @@ def _locations_html(g: Group) -> str:
             f"<tr><td class='n'>{k}</td><td class='n'>{cx:.3f}, {cy:.3f}</td>"
             f"<td class='n'>{x0:.3f}, {y0:.3f} – {x1:.3f}, {y1:.3f}</td>"
             f"<td class='n'>{f.lines}</td><td class='n'>{f.sites}</td>"
-            f"<td class='n'>{f.pitch_nm:.1f}</td><td>{esc(f.context or '–')}</td></tr>"
+            f"<td class='n'>{html_number(f.pitch_nm)}</td><td>{esc(f.context or '–')}</td></tr>"
         )
     more = (
         f"<p class='note'>… and {n - LOCATIONS_LISTED} more locations (the JSON output "
@@ -184,7 +225,12 @@ def _group_title(g: Group, rule: LayerRule | None) -> str:
     fw = feature_word(rule)
     n = len(g.findings)
     cx, cy = f.centre_um
-    if f.array is not None:
+    if f.tip is not None:
+        meta = (
+            f"line end {html_number(f.width_nm)} nm, {esc(f.tip.kind)} gap "
+            f"{html_number(f.space_nm)} nm, line at {degrees_text(f.orientation_deg)}"
+        )
+    elif f.array is not None:
         w, h = f.array.feature_nm
         meta = (
             f"{esc(f.array.lattice)} lattice {f.pitch_nm:.1f} x {f.pitch_max_nm:.1f} nm, "

@@ -142,9 +142,11 @@ def index_html(groups: list[Group]) -> str:
             f'<tr data-severity="{attr_text(f.severity)}" data-layer="{attr_text(f.layer)}">'
             f"<td class='n'><a href='#g{k}'>{k}</a></td><td><span class='sev "
             f"{attr_text(f.severity)}'>{esc(f.severity)}</span></td><td>{esc(f.layer)}</td>"
-            f"<td><a href='#g{k}'>{esc(f.check)}</a></td><td class='n'>{f.pitch_nm:.1f}</td>"
+            f"<td><a href='#g{k}'>{esc(f.check)}</a></td>"
+            f"<td class='n'>{html_number(f.pitch_nm)}</td>"
             f"<td class='n'>{html_number(f.width_nm)} / {html_number(f.space_nm)}</td>"
-            f"<td class='n'>{f.k1:.3f}</td><td class='n'>{len(g.findings)}</td></tr>"
+            f"<td class='n'>{html_number(f.k1, '.3f')}</td>"
+            f"<td class='n'>{len(g.findings)}</td></tr>"
         )
     opened = " open" if len(groups) <= 30 else ""
     return (
@@ -171,8 +173,9 @@ def remaining_html(groups: list[Group], start: int) -> str:
             f'<tr data-severity="{attr_text(f.severity)}" data-layer="{attr_text(f.layer)}">'
             f"<td class='n'>{k}</td><td><span class='sev {attr_text(f.severity)}'>"
             f"{esc(f.severity)}</span></td><td>{esc(f.layer)}</td><td>{esc(f.check)}</td>"
-            f"<td class='n'>{f.pitch_nm:.1f}</td><td class='n'>{html_number(f.width_nm)} / "
-            f"{html_number(f.space_nm)}</td><td class='n'>{f.k1:.3f}</td>"
+            f"<td class='n'>{html_number(f.pitch_nm)}</td>"
+            f"<td class='n'>{html_number(f.width_nm)} / {html_number(f.space_nm)}</td>"
+            f"<td class='n'>{html_number(f.k1, '.3f')}</td>"
             f"<td class='n'>{len(g.findings)}</td><td class='n'>{cx:.3f}, {cy:.3f}</td></tr>"
         )
     more = (

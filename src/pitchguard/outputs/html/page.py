@@ -41,9 +41,9 @@ def _groups_text(n: int) -> str:
 
 
 CAVEATS = (
-    "The pictures and numbers below image a 1-D cut through each region and print it with a "
-    "constant threshold: polarisation, mask 3-D, resist, aberration and line-end effects are "
-    "not modelled."
+    "The pictures and numbers below image a 1-D cut through each line region, the periodic "
+    "cell of each array and a 2-D clip around each line end, and print them with a constant "
+    "threshold: polarisation, mask 3-D, resist, aberration and OPC are not modelled."
 )
 
 

@@ -67,6 +67,10 @@ class FindingPictures:
             from pitchguard.outputs.html.array_picture import array_picture
 
             return array_picture(f, rule, self.scale)
+        if rule is not None and f.tip is not None:
+            from pitchguard.outputs.html.tip_picture import tip_picture
+
+            return tip_picture(f, rule, self.scale)
         if rule is None or not f.cut_bounds_nm:
             return None, (
                 "Not imaged (image checks off for this layer, or the site has no "

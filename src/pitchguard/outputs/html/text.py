@@ -37,7 +37,11 @@ def value_vs_limit(check: str, value: float, limit: float) -> str:
         "low-exposure-latitude": lambda v, lim: f"EL {v:.1f} % &lt; {lim:g} %",
         "low-depth-of-focus": lambda v, lim: f"DOF {v:.0f} nm &lt; {lim:.0f} nm",
         "cd-error": lambda v, lim: f"CD error {v:+.1f} % outside ±{lim:g} %",
+        "line-end-bridged": lambda v, lim: f"closes at {v:.0f} nm defocus, within ±{lim:.0f} nm",
+        "line-end-pullback": lambda v, lim: f"pullback {v:.1f} nm &gt; {lim:.1f} nm",
     }
+    if check == "line-end-bridged" and not math.isfinite(limit):
+        return f"{value:.1f} nm gap closed at best focus"
     if not (math.isfinite(value) and math.isfinite(limit)):
         return f"{esc(value)} against {esc(limit)}"
     form = forms.get(check)
