@@ -75,6 +75,10 @@ EXPECTED_2D = [
     # outweighs the 6 % background of opposite phase; they do not print.
     ("via1 50 nm array, pitch 200", "via1", "feature-not-printed", "fail", (4.5, 24.5)),
     ("via1 80 nm array, pitch 160", "via1", None, None, (8.5, 24.5)),
+    # Vias on their own, judged on a 2-D clip: a 50 nm one does not print, an
+    # 80 nm one does.
+    ("via1 50 nm alone", "via1", "feature-not-printed", "fail", (11.025, 24.525)),
+    ("via1 80 nm alone", "via1", None, None, (12.54, 24.54)),
 ]
 
 
@@ -182,6 +186,8 @@ def build() -> gdstk.Library:
     via80 = lib.new_cell("VIA1_80")
     via80.add(gdstk.rectangle((0, 0), (0.08, 0.08), layer=VIA1[0], datatype=VIA1[1]))
     top.add(gdstk.Reference(via80, (7, 24), columns=12, rows=12, spacing=(0.16, 0.16)))
+    top.add(gdstk.Reference(via, (11, 24.5)))
+    top.add(gdstk.Reference(via80, (12.5, 24.5)))
 
     # ------------------------------------------------------------ ignored layer
     notes = line_cell(lib, "NOTES_P20", ANNOTATION, 20, 10, 20, 1000)

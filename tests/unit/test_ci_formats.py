@@ -17,6 +17,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+import math
 import xml.etree.ElementTree as ET
 from collections import Counter
 from pathlib import Path
@@ -217,12 +218,12 @@ def test_results_point_at_the_layout_without_invented_regions(demo):
         assert props["bbox_um"] == list(f.bbox_um)
         assert props["centre_um"] == list(f.centre_um)
         assert len(props["outline_um"]) == 4
-        if f.tip is None:  # a line end has no pitch or k1: null
+        if math.isfinite(f.pitch_nm):  # line ends and lone features: no pitch or k1, null
             assert props["pitch_nm"] == f.pitch_nm and props["k1"] == f.k1
             size = f"{f.pitch_nm:.1f} nm"
         else:
             assert props["pitch_nm"] is None and props["k1"] is None
-            size = f"{f.space_nm:.1f} nm gap"
+            size = f"{f.space_nm:.1f} nm gap" if f.tip else f"{f.width_nm:.1f} x"
         assert "nils" in props
         text = r["message"]["text"]
         for piece in (f.layer, f.check, size, f.hint, f.severity):
@@ -451,7 +452,7 @@ def test_junit_structure(demo):
                 assert failure.get("message")
                 line = failure.text
                 assert line.startswith("fail | ") and "fix: " in line
-                assert any(w in line for w in ("pitch ", "gap ", "lattice "))
+                assert any(w in line for w in ("pitch ", "gap ", "lattice ", "on its own"))
                 covered.add(check)
         assert covered == set(CHECKS)  # every check of every layer is visible
         all_out += "\n".join(o.text or "" for o in suite.iter("system-out")) + "\n"

@@ -23,10 +23,13 @@ from pitchguard.optics.lattice_orders import LatticeOrders
 from pitchguard.optics.resist2d import Metrics2D
 
 
-def array_violations(rule: LayerRule, lo: LatticeOrders, m: Metrics2D | None) -> list[Violation]:
-    """Every limit an array of compact features breaks, worst first (wafer nm)."""
+def array_violations(
+    rule: LayerRule, lo: LatticeOrders | None, m: Metrics2D | None
+) -> list[Violation]:
+    """Every limit an array of compact features breaks, worst first (wafer nm);
+    ``lo`` None: a feature on its own, judged by its clip's image alone."""
     out: list[Violation] = []
-    lost = [d for d in lo.first if not d.resolved]
+    lost = [d for d in lo.first if not d.resolved] if lo is not None else []
     if lost and not lo.resolved:
         # The coarsest direction lost tells most: finer ones are lost with it.
         d = max(lost, key=lambda d: d.pitch_nm)
@@ -43,18 +46,19 @@ def array_violations(rule: LayerRule, lo: LatticeOrders, m: Metrics2D | None) ->
         )
     if m is not None:
         out.extend(printing_violations(m.missing, m.merged, m.contrast, "joins its neighbours"))
-    v = band_violation(
-        rule,
-        "low-k1",
-        lo.k1,
-        K1_BANDS,
-        lambda limit, key: (
-            f"k1 {lo.k1:.3f} is below {limit:g} ({key}) at lattice spacing "
-            f"{lo.pitch_min_nm:.1f} nm (wafer)"
-        ),
-    )
-    if v is not None:
-        out.append(v)
+    if lo is not None:
+        v = band_violation(
+            rule,
+            "low-k1",
+            lo.k1,
+            K1_BANDS,
+            lambda limit, key: (
+                f"k1 {lo.k1:.3f} is below {limit:g} ({key}) at lattice spacing "
+                f"{lo.pitch_min_nm:.1f} nm (wafer)"
+            ),
+        )
+        if v is not None:
+            out.append(v)
     if m is not None and not (m.missing or m.merged):
         nils = min(m.nils_x, m.nils_y)
         v = band_violation(

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from pitchguard.deck import LayerRule
-from pitchguard.geometry.lattice import ROW, LatticeArrays
+from pitchguard.geometry.lattice import NONE, ROW, LatticeArrays
 from pitchguard.judge.array_checks import array_violations
 from pitchguard.judge.checks import Violation
 from pitchguard.judge.findings import ArrayShape, Finding
@@ -157,7 +157,10 @@ def judge_arrays(arrays: LatticeArrays, rule: LayerRule, scale: float) -> ArrayV
     out.arrays = len(arrays)
     in_array = arrays.array >= 0
     out.members = int(in_array.sum())
-    out.isolated = int((~in_array).sum())
+    # Features with no lattice at all are judged on clips of their own
+    # (judge.compact_clips) when the layer is imaged.
+    alone = (arrays.sites.lattice == NONE) if rule.image_checks else np.zeros(len(in_array), bool)
+    out.isolated = int((~in_array & ~alone).sum())
     f = arrays.sites.features
     out.judged_nm = float(2.0 * f.size[in_array].sum())
     tol = arrays.sites.tol_nm * scale

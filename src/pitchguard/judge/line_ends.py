@@ -25,6 +25,7 @@ from pitchguard.geometry.line_ends import LineEnds, facing, find_line_ends
 from pitchguard.geometry.rectangles import canonical_rectangles, rectangles, turned_points
 from pitchguard.geometry.sites import in_region
 from pitchguard.geometry.spatial import build_rtree, query_pairs
+from pitchguard.judge.caches import layer_cache
 from pitchguard.judge.checks import Violation
 from pitchguard.judge.findings import Finding, TipShape
 from pitchguard.layout.polygons import PolygonSet
@@ -63,17 +64,7 @@ def _clip_rects(ps: PolygonSet, near: np.ndarray, centre, angle_deg: float, wind
 
 
 _CACHES: dict = {}
-"""Tip metrics per deck layer (by identity; the layer is kept so the key stays its
-own) for the life of the process: tiles of one scan share them."""
-
-
-def _cache_for(rule: LayerRule) -> dict:
-    hit = _CACHES.get(id(rule))
-    if hit is None or hit[0] is not rule:
-        if len(_CACHES) >= 8:
-            _CACHES.pop(next(iter(_CACHES)))
-        hit = _CACHES[id(rule)] = (rule, {})
-    return hit[1]
+"""Judgements per deck layer, for the life of the process (see judge.caches)."""
 
 
 def judge_line_ends(
@@ -120,7 +111,7 @@ def judge_line_ends(
     order = np.argsort(q, kind="stable")
     q, hit = q[order], hit[order]
     bounds = np.searchsorted(q, np.arange(len(idx) + 1))
-    cache = _cache_for(rule)
+    cache = layer_cache(_CACHES, rule)
     for j, k in enumerate(idx.tolist()):
         angle = float(angles[j])
         near = hit[bounds[j] : bounds[j + 1]]

@@ -14,7 +14,7 @@ the latitude at ``el_min_pct``, its ends interpolated between focus samples.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import ndimage
@@ -49,6 +49,10 @@ class Metrics2D:
     dof_nm: float  # at el_min_pct, the smaller of the two axes'
     threshold: float  # nominal threshold (relative to the open frame)
     dose_to_size: float  # relative to the nominal dose: the x size on size (nan when never)
+
+    def with_printing(self, contrast: float, missing: bool, merged: bool) -> Metrics2D:
+        """These metrics with the contrast and the printed state set."""
+        return replace(self, contrast=float(contrast), missing=bool(missing), merged=bool(merged))
 
 
 def _size_threshold(t: np.ndarray, cd: np.ndarray, target: float) -> float:
@@ -198,7 +202,6 @@ def evaluate_2d(
     best = int(np.argmin(np.abs(focus)))
     x0, y0, x1, y1 = feature
     xc, yc = 0.5 * (x0 + x1), 0.5 * (y0 + y1)
-    wx, wy = x1 - x0, y1 - y0
     if search is None:
         search = ((float(x[0]), float(x[-1])), (float(y[0]), float(y[-1])))
     (xlo, xhi), (ylo, yhi) = search
@@ -215,8 +218,55 @@ def evaluate_2d(
             [np.interp([x0, x1], x, inten0[iy]), np.interp([y0, y1], y, inten0[:, ix])]
         )
         d_e = np.concatenate([np.interp([x0, x1], x, gx), np.interp([y0, y1], y, gy)])
-    else:
-        i_e, d_e = (np.asarray(v, dtype=np.float64).ravel() for v in edge_values)
+        edge_values = (i_e, d_e)
+    ax = axis_metrics(
+        x,
+        y,
+        images[:, iy, :],
+        images[:, :, ix],
+        focus,
+        feature,
+        bright,
+        nominal_threshold,
+        tol,
+        el_min_pct,
+        edge_values,
+        search,
+        (float(images.min()), float(images.max())),
+    )
+    t_nom = ax.threshold
+    printed = inten0 > t_nom if bright else inten0 < t_nom
+    missing = not bool(printed[iy, ix])  # as resist: the centre does not print
+    merged = not missing and _joined(printed, x, y, (xc, yc), others)
+    return ax.with_printing(contrast, missing, merged)
+
+
+def axis_metrics(
+    x: np.ndarray,
+    y: np.ndarray,
+    rows: np.ndarray,
+    cols: np.ndarray,
+    focus: np.ndarray,
+    feature: tuple[float, float, float, float],
+    bright: bool,
+    nominal_threshold: float | None,
+    tol: float,
+    el_min_pct: float,
+    edge_values: tuple[np.ndarray, np.ndarray],
+    search: tuple[tuple[float, float], tuple[float, float]],
+    t_range: tuple[float, float],
+) -> Metrics2D:
+    """The metrics read along the feature's two axes (see :func:`evaluate_2d`):
+    ``rows`` ``(F, len(x))`` through the centre along x, ``cols`` ``(F, len(y))``
+    along y, one per focus; thresholds sampled over ``t_range``.  Contrast,
+    missing and merged are left for the caller (:meth:`Metrics2D.with_printing`)."""
+    focus = np.asarray(focus, dtype=np.float64)
+    best = int(np.argmin(np.abs(focus)))
+    x0, y0, x1, y1 = feature
+    xc, yc = 0.5 * (x0 + x1), 0.5 * (y0 + y1)
+    wx, wy = x1 - x0, y1 - y0
+    (xlo, xhi), (ylo, yhi) = search
+    i_e, d_e = (np.asarray(v, dtype=np.float64).ravel() for v in edge_values)
     with np.errstate(divide="ignore", invalid="ignore"):
         nils = np.array([wx, wx, wy, wy]) * np.abs(d_e) / i_e
     if np.all(i_e > 0):
@@ -224,9 +274,7 @@ def evaluate_2d(
     else:
         nils_x = nils_y = 0.0
 
-    t = np.linspace(float(images.min()), float(images.max()), THRESHOLD_SAMPLES)
-    rows = images[:, iy, :]  # (F, nx): through the centre along x
-    cols = images[:, :, ix]  # (F, ny): along y
+    t = np.linspace(t_range[0], t_range[1], THRESHOLD_SAMPLES)
     # Per axis (0: x, 1: y), per focus: the dose window keeping that size within
     # tolerance around its own dose-to-size (as OPC would size each axis).
     lows = np.full((2, len(focus)), np.nan)
@@ -256,10 +304,6 @@ def evaluate_2d(
         err_x = 100.0 * (size_x - wx) / wx
         err_y = 100.0 * (size_y - wy) / wy
 
-    printed = inten0 > t_nom if bright else inten0 < t_nom
-    missing = not bool(printed[iy, ix])  # as resist: the centre does not print
-    merged = not missing and _joined(printed, x, y, (xc, yc), others)
-
     el, dof = math.inf, math.inf
     order = np.argsort(focus)
     for a in range(2):
@@ -274,15 +318,15 @@ def evaluate_2d(
     dts = t_nom / t_size if (math.isfinite(t_size) and t_size > 0) else math.nan
     # Python floats: metrics travel between processes (see resist.evaluate).
     return Metrics2D(
-        contrast=float(contrast),
+        contrast=math.nan,
         nils_x=nils_x,
         nils_y=nils_y,
         size_x_nm=size_x,
         size_y_nm=size_y,
         size_error_x_pct=float(err_x),
         size_error_y_pct=float(err_y),
-        missing=missing,
-        merged=merged,
+        missing=False,
+        merged=False,
         el_pct=el,
         dof_nm=dof,
         threshold=float(t_nom),

@@ -79,6 +79,9 @@ def pattern_text(f: Finding) -> str:
             f"a line end {nm_text(f.width_nm)} nm wide, {f.periodicity} across a "
             f"{nm_text(f.space_nm)} nm gap, the line running at {f.orientation_deg:g} deg"
         )
+    if a is not None and a.lattice == "alone":
+        w, h = a.feature_nm
+        return f"a feature {nm_text(w)} x {nm_text(h)} nm with no other of its shape within reach"
     if a is None:
         return (
             f"{f.lines} lines ({f.periodicity}) running at {f.orientation_deg:g} deg, "
@@ -128,6 +131,9 @@ def finding_line(f: Finding, where: str | None = None) -> str:
 
 def pattern_brief(f: Finding) -> str:
     """:func:`pattern_text` in a few words."""
+    if f.array is not None and f.array.lattice == "alone":
+        w, h = f.array.feature_nm
+        return f"feature {nm_text(w)} x {nm_text(h)} nm on its own"
     if f.context == "line-end":
         return f"{f.periodicity} gap {nm_text(f.space_nm)} nm (line {nm_text(f.width_nm)} nm)"
     if f.array is None:

@@ -22,6 +22,7 @@ from pitchguard.geometry.lattice import (
 )
 from pitchguard.geometry.sites import ExtractStats, find_sites, in_region
 from pitchguard.judge.arrays import ArrayVerdicts, judge_arrays
+from pitchguard.judge.compact_clips import judge_alone
 from pitchguard.judge.findings import Finding
 from pitchguard.judge.line_ends import TipVerdicts, judge_line_ends
 from pitchguard.judge.order import sort_findings
@@ -128,6 +129,12 @@ def scan_polygons(
         lattice = lattice_sites(
             near, grid_nm, compact_max, reach, region=region_nm, compact=compact
         )
+        alone = judge_alone(lattice, near, rule, scale, grid_nm, region=region_nm)
+        regions.extend(Region(f) for f in alone.findings)
+        if alone.judged:
+            ex.extra["compact_alone_judged"] = alone.judged
+        if alone.not_manhattan:
+            ex.extra["compact_alone_not_manhattan"] = alone.not_manhattan
         if len(compact) and len(sites):
             mid = sites.origin + sites.direction * (0.5 * (sites.u0 + sites.u1))[:, None]
             inward = mid - sites.normal * (0.25 * grid_nm)
@@ -187,7 +194,7 @@ def scan_polygons(
         judged = np.isfinite(sites.pitch)  # the order rules judge every finite pitch
         if which_cut is not None:
             judged |= which_cut >= 0
-        ex.judged_nm = float((sites.u1 - sites.u0)[judged].sum()) + tips.judged_nm
+        ex.judged_nm = float((sites.u1 - sites.u0)[judged].sum()) + tips.judged_nm + alone.judged_nm
         add_tip_counts(ex, tips)
         if not tile:
             verdicts = judge_arrays(find_arrays(lattice), rule, scale)

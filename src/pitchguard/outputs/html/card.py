@@ -99,7 +99,9 @@ def _array_rows(f: Finding, rows: list) -> list:
     w, h = a.feature_nm
     vec = "({:.1f}, {:.1f}) nm"
     lattice = f"{esc(a.lattice)}: a1 = {vec.format(*a.a1_nm)}"
-    if a.lattice != "row":
+    if a.lattice == "alone":
+        lattice = "none: no other feature of its shape within reach"
+    elif a.lattice != "row":
         lattice += f", a2 = {vec.format(*a.a2_nm)}"
     extra = [
         ("lattice (drawn)", lattice),
@@ -114,7 +116,12 @@ def _array_rows(f: Finding, rows: list) -> list:
             f"<span class='note'>(worst direction: pitch at {degrees_text(a.worst_angle_deg)}; "
             f"two-beam source fraction {f.two_beam_fraction:.0%})</span>",
         ),
-        ("judged on", "the array's periodic unit cell (its interior)"),
+        (
+            "judged on",
+            "a 2-D clip of the feature and the shapes around it"
+            if a.lattice == "alone"
+            else "the array's periodic unit cell (its interior)",
+        ),
     ]
     return keep[:1] + extra + keep[1:]
 
@@ -230,6 +237,9 @@ def _group_title(g: Group, rule: LayerRule | None) -> str:
             f"line end {html_number(f.width_nm)} nm, {esc(f.tip.kind)} gap "
             f"{html_number(f.space_nm)} nm, line at {degrees_text(f.orientation_deg)}"
         )
+    elif f.array is not None and f.array.lattice == "alone":
+        w, h = f.array.feature_nm
+        meta = f"feature {html_number(w)} x {html_number(h)} nm on its own"
     elif f.array is not None:
         w, h = f.array.feature_nm
         meta = (

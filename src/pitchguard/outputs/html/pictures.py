@@ -63,6 +63,10 @@ class FindingPictures:
     def image_picture(self, f: Finding, mirrored: bool) -> tuple[str | None, str]:
         """PNG (base64) of the aerial image across ``f``'s cut and a caption."""
         rule = self.rules.get(f.layer)
+        if rule is not None and f.array is not None and f.array.lattice == "alone":
+            from pitchguard.outputs.html.tip_picture import alone_picture
+
+            return alone_picture(f, rule, *self._layer(rule), self.scale)
         if rule is not None and f.array is not None:
             from pitchguard.outputs.html.array_picture import array_picture
 

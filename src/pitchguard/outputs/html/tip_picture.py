@@ -1,4 +1,5 @@
-"""The aerial-image picture of a line-end finding: the 2-D image of its clip."""
+"""Aerial-image pictures of findings judged on 2-D clips: line ends and features on
+their own."""
 
 from __future__ import annotations
 
@@ -52,6 +53,68 @@ def tip_picture(f: Finding, rule: LayerRule, scale: float) -> tuple[str | None, 
     fw = feature_word(rule)
     cap = (
         f"Best-focus image of the clip around the line end, bright = light (clear = 1). "
+        f"Dashed: the drawn {fw}s. Solid line: what prints at the nominal threshold "
+        f"{f.threshold:.3f}."
+    )
+    return png, cap
+
+
+def alone_picture(f: Finding, rule: LayerRule, ps, boxes, scale: float) -> tuple[str | None, str]:
+    """PNG (base64) of the best-focus image of the clip a feature on its own was judged
+    on (rebuilt from the layout around it), and a caption."""
+    import math
+
+    from pitchguard.geometry.rectangles import canonical_rectangles, rectangles, turned_points
+    from pitchguard.optics.aerial import Optics, mask_amplitudes
+    from pitchguard.optics.aerial2d import (
+        cell_spectra,
+        coherent_systems_2d,
+        default_samples,
+        exposure_orders,
+        image_axes,
+    )
+    from pitchguard.optics.compact_clips import clip_window, feature_cell
+
+    if ps is None:
+        return None, "Layout geometry is not available for this layer."
+    centre = np.asarray(f.cut_origin_nm, dtype=np.float64)
+    angle = f.array.feature_angle_deg
+    half = clip_window(rule) / scale
+    r = half * math.sqrt(2.0)
+    near = np.flatnonzero(
+        (boxes[:, 0] <= centre[0] + r)
+        & (boxes[:, 2] >= centre[0] - r)
+        & (boxes[:, 1] <= centre[1] + r)
+        & (boxes[:, 3] >= centre[1] - r)
+    )
+    parts = [rectangles(turned_points(ps.polygon(k), centre, angle), 1.01) for k in near.tolist()]
+    if any(p is None for p in parts):
+        return None, "The shapes around the feature are not Manhattan in its frame: no picture."
+    rects = canonical_rectangles(
+        np.concatenate(parts) if parts else np.zeros((0, 4)), (-half, -half, half, half), 0.5
+    )
+    rects = rects * scale
+    cell = feature_cell(rule, rects)
+    e = rule.exposure
+    orders = exposure_orders(e, cell.px_nm, cell.py_nm)
+    nx, ny = default_samples(orders, Optics.of(e))
+    spec = cell_spectra([cell], orders, *mask_amplitudes(e, rule.field))
+    image = coherent_systems_2d(e, cell.px_nm, cell.py_nm, 0.0, angle).image(spec, nx, ny)[0]
+    x, y = image_axes(orders, nx, ny)
+    h = half * scale
+    keep_x, keep_y = np.abs(x) <= h, np.abs(y) <= h
+    png = image_2d_png(
+        x[keep_x],
+        y[keep_y],
+        image[np.ix_(keep_y, keep_x)],
+        f.threshold,
+        rects,
+        "x (nm, wafer; the feature's frame)",
+        f"Aerial image around the feature ({rule.exposure_name})",
+    )
+    fw = feature_word(rule)
+    cap = (
+        f"Best-focus image of the clip around the feature, bright = light (clear = 1). "
         f"Dashed: the drawn {fw}s. Solid line: what prints at the nominal threshold "
         f"{f.threshold:.3f}."
     )

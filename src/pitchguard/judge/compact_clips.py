@@ -1,0 +1,189 @@
+"""Compact features on their own judged on 2-D clips: a via or contact with no
+other feature of its shape within reach has no lattice to judge, so its image
+among the shapes around it is (:mod:`pitchguard.optics.compact_clips`).
+
+The layer's shapes within the clip window are turned into the feature's frame
+and cut into canonical rectangles; identical clips are imaged once per
+process.  A clip holding a shape that is not Manhattan in the feature's frame
+is counted, not judged.  Features in pairs, rows or irregular groups that form
+no array are counted, not judged (``compact_not_in_array``).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from pitchguard.deck import LayerRule
+from pitchguard.geometry.lattice import NONE
+from pitchguard.geometry.lattice.records import LatticeSites
+from pitchguard.geometry.rectangles import canonical_rectangles, rectangles, turned_points
+from pitchguard.geometry.sites import in_region
+from pitchguard.geometry.spatial import build_rtree, query_pairs
+from pitchguard.judge.array_checks import array_violations
+from pitchguard.judge.caches import layer_cache
+from pitchguard.judge.findings import ArrayShape, Finding
+from pitchguard.layout.polygons import PolygonSet
+from pitchguard.optics.aerial2d import source_angle
+from pitchguard.optics.compact_clips import alone_metrics, clip_window
+
+KEY_DECIMALS = 2
+"""Clip rectangles are compared to 0.01 nm (drawn)."""
+
+
+@dataclass
+class AloneVerdicts:
+    """What judging one layer's lone compact features gave."""
+
+    findings: list[Finding] = field(default_factory=list)
+    judged: int = 0
+    judged_nm: float = 0.0  # drawn perimeter of the features judged
+    not_manhattan: int = 0
+
+
+_CACHES: dict = {}
+"""Judgements per deck layer, for the life of the process (see judge.caches)."""
+
+
+def judge_alone(
+    lattice: LatticeSites,
+    ps: PolygonSet,
+    rule: LayerRule,
+    scale: float,
+    grid_nm: float,
+    region=None,
+) -> AloneVerdicts:
+    """Judge the features of ``lattice`` with no lattice (class NONE) in ``region``
+    on clips of ``ps`` (drawn nm; it must hold every shape within the window)."""
+    out = AloneVerdicts()
+    f = lattice.features
+    pick = lattice.lattice == NONE
+    if region is not None:
+        pick &= in_region(f.centroid, region)
+    idx = np.flatnonzero(pick)
+    if not len(idx) or not rule.image_checks:
+        return out
+    half = clip_window(rule) / scale
+    bb = ps.bounding_boxes()
+    tree = build_rtree(bb[:, :2], bb[:, 2:])
+    centres = f.centre[idx]
+    r = half * math.sqrt(2.0)
+    q, hit = query_pairs(tree, centres - r, centres + r)
+    order = np.argsort(q, kind="stable")
+    q, hit = q[order], hit[order]
+    bounds = np.searchsorted(q, np.arange(len(idx) + 1))
+    cache = layer_cache(_CACHES, rule)
+    tol = 1.01 * grid_nm
+    for j, k in enumerate(idx.tolist()):
+        angle = float(f.angle_deg[k])
+        parts = []
+        for p in hit[bounds[j] : bounds[j + 1]].tolist():
+            rr = rectangles(turned_points(ps.polygon(p), f.centre[k], angle), tol)
+            if rr is None:
+                break
+            parts.append(rr)
+        else:
+            rects = canonical_rectangles(
+                np.concatenate(parts) if parts else np.zeros((0, 4)),
+                (-half, -half, half, half),
+                0.5 * grid_nm,
+            )
+            w, h = (float(v) for v in f.size[k])
+            key = (
+                np.round(rects, KEY_DECIMALS).tobytes(),
+                round(w, KEY_DECIMALS),
+                round(h, KEY_DECIMALS),
+                source_angle(rule.exposure, angle),
+            )
+            hit_v = cache.get(key)
+            if hit_v is None:
+                m = alone_metrics(rule, rects * scale, (w * scale, h * scale), angle)
+                hit_v = cache[key] = (m, tuple(array_violations(rule, None, m)))
+            m, vs = hit_v
+            out.judged += 1
+            out.judged_nm += 2.0 * (w + h)
+            if vs:
+                out.findings.append(_finding(rule, vs, m, f, k))
+            continue
+        out.not_manhattan += 1
+    return out
+
+
+def _finding(rule: LayerRule, vs, m, f, k: int) -> Finding:
+    top = vs[0]
+    w, h = (float(v) for v in f.size[k])
+    angle = float(f.angle_deg[k])
+    t = math.radians(angle)
+    u, v = np.array([math.cos(t), math.sin(t)]), np.array([-math.sin(t), math.cos(t)])
+    c = np.asarray(f.centre[k], dtype=np.float64)
+    outline = tuple(
+        (float(p[0]), float(p[1]))
+        for p in (
+            c + sx * 0.5 * w * u + sy * 0.5 * h * v
+            for sx, sy in ((-1, -1), (1, -1), (1, 1), (-1, 1))
+        )
+    )
+    xs, ys = [p[0] for p in outline], [p[1] for p in outline]
+    good = not (m.missing or m.merged)
+    errors = [e for e in (m.size_error_x_pct, m.size_error_y_pct) if math.isfinite(e)]
+    return Finding(
+        layer=rule.name,
+        source=rule.source,
+        exposure=rule.exposure_name,
+        check=top.check,
+        severity=top.severity,
+        pitch_nm=math.nan,
+        pitch_max_nm=math.nan,
+        width_nm=round(w, 3),
+        space_nm=math.nan,
+        wafer_pitch_nm=math.nan,
+        k1=math.nan,
+        orientation_deg=round(angle % 180.0, 3),
+        orders=(),
+        orders_on_axis=(),
+        two_beam_fraction=math.nan,
+        cutoff_pitch_nm=math.nan,
+        lines=1,
+        periodicity="alone",
+        sites=1,
+        run_nm=round(max(w, h), 3),
+        bbox_nm=(min(xs), min(ys), max(xs), max(ys)),
+        outline_nm=outline,
+        limit=f"{top.check}: {top.value:.4g} against {top.limit:.4g}",
+        message=top.message,
+        hint=_hint(top.check),
+        contrast=round(m.contrast, 4),
+        nils=round(min(m.nils_x, m.nils_y), 3) if good else math.nan,
+        cd_nm=round(m.size_x_nm, 2) if good and math.isfinite(m.size_x_nm) else math.nan,
+        cd_error_pct=round(max(errors, key=abs), 2) if errors else math.nan,
+        el_pct=round(m.el_pct, 2) if good else math.nan,
+        dof_nm=round(m.dof_nm, 1) if good else math.nan,
+        violations=tuple(vs),
+        context="alone",
+        threshold=round(m.threshold, 5),
+        cut_origin_nm=(float(c[0]), float(c[1])),
+        array=ArrayShape(
+            lattice="alone",
+            a1_nm=(math.nan, math.nan),
+            a2_nm=(math.nan, math.nan),
+            feature_nm=(round(w, 3), round(h, 3)),
+            feature_angle_deg=round(angle, 3),
+            features=1,
+            columns=1,
+            rows=1,
+            orders=(),
+            worst_angle_deg=math.nan,
+        ),
+    )
+
+
+def _hint(check: str) -> str:
+    if check == "feature-not-printed":
+        return "enlarge the feature; a feature on its own images worse than one in an array"
+    if check == "features-bridged":
+        return "move the feature away from the shapes around it, or shrink it"
+    if check == "cd-error":
+        return "bias the drawn size (OPC), or check the deck's anchor for this layer"
+    return "enlarge the feature or give it room; a feature on its own images worse than an array"

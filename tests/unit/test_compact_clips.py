@@ -1,0 +1,78 @@
+"""Compact features on their own, judged on a 2-D clip.
+
+Check values:
+
+* The clip is imaged in a periodic window, so a feature alone in it is an
+  array whose period is the window's: its metrics must equal those of that
+  array's unit cell by the array engine (``resist2d.cell_metrics``, itself
+  checked against an independent 2-D implementation in
+  tests/integration/test_array_probe.py).
+* The fast path (truncated coherent systems at the sampled lines) equals
+  the plain Abbe sum (``plain=True``) within the truncation bound.
+* Physics of a lone hole on a 6 % attenuated PSM (from memory, any text on
+  attenuated phase-shift masks): the background transmits sqrt(0.06) = 0.245
+  of the amplitude in opposite phase; a hole much smaller than lambda/NA
+  passes too little light to outweigh it and does not print, while one of
+  about lambda/(2 NA) and larger does.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from decks import DEMO_DECK
+from pitchguard.deck import load_deck
+from pitchguard.optics.cells2d import array_cell
+from pitchguard.optics.compact_clips import alone_metrics, feature_cell
+from pitchguard.optics.resist2d import cell_metrics
+
+
+@pytest.fixture(scope="module")
+def via1():
+    return next(r for r in load_deck(DEMO_DECK).layers if r.name == "via1")
+
+
+@pytest.mark.parametrize("w", [50.0, 80.0, 110.0])
+def test_a_lone_feature_equals_the_array_of_the_window_period(via1, w):
+    rects = np.array([[-w / 2, -w / 2, w / 2, w / 2]])
+    clip = alone_metrics(via1, rects, (w, w), 0.0)
+    plain = alone_metrics(via1, rects, (w, w), 0.0, plain=True)
+    cell = feature_cell(via1, rects)
+    ref = cell_metrics(via1, array_cell(cell.px_nm, cell.py_nm, w, w))[0]
+    for m in (clip, plain):
+        assert m.missing == ref.missing and m.merged == ref.merged
+        assert m.threshold == pytest.approx(ref.threshold, abs=1e-3)
+        if not ref.missing:
+            assert m.size_x_nm == pytest.approx(ref.size_x_nm, abs=0.5)
+            assert m.nils_x == pytest.approx(ref.nils_x, rel=0.01)
+            # EL and DOF read the same windows on another threshold grid.
+            assert m.el_pct == pytest.approx(ref.el_pct, abs=1.5)
+            assert m.dof_nm == pytest.approx(ref.dof_nm, rel=0.1)
+    assert clip.missing == (w < 0.5 * via1.exposure.lambda_over_na_nm)
+
+
+def test_a_neighbour_close_enough_merges_and_one_far_does_not(via1):
+    w = 80.0
+    for gap, merged in ((10.0, True), (200.0, False)):
+        rects = np.array(
+            [[-w / 2, -w / 2, w / 2, w / 2], [w / 2 + gap, -150, w / 2 + gap + 300, 150]]
+        )
+        m = alone_metrics(via1, rects, (w, w), 0.0)
+        assert m.merged == merged and not m.missing, gap
+        p = alone_metrics(via1, rects, (w, w), 0.0, plain=True)
+        assert p.merged == merged
+
+
+def test_the_clip_turns_the_source_with_the_feature():
+    deck = load_deck(DEMO_DECK)
+    m1 = next(r for r in deck.layers if r.name == "metal1")  # x dipole
+    w = 90.0
+    rects = np.array([[-w / 2, -w / 2, w / 2, w / 2], [-w / 2, 90.0, w / 2, 90.0 + w]])
+    a = alone_metrics(m1, rects, (w, w), 0.0)
+    b = alone_metrics(m1, rects, (w, w), 90.0)
+    pa = alone_metrics(m1, rects, (w, w), 90.0, plain=True)
+    assert (b.size_x_nm, b.missing) == pytest.approx((pa.size_x_nm, pa.missing), abs=0.5)
+    assert not math.isclose(a.contrast, b.contrast, abs_tol=1e-3)
