@@ -156,3 +156,25 @@ def test_a_baseline_accepts_its_own_line_end_findings(tmp_path, capsys):
     assert main([*args, "--baseline", str(base), "--json", str(out)]) == 0
     data = json.loads(out.read_text())
     assert data["baseline"]["accepted"] == 4 and data["baseline"]["new"] == 0
+
+
+def test_grouping_ends_by_neighbourhood_changes_nothing(tmp_path, monkeypatch):
+    """Ends with equal neighbourhoods (by hash) are judged once; with every end its
+    own group (the plain way) the findings are the same."""
+    import numpy as np
+
+    import pitchguard.judge.line_ends as le
+
+    layout = tmp_path / "ends.gds"
+    _layout(layout)
+    _, grouped = _scan(tmp_path, layout, DRY_ARF_DECK, "--untiled")
+    monkeypatch.setattr(
+        le, "neighbourhood_hashes", lambda q, hit, n, *a: np.arange(n, dtype=np.uint64)
+    )
+    le._CACHES.clear()
+    _, plain = _scan(tmp_path, layout, DRY_ARF_DECK, "--untiled")
+
+    def key(data):
+        return sorted((f["check"], f["severity"], tuple(f["bbox_um"])) for f in data["findings"])
+
+    assert key(plain) == key(grouped) and len(key(grouped)) == 4

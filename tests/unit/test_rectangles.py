@@ -78,3 +78,31 @@ def test_canonical_rectangles_depend_only_on_the_union():
             if wx0 < (i + 0.5) * STEP < wx1 and wy0 < (j + 0.5) * STEP < wy1
         }
         assert set(cover) == inside
+
+
+def test_neighbourhood_hashes_follow_the_shapes_around_a_point():
+    """Equal neighbourhoods up to a shift hash alike; moving, reshaping or removing a
+    shape changes the hash (by construction: the hash is over shape and place)."""
+    from pitchguard.geometry.rectangles import neighbourhood_hashes, shape_hashes
+    from pitchguard.layout.polygons import PolygonSet
+
+    def square(x, y, s=50.0):
+        return np.array([(x, y), (x + s, y), (x + s, y + s), (x, y + s)], dtype=np.float64)
+
+    base = [square(0, 0), square(120, 0), square(0, 200, 80)]
+    shifted = [p + (5000.0, -3000.0) for p in base]
+    moved = [square(0, 0), square(121, 0), square(0, 200, 80)]
+    reshaped = [square(0, 0), square(120, 0), square(0, 200, 81)]
+    polys = base + shifted + moved + reshaped
+    ps = PolygonSet.from_arrays(polys)
+    q = np.repeat(np.arange(4), 3)
+    hit = np.arange(12)
+    origins = np.array([(0.0, 0.0), (5000.0, -3000.0), (0.0, 0.0), (0.0, 0.0)])
+    h = neighbourhood_hashes(q, hit, 4, origins, ps, shape_hashes(ps, 0.01), 0.01)
+    assert h[0] == h[1]
+    assert len({int(h[0]), int(h[2]), int(h[3])}) == 3
+    # The order in which the shapes were found does not matter.
+    h2 = neighbourhood_hashes(
+        q, hit[[2, 0, 1, 3, 4, 5, 6, 7, 8, 9, 10, 11]], 4, origins, ps, shape_hashes(ps, 0.01), 0.01
+    )
+    assert h2[0] == h[0]

@@ -107,3 +107,82 @@ def canonical_rectangles(rects: np.ndarray, window, tol: float) -> np.ndarray:
             grown[run] = k
         open_runs = grown
     return np.array(out, dtype=np.float64).reshape(-1, 4)
+
+
+def clip_rectangles(polys: list[np.ndarray], window, tol: float, cache: dict, decimals: int = 2):
+    """The canonical rectangles (:func:`canonical_rectangles`) of polygons already in the
+    clip's frame, inside ``window``; None when one is not Manhattan there.
+
+    Each polygon's vertices are first clamped to the window.  For a Manhattan
+    polygon that keeps its part inside the window exactly (a ray from a point
+    inside crosses an edge before clamping iff it does after: clamping is
+    monotone per axis), so clamped vertex lists are a key that repeats wherever
+    the window's content repeats; results are kept in ``cache`` under it.
+    """
+    x0, y0, x1, y1 = window
+    lo, hi = np.array([x0, y0]), np.array([x1, y1])
+    clamped = [np.clip(p, lo, hi) for p in polys]
+    key = ("clip", b"|".join(sorted(np.round(p, decimals).tobytes() for p in clamped)))
+    if key in cache:
+        return cache[key]
+    parts = [rectangles(p, tol) for p in clamped]
+    rects = (
+        None
+        if any(r is None for r in parts)
+        else canonical_rectangles(
+            np.concatenate(parts) if parts else np.zeros((0, 4)), window, 0.5 * tol
+        )
+    )
+    cache[key] = rects
+    return rects
+
+
+_GOLDEN = np.uint64(0x9E3779B97F4A7C15)
+
+
+def _mix(v: np.ndarray) -> np.ndarray:
+    """A 64-bit mixing function (splitmix64's finaliser) on uint64 arrays (wrapping)."""
+    with np.errstate(over="ignore"):
+        z = v + _GOLDEN
+        z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+        z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+        return z ^ (z >> np.uint64(31))
+
+
+def _ticks(x: np.ndarray, step: float) -> np.ndarray:
+    return np.round(np.asarray(x) / step).astype(np.int64).view(np.uint64)
+
+
+def shape_hashes(ps, step: float) -> np.ndarray:
+    """Per polygon of ``ps``: a 64-bit hash of its vertices relative to its box's
+    lower-left corner (in ``step`` units), in order."""
+    n = len(ps)
+    if n == 0:
+        return np.zeros(0, dtype=np.uint64)
+    bb = ps.bounding_boxes()
+    sizes = np.diff(ps.starts)
+    owner = np.repeat(np.arange(n), sizes)
+    rel = ps.points - bb[owner, :2]
+    pos = (np.arange(len(owner)) - ps.starts[owner]).astype(np.uint64)
+    h = _mix(_mix(_mix(_ticks(rel[:, 0], step)) ^ _ticks(rel[:, 1], step)) ^ pos)
+    out = np.zeros(n, dtype=np.uint64)
+    with np.errstate(over="ignore"):
+        np.add.at(out, owner, h)
+    return out
+
+
+def neighbourhood_hashes(
+    q: np.ndarray, hit: np.ndarray, n: int, origins: np.ndarray, ps, shapes, step: float
+) -> np.ndarray:
+    """Per query ``0..n-1``: an order-free 64-bit hash of the polygons ``hit`` found for
+    it (``q``), each by its shape hash and its box's lower-left corner relative to
+    the query's ``origins`` row (``step`` units).  Equal neighbourhoods up to a
+    shift get equal hashes; a different neighbourhood the same hash with
+    probability about 2^-64 per pair."""
+    bb = ps.bounding_boxes()
+    rel = bb[hit, :2] - origins[q]
+    h = _mix(_mix(_mix(shapes[hit]) ^ _ticks(rel[:, 0], step)) ^ _ticks(rel[:, 1], step))
+    out = np.zeros(n, dtype=np.uint64)
+    with np.errstate(over="ignore"):
+        np.add.at(out, q, h)
+    return out

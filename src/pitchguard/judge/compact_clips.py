@@ -19,7 +19,12 @@ import numpy as np
 from pitchguard.deck import LayerRule
 from pitchguard.geometry.lattice import NONE
 from pitchguard.geometry.lattice.records import LatticeSites
-from pitchguard.geometry.rectangles import canonical_rectangles, rectangles, turned_points
+from pitchguard.geometry.rectangles import (
+    clip_rectangles,
+    neighbourhood_hashes,
+    shape_hashes,
+    turned_points,
+)
 from pitchguard.geometry.sites import in_region
 from pitchguard.geometry.spatial import build_rtree, query_pairs
 from pitchguard.judge.array_checks import array_violations
@@ -76,38 +81,37 @@ def judge_alone(
     bounds = np.searchsorted(q, np.arange(len(idx) + 1))
     cache = layer_cache(_CACHES, rule)
     tol = 1.01 * grid_nm
+    step = 10.0**-KEY_DECIMALS
+    around = neighbourhood_hashes(q, hit, len(idx), centres, ps, shape_hashes(ps, step), step)
     for j, k in enumerate(idx.tolist()):
         angle = float(f.angle_deg[k])
-        parts = []
-        for p in hit[bounds[j] : bounds[j + 1]].tolist():
-            rr = rectangles(turned_points(ps.polygon(p), f.centre[k], angle), tol)
-            if rr is None:
-                break
-            parts.append(rr)
-        else:
-            rects = canonical_rectangles(
-                np.concatenate(parts) if parts else np.zeros((0, 4)),
-                (-half, -half, half, half),
-                0.5 * grid_nm,
-            )
-            w, h = (float(v) for v in f.size[k])
-            key = (
-                np.round(rects, KEY_DECIMALS).tobytes(),
-                round(w, KEY_DECIMALS),
-                round(h, KEY_DECIMALS),
-                source_angle(rule.exposure, angle),
-            )
-            hit_v = cache.get(key)
-            if hit_v is None:
-                m = alone_metrics(rule, rects * scale, (w * scale, h * scale), angle)
-                hit_v = cache[key] = (m, tuple(array_violations(rule, None, m)))
-            m, vs = hit_v
-            out.judged += 1
-            out.judged_nm += 2.0 * (w + h)
-            if vs:
-                out.findings.append(_finding(rule, vs, m, f, k))
+        w, h = (float(v) for v in f.size[k])
+        shape = (round(w, KEY_DECIMALS), round(h, KEY_DECIMALS), source_angle(rule.exposure, angle))
+        seen = ("around", int(around[j]), bounds[j + 1] - bounds[j], round(angle, 6), *shape)
+        hit_v = cache.get(seen)
+        if hit_v is None:
+            polys = [
+                turned_points(ps.polygon(p), f.centre[k], angle)
+                for p in hit[bounds[j] : bounds[j + 1]].tolist()
+            ]
+            rects = clip_rectangles(polys, (-half, -half, half, half), tol, cache, KEY_DECIMALS)
+            hit_v = None
+            if rects is not None:
+                key = (np.round(rects, KEY_DECIMALS).tobytes(), *shape)
+                hit_v = cache.get(key)
+                if hit_v is None:
+                    m = alone_metrics(rule, rects * scale, (w * scale, h * scale), angle)
+                    hit_v = cache[key] = (m, tuple(array_violations(rule, None, m)))
+            cache[seen] = hit_v if hit_v is not None else (None, None)
+            hit_v = cache[seen]
+        m, vs = hit_v
+        if m is None:
+            out.not_manhattan += 1
             continue
-        out.not_manhattan += 1
+        out.judged += 1
+        out.judged_nm += 2.0 * (w + h)
+        if vs:
+            out.findings.append(_finding(rule, vs, m, f, k))
     return out
 
 

@@ -22,7 +22,12 @@ from pitchguard.geometry.features import Edges
 from pitchguard.geometry.lattice.compact import points_on_features
 from pitchguard.geometry.lattice.records import FeatureColumns
 from pitchguard.geometry.line_ends import LineEnds, facing, find_line_ends
-from pitchguard.geometry.rectangles import canonical_rectangles, rectangles, turned_points
+from pitchguard.geometry.rectangles import (
+    clip_rectangles,
+    neighbourhood_hashes,
+    shape_hashes,
+    turned_points,
+)
 from pitchguard.geometry.sites import in_region
 from pitchguard.geometry.spatial import build_rtree, query_pairs
 from pitchguard.judge.caches import layer_cache
@@ -47,20 +52,6 @@ class TipVerdicts:
     open_by_distance: int = 0  # nothing in front within reach: not judged
     not_manhattan: int = 0  # clip not made of rectangles: not judged
     distinct: int = 0  # clips imaged here
-
-
-def _clip_rects(ps: PolygonSet, near: np.ndarray, centre, angle_deg: float, window, grid_nm):
-    """The polygons ``near`` in the tip's frame, inside ``window``, as canonical
-    rectangles (drawn nm); None when one is not Manhattan in that frame."""
-    tol = 1.01 * grid_nm
-    parts = []
-    for k in near.tolist():
-        r = rectangles(turned_points(ps.polygon(k), centre, angle_deg), tol)
-        if r is None:
-            return None
-        parts.append(r)
-    rects = np.concatenate(parts) if parts else np.zeros((0, 4))
-    return canonical_rectangles(rects, window, 0.5 * grid_nm)
 
 
 _CACHES: dict = {}
@@ -112,33 +103,56 @@ def judge_line_ends(
     q, hit = q[order], hit[order]
     bounds = np.searchsorted(q, np.arange(len(idx) + 1))
     cache = layer_cache(_CACHES, rule)
-    for j, k in enumerate(idx.tolist()):
+    # A tip's neighbourhood (the shapes and their places around it) by hash: a
+    # repeated one is judged once.
+    step = 10.0**-KEY_DECIMALS
+    around = neighbourhood_hashes(q, hit, len(idx), ends.mid[idx], ps, shape_hashes(ps, step), step)
+    # Ends with equal neighbourhoods, sizes and turn are one group, judged once.
+    count = np.diff(bounds)
+    ticks = np.round(
+        np.stack(
+            [ends.width[idx], ends.gap[idx], np.minimum(ends.side[idx], lam_na), angles], axis=1
+        )
+        / step
+    ).astype(np.int64)
+    rows = np.column_stack([around.view(np.int64), count, ticks])
+    _, first, group = np.unique(rows, axis=0, return_index=True, return_inverse=True)
+    group = group.reshape(-1)
+    verdicts = []
+    for j in first.tolist():
+        k = int(idx[j])
         angle = float(angles[j])
-        near = hit[bounds[j] : bounds[j + 1]]
-        rects = _clip_rects(ps, near, ends.mid[k], angle, window, grid_nm)
-        if rects is None:
-            out.not_manhattan += 1
-            continue
         w, gap = float(ends.width[k]), float(ends.gap[k])
         side = min(float(ends.side[k]), lam_na)  # only the first lambda/NA matters
-        key = (
-            np.round(rects, KEY_DECIMALS).tobytes(),
-            round(w, KEY_DECIMALS),
-            round(gap, KEY_DECIMALS),
-            round(side, KEY_DECIMALS),
-            source_angle(rule.exposure, angle),
-        )
-        m = cache.get(key)
-        if m is None:
-            m = tip_metrics(rule, rects * scale, w * scale, gap * scale, side * scale, angle)
-            cache[key] = m
-            out.distinct += 1
-        out.judged += 1
-        out.judged_nm += w
-        vs = tip_violations(rule, m, gap * scale)
-        if vs:
-            tip_to_tip = ends.facing_end[k] >= 0
-            out.findings.append(_finding(rule, vs, m, ends, k, tip_to_tip, rects))
+        near = hit[bounds[j] : bounds[j + 1]]
+        polys = [turned_points(ps.polygon(p), ends.mid[k], angle) for p in near.tolist()]
+        rects = clip_rectangles(polys, window, 1.01 * grid_nm, cache, KEY_DECIMALS)
+        m, vs = None, []
+        if rects is not None:
+            key = (
+                np.round(rects, KEY_DECIMALS).tobytes(),
+                round(w, KEY_DECIMALS),
+                round(gap, KEY_DECIMALS),
+                round(side, KEY_DECIMALS),
+                source_angle(rule.exposure, angle),
+            )
+            m = cache.get(key)
+            if m is None:
+                m = tip_metrics(rule, rects * scale, w * scale, gap * scale, side * scale, angle)
+                cache[key] = m
+                out.distinct += 1
+            vs = tip_violations(rule, m, gap * scale)
+        verdicts.append((rects, m, vs))
+    manhattan = np.array([v[0] is not None for v in verdicts], dtype=bool)[group]
+    out.not_manhattan = int((~manhattan).sum())
+    out.judged = int(manhattan.sum())
+    out.judged_nm = float(ends.width[idx][manhattan].sum())
+    flagged = np.array([bool(v[2]) for v in verdicts], dtype=bool)[group]
+    for j in np.flatnonzero(flagged).tolist():
+        rects, m, vs = verdicts[group[j]]
+        k = int(idx[j])
+        tip_to_tip = ends.facing_end[k] >= 0
+        out.findings.append(_finding(rule, vs, m, ends, k, tip_to_tip, rects))
     return out
 
 

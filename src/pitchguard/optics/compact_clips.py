@@ -31,8 +31,8 @@ from pitchguard.optics.tips import KERNEL_TOL
 REACH_LAMBDA_NA = 1.0
 """Shapes within this many lambda/NA of the feature are drawn in its clip."""
 
-STEPS_PER_LAMBDA_NA = 32
-"""Samples per lambda/NA along each line through the centre."""
+STEPS_PER_LAMBDA_NA = 24
+"""Samples per lambda/NA along each line through the centre (crossings interpolated)."""
 
 
 def clip_window(rule: LayerRule) -> float:
@@ -83,31 +83,37 @@ def alone_metrics(
     half = clip_window(rule)
     s = np.arange(-half, half + 1e-9, lam_na / STEPS_PER_LAMBDA_NA)
     n = len(s)
+    sx = sy = s
     d = s / np.sqrt(2.0)
     zero = np.zeros(n)
-    # Lines through the centre: along x, along y, and the two diagonals.
-    px = np.concatenate([s, zero, d, d])
-    py = np.concatenate([zero, s, d, -d])
+    # Along x and y (every focus); along x, y and the two diagonals (best focus,
+    # for the printed state).
+    px = np.concatenate([sx, np.zeros(len(sy)), s, zero, d, d])
+    py = np.concatenate([np.zeros(len(sx)), sy, zero, s, d, -d])
+    near = slice(0, len(sx) + len(sy))
+    lines_at = slice(near.stop, near.stop + 4 * n)
     focus = np.asarray(rule.focus_nm, dtype=np.float64)
     best = int(np.argmin(np.abs(focus)))
     basis = np.exp(2j * np.pi * (orders.fx[:, None] * px + orders.fy[:, None] * py))
 
-    def image(z: float) -> np.ndarray:
+    def image(z: float, points: slice) -> np.ndarray:
         if plain:
             src = source_points(e, angle_deg)
-            return abbe_image_2d(spec[0], orders, Optics.of(e), src, z, px, py)
+            return abbe_image_2d(spec[0], orders, Optics.of(e), src, z, px[points], py[points])
         sys = coherent_systems_2d(e, cell.px_nm, cell.py_nm, z, angle_deg)
         ev = sys.eigenvalues
         kept = int(np.searchsorted(-ev, -KERNEL_TOL, side="right"))
-        field = (sys.kernels[:kept] * spec[0]) @ basis
+        field = (sys.kernels[:kept] * spec[0]) @ basis[:, points]
         return ev[:kept] @ (field.real**2 + field.imag**2)
 
     done: dict[float, np.ndarray] = {}
     for z in np.abs(focus).tolist():
         if z not in done:
-            done[z] = image(z)
-    stack = np.stack([done[abs(float(z))] for z in focus])  # (F, 4n)
-    rows, cols, diag = stack[:, :n], stack[:, n : 2 * n], stack[best, 2 * n :]
+            done[z] = image(z, near)
+    stack = np.stack([done[abs(float(z))] for z in focus])  # (F, near)
+    rows, cols = stack[:, : len(sx)], stack[:, len(sx) :]
+    lines = image(float(focus[best]), lines_at)  # x, y, both diagonals
+    t_range = (float(min(stack.min(), lines.min())), float(max(stack.max(), lines.max())))
     # Exact values and slopes at the drawn edge midpoints, best focus.
     ex = np.array([feature[0], feature[2], 0.0, 0.0])
     ey = np.array([0.0, 0.0, feature[1], feature[3]])
@@ -119,8 +125,8 @@ def alone_metrics(
     t_nom = anchor_threshold_2d(e, rule.field, anchor) if anchor is not None else None
     bright = rule.field == "dark"
     m = axis_metrics(
-        s,
-        s,
+        sx,
+        sy,
         rows,
         cols,
         focus,
@@ -130,11 +136,10 @@ def alone_metrics(
         rule.cd_tolerance_pct / 100.0,
         rule.el_min_pct,
         (i_e[0], slopes),
-        ((-half, half), (-half, half)),
-        (float(stack.min()), float(stack.max())),
+        ((float(sx[0]), float(sx[-1])), (float(sy[0]), float(sy[-1]))),
+        t_range,
     )
     t = m.threshold
-    lines = np.concatenate([rows[best], cols[best], diag])
     printed = lines > t if bright else lines < t
     centre = n // 2  # s is symmetric about 0, so the middle sample is the centre
     missing = not bool(printed[centre])
@@ -154,7 +159,7 @@ def alone_metrics(
             if lo == 0 or hi == n - 1:
                 merged = True
                 break
-            sel = slice(k * n + lo, k * n + hi + 1)
+            sel = slice(lines_at.start + k * n + lo, lines_at.start + k * n + hi + 1)
             if _inside_others(px[sel], py[sel], others).any():
                 merged = True
                 break

@@ -281,6 +281,17 @@ def axis_metrics(
     highs = np.full((2, len(focus)), np.nan)
     sizes = np.full((2, len(focus)), np.nan)
     for f in range(len(focus)):
+        twin = next(
+            (
+                g
+                for g in range(f)
+                if np.array_equal(rows[g], rows[f]) and np.array_equal(cols[g], cols[f])
+            ),
+            None,
+        )
+        if twin is not None:  # the same image (+z and -z alike): the same windows
+            lows[:, f], highs[:, f], sizes[:, f] = lows[:, twin], highs[:, twin], sizes[:, twin]
+            continue
         cds = (
             cd_of_thresholds(x, rows[f], xc, xlo, xhi, bright, t),
             cd_of_thresholds(y, cols[f], yc, ylo, yhi, bright, t),
