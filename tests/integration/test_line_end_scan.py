@@ -163,13 +163,14 @@ def test_grouping_ends_by_neighbourhood_changes_nothing(tmp_path, monkeypatch):
     own group (the plain way) the findings are the same."""
     import numpy as np
 
+    import pitchguard.geometry.rectangles as rect
     import pitchguard.judge.line_ends as le
 
     layout = tmp_path / "ends.gds"
     _layout(layout)
     _, grouped = _scan(tmp_path, layout, DRY_ARF_DECK, "--untiled")
     monkeypatch.setattr(
-        le, "neighbourhood_hashes", lambda q, hit, n, *a: np.arange(n, dtype=np.uint64)
+        rect, "neighbourhood_hashes", lambda q, hit, n, *a: np.arange(n, dtype=np.uint64)
     )
     le._CACHES.clear()
     _, plain = _scan(tmp_path, layout, DRY_ARF_DECK, "--untiled")

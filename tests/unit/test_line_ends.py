@@ -8,7 +8,7 @@ Check values:
 * The fast imaging path (coherent systems with eigenvalues below
   ``KERNEL_TOL`` dropped, images at +z only) against the plain Abbe sum
   (``aerial2d.abbe_image_2d``) at every focus: the truncation adds at most
-  KERNEL_TOL of clear-field intensity (the bound in ``optics.tips``), and
+  KERNEL_TOL of clear-field intensity (the bound in ``optics.aerial2d``), and
   the aberration-free image of a real mask under a point-symmetric source is
   the same at +z and -z (the defocus phase only conjugates each source
   point's pupil, and a point-symmetric source pairs s with -s; from memory,
@@ -30,12 +30,13 @@ from pitchguard.geometry.line_ends import facing, facing_plain, find_line_ends
 from pitchguard.layout.polygons import PolygonSet
 from pitchguard.optics.aerial import Optics, mask_amplitudes, source_points
 from pitchguard.optics.aerial2d import (
+    KERNEL_TOL,
     abbe_image_2d,
     cell_spectra,
     coherent_systems_2d,
     exposure_orders,
 )
-from pitchguard.optics.tips import KERNEL_TOL, tip_cell, tip_metrics
+from pitchguard.optics.tips import tip_cell, tip_metrics
 
 GRID = 1.0
 

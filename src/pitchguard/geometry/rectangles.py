@@ -186,3 +186,34 @@ def neighbourhood_hashes(
     with np.errstate(over="ignore"):
         np.add.at(out, q, h)
     return out
+
+
+def clip_neighbourhoods(ps, centres: np.ndarray, radius: float, origins: np.ndarray, step: float):
+    """The polygons of ``ps`` whose boxes meet the square of ``radius`` around each of
+    ``centres``, as ``(hit, bounds)`` (query ``j`` holds ``hit[bounds[j]:bounds[j +
+    1]]``), and each query's :func:`neighbourhood_hashes` relative to ``origins``."""
+    from pitchguard.geometry.spatial import build_rtree, query_pairs
+
+    bb = ps.bounding_boxes()
+    q, hit = query_pairs(build_rtree(bb[:, :2], bb[:, 2:]), centres - radius, centres + radius)
+    order = np.argsort(q, kind="stable")
+    q, hit = q[order], hit[order]
+    bounds = np.searchsorted(q, np.arange(len(centres) + 1))
+    around = neighbourhood_hashes(q, hit, len(centres), origins, ps, shape_hashes(ps, step), step)
+    return hit, bounds, around
+
+
+def neighbourhood_groups(around: np.ndarray, bounds: np.ndarray, values, step: float):
+    """Queries with equal neighbourhood hash, shape count and ``values`` (n, k) to
+    ``step``: ``(first, group)``, each group's first query and each query's group."""
+    ticks = np.round(np.asarray(values, dtype=np.float64) / step).astype(np.int64)
+    rows = np.column_stack([around.view(np.int64), np.diff(bounds), ticks])
+    _, first, group = np.unique(rows, axis=0, return_index=True, return_inverse=True)
+    return first, group.reshape(-1)
+
+
+def frame_rectangles(ps, near, centre, angle_deg: float, window, tol, cache, decimals=2):
+    """:func:`clip_rectangles` of the polygons ``near`` of ``ps`` turned into the frame
+    centred on ``centre`` at ``angle_deg``."""
+    polys = [turned_points(ps.polygon(p), centre, angle_deg) for p in np.asarray(near).tolist()]
+    return clip_rectangles(polys, window, tol, cache, decimals)

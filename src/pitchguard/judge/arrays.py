@@ -96,6 +96,24 @@ def finding_cell(rule: LayerRule, f: Finding, scale: float, tol_nm: float) -> Ce
     return unit_cell(a1, a2, (w, h), a.feature_angle_deg, tol_nm)
 
 
+def image_fields(m: Metrics2D | None) -> dict:
+    """A compact feature's image metrics as Finding fields (nan where not judged: not
+    imaged, or missing or merged)."""
+    if m is None:
+        return {"contrast": math.nan}
+    good = not (m.missing or m.merged)
+    errors = [e for e in (m.size_error_x_pct, m.size_error_y_pct) if math.isfinite(e)]
+    nan = math.nan
+    return {
+        "contrast": round(m.contrast, 4),
+        "nils": round(min(m.nils_x, m.nils_y), 3) if good else nan,
+        "cd_nm": round(m.size_x_nm, 2) if good and math.isfinite(m.size_x_nm) else nan,
+        "cd_error_pct": round(max(errors, key=abs), 2) if errors else nan,
+        "el_pct": round(m.el_pct, 2) if good else nan,
+        "dof_nm": round(m.dof_nm, 1) if good else nan,
+    }
+
+
 def judge_lattice(
     rule: LayerRule,
     a1: np.ndarray,
@@ -204,10 +222,6 @@ def _finding(rule, arrays, k, rec, j: ArrayJudgement, a1, a2, scale) -> Finding:
     hull = arrays.hull(k)
     outline = tuple((float(x), float(y)) for x, y in hull)
     bbox = tuple(float(v) for v in rec.bbox_nm)
-    good = m is not None and not (m.missing or m.merged)
-    errors = [
-        e for e in ((m.size_error_x_pct, m.size_error_y_pct) if m else ()) if math.isfinite(e)
-    ]
     return Finding(
         layer=rule.name,
         source=rule.source,
@@ -234,12 +248,7 @@ def _finding(rule, arrays, k, rec, j: ArrayJudgement, a1, a2, scale) -> Finding:
         limit=f"{top.check}: {top.value:.4g} against {top.limit:.4g}",
         message=top.message,
         hint=array_hint(rule, j, a1, a2),
-        contrast=round(m.contrast, 4) if m else math.nan,
-        nils=round(min(m.nils_x, m.nils_y), 3) if good else math.nan,
-        cd_nm=round(m.size_x_nm, 2) if good and math.isfinite(m.size_x_nm) else math.nan,
-        cd_error_pct=round(max(errors, key=abs), 2) if errors else math.nan,
-        el_pct=round(m.el_pct, 2) if good else math.nan,
-        dof_nm=round(m.dof_nm, 1) if good else math.nan,
+        **image_fields(m),
         violations=vs,
         context="interior",
         threshold=round(m.threshold, 5) if m else math.nan,

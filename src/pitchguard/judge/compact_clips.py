@@ -20,14 +20,13 @@ from pitchguard.deck import LayerRule
 from pitchguard.geometry.lattice import NONE
 from pitchguard.geometry.lattice.records import LatticeSites
 from pitchguard.geometry.rectangles import (
-    clip_rectangles,
-    neighbourhood_hashes,
-    shape_hashes,
-    turned_points,
+    clip_neighbourhoods,
+    frame_rectangles,
+    neighbourhood_groups,
 )
 from pitchguard.geometry.sites import in_region
-from pitchguard.geometry.spatial import build_rtree, query_pairs
 from pitchguard.judge.array_checks import array_violations
+from pitchguard.judge.arrays import image_fields
 from pitchguard.judge.caches import layer_cache
 from pitchguard.judge.findings import ArrayShape, Finding
 from pitchguard.layout.polygons import PolygonSet
@@ -71,47 +70,43 @@ def judge_alone(
     if not len(idx) or not rule.image_checks:
         return out
     half = clip_window(rule) / scale
-    bb = ps.bounding_boxes()
-    tree = build_rtree(bb[:, :2], bb[:, 2:])
+    window = (-half, -half, half, half)
     centres = f.centre[idx]
-    r = half * math.sqrt(2.0)
-    q, hit = query_pairs(tree, centres - r, centres + r)
-    order = np.argsort(q, kind="stable")
-    q, hit = q[order], hit[order]
-    bounds = np.searchsorted(q, np.arange(len(idx) + 1))
     cache = layer_cache(_CACHES, rule)
-    tol = 1.01 * grid_nm
+    # Features with equal neighbourhoods (by hash), sizes and turn are judged once.
     step = 10.0**-KEY_DECIMALS
-    around = neighbourhood_hashes(q, hit, len(idx), centres, ps, shape_hashes(ps, step), step)
-    for j, k in enumerate(idx.tolist()):
+    hit, bounds, around = clip_neighbourhoods(ps, centres, half * math.sqrt(2.0), centres, step)
+    first, group = neighbourhood_groups(
+        around, bounds, np.column_stack([f.size[idx], f.angle_deg[idx]]), step
+    )
+    verdicts = []
+    for j in first.tolist():
+        k = int(idx[j])
         angle = float(f.angle_deg[k])
         w, h = (float(v) for v in f.size[k])
-        shape = (round(w, KEY_DECIMALS), round(h, KEY_DECIMALS), source_angle(rule.exposure, angle))
-        seen = ("around", int(around[j]), bounds[j + 1] - bounds[j], round(angle, 6), *shape)
-        hit_v = cache.get(seen)
-        if hit_v is None:
-            polys = [
-                turned_points(ps.polygon(p), f.centre[k], angle)
-                for p in hit[bounds[j] : bounds[j + 1]].tolist()
-            ]
-            rects = clip_rectangles(polys, (-half, -half, half, half), tol, cache, KEY_DECIMALS)
-            hit_v = None
-            if rects is not None:
-                key = (np.round(rects, KEY_DECIMALS).tobytes(), *shape)
-                hit_v = cache.get(key)
-                if hit_v is None:
-                    m = alone_metrics(rule, rects * scale, (w * scale, h * scale), angle)
-                    hit_v = cache[key] = (m, tuple(array_violations(rule, None, m)))
-            cache[seen] = hit_v if hit_v is not None else (None, None)
-            hit_v = cache[seen]
-        m, vs = hit_v
-        if m is None:
-            out.not_manhattan += 1
-            continue
-        out.judged += 1
-        out.judged_nm += 2.0 * (w + h)
-        if vs:
-            out.findings.append(_finding(rule, vs, m, f, k))
+        near = hit[bounds[j] : bounds[j + 1]]
+        rects = frame_rectangles(ps, near, centres[j], angle, window, 1.01 * grid_nm, cache)
+        m, vs = None, ()
+        if rects is not None:
+            key = (
+                np.round(rects, KEY_DECIMALS).tobytes(),
+                round(w, KEY_DECIMALS),
+                round(h, KEY_DECIMALS),
+                source_angle(rule.exposure, angle),
+            )
+            if key not in cache:
+                m = alone_metrics(rule, rects * scale, (w * scale, h * scale), angle)
+                cache[key] = (m, tuple(array_violations(rule, None, m)))
+            m, vs = cache[key]
+        verdicts.append((m, vs))
+    imaged = np.array([v[0] is not None for v in verdicts], dtype=bool)[group]
+    out.not_manhattan = int((~imaged).sum())
+    out.judged = int(imaged.sum())
+    out.judged_nm = float(2.0 * f.size[idx][imaged].sum())
+    flagged = np.array([bool(v[1]) for v in verdicts], dtype=bool)[group]
+    for j in np.flatnonzero(flagged).tolist():
+        m, vs = verdicts[group[j]]
+        out.findings.append(_finding(rule, vs, m, f, int(idx[j])))
     return out
 
 
@@ -130,8 +125,6 @@ def _finding(rule: LayerRule, vs, m, f, k: int) -> Finding:
         )
     )
     xs, ys = [p[0] for p in outline], [p[1] for p in outline]
-    good = not (m.missing or m.merged)
-    errors = [e for e in (m.size_error_x_pct, m.size_error_y_pct) if math.isfinite(e)]
     return Finding(
         layer=rule.name,
         source=rule.source,
@@ -158,12 +151,7 @@ def _finding(rule: LayerRule, vs, m, f, k: int) -> Finding:
         limit=f"{top.check}: {top.value:.4g} against {top.limit:.4g}",
         message=top.message,
         hint=_hint(top.check),
-        contrast=round(m.contrast, 4),
-        nils=round(min(m.nils_x, m.nils_y), 3) if good else math.nan,
-        cd_nm=round(m.size_x_nm, 2) if good and math.isfinite(m.size_x_nm) else math.nan,
-        cd_error_pct=round(max(errors, key=abs), 2) if errors else math.nan,
-        el_pct=round(m.el_pct, 2) if good else math.nan,
-        dof_nm=round(m.dof_nm, 1) if good else math.nan,
+        **image_fields(m),
         violations=tuple(vs),
         context="alone",
         threshold=round(m.threshold, 5),

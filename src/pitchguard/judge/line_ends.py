@@ -23,13 +23,11 @@ from pitchguard.geometry.lattice.compact import points_on_features
 from pitchguard.geometry.lattice.records import FeatureColumns
 from pitchguard.geometry.line_ends import LineEnds, facing, find_line_ends
 from pitchguard.geometry.rectangles import (
-    clip_rectangles,
-    neighbourhood_hashes,
-    shape_hashes,
-    turned_points,
+    clip_neighbourhoods,
+    frame_rectangles,
+    neighbourhood_groups,
 )
 from pitchguard.geometry.sites import in_region
-from pitchguard.geometry.spatial import build_rtree, query_pairs
 from pitchguard.judge.caches import layer_cache
 from pitchguard.judge.checks import Violation
 from pitchguard.judge.findings import Finding, TipShape
@@ -51,7 +49,6 @@ class TipVerdicts:
     judged_nm: float = 0.0  # drawn length of the tips judged
     open_by_distance: int = 0  # nothing in front within reach: not judged
     not_manhattan: int = 0  # clip not made of rectangles: not judged
-    distinct: int = 0  # clips imaged here
 
 
 _CACHES: dict = {}
@@ -71,8 +68,11 @@ def judge_line_ends(
 
     ``ps`` must hold every shape within reach of the ends judged; only ends in
     ``region`` (a tile's own) are judged, and none on ``compact`` features
-    (judged as 2-D patterns of their own)."""
+    (judged as 2-D patterns of their own).  Nothing is judged when the layer's
+    image checks are off."""
     out = TipVerdicts()
+    if not rule.image_checks:
+        return out
     lam_na = rule.exposure.lambda_over_na_nm / scale
     ends = find_line_ends(edges, rule.compact_max_nm / scale, grid_nm)
     if len(ends) and compact is not None and len(compact):
@@ -91,33 +91,23 @@ def judge_line_ends(
     (cx, _), (hx, hy) = tip_window(rule)
     cx, hx, hy = cx / scale, hx / scale, hy / scale
     window = (cx - hx, -hy, cx + hx, hy)
-    bb = ps.bounding_boxes()
-    index = build_rtree(bb[:, :2], bb[:, 2:])
     idx = np.flatnonzero(todo)
     angles = ends.angle_deg[idx]
-    # The window's box in the layout (turned window: its circumscribed square).
-    centres = ends.mid[idx] + ends.normal[idx] * cx
-    r = math.hypot(hx, hy)
-    q, hit = query_pairs(index, centres - r, centres + r)
-    order = np.argsort(q, kind="stable")
-    q, hit = q[order], hit[order]
-    bounds = np.searchsorted(q, np.arange(len(idx) + 1))
     cache = layer_cache(_CACHES, rule)
-    # A tip's neighbourhood (the shapes and their places around it) by hash: a
-    # repeated one is judged once.
+    # The shapes around each tip (the turned window's circumscribed square) and
+    # their hash: ends with equal neighbourhoods, sizes and turn are judged once.
     step = 10.0**-KEY_DECIMALS
-    around = neighbourhood_hashes(q, hit, len(idx), ends.mid[idx], ps, shape_hashes(ps, step), step)
-    # Ends with equal neighbourhoods, sizes and turn are one group, judged once.
-    count = np.diff(bounds)
-    ticks = np.round(
+    hit, bounds, around = clip_neighbourhoods(
+        ps, ends.mid[idx] + ends.normal[idx] * cx, math.hypot(hx, hy), ends.mid[idx], step
+    )
+    first, group = neighbourhood_groups(
+        around,
+        bounds,
         np.stack(
             [ends.width[idx], ends.gap[idx], np.minimum(ends.side[idx], lam_na), angles], axis=1
-        )
-        / step
-    ).astype(np.int64)
-    rows = np.column_stack([around.view(np.int64), count, ticks])
-    _, first, group = np.unique(rows, axis=0, return_index=True, return_inverse=True)
-    group = group.reshape(-1)
+        ),
+        step,
+    )
     verdicts = []
     for j in first.tolist():
         k = int(idx[j])
@@ -125,8 +115,9 @@ def judge_line_ends(
         w, gap = float(ends.width[k]), float(ends.gap[k])
         side = min(float(ends.side[k]), lam_na)  # only the first lambda/NA matters
         near = hit[bounds[j] : bounds[j + 1]]
-        polys = [turned_points(ps.polygon(p), ends.mid[k], angle) for p in near.tolist()]
-        rects = clip_rectangles(polys, window, 1.01 * grid_nm, cache, KEY_DECIMALS)
+        rects = frame_rectangles(
+            ps, near, ends.mid[k], angle, window, 1.01 * grid_nm, cache, KEY_DECIMALS
+        )
         m, vs = None, []
         if rects is not None:
             key = (
@@ -140,7 +131,6 @@ def judge_line_ends(
             if m is None:
                 m = tip_metrics(rule, rects * scale, w * scale, gap * scale, side * scale, angle)
                 cache[key] = m
-                out.distinct += 1
             vs = tip_violations(rule, m, gap * scale)
         verdicts.append((rects, m, vs))
     manhattan = np.array([v[0] is not None for v in verdicts], dtype=bool)[group]

@@ -17,16 +17,15 @@ from __future__ import annotations
 import numpy as np
 
 from pitchguard.deck import LayerRule
-from pitchguard.optics.aerial import Optics, mask_amplitudes, source_points
+from pitchguard.optics.aerial import mask_amplitudes
 from pitchguard.optics.aerial2d import (
-    abbe_image_2d,
+    PointImages,
     cell_spectra,
     coherent_systems_2d,
     exposure_orders,
 )
 from pitchguard.optics.cells2d import Cell, clip_cell
 from pitchguard.optics.resist2d import Metrics2D, anchor_threshold_2d, axis_metrics
-from pitchguard.optics.tips import KERNEL_TOL
 
 REACH_LAMBDA_NA = 1.0
 """Shapes within this many lambda/NA of the feature are drawn in its clip."""
@@ -71,8 +70,8 @@ def alone_metrics(
     """Metrics of the ``w x h`` feature centred at the origin of a clip of ``rects_nm``
     (wafer nm, feature frame turned by ``angle_deg`` in the layout).
 
-    ``plain`` takes every image by the plain Abbe sum in place of the truncated
-    coherent systems: the reference the tests hold the fast path to."""
+    ``plain`` takes every image by the plain Abbe sum (see
+    :class:`aerial2d.PointImages`): the reference the tests hold the fast path to."""
     e = rule.exposure
     lam_na = e.lambda_over_na_nm
     cell = feature_cell(rule, rects_nm)
@@ -94,17 +93,7 @@ def alone_metrics(
     lines_at = slice(near.stop, near.stop + 4 * n)
     focus = np.asarray(rule.focus_nm, dtype=np.float64)
     best = int(np.argmin(np.abs(focus)))
-    basis = np.exp(2j * np.pi * (orders.fx[:, None] * px + orders.fy[:, None] * py))
-
-    def image(z: float, points: slice) -> np.ndarray:
-        if plain:
-            src = source_points(e, angle_deg)
-            return abbe_image_2d(spec[0], orders, Optics.of(e), src, z, px[points], py[points])
-        sys = coherent_systems_2d(e, cell.px_nm, cell.py_nm, z, angle_deg)
-        ev = sys.eigenvalues
-        kept = int(np.searchsorted(-ev, -KERNEL_TOL, side="right"))
-        field = (sys.kernels[:kept] * spec[0]) @ basis[:, points]
-        return ev[:kept] @ (field.real**2 + field.imag**2)
+    image = PointImages(e, cell, spec[0], orders, px, py, angle_deg, plain=plain)
 
     done: dict[float, np.ndarray] = {}
     for z in np.abs(focus).tolist():

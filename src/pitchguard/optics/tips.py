@@ -22,9 +22,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from pitchguard.deck import LayerRule
-from pitchguard.optics.aerial import Optics, mask_amplitudes, source_points
+from pitchguard.optics.aerial import mask_amplitudes
 from pitchguard.optics.aerial2d import (
-    abbe_image_2d,
+    PointImages,
     cell_spectra,
     coherent_systems_2d,
     exposure_orders,
@@ -44,15 +44,6 @@ sized for the threshold."""
 
 ROW_STEPS_PER_LAMBDA_NA = 32
 """Samples along the axis per lambda/NA (refined by interpolation at crossings)."""
-
-KERNEL_TOL = 1e-3
-"""Coherent systems whose eigenvalue is below this (clear field = 1) are dropped.
-
-The image is ``sum_k lambda_k |<v_k, x>|^2`` with orthonormal ``v_k`` and
-``|x|^2 = sum_n |c_n|^2`` = the mean of ``|t|^2`` over the window <= 1, so the
-dropped systems add at most the largest dropped eigenvalue: an intensity error
-below KERNEL_TOL everywhere (an edge moves by KERNEL_TOL / slope, a fraction of
-a nm at the slopes judged)."""
 
 
 @dataclass(frozen=True)
@@ -107,9 +98,8 @@ def tip_metrics(
     """Metrics of a line end (see the module docstring); lengths wafer nm, the clip
     frame turned by ``angle_deg`` in the layout (it turns the source).
 
-    ``plain`` takes every image by the plain Abbe sum (``aerial2d.abbe_image_2d``)
-    in place of the truncated coherent systems: the reference the tests hold the
-    fast path to."""
+    ``plain`` takes every image by the plain Abbe sum (see
+    :class:`aerial2d.PointImages`): the reference the tests hold the fast path to."""
     e = rule.exposure
     lam_na = e.lambda_over_na_nm
     cell = tip_cell(rule, rects_nm)
@@ -127,20 +117,10 @@ def tip_metrics(
     py = np.r_[np.zeros(len(xs)), -h, h] - cy
     focus = np.asarray(rule.focus_nm, dtype=np.float64)
     best = int(np.argmin(np.abs(focus)))
-    # exp(i 2 pi f . r) once for every focus: the systems differ only in kernels.
-    basis = np.exp(2j * np.pi * (orders.fx[:, None] * px[None, :] + orders.fy[:, None] * py))
+    images = PointImages(e, cell, spec[0], orders, px, py, angle_deg, plain=plain)
 
     def image(k: int, points: slice = slice(None)) -> np.ndarray:
-        if plain:
-            src = source_points(e, angle_deg)
-            return abbe_image_2d(
-                spec[0], orders, Optics.of(e), src, float(focus[k]), px[points], py[points]
-            )
-        sys = coherent_systems_2d(e, cell.px_nm, cell.py_nm, float(focus[k]), angle_deg)
-        ev = sys.eigenvalues  # largest first
-        kept = int(np.searchsorted(-ev, -KERNEL_TOL, side="right"))
-        field = (sys.kernels[:kept] * spec[0]) @ basis[:, points]
-        return ev[:kept] @ (field.real**2 + field.imag**2)
+        return images(float(focus[k]), points)
 
     sys0 = coherent_systems_2d(e, cell.px_nm, cell.py_nm, float(focus[best]), angle_deg)
     inten = image(best)

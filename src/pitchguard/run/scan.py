@@ -143,18 +143,10 @@ def scan_polygons(
                 sites = sites.take(np.flatnonzero(~on))
                 ex.sites -= int(on.sum())
                 ex.extra["compact_sites"] = int(on.sum())
-        tips = TipVerdicts()
-        if rule.image_checks:
-            tips = judge_line_ends(
-                edges,
-                ps,
-                rule,
-                scale,
-                grid_nm,
-                region=region_nm,
-                compact=compact.features,
-            )
-            regions.extend(Region(f) for f in tips.findings)
+        tips = judge_line_ends(
+            edges, ps, rule, scale, grid_nm, region=region_nm, compact=compact.features
+        )
+        regions.extend(Region(f) for f in tips.findings)
         tick(f"{rule.name}: images", 3 * k + 2)
         metrics, which_cut, cuts, angles = None, None, None, None
         cut_keys: frozenset = frozenset()

@@ -64,7 +64,7 @@ def alone_picture(f: Finding, rule: LayerRule, ps, boxes, scale: float) -> tuple
     on (rebuilt from the layout around it), and a caption."""
     import math
 
-    from pitchguard.geometry.rectangles import canonical_rectangles, rectangles, turned_points
+    from pitchguard.geometry.rectangles import frame_rectangles
     from pitchguard.optics.aerial import Optics, mask_amplitudes
     from pitchguard.optics.aerial2d import (
         cell_spectra,
@@ -87,12 +87,9 @@ def alone_picture(f: Finding, rule: LayerRule, ps, boxes, scale: float) -> tuple
         & (boxes[:, 1] <= centre[1] + r)
         & (boxes[:, 3] >= centre[1] - r)
     )
-    parts = [rectangles(turned_points(ps.polygon(k), centre, angle), 1.01) for k in near.tolist()]
-    if any(p is None for p in parts):
+    rects = frame_rectangles(ps, near, centre, angle, (-half, -half, half, half), 1.01, {})
+    if rects is None:
         return None, "The shapes around the feature are not Manhattan in its frame: no picture."
-    rects = canonical_rectangles(
-        np.concatenate(parts) if parts else np.zeros((0, 4)), (-half, -half, half, half), 0.5
-    )
     rects = rects * scale
     cell = feature_cell(rule, rects)
     e = rule.exposure
