@@ -45,8 +45,10 @@ from pitchguard.optics.aerial import (
     source_points,
 )
 from pitchguard.optics.aerial2d import (
+    KERNEL_TOL,
     RASTER_PER_LAMBDA_NA,
     CoherentSystems2D,
+    PointImages,
     abbe_image_2d,
     cell_orders,
     cell_spectra,
@@ -471,6 +473,59 @@ def test_sum_of_coherent_systems_equals_the_abbe_sum(illumination, mask):
         assert np.max(np.abs(cs.image(opened, 16, 16) - 1.0)) < ENGINE_AGREEMENT
         every = CoherentSystems2D(optics, src, orders, z, keep=0.0)
         assert np.max(np.abs(every.image(opened, 16, 16) - 1.0)) < PRECISION
+
+
+POINT_CASES = [
+    # illumination, mask, field, rectangles (nm, clip frame), focus (nm)
+    (ANNULAR_06_09, BINARY, "dark", [(-20, -20, 20, 20), (90, -20, 130, 20)], 0.0),
+    (ANNULAR_06_09, ATTENUATED_6, "clear", [(-35, -35, 35, 35), (-35, 120, 35, 190)], 76.0),
+    (DIPOLE_X, ATTENUATED_6, "dark", [(-30, -30, 30, 30), (-150, -60, -100, 60)], -50.0),
+    (QUADRUPOLE, BINARY, "clear", [(-300, -45, 0, 45), (60, -45, 300, 45)], 100.0),
+]
+
+
+@pytest.mark.parametrize(("illumination", "mask", "field", "rects", "z"), POINT_CASES)
+def test_point_images_stay_within_their_stated_bound(illumination, mask, field, rects, z):
+    # PointImages drops coherent systems by the bound proved in its docstring:
+    # intensity within KERNEL_TOL of the full Hopkins sum (Abbe here, Hopkins
+    # 1953), slopes within 4 pi KERNEL_TOL f_max (Cauchy-Schwarz on the dropped
+    # systems' derivative, f_max the highest order frequency).
+    e = exposure(illumination, *ARF_IMMERSION, mask=mask)
+    optics = Optics.of(e)
+    lam_na = ARF_NM / IMMERSION_NA
+    cell = clip_cell(np.array(rects, dtype=np.float64), lam_na)
+    orders = exposure_orders(e, cell.px_nm, cell.py_nm)
+    spec = cell_spectra([cell], orders, *mask_amplitudes(e, field))[0]
+    rng = seeded(illumination, mask, field, z)
+    x, y = rng.uniform(-200.0, 200.0, (2, 80))
+    img = PointImages(e, cell, spec, orders, x, y, 0.0)
+    src = source_points(e, 0.0)
+    abbe = abbe_image_2d(spec, orders, optics, src, z, x, y)
+    assert np.max(np.abs(img(z) - abbe)) <= KERNEL_TOL
+    assert np.max(np.abs(img(z, slice(10, 20)) - abbe[10:20])) <= KERNEL_TOL
+    inten, d_x, d_y = img.at(z, x[:6], y[:6])
+    exact, ex_x, ex_y = coherent_systems_2d(e, cell.px_nm, cell.py_nm, z).at(spec, x[:6], y[:6])
+    f_max = float(np.max(np.hypot(orders.fx, orders.fy)))
+    assert np.max(np.abs(inten - exact[0])) <= KERNEL_TOL
+    assert np.max(np.abs(d_x - ex_x[0])) <= 4 * math.pi * KERNEL_TOL * f_max
+    assert np.max(np.abs(d_y - ex_y[0])) <= 4 * math.pi * KERNEL_TOL * f_max
+
+
+def test_point_images_of_a_small_hole_need_few_systems():
+    # The bound keeps systems with eigenvalue >= KERNEL_TOL / variance: a 40 nm
+    # hole alone in its window has a variance of at most its area fraction
+    # (Parseval, with the orders beyond the pupil's reach left out), so far
+    # fewer systems than the plain cut at KERNEL_TOL keep.
+    e = exposure(ANNULAR_06_09, *ARF_IMMERSION)
+    cell = clip_cell(np.array([(-20.0, -20.0, 20.0, 20.0)]), ARF_NM / IMMERSION_NA)
+    orders = exposure_orders(e, cell.px_nm, cell.py_nm)
+    spec = cell_spectra([cell], orders, *mask_amplitudes(e, "dark"))[0]
+    img = PointImages(e, cell, spec, orders, np.zeros(1), np.zeros(1), 0.0)
+    area = 40.0 * 40.0 / (cell.px_nm * cell.py_nm)
+    assert 0.0 < img.variance <= area * (1 - area)
+    ev, _, _, _ = img._split(0.0)
+    every = coherent_systems_2d(e, cell.px_nm, cell.py_nm, 0.0).eigenvalues
+    assert len(ev) < 0.2 * int(np.sum(every >= KERNEL_TOL))
 
 
 def test_all_dark_attenuated_mask_images_to_its_transmission():

@@ -5,10 +5,11 @@ Check values:
 * Geometry by construction: a rectangle of length L > w has two ends of
   width w (its short edges); an L-shaped wire has two; a square has none
   wider than ``width_max``; the gap to a facing edge is the drawn distance.
-* The fast imaging path (coherent systems with eigenvalues below
-  ``KERNEL_TOL`` dropped, images at +z only) against the plain Abbe sum
-  (``aerial2d.abbe_image_2d``) at every focus: the truncation adds at most
-  KERNEL_TOL of clear-field intensity (the bound in ``optics.aerial2d``), and
+* The fast imaging path (``aerial2d.PointImages``: coherent systems dropped
+  within ``KERNEL_TOL``, images at +z only) against the plain Abbe sum
+  (``aerial2d.abbe_image_2d``) at every focus: the truncation moves an
+  intensity by at most KERNEL_TOL of clear field (the bound proved in
+  ``PointImages``), and
   the aberration-free image of a real mask under a point-symmetric source is
   the same at +z and -z (the defocus phase only conjugates each source
   point's pupil, and a point-symmetric source pairs s with -s; from memory,
@@ -33,7 +34,6 @@ from pitchguard.optics.aerial2d import (
     KERNEL_TOL,
     abbe_image_2d,
     cell_spectra,
-    coherent_systems_2d,
     exposure_orders,
 )
 from pitchguard.optics.tips import tip_cell, tip_metrics
@@ -136,7 +136,7 @@ def test_the_fast_path_agrees_with_the_plain_abbe_sum(field, source):
             )
 
 
-def test_truncated_systems_stay_within_the_stated_bound_and_focus_is_symmetric():
+def test_a_real_mask_images_alike_at_plus_and_minus_focus():
     rule = _rule("clear", SOURCES[1])
     e = rule.exposure
     cell = tip_cell(rule, np.array(CLIPS[1][2], dtype=np.float64))
@@ -150,12 +150,4 @@ def test_truncated_systems_stay_within_the_stated_bound_and_focus_is_symmetric()
     plain_plus = abbe_image_2d(spec, orders, Optics.of(e), src, z, xx, yy)
     plain_minus = abbe_image_2d(spec, orders, Optics.of(e), src, -z, xx, yy)
     np.testing.assert_allclose(plain_plus, plain_minus, atol=1e-12)
-    sys = coherent_systems_2d(e, cell.px_nm, cell.py_nm, z, 0.0)
-    kept = int(np.sum(sys.eigenvalues >= KERNEL_TOL))
-    assert kept < len(sys.eigenvalues)  # some systems are dropped
-    basis = np.exp(2j * np.pi * (orders.fx[:, None] * xx + orders.fy[:, None] * yy))
-    field = (sys.kernels[:kept] * spec) @ basis
-    fast = sys.eigenvalues[:kept] @ (field.real**2 + field.imag**2)
-    err = np.abs(fast - plain_plus)
-    assert err.max() <= KERNEL_TOL
-    assert err.max() > 0.0
+    assert np.ptp(plain_plus) > 0.1  # a real image, not a flat field

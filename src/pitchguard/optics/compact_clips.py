@@ -21,7 +21,6 @@ from pitchguard.optics.aerial import mask_amplitudes
 from pitchguard.optics.aerial2d import (
     PointImages,
     cell_spectra,
-    coherent_systems_2d,
     exposure_orders,
 )
 from pitchguard.optics.cells2d import Cell, clip_cell
@@ -106,10 +105,8 @@ def alone_metrics(
     # Exact values and slopes at the drawn edge midpoints, best focus.
     ex = np.array([feature[0], feature[2], 0.0, 0.0])
     ey = np.array([0.0, 0.0, feature[1], feature[3]])
-    i_e, d_x, d_y = coherent_systems_2d(
-        e, cell.px_nm, cell.py_nm, float(focus[best]), angle_deg
-    ).at(spec, ex, ey)
-    slopes = np.concatenate([d_x[0, :2], d_y[0, 2:]])
+    i_e, d_x, d_y = image.at(float(focus[best]), ex, ey)
+    slopes = np.concatenate([d_x[:2], d_y[2:]])
     anchor = rule.anchor
     t_nom = anchor_threshold_2d(e, rule.field, anchor) if anchor is not None else None
     bright = rule.field == "dark"
@@ -124,7 +121,7 @@ def alone_metrics(
         t_nom,
         rule.cd_tolerance_pct / 100.0,
         rule.el_min_pct,
-        (i_e[0], slopes),
+        (i_e, slopes),
         ((float(sx[0]), float(sx[-1])), (float(sy[0]), float(sy[-1]))),
         t_range,
     )

@@ -26,7 +26,6 @@ from pitchguard.optics.aerial import mask_amplitudes
 from pitchguard.optics.aerial2d import (
     PointImages,
     cell_spectra,
-    coherent_systems_2d,
     exposure_orders,
 )
 from pitchguard.optics.cells2d import Cell, clip_cell
@@ -122,7 +121,6 @@ def tip_metrics(
     def image(k: int, points: slice = slice(None)) -> np.ndarray:
         return images(float(focus[k]), points)
 
-    sys0 = coherent_systems_2d(e, cell.px_nm, cell.py_nm, float(focus[best]), angle_deg)
     inten = image(best)
     t_anchor = anchor_threshold(rule)
     t = float(np.mean(inten[-2:])) if t_anchor is None else t_anchor
@@ -133,8 +131,8 @@ def tip_metrics(
 
     row = inten[: len(xs)]
     m = margin(row)
-    i_tip, d_tip, _ = sys0.at(spec, [-cx], [-cy])
-    nils = width_nm * abs(float(d_tip[0, 0])) / float(i_tip[0, 0]) if i_tip[0, 0] > 0 else 0.0
+    i_tip, d_tip, _ = images.at(float(focus[best]), [-cx], [-cy])
+    nils = width_nm * abs(float(d_tip[0])) / float(i_tip[0]) if i_tip[0] > 0 else 0.0
     lo, hi = float(row.min()), float(row.max())
     contrast = (hi - lo) / (hi + lo) if hi + lo > 0 else 0.0
     if m[0] <= 0:
