@@ -117,3 +117,38 @@ def test_tiled_scan_finds_the_same_arrays_as_the_whole_one(tmp_path):
                 tiled["summary"]["by_layer"]["poly"][key]
                 == whole["summary"]["by_layer"]["poly"][key]
             )
+
+
+def _pairs(path, pairs) -> None:
+    """Pairs of square holes on layer 7: ``((x, y), dy, side)`` um, the second hole dy
+    above the first."""
+    lib = gdstk.Library(unit=1e-6, precision=1e-9)
+    top = lib.new_cell("TOP")
+    for (x, y), dy, side in pairs:
+        h = side / 2
+        for yy in (y, y + dy):
+            top.add(gdstk.rectangle((x - h, yy - h), (x + h, yy + h), layer=7))
+    lib.write_gds(str(path))
+
+
+def test_pairs_of_holes_are_judged_on_clips_whole_and_tiled(tmp_path):
+    """Two 60 nm holes 90 nm apart (centre to centre) are closer than both the
+    Rayleigh (0.61 lambda / NA = 126.6 nm) and the Sparrow (0.47 lambda / NA =
+    97.5 nm) two-point limits (from memory, any optics text): they print as
+    one, a ``features-bridged`` fail on each hole's clip (context ``group``).
+    150 nm holes 600 nm apart (almost 3 lambda / NA; the size of the relaxed
+    array above) print apart, with no fail or risk."""
+    layout = tmp_path / "pairs.gds"
+    _pairs(layout, [((0.0, 0.0), 0.09, 0.06), ((5.0, 0.0), 0.6, 0.15)])
+    code, whole = _scan(tmp_path, layout, "--untiled")
+    bridged = [f for f in whole["findings"] if f["check"] == "features-bridged"]
+    assert len(bridged) == 2
+    assert {f["periodicity"] for f in bridged} == {"group"}
+    assert all(f["bbox_um"][2] < 1.0 for f in bridged)  # the close pair only
+    assert len(whole["findings"]) == 2  # nothing on the far pair
+    layer = whole["summary"]["by_layer"]["poly"]
+    assert layer["compact_on_clips"] == 4 and layer["compact_not_in_array"] == 0
+    assert code == 1
+    _, tiled = _scan(tmp_path, layout, "--tile-um", "2.5")
+    assert tiled["summary"]["tiling"]["tiles"] > 1
+    assert tiled["findings"] == whole["findings"]

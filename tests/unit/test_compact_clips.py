@@ -9,6 +9,10 @@ Check values:
   tests/integration/test_array_probe.py).
 * The fast path (truncated coherent systems at the sampled lines) equals
   the plain Abbe sum (``plain=True``) within the truncation bound.
+* The batched path (``alone_metrics_batch``: arrays over clip x focus x
+  threshold) equals its plain twin, ``alone_metrics`` one clip at a time, to
+  rounding, and a clip's result does not depend on the clips batched with it
+  (a tiled scan must equal the whole one).
 * Physics of a lone hole on a 6 % attenuated PSM (from memory, any text on
   attenuated phase-shift masks): the background transmits sqrt(0.06) = 0.245
   of the amplitude in opposite phase; a hole much smaller than lambda/NA
@@ -18,6 +22,7 @@ Check values:
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -26,7 +31,7 @@ import pytest
 from decks import DEMO_DECK
 from pitchguard.deck import load_deck
 from pitchguard.optics.cells2d import array_cell
-from pitchguard.optics.compact_clips import alone_metrics, feature_cell
+from pitchguard.optics.compact_clips import alone_metrics, alone_metrics_batch, feature_cell
 from pitchguard.optics.resist2d import cell_metrics
 
 
@@ -76,3 +81,40 @@ def test_the_clip_turns_the_source_with_the_feature():
     pa = alone_metrics(m1, rects, (w, w), 90.0, plain=True)
     assert (b.size_x_nm, b.missing) == pytest.approx((pa.size_x_nm, pa.missing), abs=0.5)
     assert not math.isclose(a.contrast, b.contrast, abs_tol=1e-3)
+
+
+def _random_clips(rng, n):
+    clips = []
+    for _ in range(n):
+        w = float(rng.choice([50.0, 80.0, 110.0]))
+        h = w if rng.random() < 0.7 else 1.5 * w
+        rects = [(-w / 2, -h / 2, w / 2, h / 2)]
+        for _ in range(int(rng.integers(0, 4))):
+            x, y = rng.uniform(-200.0, 200.0, 2)
+            if abs(x) > 0.5 * w + 30 or abs(y) > 0.5 * h + 30:
+                rects.append((x - 30, y - 30, x + 30, y + 30))
+        clips.append((np.array(rects), (w, h)))
+    return clips
+
+
+def _same(a, b, tol):
+    for x, y in zip(dataclasses.astuple(a), dataclasses.astuple(b), strict=True):
+        if isinstance(x, bool) or not (math.isfinite(x) and math.isfinite(y)):
+            assert x == y or (math.isnan(x) and math.isnan(y)), (a, b)
+        else:
+            assert x == pytest.approx(y, rel=tol, abs=tol), (a, b)
+
+
+@pytest.mark.parametrize("layer", ["via1", "metal1"])
+def test_the_batched_clips_equal_their_plain_twin_whatever_the_batch(layer):
+    rule = next(r for r in load_deck(DEMO_DECK).layers if r.name == layer)
+    rng = np.random.default_rng(20261205)
+    clips = _random_clips(rng, 24)
+    batch = alone_metrics_batch(rule, clips, 30.0)
+    for clip, m in zip(clips, batch, strict=True):
+        _same(m, alone_metrics(rule, *clip, 30.0), 1e-9)
+    # The same clips in another batch, in another order, and alone: bit for bit.
+    again = alone_metrics_batch(rule, clips[::-3], 30.0)
+    for m, n in zip(batch[::-3], again, strict=True):
+        _same(m, n, 0.0)
+    _same(batch[5], alone_metrics_batch(rule, [clips[5]], 30.0)[0], 0.0)

@@ -99,24 +99,25 @@ def test_a_via_array_is_judged_whole(tmp_path, capsys):
     assert code == 1
 
 
-def test_vias_in_pairs_are_not_judged_and_say_so(tmp_path, capsys):
+def test_vias_in_pairs_are_judged_on_clips(tmp_path, capsys):
     """Three pairs of vias 200 nm apart, microns from each other, form no array
-    (a row needs three): their edges (4 x 60 nm each) are counted and not
-    judged, and the note says so."""
+    (a row needs three); their lattice is unconfirmed, so each via is judged on
+    a clip of its own and every edge counts as judged."""
     layout = tmp_path / "vias.gds"
     _vias(layout, [(x + dx, y) for x, y in ((0.0, 0.0), (5.0, 0.0), (0.0, 7.0)) for dx in (0, 0.2)])
     deck = tmp_path / "deck.toml"
     deck.write_text(DECK_1)
     report = tmp_path / "r.json"
-    code = main(["scan", str(layout), "--rules", str(deck), "--json", str(report)])
-    out = capsys.readouterr().out
-    assert "only 0 % of its edge length was judged" in out
+    main(["scan", str(layout), "--rules", str(deck), "--json", str(report), "-q"])
     summary = json.loads(report.read_text())["summary"]
     layer = summary["by_layer"]["via"]
-    assert (layer["edge_um"], layer["judged_um"], layer["judged_pct"]) == (6 * 0.24, 0.0, 0.0)
-    assert layer["compact_not_in_array"] == 6
-    assert len(summary["notes"]) == 1 and summary["notes"][0].startswith("layer via:")
-    assert code == 0  # nothing judged, nothing flagged: the note is what tells
+    assert (layer["edge_um"], layer["judged_um"], layer["judged_pct"]) == (
+        6 * 0.24,
+        6 * 0.24,
+        100.0,
+    )
+    assert layer["compact_on_clips"] == 6 and layer["compact_not_in_array"] == 0
+    assert summary["notes"] == []
 
 
 def test_vias_on_their_own_are_judged_on_clips(tmp_path, capsys):
@@ -134,7 +135,7 @@ def test_vias_on_their_own_are_judged_on_clips(tmp_path, capsys):
         3 * 0.24,
         100.0,
     )
-    assert layer["compact_alone_judged"] == 3 and layer["compact_not_in_array"] == 0
+    assert layer["compact_on_clips"] == 3 and layer["compact_not_in_array"] == 0
 
 
 def test_a_deck_layer_missing_from_the_layout_is_refused(tmp_path, capsys):

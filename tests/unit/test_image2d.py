@@ -45,10 +45,8 @@ from pitchguard.optics.aerial import (
     source_points,
 )
 from pitchguard.optics.aerial2d import (
-    KERNEL_TOL,
     RASTER_PER_LAMBDA_NA,
     CoherentSystems2D,
-    PointImages,
     abbe_image_2d,
     cell_orders,
     cell_spectra,
@@ -61,6 +59,7 @@ from pitchguard.optics.aerial2d import (
     source_angle,
 )
 from pitchguard.optics.cells2d import Cell, array_cell, clip_cell, lattice_cell
+from pitchguard.optics.point_images import KERNEL_TOL, PointImages
 from pitchguard.optics.resist import THRESHOLD_SAMPLES, evaluate
 from pitchguard.optics.resist2d import anchor_threshold_2d, cell_metrics, evaluate_2d
 

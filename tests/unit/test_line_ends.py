@@ -5,7 +5,7 @@ Check values:
 * Geometry by construction: a rectangle of length L > w has two ends of
   width w (its short edges); an L-shaped wire has two; a square has none
   wider than ``width_max``; the gap to a facing edge is the drawn distance.
-* The fast imaging path (``aerial2d.PointImages``: coherent systems dropped
+* The fast imaging path (``point_images.PointImages``: coherent systems dropped
   within ``KERNEL_TOL``, images at +z only) against the plain Abbe sum
   (``aerial2d.abbe_image_2d``) at every focus: the truncation moves an
   intensity by at most KERNEL_TOL of clear field (the bound proved in
@@ -30,12 +30,8 @@ from pitchguard.geometry.features import build_features
 from pitchguard.geometry.line_ends import facing, facing_plain, find_line_ends
 from pitchguard.layout.polygons import PolygonSet
 from pitchguard.optics.aerial import Optics, mask_amplitudes, source_points
-from pitchguard.optics.aerial2d import (
-    KERNEL_TOL,
-    abbe_image_2d,
-    cell_spectra,
-    exposure_orders,
-)
+from pitchguard.optics.aerial2d import abbe_image_2d, cell_spectra, exposure_orders
+from pitchguard.optics.point_images import KERNEL_TOL
 from pitchguard.optics.tips import tip_cell, tip_metrics
 
 GRID = 1.0

@@ -201,3 +201,24 @@ def test_printed_edges_give_the_cd_the_verdicts_use():
             assert edges.right - edges.left == pytest.approx(cd, abs=SAME)
         seen[edges.state] += 1
     assert min(seen[s] for s in ("printed", "lost", "bridged")) >= 50, seen
+
+
+def test_profiles_in_a_batch_give_the_cds_of_each_alone():
+    """``cd_of_thresholds`` on ``B`` profiles at once (counting, row by row) equals the
+    same call on each profile alone (binary search): the batched path and its plain
+    twin, on random profiles with plateaus, thresholds at samples and beyond the image."""
+    rng = np.random.default_rng(SEED + 2)
+    for _ in range(300):
+        case, _ = random_case(rng)
+        x = case["x"]
+        base = case["intensity"]
+        batch = np.stack([base, np.round(base, 1), base[::-1], base + 0.05])
+        lo, hi = case["search"] if case["search"] is not None else (-np.inf, np.inf)
+        t = np.concatenate(
+            [np.linspace(base.min() - 0.1, base.max() + 0.1, 37), batch[:, :3].ravel()]
+        )
+        args = (case["centre_nm"], lo, hi, case["bright"], t)
+        together = cd_of_thresholds(x, batch, *args)
+        assert together.shape == (len(batch), len(t))
+        for row, cd in zip(batch, together, strict=True):
+            np.testing.assert_array_equal(cd, cd_of_thresholds(x, row, *args))

@@ -13,8 +13,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from pitchguard.deck import LayerRule
+from pitchguard.deck import SEVERITIES, LayerRule
 from pitchguard.geometry.lattice import NONE, ROW, LatticeArrays
+from pitchguard.geometry.spatial import build_rtree, query_pairs
 from pitchguard.judge.array_checks import array_violations
 from pitchguard.judge.checks import Violation
 from pitchguard.judge.findings import ArrayShape, Finding
@@ -38,6 +39,7 @@ class ArrayVerdicts:
     isolated: int = 0  # compact features in no array: not judged here
     orders_only: int = 0  # arrays whose image could not be set up (no rectangular cell)
     distinct: int = 0  # distinct judgements made
+    array_rank: np.ndarray | None = None  # per array: its finding's severity rank (none: ok)
 
 
 @dataclass(frozen=True)
@@ -164,6 +166,31 @@ def array_hint(rule: LayerRule, j: ArrayJudgement, a1: np.ndarray, a2: np.ndarra
     return "increase the lattice pitch, or print this layer with a stronger exposure"
 
 
+def clip_judged(sites, rule: LayerRule) -> np.ndarray:
+    """Which compact features are judged on clips of their own (none when not
+    imaged): those with no lattice, whose lattice no neighbour confirms, or in a
+    row (pairs and rows end where a tile cannot see)."""
+    if not rule.image_checks:
+        return np.zeros(len(sites), dtype=bool)
+    return (sites.lattice == NONE) | (sites.lattice == ROW) | ~sites.core
+
+
+def covered_by_arrays(centres: np.ndarray, ranks: np.ndarray, arrays, v) -> np.ndarray:
+    """Which clip findings (feature ``centres``, severity ``ranks``) lie on a member of
+    an array whose own finding is at least as severe: the array says it already."""
+    out = np.zeros(len(centres), dtype=bool)
+    if not len(centres) or not len(arrays.array):
+        return out
+    f = arrays.sites.features
+    tol = arrays.sites.tol_nm
+    q, i = query_pairs(build_rtree(f.centre - tol, f.centre + tol), centres, centres)
+    a = arrays.array[i]
+    member = a >= 0
+    q, a = q[member], a[member]
+    out[q[v.array_rank[a] <= ranks[q]]] = True
+    return out
+
+
 def judge_arrays(arrays: LatticeArrays, rule: LayerRule, scale: float) -> ArrayVerdicts:
     """Findings for the arrays of one layer (nm as drawn; ``scale`` to the wafer).
 
@@ -175,12 +202,15 @@ def judge_arrays(arrays: LatticeArrays, rule: LayerRule, scale: float) -> ArrayV
     out.arrays = len(arrays)
     in_array = arrays.array >= 0
     out.members = int(in_array.sum())
-    # Features with no lattice at all are judged on clips of their own
-    # (judge.compact_clips) when the layer is imaged.
-    alone = (arrays.sites.lattice == NONE) if rule.image_checks else np.zeros(len(in_array), bool)
-    out.isolated = int((~in_array & ~alone).sum())
+    # Features with no lattice, in rows, or whose lattice no neighbour confirms
+    # (irregular groups, an array's ragged edge) are judged on clips of their
+    # own (judge.compact_clips) when the layer is imaged; their edge length is
+    # counted there.
+    clipped = clip_judged(arrays.sites, rule)
+    out.isolated = int((~in_array & ~clipped).sum())
     f = arrays.sites.features
-    out.judged_nm = float(2.0 * f.size[in_array].sum())
+    out.judged_nm = float(2.0 * f.size[in_array & ~clipped].sum())
+    out.array_rank = np.full(len(arrays), len(SEVERITIES), dtype=np.int64)
     tol = arrays.sites.tol_nm * scale
     lam_na = rule.exposure.lambda_over_na_nm
     seen: dict = {}
@@ -204,6 +234,7 @@ def judge_arrays(arrays: LatticeArrays, rule: LayerRule, scale: float) -> ArrayV
             out.orders_only += 1
         if j.violations:
             out.findings.append(_finding(rule, arrays, k, rec, j, a1, a2, scale))
+            out.array_rank[k] = SEVERITIES.index(j.violations[0].severity)
     out.distinct = len(seen)
     out.findings.sort(key=lambda f: (f.severity_rank, f.k1, f.bbox_nm))
     return out

@@ -1,12 +1,15 @@
-"""Compact features on their own judged on 2-D clips: a via or contact with no
-other feature of its shape within reach has no lattice to judge, so its image
-among the shapes around it is (:mod:`pitchguard.optics.compact_clips`).
+"""Compact features judged on 2-D clips of their surroundings
+(:mod:`pitchguard.optics.compact_clips`): those with no other feature of their
+shape within reach (context ``alone``) and those whose local lattice no
+neighbour confirms (``group``: in pairs, irregular groups, at the ragged edge
+of an array).  A feature whose lattice is confirmed is judged with its array.
 
 The layer's shapes within the clip window are turned into the feature's frame
 and cut into canonical rectangles; identical clips are imaged once per
 process.  A clip holding a shape that is not Manhattan in the feature's frame
-is counted, not judged.  Features in pairs, rows or irregular groups that form
-no array are counted, not judged (``compact_not_in_array``).
+is counted, not judged.  A ``group`` finding on a member of an array whose
+own finding is at least as severe is dropped once arrays are known
+(:func:`judge.arrays.covered_by_arrays`): the array says it already.
 """
 
 from __future__ import annotations
@@ -26,15 +29,18 @@ from pitchguard.geometry.rectangles import (
 )
 from pitchguard.geometry.sites import in_region
 from pitchguard.judge.array_checks import array_violations
-from pitchguard.judge.arrays import image_fields
+from pitchguard.judge.arrays import clip_judged, image_fields
 from pitchguard.judge.caches import layer_cache
 from pitchguard.judge.findings import ArrayShape, Finding
 from pitchguard.layout.polygons import PolygonSet
 from pitchguard.optics.aerial2d import source_angle
-from pitchguard.optics.compact_clips import alone_metrics, clip_window
+from pitchguard.optics.compact_clips import alone_metrics_batch, clip_window
 
 KEY_DECIMALS = 2
 """Clip rectangles are compared to 0.01 nm (drawn)."""
+
+BATCH = 256
+"""Clips imaged and measured together (:func:`optics.compact_clips.alone_metrics_batch`)."""
 
 
 @dataclass
@@ -59,11 +65,12 @@ def judge_alone(
     grid_nm: float,
     region=None,
 ) -> AloneVerdicts:
-    """Judge the features of ``lattice`` with no lattice (class NONE) in ``region``
-    on clips of ``ps`` (drawn nm; it must hold every shape within the window)."""
+    """Judge the features of ``lattice`` that :func:`judge.arrays.clip_judged` picks,
+    in ``region``, on clips of ``ps`` (drawn nm; it must hold every shape within
+    the window)."""
     out = AloneVerdicts()
     f = lattice.features
-    pick = lattice.lattice == NONE
+    pick = clip_judged(lattice, rule)
     if region is not None:
         pick &= in_region(f.centroid, region)
     idx = np.flatnonzero(pick)
@@ -79,26 +86,30 @@ def judge_alone(
     first, group = neighbourhood_groups(
         around, bounds, np.column_stack([f.size[idx], f.angle_deg[idx]]), step
     )
-    verdicts = []
+    keys: list = []
+    pending: dict = {}  # clips not judged yet, by source turn: key -> (rects, size, angle)
     for j in first.tolist():
         k = int(idx[j])
         angle = float(f.angle_deg[k])
         w, h = (float(v) for v in f.size[k])
         near = hit[bounds[j] : bounds[j + 1]]
         rects = frame_rectangles(ps, near, centres[j], angle, window, 1.01 * grid_nm, cache)
-        m, vs = None, ()
+        key = None
         if rects is not None:
-            key = (
-                np.round(rects, KEY_DECIMALS).tobytes(),
-                round(w, KEY_DECIMALS),
-                round(h, KEY_DECIMALS),
-                source_angle(rule.exposure, angle),
-            )
+            turn = source_angle(rule.exposure, angle)
+            key = (np.round(rects, KEY_DECIMALS).tobytes(), round(w, KEY_DECIMALS),
+                   round(h, KEY_DECIMALS), turn)  # fmt: skip
             if key not in cache:
-                m = alone_metrics(rule, rects * scale, (w * scale, h * scale), angle)
+                pending.setdefault(turn, {})[key] = (rects * scale, (w * scale, h * scale), angle)
+        keys.append(key)
+    for clips in pending.values():
+        items = list(clips.items())
+        for a in range(0, len(items), BATCH):
+            part = items[a : a + BATCH]
+            ms = alone_metrics_batch(rule, [v[:2] for _, v in part], part[0][1][2])
+            for (key, _), m in zip(part, ms, strict=True):
                 cache[key] = (m, tuple(array_violations(rule, None, m)))
-            m, vs = cache[key]
-        verdicts.append((m, vs))
+    verdicts = [(None, ()) if key is None else cache[key] for key in keys]
     imaged = np.array([v[0] is not None for v in verdicts], dtype=bool)[group]
     out.not_manhattan = int((~imaged).sum())
     out.judged = int(imaged.sum())
@@ -106,11 +117,13 @@ def judge_alone(
     flagged = np.array([bool(v[1]) for v in verdicts], dtype=bool)[group]
     for j in np.flatnonzero(flagged).tolist():
         m, vs = verdicts[group[j]]
-        out.findings.append(_finding(rule, vs, m, f, int(idx[j])))
+        k = int(idx[j])
+        context = "alone" if lattice.lattice[k] == NONE else "group"
+        out.findings.append(_finding(rule, vs, m, f, k, context))
     return out
 
 
-def _finding(rule: LayerRule, vs, m, f, k: int) -> Finding:
+def _finding(rule: LayerRule, vs, m, f, k: int, context: str) -> Finding:
     top = vs[0]
     w, h = (float(v) for v in f.size[k])
     angle = float(f.angle_deg[k])
@@ -143,7 +156,7 @@ def _finding(rule: LayerRule, vs, m, f, k: int) -> Finding:
         two_beam_fraction=math.nan,
         cutoff_pitch_nm=math.nan,
         lines=1,
-        periodicity="alone",
+        periodicity=context,
         sites=1,
         run_nm=round(max(w, h), 3),
         bbox_nm=(min(xs), min(ys), max(xs), max(ys)),
@@ -153,11 +166,11 @@ def _finding(rule: LayerRule, vs, m, f, k: int) -> Finding:
         hint=_hint(top.check),
         **image_fields(m),
         violations=tuple(vs),
-        context="alone",
+        context=context,
         threshold=round(m.threshold, 5),
         cut_origin_nm=(float(c[0]), float(c[1])),
         array=ArrayShape(
-            lattice="alone",
+            lattice=context,
             a1_nm=(math.nan, math.nan),
             a2_nm=(math.nan, math.nan),
             feature_nm=(round(w, 3), round(h, 3)),
@@ -178,4 +191,6 @@ def _hint(check: str) -> str:
         return "move the feature away from the shapes around it, or shrink it"
     if check == "cd-error":
         return "bias the drawn size (OPC), or check the deck's anchor for this layer"
-    return "enlarge the feature or give it room; a feature on its own images worse than an array"
+    return (
+        "enlarge the feature or give it room; alone or at an edge it images worse than in an array"
+    )

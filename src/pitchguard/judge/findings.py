@@ -40,6 +40,12 @@ class TipShape(NamedTuple):
     rects_nm: tuple[tuple[float, float, float, float], ...]  # the clip, tip frame, drawn
 
 
+CLIP_KINDS = ("alone", "group")
+"""``ArrayShape.lattice`` of a compact feature judged on a clip of its own: no other of
+its shape within reach, or a lattice no neighbour confirms (pairs, irregular
+groups, an array's ragged edge)."""
+
+
 @dataclass(frozen=True, slots=True)
 class Finding:
     """One region of one layer that breaks a check.  Every report renders this."""

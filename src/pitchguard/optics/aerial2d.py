@@ -52,11 +52,6 @@ from pitchguard.optics.aerial import (
 )
 from pitchguard.optics.cells2d import Cell
 
-KERNEL_TOL = 1e-3
-"""Largest intensity error (clear field = 1) that :class:`PointImages` allows itself by
-dropping coherent systems; see there for the bound."""
-
-
 SOURCE_CHUNK = 512
 """Source points per block of the Abbe sum (bounds memory: block x orders x points)."""
 
@@ -474,112 +469,6 @@ class CoherentSystems2D:
         d_x = np.einsum("k,kmp->mp", ev, 2 * np.real(np.conj(field) * dfx))
         d_y = np.einsum("k,kmp->mp", ev, 2 * np.real(np.conj(field) * dfy))
         return inten, d_x, d_y
-
-
-class PointImages:
-    """Images of one cell through focus at fixed points ``(px, py)``, each within
-    KERNEL_TOL of the exact Hopkins sum; or, ``plain``, the Abbe sum
-    (:func:`abbe_image_2d`), the reference.
-
-    Notes
-    -----
-    Split the spectrum at its mean: ``c = c_0 delta_0 + d`` (``d_0 = 0``).
-    With kernels ``K = V^H`` and eigenvalues ``lambda`` of the TCC, the image
-    ``I(r) = sum_k lambda_k |c_0 K_k0 + g_k(r)|^2``, ``g_k(r) = sum_n K_kn d_n
-    e_n(r)``, ``e_n(r) = exp(i 2 pi f_n . r)``, expands to
-
-    ``|c_0|^2 TCC_00 + 2 Re(conj(c_0) sum_n TCC_0n d_n e_n(r)) + sum_k
-    lambda_k |g_k(r)|^2``
-
-    (``TCC_0n = sum_k lambda_k conj(K_k0) K_kn``).  The first two terms are
-    exact at the cost of one system.  In the last, the systems with
-    ``lambda_k < KERNEL_TOL / |d|^2`` are dropped: they add at most
-    ``lambda_max_dropped sum_k |g_k(r)|^2 = lambda_max_dropped |d|^2`` (``V``
-    unitary; ``|d|^2`` is the transmission's variance over the window).  A
-    clip of small features has a small variance, so few systems (about 10-50
-    for vias in a window of 5 lambda / NA against about 280 above 1e-3).
-    """
-
-    def __init__(
-        self,
-        exposure: Exposure,
-        cell: Cell,
-        spectrum: np.ndarray,
-        orders: CellOrders,
-        px: np.ndarray,
-        py: np.ndarray,
-        angle_deg: float,
-        plain: bool = False,
-    ):
-        self.exposure, self.cell, self.spectrum, self.orders = exposure, cell, spectrum, orders
-        self.px, self.py, self.angle_deg, self.plain = px, py, angle_deg, plain
-        self.basis = None if plain else plane_waves(orders, px, py)
-        zero = orders.zero
-        self.c0 = complex(spectrum[zero])
-        self.d = np.array(spectrum, dtype=np.complex128)
-        self.d[zero] = 0.0
-        self.variance = float(np.sum(self.d.real**2 + self.d.imag**2))
-
-    def _split(self, focus_nm: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
-        """``(lambda, K d, TCC_0n d, |c_0|^2 TCC_00)`` at ``focus_nm``, the systems that the
-        bound keeps."""
-        sys = coherent_systems_2d(
-            self.exposure, self.cell.px_nm, self.cell.py_nm, focus_nm, self.angle_deg
-        )
-        ev, kern = sys.eigenvalues, sys.kernels  # largest first
-        row = sys.dc_row()
-        zero = self.orders.zero
-        if self.variance > 0:
-            kept = int(np.searchsorted(-ev, -KERNEL_TOL / self.variance, side="right"))
-        else:
-            kept = 0
-        base = abs(self.c0) ** 2 * float(row[zero].real)
-        return ev[:kept], kern[:kept] * self.d, row * self.d * np.conj(self.c0), base
-
-    def __call__(self, focus_nm: float, points: slice = slice(None)) -> np.ndarray:
-        """Intensities at ``focus_nm`` at the points ``points`` selects."""
-        e = self.exposure
-        if self.plain:
-            src = source_points(e, self.angle_deg)
-            return abbe_image_2d(
-                self.spectrum, self.orders, Optics.of(e), src, focus_nm,
-                self.px[points], self.py[points],
-            )  # fmt: skip
-        ev, coef, cross, base = self._split(focus_nm)
-        b = self.basis[:, points]
-        field = coef @ b
-        return base + 2.0 * (cross @ b).real + ev @ (field.real**2 + field.imag**2)
-
-    def at(self, focus_nm: float, x_nm, y_nm) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Intensity and its x and y derivatives ``(P,)`` at the points ``(x, y)``."""
-        o = self.orders
-        x = np.atleast_1d(np.asarray(x_nm, dtype=np.float64))
-        y = np.atleast_1d(np.asarray(y_nm, dtype=np.float64))
-        if self.plain:
-            sys = coherent_systems_2d(
-                self.exposure, self.cell.px_nm, self.cell.py_nm, focus_nm, self.angle_deg
-            )
-            inten, d_x, d_y = sys.at(self.spectrum, x, y)
-            return inten[0], d_x[0], d_y[0]
-        ev, coef, cross, base = self._split(focus_nm)
-        b = plane_waves(o, x, y)
-        gx, gy = 2j * np.pi * o.fx, 2j * np.pi * o.fy
-        field, fdx, fdy = coef @ b, (coef * gx) @ b, (coef * gy) @ b
-        inten = base + 2.0 * (cross @ b).real + ev @ (field.real**2 + field.imag**2)
-        d_x = 2.0 * ((cross * gx) @ b).real + ev @ (2.0 * np.real(np.conj(field) * fdx))
-        d_y = 2.0 * ((cross * gy) @ b).real + ev @ (2.0 * np.real(np.conj(field) * fdy))
-        return inten, d_x, d_y
-
-
-def plane_waves(orders: CellOrders, x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """``exp(i 2 pi f_mn . r)`` ``(N, P)`` at the points ``(x, y)``: powers of one wave per
-    axis (``2 m_max + 1`` and ``2 n_max + 1`` exponentials per point, not ``N``)."""
-    x = np.asarray(x, dtype=np.float64)
-    y = np.asarray(y, dtype=np.float64)
-    mx, ny = orders.m_max, orders.n_max
-    wx = np.exp(2j * np.pi * np.arange(-mx, mx + 1)[:, None] * (x / orders.px_nm))
-    wy = np.exp(2j * np.pi * np.arange(-ny, ny + 1)[:, None] * (y / orders.py_nm))
-    return wx[orders.m + mx] * wy[orders.n + ny]
 
 
 def source_angle(exposure: Exposure, angle_deg: float) -> float:

@@ -31,26 +31,35 @@ class Metrics:
 def _edges_for_thresholds(x, g, lo_idx, c_idx, hi_idx, t):
     """Printed edges around index ``c_idx`` for every threshold in ``t``.
 
-    ``g`` prints where ``g < t``.  Going out from the centre, an edge is where
-    ``g`` first reaches ``t``; found for all thresholds at once from the
-    running maxima.  Returns ``(left, right)`` arrays: ``nan`` where the
+    ``g`` ``(n,)`` or ``(B, n)`` (a few profiles on the same ``x``) prints where
+    ``g < t``.  Going out from the centre, an edge is where ``g`` first
+    reaches ``t``; found for all thresholds at once from the running maxima.
+    Returns ``(left, right)`` arrays ``(T,)`` or ``(B, T)``: ``nan`` where the
     feature is lost (``g[c] >= t``), ``-inf`` (left) or ``+inf`` (right)
     where no crossing lies inside ``[lo_idx, hi_idx]`` (the feature runs into
     its neighbour).
     """
-    left_part = g[lo_idx : c_idx + 1][::-1]  # from the centre outward
-    right_part = g[c_idx : hi_idx + 1]
+    left_part = g[..., lo_idx : c_idx + 1][..., ::-1]  # from the centre outward
+    right_part = g[..., c_idx : hi_idx + 1]
     lx = x[lo_idx : c_idx + 1][::-1]
     rx = x[c_idx : hi_idx + 1]
 
     def side(part, px, beyond):
-        run = np.maximum.accumulate(part)
-        k = np.searchsorted(run, t, side="left")  # first index with run >= t
-        if len(part) == 1:  # no sample beyond the centre on this side: nothing to interpolate
+        run = np.maximum.accumulate(part, axis=-1)
+        n = part.shape[-1]
+        if part.ndim == 1:
+            k = np.searchsorted(run, t, side="left")  # first index with run >= t
+        else:
+            k = np.stack([np.searchsorted(r, t, side="left") for r in run])
+        if n == 1:  # no sample beyond the centre on this side: nothing to interpolate
             return np.where(k == 0, np.nan, beyond)
-        ok = (k > 0) & (k < len(part))
-        kk = np.clip(k, 1, len(part) - 1)
-        g0, g1 = part[kk - 1], part[kk]
+        ok = (k > 0) & (k < n)
+        kk = np.clip(k, 1, n - 1)
+        if part.ndim == 1:
+            g0, g1 = part[kk - 1], part[kk]
+        else:
+            g0 = np.take_along_axis(part, kk - 1, axis=1)
+            g1 = np.take_along_axis(part, kk, axis=1)
         with np.errstate(divide="ignore", invalid="ignore"):
             frac = np.where(g1 != g0, (t - g0) / (g1 - g0), 0.0)
         pos = px[kk - 1] + frac * (px[kk] - px[kk - 1])
@@ -60,7 +69,8 @@ def _edges_for_thresholds(x, g, lo_idx, c_idx, hi_idx, t):
 
 
 def cd_of_thresholds(x, inten, centre_nm, lo_nm, hi_nm, bright, t):
-    """Printed CD for each threshold in ``t`` (0 where lost, inf where bridged)."""
+    """Printed CD for each threshold in ``t`` (0 where lost, inf where bridged): ``(T,)``
+    for one profile ``inten`` ``(n,)``, ``(B, T)`` for ``B`` profiles ``(B, n)``."""
     g = -inten if bright else inten
     tt = -t if bright else t
     c_idx = int(np.argmin(np.abs(x - centre_nm)))

@@ -280,27 +280,26 @@ def axis_metrics(
     lows = np.full((2, len(focus)), np.nan)
     highs = np.full((2, len(focus)), np.nan)
     sizes = np.full((2, len(focus)), np.nan)
-    for f in range(len(focus)):
-        twin = next(
-            (
-                g
-                for g in range(f)
-                if np.array_equal(rows[g], rows[f]) and np.array_equal(cols[g], cols[f])
-            ),
-            None,
-        )
-        if twin is not None:  # the same image (+z and -z alike): the same windows
-            lows[:, f], highs[:, f], sizes[:, f] = lows[:, twin], highs[:, twin], sizes[:, twin]
-            continue
-        cds = (
-            cd_of_thresholds(x, rows[f], xc, xlo, xhi, bright, t),
-            cd_of_thresholds(y, cols[f], yc, ylo, yhi, bright, t),
-        )
-        for a, (cd, w) in enumerate(zip(cds, (wx, wy), strict=True)):
-            sizes[a, f] = _size_threshold(t, cd, w)
-            ta, tb = _window(t, np.abs(cd - w) <= tol * w, sizes[a, f])
+    # One edge search per axis for every distinct focus image (+z and -z alike).
+    seen: dict[bytes, int] = {}
+    back = np.array(
+        [seen.setdefault(rows[f].tobytes() + cols[f].tobytes(), f) for f in range(len(focus))]
+    )
+    first = np.unique(back)
+    back = np.searchsorted(first, back)
+    cds = (
+        cd_of_thresholds(x, rows[first], xc, xlo, xhi, bright, t),
+        cd_of_thresholds(y, cols[first], yc, ylo, yhi, bright, t),
+    )
+    for u in range(len(first)):
+        for a, w in enumerate((wx, wy)):
+            cd = cds[a][u]
+            size = _size_threshold(t, cd, w)
+            ta, tb = _window(t, np.abs(cd - w) <= tol * w, size)
+            at = back == u
+            sizes[a, at] = size
             if math.isfinite(ta) and ta > 0:
-                lows[a, f], highs[a, f] = 1.0 / tb, 1.0 / ta
+                lows[a, at], highs[a, at] = 1.0 / tb, 1.0 / ta
     t_size = sizes[0, best]
 
     if nominal_threshold is None:

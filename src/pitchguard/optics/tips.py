@@ -23,13 +23,10 @@ import numpy as np
 
 from pitchguard.deck import LayerRule
 from pitchguard.optics.aerial import mask_amplitudes
-from pitchguard.optics.aerial2d import (
-    PointImages,
-    cell_spectra,
-    exposure_orders,
-)
+from pitchguard.optics.aerial2d import cell_spectra, exposure_orders
 from pitchguard.optics.cells2d import Cell, clip_cell
 from pitchguard.optics.cut_images import anchor_threshold
+from pitchguard.optics.point_images import PointImages
 
 REACH_LAMBDA_NA = 1.0
 """Shapes within this many lambda/NA of the tip and the gap are drawn in a clip."""
@@ -98,7 +95,7 @@ def tip_metrics(
     frame turned by ``angle_deg`` in the layout (it turns the source).
 
     ``plain`` takes every image by the plain Abbe sum (see
-    :class:`aerial2d.PointImages`): the reference the tests hold the fast path to."""
+    :class:`point_images.PointImages`): the reference the tests hold the fast path to."""
     e = rule.exposure
     lam_na = e.lambda_over_na_nm
     cell = tip_cell(rule, rects_nm)

@@ -19,9 +19,9 @@ _INT32 = 2**31 - 1
 def marker_label(f: Finding) -> str:
     if f.context == "line-end":
         return f"{f.severity} {f.check} {f.layer} gap={f.space_nm:.1f}nm w={f.width_nm:.1f}nm"
-    if f.context == "alone":
-        w, h = f.array.feature_nm if f.array is not None else (f.width_nm, f.width_nm)
-        return f"{f.severity} {f.check} {f.layer} alone {w:.1f}x{h:.1f}nm"
+    if f.array is not None and f.context in ("alone", "group"):
+        w, h = f.array.feature_nm
+        return f"{f.severity} {f.check} {f.layer} {f.context} {w:.1f}x{h:.1f}nm"
     return f"{f.severity} {f.check} {f.layer} p={f.pitch_nm:.1f}nm k1={f.k1:.3f}"
 
 

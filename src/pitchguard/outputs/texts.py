@@ -6,7 +6,7 @@ import math
 from collections.abc import Iterator
 
 from pitchguard.deck import SEVERITIES
-from pitchguard.judge.findings import Finding, FindingSet
+from pitchguard.judge.findings import CLIP_KINDS, Finding, FindingSet
 from pitchguard.outputs.rows import (
     fill_templates,
     hole,
@@ -71,6 +71,13 @@ def describe(f: Finding, holes: bool = False) -> str:
     )
 
 
+CLIP_WHERE = {
+    "alone": "with no other of its shape within reach",
+    "group": "in a pair, an irregular group or at the edge of an array of its kind",
+}
+"""Where a compact feature judged on a clip of its own sits (``ArrayShape.lattice``)."""
+
+
 def pattern_text(f: Finding) -> str:
     """What the region holds: lines with their pitch, or an array's lattice."""
     a = f.array
@@ -79,9 +86,9 @@ def pattern_text(f: Finding) -> str:
             f"a line end {nm_text(f.width_nm)} nm wide, {f.periodicity} across a "
             f"{nm_text(f.space_nm)} nm gap, the line running at {f.orientation_deg:g} deg"
         )
-    if a is not None and a.lattice == "alone":
+    if a is not None and a.lattice in CLIP_KINDS:
         w, h = a.feature_nm
-        return f"a feature {nm_text(w)} x {nm_text(h)} nm with no other of its shape within reach"
+        return f"a feature {nm_text(w)} x {nm_text(h)} nm {CLIP_WHERE[a.lattice]}"
     if a is None:
         return (
             f"{f.lines} lines ({f.periodicity}) running at {f.orientation_deg:g} deg, "
@@ -131,9 +138,10 @@ def finding_line(f: Finding, where: str | None = None) -> str:
 
 def pattern_brief(f: Finding) -> str:
     """:func:`pattern_text` in a few words."""
-    if f.array is not None and f.array.lattice == "alone":
+    if f.array is not None and f.array.lattice in CLIP_KINDS:
         w, h = f.array.feature_nm
-        return f"feature {nm_text(w)} x {nm_text(h)} nm on its own"
+        where = "on its own" if f.array.lattice == "alone" else "in a group"
+        return f"feature {nm_text(w)} x {nm_text(h)} nm {where}"
     if f.context == "line-end":
         return f"{f.periodicity} gap {nm_text(f.space_nm)} nm (line {nm_text(f.width_nm)} nm)"
     if f.array is None:

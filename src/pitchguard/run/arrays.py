@@ -7,7 +7,7 @@ import numpy as np
 
 from pitchguard.deck import Deck
 from pitchguard.geometry.lattice import LatticeSites, find_arrays
-from pitchguard.judge.arrays import ArrayVerdicts, judge_arrays
+from pitchguard.judge.arrays import ArrayVerdicts, covered_by_arrays, judge_arrays
 from pitchguard.judge.findings import FindingSet
 
 
@@ -27,16 +27,39 @@ def joined_sites(assembly, k: int) -> LatticeSites | None:
     return LatticeSites.joined(parts) if parts else None
 
 
-def tiled_arrays(deck: Deck, assembly) -> list[ArrayVerdicts]:
-    """Per deck layer: the verdicts on the arrays of the whole tiled layout."""
+def tiled_arrays(deck: Deck, assembly) -> list[tuple]:
+    """Per deck layer: the arrays of the whole tiled layout (None when none) and the
+    verdicts on them."""
     out = []
     for k, rule in enumerate(deck.layers):
         sites = joined_sites(assembly, k)
         if sites is None:
-            out.append(ArrayVerdicts([]))
+            out.append((None, ArrayVerdicts([])))
             continue
-        out.append(judge_arrays(find_arrays(sites), rule, deck.scale_to_wafer))
+        arrays = find_arrays(sites)
+        out.append((arrays, judge_arrays(arrays, rule, deck.scale_to_wafer)))
     return out
+
+
+def without_covered(findings: FindingSet, deck: Deck, found: list[tuple]) -> FindingSet:
+    """``findings`` without the clip findings (context ``group``) on array members whose
+    array's own finding is at least as severe (``found``: :func:`tiled_arrays`)."""
+    group = np.array([f.context == "group" for f in findings.distinct], dtype=bool)
+    if not group.any():
+        return findings
+    items = np.flatnonzero(group[findings.which])
+    origin = np.array([f.cut_origin_nm for f in findings.distinct], dtype=np.float64)
+    centres = origin[findings.which[items]] + findings.offset[items]
+    ranks = np.array([f.severity_rank for f in findings.distinct])[findings.which[items]]
+    layer = np.array([f.layer for f in findings.distinct], dtype=object)[findings.which[items]]
+    drop = np.zeros(len(findings.which), dtype=bool)
+    for rule, (arrays, v) in zip(deck.layers, found, strict=True):
+        mine = np.flatnonzero(layer == rule.name)
+        if arrays is None or not len(mine):
+            continue
+        hit = covered_by_arrays(centres[mine], ranks[mine], arrays, v)
+        drop[items[mine[hit]]] = True
+    return findings.select(np.flatnonzero(~drop)) if drop.any() else findings
 
 
 def with_findings(findings: FindingSet, more: list) -> FindingSet:

@@ -21,7 +21,7 @@ from pitchguard.geometry.lattice import (
     points_on_features,
 )
 from pitchguard.geometry.sites import ExtractStats, find_sites, in_region
-from pitchguard.judge.arrays import ArrayVerdicts, judge_arrays
+from pitchguard.judge.arrays import ArrayVerdicts, covered_by_arrays, judge_arrays
 from pitchguard.judge.compact_clips import judge_alone
 from pitchguard.judge.findings import Finding
 from pitchguard.judge.line_ends import TipVerdicts, judge_line_ends
@@ -130,11 +130,11 @@ def scan_polygons(
             near, grid_nm, compact_max, reach, region=region_nm, compact=compact
         )
         alone = judge_alone(lattice, near, rule, scale, grid_nm, region=region_nm)
-        regions.extend(Region(f) for f in alone.findings)
+        clip_findings = alone.findings  # filtered by the arrays once they are known
         if alone.judged:
-            ex.extra["compact_alone_judged"] = alone.judged
+            ex.extra["compact_on_clips"] = alone.judged
         if alone.not_manhattan:
-            ex.extra["compact_alone_not_manhattan"] = alone.not_manhattan
+            ex.extra["compact_clips_not_manhattan"] = alone.not_manhattan
         if len(compact) and len(sites):
             mid = sites.origin + sites.direction * (0.5 * (sites.u0 + sites.u1))[:, None]
             inward = mid - sites.normal * (0.25 * grid_nm)
@@ -189,9 +189,18 @@ def scan_polygons(
         ex.judged_nm = float((sites.u1 - sites.u0)[judged].sum()) + tips.judged_nm + alone.judged_nm
         add_tip_counts(ex, tips)
         if not tile:
-            verdicts = judge_arrays(find_arrays(lattice), rule, scale)
+            arrays = find_arrays(lattice)
+            verdicts = judge_arrays(arrays, rule, scale)
             regions.extend(Region(f) for f in verdicts.findings)
             add_array_counts(ex, verdicts)
+            clip_findings = [
+                f
+                for f, c in zip(
+                    clip_findings, covered_clips(clip_findings, arrays, verdicts), strict=True
+                )
+                if not c
+            ]
+        regions.extend(Region(f) for f in clip_findings)
         regions.extend(
             classify_layer(
                 sites,
@@ -219,6 +228,17 @@ def scan_polygons(
         )
     tick("done", total)
     return regions, stats
+
+
+def covered_clips(findings: list[Finding], arrays, verdicts: ArrayVerdicts) -> np.ndarray:
+    """Which clip findings of a layer an array's own finding already covers."""
+    centres = np.array([f.cut_origin_nm for f in findings], dtype=np.float64).reshape(-1, 2)
+    ranks = np.array([f.severity_rank for f in findings], dtype=np.int64)
+    group = np.array([f.context == "group" for f in findings], dtype=bool)
+    out = np.zeros(len(findings), dtype=bool)
+    if group.any():
+        out[group] = covered_by_arrays(centres[group], ranks[group], arrays, verdicts)
+    return out
 
 
 def add_tip_counts(ex: ExtractStats, v: TipVerdicts) -> None:

@@ -11,7 +11,7 @@ from pitchguard.geometry.sites import ExtractStats
 from pitchguard.judge.findings import FindingSet, replaced
 from pitchguard.judge.order import sort_findings
 from pitchguard.layout.reader import Layout
-from pitchguard.run.arrays import tiled_arrays, with_findings
+from pitchguard.run.arrays import tiled_arrays, with_findings, without_covered
 from pitchguard.run.engine import WorkerPool
 from pitchguard.run.merge import TileAssembly
 from pitchguard.run.plan import (
@@ -151,10 +151,11 @@ def scan_tiled(
         }
     findings = with_hints(assembled.findings, assembled.hint_keys, run.texts)
     stats = sum_stats(deck, assembled.per_group)
-    verdicts = tiled_arrays(deck, assembly)
-    for s, v in zip(stats, verdicts, strict=True):
+    found = tiled_arrays(deck, assembly)
+    for s, (_, v) in zip(stats, found, strict=True):
         add_array_counts(s.extract, v)
-    findings = with_findings(findings, [f for v in verdicts for f in v.findings])
+    findings = without_covered(findings, deck, found)
+    findings = with_findings(findings, [f for _, v in found for f in v.findings])
     if ordered:
         findings = sort_findings(findings)
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})

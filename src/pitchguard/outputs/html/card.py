@@ -6,7 +6,7 @@ import math
 
 from pitchguard.deck import LayerRule
 from pitchguard.judge.checks import CHECKS
-from pitchguard.judge.findings import Finding
+from pitchguard.judge.findings import CLIP_KINDS, Finding
 from pitchguard.outputs.html.groups import LOCATIONS_LISTED, OPEN_GROUPS, Group
 from pitchguard.outputs.html.pictures import FindingPictures
 from pitchguard.outputs.html.style import IMAGE_PX, LAYOUT_PX, degrees_text
@@ -17,7 +17,7 @@ from pitchguard.outputs.html.text import (
     html_number,
     value_vs_limit,
 )
-from pitchguard.outputs.texts import orders_text
+from pitchguard.outputs.texts import CLIP_WHERE, orders_text
 
 
 def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
@@ -99,8 +99,8 @@ def _array_rows(f: Finding, rows: list) -> list:
     w, h = a.feature_nm
     vec = "({:.1f}, {:.1f}) nm"
     lattice = f"{esc(a.lattice)}: a1 = {vec.format(*a.a1_nm)}"
-    if a.lattice == "alone":
-        lattice = "none: no other feature of its shape within reach"
+    if a.lattice in CLIP_KINDS:
+        lattice = esc(CLIP_WHERE[a.lattice])
     elif a.lattice != "row":
         lattice += f", a2 = {vec.format(*a.a2_nm)}"
     extra = [
@@ -119,7 +119,7 @@ def _array_rows(f: Finding, rows: list) -> list:
         (
             "judged on",
             "a 2-D clip of the feature and the shapes around it"
-            if a.lattice == "alone"
+            if a.lattice in CLIP_KINDS
             else "the array's periodic unit cell (its interior)",
         ),
     ]
@@ -237,9 +237,9 @@ def _group_title(g: Group, rule: LayerRule | None) -> str:
             f"line end {html_number(f.width_nm)} nm, {esc(f.tip.kind)} gap "
             f"{html_number(f.space_nm)} nm, line at {degrees_text(f.orientation_deg)}"
         )
-    elif f.array is not None and f.array.lattice == "alone":
+    elif f.array is not None and f.array.lattice in CLIP_KINDS:
         w, h = f.array.feature_nm
-        meta = f"feature {html_number(w)} x {html_number(h)} nm on its own"
+        meta = f"feature {html_number(w)} x {html_number(h)} nm {esc(CLIP_WHERE[f.array.lattice])}"
     elif f.array is not None:
         w, h = f.array.feature_nm
         meta = (

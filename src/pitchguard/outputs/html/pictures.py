@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from pitchguard.deck import Deck, LayerRule
-from pitchguard.judge.findings import Finding
+from pitchguard.judge.findings import CLIP_KINDS, Finding
 from pitchguard.outputs.html.image_picture import draw_image
 from pitchguard.outputs.html.layout_picture import CutPicture, draw_layout
 from pitchguard.run.scan import ScanResult
@@ -63,7 +63,7 @@ class FindingPictures:
     def image_picture(self, f: Finding, mirrored: bool) -> tuple[str | None, str]:
         """PNG (base64) of the aerial image across ``f``'s cut and a caption."""
         rule = self.rules.get(f.layer)
-        if rule is not None and f.array is not None and f.array.lattice == "alone":
+        if rule is not None and f.array is not None and f.array.lattice in CLIP_KINDS:
             from pitchguard.outputs.html.tip_picture import alone_picture
 
             return alone_picture(f, rule, *self._layer(rule), self.scale)
