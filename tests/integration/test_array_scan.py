@@ -19,10 +19,15 @@ import json
 import math
 
 import gdstk
+import numpy as np
 import pytest
 
-from decks import DRY_ARF_CUTOFF_NM, DRY_ARF_DECK
+from decks import DEMO_DECK, DRY_ARF_CUTOFF_NM, DRY_ARF_DECK
 from pitchguard.cli import main
+from pitchguard.deck import load_deck
+from pitchguard.optics.aerial import mask_amplitudes
+from pitchguard.optics.aerial2d import cell_spectra, coherent_systems_2d, exposure_orders
+from pitchguard.optics.compact_clips import clip_window, feature_cell
 
 DECK = DRY_ARF_DECK.replace('"clear"', '"dark"')
 
@@ -152,3 +157,71 @@ def test_pairs_of_holes_are_judged_on_clips_whole_and_tiled(tmp_path):
     _, tiled = _scan(tmp_path, layout, "--tile-um", "2.5")
     assert tiled["summary"]["tiling"]["tiles"] > 1
     assert tiled["findings"] == whole["findings"]
+
+
+def _via1_deck(tmp_path):
+    """The demo deck's via1 layer alone (ArF immersion, annular, 6 % attenuated PSM,
+    dark field; the other layers would be missing from the layout)."""
+    head, *layers = DEMO_DECK.read_text().split("[[layers]]")
+    deck = tmp_path / "via1.toml"
+    deck.write_text(head + "[[layers]]" + next(b for b in layers if 'name = "via1"' in b))
+    return deck
+
+
+def test_an_arrays_last_rows_are_judged_on_clips(tmp_path):
+    """64 nm holes at 180 nm, 10 x 10, on the demo via1 exposure.  The unit cell (the
+    array's interior) gives NILS 1.07, a risk.  Holes on the array's outer ring
+    have fewer neighbours sending light their way and image worse (common
+    practice: OPC biases an array's last rows): their clips give NILS below 1, a
+    fail, reported once for the array.  The ring is what a clip window (half
+    side 214 nm, under 2 pitches) sees: 10^2 - 8^2 = 36 holes.  The reported NILS
+    is the smallest of the ring's clips by the full Hopkins sum (every coherent
+    system, no truncation; itself held to Abbe in tests/unit/test_image2d.py)."""
+    w, p, n = 0.064, 0.18, 10
+    lib = gdstk.Library(unit=1e-6, precision=1e-9)
+    hole = lib.new_cell("HOLE")
+    hole.add(gdstk.rectangle((-w / 2, -w / 2), (w / 2, w / 2), layer=18))
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Reference(hole, (0, 0), columns=n, rows=n, spacing=(p, p)))
+    layout = tmp_path / "ring.gds"
+    lib.write_gds(str(layout))
+    deck = _via1_deck(tmp_path)
+    runs = []
+    for extra in (("--untiled",), ("--tile-um", "1")):
+        out = tmp_path / f"r{len(runs)}.json"
+        main(["scan", str(layout), "--rules", str(deck), "--json", str(out), "-q", *extra])
+        runs.append(json.loads(out.read_text()))
+    assert runs[0]["findings"] == runs[1]["findings"]
+    by_kind = {f["periodicity"]: f for f in runs[0]["findings"]}
+    assert set(by_kind) == {"square array", "group"}
+    array, ring = by_kind["square array"], by_kind["group"]
+    assert (array["check"], array["severity"]) == ("low-nils", "risk")
+    assert (ring["check"], ring["severity"]) == ("low-nils", "fail")
+    assert ring["sites"] == n * n - (n - 2) ** 2
+    assert runs[0]["summary"]["by_layer"]["via1"]["array_edge_clips"] == 36
+    # The ring's distinct clips (by symmetry: position 0..4 along a side), exact NILS.
+    rule = load_deck(deck).layers[0]
+    half = clip_window(rule)
+    e = rule.exposure
+    wn, pn = w * 1000, p * 1000
+    nils = []
+    for k in range(5):
+        pts = [(i * pn, j * pn) for i in range(n) for j in range(n)]
+        rects = np.array([(x - wn / 2, y - wn / 2, x + wn / 2, y + wn / 2) for x, y in pts])
+        rects -= np.array([k * pn, 0.0, k * pn, 0.0])  # the hole k along the bottom side
+        keep = (
+            (rects[:, 0] < half)
+            & (rects[:, 2] > -half)
+            & (rects[:, 1] < half)
+            & (rects[:, 3] > -half)
+        )
+        cell = feature_cell(rule, np.clip(rects[keep], -half, half))
+        orders = exposure_orders(e, cell.px_nm, cell.py_nm)
+        spec = cell_spectra([cell], orders, *mask_amplitudes(e, rule.field))
+        i_e, d_x, d_y = coherent_systems_2d(e, cell.px_nm, cell.py_nm, 0.0).at(
+            spec, [-wn / 2, wn / 2, 0, 0], [0, 0, -wn / 2, wn / 2]
+        )
+        slopes = np.abs(np.concatenate([d_x[0, :2], d_y[0, 2:]]))
+        nils.append(float(np.min(wn * slopes / i_e[0])))
+    assert ring["nils"] == pytest.approx(min(nils), rel=0.01)
+    assert max(nils) < array["nils"]  # every ring hole images worse than the interior

@@ -2,14 +2,24 @@
 
 Check values: point-in-polygon by even-odd ray casting on a fine grid (the
 plain twins ``rectangles_plain`` and a direct cover count), so the
-decompositions cover exactly the polygon's area, each point once.
+decompositions cover exactly the polygon's area, each point once; an
+array's continued clip by enumerating its lattice by hand.
 """
 
 from __future__ import annotations
 
-import numpy as np
+import math
 
-from pitchguard.geometry.rectangles import canonical_rectangles, rectangles, rectangles_plain
+import numpy as np
+import pytest
+
+from pitchguard.geometry.rectangles import (
+    canonical_rectangles,
+    lattice_rectangles,
+    rectangles,
+    rectangles_plain,
+    same_rectangles,
+)
 
 STEP = 5.0
 
@@ -106,3 +116,38 @@ def test_neighbourhood_hashes_follow_the_shapes_around_a_point():
         q, hit[[2, 0, 1, 3, 4, 5, 6, 7, 8, 9, 10, 11]], 4, origins, ps, shape_hashes(ps, 0.01), 0.01
     )
     assert h2[0] == h[0]
+
+
+def test_an_arrays_continued_clip_is_its_lattice_in_the_feature_frame():
+    """40 nm squares on a 100 nm square lattice seen through a +-190 nm window: the
+    centre and the 8 neighbours whole, the 16 of the next ring (180-220 nm out) cut
+    to their 10 nm inside the window (arithmetic: 9 x 1600 + 12 x 400 + 4 x 100 nm^2);
+    the same lattice turned by 30 degrees, seen from a feature turned alike, is the
+    same clip (the frame turns with the feature)."""
+    window = (-190.0, -190.0, 190.0, 190.0)
+    got = lattice_rectangles((100.0, 0.0), (0.0, 100.0), (40.0, 40.0), 0.0, window)
+    want = []
+    for i in range(-2, 3):
+        for j in range(-2, 3):
+            x0, y0 = 100 * i - 20, 100 * j - 20
+            x1, y1 = x0 + 40, y0 + 40
+            want.append((max(x0, -190), max(y0, -190), min(x1, 190), min(y1, 190)))
+    assert len(got) == 25
+    area = np.prod(got[:, 2:] - got[:, :2], axis=1).sum()
+    assert area == pytest.approx(9 * 1600 + 12 * 400 + 4 * 100)
+    assert same_rectangles(got, np.array(want), 1e-9)
+    t = math.radians(30.0)
+    a1 = (100 * math.cos(t), 100 * math.sin(t))
+    a2 = (-100 * math.sin(t), 100 * math.cos(t))
+    turned = lattice_rectangles(a1, a2, (40.0, 40.0), 30.0, window)
+    assert same_rectangles(turned, got, 1e-9)
+
+
+def test_rectangle_sets_match_one_to_one_within_the_tolerance():
+    a = np.array([(0.0, 0.0, 10.0, 10.0), (20.0, 0.0, 30.0, 10.0)])
+    assert same_rectangles(a, a[::-1], 0.0)  # order does not matter
+    assert same_rectangles(a, a + 0.4, 0.5)
+    assert not same_rectangles(a, a + 0.6, 0.5)
+    assert not same_rectangles(a, a[:1], 1.0)  # a missing rectangle
+    assert not same_rectangles(a, np.array([a[0], a[0]]), 1.0)  # not one to one
+    assert same_rectangles(np.zeros((0, 4)), np.zeros((0, 4)), 0.0)

@@ -217,3 +217,42 @@ def frame_rectangles(ps, near, centre, angle_deg: float, window, tol, cache, dec
     centred on ``centre`` at ``angle_deg``."""
     polys = [turned_points(ps.polygon(p), centre, angle_deg) for p in np.asarray(near).tolist()]
     return clip_rectangles(polys, window, tol, cache, decimals)
+
+
+def lattice_rectangles(a1, a2, size, angle_deg: float, window) -> np.ndarray:
+    """The rectangles ``size`` ``(w, h)`` on every point of the lattice ``a1``, ``a2``
+    (layout frame) that meet ``window``, in the frame of the feature at the origin
+    turned by ``angle_deg``, clamped to the window: an array's clip where the
+    array continues on every side."""
+    t = math.radians(angle_deg)
+    c, s = math.cos(t), math.sin(t)
+    turn = np.array([[c, s], [-s, c]])  # layout -> feature frame
+    b = np.array([a1, a2], dtype=np.float64) @ turn.T
+    x0, y0, x1, y1 = window
+    w, h = size
+    reach = math.hypot(max(abs(x0), abs(x1)) + w, max(abs(y0), abs(y1)) + h)
+    height = abs(float(np.linalg.det(b))) / max(float(np.hypot(*b[0])), float(np.hypot(*b[1])))
+    m = int(math.ceil(reach / height)) + 1
+    i, j = np.meshgrid(np.arange(-m, m + 1), np.arange(-m, m + 1))
+    p = i.reshape(-1, 1) * b[0] + j.reshape(-1, 1) * b[1]
+    r = np.column_stack([p[:, 0] - w / 2, p[:, 1] - h / 2, p[:, 0] + w / 2, p[:, 1] + h / 2])
+    r = r[(r[:, 0] < x1) & (r[:, 2] > x0) & (r[:, 1] < y1) & (r[:, 3] > y0)]
+    return np.column_stack(
+        [
+            np.maximum(r[:, 0], x0),
+            np.maximum(r[:, 1], y0),
+            np.minimum(r[:, 2], x1),
+            np.minimum(r[:, 3], y1),
+        ]
+    )
+
+
+def same_rectangles(a: np.ndarray, b: np.ndarray, tol: float) -> bool:
+    """Whether two sets of rectangles match one to one, every corner within ``tol``."""
+    if len(a) != len(b):
+        return False
+    if not len(a):
+        return True
+    d = np.abs(a[:, None, :] - b[None, :, :]).max(axis=2)  # (A, B)
+    near = d <= tol
+    return bool(near.any(axis=1).all() and near.any(axis=0).all() and (near.sum(axis=1) == 1).all())

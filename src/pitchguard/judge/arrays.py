@@ -18,7 +18,7 @@ from pitchguard.geometry.lattice import NONE, ROW, LatticeArrays
 from pitchguard.geometry.spatial import build_rtree, query_pairs
 from pitchguard.judge.array_checks import array_violations
 from pitchguard.judge.checks import Violation
-from pitchguard.judge.findings import ArrayShape, Finding
+from pitchguard.judge.findings import ArrayShape, Finding, replaced
 from pitchguard.optics.aerial2d import source_angle
 from pitchguard.optics.cells2d import Cell, lattice_cell
 from pitchguard.optics.lattice_orders import LatticeOrders, lattice_orders
@@ -175,19 +175,51 @@ def clip_judged(sites, rule: LayerRule) -> np.ndarray:
     return (sites.lattice == NONE) | (sites.lattice == ROW) | ~sites.core
 
 
-def covered_by_arrays(centres: np.ndarray, ranks: np.ndarray, arrays, v) -> np.ndarray:
-    """Which clip findings (feature ``centres``, severity ``ranks``) lie on a member of
-    an array whose own finding is at least as severe: the array says it already."""
-    out = np.zeros(len(centres), dtype=bool)
+def member_arrays(centres: np.ndarray, arrays) -> np.ndarray:
+    """Per point of ``centres``: the array whose member's centre it is, or -1."""
+    out = np.full(len(centres), -1, dtype=np.int64)
     if not len(centres) or not len(arrays.array):
         return out
     f = arrays.sites.features
     tol = arrays.sites.tol_nm
     q, i = query_pairs(build_rtree(f.centre - tol, f.centre + tol), centres, centres)
     a = arrays.array[i]
-    member = a >= 0
-    q, a = q[member], a[member]
-    out[q[v.array_rank[a] <= ranks[q]]] = True
+    keep = a >= 0
+    out[q[keep]] = a[keep]
+    return out
+
+
+def _badness(f: Finding) -> float:
+    v = f.violations[0]
+    return abs(v.value - v.limit) / abs(v.limit) if v.limit else abs(v.value)
+
+
+def edge_findings(findings: list[Finding], array_ids: np.ndarray, v: ArrayVerdicts) -> list:
+    """Clip findings on members of arrays (``array_ids``) once the arrays are known:
+    dropped where the array's own finding is at least as severe (it says as much),
+    else one per array, check and severity: the worst member's numbers, the box of
+    them all, ``sites`` their count."""
+    groups: dict = {}
+    for f, a in zip(findings, array_ids.tolist(), strict=True):
+        if v.array_rank[a] > f.severity_rank:
+            groups.setdefault((a, f.check, f.severity), []).append(f)
+    out = []
+    for fs in groups.values():
+        worst = min(fs, key=lambda f: (-_badness(f), f.bbox_nm))
+        box = np.array([f.bbox_nm for f in fs], dtype=np.float64)
+        x0, y0 = (float(c) for c in box[:, :2].min(axis=0))
+        x1, y1 = (float(c) for c in box[:, 2:].max(axis=0))
+        arr = worst.array._replace(features=len(fs)) if worst.array is not None else None
+        out.append(
+            replaced(
+                worst,
+                bbox_nm=(x0, y0, x1, y1),
+                outline_nm=((x0, y0), (x1, y0), (x1, y1), (x0, y1)),
+                sites=len(fs),
+                array=arr,
+                message=f"{worst.message}; {len(fs)} features at the array's edge",
+            )
+        )
     return out
 
 

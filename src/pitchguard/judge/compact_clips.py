@@ -1,15 +1,18 @@
 """Compact features judged on 2-D clips of their surroundings
 (:mod:`pitchguard.optics.compact_clips`): those with no other feature of their
-shape within reach (context ``alone``) and those whose local lattice no
+shape within reach (context ``alone``), those whose local lattice no
 neighbour confirms (``group``: in pairs, irregular groups, at the ragged edge
-of an array).  A feature whose lattice is confirmed is judged with its array.
+of an array), and the members of arrays whose clip is not their lattice
+continued on every side (``group`` too: an array's last rows and columns, a
+shape of another kind within reach).  The rest of an array is judged on its
+unit cell (:mod:`pitchguard.judge.arrays`).
 
 The layer's shapes within the clip window are turned into the feature's frame
 and cut into canonical rectangles; identical clips are imaged once per
 process.  A clip holding a shape that is not Manhattan in the feature's frame
-is counted, not judged.  A ``group`` finding on a member of an array whose
-own finding is at least as severe is dropped once arrays are known
-(:func:`judge.arrays.covered_by_arrays`): the array says it already.
+is counted, not judged.  ``group`` findings on members of an array are settled
+once arrays are known (:func:`judge.arrays.edge_findings`): dropped where the
+array's own finding is at least as severe, else one per array and check.
 """
 
 from __future__ import annotations
@@ -25,7 +28,9 @@ from pitchguard.geometry.lattice.records import LatticeSites
 from pitchguard.geometry.rectangles import (
     clip_neighbourhoods,
     frame_rectangles,
+    lattice_rectangles,
     neighbourhood_groups,
+    same_rectangles,
 )
 from pitchguard.geometry.sites import in_region
 from pitchguard.judge.array_checks import array_violations
@@ -45,16 +50,20 @@ BATCH = 256
 
 @dataclass
 class AloneVerdicts:
-    """What judging one layer's lone compact features gave."""
+    """What judging one layer's compact features on clips gave."""
 
     findings: list[Finding] = field(default_factory=list)
-    judged: int = 0
-    judged_nm: float = 0.0  # drawn perimeter of the features judged
+    judged: int = 0  # features in no confirmed array judged on clips
+    judged_nm: float = 0.0  # their drawn perimeter
     not_manhattan: int = 0
+    edge: int = 0  # array members whose surroundings are not their array's: clips too
 
 
 _CACHES: dict = {}
 """Judgements per deck layer, for the life of the process (see judge.caches)."""
+
+INTERIOR = "interior"
+"""A member's clip is its array continued on every side: its array judges it."""
 
 
 def judge_alone(
@@ -65,27 +74,31 @@ def judge_alone(
     grid_nm: float,
     region=None,
 ) -> AloneVerdicts:
-    """Judge the features of ``lattice`` that :func:`judge.arrays.clip_judged` picks,
-    in ``region``, on clips of ``ps`` (drawn nm; it must hold every shape within
-    the window)."""
+    """Judge, in ``region``, on clips of ``ps`` (drawn nm; it must hold every shape
+    within the window): the features of ``lattice`` that
+    :func:`judge.arrays.clip_judged` picks, and the members of arrays (confirmed
+    lattices) whose clip is not their lattice continued on every side (the last
+    rows and columns, or a shape of another kind within reach)."""
     out = AloneVerdicts()
+    if not rule.image_checks or not len(lattice):
+        return out
     f = lattice.features
     pick = clip_judged(lattice, rule)
-    if region is not None:
-        pick &= in_region(f.centroid, region)
-    idx = np.flatnonzero(pick)
-    if not len(idx) or not rule.image_checks:
+    member = ~pick
+    inside = in_region(f.centroid, region) if region is not None else np.ones(len(f), bool)
+    idx = np.flatnonzero(inside)
+    if not len(idx):
         return out
     half = clip_window(rule) / scale
     window = (-half, -half, half, half)
     centres = f.centre[idx]
     cache = layer_cache(_CACHES, rule)
-    # Features with equal neighbourhoods (by hash), sizes and turn are judged once.
+    # Features with equal neighbourhoods (by hash), sizes, turn and role are judged once.
     step = 10.0**-KEY_DECIMALS
     hit, bounds, around = clip_neighbourhoods(ps, centres, half * math.sqrt(2.0), centres, step)
-    first, group = neighbourhood_groups(
-        around, bounds, np.column_stack([f.size[idx], f.angle_deg[idx]]), step
-    )
+    basis = np.nan_to_num(np.column_stack([lattice.a1[idx], lattice.a2[idx]]))
+    roles = np.column_stack([f.size[idx], f.angle_deg[idx], member[idx], basis])
+    first, group = neighbourhood_groups(around, bounds, roles, step)
     keys: list = []
     pending: dict = {}  # clips not judged yet, by source turn: key -> (rects, size, angle)
     for j in first.tolist():
@@ -95,6 +108,11 @@ def judge_alone(
         near = hit[bounds[j] : bounds[j + 1]]
         rects = frame_rectangles(ps, near, centres[j], angle, window, 1.01 * grid_nm, cache)
         key = None
+        if rects is not None and member[k]:
+            ideal = lattice_rectangles(lattice.a1[k], lattice.a2[k], (w, h), angle, window)
+            if same_rectangles(rects, ideal, lattice.tol_nm + 2.0 * step):
+                keys.append(INTERIOR)
+                continue
         if rects is not None:
             turn = source_angle(rule.exposure, angle)
             key = (np.round(rects, KEY_DECIMALS).tobytes(), round(w, KEY_DECIMALS),
@@ -109,11 +127,17 @@ def judge_alone(
             ms = alone_metrics_batch(rule, [v[:2] for _, v in part], part[0][1][2])
             for (key, _), m in zip(part, ms, strict=True):
                 cache[key] = (m, tuple(array_violations(rule, None, m)))
-    verdicts = [(None, ()) if key is None else cache[key] for key in keys]
-    imaged = np.array([v[0] is not None for v in verdicts], dtype=bool)[group]
-    out.not_manhattan = int((~imaged).sum())
+    verdicts = [
+        (None, ()) if key is None else (INTERIOR, ()) if key is INTERIOR else cache[key]
+        for key in keys
+    ]
+    kind = np.array([0 if v[0] is None else 1 if v[0] is INTERIOR else 2 for v in verdicts])[group]
+    alone = pick[idx]
+    out.not_manhattan = int(((kind == 0) & alone).sum())
+    imaged = (kind == 2) & alone
     out.judged = int(imaged.sum())
     out.judged_nm = float(2.0 * f.size[idx][imaged].sum())
+    out.edge = int(((kind == 2) & ~alone).sum())
     flagged = np.array([bool(v[1]) for v in verdicts], dtype=bool)[group]
     for j in np.flatnonzero(flagged).tolist():
         m, vs = verdicts[group[j]]

@@ -7,7 +7,7 @@ import numpy as np
 
 from pitchguard.deck import Deck
 from pitchguard.geometry.lattice import LatticeSites, find_arrays
-from pitchguard.judge.arrays import ArrayVerdicts, covered_by_arrays, judge_arrays
+from pitchguard.judge.arrays import ArrayVerdicts, edge_findings, judge_arrays, member_arrays
 from pitchguard.judge.findings import FindingSet
 
 
@@ -41,25 +41,29 @@ def tiled_arrays(deck: Deck, assembly) -> list[tuple]:
     return out
 
 
-def without_covered(findings: FindingSet, deck: Deck, found: list[tuple]) -> FindingSet:
-    """``findings`` without the clip findings (context ``group``) on array members whose
-    array's own finding is at least as severe (``found``: :func:`tiled_arrays`)."""
+def settled(findings: FindingSet, deck: Deck, found: list[tuple]) -> FindingSet:
+    """``findings`` with the clip findings (context ``group``) on array members settled by
+    :func:`judge.arrays.edge_findings` (``found``: :func:`tiled_arrays`)."""
     group = np.array([f.context == "group" for f in findings.distinct], dtype=bool)
     if not group.any():
         return findings
     items = np.flatnonzero(group[findings.which])
     origin = np.array([f.cut_origin_nm for f in findings.distinct], dtype=np.float64)
     centres = origin[findings.which[items]] + findings.offset[items]
-    ranks = np.array([f.severity_rank for f in findings.distinct])[findings.which[items]]
     layer = np.array([f.layer for f in findings.distinct], dtype=object)[findings.which[items]]
     drop = np.zeros(len(findings.which), dtype=bool)
+    more = []
     for rule, (arrays, v) in zip(deck.layers, found, strict=True):
         mine = np.flatnonzero(layer == rule.name)
         if arrays is None or not len(mine):
             continue
-        hit = covered_by_arrays(centres[mine], ranks[mine], arrays, v)
-        drop[items[mine[hit]]] = True
-    return findings.select(np.flatnonzero(~drop)) if drop.any() else findings
+        ids = member_arrays(centres[mine], arrays)
+        on = mine[ids >= 0]
+        drop[items[on]] = True
+        more += edge_findings([findings[int(k)] for k in items[on]], ids[ids >= 0], v)
+    if not drop.any():
+        return findings
+    return with_findings(findings.select(np.flatnonzero(~drop)), more)
 
 
 def with_findings(findings: FindingSet, more: list) -> FindingSet:

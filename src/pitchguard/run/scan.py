@@ -8,6 +8,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from pitchguard.deck import Deck
 from pitchguard.geometry.cuts import site_cuts
@@ -21,7 +22,7 @@ from pitchguard.geometry.lattice import (
     points_on_features,
 )
 from pitchguard.geometry.sites import ExtractStats, find_sites, in_region
-from pitchguard.judge.arrays import ArrayVerdicts, covered_by_arrays, judge_arrays
+from pitchguard.judge.arrays import ArrayVerdicts, edge_findings, judge_arrays, member_arrays
 from pitchguard.judge.compact_clips import judge_alone
 from pitchguard.judge.findings import Finding
 from pitchguard.judge.line_ends import TipVerdicts, judge_line_ends
@@ -135,6 +136,8 @@ def scan_polygons(
             ex.extra["compact_on_clips"] = alone.judged
         if alone.not_manhattan:
             ex.extra["compact_clips_not_manhattan"] = alone.not_manhattan
+        if alone.edge:
+            ex.extra["array_edge_clips"] = alone.edge
         if len(compact) and len(sites):
             mid = sites.origin + sites.direction * (0.5 * (sites.u0 + sites.u1))[:, None]
             inward = mid - sites.normal * (0.25 * grid_nm)
@@ -193,13 +196,7 @@ def scan_polygons(
             verdicts = judge_arrays(arrays, rule, scale)
             regions.extend(Region(f) for f in verdicts.findings)
             add_array_counts(ex, verdicts)
-            clip_findings = [
-                f
-                for f, c in zip(
-                    clip_findings, covered_clips(clip_findings, arrays, verdicts), strict=True
-                )
-                if not c
-            ]
+            clip_findings = settled_clips(clip_findings, arrays, verdicts)
         regions.extend(Region(f) for f in clip_findings)
         regions.extend(
             classify_layer(
@@ -230,15 +227,17 @@ def scan_polygons(
     return regions, stats
 
 
-def covered_clips(findings: list[Finding], arrays, verdicts: ArrayVerdicts) -> np.ndarray:
-    """Which clip findings of a layer an array's own finding already covers."""
-    centres = np.array([f.cut_origin_nm for f in findings], dtype=np.float64).reshape(-1, 2)
-    ranks = np.array([f.severity_rank for f in findings], dtype=np.int64)
-    group = np.array([f.context == "group" for f in findings], dtype=bool)
-    out = np.zeros(len(findings), dtype=bool)
-    if group.any():
-        out[group] = covered_by_arrays(centres[group], ranks[group], arrays, verdicts)
-    return out
+def settled_clips(findings: list[Finding], arrays, verdicts: ArrayVerdicts) -> list[Finding]:
+    """A layer's clip findings once its arrays are known: those on array members
+    settled by :func:`judge.arrays.edge_findings`, the rest as they are."""
+    group = [f for f in findings if f.context == "group"]
+    centres = np.array([f.cut_origin_nm for f in group], dtype=np.float64).reshape(-1, 2)
+    ids = member_arrays(centres, arrays)
+    kept = [f for f in findings if f.context != "group"]
+    kept += [f for f, a in zip(group, ids.tolist(), strict=True) if a < 0]
+    return kept + edge_findings(
+        [f for f, a in zip(group, ids, strict=True) if a >= 0], ids[ids >= 0], verdicts
+    )
 
 
 def add_tip_counts(ex: ExtractStats, v: TipVerdicts) -> None:
@@ -308,6 +307,10 @@ def scan_layout(
     )
     require_layers(deck, Path(path), layout.cells, layout.shapes_by_layer, layout.present)
     region_nm = tuple(v * 1000.0 for v in region_um) if region_um else None
-    regions, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
+    # Linear algebra on one thread, as in a tiled scan's workers: the products are
+    # small (threads cost more than they give), and the same thread count rounds
+    # alike, so the whole scan's numbers equal a tiled scan's bit for bit.
+    with threadpool_limits(1):
+        regions, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
     findings = sort_findings([r.finding for r in regions])
     return ScanResult(findings, stats, layout, warnings, time.perf_counter() - t0)

@@ -11,7 +11,7 @@ from pitchguard.geometry.sites import ExtractStats
 from pitchguard.judge.findings import FindingSet, replaced
 from pitchguard.judge.order import sort_findings
 from pitchguard.layout.reader import Layout
-from pitchguard.run.arrays import tiled_arrays, with_findings, without_covered
+from pitchguard.run.arrays import settled, tiled_arrays, with_findings
 from pitchguard.run.engine import WorkerPool
 from pitchguard.run.merge import TileAssembly
 from pitchguard.run.plan import (
@@ -154,7 +154,7 @@ def scan_tiled(
     found = tiled_arrays(deck, assembly)
     for s, (_, v) in zip(stats, found, strict=True):
         add_array_counts(s.extract, v)
-    findings = without_covered(findings, deck, found)
+    findings = settled(findings, deck, found)
     findings = with_findings(findings, [f for _, v in found for f in v.findings])
     if ordered:
         findings = sort_findings(findings)
