@@ -30,9 +30,14 @@ import pytest
 
 from decks import DEMO_DECK
 from pitchguard.deck import load_deck
+from pitchguard.geometry.lattice import compact_features, lattice_sites
+from pitchguard.judge.compact_clips import judge_alone
+from pitchguard.layout.polygons import PolygonSet
 from pitchguard.optics.cells2d import array_cell
 from pitchguard.optics.compact_clips import alone_metrics, alone_metrics_batch, feature_cell
 from pitchguard.optics.resist2d import cell_metrics
+
+DIRS = ((-1, -1), (1, -1), (1, 1), (-1, 1))
 
 
 @pytest.fixture(scope="module")
@@ -118,3 +123,49 @@ def test_the_batched_clips_equal_their_plain_twin_whatever_the_batch(layer):
     for m, n in zip(batch[::-3], again, strict=True):
         _same(m, n, 0.0)
     _same(batch[5], alone_metrics_batch(rule, [clips[5]], 30.0)[0], 0.0)
+
+
+def test_counting_an_array_members_neighbours_picks_the_members_it_should():
+    """The count that skips members inside their array (as many shapes of their own
+    as their lattice puts within reach) against comparing every member's clip
+    rectangle by rectangle (``plain``): the same findings and clips, on a square
+    array, a turned one, a hexagonal one, an array with a via missing and one
+    with a pad of another kind beside it (the demo via1 exposure)."""
+    rule = next(r for r in load_deck(DEMO_DECK).layers if r.name == "via1")
+    polys = []
+
+    def square(cx, cy, w, turn=0.0):
+        t = math.radians(turn)
+        u, v = np.array([math.cos(t), math.sin(t)]), np.array([-math.sin(t), math.cos(t)])
+        c = np.array([cx, cy])
+        return np.array([c + sx * w / 2 * u + sy * w / 2 * v for sx, sy in DIRS])
+
+    for i in range(8):
+        for j in range(8):
+            polys.append(square(i * 150.0, j * 150.0, 64.0))  # square
+            if (i, j) != (3, 4):
+                polys.append(square(3000 + i * 150.0, j * 150.0, 64.0))  # one missing
+            polys.append(square(6000 + i * 150.0, j * 150.0 + (75.0 if i % 2 else 0.0), 64.0))
+            polys.append(square(9000 + i * 150.0, j * 150.0, 64.0))  # pad beside
+            t = math.radians(30.0)
+            x, y = i * 150.0, j * 150.0
+            polys.append(
+                square(
+                    12000 + x * math.cos(t) - y * math.sin(t),
+                    x * math.sin(t) + y * math.cos(t),
+                    64.0,
+                    30.0,
+                )
+            )
+    polys.append(np.array([(10250.0, 0.0), (11000.0, 0.0), (11000.0, 900.0), (10250.0, 900.0)]))
+    ps = PolygonSet.from_arrays(polys)
+    compact = compact_features(ps, 1.0, rule.compact_max_nm)
+    lattice = lattice_sites(
+        ps, 1.0, rule.compact_max_nm, rule.interaction_range_nm, compact=compact
+    )
+    fast = judge_alone(lattice, ps, rule, 1.0, 1.0)
+    plain = judge_alone(lattice, ps, rule, 1.0, 1.0, plain=True)
+    assert fast.edge == plain.edge > 0
+    assert fast.inside == plain.inside > 0
+    assert (fast.judged, fast.not_manhattan) == (plain.judged, plain.not_manhattan)
+    assert fast.findings == plain.findings

@@ -165,9 +165,17 @@ def shape_hashes(ps, step: float) -> np.ndarray:
     rel = ps.points - bb[owner, :2]
     pos = (np.arange(len(owner)) - ps.starts[owner]).astype(np.uint64)
     h = _mix(_mix(_mix(_ticks(rel[:, 0], step)) ^ _ticks(rel[:, 1], step)) ^ pos)
+    return _sums(h, owner, n)
+
+
+def _sums(h: np.ndarray, owner: np.ndarray, n: int) -> np.ndarray:
+    """Wrapping uint64 sums of ``h`` per ``owner`` (sorted) in ``0..n-1``."""
     out = np.zeros(n, dtype=np.uint64)
+    if not len(h):
+        return out
+    starts = np.flatnonzero(np.r_[True, owner[1:] != owner[:-1]])
     with np.errstate(over="ignore"):
-        np.add.at(out, owner, h)
+        out[owner[starts]] = np.add.reduceat(h, starts)
     return out
 
 
@@ -182,23 +190,28 @@ def neighbourhood_hashes(
     bb = ps.bounding_boxes()
     rel = bb[hit, :2] - origins[q]
     h = _mix(_mix(_mix(shapes[hit]) ^ _ticks(rel[:, 0], step)) ^ _ticks(rel[:, 1], step))
-    out = np.zeros(n, dtype=np.uint64)
-    with np.errstate(over="ignore"):
-        np.add.at(out, q, h)
-    return out
+    order = np.argsort(q, kind="stable")
+    return _sums(h[order], q[order], n)
+
+
+def clip_hits(ps, centres: np.ndarray, radius: float) -> tuple[np.ndarray, np.ndarray]:
+    """The polygons of ``ps`` whose boxes meet the square of ``radius`` around each of
+    ``centres``, as ``(hit, bounds)``: query ``j`` holds ``hit[bounds[j]:bounds[j + 1]]``."""
+    from pitchguard.geometry.spatial import build_rtree, query_pairs_batched
+
+    bb = ps.bounding_boxes()
+    lo, hi = bb[:, :2], bb[:, 2:]
+    q, hit = query_pairs_batched(build_rtree(lo, hi), lo, hi, centres - radius, centres + radius)
+    order = np.argsort(q, kind="stable")
+    q, hit = q[order], hit[order]
+    return hit, np.searchsorted(q, np.arange(len(centres) + 1))
 
 
 def clip_neighbourhoods(ps, centres: np.ndarray, radius: float, origins: np.ndarray, step: float):
-    """The polygons of ``ps`` whose boxes meet the square of ``radius`` around each of
-    ``centres``, as ``(hit, bounds)`` (query ``j`` holds ``hit[bounds[j]:bounds[j +
-    1]]``), and each query's :func:`neighbourhood_hashes` relative to ``origins``."""
-    from pitchguard.geometry.spatial import build_rtree, query_pairs
-
-    bb = ps.bounding_boxes()
-    q, hit = query_pairs(build_rtree(bb[:, :2], bb[:, 2:]), centres - radius, centres + radius)
-    order = np.argsort(q, kind="stable")
-    q, hit = q[order], hit[order]
-    bounds = np.searchsorted(q, np.arange(len(centres) + 1))
+    """:func:`clip_hits` and each query's :func:`neighbourhood_hashes` relative to
+    ``origins``: ``(hit, bounds, hashes)``."""
+    hit, bounds = clip_hits(ps, centres, radius)
+    q = np.repeat(np.arange(len(centres)), np.diff(bounds))
     around = neighbourhood_hashes(q, hit, len(centres), origins, ps, shape_hashes(ps, step), step)
     return hit, bounds, around
 

@@ -26,11 +26,13 @@ from pitchguard.deck import LayerRule
 from pitchguard.geometry.lattice import NONE
 from pitchguard.geometry.lattice.records import LatticeSites
 from pitchguard.geometry.rectangles import (
-    clip_neighbourhoods,
+    clip_hits,
     frame_rectangles,
     lattice_rectangles,
     neighbourhood_groups,
+    neighbourhood_hashes,
     same_rectangles,
+    shape_hashes,
 )
 from pitchguard.geometry.sites import in_region
 from pitchguard.judge.array_checks import array_violations
@@ -57,6 +59,7 @@ class AloneVerdicts:
     judged_nm: float = 0.0  # their drawn perimeter
     not_manhattan: int = 0
     edge: int = 0  # array members whose surroundings are not their array's: clips too
+    inside: int = 0  # array members whose surroundings are their array's: no clip
 
 
 _CACHES: dict = {}
@@ -73,12 +76,17 @@ def judge_alone(
     scale: float,
     grid_nm: float,
     region=None,
+    plain: bool = False,
 ) -> AloneVerdicts:
     """Judge, in ``region``, on clips of ``ps`` (drawn nm; it must hold every shape
     within the window): the features of ``lattice`` that
     :func:`judge.arrays.clip_judged` picks, and the members of arrays (confirmed
     lattices) whose clip is not their lattice continued on every side (the last
-    rows and columns, or a shape of another kind within reach)."""
+    rows and columns, or a shape of another kind within reach).
+
+    ``plain`` compares every member's clip with its lattice rectangle by
+    rectangle, without first counting its neighbours (the twin the tests hold
+    the count to)."""
     out = AloneVerdicts()
     if not rule.image_checks or not len(lattice):
         return out
@@ -95,10 +103,24 @@ def judge_alone(
     cache = layer_cache(_CACHES, rule)
     # Features with equal neighbourhoods (by hash), sizes, turn and role are judged once.
     step = 10.0**-KEY_DECIMALS
-    hit, bounds, around = clip_neighbourhoods(ps, centres, half * math.sqrt(2.0), centres, step)
+    shapes = shape_hashes(ps, step)
+    radius = half * math.sqrt(2.0)
+    hit, bounds = clip_hits(ps, centres, radius)
+    # An array member whose neighbourhood is as many shapes of its own as its lattice
+    # puts there is inside its array: judged by the unit cell, no clip.
+    inner = member[idx] & (not plain)
+    if inner.any():
+        inner &= _lattice_full(lattice, idx, hit, bounds, shapes, radius)
+    rest = np.flatnonzero(~inner)
+    counts = np.diff(bounds)[rest]
+    sub = np.r_[0, np.cumsum(counts)]
+    q = np.repeat(np.arange(len(rest)), counts)
+    pairs = np.repeat(bounds[rest], counts) + np.arange(len(q)) - np.repeat(sub[:-1], counts)
+    around = neighbourhood_hashes(q, hit[pairs], len(rest), centres[rest], ps, shapes, step)
     basis = np.nan_to_num(np.column_stack([lattice.a1[idx], lattice.a2[idx]]))
-    roles = np.column_stack([f.size[idx], f.angle_deg[idx], member[idx], basis])
-    first, group = neighbourhood_groups(around, bounds, roles, step)
+    roles = np.column_stack([f.size[idx], f.angle_deg[idx], member[idx], basis])[rest]
+    first, group = neighbourhood_groups(around, sub, roles, step)
+    first = rest[first]
     keys: list = []
     pending: dict = {}  # clips not judged yet, by source turn: key -> (rects, size, angle)
     for j in first.tolist():
@@ -130,7 +152,10 @@ def judge_alone(
     verdicts = [
         (None, ()) if key is None else (INTERIOR, ()) if key is INTERIOR else cache[key]
         for key in keys
-    ]
+    ] + [(INTERIOR, ())]
+    member_group = np.full(len(idx), len(keys))  # the last verdict: inside its array
+    member_group[rest] = group
+    group = member_group
     kind = np.array([0 if v[0] is None else 1 if v[0] is INTERIOR else 2 for v in verdicts])[group]
     alone = pick[idx]
     out.not_manhattan = int(((kind == 0) & alone).sum())
@@ -138,6 +163,7 @@ def judge_alone(
     out.judged = int(imaged.sum())
     out.judged_nm = float(2.0 * f.size[idx][imaged].sum())
     out.edge = int(((kind == 2) & ~alone).sum())
+    out.inside = int((kind == 1).sum())
     flagged = np.array([bool(v[1]) for v in verdicts], dtype=bool)[group]
     for j in np.flatnonzero(flagged).tolist():
         m, vs = verdicts[group[j]]
@@ -145,6 +171,45 @@ def judge_alone(
         context = "alone" if lattice.lattice[k] == NONE else "group"
         out.findings.append(_finding(rule, vs, m, f, k, context))
     return out
+
+
+def _lattice_full(lattice, idx, hit, bounds, shapes, radius: float) -> np.ndarray:
+    """Per feature ``idx``: whether the shapes found within ``radius`` (``hit``,
+    ``bounds``) are all of one shape and exactly as many as the points of its local
+    lattice whose box meets that square (a bound on where the lattice ends; a
+    feature that fails it is compared rectangle by rectangle)."""
+    count = np.diff(bounds)
+    out = np.zeros(len(idx), dtype=bool)
+    some = np.flatnonzero(count > 0)
+    if not len(some):
+        return out
+    sh = shapes[hit]
+    one = np.minimum.reduceat(sh, bounds[some]) == np.maximum.reduceat(sh, bounds[some])
+    f = lattice.features
+    box = f.bbox[idx][:, 2:] - f.bbox[idx][:, :2]
+    key = np.round(np.column_stack([lattice.a1[idx], lattice.a2[idx], box]), 2)
+    usable = np.isfinite(key).all(axis=1)
+    kinds, which = np.unique(np.nan_to_num(key), axis=0, return_inverse=True)
+    expected = np.full(len(kinds), -1)
+    for u in np.unique(which.ravel()[usable]).tolist():
+        a1, a2, (bw, bh) = kinds[u, :2], kinds[u, 2:4], kinds[u, 4:]
+        expected[u] = _lattice_count(a1, a2, radius + 0.5 * bw, radius + 0.5 * bh)
+    full = usable & (count == expected[which.ravel()])
+    out[some] = one & full[some]
+    return out
+
+
+def _lattice_count(a1, a2, rx: float, ry: float) -> int:
+    """Points ``i a1 + j a2`` with ``|x| <= rx`` and ``|y| <= ry``."""
+    det = abs(a1[0] * a2[1] - a1[1] * a2[0])
+    if det <= 0:
+        return -1
+    height = det / max(math.hypot(*a1), math.hypot(*a2))
+    m = int(math.ceil(math.hypot(rx, ry) / height)) + 1
+    i, j = np.meshgrid(np.arange(-m, m + 1), np.arange(-m, m + 1))
+    x = i * a1[0] + j * a2[0]
+    y = i * a1[1] + j * a2[1]
+    return int(np.count_nonzero((np.abs(x) <= rx) & (np.abs(y) <= ry)))
 
 
 def _finding(rule: LayerRule, vs, m, f, k: int, context: str) -> Finding:
