@@ -13,6 +13,9 @@ Layouts (GDSII, written into a temporary folder):
 ``random``  vias at random places, flat (bench_lattice.build_random)
 ``lines``   the generated hierarchical line chip (chips.build_bench_chip) with
             about as many shapes as ``arrays``
+``routing`` flat wires as many as ``random``, every one unique: tracks at mixed
+            pitches (100-400 nm), wires of random length and gap (build_routing):
+            the line layer ``random`` compares with
 
 Each is scanned by the command (tiled, ``--jobs 1`` and ``--jobs 2``, quiet)
 with an ArF immersion deck (NA 1.35, annular 0.6-0.9, dark field); the
@@ -22,6 +25,7 @@ baseline is gdstk's read + flatten of the same file, in a fresh interpreter.
 from __future__ import annotations
 
 import argparse
+import math
 import subprocess
 import sys
 import tempfile
@@ -45,6 +49,33 @@ FLATTEN = (
 )
 
 
+def build_routing(path: Path, n_target: float, seed: int = 2) -> int:
+    """Write ``routing``: about ``n_target`` flat horizontal wires on layer 1/0, on
+    tracks at random pitches of 100-400 nm (width 40 % of the pitch below), each
+    track filled with wires 0.3-3 um long and gaps of 0.1-1 um."""
+    import gdstk
+    import numpy as np
+
+    rng = np.random.default_rng(seed)
+    n = int(n_target)
+    side = math.sqrt(n * 0.2e6)  # the same area per shape as ``random``
+    lib = gdstk.Library(unit=1e-9, precision=1e-9)
+    top = lib.new_cell("TOP")
+    y, count = 0.0, 0
+    while count < n:
+        pitch = float(rng.integers(10, 41)) * 10.0
+        width = round(0.4 * pitch)
+        x = float(rng.uniform(0, 500))
+        while x < side and count < n:
+            length = float(np.round(rng.uniform(300, 3000)))
+            top.add(gdstk.rectangle((x, y), (x + length, y + width), layer=1, datatype=0))
+            count += 1
+            x += length + float(np.round(rng.uniform(100, 1000)))
+        y += pitch
+    lib.write_gds(str(path))
+    return count
+
+
 def timed(cmd: list[str]) -> float:
     t0 = time.perf_counter()
     subprocess.run(cmd, check=False, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
@@ -63,6 +94,7 @@ def main() -> int:
             "random": (t / "random.gds", build_random(t / "random.gds", args.random)),
         }
         layouts["lines"] = (t / "lines.oas", build_bench_chip(t / "lines.oas", args.arrays))
+        layouts["routing"] = (t / "routing.gds", build_routing(t / "routing.gds", args.random))
         via_deck = t / "vias.toml"
         via_deck.write_text(
             BENCH_DECK.replace('source = "1/0"', f'source = "{LAYER[0]}/{LAYER[1]}"')
@@ -73,7 +105,7 @@ def main() -> int:
             f"{'layout':8} {'shapes':>10} {'flatten s':>10} {'1 worker s':>11} {'2 workers s':>12} {'x flatten (2)':>14}"
         )
         for name, (path, n) in layouts.items():
-            deck = line_deck if name == "lines" else via_deck
+            deck = line_deck if name in ("lines", "routing") else via_deck
             flat = min(timed([sys.executable, "-c", FLATTEN, str(path)]) for _ in range(2))
             scan = [
                 sys.executable,
