@@ -216,6 +216,7 @@ def edge_findings(findings: list[Finding], array_ids: np.ndarray, v: ArrayVerdic
                 bbox_nm=(x0, y0, x1, y1),
                 outline_nm=((x0, y0), (x1, y0), (x1, y1), (x0, y1)),
                 sites=len(fs),
+                lines=len(fs),
                 array=arr,
                 message=f"{worst.message}; {len(fs)} features at the array's edge",
             )

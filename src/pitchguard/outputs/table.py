@@ -91,7 +91,8 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
                 f.layer,
                 f"{cx:.3f}, {cy:.3f}",
                 f"{f.pitch_nm:.1f}" if math.isfinite(f.pitch_nm) else "-",
-                f"{f.width_nm:.0f} / {f.space_nm:.0f}",
+                f"{f.width_nm:.0f} / "
+                + (f"{f.space_nm:.0f}" if math.isfinite(f.space_nm) else "-"),
                 f"{f.k1:.3f}" if math.isfinite(f.k1) else "-",
                 f"{f.nils:.2f}" if math.isfinite(f.nils) else "-",
                 orders_text(f.orders),
