@@ -115,7 +115,9 @@ def main() -> int:
         print(f"  edge length judged: {share}")
         arrays = ", ".join(
             f"{name} {v.get('arrays', 0)} ({v.get('array_features', 0):,} features, "
-            f"{v.get('compact_not_in_array', 0):,} alone)"
+            f"{v.get('array_edge_clips', 0):,} of them on edge clips; "
+            f"{v.get('compact_on_clips', 0):,} in no array on clips, "
+            f"{v.get('compact_not_in_array', 0):,} not judged)"
             for name, v in s["by_layer"].items()
         )
         print(f"  arrays of compact features: {arrays}")
