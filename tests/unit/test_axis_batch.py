@@ -1,4 +1,5 @@
-"""The batched axis metrics (pitchguard.optics.axis_batch) against their plain twins.
+"""The batched metrics (pitchguard.optics.axis_batch, pitchguard.optics.resist_batch)
+against their plain twins.
 
 Every function of ``axis_batch`` restates one of ``resist`` / ``resist2d`` as
 arrays over many rows; each must give what the plain function gives row by
@@ -14,8 +15,9 @@ import numpy as np
 import pytest
 
 from pitchguard.optics.axis_batch import axis_metrics_batch, below, cds, thresholds
-from pitchguard.optics.resist import THRESHOLD_SAMPLES, cd_of_thresholds
+from pitchguard.optics.resist import THRESHOLD_SAMPLES, cd_of_thresholds, evaluate
 from pitchguard.optics.resist2d import axis_metrics
+from pitchguard.optics.resist_batch import evaluate_batch
 
 SEED = 20261205
 
@@ -107,3 +109,46 @@ def test_batched_axis_metrics_equal_the_plain_ones(anchored):
                     assert x == y or (math.isnan(x) and math.isnan(y)), (name, x, y)
                 else:
                     assert x == pytest.approx(y, rel=1e-9, abs=1e-9), (name, x, y)
+
+
+@pytest.mark.parametrize("anchored", [False, True])
+def test_batched_cut_metrics_equal_the_plain_ones(anchored):
+    """``resist_batch.evaluate_batch`` against ``resist.evaluate`` one cut at a time, on
+    random through-focus images of a line or an opening between neighbours (each cut
+    its own feature, search window and drawn CD; +z and -z images alike or not)."""
+    rng = np.random.default_rng(SEED + 10 + anchored)
+    x = np.linspace(-300.0, 300.0, 121)
+    focus = np.linspace(-90.0, 90.0, 7)
+    for bright in (True, False):
+        nc = 20
+        images = np.empty((nc, len(focus), len(x)))
+        features = np.empty((nc, 2))
+        searches = np.empty((nc, 2))
+        for c in range(nc):
+            w = rng.uniform(40.0, 160.0)
+            lft = rng.uniform(-60.0, 60.0) - w / 2
+            features[c] = (lft, lft + w)
+            searches[c] = (lft - rng.uniform(20, 120), lft + w + rng.uniform(20, 120))
+            for f, z in enumerate(focus):
+                width = w * (1.0 + 0.004 * abs(z)) * rng.uniform(0.95, 1.05)
+                bump = np.exp(-((x - lft - w / 2) ** 2) / (0.36 * width**2))
+                level = (0.6 - 0.002 * abs(z)) * bump + 0.1 * np.cos(x / 37.0 + c)
+                images[c, f] = level if bright else 1.0 - level
+        i_e = rng.uniform(0.1, 0.5, (nc, 2))
+        d_e = rng.normal(0.0, 0.01, (nc, 2))
+        t_nom = 0.35 if anchored else None
+        got = evaluate_batch(
+            x, images, focus, features, searches, bright, t_nom, 0.1, 5.0, (i_e, d_e)
+        )
+        for c in range(nc):
+            want = evaluate(
+                x, images[c], focus, tuple(features[c]), tuple(searches[c]), bright,
+                features[c, 1] - features[c, 0], t_nom, 0.1, 5.0, (i_e[c], d_e[c]),
+            )  # fmt: skip
+            for name in want.__dataclass_fields__:
+                a, b = getattr(got[c], name), getattr(want, name)
+                if isinstance(b, bool) or not (math.isfinite(a) and math.isfinite(b)):
+                    assert a == b or (math.isnan(a) and math.isnan(b)), (name, a, b)
+                else:
+                    assert a == pytest.approx(b, rel=1e-9, abs=1e-9), (name, a, b)
+        assert any(m.dof_nm > 0 for m in got) and any(m.el_pct > 0 for m in got)

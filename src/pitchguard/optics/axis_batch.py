@@ -52,33 +52,47 @@ def below(run: np.ndarray, t: np.ndarray) -> np.ndarray:
     return np.cumsum(counts.reshape(r, n + 1), axis=1)[:, :n]
 
 
-def _side(part: np.ndarray, px: np.ndarray, t: np.ndarray, beyond: float) -> np.ndarray:
-    """Edges going out from the centre (column 0 of ``part`` ``(R, m)``) for thresholds
-    ``t`` ``(R, T)``, as ``resist._edges_for_thresholds`` finds them."""
-    m = part.shape[1]
+def _side(part: np.ndarray, px: np.ndarray, length: np.ndarray, t: np.ndarray, beyond: float):
+    """Edges going out from the centre (column 0 of ``part`` ``(R, m)``, row ``r`` holding
+    ``length[r]`` samples at ``px[r]``, then padding that never reaches a threshold) for
+    thresholds ``t`` ``(R, T)``, as ``resist._edges_for_thresholds`` finds them."""
     k = below(np.maximum.accumulate(part, axis=1), t)  # first index with run >= t
-    if m == 1:
-        return np.where(k == 0, np.nan, beyond)
+    m = length[:, None]
     ok = (k > 0) & (k < m)
-    kk = np.clip(k, 1, m - 1)
+    kk = np.clip(k, 1, np.maximum(m - 1, 1))
     g0 = np.take_along_axis(part, kk - 1, axis=1)
-    g1 = np.take_along_axis(part, kk, axis=1)
+    g1 = np.take_along_axis(part, kk, axis=1) if part.shape[1] > 1 else g0
     with np.errstate(divide="ignore", invalid="ignore"):
         frac = np.where(g1 != g0, (t - g0) / (g1 - g0), 0.0)
-    pos = px[kk - 1] + frac * (px[kk] - px[kk - 1])
+    x0 = np.take_along_axis(px, kk - 1, axis=1)
+    x1 = np.take_along_axis(px, kk, axis=1) if px.shape[1] > 1 else x0
+    pos = x0 + frac * (x1 - x0)
     return np.where(ok, pos, np.where(k == 0, np.nan, beyond))
 
 
 def cds(x, profiles, centre_nm, lo_nm, hi_nm, bright, t) -> np.ndarray:
     """``resist.cd_of_thresholds`` for profiles ``(R, n)`` on ``x``, each with its own
-    thresholds ``t`` ``(R, T)``: ``(R, T)``."""
+    thresholds ``t`` ``(R, T)`` and its own (or a shared) centre and search bounds:
+    ``(R, T)``."""
+    r = len(profiles)
     g = -profiles if bright else profiles
     tt = -t if bright else t
-    c = int(np.argmin(np.abs(x - centre_nm)))
-    lo = min(max(int(np.searchsorted(x, lo_nm, side="left")), 0), c)
-    hi = max(min(int(np.searchsorted(x, hi_nm, side="right")) - 1, len(x) - 1), c)
-    left = _side(g[:, lo : c + 1][:, ::-1], x[lo : c + 1][::-1], tt, -np.inf)
-    right = _side(g[:, c : hi + 1], x[c : hi + 1], tt, np.inf)
+    centre, lo_nm, hi_nm = (
+        np.broadcast_to(np.asarray(v, float), (r,)) for v in (centre_nm, lo_nm, hi_nm)
+    )
+    c = np.abs(x[None, :] - centre[:, None]).argmin(axis=1)
+    lo = np.minimum(np.maximum(np.searchsorted(x, lo_nm, side="left"), 0), c)
+    hi = np.maximum(np.minimum(np.searchsorted(x, hi_nm, side="right") - 1, len(x) - 1), c)
+    rows = np.arange(r)[:, None]
+    quiet = -np.inf  # padding: never reaches a threshold, so no crossing there
+    out = []
+    for n_side, step, beyond in ((c - lo + 1, -1, -np.inf), (hi - c + 1, 1, np.inf)):
+        width = int(n_side.max(initial=1))
+        i = np.arange(width)[None, :]
+        at = np.clip(c[:, None] + step * i, 0, len(x) - 1)
+        part = np.where(i < n_side[:, None], g[rows, at], quiet)
+        out.append(_side(part, x[at], n_side, tt, beyond))
+    left, right = out
     cd = np.where(np.isnan(right - left), 0.0, right - left)
     return np.where(np.isinf(left) | np.isinf(right), np.inf, cd)
 

@@ -21,6 +21,7 @@ from pitchguard.optics.aerial import (
     source_points,
 )
 from pitchguard.optics.resist import Metrics, evaluate
+from pitchguard.optics.resist_batch import evaluate_batch
 
 BATCH = 256
 """Cuts imaged per batch (bounds memory: focus x batch x samples x kernels)."""
@@ -233,21 +234,20 @@ def measure_one(
             i_e, d_e = coherent_systems(e, angle, period, n_max, float(focus[best])).at(
                 spectra, pts
             )
-            for r, k in enumerate(idx):
-                lft, rgt = feats[r]
-                out[k] = evaluate(
-                    x,
-                    stack[:, r, :],
-                    focus,
-                    (lft, rgt),
-                    scaled[k].search,
-                    bright,
-                    rgt - lft,
-                    t_nom,
-                    tol,
-                    rule.el_min_pct,
-                    (i_e[r], d_e[r]),
-                )
+            ms = evaluate_batch(
+                x,
+                stack.transpose(1, 0, 2),
+                focus,
+                pts,
+                np.array([scaled[k].search for k in idx], dtype=np.float64),
+                bright,
+                t_nom,
+                tol,
+                rule.el_min_pct,
+                (i_e, d_e),
+            )
+            for k, m in zip(idx, ms, strict=True):
+                out[k] = m
     return out  # type: ignore[return-value]
 
 
