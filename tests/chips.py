@@ -8,6 +8,8 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+import numpy as np
+
 
 def build_bench_chip(path: Path, target: float) -> int:
     """A hierarchical chip of about ``target`` flat shapes on layer 1/0; returns the exact count.
@@ -77,3 +79,29 @@ def place_side_by_side(files, path: Path, gap_um: float = 5.0, row_um: float = m
             x, row, placed = x + x1 - x0 + gap_um, max(row, y1 - y0), placed + 1
     lib.write_gds(str(path))
     return placed
+
+
+def build_routing(path: Path, n_target: float, seed: int = 2) -> int:
+    """Write ``routing``: about ``n_target`` flat horizontal wires on layer 1/0, on
+    tracks at random pitches of 100-400 nm (width 40 % of the pitch below), each
+    track filled with wires 0.3-3 um long and gaps of 0.1-1 um."""
+    import gdstk
+
+    rng = np.random.default_rng(seed)
+    n = int(n_target)
+    side = math.sqrt(n * 0.2e6)  # the same area per shape as ``random``
+    lib = gdstk.Library(unit=1e-9, precision=1e-9)
+    top = lib.new_cell("TOP")
+    y, count = 0.0, 0
+    while count < n:
+        pitch = float(rng.integers(10, 41)) * 10.0
+        width = round(0.4 * pitch)
+        x = float(rng.uniform(0, 500))
+        while x < side and count < n:
+            length = float(np.round(rng.uniform(300, 3000)))
+            top.add(gdstk.rectangle((x, y), (x + length, y + width), layer=1, datatype=0))
+            count += 1
+            x += length + float(np.round(rng.uniform(100, 1000)))
+        y += pitch
+    lib.write_gds(str(path))
+    return count

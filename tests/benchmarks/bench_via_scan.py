@@ -14,7 +14,7 @@ Layouts (GDSII, written into a temporary folder):
 ``lines``   the generated hierarchical line chip (chips.build_bench_chip) with
             about as many shapes as ``arrays``
 ``routing`` flat wires as many as ``random``, every one unique: tracks at mixed
-            pitches (100-400 nm), wires of random length and gap (build_routing):
+            pitches (100-400 nm), wires of random length and gap (chips.build_routing):
             the line layer ``random`` compares with
 
 Each is scanned by the command (tiled, ``--jobs 1`` and ``--jobs 2``, quiet)
@@ -25,7 +25,6 @@ baseline is gdstk's read + flatten of the same file, in a fresh interpreter.
 from __future__ import annotations
 
 import argparse
-import math
 import subprocess
 import sys
 import tempfile
@@ -38,7 +37,7 @@ sys.path.insert(0, str(HERE.parent))
 
 from bench_lattice import LAYER, build_arrays, build_random  # noqa: E402
 
-from chips import build_bench_chip  # noqa: E402
+from chips import build_bench_chip, build_routing  # noqa: E402
 from decks import BENCH_DECK  # noqa: E402
 
 FLATTEN = (
@@ -47,33 +46,6 @@ FLATTEN = (
     "gdstk.read_oas(sys.argv[1])\n"
     "n = sum(len(c.get_polygons()) for c in lib.top_level())\n"
 )
-
-
-def build_routing(path: Path, n_target: float, seed: int = 2) -> int:
-    """Write ``routing``: about ``n_target`` flat horizontal wires on layer 1/0, on
-    tracks at random pitches of 100-400 nm (width 40 % of the pitch below), each
-    track filled with wires 0.3-3 um long and gaps of 0.1-1 um."""
-    import gdstk
-    import numpy as np
-
-    rng = np.random.default_rng(seed)
-    n = int(n_target)
-    side = math.sqrt(n * 0.2e6)  # the same area per shape as ``random``
-    lib = gdstk.Library(unit=1e-9, precision=1e-9)
-    top = lib.new_cell("TOP")
-    y, count = 0.0, 0
-    while count < n:
-        pitch = float(rng.integers(10, 41)) * 10.0
-        width = round(0.4 * pitch)
-        x = float(rng.uniform(0, 500))
-        while x < side and count < n:
-            length = float(np.round(rng.uniform(300, 3000)))
-            top.add(gdstk.rectangle((x, y), (x + length, y + width), layer=1, datatype=0))
-            count += 1
-            x += length + float(np.round(rng.uniform(100, 1000)))
-        y += pitch
-    lib.write_gds(str(path))
-    return count
 
 
 def timed(cmd: list[str]) -> float:
