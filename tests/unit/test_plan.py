@@ -23,8 +23,10 @@ from pitchguard.run.plan import (
     KB_PER_TILE_SHAPE,
     KEY_COST_SHAPES,
     PARENT_BASE_MB,
+    SPLIT_SMALL_SHAPES,
     TILE_COST_SHAPES,
     WORKER_BASE_MB,
+    Structure,
     phase_fraction,
     plan_tiles,
     tile_halo_nm,
@@ -168,3 +170,21 @@ def test_neighbouring_tiles_are_those_an_rtree_finds_touching(extent, tile, regi
     )
     want = set(zip(qi[qi < qj].tolist(), qj[qi < qj].tolist(), strict=True))
     assert len(got) == len(set(got)) and set(got) == want
+
+
+def test_a_small_layout_is_split_between_workers_only_when_it_has_the_shapes():
+    """A small layout is one tile for one worker; with two workers and at least
+    SPLIT_SMALL_SHAPES shapes, tiles of about a quarter of its area each (arithmetic:
+    sqrt(44 x 130 um^2 / 4) = 37.8 um, rounded up to whole site cells)."""
+    extent = (0.0, 0.0, 44_000.0, 130_000.0)
+
+    def plan(shapes, jobs):
+        st = Structure(1e-9, 1.0, ("TOP",), extent, "gds", shapes=shapes)
+        return plan_tiles(st, 1000.0, jobs, None, None)[0]
+
+    whole = math.ceil(130_000.0 / SITE_CELL_NM) * SITE_CELL_NM
+    assert plan(10_000, 1) == whole
+    assert plan(SPLIT_SMALL_SHAPES - 1, 2) == whole
+    split = plan(10_000, 2)
+    assert split == math.ceil(math.sqrt(44_000.0 * 130_000.0 / 4) / SITE_CELL_NM) * SITE_CELL_NM
+    assert len(tiles_for(extent, split)) >= 4

@@ -131,6 +131,9 @@ MAX_AUTO_TILE_UM = 50.0
 
 SMALL_LAYOUT_SHAPES = 20_000
 
+SPLIT_SMALL_SHAPES = 2_000
+"""A small layout with at least this many shapes is split between the workers."""
+
 
 # Costs of tiling in shapes-scanned equivalents: a tile's content key, and a
 # distinct tile's fixed setup (fitted on the benchmark chip; DEVELOPERS.md).
@@ -199,10 +202,14 @@ def plan_tiles(
         return t, jobs
     if st.extent_nm and st.shapes <= SMALL_LAYOUT_SHAPES:
         # Small layouts: one tile (up to four, by alignment) is fastest, and a
-        # sparse layout of huge extent does not turn into millions of tiles.
+        # sparse layout of huge extent does not turn into millions of tiles;
+        # with several workers and enough shapes to keep them busy (unique
+        # geometry costs about a millisecond a shape), about two tiles per worker.
         x0, y0, x1, y1 = st.extent_nm
         side = max(x1 - x0, y1 - y0, SITE_CELL_NM)
-        return math.ceil(side / SITE_CELL_NM) * SITE_CELL_NM, jobs
+        if jobs > 1 and st.shapes >= SPLIT_SMALL_SHAPES:
+            side = min(side, math.sqrt((x1 - x0) * (y1 - y0) / (2 * jobs)))
+        return math.ceil(max(side, SITE_CELL_NM) / SITE_CELL_NM) * SITE_CELL_NM, jobs
     sizes = [
         t
         for t in (
