@@ -155,10 +155,23 @@ def merge_mirrored(src: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.n
     carries rounding of that order).  Symmetric sources halve.
     """
     pts, w = src
-    key = np.round(np.stack([pts[:, 0], np.abs(pts[:, 1])], axis=1), 12)
-    key, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
-    weights = np.bincount(inverse.reshape(-1), weights=w, minlength=len(key))
-    return pts[first], weights
+    seen = (pts.tobytes(), np.asarray(w).tobytes())
+    merged = _MERGED.get(seen)
+    if merged is None:
+        key = np.round(np.stack([pts[:, 0], np.abs(pts[:, 1])], axis=1), 12)
+        key, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
+        weights = np.bincount(inverse.reshape(-1), weights=w, minlength=len(key))
+        if len(_MERGED) >= 16:
+            _MERGED.clear()
+        merged = (pts[first], weights)
+        for a in merged:
+            a.flags.writeable = False
+        _MERGED[seen] = merged
+    return merged
+
+
+_MERGED: dict = {}
+"""Merged sources by their points and weights: every period of a source merges alike."""
 
 
 class PupilFrame:
