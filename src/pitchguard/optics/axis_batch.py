@@ -164,8 +164,9 @@ def latitudes(lows: np.ndarray, highs: np.ndarray, t_size: np.ndarray) -> np.nda
     upper = np.triu(np.ones((f, f), dtype=bool))[None]
     lo = np.maximum.accumulate(np.where(upper, lows[:, None, :], -np.inf), axis=2)
     hi = np.minimum.accumulate(np.where(upper, highs[:, None, :], np.inf), axis=2)
-    el = np.maximum(0.0, 100.0 * (hi - lo) * t_size[:, None, None])
-    return np.where(upper, el, -np.inf)
+    with np.errstate(invalid="ignore"):  # an empty window (-inf) at t_size 0: no latitude
+        el = np.maximum(0.0, 100.0 * (hi - lo) * t_size[:, None, None])
+    return np.where(upper, np.nan_to_num(el, nan=0.0), -np.inf)
 
 
 def axis_metrics_batch(

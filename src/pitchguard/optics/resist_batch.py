@@ -12,7 +12,7 @@ import math
 
 import numpy as np
 
-from pitchguard.optics.axis_batch import cds, size_thresholds, thresholds, windows
+from pitchguard.optics.axis_batch import cds, latitudes, size_thresholds, thresholds, windows
 from pitchguard.optics.resist import Metrics
 
 
@@ -96,14 +96,9 @@ def evaluate_batch(
     el = np.where(usable & valid[:, best], el, 0.0)
     order = np.argsort(focus_nm)
     fs = focus_nm[order]
-    upper = np.triu(np.ones((nf, nf), dtype=bool))[None]
-    run_lo = np.maximum.accumulate(np.where(upper, d_lo[:, None, order], -np.inf), axis=2)
-    run_hi = np.minimum.accumulate(np.where(upper, d_hi[:, None, order], np.inf), axis=2)
-    with np.errstate(invalid="ignore"):
-        lat = np.maximum(0.0, 100.0 * (run_hi - run_lo) * t_use[:, None, None])
+    lat = latitudes(d_lo[:, order], d_hi[:, order], t_use)  # -inf below the diagonal
     span = fs[None, None, :] - fs[None, :, None]
-    good = upper & (lat >= el_min_pct)
-    dof = np.where(good, span, 0.0).reshape(nc, -1).max(axis=1)
+    dof = np.where(lat >= el_min_pct, span, 0.0).reshape(nc, -1).max(axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
         dts = np.where(usable, t_nom / t_use, np.nan)
     # Python floats: metrics travel between processes (see resist.evaluate).
