@@ -74,23 +74,31 @@ def give_grating_passes(rows: list[JudgedGrating]) -> None:
         _passes_given[row.key] = row.passes
 
 
-@lru_cache(maxsize=4096)
+_rule_values_of = lru_cache(maxsize=64)(lambda rule: _rule_values(rule))
+
+
 def _grating_passes(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
     """True when an ideal grating of this CD and pitch (wafer nm) breaks no limit."""
-    key = (_rule_values(rule), cd_q, pitch_q, angle_q, quantum)
+    key = (_rule_values_of(rule), cd_q, pitch_q, angle_q, quantum)
     given = _passes_given.get(key)
-    if given is not None:
-        return given
-    passes = _judge_grating(rule, cd_q, pitch_q, angle_q, quantum)
+    if given is None:
+        given = _keep_grating(key, _judge_grating(rule, cd_q, pitch_q, angle_q, quantum))
+    return given
+
+
+def _keep_grating(key: tuple, passes: bool) -> bool:
+    if len(_passes_given) >= 65536:
+        _passes_given.clear()
+    _passes_given[key] = passes
     _passes_fresh.append(JudgedGrating(*key, passes))
     return passes
 
 
 def forget_grating_passes() -> None:
     """Drop every judged grating this process holds, its own and those given to it."""
-    _grating_passes.cache_clear()
     _passes_given.clear()
     _passes_fresh.clear()
+    _exact_passes.clear()
 
 
 def _judge_grating(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
@@ -116,32 +124,118 @@ class RealCut(NamedTuple):
     tol: float  # spaces within this of ``space`` are the flagged ones
 
 
+def _respaced_cut(real: RealCut, cd_w: float, pitch_w: float, scale: float):
+    """``real`` with its flagged spaces set to ``pitch_w - cd_w`` (wafer nm)."""
+    from pitchguard.geometry.cuts import Cut, respaced
+
+    return respaced(Cut(real.bounds, real.reach), real.space, (pitch_w - cd_w) / scale, real.tol)
+
+
 def _cut_passes(
     rule: LayerRule, real: RealCut, cd_w: float, pitch_w: float, angle: float, scale: float
 ) -> bool:
     """True when ``real`` with its flagged spaces set to ``pitch_w - cd_w`` (wafer
     nm) breaks no limit at that pitch."""
-    from pitchguard.geometry.cuts import Cut, respaced
     from pitchguard.optics.cut_images import measure_cuts
 
-    cut = respaced(Cut(real.bounds, real.reach), real.space, (pitch_w - cd_w) / scale, real.tol)
     res = analyse_pitch(rule.exposure, pitch_w, (angle - 90.0) % 180.0)
+    cut = _respaced_cut(real, cd_w, pitch_w, scale)
     (m,) = measure_cuts([cut], [real.source_angle], rule, scale)
     return not violations(rule, res, m, pitch_w)
 
 
-@lru_cache(maxsize=4096)
+_exact_passes: dict[tuple, bool] = {}  # (rule, cd, pitch, angle) -> passes
+
+
+def _exact_orders_fail(rule: LayerRule, pitch_nm: float, angle_deg: float):
+    """The order and k1 verdict of an ideal grating: False when it breaks a limit
+    already, else its :class:`OrderResult` (images still to be judged)."""
+    res = analyse_pitch(rule.exposure, pitch_nm, (angle_deg - 90.0) % 180.0)
+    return False if violations(rule, res, None, pitch_nm) else res
+
+
 def _exact_grating_passes(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: float) -> bool:
     """True when the ideal grating of exactly this CD and pitch (wafer nm) breaks no limit."""
     from pitchguard.optics.cut_images import grating_metrics
 
-    res = analyse_pitch(rule.exposure, pitch_nm, (angle_deg - 90.0) % 180.0)
-    if violations(rule, res, None, pitch_nm):
-        return False
-    if not rule.image_checks:
-        return True
-    m, _, _ = grating_metrics(rule, pitch_nm, cd_nm, angle_deg % 180.0)
-    return not violations(rule, res, m, pitch_nm)
+    key = (rule, cd_nm, pitch_nm, angle_deg)
+    if key not in _exact_passes:
+        res = _exact_orders_fail(rule, pitch_nm, angle_deg)
+        passes = res is not False
+        if passes and rule.image_checks:
+            m, _, _ = grating_metrics(rule, pitch_nm, cd_nm, angle_deg % 180.0)
+            passes = not violations(rule, res, m, pitch_nm)
+        _keep_exact(key, passes)
+    return _exact_passes[key]
+
+
+def _keep_exact(key: tuple, passes: bool) -> None:
+    if len(_exact_passes) >= 65536:
+        _exact_passes.clear()
+    _exact_passes[key] = passes
+
+
+@lru_cache(maxsize=65536)
+def _candidates(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: float) -> tuple:
+    """``(cd_q, angle_q, quantum, pitches_q)``: the pitches a hint tries, nearest
+    first, those the order and k1 rules let through, at most ``HINT_IMAGES``."""
+    quantum = rule.exposure.lambda_over_na_nm / 20.0
+    cd_q = int(round(cd_nm / quantum))
+    angle_q = int(round((angle_deg % 180.0) * 10))
+    lo = max(int(math.ceil(HINT_RANGE[0] * pitch_nm / quantum)), int(cd_q * 1.05) + 1)
+    hi = int(HINT_RANGE[1] * pitch_nm / quantum)
+    here = pitch_nm / quantum
+    out = []
+    for q in sorted(range(lo, hi + 1), key=lambda q: (abs(q - here), q)):
+        if _grating_orders_ok(rule, q, angle_q, quantum):
+            out.append(q)
+            if len(out) >= HINT_IMAGES:
+                break
+    return cd_q, angle_q, quantum, tuple(out)
+
+
+# A hint is worked out by a generator that yields what it needs judged and is
+# sent the verdict: ("exact", rule, cd, pitch, angle) for an ideal grating of
+# exactly that CD and pitch, ("grid", rule, cd_q, pitch_q, angle_q, quantum) for
+# one on the search grid, ("cut", rule, real, cd, pitch, angle, scale) for a
+# finding's cut respaced.  hint_text answers each at once; hint_texts answers
+# those of many hints together, in batches (judge/hint_batch.py).
+
+
+def _pitch_search(rule, cd_nm, pitch_nm, angle_deg, real=None, scale=1.0):
+    cd_q, angle_q, quantum, cands = _candidates(rule, cd_nm, pitch_nm, angle_deg)
+    cuts = 0
+    for q in cands:
+        if not (yield ("grid", rule, cd_q, q, angle_q, quantum)):
+            continue
+        if real is None or not rule.image_checks:
+            return q * quantum
+        if (yield ("cut", rule, real, cd_nm, q * quantum, angle_deg, scale)):
+            return q * quantum
+        cuts += 1
+        if cuts >= HINT_CUTS:
+            break
+    return math.nan
+
+
+def answer(request: tuple) -> bool:
+    """The verdict a hint generator asks for, judged on its own."""
+    kind, *args = request
+    if kind == "exact":
+        return _exact_grating_passes(*args)
+    if kind == "grid":
+        return _grating_passes(*args)
+    return _cut_passes(*args)
+
+
+def drive(steps):
+    """Run a hint generator to its end, answering each request at once."""
+    try:
+        request = next(steps)
+        while True:
+            request = steps.send(answer(request))
+    except StopIteration as done:
+        return done.value
 
 
 def passing_pitch(
@@ -161,28 +255,7 @@ def passing_pitch(
     that cut respaced to it (:func:`pitchguard.geometry.cuts.respaced`), at
     most ``HINT_CUTS`` of which are imaged.
     """
-    quantum = rule.exposure.lambda_over_na_nm / 20.0
-    cd_q = int(round(cd_nm / quantum))
-    angle_q = int(round((angle_deg % 180.0) * 10))
-    lo = max(int(math.ceil(HINT_RANGE[0] * pitch_nm / quantum)), int(cd_q * 1.05) + 1)
-    hi = int(HINT_RANGE[1] * pitch_nm / quantum)
-    here = pitch_nm / quantum
-    imaged = cuts = 0
-    for q in sorted(range(lo, hi + 1), key=lambda q: (abs(q - here), q)):
-        if not _grating_orders_ok(rule, q, angle_q, quantum):
-            continue
-        if _grating_passes(rule, cd_q, q, angle_q, quantum):
-            if real is None or not rule.image_checks:
-                return q * quantum
-            if _cut_passes(rule, real, cd_nm, q * quantum, angle_deg, scale):
-                return q * quantum
-            cuts += 1
-            if cuts >= HINT_CUTS:
-                break
-        imaged += 1
-        if imaged >= HINT_IMAGES:
-            break
-    return math.nan
+    return drive(_pitch_search(rule, cd_nm, pitch_nm, angle_deg, real, scale))
 
 
 def hint_key(
@@ -200,20 +273,25 @@ def hint_key(
 
 def hint_text(rule: LayerRule, key: tuple) -> str:
     """What to change, in drawn nm (kept per process: hints recur)."""
-    return _hint_cached(rule, *key)
+    text = _texts.get((rule, key))
+    if text is None:
+        text = keep_text(rule, key, drive(hint_steps(rule, key)))
+    return text
 
 
-@lru_cache(maxsize=65536)
-def _hint_cached(
-    rule: LayerRule,
-    checks: tuple[str, ...],
-    cutoff_pitch_nm: float,
-    cd_w: float,
-    pitch_w: float,
-    angle: float,
-    scale: float,
-    real: RealCut | None,
-) -> str:
+_texts: dict[tuple, str] = {}
+
+
+def keep_text(rule: LayerRule, key: tuple, text: str) -> str:
+    if len(_texts) >= 65536:
+        _texts.clear()
+    _texts[(rule, key)] = text
+    return text
+
+
+def hint_steps(rule: LayerRule, key: tuple):
+    """The generator that works out the hint of ``key`` (see :func:`drive`)."""
+    checks, cutoff_pitch_nm, cd_w, pitch_w, angle, scale, real = key
     first = checks[0]
     feature = "line" if rule.field == "clear" else "opening"
     if first == "unresolvable-pitch":
@@ -230,7 +308,7 @@ def _hint_cached(
         )
     if not math.isfinite(cd_w) or not math.isfinite(pitch_w):
         return f"widen the {feature} or give it neighbours at a regular pitch"
-    if _exact_grating_passes(rule, cd_w, pitch_w, angle):
+    if (yield ("exact", rule, cd_w, pitch_w, angle)):
         # The ideal grating passes at this pitch: the real neighbourhood fails.
         return (
             f"an even grating of this {feature} width and pitch passes every limit: "
@@ -238,9 +316,9 @@ def _hint_cached(
             f"last {feature} of an array); make the spacing regular, or add a dummy "
             f"{feature} beyond the last one"
         )
-    ok = ideal = passing_pitch(rule, cd_w, pitch_w, angle)
+    ok = ideal = yield from _pitch_search(rule, cd_w, pitch_w, angle)
     if real is not None and not math.isnan(ok):
-        ok = passing_pitch(rule, cd_w, pitch_w, angle, real, scale)
+        ok = yield from _pitch_search(rule, cd_w, pitch_w, angle, real, scale)
     if math.isnan(ok) and not math.isnan(ideal):
         return (
             f"an even grating of this {feature} width passes at pitch {ideal / scale:.1f} nm, "

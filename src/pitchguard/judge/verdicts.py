@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from typing import NamedTuple
 
@@ -11,7 +12,8 @@ from pitchguard.deck import SEVERITIES, LayerRule
 from pitchguard.geometry.sites import Sites
 from pitchguard.judge.checks import IMAGE_CHECKS, OK, violations, worst_severity_code
 from pitchguard.judge.findings import Finding
-from pitchguard.judge.hints import RealCut, hint_key, hint_text
+from pitchguard.judge.hint_batch import hint_texts
+from pitchguard.judge.hints import RealCut, hint_key
 from pitchguard.judge.regions import (
     SNAP_PITCH_SPREAD,
     Region,
@@ -101,7 +103,7 @@ def classify_layer(
     With ``tile_nm`` (a tile of a tiled scan) each region keeps its sites
     that sites of other tiles could touch (:attr:`Region.border_sites`).
     With ``defer_hints`` findings get an empty hint and the region the key to
-    make it from (:attr:`Region.hint_key`, see :func:`hint_text`).
+    make it from (:attr:`Region.hint_key`, see :func:`pitchguard.judge.hints.hint_text`).
     """
     severity, results, which, found = judge_sites(sites, rule, scale_to_wafer, metrics, which_cut)
     flagged = np.flatnonzero(severity < OK)
@@ -182,7 +184,6 @@ def classify_layer(
             scale_to_wafer,
             real,
         )
-        hint = "" if defer_hints else hint_text(rule, key)
         mid = mid_all[worst]
         border = (
             None
@@ -219,7 +220,7 @@ def classify_layer(
             outline_nm=outline,
             limit=limit,
             message=message,
-            hint=hint,
+            hint="",
             contrast=round(m.contrast, 4) if m else math.nan,
             nils=round(m.nils, 3) if m else math.nan,
             cd_nm=round(m.cd_nm, 2) if m and math.isfinite(m.cd_nm) else math.nan,
@@ -236,6 +237,12 @@ def classify_layer(
         extent = None
         if border is not None and len(border):
             extent = convex_hull(corners_all[members].reshape(-1, 2))
-        out.append(Region(finding, line_points, border, extent, key if defer_hints else None))
+        out.append(Region(finding, line_points, border, extent, key))
+    if not defer_hints:  # made together: the gratings they judge are imaged in batches
+        texts = hint_texts([(rule, r.hint_key) for r in out])
+        out = [
+            r._replace(finding=dataclasses.replace(r.finding, hint=t), hint_key=None)
+            for r, t in zip(out, texts, strict=True)
+        ]
     out.sort(key=lambda r: (r.finding.severity_rank, r.finding.k1, r.finding.bbox_nm))
     return out

@@ -13,6 +13,7 @@ import math
 
 import numpy as np
 
+from pitchguard.optics.cd_search import cd_windows
 from pitchguard.optics.resist import THRESHOLD_SAMPLES
 from pitchguard.optics.resist2d import Metrics2D
 
@@ -208,10 +209,8 @@ def axis_metrics_batch(
     low = np.full((2, nb, nu), np.nan)
     high = np.full((2, nb, nu), np.nan)
     for a, (prof, w) in enumerate(((rows, wx), (cols, wy))):
-        cd = cds(s, prof.reshape(nb * nu, n), 0.0, lo, hi, bright, tu)
         ww = np.repeat(w, nu)
-        st = size_thresholds(tu, cd, ww)
-        ta, tb = windows(tu, np.abs(cd - ww[:, None]) <= tol * ww[:, None], st)
+        st, ta, tb = cd_windows(s, prof.reshape(nb * nu, n), 0.0, lo, hi, bright, tu, ww, tol)
         size[a] = st.reshape(nb, nu)
         usable = np.isfinite(ta) & (ta > 0)
         with np.errstate(divide="ignore"):

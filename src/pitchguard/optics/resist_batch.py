@@ -12,7 +12,8 @@ import math
 
 import numpy as np
 
-from pitchguard.optics.axis_batch import cds, latitudes, size_thresholds, thresholds, windows
+from pitchguard.optics.axis_batch import cds, latitudes, thresholds
+from pitchguard.optics.cd_search import cd_windows
 from pitchguard.optics.resist import Metrics
 
 
@@ -63,12 +64,10 @@ def evaluate_batch(
     t = thresholds(images.min(axis=(1, 2)), images.max(axis=(1, 2)))  # (C, T)
     tf = np.repeat(t, nf, axis=0)  # (C F, T)
     rep = lambda v: np.repeat(v, nf)  # noqa: E731
-    cd = cds(x, images.reshape(nc * nf, -1), rep(centre), rep(lo), rep(hi), bright, tf)
-    target = rep(drawn)
-    ok = np.isfinite(cd) & (np.abs(cd - target[:, None]) <= tol * target[:, None])
-    some = ok.any(axis=1)
-    size = np.where(some, size_thresholds(tf, cd, target), np.nan)
-    ta, tb = windows(tf, ok, size)
+    size, ta, tb = cd_windows(
+        x, images.reshape(nc * nf, -1), rep(centre), rep(lo), rep(hi), bright, tf, rep(drawn), tol
+    )
+    size = np.where(np.isfinite(ta), size, np.nan)  # no sample in tolerance: no size
     size, ta, tb = (v.reshape(nc, nf) for v in (size, ta, tb))
     t_size = size[:, best]
 

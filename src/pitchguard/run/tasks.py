@@ -11,7 +11,8 @@ from typing import NamedTuple
 from pitchguard.deck import Deck, parse_deck
 from pitchguard.errors import LayoutError
 from pitchguard.geometry.sites import SITE_CELL_NM
-from pitchguard.judge.hints import give_grating_passes, hint_text, take_grating_passes
+from pitchguard.judge.hint_batch import hint_texts
+from pitchguard.judge.hints import give_grating_passes, take_grating_passes
 from pitchguard.judge.regions import Region
 from pitchguard.layout.polygons import PolygonSet, snap_to_grid
 from pitchguard.optics.cut_images import give_imaged, take_imaged
@@ -170,7 +171,7 @@ def tile_task(
 
 
 def hints_task(deck_text: str, keys: list[tuple], judged=()) -> tuple[dict, list]:
-    """Hint texts for ``(layer name, hint key)`` pairs (see judge.hints.hint_text).
+    """Hint texts for ``(layer name, hint key)`` pairs, made together (judge.hint_batch).
 
     ``judged``: ideal gratings other workers judged (judge.hints.take_grating_passes);
     returns the texts and the gratings judged here.
@@ -179,7 +180,8 @@ def hints_task(deck_text: str, keys: list[tuple], judged=()) -> tuple[dict, list
     rules = {r.name: r for r in deck.layers}
     give_grating_passes(judged)
     # Looked up by repr: a key may hold nan, which equals nothing once pickled.
-    texts = {(name, repr(key)): hint_text(rules[name], key) for name, key in keys}
+    made = hint_texts([(rules[name], key) for name, key in keys])
+    texts = {(name, repr(key)): t for (name, key), t in zip(keys, made, strict=True)}
     return texts, take_grating_passes()
 
 
