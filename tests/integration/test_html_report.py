@@ -278,14 +278,24 @@ def test_many_identical_findings_are_grouped_and_capped(many):
     assert f"all {copies} locations" in text
     rest = len(groups) - MANY_MAX_GROUPS
     rest_findings = sum(len(g.findings) for g in groups[MANY_MAX_GROUPS:])
-    cap = re.search(r'<p id="cap-message"><strong>(\d+) more groups? \((\d+) findings?\)', text)
+    cap = re.search(r'id="cap-message"><strong>(\d+) more groups? \((\d+) findings?\)', text)
     assert cap is not None, "no message about the groups beyond max_groups"
     assert (int(cap.group(1)), int(cap.group(2))) == (rest, rest_findings)
-    more = text[text.index('id="more-groups"') :]
-    assert more.count("<tr data-severity=") == rest
-    # The index links every drawn group to its section.
+    # The index lists every group, worst first; the drawn ones link to their sections.
+    index = text[
+        text.index("<details id='index'") : text.index(
+            "</details>", text.index("<details id='index'")
+        )
+    ]
+    assert index.count("<tr data-severity=") == len(groups)
+    assert f"Index of all {len(groups)} groups" in index
+    numbers = re.findall(
+        r"<tr data-severity=[^>]*><td class='n'>(?:<a href='#g(\d+)'>)?(\d+)", index
+    )
+    assert [int(k) for _, k in numbers] == list(range(1, len(groups) + 1))
+    assert [int(a) for a, _ in numbers if a] == list(range(1, MANY_MAX_GROUPS + 1))
     for k in range(1, MANY_MAX_GROUPS + 1):
-        assert f"href='#g{k}'" in text and f'id="g{k}"' in text
+        assert f'id="g{k}"' in text
 
 
 def test_printed_edges_agree_with_the_findings(demo):
@@ -446,6 +456,23 @@ def test_many_report_in_chromium(many, tmp_path):
     assert len(re.findall(r'<details class="group ', dom)) == MANY_MAX_GROUPS
     assert len(re.findall(r"<img\b", dom)) == 2 * MANY_MAX_GROUPS
     assert 'id="cap-message"' in dom
+
+
+@pytest.mark.slow
+def test_index_sorts_in_chromium(many, tmp_path):
+    """A link to the report with ``#sort=-pitch`` opens its index sorted by pitch,
+    widest first (the same code a click on the column head runs)."""
+    out, result, _ = many
+    dom, requests = run_chromium(tmp_path, out.as_uri() + "#sort=-pitch", "--dump-dom")
+    assert requests == [] and 'data-sorting="ready"' in dom
+    index = dom[dom.index('id="index"') :]
+    index = index[: index.index("</table>")]
+    rows = index.split("<tr data-severity=")[1:]
+    pitches = [float(re.findall(r"<td[^>]*>(.*?)</td>", r)[4]) for r in rows]
+    groups = group_findings(result.findings)
+    assert len(pitches) == len(groups)
+    assert pitches == sorted((g.first.pitch_nm for g in groups), reverse=True)
+    assert 'aria-sort="descending"' in index
 
 
 @pytest.mark.slow

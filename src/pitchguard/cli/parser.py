@@ -48,13 +48,24 @@ def _pitch_range(text: str) -> tuple[float, float, float]:
     return lo, hi, step
 
 
-def _positive_int(text: str) -> int:
+def _whole(text: str) -> int:
     try:
-        v = int(float(text))
-    except ValueError:
+        return int(float(text))
+    except (ValueError, OverflowError):
         raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+
+
+def _positive_int(text: str) -> int:
+    v = _whole(text)
     if v < 1:
         raise argparse.ArgumentTypeError("must be at least 1")
+    return v
+
+
+def _nonnegative_int(text: str) -> int:
+    v = _whole(text)
+    if v < 0:
+        raise argparse.ArgumentTypeError("must be at least 0")
     return v
 
 
@@ -187,6 +198,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def add_output_options(p) -> None:
     """Output options shared by scan and diff."""
+    from pitchguard.outputs.html import PICTURED_GROUPS
     from pitchguard.outputs.verdict import FAIL_ON_CHOICES
 
     p.add_argument(
@@ -196,10 +208,24 @@ def add_output_options(p) -> None:
         help="write a marker layout (.gds or .oas) of flagged regions",
     )
     p.add_argument("--json", type=Path, metavar="PATH", help="write findings as JSON")
+    p.add_argument(
+        "--json-inline-texts",
+        action="store_true",
+        help="put each finding's message and hint in its JSON row (default: rows refer "
+        "to the top-level list `texts`, which holds each text once)",
+    )
     p.add_argument("--sarif", type=Path, metavar="PATH", help="write SARIF 2.1.0 for code scanning")
     p.add_argument("--junit", type=Path, metavar="PATH", help="write JUnit XML for CI dashboards")
     p.add_argument(
         "--html", type=Path, metavar="PATH", help="write a self-contained HTML report with pictures"
+    )
+    p.add_argument(
+        "--html-pictures",
+        type=_nonnegative_int,
+        default=PICTURED_GROUPS,
+        metavar="N",
+        help=f"groups of findings drawn with pictures in the HTML report, worst first "
+        f"(default: {PICTURED_GROUPS}); the report's index lists every group",
     )
     p.add_argument(
         "--fail-on",

@@ -92,14 +92,15 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
             bar.stop()
 
 
-def _write_outputs(args, result, deck, inputs, extra_json: dict | None = None) -> None:
-    from pitchguard.outputs.json_report import to_json, write_json
+def _write_outputs(args, result, deck, inputs, extra_json=None) -> None:
+    from pitchguard.outputs.json_report import TextTable, to_json, write_json
     from pitchguard.outputs.markers import write_markers
 
     if args.json is not None:
-        payload = to_json(result, deck, args.fail_on, lazy=True)
-        if extra_json:
-            payload.update(extra_json)
+        texts = None if args.json_inline_texts else TextTable()
+        payload = to_json(result, deck, args.fail_on, lazy=True, texts=texts)
+        if extra_json:  # a dict, or a function of the text table
+            payload.update(extra_json(texts) if callable(extra_json) else extra_json)
         write_json(args.json, payload, inputs)
     if args.markers is not None:
         write_markers(args.markers, result, deck, inputs)
@@ -126,8 +127,10 @@ def _write_outputs(args, result, deck, inputs, extra_json: dict | None = None) -
         from pitchguard.outputs.html.page import write_html
 
         if result.tiling is not None:  # tiled scans keep no geometry: read the pictures' part
-            result = add_clip_geometry(result, deck, args.cell, timeout_s=args.read_timeout)
-        write_html(args.html, result, deck, inputs, args.fail_on)
+            result = add_clip_geometry(
+                result, deck, args.cell, args.html_pictures, timeout_s=args.read_timeout
+            )
+        write_html(args.html, result, deck, inputs, args.fail_on, args.html_pictures)
 
 
 def cmd_scan(args) -> int:
@@ -227,17 +230,20 @@ def cmd_diff(args) -> int:
     new = _run_scan(args, deck, args.new, "new")
     d = diff(base.findings, new.findings)
     shown = dataclasses.replace(new, findings=d.introduced, seconds=base.seconds + new.seconds)
-    extra = {
-        "diff": {
-            "base": str(args.base),
-            "new": str(args.new),
-            "introduced": len(d.introduced),
-            "fixed": len(d.fixed),
-            "unchanged": len(d.unchanged),
-            "fixed_findings": [finding_to_dict(f) for f in d.fixed],
-            "unchanged_findings": [finding_to_dict(f) for _, f in d.unchanged],
+
+    def extra(texts) -> dict:
+        return {
+            "diff": {
+                "base": str(args.base),
+                "new": str(args.new),
+                "introduced": len(d.introduced),
+                "fixed": len(d.fixed),
+                "unchanged": len(d.unchanged),
+                "fixed_findings": [finding_to_dict(f, texts=texts) for f in d.fixed],
+                "unchanged_findings": [finding_to_dict(f, texts=texts) for _, f in d.unchanged],
+            }
         }
-    }
+
     _write_outputs(args, shown, deck, inputs, extra)
     line = (
         f"diff {args.base} -> {args.new}: {len(d.introduced)} introduced, "

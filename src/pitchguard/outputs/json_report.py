@@ -40,11 +40,33 @@ def clean_json(obj):
     return obj
 
 
-def finding_to_dict(f: Finding, holes: bool = False) -> dict:
+class TextTable(list):
+    """The report's long texts (messages, hints), each once: rows refer to them by
+    their index in this list, the JSON's top-level ``texts``."""
+
+    def __init__(self):
+        super().__init__()
+        self._index: dict[str, int] = {}
+
+    def ref(self, text: str) -> int:
+        k = self._index.get(text)
+        if k is None:
+            k = self._index[text] = len(self)
+            self.append(text)
+        return k
+
+
+def _inline(text: str) -> str:
+    return text
+
+
+def finding_to_dict(f: Finding, holes: bool = False, texts: TextTable | None = None) -> dict:
     """A finding as plain JSON values (built field by field: a chip's report makes
     10^5-10^6 of these, so no generic cleaning pass).  With ``holes`` the values
     that depend on the place (see :func:`placed_fields`) are markers
-    (:func:`hole`), for :class:`PlacedRows`."""
+    (:func:`hole`), for :class:`PlacedRows`.  With ``texts`` the message, the
+    hint and each check's message are indexes into that table."""
+    text = _inline if texts is None else texts.ref
     if holes:
         bbox, centre, outline = hole("bbox_um"), hole("centre_um"), hole("outline_um")
         origin = hole("origin_um")
@@ -81,8 +103,8 @@ def finding_to_dict(f: Finding, holes: bool = False) -> dict:
         "sites": int(f.sites),
         "run_nm": json_number(f.run_nm),
         "limit": f.limit,
-        "message": f.message,
-        "hint": f.hint,
+        "message": text(f.message),
+        "hint": text(f.hint),
         "contrast": json_number(f.contrast),
         "nils": json_number(f.nils),
         "printed_cd_nm": json_number(f.cd_nm),
@@ -98,7 +120,7 @@ def finding_to_dict(f: Finding, holes: bool = False) -> dict:
         }
         if f.cut_bounds_nm
         else None,
-        "checks": [violation_to_dict(v) for v in f.violations],
+        "checks": [violation_to_dict(v, text) for v in f.violations],
         "array": array_to_dict(f.array) if f.array is not None else None,
         "line_end": tip_to_dict(f.tip) if f.tip is not None else None,
     }
@@ -131,32 +153,39 @@ def array_to_dict(a) -> dict:
     }
 
 
-def violation_to_dict(v) -> dict:
+def violation_to_dict(v, text=_inline) -> dict:
     """One broken limit as the JSON reports give it."""
     return {
         "check": v.check,
         "severity": v.severity,
         "value": json_number(v.value),
         "limit": json_number(v.limit),
-        "message": v.message,
+        "message": text(v.message),
     }
 
 
-def finding_rows(findings: Sequence[Finding]) -> Rows:
+def finding_rows(findings: Sequence[Finding], texts: TextTable | None = None) -> Rows:
     """:func:`finding_to_dict` of each finding, made as it is written."""
     if not isinstance(findings, FindingSet):
-        return Rows(findings, finding_to_dict)
+        return Rows(findings, lambda f: finding_to_dict(f, texts=texts))
     return PlacedRows(
         findings,
-        lambda k: finding_to_dict(findings[k]),
-        lambda d: finding_to_dict(findings.distinct[d], holes=True),
+        lambda k: finding_to_dict(findings[k], texts=texts),
+        lambda d: finding_to_dict(findings.distinct[d], holes=True, texts=texts),
         lambda k, f, dx, dy: placed_fields(f, dx, dy),
     )
 
 
-def to_json(result: ScanResult, deck: Deck, fail_on: str, lazy: bool = False) -> dict:
+def to_json(
+    result: ScanResult,
+    deck: Deck,
+    fail_on: str,
+    lazy: bool = False,
+    texts: TextTable | None = None,
+) -> dict:
     """The JSON report of a scan; with ``lazy`` its findings are :class:`Rows`, made
-    as they are written (for :func:`write_json`)."""
+    as they are written (for :func:`write_json`).  With ``texts`` the findings'
+    messages and hints are indexes into it, written last as ``texts``."""
     lay = result.layout
     by_layer = {}
     for st in result.layers:
@@ -194,9 +223,9 @@ def to_json(result: ScanResult, deck: Deck, fail_on: str, lazy: bool = False) ->
             "drawn_scale": deck.drawn_scale,
             "reduction": deck.reduction,
         },
-        "findings": finding_rows(result.findings)
+        "findings": finding_rows(result.findings, texts)
         if lazy
-        else [finding_to_dict(f) for f in result.findings],
+        else [finding_to_dict(f, texts=texts) for f in result.findings],
         "summary": {
             "findings": len(result.findings),
             "by_severity": severity_counts(result.findings),
@@ -208,6 +237,7 @@ def to_json(result: ScanResult, deck: Deck, fail_on: str, lazy: bool = False) ->
             "warnings": result.warnings,
             "notes": coverage_notes(result.layers),
         },
+        **({} if texts is None else {"texts": texts}),
     }
 
 
@@ -235,6 +265,8 @@ def dump_json(value, fh, ensure_ascii: bool = True, level: int = 0) -> None:
             dump_json(v, fh, ensure_ascii, level + 1)
             fh.write(",\n" if k < len(value) - 1 else "\n")
         fh.write("  " * level + "}")
+    elif isinstance(value, TextTable) and len(value):  # one text per line
+        fh.write("[\n" + ",\n".join(pad + one(t) for t in value) + "\n" + "  " * level + "]")
     elif isinstance(value, (list, tuple, Rows)):
         if len(value) == 0:
             fh.write("[]")

@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import replace
 
 from pitchguard.deck import Deck
+from pitchguard.outputs.html import PICTURED_GROUPS
 from pitchguard.run.scan import ScanResult
 from pitchguard.run.tasks import clips_task
 
@@ -13,7 +14,7 @@ def add_clip_geometry(
     result: ScanResult,
     deck: Deck,
     cell: str | None = None,
-    max_groups: int = 500,
+    max_groups: int = PICTURED_GROUPS,
     timeout_s: float | None = None,
 ) -> ScanResult:
     """Read back, in a child process, the layout around the findings a report draws.

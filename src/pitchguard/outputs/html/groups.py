@@ -18,10 +18,6 @@ OPEN_GROUPS = 8
 """The first groups are expanded when the page opens; the rest are collapsed."""
 
 
-REMAINING_LISTED = 2000
-"""Groups beyond ``max_groups`` listed in the table at the end at most."""
-
-
 def group_number(value: float, digits: int = 1) -> str:
     """A rounded number as a hashable, nan-safe text key."""
     if value is None or not math.isfinite(value):

@@ -10,6 +10,7 @@ import numpy as np
 from pitchguard.deck import Deck, LayerRule
 from pitchguard.judge.findings import Finding
 from pitchguard.layout.polygons import PolygonSet
+from pitchguard.outputs.html import PICTURED_GROUPS
 from pitchguard.outputs.html.groups import group_findings
 from pitchguard.outputs.html.style import (
     CUT_COLOUR,
@@ -282,7 +283,9 @@ def view_window(f: Finding, reach: float) -> tuple[tuple, bool, tuple[float, flo
     return (vx0, vy0, vx1, vy1), clamped, (cx, cy)
 
 
-def picture_windows(result: ScanResult, deck: Deck, max_groups: int = 500) -> list[tuple]:
+def picture_windows(
+    result: ScanResult, deck: Deck, max_groups: int = PICTURED_GROUPS
+) -> list[tuple]:
     """Layout windows (nm) the pictures of the HTML report show (:func:`view_window`).
 
     For scans that kept no geometry (tiled scans): the caller reads these

@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from pitchguard.deck import SEVERITIES, Deck
-from pitchguard.outputs.html.groups import REMAINING_LISTED, Group
+from pitchguard.outputs.html.groups import Group
 from pitchguard.outputs.html.text import attr_text, esc, html_number
 from pitchguard.outputs.table import one_line_summary
 from pitchguard.outputs.verdict import coverage_notes, coverage_text, exit_code, severity_counts
@@ -133,65 +133,68 @@ def filters_html(result: ScanResult, groups: list[Group]) -> str:
     )
 
 
-def index_html(groups: list[Group]) -> str:
-    """A compact table of the drawn groups with links to their sections."""
+INDEX_COLUMNS = (
+    ("n", "#", True),
+    ("severity", "severity", False),
+    ("layer", "layer", False),
+    ("check", "check", False),
+    ("pitch", "pitch nm", True),
+    ("width", "width nm", True),
+    ("space", "space nm", True),
+    ("k1", "k1", True),
+    ("locations", "locations", True),
+    ("at", "first at, µm", True),
+)
+"""The index's columns: the key a link sorts by (``#sort=pitch``), head, numeric."""
+
+
+def index_html(groups: list[Group], drawn: int) -> str:
+    """A compact table of every group, worst first, sortable by any column (a click
+    on its head); the first ``drawn`` link to their cards."""
     rows = []
     for k, g in enumerate(groups, 1):
         f = g.first
+        cx, cy = f.centre_um
+        n = f"<a href='#g{k}'>{k}</a>" if k <= drawn else str(k)
         rows.append(
             f'<tr data-severity="{attr_text(f.severity)}" data-layer="{attr_text(f.layer)}">'
-            f"<td class='n'><a href='#g{k}'>{k}</a></td><td><span class='sev "
+            f"<td class='n'>{n}</td><td data-v='{f.severity_rank}'><span class='sev "
             f"{attr_text(f.severity)}'>{esc(f.severity)}</span></td><td>{esc(f.layer)}</td>"
-            f"<td><a href='#g{k}'>{esc(f.check)}</a></td>"
+            f"<td>{esc(f.check)}</td>"
             f"<td class='n'>{html_number(f.pitch_nm)}</td>"
-            f"<td class='n'>{html_number(f.width_nm)} / {html_number(f.space_nm)}</td>"
+            f"<td class='n'>{html_number(f.width_nm)}</td>"
+            f"<td class='n'>{html_number(f.space_nm)}</td>"
             f"<td class='n'>{html_number(f.k1, '.3f')}</td>"
-            f"<td class='n'>{len(g.findings)}</td></tr>"
+            f"<td class='n'>{len(g.findings)}</td><td class='n'>{cx:.3f}, {cy:.3f}</td></tr>"
         )
+    heads = "".join(
+        ("<th class='n'" if num else "<th") + f" data-key='{key}'>{head}</th>"
+        for key, head, num in INDEX_COLUMNS
+    )
     opened = " open" if len(groups) <= 30 else ""
+    drawn_text = "all with pictures" if drawn >= len(groups) else f"the first {drawn} with pictures"
     return (
-        f"<details id='index'{opened}><summary>Index of the {len(groups)} groups drawn below"
-        "</summary><table><thead><tr><th class='n'>#</th><th>severity</th><th>layer</th>"
-        "<th>check</th><th class='n'>pitch nm</th><th class='n'>width / space nm</th>"
-        "<th class='n'>k1</th><th class='n'>locations</th></tr></thead><tbody>"
+        f"<details id='index'{opened}><summary>Index of all {len(groups)} groups "
+        f"({drawn_text}; click a column head to sort)</summary>"
+        "<table class='sortable'><thead><tr>"
+        + heads
+        + "</tr></thead><tbody>"
         + "".join(rows)
         + "</tbody></table></details>"
     )
 
 
-def remaining_html(groups: list[Group], start: int) -> str:
-    """The groups beyond the drawn ones, listed without pictures (empty if none)."""
+def cap_html(groups: list[Group], start: int) -> str:
+    """What the groups beyond the drawn ones are (empty if none): they are listed in
+    the index only."""
     rest = groups[start:]
     if not rest:
         return ""
     n_find = sum(len(g.findings) for g in rest)
-    rows = []
-    for k, g in enumerate(rest[:REMAINING_LISTED], start + 1):
-        f = g.first
-        cx, cy = f.centre_um
-        rows.append(
-            f'<tr data-severity="{attr_text(f.severity)}" data-layer="{attr_text(f.layer)}">'
-            f"<td class='n'>{k}</td><td><span class='sev {attr_text(f.severity)}'>"
-            f"{esc(f.severity)}</span></td><td>{esc(f.layer)}</td><td>{esc(f.check)}</td>"
-            f"<td class='n'>{html_number(f.pitch_nm)}</td>"
-            f"<td class='n'>{html_number(f.width_nm)} / {html_number(f.space_nm)}</td>"
-            f"<td class='n'>{html_number(f.k1, '.3f')}</td>"
-            f"<td class='n'>{len(g.findings)}</td><td class='n'>{cx:.3f}, {cy:.3f}</td></tr>"
-        )
-    more = (
-        f"<p class='note'>… {len(rest) - REMAINING_LISTED} groups more are not listed "
-        "here; the JSON output has every finding.</p>"
-        if len(rest) > REMAINING_LISTED
-        else ""
-    )
     return (
-        '<section id="more-groups"><h2>More findings without pictures</h2>'
-        f'<p id="cap-message"><strong>{len(rest)} more group{"s" if len(rest) != 1 else ""} '
-        f"({n_find} finding{'s' if n_find != 1 else ''})</strong> "
-        f"{'exists' if len(rest) == 1 else 'exist'} beyond the {start} drawn with pictures "
-        "(the report's limit); listed below, worst first.</p>"
-        "<table><thead><tr><th class='n'>#</th><th>severity</th><th>layer</th>"
-        "<th>check</th><th class='n'>pitch nm</th><th class='n'>width / space nm</th>"
-        "<th class='n'>k1</th><th class='n'>locations</th><th class='n'>first at, µm</th>"
-        "</tr></thead><tbody>" + "".join(rows) + f"</tbody></table>{more}</section>"
+        f'<p class="note" id="cap-message"><strong>{len(rest)} more '
+        f"group{'s' if len(rest) != 1 else ''} ({n_find} finding{'s' if n_find != 1 else ''})"
+        f"</strong> beyond the {start} drawn with pictures {'is' if len(rest) == 1 else 'are'} "
+        "listed in the <a href='#index'>index</a> above, worst first; "
+        "<code>--html-pictures N</code> draws more.</p>"
     )

@@ -9,12 +9,13 @@ from pathlib import Path
 from pitchguard import __version__
 from pitchguard.deck import Deck
 from pitchguard.outputs.files import atomic_write
+from pitchguard.outputs.html import PICTURED_GROUPS
 from pitchguard.outputs.html.card import group_card_html
 from pitchguard.outputs.html.groups import group_findings
 from pitchguard.outputs.html.overview import (
+    cap_html,
     filters_html,
     index_html,
-    remaining_html,
     summary_html,
 )
 from pitchguard.outputs.html.pictures import FindingPictures
@@ -47,7 +48,9 @@ CAVEATS = (
 )
 
 
-def render_html(result: ScanResult, deck: Deck, fail_on: str, max_groups: int = 500) -> str:
+def render_html(
+    result: ScanResult, deck: Deck, fail_on: str, max_groups: int = PICTURED_GROUPS
+) -> str:
     """The whole page as text."""
     groups = group_findings(result.findings)
     renderer = FindingPictures(result, deck)
@@ -84,18 +87,10 @@ def render_html(result: ScanResult, deck: Deck, fail_on: str, max_groups: int = 
             "occurs.</p>"
         )
         parts.append(filters_html(result, groups))
-        if drawn:
-            parts.append(index_html(drawn))
+        parts.append(index_html(groups, len(drawn)))
+        parts.append(cap_html(groups, len(drawn)))
         parts.extend(group_card_html(k, g, renderer) for k, g in enumerate(drawn))
-        if len(groups) > len(drawn):
-            parts.append(
-                f'<p class="note" id="cap-note"><a href="#more-groups">'
-                f"{_groups_text(len(groups) - len(drawn))} more</a> "
-                f"{'is' if len(groups) - len(drawn) == 1 else 'are'} listed without pictures "
-                "below.</p>"
-            )
     parts.append("</section>")
-    parts.append(remaining_html(groups, len(drawn)))
     parts.append(
         f"<footer><p>{esc(CAUTION)}</p><p>pitchguard {esc(__version__)} · "
         "coordinates in µm as drawn, lengths in nm (image plots: wafer nm).</p></footer>"
@@ -110,7 +105,7 @@ def write_html(
     deck: Deck,
     inputs: list[Path],
     fail_on: str,
-    max_groups: int = 500,
+    max_groups: int = PICTURED_GROUPS,
 ) -> None:
     """Write the self-contained HTML report (via a temporary file and a rename)."""
     text = render_html(result, deck, fail_on, max_groups)

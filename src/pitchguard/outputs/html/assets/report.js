@@ -51,3 +51,51 @@
   openTarget();
   document.documentElement.setAttribute('data-filters', 'ready');
 })();
+
+// The index: a click on a column head sorts the rows by it (again: the other way);
+// a link may preset the order: report.html#sort=pitch (or sort=-pitch, descending).
+(function () {
+  var tables = document.querySelectorAll ? document.querySelectorAll('table.sortable') : [];
+  function key(cell) {
+    var v = cell.getAttribute('data-v');
+    var text = v !== null ? v : cell.textContent;
+    var num = parseFloat(text.replace(/[^0-9eE+\-.]/g, ' ').trim().split(' ')[0]);
+    return isNaN(num) ? text.toLowerCase() : num;
+  }
+  function sortBy(table, col, th, down) {
+    var body = table.tBodies[0], rows = Array.prototype.slice.call(body.rows);
+    var keyed = rows.map(function (r, i) { return [key(r.cells[col]), i, r]; });
+    keyed.sort(function (a, b) {
+      var x = a[0], y = b[0], c;
+      if (typeof x === typeof y) { c = x < y ? -1 : x > y ? 1 : 0; }
+      else { c = typeof x === 'number' ? -1 : 1; }  // numbers before text (dashes)
+      return (down ? -c : c) || a[1] - b[1];
+    });
+    var heads = table.tHead.rows[0].cells;
+    for (var h = 0; h < heads.length; h++) { heads[h].removeAttribute('aria-sort'); }
+    th.setAttribute('aria-sort', down ? 'descending' : 'ascending');
+    var frag = document.createDocumentFragment();
+    for (var k = 0; k < keyed.length; k++) { frag.appendChild(keyed[k][2]); }
+    body.appendChild(frag);
+  }
+  for (var t = 0; t < tables.length; t++) {
+    (function (table) {
+      var heads = table.tHead.rows[0].cells;
+      for (var c = 0; c < heads.length; c++) {
+        (function (col, th) {
+          th.addEventListener('click', function () {
+            sortBy(table, col, th, th.getAttribute('aria-sort') === 'ascending');
+          });
+        })(c, heads[c]);
+      }
+    })(tables[t]);
+  }
+  var m = /(?:^#|&)sort=(-?)([a-z0-9]+)/.exec(window.location.hash || '');
+  if (m && tables.length) {
+    var heads = tables[0].tHead.rows[0].cells;
+    for (var h = 0; h < heads.length; h++) {
+      if (heads[h].getAttribute('data-key') === m[2]) { sortBy(tables[0], h, heads[h], m[1] === '-'); }
+    }
+  }
+  document.documentElement.setAttribute('data-sorting', 'ready');
+})();
