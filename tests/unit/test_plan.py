@@ -188,3 +188,28 @@ def test_a_small_layout_is_split_between_workers_only_when_it_has_the_shapes():
     split = plan(10_000, 2)
     assert split == math.ceil(math.sqrt(44_000.0 * 130_000.0 / 4) / SITE_CELL_NM) * SITE_CELL_NM
     assert len(tiles_for(extent, split)) >= 4
+
+
+def test_hint_keys_split_among_workers_in_runs_of_pitch():
+    """The hints left once every tile is in are shared among the workers in runs of
+    layer and pitch: each key in exactly one part, every part's pitches a
+    contiguous range (their ideal gratings overlap only where runs meet)."""
+    from pitchguard.run.tiled import split_by_pitch
+
+    rng = random.Random(7)
+    keys = [
+        (layer, (("low-nils",), 50.0, rng.uniform(20, 60), p, 0.0, 1.0, None))
+        for layer in ("M1", "M2")
+        for p in [rng.uniform(80, 300) for _ in range(25)] + [math.nan, math.inf]
+    ]
+    for n in (1, 2, 3, 8):
+        parts = split_by_pitch(keys, n)
+        assert 1 <= len(parts) <= n
+        assert sorted(map(repr, (k for part in parts for k in part))) == sorted(map(repr, keys))
+        for a, b in zip(parts, parts[1:], strict=False):
+            la, lb = a[-1], b[0]
+            # Each part ends at or below where the next begins (same layer), nan last.
+            if la[0] == lb[0] and not math.isnan(lb[1][3]):
+                assert la[1][3] <= lb[1][3]
+            else:
+                assert la[0] < lb[0] or math.isnan(lb[1][3])

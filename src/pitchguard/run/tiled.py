@@ -185,7 +185,7 @@ class TileScheduler:
         self.scanned = self.keyed = 0
         self.judged: dict = {}  # ideal gratings judged for hints, passed on to later hints
         self.hint_keys: list = []  # found, not yet sent
-        self.hinting = False  # a hints task is running
+        self.hinting = 0  # hints tasks running
 
     def next_chunk(self):
         start, chunk = self.chunks.pop(0)
@@ -214,7 +214,7 @@ class TileScheduler:
             self.texts.update(texts)
             for row in judged:
                 self.judged.setdefault(row.key, row)
-            self.hinting = False
+            self.hinting -= 1
             more.extend(self._hints())
         elif isinstance(tag, tuple):  # content keys of a chunk, from tile ``start`` on
             start = tag[1]
@@ -254,14 +254,39 @@ class TileScheduler:
         return more
 
     def _hints(self) -> list:
-        """A task for the hint keys waiting, unless one is running: hints of one
-        layer search overlapping gratings, and a task running beside another
-        would judge them again."""
-        if self.hinting or not self.hint_keys:
+        """Tasks for the hint keys waiting.  While tiles are still to come, one at
+        a time: hints of one layer search overlapping gratings, and a task running
+        beside another would judge them again.  Once every tile is in, the keys
+        left are split by pitch among the workers (overlap only at the cuts)."""
+        tiles_left = self.keyed < len(self.tiles) or self.scanned < len(self.assembly.members)
+        limit = 1 if tiles_left else max(1, self.engine.workers)
+        if self.hinting >= limit or not self.hint_keys:
             return []
         keys, self.hint_keys = self.hint_keys, []
-        self.hinting = True
-        return [(hints_task, lambda: (self.deck.text, keys, list(self.judged.values())), "hints")]
+        parts = [keys] if tiles_left else split_by_pitch(keys, limit - self.hinting)
+        self.hinting += len(parts)
+        return [
+            (
+                hints_task,
+                lambda part=part: (self.deck.text, part, list(self.judged.values())),
+                "hints",
+            )
+            for part in parts
+        ]
+
+
+def split_by_pitch(keys: list, n: int) -> list[list]:
+    """``(layer, hint key)`` pairs in at most ``n`` runs of similar layer and pitch
+    (a key's pitch and CD are its 4th and 3rd values; nan sorts last)."""
+
+    def order(item):
+        layer, key = item
+        pitch, cd = key[3], key[2]
+        return (layer, pitch != pitch, pitch if pitch == pitch else 0.0, cd if cd == cd else 0.0)
+
+    ranked = sorted(keys, key=order)
+    size = -(-len(ranked) // max(1, n))
+    return [ranked[k : k + size] for k in range(0, len(ranked), size)]
 
 
 def sum_stats(deck: Deck, per_group: list[tuple[list[LayerStats], int]]) -> list[LayerStats]:
