@@ -57,3 +57,17 @@ def test_collinear_points_come_back_whole_and_silent(capfd):
     assert len(convex_hull(np.array([[5.0, 5.0], [5.0, 5.0]]))) == 1
     out, err = capfd.readouterr()
     assert out == "" and err == ""
+
+
+def test_unique_rows_is_numpys_unique_over_rows():
+    """``regions.unique_rows`` (the fast path behind line counting) against its plain
+    twin, ``np.unique(a, axis=0)``, on points with many repeats and ties."""
+    from pitchguard.judge.regions import unique_rows
+
+    rng = np.random.default_rng(11)
+    for n in (0, 1, 2, 3, 7, 40):
+        for _ in range(50):
+            a = np.round(
+                rng.choice([-1.5, 0.0, 2.0, 3.25], size=(n, 2)) + rng.integers(0, 2, (n, 2)), 1
+            )
+            np.testing.assert_array_equal(unique_rows(a), np.unique(a.reshape(-1, 2), axis=0))

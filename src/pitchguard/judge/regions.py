@@ -65,7 +65,20 @@ def line_points_of(fs: Sites, normal: np.ndarray, members: np.ndarray) -> np.nda
     n = normal[members]
     w = np.where(np.isfinite(fs.width[members]), fs.width[members], 0.0)
     centre = fs.origin[members] - n * (0.5 * w)[:, None]
-    return np.unique(np.round(centre, 1), axis=0)
+    return unique_rows(np.round(centre, 1))
+
+
+def unique_rows(a: np.ndarray) -> np.ndarray:
+    """``np.unique(a, axis=0)`` of an ``(n, 2)`` float array (sorted by the first
+    column, then the second), without its general machinery: a region's few
+    points are deduplicated per finding."""
+    if len(a) < 2:
+        return a.copy()
+    order = np.lexsort((a[:, 1], a[:, 0]))
+    s = a[order]
+    keep = np.ones(len(s), dtype=bool)
+    keep[1:] = (s[1:, 0] != s[:-1, 0]) | (s[1:, 1] != s[:-1, 1])
+    return s[keep]
 
 
 def count_lines(points: np.ndarray, normal: np.ndarray, grid_nm: float) -> int:
