@@ -121,6 +121,33 @@ def test_small_window_of_a_huge_array_is_cheap_and_exact(tmp_path):
     assert q.bounding_box() == pytest.approx((0.0, 0.0, 9_999_950.0, 9_999_950.0))
 
 
+def test_a_flat_cell_is_counted_by_what_meets_the_window():
+    """A flat layout's top cell holds every shape: the shape count that guards a
+    worker's memory must be what the window holds (a bound of :meth:`query`'s
+    result), not the whole cell, or no tile of a large flat layout could run.
+    Checked against the query itself, in the cell frame and placed turned."""
+    from pitchguard.layout.hierarchy import COUNT_EXACT_ABOVE
+
+    lib = gdstk.Library()
+    flat = lib.new_cell("FLAT")
+    rng = random.Random(3)
+    n = 3 * COUNT_EXACT_ABOVE
+    for _ in range(n):
+        x, y = rng.uniform(0, 100), rng.uniform(0, 100)
+        flat.add(gdstk.rectangle((x, y), (x + 0.2, y + 0.05), layer=7))
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Reference(flat, (200, 0), rotation=math.pi / 2))
+    for tops in ([flat], [top]):
+        q = HierarchyQuery(lib, tops, [(7, 0)], NM_PER_UM)
+        x0, y0, x1, y1 = q.bounding_box()
+        for fx, fy in ((0.0, 0.0), (0.4, 0.7), (0.9, 0.1)):
+            w = (x0 + fx * (x1 - x0), y0 + fy * (y1 - y0))
+            window = (w[0], w[1], w[0] + 10_000.0, w[1] + 10_000.0)
+            got = len(q.query(window)[(7, 0)])
+            assert q.count(window) == got
+            assert 0 < got < n // 20
+
+
 def _shifted(polys, dx, dy):
     return sorted(tuple(np.round(np.sort(p - (dx, dy), axis=0).ravel(), 3)) for p in polys)
 

@@ -18,6 +18,10 @@ from pitchguard.layout.polygons import PolygonSet
 Box = tuple[float, float, float, float]
 
 
+COUNT_EXACT_ABOVE = 4096
+"""Cells with more own polygons are counted per window by their polygons' boxes
+(:meth:`HierarchyQuery.count`); smaller ones whole (an upper bound, cheaper)."""
+
 FEW_INSTANCES = 64
 """Array instances a window may meet below which they are found in plain floats."""
 
@@ -151,6 +155,7 @@ class HierarchyQuery:
             [sum(len(ps) for ps, _ in cd.polys.values()) for cd in self.cells.values()],
             dtype=np.int64,
         )
+        self._by_index = list(self.cells.values())
 
     # -- preparation ---------------------------------------------------------
     def _load(self, cell, by_name) -> None:
@@ -272,8 +277,39 @@ class HierarchyQuery:
             self._placements(name, _Affine.identity(), window, rows)
         if not rows:
             return 0
-        cells = np.concatenate(rows)[:, 0].astype(np.int64)
-        return int(self.own_counts[cells].sum())
+        placed = np.concatenate(rows)
+        cells = placed[:, 0].astype(np.int64)
+        counts = self.own_counts[cells]
+        # A cell with many polygons of its own (a flat layout's top cell) is counted
+        # by the polygons meeting the window, not whole: otherwise every tile of a
+        # flat layout would count all of it.
+        big = np.flatnonzero(counts > COUNT_EXACT_ABOVE)
+        for k in big.tolist():
+            cd = self._by_index[int(cells[k])]
+            m = placed[k, 1:5].reshape(2, 2)
+            counts[k] = self._count_in(cd, m, placed[k, 5:], window)
+        return int(counts.sum())
+
+    @staticmethod
+    def _count_in(cd: _CellData, m: np.ndarray, t: np.ndarray, window: Box) -> int:
+        """The own polygons of ``cd`` placed by ``m`` and ``t`` whose box meets
+        ``window`` (as :meth:`_place` selects them)."""
+        n = 0
+        for ps, bb in cd.polys.values():
+            if not len(ps):
+                continue
+            corners = np.stack([bb[:, [0, 1]], bb[:, [2, 1]], bb[:, [2, 3]], bb[:, [0, 3]]], axis=1)
+            tc = corners @ m.T
+            lo, hi = tc.min(axis=1) + t, tc.max(axis=1) + t
+            n += int(
+                np.count_nonzero(
+                    (lo[:, 0] <= window[2])
+                    & (hi[:, 0] >= window[0])
+                    & (lo[:, 1] <= window[3])
+                    & (hi[:, 1] >= window[1])
+                )
+            )
+        return n
 
     def content_key(self, window: Box, origin: tuple[float, float]) -> bytes:
         """A digest of what :meth:`query` would return for ``window``, relative to ``origin``.
