@@ -9,10 +9,11 @@ from __future__ import annotations
 
 import hashlib
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
+from pitchguard.layout.box_grid import BoxGrid
 from pitchguard.layout.polygons import PolygonSet
 
 Box = tuple[float, float, float, float]
@@ -133,6 +134,7 @@ class _CellData:
     bbox: Box | None = None
     own_bbox: Box | None = None  # of the cell's own polygons (asked-for layers)
     index: int = 0  # the cell's number in content keys
+    grids: dict = field(default_factory=dict)  # layer -> BoxGrid, for many own polygons
 
 
 class HierarchyQuery:
@@ -294,22 +296,12 @@ class HierarchyQuery:
     def _count_in(cd: _CellData, m: np.ndarray, t: np.ndarray, window: Box) -> int:
         """The own polygons of ``cd`` placed by ``m`` and ``t`` whose box meets
         ``window`` (as :meth:`_place` selects them)."""
-        n = 0
-        for ps, bb in cd.polys.values():
-            if not len(ps):
-                continue
-            corners = np.stack([bb[:, [0, 1]], bb[:, [2, 1]], bb[:, [2, 3]], bb[:, [0, 3]]], axis=1)
-            tc = corners @ m.T
-            lo, hi = tc.min(axis=1) + t, tc.max(axis=1) + t
-            n += int(
-                np.count_nonzero(
-                    (lo[:, 0] <= window[2])
-                    & (hi[:, 0] >= window[0])
-                    & (lo[:, 1] <= window[3])
-                    & (hi[:, 1] >= window[1])
-                )
-            )
-        return n
+        shifts = np.asarray(t, dtype=np.float64).reshape(1, 2)
+        return sum(
+            len(_selected(cd, ld, bb, m, shifts, window)[1])
+            for ld, (ps, bb) in cd.polys.items()
+            if len(ps)
+        )
 
     def content_key(self, window: Box, origin: tuple[float, float]) -> bytes:
         """A digest of what :meth:`query` would return for ``window``, relative to ``origin``.
@@ -465,17 +457,7 @@ class HierarchyQuery:
         for ld, (ps, bb) in cd.polys.items():
             if not len(ps):
                 continue
-            corners = np.stack([bb[:, [0, 1]], bb[:, [2, 1]], bb[:, [2, 3]], bb[:, [0, 3]]], axis=1)
-            tc = corners @ m.T
-            lo = tc.min(axis=1)[None, :, :] + shifts[:, None, :]  # (n, polygons, 2)
-            hi = tc.max(axis=1)[None, :, :] + shifts[:, None, :]
-            keep = (
-                (lo[..., 0] <= window[2])
-                & (hi[..., 0] >= window[0])
-                & (lo[..., 1] <= window[3])
-                & (hi[..., 1] >= window[1])
-            )
-            inst, k = np.nonzero(keep)  # instance-major, polygons in order
+            inst, k = _selected(cd, ld, bb, m, shifts, window)  # instance-major, in order
             if not len(k):
                 continue
             rows, starts = ps.rows_of(k)
@@ -556,3 +538,47 @@ class HierarchyQuery:
         j = np.arange(j0, j1 + 1, dtype=np.float64)
         o = (i[:, None, None] * a1 + j[None, :, None] * a2).reshape(-1, 2)
         return o[_moved_box_hits(base, o, window)]
+
+
+GRID_INSTANCES = 8
+"""A cell's bucket grid serves placements of at most this many instances at once
+(more: every box is checked, as for small cells)."""
+
+
+def _selected(cd: _CellData, ld, bb: np.ndarray, m: np.ndarray, shifts: np.ndarray, window):
+    """``(instance, polygon)`` indices, instance-major and in polygon order, of the
+    boxes ``bb`` of layer ``ld`` of ``cd`` whose box placed by ``m`` and each of
+    ``shifts`` meets ``window``.  A cell with many polygons checks only those its
+    bucket grid (:class:`BoxGrid`) puts near the window: the same selection."""
+    if (
+        len(bb) <= COUNT_EXACT_ABOVE
+        or len(shifts) > GRID_INSTANCES
+        or abs(float(np.linalg.det(m))) < 1e-12  # a degenerate placement: no inverse
+    ):
+        return _boxes_meeting(bb, m, shifts, window)
+    grid = cd.grids.get(ld)
+    if grid is None:
+        grid = cd.grids[ld] = BoxGrid(bb)
+    insts, ks = [], []
+    for i, shift in enumerate(shifts):
+        cand = grid.candidates(m, shift, window)
+        _, k = _boxes_meeting(bb[cand], m, shift[None, :], window)
+        insts.append(np.full(len(k), i, dtype=np.int64))
+        ks.append(cand[k])
+    return np.concatenate(insts), np.concatenate(ks)
+
+
+def _boxes_meeting(bb: np.ndarray, m: np.ndarray, shifts: np.ndarray, window):
+    """``np.nonzero`` of the boxes ``bb`` placed by ``m`` and each of ``shifts`` (the
+    box of the placed corners) that meet ``window``: ``(instance, box)``."""
+    corners = np.stack([bb[:, [0, 1]], bb[:, [2, 1]], bb[:, [2, 3]], bb[:, [0, 3]]], axis=1)
+    tc = corners @ m.T
+    lo = tc.min(axis=1)[None, :, :] + shifts[:, None, :]  # (n, polygons, 2)
+    hi = tc.max(axis=1)[None, :, :] + shifts[:, None, :]
+    keep = (
+        (lo[..., 0] <= window[2])
+        & (hi[..., 0] >= window[0])
+        & (lo[..., 1] <= window[3])
+        & (hi[..., 1] >= window[1])
+    )
+    return np.nonzero(keep)
