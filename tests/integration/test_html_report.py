@@ -476,6 +476,22 @@ def test_index_sorts_in_chromium(many, tmp_path):
 
 
 @pytest.mark.slow
+def test_index_sorts_numbers_first_and_dashes_last_in_chromium(demo, tmp_path):
+    """Line ends have no pitch ("–"): sorted by pitch either way, they come last."""
+    out, _, _ = demo
+    for key, widest_first in (("-pitch", True), ("pitch", False)):
+        dom, _ = run_chromium(tmp_path, out.as_uri() + "#sort=" + key, "--dump-dom")
+        index = dom[dom.index('id="index"') :]
+        index = index[: index.index("</table>")]
+        cells = [
+            re.findall(r"<td[^>]*>(.*?)</td>", r)[4] for r in index.split("<tr data-severity=")[1:]
+        ]
+        numbers = [float(c) for c in cells if c != "–"]
+        assert "–" in cells and cells[len(numbers) :] == ["–"] * (len(cells) - len(numbers))
+        assert numbers == sorted(numbers, reverse=widest_first)
+
+
+@pytest.mark.slow
 def test_tiled_scan_report_draws_the_same_layout_clips(demo, tmp_path):
     """A tiled scan keeps no geometry; the report reads the findings' neighbourhoods
     back from the file and must draw what the untiled report draws."""

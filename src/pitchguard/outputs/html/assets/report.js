@@ -67,8 +67,8 @@
     var keyed = rows.map(function (r, i) { return [key(r.cells[col]), i, r]; });
     keyed.sort(function (a, b) {
       var x = a[0], y = b[0], c;
-      if (typeof x === typeof y) { c = x < y ? -1 : x > y ? 1 : 0; }
-      else { c = typeof x === 'number' ? -1 : 1; }  // numbers before text (dashes)
+      if (typeof x !== typeof y) { return typeof x === 'number' ? -1 : 1; }  // dashes last
+      c = x < y ? -1 : x > y ? 1 : 0;
       return (down ? -c : c) || a[1] - b[1];
     });
     var heads = table.tHead.rows[0].cells;
