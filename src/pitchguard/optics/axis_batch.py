@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 
-from pitchguard.optics.cd_search import cd_windows
+from pitchguard.optics.cd_search import Sides, cd_windows, size_between
 from pitchguard.optics.resist import THRESHOLD_SAMPLES
 from pitchguard.optics.resist2d import Metrics2D
 
@@ -75,25 +75,9 @@ def cds(x, profiles, centre_nm, lo_nm, hi_nm, bright, t) -> np.ndarray:
     """``resist.cd_of_thresholds`` for profiles ``(R, n)`` on ``x``, each with its own
     thresholds ``t`` ``(R, T)`` and its own (or a shared) centre and search bounds:
     ``(R, T)``."""
-    r = len(profiles)
-    g = -profiles if bright else profiles
-    tt = -t if bright else t
-    centre, lo_nm, hi_nm = (
-        np.broadcast_to(np.asarray(v, float), (r,)) for v in (centre_nm, lo_nm, hi_nm)
-    )
-    c = np.abs(x[None, :] - centre[:, None]).argmin(axis=1)
-    lo = np.minimum(np.maximum(np.searchsorted(x, lo_nm, side="left"), 0), c)
-    hi = np.maximum(np.minimum(np.searchsorted(x, hi_nm, side="right") - 1, len(x) - 1), c)
-    rows = np.arange(r)[:, None]
-    quiet = -np.inf  # padding: never reaches a threshold, so no crossing there
-    out = []
-    for n_side, step, beyond in ((c - lo + 1, -1, -np.inf), (hi - c + 1, 1, np.inf)):
-        width = int(n_side.max(initial=1))
-        i = np.arange(width)[None, :]
-        at = np.clip(c[:, None] + step * i, 0, len(x) - 1)
-        part = np.where(i < n_side[:, None], g[rows, at], quiet)
-        out.append(_side(part, x[at], n_side, tt, beyond))
-    left, right = out
+    sides = Sides(x, profiles, centre_nm, lo_nm, hi_nm, bright)
+    tt = sides.sign * t
+    left, right = (_side(part, px, n, tt, beyond) for part, px, n, _, beyond in sides.sides)
     cd = np.where(np.isnan(right - left), 0.0, right - left)
     return np.where(np.isinf(left) | np.isinf(right), np.inf, cd)
 
@@ -104,20 +88,9 @@ def size_thresholds(t: np.ndarray, cd: np.ndarray, target: np.ndarray) -> np.nda
     finite = np.isfinite(diff)
     best = np.where(finite, np.abs(diff), np.inf).argmin(axis=1)
     rows = np.arange(len(t))
-    out = t[rows, best].copy()
-    done = np.zeros(len(t), dtype=bool)
     n = t.shape[1]
-    for k in (best - 1, best):  # the sign change just below the best sample first
-        valid = (k >= 0) & (k < n - 1) & ~done
-        kc = np.clip(k, 0, n - 2)
-        d0, d1 = diff[rows, kc], diff[rows, kc + 1]
-        with np.errstate(invalid="ignore"):
-            hit = valid & np.isfinite(d0) & np.isfinite(d1) & (d0 * d1 <= 0) & (d0 != d1)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            val = t[rows, kc] + (t[rows, kc + 1] - t[rows, kc]) * (-d0) / (d1 - d0)
-        out = np.where(hit, val, out)
-        done |= hit
-    return np.where(finite.any(axis=1), out, np.nan)
+    near = [diff[rows, np.clip(best + k, 0, n - 1)] for k in (-1, 0, 1)]
+    return np.where(finite.any(axis=1), size_between(t, best, *near), np.nan)
 
 
 def windows(t: np.ndarray, ok: np.ndarray, t_size: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

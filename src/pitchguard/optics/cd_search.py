@@ -19,9 +19,10 @@ from __future__ import annotations
 import numpy as np
 
 
-class _Sides:
-    """Both halves of each profile, walked out from its centre as ``axis_batch.cds``
-    lays them out, with their running maxima (``-profile`` for bright features)."""
+class Sides:
+    """Both halves of each profile, walked out from its centre (``-profile`` for bright
+    features), with their running maxima: per side ``(part, x, samples, run,
+    beyond)``, the rows padded with -inf past their own samples."""
 
     def __init__(self, x, profiles, centre_nm, lo_nm, hi_nm, bright):
         r = len(profiles)
@@ -85,7 +86,7 @@ def cd_windows(x, profiles, centre_nm, lo_nm, hi_nm, bright, t, target, tol):
     (``axis_batch.size_thresholds`` of the CDs at thresholds ``t`` ``(R, T)``,
     not masked where no sample is in tolerance) and the first and last sample
     of the run within ``tol * target`` (``axis_batch.windows``; nan for none)."""
-    sides = _Sides(x, profiles, centre_nm, lo_nm, hi_nm, bright)
+    sides = Sides(x, profiles, centre_nm, lo_nm, hi_nm, bright)
     r, n = t.shape
     rows = np.arange(r)
     target = np.asarray(target, dtype=np.float64)
@@ -170,9 +171,20 @@ def cd_windows(x, profiles, centre_nm, lo_nm, hi_nm, bright, t, target, tol):
         cd = sides.cd(rows, t[rows, jc])
         return np.where(np.isfinite(cd), cd - target, np.nan)
 
-    d_m, d_0, d_p = dj(best - 1), dj(best), dj(best + 1)
+    out = size_between(t, best, dj(best - 1), dj(best), dj(best + 1))
+    size = np.where(np.isfinite(np.minimum(a, b)), out, np.nan)
+    return size, low, high
+
+
+def size_between(t, best, d_m, d_0, d_p) -> np.ndarray:
+    """The threshold printing on size per row, from the sample ``best`` nearest to size
+    and the CD's difference from size (nan: unbounded) at ``best - 1``, ``best`` and
+    ``best + 1``: interpolated at the sign change just below ``best``, else just
+    above, else ``t[best]`` (``resist2d._size_threshold``)."""
+    rows = np.arange(len(t))
+    n = t.shape[1]
     out = t[rows, best].copy()
-    done = np.zeros(r, dtype=bool)
+    done = np.zeros(len(t), dtype=bool)
     for k, d0, d1 in ((best - 1, d_m, d_0), (best, d_0, d_p)):
         valid = (k >= 0) & (k < n - 1) & ~done
         kc = np.clip(k, 0, n - 2)
@@ -182,5 +194,4 @@ def cd_windows(x, profiles, centre_nm, lo_nm, hi_nm, bright, t, target, tol):
             val = t[rows, kc] + (t[rows, kc + 1] - t[rows, kc]) * (-d0) / (d1 - d0)
         out = np.where(hit, val, out)
         done |= hit
-    size = np.where(np.isfinite(np.minimum(a, b)), out, np.nan)
-    return size, low, high
+    return out

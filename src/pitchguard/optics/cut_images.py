@@ -251,6 +251,19 @@ def measure_one(
     return out  # type: ignore[return-value]
 
 
+def _grating_frame(rule: LayerRule, pitch_nm: float) -> tuple:
+    """What imaging one period of a grating of the layer needs: ``(exposure, n_max,
+    samples, x centred on the feature, FFT order to x, feature and background
+    amplitudes)``."""
+    e = rule.exposure
+    optics = Optics.of(e)
+    n_max = n_orders(pitch_nm, optics, e.sigma_max)
+    samples = samples_for(pitch_nm, n_max, optics)
+    x, order = _centred_grid(pitch_nm, samples)
+    feat, bg = mask_amplitudes(e, rule.field)
+    return e, n_max, samples, x, order, feat, bg
+
+
 def grating_metrics(
     rule: LayerRule,
     pitch_nm: float,
@@ -263,12 +276,7 @@ def grating_metrics(
     Returns ``(metrics, x_nm, intensity)`` with ``x = 0`` at the centre of the
     drawn feature.  ``angle_deg`` is the pitch direction (0: lines along y).
     """
-    e = rule.exposure
-    optics = Optics.of(e)
-    n_max = n_orders(pitch_nm, optics, e.sigma_max)
-    samples = samples_for(pitch_nm, n_max, optics)
-    x, order = _centred_grid(pitch_nm, samples)
-    feat, bg = mask_amplitudes(e, rule.field)
+    e, n_max, samples, x, order, feat, bg = _grating_frame(rule, pitch_nm)
     spec = grating_spectrum(pitch_nm, cd_nm, feat, bg, n_max)
     focus = np.array(focus_nm if focus_nm is not None else rule.focus_nm)
     best = int(np.argmin(np.abs(focus)))
@@ -307,12 +315,7 @@ def grating_metrics_batch(
     cds = np.asarray(cds_nm, dtype=np.float64).reshape(-1)
     if len(cds) == 0:
         return []
-    e = rule.exposure
-    optics = Optics.of(e)
-    n_max = n_orders(pitch_nm, optics, e.sigma_max)
-    samples = samples_for(pitch_nm, n_max, optics)
-    x, order = _centred_grid(pitch_nm, samples)
-    feat, bg = mask_amplitudes(e, rule.field)
+    e, n_max, samples, x, order, feat, bg = _grating_frame(rule, pitch_nm)
     h = cds / 2.0
     edges = np.stack([np.full_like(h, -pitch_nm / 2), -h, h, np.full_like(h, pitch_nm / 2)], axis=1)
     values = np.broadcast_to(np.array([bg, feat, bg]), (len(cds), 3))
