@@ -63,6 +63,7 @@ def _judge_exact(requests: list[tuple]) -> None:
     from pitchguard.optics.cut_images import grating_metrics_batch
 
     groups: dict[tuple, list[tuple]] = defaultdict(list)
+    orders: dict[tuple, object] = {}  # group -> its order and k1 verdict
     for key in dict.fromkeys(requests):
         if key in hints._exact_passes:
             continue
@@ -71,9 +72,11 @@ def _judge_exact(requests: list[tuple]) -> None:
         if res is False or not rule.image_checks:
             hints._keep_exact(key, res is not False)
         else:
-            groups[(rule, pitch, angle % 180.0)].append(key)
+            group = (rule, pitch, angle % 180.0)
+            groups[group].append(key)
+            orders[group] = res
     for (rule, pitch, angle), keys in groups.items():
-        res = hints._exact_orders_fail(rule, pitch, angle)
+        res = orders[(rule, pitch, angle)]
         ms = grating_metrics_batch(rule, pitch, [k[1] for k in keys], angle)
         for key, m in zip(keys, ms, strict=True):
             hints._keep_exact(key, not violations(rule, res, m, pitch))

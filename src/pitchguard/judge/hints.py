@@ -74,7 +74,7 @@ def give_grating_passes(rows: list[JudgedGrating]) -> None:
         _passes_given[row.key] = row.passes
 
 
-_rule_values_of = lru_cache(maxsize=64)(lambda rule: _rule_values(rule))
+_rule_values_of = lru_cache(maxsize=64)(_rule_values)
 
 
 def _grating_passes(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
@@ -86,12 +86,17 @@ def _grating_passes(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quan
     return given
 
 
+def _put(store: dict, key, value, limit: int = 65536):
+    """``store[key] = value``, the store emptied first when full; returns ``value``."""
+    if len(store) >= limit:
+        store.clear()
+    store[key] = value
+    return value
+
+
 def _keep_grating(key: tuple, passes: bool) -> bool:
-    if len(_passes_given) >= 65536:
-        _passes_given.clear()
-    _passes_given[key] = passes
     _passes_fresh.append(JudgedGrating(*key, passes))
-    return passes
+    return _put(_passes_given, key, passes)
 
 
 def forget_grating_passes() -> None:
@@ -170,9 +175,7 @@ def _exact_grating_passes(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_
 
 
 def _keep_exact(key: tuple, passes: bool) -> None:
-    if len(_exact_passes) >= 65536:
-        _exact_passes.clear()
-    _exact_passes[key] = passes
+    _put(_exact_passes, key, passes)
 
 
 @lru_cache(maxsize=65536)
@@ -283,10 +286,7 @@ _texts: dict[tuple, str] = {}
 
 
 def keep_text(rule: LayerRule, key: tuple, text: str) -> str:
-    if len(_texts) >= 65536:
-        _texts.clear()
-    _texts[(rule, key)] = text
-    return text
+    return _put(_texts, (rule, key), text)
 
 
 def hint_steps(rule: LayerRule, key: tuple):
