@@ -42,7 +42,6 @@ def rule():
 
 def _forget():
     hints.forget_grating_passes()
-    hints._texts.clear()
     cut_images.clear_cut_cache()
 
 

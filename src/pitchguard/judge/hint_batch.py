@@ -17,7 +17,7 @@ from __future__ import annotations
 from collections import defaultdict
 
 from pitchguard.deck import LayerRule
-from pitchguard.judge import hints
+from pitchguard.judge import hint_store, hints
 from pitchguard.judge.checks import violations
 from pitchguard.optics.orders import analyse_pitch
 
@@ -27,7 +27,7 @@ def hint_texts(items: list[tuple[LayerRule, tuple]]) -> list[str]:
     out: list[str | None] = [None] * len(items)
     live: dict[int, tuple] = {}  # item -> (generator, its pending request)
     for i, (rule, key) in enumerate(items):
-        text = hints._texts.get((rule, key))
+        text = hint_store.texts.get((rule, key))
         if text is not None:
             out[i] = text
             continue
@@ -45,7 +45,7 @@ def _step(i, steps, verdict, live, out, items) -> None:
         request = next(steps) if verdict is None else steps.send(verdict)
     except StopIteration as done:
         live.pop(i, None)
-        out[i] = hints.keep_text(*items[i], done.value)
+        out[i] = hint_store.texts.put(items[i], done.value)
         return
     live[i] = (steps, request)
 
@@ -65,12 +65,12 @@ def _judge_exact(requests: list[tuple]) -> None:
     groups: dict[tuple, list[tuple]] = defaultdict(list)
     orders: dict[tuple, object] = {}  # group -> its order and k1 verdict
     for key in dict.fromkeys(requests):
-        if key in hints._exact_passes:
+        if key in hint_store.exact:
             continue
         rule, cd, pitch, angle = key
-        res = hints._exact_orders_fail(rule, pitch, angle)
+        res = hints.exact_orders_verdict(rule, pitch, angle)
         if res is False or not rule.image_checks:
-            hints._keep_exact(key, res is not False)
+            hint_store.exact.put(key, res is not False)
         else:
             group = (rule, pitch, angle % 180.0)
             groups[group].append(key)
@@ -79,7 +79,7 @@ def _judge_exact(requests: list[tuple]) -> None:
         res = orders[(rule, pitch, angle)]
         ms = grating_metrics_batch(rule, pitch, [k[1] for k in keys], angle)
         for key, m in zip(keys, ms, strict=True):
-            hints._keep_exact(key, not violations(rule, res, m, pitch))
+            hint_store.exact.put(key, not violations(rule, res, m, pitch))
 
 
 def _judge_grid(requests: list[tuple]) -> None:
@@ -89,23 +89,22 @@ def _judge_grid(requests: list[tuple]) -> None:
 
     groups: dict[tuple, list[int]] = defaultdict(list)
     for rule, cd_q, pitch_q, angle_q, quantum in dict.fromkeys(requests):
-        key = (hints._rule_values_of(rule), cd_q, pitch_q, angle_q, quantum)
-        if key in hints._passes_given:
+        key = hint_store.grid_key(rule, cd_q, pitch_q, angle_q, quantum)
+        if key in hint_store.grid:
             continue
-        if not hints._grating_orders_ok(rule, pitch_q, angle_q, quantum):
-            hints._keep_grating(key, False)
+        if not hints.grid_orders_pass(rule, pitch_q, angle_q, quantum):
+            hint_store.grid.put(key, False)
         elif not rule.image_checks:
-            hints._keep_grating(key, True)
+            hint_store.grid.put(key, True)
         else:
             groups[(rule, pitch_q, angle_q, quantum)].append(cd_q)
     for (rule, pitch_q, angle_q, quantum), cds_q in groups.items():
         pitch, angle = pitch_q * quantum, angle_q / 10.0
         res = analyse_pitch(rule.exposure, pitch, (angle - 90.0) % 180.0)
         ms = grating_metrics_batch(rule, pitch, [c * quantum for c in cds_q], angle)
-        values = hints._rule_values_of(rule)
         for cd_q, m in zip(cds_q, ms, strict=True):
-            key = (values, cd_q, pitch_q, angle_q, quantum)
-            hints._keep_grating(key, not violations(rule, res, m, pitch))
+            key = hint_store.grid_key(rule, cd_q, pitch_q, angle_q, quantum)
+            hint_store.grid.put(key, not violations(rule, res, m, pitch))
 
 
 def _judge_cuts(requests: list[tuple]) -> dict[tuple, bool]:
@@ -118,7 +117,7 @@ def _judge_cuts(requests: list[tuple]) -> dict[tuple, bool]:
         groups[(req[0], req[5])].append(req)
     out: dict[tuple, bool] = {}
     for (rule, scale), reqs in groups.items():
-        cuts = [hints._respaced_cut(real, cd, pitch, scale) for _, real, cd, pitch, _, _ in reqs]
+        cuts = [hints.respaced_cut(real, cd, pitch, scale) for _, real, cd, pitch, _, _ in reqs]
         ms = measure_cuts(cuts, [r[1].source_angle for r in reqs], rule, scale)
         for req, m in zip(reqs, ms, strict=True):
             _, _, _, pitch, angle, _ = req

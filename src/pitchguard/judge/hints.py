@@ -8,7 +8,9 @@ from functools import lru_cache
 from typing import NamedTuple
 
 from pitchguard.deck import LayerRule
+from pitchguard.judge import hint_store
 from pitchguard.judge.checks import Violation, violations
+from pitchguard.judge.hint_store import JudgedGrating
 from pitchguard.optics.orders import analyse_pitch
 
 HINT_RANGE = (0.6, 2.0)
@@ -24,92 +26,44 @@ HINT_CUTS = 8
 
 
 @lru_cache(maxsize=4096)
-def _grating_orders_ok(rule: LayerRule, pitch_q: int, angle_q: int, quantum: float) -> bool:
+def grid_orders_pass(rule: LayerRule, pitch_q: int, angle_q: int, quantum: float) -> bool:
+    """True when a grating of pitch ``pitch_q * quantum`` (wafer nm) at angle
+    ``angle_q / 10`` degrees passes the order and k1 rules."""
     pitch, angle = pitch_q * quantum, angle_q / 10.0
     res = analyse_pitch(rule.exposure, pitch, (angle - 90.0) % 180.0)
     return not violations(rule, res, None, pitch)
 
 
-_passes_given: dict[tuple, bool] = {}  # (rule values, cd_q, pitch_q, angle_q, quantum) -> passes
-
-
-_passes_fresh: list[JudgedGrating] = []
-
-
-def _rule_values(rule: LayerRule) -> tuple:
-    """A layer rule by value (equal for equal exposures and limits, in any process)."""
-    return tuple(getattr(rule, k) for k in type(rule).__slots__)
-
-
-class JudgedGrating(NamedTuple):
-    """An ideal grating judged for a hint, as passed between processes: keyed
-    by the rule's values and the grating on the hint search's grid."""
-
-    rule_values: tuple
-    cd_q: int
-    pitch_q: int
-    angle_q: int
-    quantum: float
-    passes: bool
-
-    @property
-    def key(self) -> tuple:
-        return (self.rule_values, self.cd_q, self.pitch_q, self.angle_q, self.quantum)
-
-
 def take_grating_passes() -> list[JudgedGrating]:
     """Ideal gratings judged here since the last call, to share with other
     processes (see :func:`give_grating_passes`)."""
-    rows = list(_passes_fresh)
-    _passes_fresh.clear()
-    return rows
+    return hint_store.grid.take()
 
 
 def give_grating_passes(rows: list[JudgedGrating]) -> None:
     """Take gratings another process judged (:func:`take_grating_passes`); a row
     serves only a rule equal to the one it was judged under."""
-    if len(_passes_given) + len(rows) > 65536:
-        _passes_given.clear()
-    for row in rows:
-        _passes_given[row.key] = row.passes
+    hint_store.grid.give(rows)
 
 
-_rule_values_of = lru_cache(maxsize=64)(_rule_values)
+def forget_grating_passes() -> None:
+    """Drop every judged grating and hint text this process holds."""
+    hint_store.forget()
 
 
 def _grating_passes(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
     """True when an ideal grating of this CD and pitch (wafer nm) breaks no limit."""
-    key = (_rule_values_of(rule), cd_q, pitch_q, angle_q, quantum)
-    given = _passes_given.get(key)
+    key = hint_store.grid_key(rule, cd_q, pitch_q, angle_q, quantum)
+    given = hint_store.grid.get(key)
     if given is None:
-        given = _keep_grating(key, _judge_grating(rule, cd_q, pitch_q, angle_q, quantum))
+        given = hint_store.grid.put(key, _judge_grating(rule, cd_q, pitch_q, angle_q, quantum))
     return given
-
-
-def _put(store: dict, key, value, limit: int = 65536):
-    """``store[key] = value``, the store emptied first when full; returns ``value``."""
-    if len(store) >= limit:
-        store.clear()
-    store[key] = value
-    return value
-
-
-def _keep_grating(key: tuple, passes: bool) -> bool:
-    _passes_fresh.append(JudgedGrating(*key, passes))
-    return _put(_passes_given, key, passes)
-
-
-def forget_grating_passes() -> None:
-    """Drop every judged grating this process holds, its own and those given to it."""
-    _passes_given.clear()
-    _passes_fresh.clear()
-    _exact_passes.clear()
 
 
 def _judge_grating(rule: LayerRule, cd_q: int, pitch_q: int, angle_q: int, quantum: float):
     from pitchguard.optics.cut_images import grating_metrics
 
-    if not _grating_orders_ok(rule, pitch_q, angle_q, quantum):
+    if not grid_orders_pass(rule, pitch_q, angle_q, quantum):
         return False
     if not rule.image_checks:
         return True
@@ -129,7 +83,7 @@ class RealCut(NamedTuple):
     tol: float  # spaces within this of ``space`` are the flagged ones
 
 
-def _respaced_cut(real: RealCut, cd_w: float, pitch_w: float, scale: float):
+def respaced_cut(real: RealCut, cd_w: float, pitch_w: float, scale: float):
     """``real`` with its flagged spaces set to ``pitch_w - cd_w`` (wafer nm)."""
     from pitchguard.geometry.cuts import Cut, respaced
 
@@ -144,15 +98,12 @@ def _cut_passes(
     from pitchguard.optics.cut_images import measure_cuts
 
     res = analyse_pitch(rule.exposure, pitch_w, (angle - 90.0) % 180.0)
-    cut = _respaced_cut(real, cd_w, pitch_w, scale)
+    cut = respaced_cut(real, cd_w, pitch_w, scale)
     (m,) = measure_cuts([cut], [real.source_angle], rule, scale)
     return not violations(rule, res, m, pitch_w)
 
 
-_exact_passes: dict[tuple, bool] = {}  # (rule, cd, pitch, angle) -> passes
-
-
-def _exact_orders_fail(rule: LayerRule, pitch_nm: float, angle_deg: float):
+def exact_orders_verdict(rule: LayerRule, pitch_nm: float, angle_deg: float):
     """The order and k1 verdict of an ideal grating: False when it breaks a limit
     already, else its :class:`OrderResult` (images still to be judged)."""
     res = analyse_pitch(rule.exposure, pitch_nm, (angle_deg - 90.0) % 180.0)
@@ -164,18 +115,15 @@ def _exact_grating_passes(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_
     from pitchguard.optics.cut_images import grating_metrics
 
     key = (rule, cd_nm, pitch_nm, angle_deg)
-    if key not in _exact_passes:
-        res = _exact_orders_fail(rule, pitch_nm, angle_deg)
+    passes = hint_store.exact.get(key)
+    if passes is None:
+        res = exact_orders_verdict(rule, pitch_nm, angle_deg)
         passes = res is not False
         if passes and rule.image_checks:
             m, _, _ = grating_metrics(rule, pitch_nm, cd_nm, angle_deg % 180.0)
             passes = not violations(rule, res, m, pitch_nm)
-        _keep_exact(key, passes)
-    return _exact_passes[key]
-
-
-def _keep_exact(key: tuple, passes: bool) -> None:
-    _put(_exact_passes, key, passes)
+        hint_store.exact.put(key, passes)
+    return passes
 
 
 @lru_cache(maxsize=65536)
@@ -190,7 +138,7 @@ def _candidates(rule: LayerRule, cd_nm: float, pitch_nm: float, angle_deg: float
     here = pitch_nm / quantum
     out = []
     for q in sorted(range(lo, hi + 1), key=lambda q: (abs(q - here), q)):
-        if _grating_orders_ok(rule, q, angle_q, quantum):
+        if grid_orders_pass(rule, q, angle_q, quantum):
             out.append(q)
             if len(out) >= HINT_IMAGES:
                 break
@@ -276,17 +224,10 @@ def hint_key(
 
 def hint_text(rule: LayerRule, key: tuple) -> str:
     """What to change, in drawn nm (kept per process: hints recur)."""
-    text = _texts.get((rule, key))
+    text = hint_store.texts.get((rule, key))
     if text is None:
-        text = keep_text(rule, key, drive(hint_steps(rule, key)))
+        text = hint_store.texts.put((rule, key), drive(hint_steps(rule, key)))
     return text
-
-
-_texts: dict[tuple, str] = {}
-
-
-def keep_text(rule: LayerRule, key: tuple, text: str) -> str:
-    return _put(_texts, (rule, key), text)
 
 
 def hint_steps(rule: LayerRule, key: tuple):
