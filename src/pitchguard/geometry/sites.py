@@ -7,12 +7,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from pitchguard.geometry.complex_edges import resolve_complex_arrays
 from pitchguard.geometry.edge_frames import (
     EdgeFrames,
     edge_candidates,
     nearest_if_simple,
     pick_nearest,
-    resolve_complex,
 )
 from pitchguard.geometry.features import Edges
 from pitchguard.geometry.spatial import QUERY_CHUNK
@@ -199,7 +199,8 @@ def find_sites(
     w1 = min(reach_nm, first_window_nm if first_window_nm else reach_nm / 3.0)
 
     parts: list[Sites] = []
-    complex_rows: dict[int, list] = {}
+    complex_cands: list[tuple] = []  # per chunk: (i, side, lo, hi, dist, facing, j)
+    complex_edges: list[np.ndarray] = []
 
     def settled_sites(ids, width, space) -> None:
         parts.append(
@@ -238,39 +239,38 @@ def find_sites(
         hard = np.zeros(len(length), dtype=bool)
         hard[rest[~simple]] = True
         sel = hard[i]
-        for row in zip(
-            i[sel].tolist(),
-            side[sel].tolist(),
-            lo[sel].tolist(),
-            hi[sel].tolist(),
-            dist[sel].tolist(),
-            facing[sel].tolist(),
-            j[sel].tolist(),
-            strict=True,
-        ):
-            complex_rows.setdefault(row[0], []).append(row[1:])
-        for e in rest[~simple].tolist():
-            complex_rows.setdefault(e, [])
+        complex_cands.append((i[sel], side[sel], lo[sel], hi[sel], dist[sel], facing[sel], j[sel]))
+        # Edges in order of their first candidate, then those with none.
+        firsts = np.unique(i[sel], return_index=True)
+        with_cands = firsts[0][np.argsort(firsts[1], kind="stable")]
+        complex_edges.append(with_cands)
+        complex_edges.append(np.setdiff1d(rest[~simple], with_cands, assume_unique=True))
 
-    pieces, flat = resolve_complex(complex_rows, length, min_run_nm, eps)
-    if region is not None and flat:
-        e2 = np.array([p[0] for p in flat], dtype=np.int64)
-        p0 = a[e2] + d[e2] * np.array([p[1] for p in flat])[:, None]
-        p1 = a[e2] + d[e2] * np.array([p[2] for p in flat])[:, None]
-        flat = np.flatnonzero(in_region(_lowest_left(p0, p1), region))
-    stats.pieces_2d = len(flat)
-    if pieces:
-        e_arr = np.array([p[0] for p in pieces], dtype=np.int64)
+    cands = tuple(np.concatenate(c) for c in zip(*complex_cands, strict=True))
+    pieces, flat = (
+        resolve_complex_arrays(np.concatenate(complex_edges), length, cands, min_run_nm, eps)
+        if complex_edges
+        else ((np.zeros(0, np.int64),) * 5, (np.zeros(0, np.int64),) * 3)
+    )
+    n_flat = len(flat[0])
+    if region is not None and n_flat:
+        e2, f0, f1 = flat
+        p0 = a[e2] + d[e2] * f0[:, None]
+        p1 = a[e2] + d[e2] * f1[:, None]
+        n_flat = int(in_region(_lowest_left(p0, p1), region).sum())
+    stats.pieces_2d = n_flat
+    if len(pieces[0]):
+        e_arr, p0, p1, pw, ps = pieces
         parts.append(
             Sites(
                 edge=e_arr,
                 feature=edges.feature[e_arr],
-                u0=np.array([p[1] for p in pieces]),
-                u1=np.array([p[2] for p in pieces]),
+                u0=p0,
+                u1=p1,
                 origin=a[e_arr],
                 direction=d[e_arr],
-                width=np.array([p[3] for p in pieces]),
-                space=np.array([p[4] for p in pieces]),
+                width=pw,
+                space=ps,
             )
         )
     sites = Sites.concat(parts) if parts else Sites.empty()
