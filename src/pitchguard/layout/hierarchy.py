@@ -32,19 +32,19 @@ PLACEMENT_MEMO_ENTRIES = 100_000
 
 
 @dataclass(frozen=True)
-class _Affine:
+class Affine:
     """p' = m @ p + t (2x2 matrix, translation)."""
 
     m: np.ndarray
     t: np.ndarray
 
     @classmethod
-    def identity(cls) -> _Affine:
+    def identity(cls) -> Affine:
         return cls(np.eye(2), np.zeros(2))
 
-    def then(self, inner: _Affine) -> _Affine:
+    def then(self, inner: Affine) -> Affine:
         """The transform of ``inner`` followed by this one."""
-        return _Affine(self.m @ inner.m, self.m @ inner.t + self.t)
+        return Affine(self.m @ inner.m, self.m @ inner.t + self.t)
 
     def box(self, b: Box) -> Box:
         """Bounding box of the transformed box ``b`` (plain floats: called per tile)."""
@@ -66,10 +66,10 @@ def _matrix(rotation: float, magnification: float, x_reflection: bool) -> np.nda
     return m
 
 
-def _ref_affine(ref, scale: float) -> _Affine:
+def _ref_affine(ref, scale: float) -> Affine:
     """Reference placement (without repetition) in nm."""
     m = _matrix(ref.rotation, ref.magnification, ref.x_reflection)
-    return _Affine(m, np.asarray(ref.origin, dtype=np.float64) * scale)
+    return Affine(m, np.asarray(ref.origin, dtype=np.float64) * scale)
 
 
 def _canonical(a: np.ndarray) -> bytes:
@@ -130,7 +130,7 @@ this many, are kept as one reference with a list of offsets."""
 @dataclass
 class _CellData:
     polys: dict  # (layer, datatype) -> (PolygonSet, bboxes (n, 4))
-    refs: list  # (child name, _Affine, offsets kind, data)
+    refs: list  # (child name, Affine, offsets kind, data)
     bbox: Box | None = None
     own_bbox: Box | None = None  # of the cell's own polygons (asked-for layers)
     index: int = 0  # the cell's number in content keys
@@ -212,9 +212,9 @@ class HierarchyQuery:
             m = _matrix(*orientation)
             t = np.array(origins, dtype=np.float64).reshape(-1, 2) * self.scale
             if len(t) < GROUP_SINGLE_REFS:
-                refs.extend((child, _Affine(m, o), ("one", None)) for o in t)
+                refs.extend((child, Affine(m, o), ("one", None)) for o in t)
             else:
-                refs.append((child, _Affine(m, np.zeros(2)), ("list", _OffsetList(t))))
+                refs.append((child, Affine(m, np.zeros(2)), ("list", _OffsetList(t))))
         own = [bb for _, bb in polys.values() if len(bb)]
         own_bbox = None
         if own:
@@ -267,7 +267,7 @@ class HierarchyQuery:
         """Polygons (nm) whose bounding box intersects ``window`` (nm), per layer."""
         out: dict[tuple[int, int], list[PolygonSet]] = {ld: [] for ld in self.layers}
         for name in self.tops:
-            self._visit(name, _Affine.identity(), window, out)
+            self._visit(name, Affine.identity(), window, out)
         return {ld: PolygonSet.joined(v) for ld, v in out.items()}
 
     def count(self, window: Box) -> int:
@@ -276,7 +276,7 @@ class HierarchyQuery:
         polygon is touched)."""
         rows: list[np.ndarray] = []
         for name in self.tops:
-            self._placements(name, _Affine.identity(), window, rows)
+            self._placements(name, Affine.identity(), window, rows)
         if not rows:
             return 0
         placed = np.concatenate(rows)
@@ -323,7 +323,7 @@ class HierarchyQuery:
         rows: list[np.ndarray] = []
         tokens: list[tuple[bytes, np.ndarray, np.ndarray]] = []
         for name in self.tops:
-            self._placements(name, _Affine.identity(), window, rows, tokens)
+            self._placements(name, Affine.identity(), window, rows, tokens)
         size = np.round(np.array([window[2] - window[0], window[3] - window[1]]), 3).tobytes()
         ox, oy = float(origin[0]), float(origin[1])
         mine = np.concatenate(rows) if rows else np.empty((0, 7))
@@ -355,7 +355,7 @@ class HierarchyQuery:
         self._keys[quick] = key = h.digest()
         return key
 
-    def _placements(self, name: str, aff: _Affine, window: Box, rows, tokens=None) -> None:
+    def _placements(self, name: str, aff: Affine, window: Box, rows, tokens=None) -> None:
         """Rows (cell, m00, m01, m10, m11, x, y): placements whose polygons may meet ``window``.
 
         With ``tokens``, a placed cell that has children enters it as ``(digest
@@ -367,7 +367,7 @@ class HierarchyQuery:
             return
         if cd.own_bbox is not None and _hits(aff.box(cd.own_bbox), window):
             rows.append(np.array([[cd.index, *aff.m.ravel(), *aff.t]]))
-        for child, ccd, placed, o in self._children_in(cd, aff, window):
+        for child, ccd, placed, o in self.children_in(cd, aff, window):
             if not ccd.refs:  # a leaf: its placements at once
                 if ccd.own_bbox is None:
                     continue
@@ -410,14 +410,14 @@ class HierarchyQuery:
             if len(self._memo) >= PLACEMENT_MEMO_ENTRIES:
                 self._memo.clear()
             found: list[np.ndarray] = []
-            self._placements(name, _Affine(m, np.zeros(2)), rel, found)
+            self._placements(name, Affine(m, np.zeros(2)), rel, found)
             entry = [np.concatenate(found) if found else np.empty((0, 7)), None]
             self._memo[key] = entry
         if digest and entry[1] is None:
             entry[1] = hashlib.blake2b(_canonical(entry[0].copy()), digest_size=20).digest()
         return entry[0], entry[1]
 
-    def _children_in(self, cd: _CellData, aff: _Affine, window: Box):
+    def children_in(self, cd: _CellData, aff: Affine, window: Box):
         """``(child name, its data, its placement, instance offsets)`` of each
         reference of ``cd`` (placed by ``aff``) with instances near ``window``."""
         for child, ref_aff, offs in cd.refs:
@@ -429,17 +429,28 @@ class HierarchyQuery:
             if len(o):
                 yield child, ccd, placed, o
 
-    def _visit(self, name: str, aff: _Affine, window: Box, out) -> None:
+    def meets(self, name: str, aff: Affine, window: Box, ld, own_only: bool = False) -> bool:
+        """Whether a polygon box of layer ``ld`` of cell ``name`` placed by ``aff`` (its
+        own only, or with everything below it) meets ``window``."""
+        cd = self.cells[name]
+        if own_only:
+            bb = cd.polys[ld][1] if ld in cd.polys else np.zeros((0, 4))
+            return bool(len(bb)) and bool(len(_selected(cd, ld, bb, aff.m, aff.t[None], window)[1]))
+        out: dict = {k: [] for k in self.layers}
+        self._visit(name, aff, window, out)
+        return any(len(ps) for ps in out.get(ld, ()))
+
+    def _visit(self, name: str, aff: Affine, window: Box, out) -> None:
         cd = self.cells[name]
         if cd.bbox is None or not _hits(aff.box(cd.bbox), window):
             return
         self._place(cd, aff.m, aff.t, np.zeros((1, 2)), window, out)
-        for child, ccd, placed, o in self._children_in(cd, aff, window):
+        for child, ccd, placed, o in self.children_in(cd, aff, window):
             if not ccd.refs:  # a leaf: all its instances at once
                 self._place(ccd, placed.m, placed.t, o, window, out)
                 continue
             for off in o:
-                self._visit(child, _Affine(placed.m, placed.t + off), window, out)
+                self._visit(child, Affine(placed.m, placed.t + off), window, out)
 
     @staticmethod
     def _place(
@@ -466,7 +477,7 @@ class HierarchyQuery:
             out[ld].append(PolygonSet(pts, starts))
 
     @staticmethod
-    def _offsets_in(offs, aff: _Affine, base: np.ndarray, window: Box):
+    def _offsets_in(offs, aff: Affine, base: np.ndarray, window: Box):
         """Instance offsets (in the query frame) whose box intersects the window."""
         kind, data = offs
         if kind == "one":

@@ -1,0 +1,121 @@
+"""The cell a finding belongs to: the deepest placed cell that holds its window alone.
+
+A finding's window is its region grown by the layer's interaction range:
+everything that can change its image.  Walking down from the top cell, a
+placement of a child cell *holds* the window when
+
+* its box contains the window, and it is the only placement of the level
+  whose box does;
+* no polygon of the finding's layer from anywhere else meets the window:
+  not the parent's own, not another placement's (overlapping placements).
+
+The walk stops at the first level where no placement holds the window; the
+finding then belongs to the cell reached (the top cell when the region spans
+cells, or neighbours from other cells reach it: what the finding depends on
+is only all there in that cell).  Within a cell the walk depends only on the
+window relative to the cell's frame, so it is memoised on that: the
+placements of a cell repeat the same relative windows over and over.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import numpy as np
+
+from pitchguard.layout.hierarchy import Affine, HierarchyQuery
+
+MEMO_ENTRIES = 200_000
+"""Memoised walks kept (cleared when full)."""
+
+
+class Holder(NamedTuple):
+    """Where a window belongs: ``cell``, the names from the top cell down to it,
+    and the cell's placement in the top frame (``p_top = m @ p_cell + t``, nm)."""
+
+    cell: str
+    path: tuple[str, ...]
+    m: tuple[float, float, float, float]
+    t: tuple[float, float]
+
+
+def _contains(box, w) -> bool:
+    return box[0] <= w[0] and box[1] <= w[1] and box[2] >= w[2] and box[3] >= w[3]
+
+
+class Holders:
+    """Find :class:`Holder` s in one opened layout's hierarchy."""
+
+    def __init__(self, q: HierarchyQuery):
+        self.q = q
+        self._memo: dict = {}
+
+    def of(self, window, ld) -> Holder:
+        """The holder of ``window`` (nm, top frame) for polygons of layer ``ld``."""
+        q = self.q
+        w = tuple(float(v) for v in window)
+        tops = [n for n in q.tops if q.cells[n].bbox is not None]
+        top = next((n for n in tops if _contains(q.cells[n].bbox, w)), None)
+        if top is None:
+            top = next((n for n in tops if _meets(q.cells[n].bbox, w)), q.tops[0])
+        cell, path, m, t = self._walk(top, np.eye(2), w, ld)
+        return Holder(cell, (top, *path), tuple(m.ravel().tolist()), tuple(t.tolist()))
+
+    def _walk(self, name: str, m: np.ndarray, w, ld):
+        """``(cell, path below name, m, t)``: the walk from cell ``name`` placed by
+        ``m`` at the origin, ``w`` in that frame."""
+        key = (name, m.tobytes(), tuple(round(v, 6) + 0.0 for v in w), ld)
+        hit = self._memo.get(key)
+        if hit is not None:
+            return hit
+        q = self.q
+        here = Affine(m, np.zeros(2))
+        inside, others = [], []
+        for child, ccd, placed, offs in q.children_in(q.cells[name], here, w):
+            box = np.array(placed.box(ccd.bbox))
+            for off in offs:
+                b = box + np.array([off[0], off[1], off[0], off[1]])
+                (inside if _contains(b, w) else others).append((child, placed.m, placed.t + off))
+        out = (name, (), m, np.zeros(2))
+        if len(inside) == 1 and not q.meets(name, here, w, ld, own_only=True):
+            child, cm, ct = inside[0]
+            if not any(q.meets(c, Affine(om, ot), w, ld) for c, om, ot in others):
+                rel = (w[0] - ct[0], w[1] - ct[1], w[2] - ct[0], w[3] - ct[1])
+                cell, path, fm, ft = self._walk(child, cm, rel, ld)
+                out = (cell, (child, *path), fm, ft + ct)
+        if len(self._memo) >= MEMO_ENTRIES:
+            self._memo.clear()
+        self._memo[key] = out
+        return out
+
+
+def _meets(b, w) -> bool:
+    return b[0] <= w[2] and b[2] >= w[0] and b[1] <= w[3] and b[3] >= w[1]
+
+
+def in_cell_frame(box, m, t) -> tuple[float, float, float, float]:
+    """The box (top frame, nm) in the frame of a cell placed by ``m``, ``t``
+    (``p_top = m @ p_cell + t``): the box of its corners taken back."""
+    x0, y0, x1, y1 = box
+    inv = np.linalg.inv(np.asarray(m, dtype=np.float64).reshape(2, 2))
+    c = (np.array([[x0, y0], [x1, y0], [x1, y1], [x0, y1]]) - np.asarray(t)) @ inv.T
+    lo, hi = c.min(axis=0), c.max(axis=0)
+    return (float(lo[0]), float(lo[1]), float(hi[0]), float(hi[1]))
+
+
+def placement_of(m, t, scale_um: float = 1e-3) -> tuple[float, float, float, float, bool]:
+    """``(x, y, rotation_deg, magnification, mirrored)`` of a placement matrix and
+    origin as GDSII and OASIS write it (mirror in x first, then turn and scale);
+    the origin in um."""
+    a, b, c, d = (float(v) for v in m)
+    det = a * d - b * c
+    mirrored = det < 0
+    mag = abs(det) ** 0.5
+    rot = float(np.degrees(np.arctan2(c, a))) % 360.0
+    return (
+        round(float(t[0]) * scale_um, 6) + 0.0,
+        round(float(t[1]) * scale_um, 6) + 0.0,
+        round(rot, 6) % 360.0 + 0.0,
+        round(mag, 9),
+        mirrored,
+    )

@@ -1,0 +1,114 @@
+"""The cell a finding belongs to (layout/holders.py) on small hand-built hierarchies.
+
+Expected values follow from the placements written (GDSII's reference
+transform: mirror in x, then rotate, then magnify, then move to the origin;
+the GDSII stream format's reference record definitions).
+"""
+
+from __future__ import annotations
+
+import math
+
+import gdstk
+import numpy as np
+import pytest
+
+from pitchguard.layout.hierarchy import HierarchyQuery
+from pitchguard.layout.holders import Holders, in_cell_frame, placement_of
+
+LD = (1, 0)
+
+
+def _row(lib):
+    row = lib.new_cell("ROW")  # 5 lines 0.1 um wide at pitch 0.2 um, 2 um long
+    for k in range(5):
+        row.add(gdstk.rectangle((k * 0.2, 0), (k * 0.2 + 0.1, 2.0), layer=1))
+    return row
+
+
+def _query(lib, top):
+    return HierarchyQuery(lib, [top], [LD], 1000.0)
+
+
+def _window_in_row(m, t, box_cell):
+    """A window given in ROW's frame, placed into the top frame (nm)."""
+    x0, y0, x1, y1 = box_cell
+    c = np.array([[x0, y0], [x1, y0], [x1, y1], [x0, y1]]) @ np.asarray(m).reshape(2, 2).T + t
+    return (*c.min(axis=0), *c.max(axis=0))
+
+
+@pytest.mark.parametrize(
+    "rotation,mirror,mag",
+    [(0.0, False, 1.0), (90.0, False, 1.0), (180.0, True, 1.0), (270.0, True, 2.0)],
+)
+def test_a_window_inside_one_placement_belongs_to_its_cell(rotation, mirror, mag):
+    lib = gdstk.Library()
+    row = _row(lib)
+    top = lib.new_cell("TOP")
+    top.add(
+        gdstk.Reference(
+            row, (10.0, 20.0), rotation=math.radians(rotation), magnification=mag, x_reflection=mirror
+        )
+    )
+    top.add(gdstk.Reference(row, (50.0, 20.0)))  # another placement, far away
+    h = Holders(_query(lib, top))
+    c, s = math.cos(math.radians(rotation)), math.sin(math.radians(rotation))
+    m = mag * np.array([[c, -s], [s, c]]) @ np.diag([1.0, -1.0 if mirror else 1.0])
+    t = np.array([10_000.0, 20_000.0])
+    inner = (250.0, 500.0, 550.0, 1500.0)  # the middle lines, well inside ROW (nm)
+    got = h.of(_window_in_row(m, t, inner), LD)
+    assert got.cell == "ROW" and got.path == ("TOP", "ROW")
+    assert np.allclose(np.reshape(got.m, (2, 2)), m) and np.allclose(got.t, t)
+    assert np.allclose(in_cell_frame(_window_in_row(m, t, inner), got.m, got.t), inner)
+    x, y, rot, mg, mir = placement_of(got.m, got.t)
+    assert (x, y, mir) == (10.0, 20.0, mirror) and math.isclose(rot, rotation)
+    assert math.isclose(mg, mag)
+
+
+def test_a_window_past_the_cell_or_meeting_other_shapes_belongs_to_the_parent():
+    lib = gdstk.Library()
+    row = _row(lib)
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Reference(row, (0.0, 0.0)))
+    top.add(gdstk.Reference(row, (10.0, 0.0)))
+    top.add(gdstk.rectangle((10.35, 0.9), (10.45, 1.0), layer=1))  # top's own, on ROW 2
+    top.add(gdstk.rectangle((0.35, 0.9), (0.45, 1.0), layer=2))  # another layer: no matter
+    h = Holders(_query(lib, top))
+    # Reaching past ROW's box (the outer line with its range): the top cell.
+    assert h.of((-300.0, 500.0, 300.0, 1500.0), LD).cell == "TOP"
+    # Inside ROW 1: ROW; the same window on ROW 2 meets the top's own shape: TOP.
+    assert h.of((250.0, 500.0, 550.0, 1500.0), LD).cell == "ROW"
+    got = h.of((10_250.0, 500.0, 10_550.0, 1500.0), LD)
+    assert got.cell == "TOP" and got.path == ("TOP",)
+    assert got.m == (1.0, 0.0, 0.0, 1.0) and got.t == (0.0, 0.0)
+
+
+def test_overlapping_placements_with_shapes_in_the_window_give_the_parent():
+    lib = gdstk.Library()
+    row = _row(lib)
+    dot = lib.new_cell("DOT")
+    dot.add(gdstk.rectangle((0, 0), (0.05, 0.05), layer=1))
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Reference(row, (0.0, 0.0)))
+    top.add(gdstk.Reference(dot, (0.4, 1.0)))  # inside ROW's box, in the window
+    top.add(gdstk.Reference(dot, (0.4, 1.9)))  # inside ROW's box, outside the window
+    h = Holders(_query(lib, top))
+    assert h.of((250.0, 500.0, 550.0, 1500.0), LD).cell == "TOP"
+    assert h.of((250.0, 100.0, 550.0, 800.0), LD).cell == "ROW"
+
+
+def test_nested_arrays_give_the_deepest_cell_and_its_path():
+    lib = gdstk.Library()
+    row = _row(lib)
+    block = lib.new_cell("BLOCK")
+    block.add(gdstk.Reference(row, (0, 0), columns=3, rows=2, spacing=(2.0, 3.0)))
+    top = lib.new_cell("TOP")
+    top.add(gdstk.Reference(block, (100.0, 0.0), columns=2, rows=2, spacing=(10.0, 10.0)))
+    h = Holders(_query(lib, top))
+    # ROW (column 2, row 1) of BLOCK (column 1, row 0): origin (100 + 10 + 4, 0 + 3) um.
+    t = np.array([114_000.0, 3_000.0])
+    got = h.of(_window_in_row(np.eye(2), t, (250.0, 500.0, 550.0, 1500.0)), LD)
+    assert got.path == ("TOP", "BLOCK", "ROW") and np.allclose(got.t, t)
+    # Between two ROWs of a BLOCK (the window spans both): BLOCK, placed at (110, 0) um.
+    got = h.of((111_900.0, 500.0, 112_300.0, 1500.0), LD)
+    assert got.path == ("TOP", "BLOCK") and np.allclose(got.t, (110_000.0, 0.0))
