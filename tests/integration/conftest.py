@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import gdstk
@@ -55,3 +56,31 @@ def dry_deck(tmp_path: Path) -> Path:
     p = tmp_path / "dry.toml"
     p.write_text(DRY_ARF_DECK)
     return p
+
+
+def each_placement(data: dict) -> list[dict]:
+    """The JSON report's entries (one per distinct finding of a cell) expanded to one
+    per placement: the entry with ``bbox_um`` its ``cell_bbox_um`` carried into
+    the top frame by that placement (GDSII's reference transform: mirror in x,
+    turn, scale, move).  Entries with no cell stand for themselves."""
+    out = []
+    for e in data["findings"]:
+        if not e["placed"]:
+            out.append(e)
+            continue
+        x0, y0, x1, y1 = e["cell_bbox_um"]
+        for g in e["placed"]:
+            th, mag = math.radians(g["rotation_deg"]), g["magnification"]
+            s = -1.0 if g["mirrored"] else 1.0
+            c, n = math.cos(th), math.sin(th)
+            pts = [
+                (mag * (c * x - n * s * y), mag * (n * x + c * s * y))
+                for x, y in ((x0, y0), (x1, y0), (x1, y1), (x0, y1))
+            ]
+            o = g["origins_um"]
+            for k in range(0, len(o), 2):
+                xs = [p[0] + o[k] for p in pts]
+                ys = [p[1] + o[k + 1] for p in pts]
+                box = [round(v, 6) + 0.0 for v in (min(xs), min(ys), max(xs), max(ys))]
+                out.append({**e, "bbox_um": box})
+    return out

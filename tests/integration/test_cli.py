@@ -32,6 +32,25 @@ def demo_json(tmp_path_factory) -> dict:
     return json.loads(out.read_text())
 
 
+def test_each_entry_names_its_cell_and_the_placements_add_up(demo_json):
+    """One entry per distinct finding of a cell; the demo chip places POLY_P110
+    mirrored three times, two of them alone (sample_layouts/build_demo_chip.py)."""
+    entries = demo_json["findings"]
+    summary = demo_json["summary"]
+    assert summary["findings"] == len(entries)
+    assert sum(e["placements"] for e in entries) == summary["placements"]
+    assert sum(summary["by_severity"].values()) == summary["placements"]
+    assert sum(summary["distinct_by_severity"].values()) == len(entries)
+    for e in entries:
+        assert e["cell"] and e["cell_path"][-1] == e["cell"]
+        origins = sum(len(g["origins_um"]) // 2 for g in e["placed"])
+        assert origins == e["placements"]
+    twice = [e for e in entries if e["placements"] > 1]
+    assert [(e["cell"], e["placements"], e["placed"][0]["mirrored"]) for e in twice] == [
+        ("POLY_P110", 2, True)
+    ]
+
+
 def test_sample_scan_shows_every_severity(demo_json):
     sev = demo_json["summary"]["by_severity"]
     assert sev["fail"] > 0 and sev["risk"] > 0 and sev["marginal"] > 0
@@ -130,8 +149,8 @@ def test_markers_one_polygon_and_label_per_finding(tmp_path, capsys, ext, demo_j
     assert code == 1
     lib = gdstk.read_gds(str(out)) if ext == ".gds" else gdstk.read_oas(str(out))
     (cell,) = lib.cells
-    assert len(cell.polygons) == len(demo_json["findings"])
-    assert len(cell.labels) == len(demo_json["findings"])
+    placements = demo_json["summary"]["placements"]
+    assert len(cell.polygons) == placements == len(cell.labels)
     deck = load_deck(DEMO_DECK)
     by_layer = {}
     for p in cell.polygons:

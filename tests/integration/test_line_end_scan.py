@@ -24,6 +24,8 @@ import pytest
 from decks import DRY_ARF_DECK
 from pitchguard.cli import main
 
+from .conftest import each_placement
+
 W = 0.09  # um
 # name, gap (um), kind
 GAPS = (
@@ -87,7 +89,10 @@ def test_gaps_far_below_resolution_fail_and_wide_ones_do_not(tmp_path, suffix):
     layout = tmp_path / f"ends{suffix}"
     _layout(layout)
     code, data = _scan(tmp_path, layout, DRY_ARF_DECK, "--untiled")
-    findings = data["findings"]
+    findings = each_placement(data)
+    # One cell drawn twice, alone: each finding is the cell's, with both placements.
+    assert {(f["cell"], f["placements"]) for f in data["findings"]} == {("ENDS", 2)}
+    assert len(findings) == data["summary"]["placements"]
     for turned in (False, True):
         for k, (name, gap, kind) in enumerate(GAPS):
             hits = _at(findings, *_gap_centre(k, gap, turned))
@@ -120,7 +125,7 @@ def test_tiled_scan_judges_the_same_line_ends(tmp_path):
     def key(data):
         return sorted(
             (f["check"], f["severity"], tuple(round(v, 3) for v in f["bbox_um"]))
-            for f in data["findings"]
+            for f in each_placement(data)
         )
 
     assert key(tiled) == key(whole)
@@ -136,7 +141,7 @@ def test_the_pullback_limit_is_a_deck_key(tmp_path):
     assert not [f for f in default["findings"] if f["check"] == "line-end-pullback"]
     strict = DRY_ARF_DECK + "line_end_pullback_max_nm = 1.0\n"
     _, data = _scan(tmp_path, layout, strict, "--untiled")
-    pulled = [f for f in data["findings"] if f["check"] == "line-end-pullback"]
+    pulled = [f for f in each_placement(data) if f["check"] == "line-end-pullback"]
     # The open gaps: 150 and 200 nm tip to tip, in both placements.
     assert len(pulled) == 4
     for f in pulled:
@@ -176,6 +181,8 @@ def test_grouping_ends_by_neighbourhood_changes_nothing(tmp_path, monkeypatch):
     _, plain = _scan(tmp_path, layout, DRY_ARF_DECK, "--untiled")
 
     def key(data):
-        return sorted((f["check"], f["severity"], tuple(f["bbox_um"])) for f in data["findings"])
+        return sorted(
+            (f["check"], f["severity"], tuple(f["bbox_um"])) for f in each_placement(data)
+        )
 
     assert key(plain) == key(grouped) and len(key(grouped)) == 4

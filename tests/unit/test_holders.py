@@ -47,7 +47,11 @@ def test_a_window_inside_one_placement_belongs_to_its_cell(rotation, mirror, mag
     top = lib.new_cell("TOP")
     top.add(
         gdstk.Reference(
-            row, (10.0, 20.0), rotation=math.radians(rotation), magnification=mag, x_reflection=mirror
+            row,
+            (10.0, 20.0),
+            rotation=math.radians(rotation),
+            magnification=mag,
+            x_reflection=mirror,
         )
     )
     top.add(gdstk.Reference(row, (50.0, 20.0)))  # another placement, far away
@@ -65,17 +69,24 @@ def test_a_window_inside_one_placement_belongs_to_its_cell(rotation, mirror, mag
     assert math.isclose(mg, mag)
 
 
-def test_a_window_past_the_cell_or_meeting_other_shapes_belongs_to_the_parent():
+def test_a_window_meeting_other_shapes_belongs_to_the_parent():
     lib = gdstk.Library()
     row = _row(lib)
     top = lib.new_cell("TOP")
     top.add(gdstk.Reference(row, (0.0, 0.0)))
     top.add(gdstk.Reference(row, (10.0, 0.0)))
+    top.add(gdstk.Reference(row, (21.2, 0.0)))  # 0.3 um right of the ROW at 20 um
+    top.add(gdstk.Reference(row, (20.0, 0.0)))
     top.add(gdstk.rectangle((10.35, 0.9), (10.45, 1.0), layer=1))  # top's own, on ROW 2
     top.add(gdstk.rectangle((0.35, 0.9), (0.45, 1.0), layer=2))  # another layer: no matter
     h = Holders(_query(lib, top))
-    # Reaching past ROW's box (the outer line with its range): the top cell.
-    assert h.of((-300.0, 500.0, 300.0, 1500.0), LD).cell == "TOP"
+    # The outer line with its range, reaching past ROW's box into empty space: ROW.
+    got = h.of((-300.0, 500.0, 300.0, 1500.0), LD)
+    assert got.cell == "ROW" and got.t == (0.0, 0.0)
+    # The same on the ROW at 20 um, whose range reaches the next ROW's lines: TOP.
+    assert h.of((20_600.0, 500.0, 21_250.0, 1500.0), LD).cell == "TOP"
+    # ... and short of them (the boxes still meet): that ROW.
+    assert h.of((20_600.0, 500.0, 21_100.0, 1500.0), LD).t == (20_000.0, 0.0)
     # Inside ROW 1: ROW; the same window on ROW 2 meets the top's own shape: TOP.
     assert h.of((250.0, 500.0, 550.0, 1500.0), LD).cell == "ROW"
     got = h.of((10_250.0, 500.0, 10_550.0, 1500.0), LD)
@@ -110,5 +121,5 @@ def test_nested_arrays_give_the_deepest_cell_and_its_path():
     got = h.of(_window_in_row(np.eye(2), t, (250.0, 500.0, 550.0, 1500.0)), LD)
     assert got.path == ("TOP", "BLOCK", "ROW") and np.allclose(got.t, t)
     # Between two ROWs of a BLOCK (the window spans both): BLOCK, placed at (110, 0) um.
-    got = h.of((111_900.0, 500.0, 112_300.0, 1500.0), LD)
+    got = h.of((110_850.0, 500.0, 112_050.0, 1500.0), LD)
     assert got.path == ("TOP", "BLOCK") and np.allclose(got.t, (110_000.0, 0.0))

@@ -77,6 +77,7 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
                 max_memory_mb=args.max_memory_mb,
                 note=None if args.quiet else partial(show_note, err),
                 ordered=not (args.command == "scan" and only_counts(args)),
+                cells=args.json is not None,
             )
         return scan_layout(
             layout,
@@ -86,6 +87,7 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
             max_shapes=args.max_shapes or DEFAULT_MAX_SHAPES,
             progress=update,
             read_timeout_s=args.read_timeout,
+            cells=args.json is not None,
         )
     finally:
         if bar:
@@ -157,7 +159,6 @@ def cmd_scan(args) -> int:
     extra = None
     shown = result
     if gate is not None:
-        accepted_ids = {id(f) for f, _ in gate.accepted}
         extra = {
             "baseline": {
                 "path": str(args.baseline),
@@ -167,7 +168,9 @@ def cmd_scan(args) -> int:
                 "stale_entries": gate.stale,
                 "accepted_entries": [
                     {
-                        "finding_index": result.findings.index(f),
+                        "layer": f.layer,
+                        "check": f.check,
+                        "centre_um": list(f.centre_um),
                         "reason": e.get("reason", ""),
                         "owner": e.get("owner", ""),
                     }
@@ -175,10 +178,8 @@ def cmd_scan(args) -> int:
                 ],
             }
         }
-        extra["finding_status"] = [
-            "accepted" if id(f) in accepted_ids else "new" for f in result.findings
-        ]
-        shown = dataclasses.replace(result, findings=gate.new)
+        cells = result.cells.take(gate.new_index) if result.cells is not None else None
+        shown = dataclasses.replace(result, findings=gate.new, cells=cells)
     _write_outputs(args, result if gate is None else shown, deck, inputs, extra)
     if args.write_baseline is not None:
         write_baseline(
@@ -229,7 +230,12 @@ def cmd_diff(args) -> int:
     base = _run_scan(args, deck, args.base, "base")
     new = _run_scan(args, deck, args.new, "new")
     d = diff(base.findings, new.findings)
-    shown = dataclasses.replace(new, findings=d.introduced, seconds=base.seconds + new.seconds)
+    shown = dataclasses.replace(
+        new,
+        findings=d.introduced,
+        seconds=base.seconds + new.seconds,
+        cells=new.cells.take(d.introduced_index) if new.cells is not None else None,
+    )
 
     def extra(texts) -> dict:
         return {

@@ -2,17 +2,16 @@
 
 A finding's window is its region grown by the layer's interaction range:
 everything that can change its image.  Walking down from the top cell, a
-placement of a child cell *holds* the window when
-
-* its box contains the window, and it is the only placement of the level
-  whose box does;
-* no polygon of the finding's layer from anywhere else meets the window:
-  not the parent's own, not another placement's (overlapping placements).
+placement of a child cell *holds* the window when every polygon of the
+finding's layer that meets the window is that placement's: none of the
+parent's own, none of another placement's.  (Empty space around a cell is
+the same in every placement with nothing else near: a finding on a cell's
+outer line belongs to the cell, unless a neighbour comes within range.)
 
 The walk stops at the first level where no placement holds the window; the
-finding then belongs to the cell reached (the top cell when the region spans
-cells, or neighbours from other cells reach it: what the finding depends on
-is only all there in that cell).  Within a cell the walk depends only on the
+finding then belongs to the cell reached: the top cell when the region spans
+cells, or when shapes of other cells are within range.  What the finding
+depends on is all in that cell.  Within a cell the walk depends only on the
 window relative to the cell's frame, so it is memoised on that: the
 placements of a cell repeat the same relative windows over and over.
 """
@@ -39,10 +38,6 @@ class Holder(NamedTuple):
     t: tuple[float, float]
 
 
-def _contains(box, w) -> bool:
-    return box[0] <= w[0] and box[1] <= w[1] and box[2] >= w[2] and box[3] >= w[3]
-
-
 class Holders:
     """Find :class:`Holder` s in one opened layout's hierarchy."""
 
@@ -55,9 +50,7 @@ class Holders:
         q = self.q
         w = tuple(float(v) for v in window)
         tops = [n for n in q.tops if q.cells[n].bbox is not None]
-        top = next((n for n in tops if _contains(q.cells[n].bbox, w)), None)
-        if top is None:
-            top = next((n for n in tops if _meets(q.cells[n].bbox, w)), q.tops[0])
+        top = next((n for n in tops if _meets(q.cells[n].bbox, w)), q.tops[0])
         cell, path, m, t = self._walk(top, np.eye(2), w, ld)
         return Holder(cell, (top, *path), tuple(m.ravel().tolist()), tuple(t.tolist()))
 
@@ -70,19 +63,19 @@ class Holders:
             return hit
         q = self.q
         here = Affine(m, np.zeros(2))
-        inside, others = [], []
-        for child, ccd, placed, offs in q.children_in(q.cells[name], here, w):
-            box = np.array(placed.box(ccd.bbox))
-            for off in offs:
-                b = box + np.array([off[0], off[1], off[0], off[1]])
-                (inside if _contains(b, w) else others).append((child, placed.m, placed.t + off))
+        meeting = [
+            (child, placed.m, placed.t + off)
+            for child, _, placed, offs in q.children_in(q.cells[name], here, w)
+            for off in offs
+        ]
+        if len(meeting) > 1:  # boxes overlap the window: count those with shapes in it
+            meeting = [c for c in meeting if q.meets(c[0], Affine(c[1], c[2]), w, ld)]
         out = (name, (), m, np.zeros(2))
-        if len(inside) == 1 and not q.meets(name, here, w, ld, own_only=True):
-            child, cm, ct = inside[0]
-            if not any(q.meets(c, Affine(om, ot), w, ld) for c, om, ot in others):
-                rel = (w[0] - ct[0], w[1] - ct[1], w[2] - ct[0], w[3] - ct[1])
-                cell, path, fm, ft = self._walk(child, cm, rel, ld)
-                out = (cell, (child, *path), fm, ft + ct)
+        if len(meeting) == 1 and not q.meets(name, here, w, ld, own_only=True):
+            child, cm, ct = meeting[0]
+            rel = (w[0] - ct[0], w[1] - ct[1], w[2] - ct[0], w[3] - ct[1])
+            cell, path, fm, ft = self._walk(child, cm, rel, ld)
+            out = (cell, (child, *path), fm, ft + ct)
         if len(self._memo) >= MEMO_ENTRIES:
             self._memo.clear()
         self._memo[key] = out

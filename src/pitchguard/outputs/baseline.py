@@ -189,6 +189,7 @@ class Gate:
     stale: list[dict]
     path: Path | None = None
     extra: dict = field(default_factory=dict)
+    new_index: list[int] = field(default_factory=list)  # of ``new`` in the findings given
 
 
 def entry_of(f: Finding, reason: str = "", owner: str = "") -> dict:
@@ -237,11 +238,13 @@ def apply_baseline(findings: list[Finding], entries: list[dict], path: Path | No
     matched_new = {j for _, j in pairs}
     matched_old = {i for i, _ in pairs}
     accepted = [(findings[j], entries[i]) for i, j in sorted(pairs, key=lambda p: p[1])]
+    new_index = [j for j in range(len(findings)) if j not in matched_new]
     return Gate(
-        new=[f for j, f in enumerate(findings) if j not in matched_new],
+        new=[findings[j] for j in new_index],
         accepted=accepted,
         stale=[e for i, e in enumerate(entries) if i not in matched_old],
         path=path,
+        new_index=new_index,
     )
 
 
@@ -282,14 +285,17 @@ class Diff:
     introduced: list[Finding]
     fixed: list[Finding]
     unchanged: list[tuple[Finding, Finding]]  # (base, new)
+    introduced_index: list[int] = field(default_factory=list)  # into the new findings
 
 
 def diff(base: list[Finding], new: list[Finding]) -> Diff:
     pairs = match([Signature.of(f) for f in base], [Signature.of(f) for f in new])
     mb = {i for i, _ in pairs}
     mn = {j for _, j in pairs}
+    introduced_index = [j for j in range(len(new)) if j not in mn]
     return Diff(
-        introduced=[f for j, f in enumerate(new) if j not in mn],
+        introduced=[new[j] for j in introduced_index],
+        introduced_index=introduced_index,
         fixed=[f for i, f in enumerate(base) if i not in mb],
         unchanged=[(base[i], new[j]) for i, j in sorted(pairs, key=lambda p: p[1])],
     )

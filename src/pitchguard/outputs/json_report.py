@@ -9,8 +9,9 @@ from pathlib import Path
 import numpy as np
 
 from pitchguard import __version__
-from pitchguard.deck import Deck
-from pitchguard.judge.findings import Finding, FindingSet
+from pitchguard.deck import SEVERITIES, Deck
+from pitchguard.judge.findings import Finding, FindingSet, box_um
+from pitchguard.judge.per_cell import CellFinding, cell_findings, orientations
 from pitchguard.outputs.files import atomic_write
 from pitchguard.outputs.rows import PlacedRows, Rows, hole, placed_fields, placed_numbers
 from pitchguard.outputs.verdict import CAUTION, coverage_notes, exit_code, severity_counts
@@ -21,6 +22,14 @@ def json_number(x) -> float | None:
     """A plain float, or None for inf and nan (JSON has neither)."""
     x = float(x)
     return x if x - x == 0.0 else None  # inf - inf and nan - nan are nan
+
+
+def entry_counts(entries: list[CellFinding]) -> dict[str, int]:
+    """Distinct findings (report entries) per severity."""
+    out = dict.fromkeys(SEVERITIES, 0)
+    for c in entries:
+        out[c.finding.severity] += 1
+    return out
 
 
 def json_numbers(xs) -> list:
@@ -176,6 +185,38 @@ def finding_rows(findings: Sequence[Finding], texts: TextTable | None = None) ->
     )
 
 
+def placed_groups(c: CellFinding) -> list[dict]:
+    """A cell finding's placements, compact: per orientation of the cell, the
+    origins (um) as one flat list ``[x0, y0, x1, y1, ...]``."""
+    orient = orientations(c.m)
+    kinds, inverse = np.unique(orient, axis=0, return_inverse=True)
+    inverse = inverse.reshape(-1)
+    origins = np.round(c.t / 1000.0, 6) + 0.0
+    out = []
+    for k, (rot, mag, mirrored) in enumerate(kinds.tolist()):
+        out.append(
+            {
+                "rotation_deg": rot,
+                "magnification": mag,
+                "mirrored": bool(mirrored),
+                "origins_um": origins[inverse == k].ravel().tolist(),
+            }
+        )
+    return out
+
+
+def entry_to_dict(c: CellFinding, texts: TextTable | None = None) -> dict:
+    """A report entry: the finding at its first placement (top frame), its cell and
+    every placement of it."""
+    row = finding_to_dict(c.finding, texts=texts)
+    row["cell"] = c.cell or None
+    row["cell_path"] = list(c.path)
+    row["cell_bbox_um"] = json_numbers(box_um(c.cell_bbox_nm))
+    row["placements"] = c.placements
+    row["placed"] = placed_groups(c) if c.cell else []
+    return row
+
+
 def to_json(
     result: ScanResult,
     deck: Deck,
@@ -187,6 +228,7 @@ def to_json(
     as they are written (for :func:`write_json`).  With ``texts`` the findings'
     messages and hints are indexes into it, written last as ``texts``."""
     lay = result.layout
+    entries = cell_findings(result)
     by_layer = {}
     for st in result.layers:
         counts = severity_counts(result.findings, st.name)
@@ -223,12 +265,14 @@ def to_json(
             "drawn_scale": deck.drawn_scale,
             "reduction": deck.reduction,
         },
-        "findings": finding_rows(result.findings, texts)
+        "findings": Rows(entries, lambda c: entry_to_dict(c, texts))
         if lazy
-        else [finding_to_dict(f, texts=texts) for f in result.findings],
+        else [entry_to_dict(c, texts) for c in entries],
         "summary": {
-            "findings": len(result.findings),
+            "findings": len(entries),
+            "placements": len(result.findings),
             "by_severity": severity_counts(result.findings),
+            "distinct_by_severity": entry_counts(entries),
             "by_layer": by_layer,
             "fail_on": fail_on,
             "tiling": result.tiling,

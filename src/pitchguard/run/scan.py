@@ -66,6 +66,8 @@ class ScanResult:
     seconds: float = 0.0
     # Tiled scans: {"tile_um", "tiles", "distinct", "workers"}; None for a whole scan.
     tiling: dict | None = None
+    # The cell of every finding (run.cells.CellMap), when asked for.
+    cells: object = None
 
 
 def _in_region(ps: PolygonSet, region_nm, margin: float) -> PolygonSet:
@@ -291,8 +293,10 @@ def scan_layout(
     max_shapes: int = DEFAULT_MAX_SHAPES,
     progress: Progress | None = None,
     read_timeout_s: float | None = None,
+    cells: bool = False,
 ) -> ScanResult:
-    """Read ``path`` (in a child process) and scan it with ``deck``."""
+    """Read ``path`` (in a child process) and scan it with ``deck``; with ``cells``
+    name the cell of every finding too (run.cells, in another child process)."""
     t0 = time.perf_counter()
     warnings: list[str] = []
     if progress:
@@ -313,4 +317,19 @@ def scan_layout(
     with threadpool_limits(1):
         regions, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
     findings = sort_findings([r.finding for r in regions])
-    return ScanResult(findings, stats, layout, warnings, time.perf_counter() - t0)
+    cmap = None
+    if cells:
+        from pitchguard.layout.isolated import run_isolated
+        from pitchguard.run.cells import finding_windows
+        from pitchguard.run.tasks import holders_task
+
+        windows, lay = finding_windows(findings, deck)
+        layers = [(r.layer, r.datatype) for r in deck.layers]
+        cmap = run_isolated(
+            holders_task,
+            (str(path), cell, layers, windows, lay),
+            Path(path),
+            "finding the cells of findings",
+            **({"timeout_s": read_timeout_s} if read_timeout_s else {}),
+        )
+    return ScanResult(findings, stats, layout, warnings, time.perf_counter() - t0, None, cmap)

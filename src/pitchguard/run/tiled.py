@@ -12,6 +12,7 @@ from pitchguard.judge.findings import FindingSet, replaced
 from pitchguard.judge.order import sort_findings
 from pitchguard.layout.reader import Layout
 from pitchguard.run.arrays import settled, tiled_arrays, with_findings
+from pitchguard.run.cells import CHUNK, CellMap, finding_windows
 from pitchguard.run.engine import WorkerPool
 from pitchguard.run.merge import TileAssembly
 from pitchguard.run.plan import (
@@ -25,7 +26,7 @@ from pitchguard.run.plan import (
     tiles_for,
 )
 from pitchguard.run.scan import LayerStats, ScanResult, add_array_counts, require_layers
-from pitchguard.run.tasks import hints_task, keys_task, structure_task, tile_task
+from pitchguard.run.tasks import hints_task, holders_task, keys_task, structure_task, tile_task
 
 KEY_CHUNKS = 16
 
@@ -91,6 +92,7 @@ def scan_tiled(
     max_memory_mb: float | None = None,
     note=None,
     ordered: bool = True,
+    cells: bool = False,
 ) -> ScanResult:
     """Scan ``path`` tile by tile on local worker processes or a dask cluster.
 
@@ -100,7 +102,8 @@ def scan_tiled(
     before the tiles start (a ``tile_um`` that defeats reuse, say).  With
     ``ordered`` the findings come in report order (:func:`sort_findings`);
     without, in no set order, for a caller that only counts them (the sort
-    of a chip's million findings is a visible share of a scan).
+    of a chip's million findings is a visible share of a scan).  With
+    ``cells`` the result also names the cell of every finding (run.cells).
     """
     import time
 
@@ -149,17 +152,35 @@ def scan_tiled(
             "distinct": len(assembly.members),
             "workers": engine.workers,
         }
-    findings = with_hints(assembled.findings, assembled.hint_keys, run.texts)
-    stats = sum_stats(deck, assembled.per_group)
-    found = tiled_arrays(deck, assembly)
-    for s, (_, v) in zip(stats, found, strict=True):
-        add_array_counts(s.extract, v)
-    findings = settled(findings, deck, found)
-    findings = with_findings(findings, [f for _, v in found for f in v.findings])
-    if ordered:
-        findings = sort_findings(findings)
+        findings = with_hints(assembled.findings, assembled.hint_keys, run.texts)
+        stats = sum_stats(deck, assembled.per_group)
+        found = tiled_arrays(deck, assembly)
+        for s, (_, v) in zip(stats, found, strict=True):
+            add_array_counts(s.extract, v)
+        findings = settled(findings, deck, found)
+        findings = with_findings(findings, [f for _, v in found for f in v.findings])
+        if ordered:
+            findings = sort_findings(findings)
+        cmap = _cells(engine, str(p), cell, layers, findings, deck) if cells else None
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})
-    return ScanResult(findings, stats, layout, [], time.perf_counter() - t0, tiling)
+    return ScanResult(findings, stats, layout, [], time.perf_counter() - t0, tiling, cmap)
+
+
+def _cells(engine, path: str, cell, layers, findings, deck: Deck):
+    """The cell of each finding (run.cells), worked out on the workers, a chunk each."""
+    windows, lay = finding_windows(findings, deck)
+    parts: dict[int, CellMap] = {}
+
+    def arrived(k, part):
+        parts[k] = part
+        return []
+
+    tasks = [
+        (holders_task, (path, cell, layers, windows[k : k + CHUNK], lay[k : k + CHUNK]), k)
+        for k in range(0, len(windows), CHUNK)
+    ]
+    engine.stream(tasks, arrived, in_flight=2 * engine.workers)
+    return CellMap.joined([parts[k] for k in sorted(parts)])
 
 
 class TileScheduler:
