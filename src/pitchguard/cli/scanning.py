@@ -34,7 +34,9 @@ def only_counts(args) -> bool:
     return bool(args.quiet) and all(getattr(args, o, None) is None for o in outputs)
 
 
-def _run_scan(args, deck, layout: Path, label: str = ""):
+def _run_scan(args, deck, layout: Path, label: str = "", cells: bool | None = None):
+    """Scan ``layout``; ``cells`` (default: when a JSON report is written) names the
+    cell of every finding too."""
     from functools import partial
 
     from pitchguard.layout.reader import DEFAULT_MAX_SHAPES
@@ -51,6 +53,8 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
             inner(f"{label} {stage}", done, total)
 
     resume_gc()
+    if cells is None:
+        cells = args.json is not None
     tiled = not args.untiled
     if not tiled and (args.jobs or args.tile_um or args.scheduler or args.max_memory_mb):
         raise PitchguardError(
@@ -77,7 +81,7 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
                 max_memory_mb=args.max_memory_mb,
                 note=None if args.quiet else partial(show_note, err),
                 ordered=not (args.command == "scan" and only_counts(args)),
-                cells=args.json is not None,
+                cells=cells,
             )
         return scan_layout(
             layout,
@@ -87,7 +91,7 @@ def _run_scan(args, deck, layout: Path, label: str = ""):
             max_shapes=args.max_shapes or DEFAULT_MAX_SHAPES,
             progress=update,
             read_timeout_s=args.read_timeout,
-            cells=args.json is not None,
+            cells=cells,
         )
     finally:
         if bar:
@@ -227,7 +231,7 @@ def cmd_diff(args) -> int:
     deck = load_deck(args.rules)
     inputs = [args.base, args.new, args.rules]
     _check_outputs(args, inputs)
-    base = _run_scan(args, deck, args.base, "base")
+    base = _run_scan(args, deck, args.base, "base", cells=False)  # only new's are reported
     new = _run_scan(args, deck, args.new, "new")
     d = diff(base.findings, new.findings)
     shown = dataclasses.replace(

@@ -81,7 +81,8 @@ def _canonical(a: np.ndarray) -> bytes:
     return a[np.lexsort(a.T[::-1])].tobytes()
 
 
-def _hits(b: Box, w: Box) -> bool:
+def boxes_meet(b: Box, w: Box) -> bool:
+    """Whether two boxes meet (touching counts)."""
     return b[0] <= w[2] and b[2] >= w[0] and b[1] <= w[3] and b[3] >= w[1]
 
 
@@ -363,9 +364,9 @@ class HierarchyQuery:
         its rows.
         """
         cd = self.cells[name]
-        if cd.bbox is None or not _hits(aff.box(cd.bbox), window):
+        if cd.bbox is None or not boxes_meet(aff.box(cd.bbox), window):
             return
-        if cd.own_bbox is not None and _hits(aff.box(cd.own_bbox), window):
+        if cd.own_bbox is not None and boxes_meet(aff.box(cd.own_bbox), window):
             rows.append(np.array([[cd.index, *aff.m.ravel(), *aff.t]]))
         for child, ccd, placed, o in self.children_in(cd, aff, window):
             if not ccd.refs:  # a leaf: its placements at once
@@ -442,7 +443,7 @@ class HierarchyQuery:
 
     def _visit(self, name: str, aff: Affine, window: Box, out) -> None:
         cd = self.cells[name]
-        if cd.bbox is None or not _hits(aff.box(cd.bbox), window):
+        if cd.bbox is None or not boxes_meet(aff.box(cd.bbox), window):
             return
         self._place(cd, aff.m, aff.t, np.zeros((1, 2)), window, out)
         for child, ccd, placed, o in self.children_in(cd, aff, window):
@@ -481,7 +482,7 @@ class HierarchyQuery:
         """Instance offsets (in the query frame) whose box intersects the window."""
         kind, data = offs
         if kind == "one":
-            return np.zeros((1, 2)) if _hits(tuple(base), window) else np.zeros((0, 2))
+            return np.zeros((1, 2)) if boxes_meet(tuple(base), window) else np.zeros((0, 2))
         if kind == "list":
             # Copies of ``base`` moved by m @ o meet the window only for m @ o in
             # the box below; its preimage's box (a little wider) bounds o.
@@ -507,7 +508,7 @@ class HierarchyQuery:
             # Degenerate lattice (collinear or zero vectors): test every instance,
             # once the whole array's box is known to meet the window.
             ext = np.array([i * a1 + j * a2 for i in (0, cols - 1) for j in (0, rows - 1)])
-            if not _moved_box_hits(base, ext, window).any() and not _hits(
+            if not _moved_box_hits(base, ext, window).any() and not boxes_meet(
                 (
                     base[0] + ext[:, 0].min(),
                     base[1] + ext[:, 1].min(),

@@ -22,7 +22,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from pitchguard.layout.hierarchy import Affine, HierarchyQuery
+from pitchguard.layout.hierarchy import Affine, HierarchyQuery, boxes_meet
 
 MEMO_ENTRIES = 200_000
 """Memoised walks kept (cleared when full)."""
@@ -50,7 +50,7 @@ class Holders:
         q = self.q
         w = tuple(float(v) for v in window)
         tops = [n for n in q.tops if q.cells[n].bbox is not None]
-        top = next((n for n in tops if _meets(q.cells[n].bbox, w)), q.tops[0])
+        top = next((n for n in tops if boxes_meet(q.cells[n].bbox, w)), q.tops[0])
         cell, path, m, t = self._walk(top, np.eye(2), w, ld)
         return Holder(cell, (top, *path), tuple(m.ravel().tolist()), tuple(t.tolist()))
 
@@ -80,10 +80,6 @@ class Holders:
             self._memo.clear()
         self._memo[key] = out
         return out
-
-
-def _meets(b, w) -> bool:
-    return b[0] <= w[2] and b[2] >= w[0] and b[1] <= w[3] and b[3] >= w[1]
 
 
 def in_cell_frame(box, m, t) -> tuple[float, float, float, float]:
