@@ -105,3 +105,68 @@ def build_routing(path: Path, n_target: float, seed: int = 2) -> int:
         y += pitch
     lib.write_gds(str(path))
     return count
+
+
+def build_cell_chip(path: Path, rows_target: int = 7500, seed: int = 5) -> dict:
+    """A chip of standard-cell-like rows, for reports per cell; returns its counts.
+
+    Ten leaf cells each hold ten arrays of 8 lines on layer 1/0 at pitches
+    from 60 to 117 nm (many below what an ArF immersion scanner resolves);
+    a row cell places the ten leaves side by side; a block stacks 50 rows,
+    every other one mirrored.  The top cell holds a lattice of blocks, blocks
+    scattered at random places and turns, and a few leaves placed alone with
+    a foreign line within reach of an array (findings that depend on the
+    placement).  About ``rows_target`` row placements in all.
+    """
+    import gdstk
+
+    rng = np.random.default_rng(seed)
+    lib = gdstk.Library()
+    leaves = []
+    for k in range(10):
+        leaf = lib.new_cell(f"LEAF_{k}")
+        for j in range(10):
+            pitch = (60 + 0.6 * (10 * k + j) - (0.6 * (10 * k + j)) % 1.0) / 1000.0
+            x0 = j * 3.0
+            for i in range(8):
+                x = x0 + i * pitch
+                leaf.add(gdstk.rectangle((x, 0), (x + pitch / 2, 2.0), layer=1))
+        leaves.append(leaf)
+    row = lib.new_cell("ROW")
+    for k, leaf in enumerate(leaves):
+        row.add(gdstk.Reference(leaf, (k * 32.0, 0)))
+    block = lib.new_cell("BLOCK")  # 320 x 150 um
+    for r in range(50):
+        mirrored = r % 2 == 1
+        block.add(
+            gdstk.Reference(row, (0, r * 3.0 + (2.0 if mirrored else 0.0)), x_reflection=mirrored)
+        )
+    top = lib.new_cell("TOP")
+    blocks = max(1, rows_target // 50)
+    lattice = max(1, int(0.8 * blocks))
+    cols = max(1, int(math.sqrt(lattice)))
+    rws = max(1, lattice // cols)
+    top.add(gdstk.Reference(block, (0, 0), columns=cols, rows=rws, spacing=(340.0, 170.0)))
+    scattered = blocks - cols * rws
+    x_base = cols * 340.0 + 500.0
+    for s in range(scattered):  # off the lattice, at random offsets and turns
+        x = x_base + (s % 6) * 400.0 + float(rng.integers(0, 1000)) * 0.013
+        y = (s // 6) * 400.0 + float(rng.integers(0, 1000)) * 0.011
+        top.add(gdstk.Reference(block, (x, y), rotation=math.pi / 2 * float(rng.integers(0, 4))))
+    y_base = max(rws * 170.0, (scattered // 6 + 1) * 400.0)
+    y_alone = y_base + 500.0
+    for k in range(10):  # a leaf with a foreign line 200 nm beside its first array
+        top.add(gdstk.Reference(leaves[k], (k * 40.0, y_alone)))
+        top.add(
+            gdstk.rectangle((k * 40.0 - 0.25, y_alone), (k * 40.0 - 0.2, y_alone + 2.0), layer=1)
+        )
+    if str(path).endswith(".gds"):
+        lib.write_gds(str(path))
+    else:
+        lib.write_oas(str(path))
+    n_rows = 50 * (cols * rws + scattered)
+    return {
+        "row_placements": n_rows,
+        "leaf_placements": 10 * n_rows + 10,
+        "shapes": 800 * n_rows + 90,
+    }

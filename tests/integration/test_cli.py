@@ -9,6 +9,7 @@ import sys
 from pathlib import Path
 
 import gdstk
+import numpy as np
 import pytest
 
 from pitchguard.deck import load_deck
@@ -142,24 +143,60 @@ def test_json_coordinates_are_micrometres_whatever_the_unit(tmp_path, capsys, dr
     assert boxes[0] == pytest.approx([1.0, 2.0, 1.825, 3.0])  # 7 pitches + one width
 
 
+def _read_markers(path):
+    return gdstk.read_gds(str(path)) if path.suffix == ".gds" else gdstk.read_oas(str(path))
+
+
+def _marker_polygons(lib):
+    """Every marker polygon of a marker file, flattened, as (layer, datatype, corners nm)."""
+    (top,) = [c for c in lib.top_level() if c.name == "PITCHGUARD_MARKERS"]
+    out = []
+    for p in top.get_polygons():
+        pts = np.round(p.points * 1000.0)  # um -> nm
+        out.append((p.layer, p.datatype, pts[np.lexsort(pts.T[::-1])]))
+    return sorted(out, key=lambda r: (r[0], r[1], *r[2].ravel().tolist()))
+
+
 @pytest.mark.parametrize("ext", [".gds", ".oas"])
-def test_markers_one_polygon_and_label_per_finding(tmp_path, capsys, ext, demo_json):
+def test_markers_one_polygon_and_label_per_placement(tmp_path, capsys, ext, demo_json):
+    """Flattened, the hierarchical marker file holds one polygon and one label per
+    placement of a finding, on the deck's marker layer of its severity; the flat
+    file holds the same polygons (to the 1 nm grid: corners of a turned cell's
+    markers are snapped in the cell's frame)."""
     out = tmp_path / f"markers{ext}"
+    flat = tmp_path / f"flat{ext}"
     code, _, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--markers", out, "-q")
     assert code == 1
-    lib = gdstk.read_gds(str(out)) if ext == ".gds" else gdstk.read_oas(str(out))
-    (cell,) = lib.cells
+    code, _, _ = run_cli(
+        capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--markers", flat, "--flat-markers", "-q"
+    )
+    assert code == 1
+    lib, flat_lib = _read_markers(out), _read_markers(flat)
     placements = demo_json["summary"]["placements"]
-    assert len(cell.polygons) == placements == len(cell.labels)
+    (flat_cell,) = flat_lib.cells
+    assert len(flat_cell.polygons) == placements == len(flat_cell.labels)
+    (top,) = lib.top_level()
+    assert len(top.get_polygons()) == placements == len(top.get_labels())
+    # A marker cell per cell with findings away from the top and set of placements
+    # (the JSON entries' "placed"), placed by reference.
+    entries = [e for e in demo_json["findings"] if len(e["cell_path"]) > 1]
+    contexts = {(e["cell"], json.dumps(e["placed"], sort_keys=True)) for e in entries}
+    assert len(lib.cells) - 1 == len(contexts) > 0
+    assert {c.name.split("_", 1)[1] for c in lib.cells if c is not top} == {
+        e["cell"] for e in entries
+    }
+    a, b = _marker_polygons(lib), _marker_polygons(flat_lib)
+    assert [r[:2] for r in a] == [r[:2] for r in b]
+    assert max(float(np.abs(x[2] - y[2]).max()) for x, y in zip(a, b, strict=True)) <= 1.0
     deck = load_deck(DEMO_DECK)
     by_layer = {}
-    for p in cell.polygons:
-        by_layer.setdefault((p.layer, p.datatype), 0)
-        by_layer[(p.layer, p.datatype)] += 1
+    for layer, datatype, _ in a:
+        by_layer[(layer, datatype)] = by_layer.get((layer, datatype), 0) + 1
     expected = {deck.markers[s]: n for s, n in demo_json["summary"]["by_severity"].items() if n}
     assert by_layer == expected
-    assert any(lbl.text.startswith("fail unresolvable-pitch") for lbl in cell.labels)
-    assert lib.unit == pytest.approx(1e-6) and lib.precision == pytest.approx(1e-9)
+    assert any(lbl.text.startswith("fail unresolvable-pitch") for lbl in top.get_labels())
+    for one in (lib, flat_lib):
+        assert one.unit == pytest.approx(1e-6) and one.precision == pytest.approx(1e-9)
 
 
 def test_oasis_sample_gives_same_findings_as_gdsii(tmp_path, capsys, demo_json):
@@ -255,12 +292,20 @@ def test_garbage_collection_is_on_for_the_scan_and_as_it_was_after(capsys, monke
     assert gc.isenabled()
 
 
-def test_table_lists_layers_and_worst_regions(capsys):
+def test_table_lists_layers_and_worst_findings_of_cells(capsys, demo_json):
     code, out, _ = run_cli(capsys, "scan", SAMPLE_GDS, "--rules", DEMO_DECK, "--top", "3")
     assert code == 1
-    assert "Findings per layer" in out and "Worst regions (3 of" in out
+    assert "Findings per layer" in out
     for layer in ("active", "poly", "metal1"):
         assert layer in out
+    # The worst findings of cells, with their placements (the JSON's entries and summary).
+    data = demo_json
+    n, placed = data["summary"]["findings"], data["summary"]["placements"]
+    assert f"Worst findings (3 of {n}; {placed} placements)" in out
+    assert n < placed  # the demo places a cell finding twice
+    first = data["findings"][0]
+    row = next(line for line in out.splitlines() if line.lstrip().startswith("1 "))
+    assert first["cell"] in row and f" {first['placements']} " in row
     assert "sign-off stays with the fab" in out
 
 

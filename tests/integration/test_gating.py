@@ -1,9 +1,11 @@
 """Gating a merge: baselines and revision diffs.
 
-What counts as "the same finding" is the project's own rule (README, "In
-CI"); these tests hold it to the behaviour CI needs: a baseline taken on one
-revision passes that revision, survives a shift of the whole layout and an
-unrelated addition, and reports exactly what was added.
+What counts as "the same finding" is the project's own rule (docs/gating.md:
+per cell finding); these tests hold it to the behaviour CI needs: a baseline
+taken on one revision passes that revision, survives a shift of the whole
+layout and another placement of an accepted cell, and reports exactly what
+was added (a new cell).  tests/integration/test_gating_cells.py holds the
+per-cell rule itself.
 """
 
 from __future__ import annotations
@@ -16,7 +18,7 @@ import pytest
 from .conftest import DRY_ARF_CUTOFF_NM, line_array_cell, run_cli
 
 
-def _chip(path, shift=(0.0, 0.0), add=False, remove_b=False):
+def _chip(path, shift=(0.0, 0.0), add=False, remove_b=False, new_cell=False):
     lib = gdstk.Library()
     top = lib.new_cell("TOP")
     a = line_array_cell(lib, "A110", (7, 0), 110, 55, 9, 1500)  # below the 115.3 nm cutoff
@@ -27,6 +29,9 @@ def _chip(path, shift=(0.0, 0.0), add=False, remove_b=False):
         top.add(gdstk.Reference(b, (10 + sx, sy)))
     if add:
         top.add(gdstk.Reference(a, (30 + sx, 5 + sy)))
+    if new_cell:  # A110's lines drawn again in a cell of their own: another cell's finding
+        c = line_array_cell(lib, "C110", (7, 0), 110, 55, 9, 1500)
+        top.add(gdstk.Reference(c, (30 + sx, 5 + sy)))
     lib.write_gds(str(path))
     return path
 
@@ -39,6 +44,8 @@ def revs(tmp_path, dry_deck):
         "shifted": _chip(tmp_path / "shifted.gds", shift=(3.7, -2.2)),
         "added": _chip(tmp_path / "added.gds", add=True),
         "both": _chip(tmp_path / "both.gds", shift=(3.7, -2.2), add=True),
+        "new_cell": _chip(tmp_path / "new_cell.gds", new_cell=True),
+        "both_new": _chip(tmp_path / "both_new.gds", shift=(3.7, -2.2), new_cell=True),
         "fixed": _chip(tmp_path / "fixed.gds", remove_b=True),
         "base": tmp_path / "baseline.json",
         "tmp": tmp_path,
@@ -58,8 +65,8 @@ def test_baseline_passes_its_own_revision(revs, capsys):
     assert code == 0 and "0 new, 2 accepted, 0 stale" in out
 
 
-@pytest.mark.parametrize("rev", ["shifted", "added", "both"])
-def test_baseline_survives_shift_and_unrelated_addition(revs, capsys, rev):
+@pytest.mark.parametrize("rev", ["shifted", "added", "both", "new_cell", "both_new"])
+def test_baseline_survives_shift_and_another_placement(revs, capsys, rev):
     run_cli(capsys, "scan", revs["r1"], "-r", revs["deck"], "-q", "--write-baseline", revs["base"])
     js = revs["tmp"] / f"{rev}.json"
     code, out, _ = run_cli(
@@ -75,14 +82,19 @@ def test_baseline_survives_shift_and_unrelated_addition(revs, capsys, rev):
         js,
     )
     data = json.loads(js.read_text())
-    added = rev in ("added", "both")
-    assert data["baseline"]["accepted"] == 2 and data["baseline"]["stale"] == 0
+    # Another placement of A110 is accepted with A110's entry (one more placement
+    # accepted by the same two entries); the new cell C110 is new.
+    placed_again = rev in ("added", "both")
+    added = rev in ("new_cell", "both_new")
+    assert data["baseline"]["accepted"] == (3 if placed_again else 2)
+    assert len(data["baseline"]["accepted_entries"]) == 2 and data["baseline"]["stale"] == 0
     assert data["baseline"]["new"] == (1 if added else 0)
     assert code == (1 if added else 0)
     if added:
         # Exactly the added array, wherever the whole layout moved.
         (f,) = data["findings"]
-        dx, dy = (3.7, -2.2) if rev == "both" else (0.0, 0.0)
+        assert f["cell"] == "C110"
+        dx, dy = (3.7, -2.2) if rev == "both_new" else (0.0, 0.0)
         x0, y0, x1, y1 = f["bbox_um"]
         assert x0 == pytest.approx(30 + dx, abs=0.01) and y0 == pytest.approx(5 + dy, abs=0.01)
 
@@ -127,7 +139,7 @@ def test_bad_baseline_is_a_usage_error(revs, capsys):
 def test_diff_reports_exactly_the_introduced_array(revs, capsys):
     js = revs["tmp"] / "diff.json"
     code, out, _ = run_cli(
-        capsys, "diff", revs["r1"], revs["both"], "-r", revs["deck"], "-q", "--json", js
+        capsys, "diff", revs["r1"], revs["both_new"], "-r", revs["deck"], "-q", "--json", js
     )
     assert code == 1
     data = json.loads(js.read_text())
@@ -185,7 +197,7 @@ def test_diff_writes_every_ci_output(revs, capsys):
         capsys,
         "diff",
         revs["r1"],
-        revs["both"],
+        revs["both_new"],
         "-r",
         revs["deck"],
         "-q",

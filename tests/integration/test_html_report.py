@@ -26,6 +26,7 @@ from matplotlib import image as mpimg
 from decks import DEMO_DECK, DRY_ARF_DECK
 from decks import SAMPLE_GDS as DEMO_GDS
 from pitchguard.deck import load_deck
+from pitchguard.judge.per_cell import cell_findings
 from pitchguard.optics.cut_images import cut_image
 from pitchguard.optics.resist import printed_edges
 from pitchguard.outputs.html.groups import group_findings
@@ -53,7 +54,7 @@ MANY_MAX_GROUPS = 2
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
     deck = load_deck(DEMO_DECK)
-    result = scan_layout(DEMO_GDS, deck)
+    result = scan_layout(DEMO_GDS, deck, cells=True)
     out = tmp_path_factory.mktemp("html_demo") / "demo_report.html"
     write_html(out, result, deck, [DEMO_GDS, DEMO_DECK], "fail")
     return out, result, deck
@@ -80,7 +81,7 @@ def many(tmp_path_factory):
     _many_layout(gds)
     deck_path.write_text(MANY_DECK)
     deck = load_deck(deck_path)
-    result = scan_layout(gds, deck)
+    result = scan_layout(gds, deck, cells=True)
     out = folder / "many_report.html"
     write_html(out, result, deck, [gds, deck_path], "fail", max_groups=MANY_MAX_GROUPS)
     return out, result, deck
@@ -160,9 +161,16 @@ def test_demo_report_summary_caution_and_groups(demo):
     ranks = [("fail", "risk", "marginal").index(s) for s, _ in sections]
     assert ranks == sorted(ranks)
     assert 'id="more-groups"' not in text and 'id="cap-message"' not in text  # all drawn
-    # Every finding's location is listed once.
-    listed = re.findall(r"<tr><td class='n'>\d+</td><td class='n'>(-?[\d.]+, -?[\d.]+)</td>", text)
-    assert len(listed) == len(result.findings)
+    # Every finding of a cell is listed once, with its placements: they add up.
+    listed = re.findall(
+        r"<tr><td class='n'>\d+</td><td>([^<]+)(?:<span[^>]*>[^<]*</span>)?</td>"
+        r"<td class='n'>[^<]+</td><td class='n'>(\d+)</td>",
+        text,
+    )
+    entries = cell_findings(result)
+    assert len(listed) == len(entries) < len(result.findings)
+    assert sum(int(n) for _, n in listed) == len(result.findings)
+    assert sorted(c for c, _ in listed) == sorted(html.escape(c.cell) for c in entries)
 
 
 def test_demo_report_pictures_are_png_data_uris(demo):
@@ -275,7 +283,9 @@ def test_many_identical_findings_are_grouped_and_capped(many):
     sections = re.findall(r'<details class="group \w+" id="g\d+"[^>]*data-count="(\d+)"', text)
     assert sections == [str(copies)] * MANY_MAX_GROUPS
     assert len(png_images(text)) == 2 * MANY_MAX_GROUPS  # pictures drawn once per group
-    assert f"all {copies} locations" in text
+    # Each array cell is placed 6 um apart, beyond the interaction range: one finding
+    # of the cell per pitch, placed 30 times.
+    assert text.count(f"1 finding of cells, placed {copies} times") == MANY_MAX_GROUPS
     rest = len(groups) - MANY_MAX_GROUPS
     rest_findings = sum(len(g.findings) for g in groups[MANY_MAX_GROUPS:])
     cap = re.search(r'id="cap-message"><strong>(\d+) more groups? \((\d+) findings?\)', text)

@@ -31,12 +31,13 @@ from decks import SAMPLE_GDS as DEMO_GDS
 from pitchguard.deck import SEVERITIES, load_deck
 from pitchguard.errors import OutputError
 from pitchguard.judge.checks import CHECKS
+from pitchguard.judge.per_cell import each_alone
 from pitchguard.outputs.junit import to_junit, write_junit
 from pitchguard.outputs.sarif import (
     FINGERPRINT_KEY,
     LEVEL,
+    entry_fingerprints,
     fingerprint_base,
-    fingerprints,
     rule_name,
     to_sarif,
     write_sarif,
@@ -342,7 +343,7 @@ def test_fingerprints_survive_a_shift_of_the_whole_layout(tmp_path):
 
 def test_fingerprints_differ_for_different_pitches_and_number_equal_ones(tmp_path):
     result, _, _ = _scan_small(tmp_path, "a", 0.0, 0.0)
-    fps = fingerprints(result.findings)
+    fps = entry_fingerprints(each_alone(result.findings))
     base = {}
     for f, fp in zip(result.findings, fps, strict=True):
         base.setdefault((f.check, round(f.pitch_nm)), set()).add(fp)
@@ -372,6 +373,51 @@ def test_fingerprints_differ_for_different_pitches_and_number_equal_ones(tmp_pat
         {"check": "low-k1"},
     ):
         assert fingerprint_base(dataclasses.replace(f, **change)) != fingerprint_base(f), change
+
+
+def _scan_placed(tmp_path: Path, name: str, origins_um):
+    """A cell holding a 100 nm array (below the 115.3 nm limit) placed at ``origins_um``."""
+    lib = gdstk.Library(unit=1e-6, precision=1e-9)
+    arr = lib.new_cell("ARR")
+    _array(arr, 0.0, 0.0, 100, 50)
+    top = lib.new_cell("TOP")
+    for o in origins_um:
+        top.add(gdstk.Reference(arr, o))
+    gds = tmp_path / f"{name}.gds"
+    lib.write_gds(str(gds))
+    deck_path = tmp_path / "small.toml"
+    deck_path.write_text(SMALL_DECK)
+    deck = load_deck(deck_path)
+    return scan_layout(gds, deck, cells=True), deck, gds
+
+
+def _sarif_run(result, deck, gds) -> dict:
+    return to_sarif(result, deck, gds, "fail")["runs"][0]
+
+
+def test_a_cell_finding_keeps_its_fingerprint_when_placed_elsewhere_or_again(tmp_path):
+    """One result per finding of cell ARR, whatever its placements (all far apart)."""
+    a = _sarif_run(*_scan_placed(tmp_path, "a", [(0.0, 0.0)]))
+    b = _sarif_run(*_scan_placed(tmp_path, "b", [(20.0, 7.0), (-30.0, 40.0), (60.0, -20.0)]))
+    fa = [r["partialFingerprints"][FINGERPRINT_KEY] for r in a["results"]]
+    fb = [r["partialFingerprints"][FINGERPRINT_KEY] for r in b["results"]]
+    assert len(fa) >= 1 and sorted(fa) == sorted(fb)
+    assert [r["properties"]["placements"] for r in b["results"]] == [3] * len(fb)
+    assert {r["locations"][0]["logicalLocations"][0]["name"] for r in b["results"]} == {"ARR"}
+    assert {r["properties"]["cell_path"][-1] for r in b["results"]} == {"ARR"}
+
+
+def test_junit_has_a_case_per_cell_finding_not_per_placement(tmp_path):
+    result, deck, _ = _scan_placed(tmp_path, "c", [(20.0, 7.0), (-30.0, 40.0), (60.0, -20.0)])
+    fails = [f for f in result.findings if f.severity == "fail"]
+    assert len(fails) >= 3 and len(fails) % 3 == 0  # every finding thrice, once per placement
+    root = ET.fromstring(to_junit(result, deck, "fail"))
+    failing = [c for c in root.iter("testcase") if c.find("failure") is not None]
+    assert len(failing) == len(fails) // 3 == int(root.get("failures"))
+    for c in failing:
+        assert " in ARR at (" in c.get("name")
+        assert "In cell ARR (placed TOP > ARR)" in c.find("failure").text
+        assert "3 placements" in c.find("failure").text
 
 
 # --------------------------------------------------------------------- JUnit

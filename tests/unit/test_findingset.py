@@ -201,7 +201,11 @@ def test_sarif_fingerprints_number_equal_findings_by_place(placed):
     ties in the findings' order."""
     from collections import defaultdict
 
-    from pitchguard.outputs.sarif import fingerprint_base, fingerprints
+    from pitchguard.judge.per_cell import each_alone
+    from pitchguard.outputs.sarif import entry_fingerprints, fingerprint_base
+
+    def fingerprints(findings):
+        return entry_fingerprints(each_alone(findings))
 
     fs, expected = placed
     groups = defaultdict(list)

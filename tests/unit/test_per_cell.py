@@ -88,3 +88,25 @@ def test_placements_of_one_cell_finding_form_one_entry(demo):
     assert [g.items.tolist() for g in groups] == [[0, 1, 2], [3], [4]]
     assert np.allclose(groups[0].cell_bbox_nm, local, atol=1e-3)
     assert groups[0].finding == items[0] and groups[0].path == ("TOP", "C")
+
+
+def test_ties_of_the_worst_site_do_not_split_a_cell_finding(demo):
+    """Placements of one region whose worst site differs (an outer line in one, an
+    interior one in another) are one entry; another severity is another entry."""
+    f = demo[0]
+    items = [
+        f,
+        replaced(placed(f, 1e6, 0.0), context="outer", message=f.message + " (outer)"),
+        replaced(placed(f, 2e6, 0.0), severity="risk"),
+    ]
+    eye = np.array([[1.0, 0.0, 0.0, 1.0]] * 3)
+    cells = CellMap(
+        ("C",),
+        (("TOP", "C"),),
+        np.zeros(3, np.int32),
+        np.zeros(3, np.int32),
+        eye,
+        np.array([[0.0, 0.0], [1e6, 0.0], [2e6, 0.0]]),
+    )
+    groups = group_by_cell(FindingSet.of(items), cells)
+    assert [g.items.tolist() for g in groups] == [[0, 1], [2]]

@@ -85,25 +85,3 @@ def test_streamed_junit_is_the_same_text(demo, tmp_path, fail_on):
     out = tmp_path / "r.xml"
     write_junit(out, result, deck, fail_on)
     assert out.read_text(encoding="utf-8") == to_junit(result, deck, fail_on)
-
-
-def test_placed_rows_keep_the_sign_of_a_negative_zero(demo):
-    """A FindingSet item at no offset is its distinct finding itself; its row made
-    from the template must read the same, -0.0 included (a mirrored reference
-    can leave one in a box: -0.0 + 0.0 would write 0.0)."""
-    import dataclasses
-
-    import numpy as np
-
-    from pitchguard.judge.findings import FindingSet
-    from pitchguard.outputs.json_report import finding_rows, finding_to_dict
-
-    result, _ = demo
-    f = result.findings[0]
-    x0, y0, x1, y1 = f.bbox_nm
-    g = dataclasses.replace(f, bbox_nm=(-0.0, y0, x1 - x0, y1))
-    fs = FindingSet([g], np.zeros(2, dtype=np.int64), np.array([[0.0, 0.0], [5.0, 0.0]]))
-    one = json.dumps
-    rows = list(finding_rows(fs).texts(one))
-    assert rows == [one(finding_to_dict(h)) for h in fs]
-    assert '"bbox_um": [-0.0,' in rows[0] and '"bbox_um": [0.005,' in rows[1]

@@ -205,7 +205,13 @@ def add_output_options(p) -> None:
         "--markers",
         type=Path,
         metavar="PATH",
-        help="write a marker layout (.gds or .oas) of flagged regions",
+        help="write a marker layout (.gds or .oas) of flagged regions: a marker cell per "
+        "cell with findings, placed where they occur",
+    )
+    p.add_argument(
+        "--flat-markers",
+        action="store_true",
+        help="write the marker layout flat: one polygon per placement, all in the top cell",
     )
     p.add_argument("--json", type=Path, metavar="PATH", help="write findings as JSON")
     p.add_argument(

@@ -35,8 +35,8 @@ def only_counts(args) -> bool:
 
 
 def _run_scan(args, deck, layout: Path, label: str = "", cells: bool | None = None):
-    """Scan ``layout``; ``cells`` (default: when a JSON report is written) names the
-    cell of every finding too."""
+    """Scan ``layout``; ``cells`` (default: unless only the counts are read) names
+    the cell of every finding too: every report lists findings per cell."""
     from functools import partial
 
     from pitchguard.layout.reader import DEFAULT_MAX_SHAPES
@@ -54,7 +54,7 @@ def _run_scan(args, deck, layout: Path, label: str = "", cells: bool | None = No
 
     resume_gc()
     if cells is None:
-        cells = args.json is not None
+        cells = not only_counts(args)
     tiled = not args.untiled
     if not tiled and (args.jobs or args.tile_um or args.scheduler or args.max_memory_mb):
         raise PitchguardError(
@@ -109,16 +109,16 @@ def _write_outputs(args, result, deck, inputs, extra_json=None) -> None:
             payload.update(extra_json(texts) if callable(extra_json) else extra_json)
         write_json(args.json, payload, inputs)
     if args.markers is not None:
-        write_markers(args.markers, result, deck, inputs)
+        write_markers(args.markers, result, deck, inputs, flat=args.flat_markers)
     if args.sarif is not None:
         from pitchguard.outputs.sarif import SERVICE_RESULTS_MAX, write_sarif
 
-        write_sarif(args.sarif, result, deck, result.layout.path, args.fail_on, inputs)
-        if len(result.findings) > SERVICE_RESULTS_MAX:  # also with --quiet: CI logs need it
+        results = write_sarif(args.sarif, result, deck, result.layout.path, args.fail_on, inputs)
+        if results > SERVICE_RESULTS_MAX:  # also with --quiet: CI logs need it
             show_note(
                 make_console(stderr=True),
                 (
-                    f"{args.sarif} holds {len(result.findings):,} results; code-scanning services "
+                    f"{args.sarif} holds {results:,} results; code-scanning services "
                     f"take at most {SERVICE_RESULTS_MAX:,} per run (GitHub's documented limit): "
                     "upload the SARIF of a scan gated by --baseline (new findings only) or of a "
                     "--region"
@@ -158,8 +158,12 @@ def cmd_scan(args) -> int:
         inputs = inputs[:-1]  # updating a baseline in place keeps its reasons and owners
     _check_outputs(args, inputs)
     entries = load_baseline(args.baseline) if args.baseline else None
+    from pitchguard.outputs.baseline import accepted_to_dict, entry_text
+
     result = _run_scan(args, deck, args.layout)
-    gate = apply_baseline(result.findings, entries, args.baseline) if entries is not None else None
+    gate = None
+    if entries is not None:
+        gate = apply_baseline(result.findings, entries, args.baseline, cells=result.cells)
     extra = None
     shown = result
     if gate is not None:
@@ -167,19 +171,10 @@ def cmd_scan(args) -> int:
             "baseline": {
                 "path": str(args.baseline),
                 "new": len(gate.new),
-                "accepted": len(gate.accepted),
+                "accepted": gate.accepted_placements,
                 "stale": len(gate.stale),
                 "stale_entries": gate.stale,
-                "accepted_entries": [
-                    {
-                        "layer": f.layer,
-                        "check": f.check,
-                        "centre_um": list(f.centre_um),
-                        "reason": e.get("reason", ""),
-                        "owner": e.get("owner", ""),
-                    }
-                    for f, e in gate.accepted
-                ],
+                "accepted_entries": [accepted_to_dict(a) for a in gate.accepted],
             }
         }
         cells = result.cells.take(gate.new_index) if result.cells is not None else None
@@ -192,13 +187,14 @@ def cmd_scan(args) -> int:
             deck.name,
             str(args.layout),
             [p for p in inputs if p != args.baseline],
+            cells=result.cells,
         )
     gated = gate.new if gate is not None else result.findings
     code = exit_code(gated, args.fail_on)
     note = ""
     if gate is not None:
         note = (
-            f" [baseline: {len(gate.new)} new, {len(gate.accepted)} accepted, "
+            f" [baseline: {len(gate.new)} new, {gate.accepted_placements} accepted, "
             f"{len(gate.stale)} stale]"
         )
     if args.quiet:
@@ -208,14 +204,14 @@ def cmd_scan(args) -> int:
         print_table(out, shown, args.fail_on, top=args.top)
         if gate is not None:
             out.print(
-                f"baseline {args.baseline}: {len(gate.new)} new finding(s) shown above, "
-                f"{len(gate.accepted)} accepted, {len(gate.stale)} stale"
+                f"baseline {args.baseline}: {len(gate.new)} new placement(s) shown above, "
+                f"{gate.accepted_placements} accepted by {len(gate.accepted)} "
+                f"entr{'y' if len(gate.accepted) == 1 else 'ies'}, "
+                f"{len(gate.stale)} stale",
+                markup=False,
             )
-            for e in gate.stale[:20]:
-                out.print(
-                    f"  stale (fixed since, prune it): {e['layer']} {e['check']} "
-                    f"pitch {e['pitch_nm']} nm at {e['centre_um']} µm"
-                )
+            for e in gate.stale[:20]:  # cell names are the user's: no markup
+                out.print(f"  stale (fixed since, prune it): {entry_text(e)}", markup=False)
     return code
 
 
@@ -223,17 +219,18 @@ def cmd_diff(args) -> int:
     import dataclasses
 
     from pitchguard.deck import load_deck
-    from pitchguard.outputs.baseline import diff
-    from pitchguard.outputs.json_report import finding_to_dict
+    from pitchguard.outputs.baseline import diff, unit_text
+    from pitchguard.outputs.json_report import entry_to_dict
     from pitchguard.outputs.table import one_line_summary, print_table
     from pitchguard.outputs.verdict import exit_code
 
     deck = load_deck(args.rules)
     inputs = [args.base, args.new, args.rules]
     _check_outputs(args, inputs)
-    base = _run_scan(args, deck, args.base, "base", cells=False)  # only new's are reported
-    new = _run_scan(args, deck, args.new, "new")
-    d = diff(base.findings, new.findings)
+    # Both scans name cells, even quiet ones: revisions are matched per cell finding.
+    base = _run_scan(args, deck, args.base, "base", cells=True)
+    new = _run_scan(args, deck, args.new, "new", cells=True)
+    d = diff(base.findings, new.findings, base.cells, new.cells)
     shown = dataclasses.replace(
         new,
         findings=d.introduced,
@@ -247,26 +244,24 @@ def cmd_diff(args) -> int:
                 "base": str(args.base),
                 "new": str(args.new),
                 "introduced": len(d.introduced),
-                "fixed": len(d.fixed),
-                "unchanged": len(d.unchanged),
-                "fixed_findings": [finding_to_dict(f, texts=texts) for f in d.fixed],
-                "unchanged_findings": [finding_to_dict(f, texts=texts) for _, f in d.unchanged],
+                "fixed": d.fixed_placements,
+                "unchanged": d.unchanged_placements,
+                "fixed_findings": [entry_to_dict(c, texts) for c in d.fixed],
+                "unchanged_findings": [entry_to_dict(c, texts) for _, c in d.unchanged],
             }
         }
 
     _write_outputs(args, shown, deck, inputs, extra)
     line = (
         f"diff {args.base} -> {args.new}: {len(d.introduced)} introduced, "
-        f"{len(d.fixed)} fixed, {len(d.unchanged)} unchanged"
+        f"{d.fixed_placements} fixed, {d.unchanged_placements} unchanged"
     )
     if args.quiet:
         say(one_line_summary(shown, args.fail_on) + f" [{line}]")
     else:
         out = make_console()
         print_table(out, shown, args.fail_on, top=args.top)
-        out.print(line)
-        for f in d.fixed[:20]:
-            out.print(
-                f"  fixed: {f.layer} {f.check} pitch {f.pitch_nm:.1f} nm at {f.centre_um} µm (base)"
-            )
+        out.print(line, markup=False)
+        for c in d.fixed[:20]:  # cell names are the user's: no markup
+            out.print(f"  fixed: {unit_text(c)} (base)", markup=False)
     return exit_code(d.introduced, args.fail_on)

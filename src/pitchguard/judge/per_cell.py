@@ -3,9 +3,11 @@
 A scan finds every placement of a problem; a designer fixes the cell.  Two
 findings are the same cell finding when they belong to the same cell
 (run.cells: the deepest placed cell that holds the finding's window alone),
-sit at the same place in that cell's own frame, and say the same (layer,
-check, severity, worst line, message).  Each :class:`CellFinding` keeps its
-findings' indexes in report order; its first is the one shown.
+sit at the same place in that cell's own frame, and have the same layer,
+check and severity.  (The worst site and its numbers may differ between
+placements where sites tie, e.g. a flat image of an unresolvable pitch: a
+designer still has one region to fix.)  Each :class:`CellFinding` keeps its
+findings' indexes in report order; its first, the worst, is the one shown.
 """
 
 from __future__ import annotations
@@ -30,6 +32,9 @@ class CellFinding(NamedTuple):
     items: np.ndarray  # indexes into the scan's findings, report order
     m: np.ndarray  # (n, 4): each placement's matrix, p_top = m @ p_cell + t
     t: np.ndarray  # (n, 2) nm
+    # Held by its cell only because of what surrounds the placement: the region
+    # alone lies in one child placement (run.cells' ``context``).
+    depends_on_placement: bool = False
 
     @property
     def placements(self) -> int:
@@ -50,8 +55,8 @@ def boxes_in_cells(boxes: np.ndarray, m: np.ndarray, t: np.ndarray) -> np.ndarra
 
 
 def _says(f: Finding) -> tuple:
-    """What a finding says, wherever and however it is placed."""
-    return (f.layer, f.check, f.severity, f.context, f.message)
+    """What a finding is, wherever and however it is placed."""
+    return (f.layer, f.check, f.severity)
 
 
 def group_by_cell(findings, cells) -> list[CellFinding]:
@@ -81,6 +86,7 @@ def group_by_cell(findings, cells) -> list[CellFinding]:
     order = np.argsort(group, kind="stable")
     bounds = np.flatnonzero(np.diff(group[order])) + 1
     out = []
+    context = getattr(cells, "context", None)
     for items in np.split(order, bounds):
         k = int(items[0])
         out.append(
@@ -92,6 +98,7 @@ def group_by_cell(findings, cells) -> list[CellFinding]:
                 items=items,
                 m=cells.m[items],
                 t=cells.t[items],
+                depends_on_placement=bool(context[k]) if context is not None else False,
             )
         )
     return out

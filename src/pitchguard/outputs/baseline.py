@@ -1,18 +1,42 @@
-"""Baselines (accepted findings) and diffs between scans, matched by signature."""
+"""Baselines (accepted findings) and diffs between scans, matched per cell finding.
+
+What is compared is a scan's *cell findings* (``judge.per_cell``): one distinct
+finding of a cell with all its placements.  A baseline entry records one, and
+matches a cell finding of a later scan with the same cell, a compatible
+signature (layer, check, line context, pitch, width, space, orientation and
+line count within tolerances) and, among several such, the nearest position
+in the cell's own frame.  A match accepts every placement of the cell
+finding, however many there are and wherever the parent puts them.  A
+placement whose surroundings within the interaction range differ belongs to
+the parent cell instead (``layout.holders``), so it is another cell finding.
+Findings held by a top cell are compared across top cells whatever their
+names: their frame is the layout's.
+
+Entries without a cell (per-placement entries, or any entry when the scan
+names no cells) match one placement each, by position in the top frame.
+Positions only choose among compatible candidates; within one cell (or the
+top frame) the most common offset between candidates is taken as a shift.
+"""
 
 from __future__ import annotations
 
 import json
 import math
 from collections import Counter
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
+from typing import NamedTuple
+
+import numpy as np
 
 from pitchguard.errors import PitchguardError, read_input_text
-from pitchguard.judge.findings import Finding
+from pitchguard.judge.findings import Finding, box_um, centre_um
+from pitchguard.judge.per_cell import CellFinding, each_alone, group_by_cell
 from pitchguard.outputs.files import atomic_write
 
 FORMAT_VERSION = 1
+"""Entries with a cell add keys to version 1 (a reader that ignores them gates
+per placement: stricter, never looser)."""
 
 
 PITCH_TOL_NM = 1.0
@@ -26,10 +50,22 @@ ANGLE_TOL_DEG = 1.0
 
 SHIFT_BIN_UM = 0.5
 
+TOP: tuple[str, ...] = ()
+"""The frame key of findings held by a top cell (the layout's own frame)."""
+
+
+def frame_key(cell: str, path) -> tuple[str, ...]:
+    """Whose frame a cell finding's position is in: its cell, or any top cell."""
+    return TOP if len(path) <= 1 else (cell,)
+
 
 @dataclass(frozen=True)
 class Signature:
-    """What identifies a finding, coordinates aside."""
+    """What identifies a finding, coordinates aside, and where it is.
+
+    ``frame`` is None for a single placement (``centre_um`` in the top frame),
+    else :func:`frame_key` of a cell finding (``centre_um`` in that cell's frame).
+    """
 
     layer: str
     check: str
@@ -40,9 +76,11 @@ class Signature:
     orientation_deg: float
     lines: int
     centre_um: tuple[float, float]
+    frame: tuple[str, ...] | None = None
 
     @classmethod
     def of(cls, f: Finding) -> Signature:
+        """One placement, in the top frame."""
         return cls(
             f.layer,
             f.check,
@@ -56,8 +94,25 @@ class Signature:
         )
 
     @classmethod
-    def from_entry(cls, e: dict, where: str) -> Signature:
+    def of_unit(cls, c: CellFinding) -> Signature:
+        """A cell finding in its cell's frame; one with no cell named, as a placement."""
+        s = cls.of(c.finding)
+        if not c.cell:
+            return s
+        centre = centre_um(box_um(c.cell_bbox_nm))
+        return replace(s, centre_um=centre, frame=frame_key(c.cell, c.path))
+
+    @classmethod
+    def from_entry(cls, e: dict, where: str, per_cell: bool = True) -> Signature:
+        """An entry's signature: per cell when it names one (and ``per_cell``), else
+        its (first) placement's, in the top frame."""
         try:
+            centre, frame = e["centre_um"], None
+            if per_cell and "cell" in e:
+                path = e["cell_path"]
+                if not isinstance(path, list):
+                    raise TypeError("cell_path is not a list")
+                centre, frame = e["cell_centre_um"], frame_key(str(e["cell"]), path)
             return cls(
                 str(e["layer"]),
                 str(e["check"]),
@@ -67,7 +122,8 @@ class Signature:
                 _as_float(e["space_nm"]),
                 float(e["orientation_deg"]),
                 int(e["lines"]),
-                (float(e["centre_um"][0]), float(e["centre_um"][1])),
+                (float(centre[0]), float(centre[1])),
+                frame,
             )
         except (KeyError, TypeError, ValueError, IndexError) as exc:
             raise PitchguardError(f"{where}: baseline entry is malformed ({exc})") from None
@@ -85,8 +141,8 @@ def _close(a: float, b: float) -> bool:
 
 
 def compatible(a: Signature, b: Signature) -> bool:
-    """Same layer, check, context and geometry within tolerance."""
-    if (a.layer, a.check, a.context) != (b.layer, b.check, b.context):
+    """Same frame, layer, check, context and geometry within tolerance."""
+    if (a.frame, a.layer, a.check, a.context) != (b.frame, b.layer, b.check, b.context):
         return False
     dang = abs(a.orientation_deg - b.orientation_deg) % 180.0
     if min(dang, 180.0 - dang) > ANGLE_TOL_DEG:
@@ -104,12 +160,11 @@ def _bucket(s: Signature) -> tuple:
     """Coarse class: compatible signatures share it or sit in a neighbouring one."""
     p = s.pitch_nm
     pb = -1 if not math.isfinite(p) else int(math.floor(math.log(max(p, 1e-3)) / math.log(1.02)))
-    return (s.layer, s.check, s.context, pb)
+    return (s.frame, s.layer, s.check, s.context, pb)
 
 
 def _candidates(old: list[Signature], new: list[Signature]) -> list[tuple[int, int]]:
     """Compatible pairs, found through pitch buckets (and positions for big groups)."""
-    import numpy as np
     from scipy.spatial import cKDTree
 
     groups: dict[tuple, list[int]] = {}
@@ -120,10 +175,10 @@ def _candidates(old: list[Signature], new: list[Signature]) -> list[tuple[int, i
     for j, b in enumerate(new):
         by_new.setdefault(_bucket(b), []).append(j)
     for key, js in by_new.items():
-        layer, check, context, pb = key
+        *head, pb = key
         olds: list[int] = []
         for d in (0,) if pb < 0 else (-2, -1, 0, 1, 2):
-            olds.extend(groups.get((layer, check, context, pb + d), []))
+            olds.extend(groups.get((*head, pb + d), []))
         if not olds:
             continue
         if len(olds) * len(js) <= 250_000:
@@ -138,8 +193,21 @@ def _candidates(old: list[Signature], new: list[Signature]) -> list[tuple[int, i
     return pairs
 
 
+def _shift(offsets: list[tuple[float, float]]) -> tuple[float, float]:
+    """The most common offset (binned), refined by the mean of those near it."""
+    bins = Counter((round(dx / SHIFT_BIN_UM), round(dy / SHIFT_BIN_UM)) for dx, dy in offsets)
+    bx, by = bins.most_common(1)[0][0]
+    near = [
+        o
+        for o in offsets
+        if abs(o[0] / SHIFT_BIN_UM - bx) <= 1 and abs(o[1] / SHIFT_BIN_UM - by) <= 1
+    ]
+    return (sum(o[0] for o in near) / len(near), sum(o[1] for o in near) / len(near))
+
+
 def match(old: list[Signature], new: list[Signature]) -> list[tuple[int, int]]:
-    """Pairs ``(i_old, j_new)``, each index used at most once."""
+    """Pairs ``(i_old, j_new)`` of compatible signatures, each index used at most
+    once, nearest first once each frame's common shift is taken off."""
     pairs = _candidates(old, new)
     if not pairs:
         return []
@@ -150,22 +218,15 @@ def match(old: list[Signature], new: list[Signature]) -> list[tuple[int, int]]:
             new[j].centre_um[1] - old[i].centre_um[1],
         )
 
-    # The most common offset between paired positions is taken as a global shift.
-    bins = Counter(
-        (round(dx / SHIFT_BIN_UM), round(dy / SHIFT_BIN_UM))
-        for dx, dy in (offset(i, j) for i, j in pairs)
-    )
-    bx, by = bins.most_common(1)[0][0]
-    near = [
-        o
-        for o in (offset(i, j) for i, j in pairs)
-        if abs(o[0] / SHIFT_BIN_UM - bx) <= 1 and abs(o[1] / SHIFT_BIN_UM - by) <= 1
-    ]
-    sx = sum(o[0] for o in near) / len(near)
-    sy = sum(o[1] for o in near) / len(near)
+    # A frame's content may move as a whole (the layout, or a cell's drawing in its frame).
+    by_frame: dict = {}
+    for i, j in pairs:
+        by_frame.setdefault(old[i].frame, []).append(offset(i, j))
+    shift = {k: _shift(v) for k, v in by_frame.items()}
 
     def dist(i, j):
         dx, dy = offset(i, j)
+        sx, sy = shift[old[i].frame]
         return math.hypot(dx - sx, dy - sy)
 
     used_i: set[int] = set()
@@ -180,20 +241,163 @@ def match(old: list[Signature], new: list[Signature]) -> list[tuple[int, int]]:
     return out
 
 
+def units_of(findings, cells) -> list[CellFinding]:
+    """What baselines and diffs compare: cell findings, or with no cells named
+    (``cells`` None) every finding alone."""
+    return each_alone(findings) if cells is None else group_by_cell(findings, cells)
+
+
+class Pairing(NamedTuple):
+    """Baseline entries paired with a scan: whole cell findings, then placements."""
+
+    units: list[CellFinding]  # the scan's cell findings (each finding alone without cells)
+    by_unit: list[tuple[int, int]]  # (entry, unit): every placement of the unit
+    by_placement: list[tuple[int, int]]  # (entry, finding index): one placement
+
+
+def pair_entries(entries: list[dict], findings, cells, where: str) -> Pairing:
+    """Entries with a cell match the scan's cell findings; the rest (and, with no
+    cells named, all) match the placements left one by one."""
+    units = units_of(findings, cells)
+    per_cell = cells is not None
+    sigs = [Signature.from_entry(e, where, per_cell) for e in entries]
+    by_unit: list[tuple[int, int]] = []
+    left = np.ones(len(findings), dtype=bool)
+    if per_cell:
+        cell_e = [i for i, s in enumerate(sigs) if s.frame is not None]
+        got = match([sigs[i] for i in cell_e], [Signature.of_unit(u) for u in units])
+        by_unit = [(cell_e[i], j) for i, j in got]
+        for _, j in by_unit:
+            left[units[j].items] = False
+    plain_e = [i for i, s in enumerate(sigs) if s.frame is None]
+    by_placement: list[tuple[int, int]] = []
+    if plain_e:
+        rest = np.flatnonzero(left).tolist()
+        got = match([sigs[i] for i in plain_e], [Signature.of(findings[k]) for k in rest])
+        by_placement = [(plain_e[i], rest[j]) for i, j in got]
+    return Pairing(units, by_unit, by_placement)
+
+
+class Accepted(NamedTuple):
+    """A baseline entry and what it accepts: a cell finding, or one placement."""
+
+    entry: dict
+    unit: CellFinding
+    per_cell: bool  # matched as a cell finding (else one placement, top frame)
+
+
 @dataclass
 class Gate:
     """Findings split by a baseline."""
 
-    new: list[Finding]
-    accepted: list[tuple[Finding, dict]]
+    new: list[Finding]  # every placement no entry accepts
+    accepted: list[Accepted]  # per matched entry
     stale: list[dict]
     path: Path | None = None
     extra: dict = field(default_factory=dict)
     new_index: list[int] = field(default_factory=list)  # of ``new`` in the findings given
 
+    @property
+    def accepted_placements(self) -> int:
+        return sum(a.unit.placements for a in self.accepted)
 
-def entry_of(f: Finding, reason: str = "", owner: str = "") -> dict:
+
+def _alone(u: CellFinding, k: int, f: Finding) -> CellFinding:
+    """Placement ``k`` (finding ``f``) of the cell finding ``u``, as one of its own."""
+    at = int(np.flatnonzero(u.items == k)[0])
+    one = slice(at, at + 1)
+    return u._replace(finding=f, items=u.items[one], m=u.m[one], t=u.t[one])
+
+
+def _unit_of(units: list[CellFinding], n: int) -> np.ndarray:
+    out = np.zeros(n, dtype=np.int64)
+    for j, u in enumerate(units):
+        out[u.items] = j
+    return out
+
+
+def apply_baseline(findings, entries: list[dict], path: Path | None = None, cells=None) -> Gate:
+    """Split ``findings`` (with their ``cells``, a ``run.cells.CellMap``, or None)
+    by the baseline ``entries``."""
+    p = pair_entries(entries, findings, cells, str(path))
+    new = np.ones(len(findings), dtype=bool)
+    accepted: list[Accepted] = []
+    for i, j in p.by_unit:
+        new[p.units[j].items] = False
+        accepted.append(Accepted(entries[i], p.units[j], True))
+    unit_of = _unit_of(p.units, len(findings)) if p.by_placement else None
+    for i, k in p.by_placement:
+        new[k] = False
+        u = _alone(p.units[int(unit_of[k])], k, findings[k])
+        accepted.append(Accepted(entries[i], u, False))
+    accepted.sort(key=lambda a: int(a.unit.items[0]))
+    matched = {i for i, _ in p.by_unit} | {i for i, _ in p.by_placement}
+    new_index = np.flatnonzero(new).tolist()
+    return Gate(
+        new=[findings[k] for k in new_index],
+        accepted=accepted,
+        stale=[e for i, e in enumerate(entries) if i not in matched],
+        path=path,
+        new_index=new_index,
+    )
+
+
+def _at(xy) -> str:
+    return f"({float(xy[0]):g}, {float(xy[1]):g}) µm"
+
+
+def _pitch(p) -> str:
+    return "no pitch" if p is None or not math.isfinite(p) else f"pitch {float(p):.1f} nm"
+
+
+def entry_text(e: dict) -> str:
+    """A baseline entry in one line of the terminal."""
+    head = f"{e['layer']} {e['check']} {_pitch(e['pitch_nm'])}"
+    if "cell" not in e:
+        return f"{head} at {_at(e['centre_um'])}"
+    if frame_key(e["cell"], e["cell_path"]) == TOP:
+        return f"{head} in top cell {e['cell']} at {_at(e['cell_centre_um'])}"
+    return f"{head} in cell {e['cell']} at {_at(e['cell_centre_um'])} of the cell"
+
+
+def unit_text(c: CellFinding) -> str:
+    """A cell finding (or a finding with no cell named) in one line of the terminal."""
+    f = c.finding
+    head = f"{f.layer} {f.check} {_pitch(f.pitch_nm)}"
+    if not c.cell:
+        return f"{head} at {_at(f.centre_um)}"
+    if frame_key(c.cell, c.path) == TOP:
+        return f"{head} in top cell {c.cell} at {_at(f.centre_um)}"
+    n = c.placements
+    return (
+        f"{head} in cell {c.cell} at {_at(centre_um(box_um(c.cell_bbox_nm)))} of the cell, "
+        f"{n} placement{'s' if n != 1 else ''}, first at {_at(f.centre_um)}"
+    )
+
+
+def accepted_to_dict(a: Accepted) -> dict:
+    """An accepted entry as the JSON report lists it: what it accepted, and the
+    people's notes."""
+    u, f = a.unit, a.unit.finding
     return {
+        "layer": f.layer,
+        "check": f.check,
+        "cell": u.cell or None,
+        "cell_path": list(u.path),
+        "cell_centre_um": list(centre_um(box_um(u.cell_bbox_nm))) if u.cell else None,
+        "centre_um": list(f.centre_um),
+        "placements": u.placements,
+        "matched": "cell" if a.per_cell else "placement",
+        "reason": a.entry.get("reason", ""),
+        "owner": a.entry.get("owner", ""),
+    }
+
+
+def entry_of(c: CellFinding, reason: str = "", owner: str = "") -> dict:
+    """A baseline entry: a cell finding (its first placement's place in the top
+    frame for people), or a finding with no cell named."""
+    f = c.finding
+    e = {
         "layer": f.layer,
         "check": f.check,
         "severity": f.severity,
@@ -203,11 +407,19 @@ def entry_of(f: Finding, reason: str = "", owner: str = "") -> dict:
         "orientation_deg": f.orientation_deg,
         "lines": f.lines,
         "context": f.context,
-        "centre_um": list(f.centre_um),
-        "bbox_um": list(f.bbox_um),
-        "reason": reason,
-        "owner": owner,
     }
+    if c.cell:
+        cell_box = box_um(c.cell_bbox_nm)
+        e["cell"] = c.cell
+        e["cell_path"] = list(c.path)
+        e["cell_bbox_um"] = list(cell_box)
+        e["cell_centre_um"] = list(centre_um(cell_box))
+        e["placements"] = c.placements
+    e["centre_um"] = list(f.centre_um)
+    e["bbox_um"] = list(f.bbox_um)
+    e["reason"] = reason
+    e["owner"] = owner
+    return e
 
 
 def load_baseline(path: Path) -> list[dict]:
@@ -228,44 +440,38 @@ def load_baseline(path: Path) -> list[dict]:
         raise PitchguardError(f'{where}: baseline "entries" must be a list of objects')
     for e in entries:
         Signature.from_entry(e, where)  # validate early: one clear error
+        Signature.from_entry(e, where, per_cell=False)
     return entries
 
 
-def apply_baseline(findings: list[Finding], entries: list[dict], path: Path | None = None) -> Gate:
-    old = [Signature.from_entry(e, str(path)) for e in entries]
-    new = [Signature.of(f) for f in findings]
-    pairs = match(old, new)
-    matched_new = {j for _, j in pairs}
-    matched_old = {i for i, _ in pairs}
-    accepted = [(findings[j], entries[i]) for i, j in sorted(pairs, key=lambda p: p[1])]
-    new_index = [j for j in range(len(findings)) if j not in matched_new]
-    return Gate(
-        new=[findings[j] for j in new_index],
-        accepted=accepted,
-        stale=[e for i, e in enumerate(entries) if i not in matched_old],
-        path=path,
-        new_index=new_index,
-    )
-
-
 def write_baseline(
-    path: Path, findings: list[Finding], deck_name: str, layout: str, inputs: list[Path]
+    path: Path,
+    findings,
+    deck_name: str,
+    layout: str,
+    inputs: list[Path],
+    cells=None,
 ) -> None:
-    """Record ``findings``; reasons and owners of an existing baseline at ``path`` are kept."""
+    """Record ``findings`` (per cell finding with their ``cells``, else one entry
+    each); reasons and owners of an existing baseline at ``path`` are kept."""
     previous: list[dict] = []
     if Path(path).exists():
         try:
             previous = load_baseline(path)
         except PitchguardError:
             previous = []  # not ours or broken: rewritten whole (atomically)
-    entries = [entry_of(f) for f in findings]
-    if previous:
-        for i, j in match(
-            [Signature.from_entry(e, str(path)) for e in previous],
-            [Signature.of(f) for f in findings],
-        ):
-            entries[j]["reason"] = previous[i].get("reason", "")
-            entries[j]["owner"] = previous[i].get("owner", "")
+    p = pair_entries(previous, findings, cells, str(path))
+    notes: dict[int, dict] = {}
+    for i, j in p.by_unit:
+        notes[j] = previous[i]
+    if p.by_placement:
+        unit_of = _unit_of(p.units, len(findings))
+        for i, k in sorted(p.by_placement, key=lambda q: q[1]):
+            notes.setdefault(int(unit_of[k]), previous[i])
+    entries = []
+    for j, u in enumerate(p.units):
+        e = notes.get(j, {})
+        entries.append(entry_of(u, e.get("reason", ""), e.get("owner", "")))
     payload = {
         "pitchguard_baseline": FORMAT_VERSION,
         "deck": deck_name,
@@ -282,20 +488,39 @@ def write_baseline(
 
 @dataclass
 class Diff:
-    introduced: list[Finding]
-    fixed: list[Finding]
-    unchanged: list[tuple[Finding, Finding]]  # (base, new)
+    """Two scans compared per cell finding (per placement when either names no cells)."""
+
+    introduced: list[Finding]  # every placement of the new scan's unmatched cell findings
+    fixed: list[CellFinding]  # the base scan's unmatched cell findings
+    unchanged: list[tuple[CellFinding, CellFinding]]  # (base, new)
     introduced_index: list[int] = field(default_factory=list)  # into the new findings
 
+    @property
+    def fixed_placements(self) -> int:
+        return sum(c.placements for c in self.fixed)
 
-def diff(base: list[Finding], new: list[Finding]) -> Diff:
-    pairs = match([Signature.of(f) for f in base], [Signature.of(f) for f in new])
+    @property
+    def unchanged_placements(self) -> int:
+        """Placements of the unchanged cell findings in the new scan."""
+        return sum(c.placements for _, c in self.unchanged)
+
+
+def diff(base, new, base_cells=None, new_cells=None) -> Diff:
+    """Compare the findings of two scans (``*_cells``: their ``run.cells.CellMap``)."""
+    if base_cells is None or new_cells is None:
+        base_cells = new_cells = None
+    bu, nu = units_of(base, base_cells), units_of(new, new_cells)
+    pairs = match([Signature.of_unit(c) for c in bu], [Signature.of_unit(c) for c in nu])
     mb = {i for i, _ in pairs}
     mn = {j for _, j in pairs}
-    introduced_index = [j for j in range(len(new)) if j not in mn]
+    introduced = np.zeros(len(new), dtype=bool)
+    for j, c in enumerate(nu):
+        if j not in mn:
+            introduced[c.items] = True
+    introduced_index = np.flatnonzero(introduced).tolist()
     return Diff(
-        introduced=[new[j] for j in introduced_index],
+        introduced=[new[k] for k in introduced_index],
         introduced_index=introduced_index,
-        fixed=[f for i, f in enumerate(base) if i not in mb],
-        unchanged=[(base[i], new[j]) for i, j in sorted(pairs, key=lambda p: p[1])],
+        fixed=[c for i, c in enumerate(bu) if i not in mb],
+        unchanged=[(bu[i], nu[j]) for i, j in sorted(pairs, key=lambda p: int(nu[p[1]].items[0]))],
     )

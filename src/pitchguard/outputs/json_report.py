@@ -3,17 +3,16 @@
 from __future__ import annotations
 
 import json
-from collections.abc import Sequence
 from pathlib import Path
 
 import numpy as np
 
 from pitchguard import __version__
 from pitchguard.deck import SEVERITIES, Deck
-from pitchguard.judge.findings import Finding, FindingSet, box_um
+from pitchguard.judge.findings import Finding, box_um
 from pitchguard.judge.per_cell import CellFinding, cell_findings, orientations
 from pitchguard.outputs.files import atomic_write
-from pitchguard.outputs.rows import PlacedRows, Rows, hole, placed_fields, placed_numbers
+from pitchguard.outputs.rows import Rows, placed_numbers
 from pitchguard.outputs.verdict import CAUTION, coverage_notes, exit_code, severity_counts
 from pitchguard.run.scan import ScanResult
 
@@ -69,24 +68,18 @@ def _inline(text: str) -> str:
     return text
 
 
-def finding_to_dict(f: Finding, holes: bool = False, texts: TextTable | None = None) -> dict:
-    """A finding as plain JSON values (built field by field: a chip's report makes
-    10^5-10^6 of these, so no generic cleaning pass).  With ``holes`` the values
-    that depend on the place (see :func:`placed_fields`) are markers
-    (:func:`hole`), for :class:`PlacedRows`.  With ``texts`` the message, the
-    hint and each check's message are indexes into that table."""
+def finding_to_dict(f: Finding, texts: TextTable | None = None) -> dict:
+    """A finding as plain JSON values (built field by field: a scan without cells
+    reports 10^5-10^6 of these, so no generic cleaning pass).  With ``texts`` the
+    message, the hint and each check's message are indexes into that table."""
     text = _inline if texts is None else texts.ref
-    if holes:
-        bbox, centre, outline = hole("bbox_um"), hole("centre_um"), hole("outline_um")
-        origin = hole("origin_um")
-    else:
-        b, c, points, o = placed_numbers(f, 0.0, 0.0)
-        bbox, centre, outline, origin = (
-            json_numbers(b),
-            json_numbers(c),
-            [json_numbers(p) for p in points],
-            json_numbers(o),
-        )
+    b, c, points, o = placed_numbers(f, 0.0, 0.0)
+    bbox, centre, outline, origin = (
+        json_numbers(b),
+        json_numbers(c),
+        [json_numbers(p) for p in points],
+        json_numbers(o),
+    )
     return {
         "layer": f.layer,
         "source": f.source,
@@ -173,18 +166,6 @@ def violation_to_dict(v, text=_inline) -> dict:
     }
 
 
-def finding_rows(findings: Sequence[Finding], texts: TextTable | None = None) -> Rows:
-    """:func:`finding_to_dict` of each finding, made as it is written."""
-    if not isinstance(findings, FindingSet):
-        return Rows(findings, lambda f: finding_to_dict(f, texts=texts))
-    return PlacedRows(
-        findings,
-        lambda k: finding_to_dict(findings[k], texts=texts),
-        lambda d: finding_to_dict(findings.distinct[d], holes=True, texts=texts),
-        lambda k, f, dx, dy: placed_fields(f, dx, dy),
-    )
-
-
 def placed_groups(c: CellFinding) -> list[dict]:
     """A cell finding's placements, compact: per orientation of the cell, the
     origins (um) as one flat list ``[x0, y0, x1, y1, ...]``."""
@@ -213,6 +194,7 @@ def entry_to_dict(c: CellFinding, texts: TextTable | None = None) -> dict:
     row["cell_path"] = list(c.path)
     row["cell_bbox_um"] = json_numbers(box_um(c.cell_bbox_nm))
     row["placements"] = c.placements
+    row["depends_on_placement"] = c.depends_on_placement
     row["placed"] = placed_groups(c) if c.cell else []
     return row
 
@@ -324,8 +306,7 @@ def dump_json(value, fh, ensure_ascii: bool = True, level: int = 0) -> None:
             fh.write(one(list(value)))
         else:
             fh.write("[\n")
-            texts = value.texts(one) if isinstance(value, PlacedRows) else map(one, value)
-            for k, text in enumerate(texts):
+            for k, text in enumerate(map(one, value)):
                 fh.write(pad + text + (",\n" if k < len(value) - 1 else "\n"))
             fh.write("  " * level + "]")
     else:

@@ -8,13 +8,11 @@ from collections.abc import Iterator
 from pathlib import Path
 from xml.sax.saxutils import escape
 
-import numpy as np
-
 from pitchguard.deck import SEVERITIES, Deck
 from pitchguard.judge.checks import CHECKS
-from pitchguard.judge.findings import Finding, FindingSet
+from pitchguard.judge.per_cell import CellFinding, cell_findings
 from pitchguard.outputs.files import atomic_write
-from pitchguard.outputs.texts import finding_line, placed_texts, where_text_of
+from pitchguard.outputs.texts import cell_sentence, finding_line, where_text_of
 from pitchguard.outputs.verdict import CAUTION
 from pitchguard.run.scan import ScanResult
 
@@ -26,39 +24,32 @@ def _x(text: str) -> str:
     return _XML_BAD.sub("", str(text))
 
 
+def _entry_line(c: CellFinding) -> str:
+    return finding_line(c.finding) + cell_sentence(c)
+
+
 def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
     """Per layer: ``(attributes, properties, testcases, system-out lines)``.
 
-    ``testcases()`` makes the suite's ``<testcase>`` elements one at a time, so
-    a writer can stream a report of 10^5-10^6 findings.
+    A test case per report entry (a distinct finding of a cell, with its
+    placements) at or above ``fail_on``.  ``testcases()`` makes the suite's
+    ``<testcase>`` elements one at a time, so a writer can stream them.
     """
-    # Planned on columns (a FindingSet's, or a list's as one): a chip's findings
-    # are made one at a time as their test cases are written.
-    fs = FindingSet.of(result.findings)
-    present = [f for f, n in zip(fs.distinct, fs.counts().tolist(), strict=True) if n]
+    entries = cell_findings(result)
     layers = [(st.name, st.source, st.seconds) for st in result.layers]
     known = {name for name, _, _ in layers}
-    for f in present:
-        if f.layer not in known:
-            layers.append((f.layer, f.source, 0.0))
-            known.add(f.layer)
-    checks = list(CHECKS) + sorted({f.check for f in present} - set(CHECKS))
+    for c in entries:
+        if c.finding.layer not in known:
+            layers.append((c.finding.layer, c.finding.source, 0.0))
+            known.add(c.finding.layer)
+    checks = list(CHECKS) + sorted({c.finding.check for c in entries} - set(CHECKS))
     exposures = {r.name: r.exposure_name for r in deck.layers}
     layout_path = str(result.layout.path) if result.layout else ""
     rank = {s: k for k, s in enumerate(SEVERITIES)}
-    d_rank = np.array([rank[f.severity] for f in fs.distinct], dtype=np.int64)
-    pair_id: dict = {}
-    d_pair = np.array(
-        [pair_id.setdefault((f.layer, f.check), len(pair_id)) for f in fs.distinct], dtype=np.int64
-    )
-    item_pair, item_rank, box = d_pair[fs.which], d_rank[fs.which], fs.boxes()
-    # Per (layer, check): worst first, then by place (as sorted() on (rank, bbox)).
-    order = np.lexsort((box[:, 3], box[:, 2], box[:, 1], box[:, 0], item_rank, item_pair))
-    cut = np.flatnonzero(np.diff(item_pair[order])) + 1
-    by_key = {}
-    for idx in np.split(order, cut) if len(order) else []:
-        d = fs.distinct[int(fs.which[idx[0]])]
-        by_key[(d.layer, d.check)] = idx
+    # Per (layer, check): worst first, then by place (the first placement's box).
+    by_key: dict[tuple, list[CellFinding]] = {}
+    for c in sorted(entries, key=lambda c: (rank[c.finding.severity], c.finding.bbox_nm)):
+        by_key.setdefault((c.finding.layer, c.finding.check), []).append(c)
     limit = -1 if fail_on == "never" else SEVERITIES.index(fail_on)
 
     suites = []
@@ -75,46 +66,45 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
         ]
         plan = []
         tests = failures = 0
-        suite_out: list[FindingSet] = []  # findings below fail_on of failing pairs
+        suite_out: list[CellFinding] = []  # entries below fail_on of failing pairs
         for check in checks:
-            found = by_key.get((name, check), np.zeros(0, dtype=np.int64))
-            at_or_above = item_rank[found] <= limit
-            failing, below = fs.select(found[at_or_above]), fs.select(found[~at_or_above])
+            found = by_key.get((name, check), [])
+            failing = [c for c in found if rank[c.finding.severity] <= limit]
+            below = [c for c in found if rank[c.finding.severity] > limit]
             plan.append((check, failing, below))
-            if len(failing):
+            if failing:
                 tests += len(failing)
                 failures += len(failing)
-                if len(below):
-                    suite_out.append(below)
+                suite_out.extend(below)
             else:
                 tests += 1
 
-        def failing_case(f: Finding, where: str, name=name) -> ET.Element:
+        def failing_case(c: CellFinding, name=name) -> ET.Element:
+            f = c.finding
+            place = f"in {c.cell} " if c.cell else ""
             case = ET.Element(
                 "testcase",
                 classname=_x(f"pitchguard.{name}.{f.check}"),
-                name=_x(f"{f.check} at {where}"),
+                name=_x(f"{f.check} {place}at {where_text_of(f)}"),
                 time="0",
             )
             fail = ET.SubElement(case, "failure", message=_x(f.message), type=f.check)
-            fail.text = _x(finding_line(f, where))
+            fail.text = _x(_entry_line(c))
             return case
 
         def testcases(plan=plan, name=name, texts=False, failing_case=failing_case):
             """The suite's test cases; with ``texts`` as indented XML text (level 2)."""
             for check, failing, below in plan:
-                if len(failing):
-                    if texts:
-                        yield from placed_texts(failing, lambda f, w: _piece(failing_case(f, w), 2))
-                    else:
-                        yield from (failing_case(f, where_text_of(f)) for f in failing)
+                if failing:
+                    for c in failing:
+                        yield _piece(failing_case(c), 2) if texts else failing_case(c)
                 else:
                     case = ET.Element(
                         "testcase", classname=_x(f"pitchguard.{name}"), name=check, time="0"
                     )
-                    if len(below):
+                    if below:
                         out = ET.SubElement(case, "system-out")
-                        out.text = _x("\n".join(placed_texts(below, finding_line)))
+                        out.text = _x("\n".join(map(_entry_line, below)))
                     yield _piece(case, 2) if texts else case
 
         attrs = {
@@ -147,12 +137,11 @@ def _properties(props: list) -> ET.Element:
     return el
 
 
-def _suite_lines(suite_out: list[FindingSet]) -> Iterator[str]:
-    for below in suite_out:
-        yield from placed_texts(below, finding_line)
+def _suite_lines(suite_out: list[CellFinding]) -> Iterator[str]:
+    return map(_entry_line, suite_out)
 
 
-def _suite_out(suite_out: list[FindingSet]) -> ET.Element:
+def _suite_out(suite_out: list[CellFinding]) -> ET.Element:
     el = ET.Element("system-out")
     el.text = _x("\n".join(_suite_lines(suite_out)))
     return el

@@ -3,27 +3,19 @@
 from __future__ import annotations
 
 import hashlib
-import json
 import math
 import urllib.parse
 from collections.abc import Sequence
 from pathlib import Path
 
-import numpy as np
-
 from pitchguard import __version__
 from pitchguard.deck import Deck
 from pitchguard.judge.checks import CHECKS
 from pitchguard.judge.findings import Finding, FindingSet
-from pitchguard.outputs.json_report import finding_to_dict, write_json
-from pitchguard.outputs.rows import (
-    PlacedRows,
-    Rows,
-    hole,
-    placed_fields,
-    placed_numbers,
-)
-from pitchguard.outputs.texts import box_text, describe, reaches_fail_on, where_text
+from pitchguard.judge.per_cell import CellFinding, cell_findings
+from pitchguard.outputs.json_report import entry_to_dict, finding_to_dict, write_json
+from pitchguard.outputs.rows import Rows
+from pitchguard.outputs.texts import cell_sentence, describe, reaches_fail_on
 from pitchguard.outputs.verdict import CAUTION, exit_code
 from pitchguard.run.scan import ScanResult
 
@@ -40,7 +32,7 @@ LEVEL = {"fail": "error", "risk": "warning", "marginal": "note"}
 """SARIF result level of each pitchguard severity."""
 
 
-FINGERPRINT_KEY = "pitchguardRegion/v1"
+FINGERPRINT_KEY = "pitchguardRegion/v2"
 """Key of our entry in ``result.partialFingerprints`` (bump the version if the recipe changes)."""
 
 
@@ -245,67 +237,53 @@ def fingerprint_base(f: Finding) -> str:
     return hashlib.sha256(key.encode("utf-8")).hexdigest()[:32]
 
 
-def fingerprints(findings: Sequence[Finding], compact: bool = False) -> Sequence[str]:
-    """Stable fingerprint per finding: base hash plus ``:n``, the occurrence among equals.
-
-    Equal base hashes are numbered in order of position (lower-left corner,
-    x then y, then severity), an order a translation of the whole layout
-    keeps.  Worked out on columns: a base depends only on what a finding is,
-    so a FindingSet's distinct findings are hashed once.
-    """
-    fs = FindingSet.of(findings)
-    n = len(fs)
-    if n == 0:
-        return []
-    # ``compact``: the same texts, made when read (see _Fingerprints).
-    names: dict[str, int] = {}
-    d_base = np.array(
-        [names.setdefault(fingerprint_base(f), len(names)) for f in fs.distinct], dtype=np.int64
-    )
-    d_rank = np.array([f.severity_rank for f in fs.distinct], dtype=np.int64)
-    base, rank, box = d_base[fs.which], d_rank[fs.which], fs.boxes()
-    # By base, then box (x0, y0, x1, y1) and severity; ties keep the findings' order.
-    order = np.lexsort((rank, box[:, 3], box[:, 2], box[:, 1], box[:, 0], base))
-    sorted_base = base[order]
-    first = np.r_[True, sorted_base[1:] != sorted_base[:-1]]
-    occurrence = np.arange(n) - np.maximum.accumulate(np.where(first, np.arange(n), 0)) + 1
-    text = list(names)
-    if compact:
-        item_occ = np.empty(n, dtype=np.int64)
-        item_occ[order] = occurrence
-        return _Fingerprints(text, base, item_occ)
-    out = [""] * n
-    for i, b, k in zip(order.tolist(), sorted_base.tolist(), occurrence.tolist(), strict=True):
-        out[i] = f"{text[b]}:{k}"
-    return out
-
-
-class _Fingerprints(Sequence):
-    """:func:`fingerprints` as columns (base hash and occurrence per finding), each
-    text made when read: a chip's 10^5-10^6 strings are not all held at once."""
-
-    def __init__(self, text: list[str], base: np.ndarray, occurrence: np.ndarray):
-        self.text, self.base, self.occurrence = text, base, occurrence
-
-    def __len__(self) -> int:
-        return len(self.base)
-
-    def __getitem__(self, k):
-        if isinstance(k, slice):
-            return [self[i] for i in range(*k.indices(len(self)))]
-        return f"{self.text[self.base[k]]}:{self.occurrence[k]}"
-
-
 SERVICE_RESULTS_MAX = 25_000
 """Results per run a code-scanning service accepts: GitHub's documented hard
 limit ("Results per run: 25,000", GitHub Docs, SARIF results exceed limits).
 A file with more is still valid SARIF; the command says so when it writes one."""
 
 
+PLACED_LISTED = 1000
+"""Placement origins a SARIF result lists (the JSON report lists them all)."""
+
+
+def entry_fingerprints(entries: Sequence[CellFinding]) -> list[str]:
+    """Stable fingerprint per report entry: what it is and its cell, hashed, plus
+    ``:n``, its occurrence among equals numbered by place in the cell's own frame
+    (an order that moving or adding placements of the cell keeps)."""
+    bases = []
+    for c in entries:
+        base = fingerprint_base(c.finding)
+        if c.cell:
+            base = hashlib.sha256(f"{base}|{c.cell}".encode()).hexdigest()[:32]
+        bases.append(base)
+    rank = [(bases[k], *c.cell_bbox_nm, c.finding.severity_rank, k) for k, c in enumerate(entries)]
+    out = [""] * len(entries)
+    seen: dict[str, int] = {}
+    for key in sorted(rank):
+        n = seen[key[0]] = seen.get(key[0], 0) + 1
+        out[key[-1]] = f"{key[0]}:{n}"
+    return out
+
+
+def _capped(row: dict) -> dict:
+    """An entry's placements with at most :data:`PLACED_LISTED` origins listed."""
+    left = PLACED_LISTED
+    placed = []
+    for g in row["placed"]:
+        n = min(left, len(g["origins_um"]) // 2)
+        placed.append({**g, "origins_um": g["origins_um"][: 2 * n]})
+        left -= n
+    row["placed"] = [g for g in placed if g["origins_um"]]
+    row["placed_listed"] = sum(len(g["origins_um"]) // 2 for g in row["placed"])
+    return row
+
+
 def to_sarif(
     result: ScanResult, deck: Deck, layout_path: Path, fail_on: str, lazy: bool = False
 ) -> dict:
-    """A SARIF 2.1.0 log of a scan: one run, one rule per check, one result per finding.
+    """A SARIF 2.1.0 log of a scan: one run, one rule per check, one result per report
+    entry (a distinct finding of a cell, with its placements).
 
     With ``lazy`` the results are :class:`~pitchguard.outputs.rows.Rows`, made as
     they are written (for :func:`write_sarif`).
@@ -317,62 +295,51 @@ def to_sarif(
     rules = [sarif_rule(c) for c in checks]
     uri = _artifact_uri(layout_path)
     cells = list(result.layout.cells) if result.layout else []
-    fps = fingerprints(result.findings, compact=lazy)
+    entries = cell_findings(result)
+    fps = entry_fingerprints(entries)
     rule_index = {c: k for k, c in enumerate(checks)}
 
-    def result_of(k: int, f: Finding | None = None, holes: bool = False) -> dict:
-        if f is None:
-            f = result.findings[k]
-        fp = hole("fp") if holes else fps[k]
+    def result_of(k: int) -> dict:
+        c = entries[k]
+        f = c.finding
         # Logical locations.  A cell is a named, self-contained unit of design that
         # other cells instantiate, the layout's counterpart of a code module: kind
         # "module".  A layer is a part of every cell (the shapes drawn on it), as a
-        # member is part of a type: kind "member", with the cell as parent when the
-        # scan had one top cell, and the layout's "layer/datatype" as its
-        # machine-readable (decorated) name.
-        logical = [{"name": c, "kind": "module"} for c in cells]
-        layer_loc = {
-            "name": f.layer,
-            "fullyQualifiedName": f"{cells[0]}/{f.layer}" if len(cells) == 1 else f.layer,
-            "decoratedName": f.source,
-            "kind": "member",
-        }
-        logical.append(layer_loc)
-        props = finding_to_dict(f, holes)
+        # member is part of a type: kind "member", with the cell as parent, and the
+        # layout's "layer/datatype" as its machine-readable (decorated) name.
+        if c.cell:
+            logical = [{"name": c.cell, "fullyQualifiedName": "/".join(c.path), "kind": "module"}]
+            owner = c.cell
+        else:
+            logical = [{"name": n, "kind": "module"} for n in cells]
+            owner = cells[0] if len(cells) == 1 else ""
+        logical.append(
+            {
+                "name": f.layer,
+                "fullyQualifiedName": f"{owner}/{f.layer}" if owner else f.layer,
+                "decoratedName": f.source,
+                "kind": "member",
+            }
+        )
+        props = _capped(entry_to_dict(c)) if c.cell else finding_to_dict(f)
         props["fail_on"] = fail_on
         props["at_or_above_fail_on"] = reaches_fail_on(f, fail_on)
         return {
             "ruleId": f.check,
             "ruleIndex": rule_index[f.check],
             "level": LEVEL[f.severity],
-            "message": {"text": describe(f, holes)},
+            "message": {"text": describe(f) + cell_sentence(c)},
             "locations": [
                 {
                     "physicalLocation": {"artifactLocation": {"uri": uri}},
                     "logicalLocations": logical,
                 }
             ],
-            "partialFingerprints": {FINGERPRINT_KEY: fp},
+            "partialFingerprints": {FINGERPRINT_KEY: fps[k]},
             "properties": props,
         }
 
-    rows: Rows
-    if isinstance(result.findings, FindingSet):
-        fs_ = result.findings
-
-        def fill(k: int, f: Finding, dx: float, dy: float) -> dict[str, str]:
-            numbers = placed_numbers(f, dx, dy)
-            out = placed_fields(f, dx, dy, numbers)
-            out["where"] = where_text(numbers[1])
-            out["box"] = box_text(numbers[0])
-            out["fp"] = json.dumps(fps[k])
-            return out
-
-        rows = PlacedRows(
-            fs_, result_of, lambda d: result_of(-1, fs_.distinct[d], holes=True), fill
-        )
-    else:
-        rows = Rows(range(len(result.findings)), result_of)
+    rows = Rows(range(len(entries)), result_of)
     results = rows if lazy else list(rows)
     run_props = {
         "caution": CAUTION,
@@ -425,8 +392,9 @@ def write_sarif(
     layout_path: Path,
     fail_on: str,
     inputs: list[Path] | None = None,
-) -> None:
-    """Write :func:`to_sarif` to ``out`` atomically (never over an input file)."""
+) -> int:
+    """Write :func:`to_sarif` to ``out`` atomically (never over an input file);
+    the number of results written."""
     log = to_sarif(result, deck, layout_path, fail_on, lazy=True)
     write_json(
         out,
@@ -434,3 +402,4 @@ def write_sarif(
         inputs if inputs is not None else default_inputs(layout_path, deck),
         ensure_ascii=False,
     )
+    return len(log["runs"][0]["results"])

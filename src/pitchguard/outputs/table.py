@@ -31,9 +31,10 @@ def one_line_summary(result: ScanResult, fail_on: str) -> str:
 
 def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> None:
     """Counts per layer and severity, then the worst regions."""
+    from rich.markup import escape
     from rich.table import Table
 
-    from pitchguard.outputs.texts import orders_text  # here: a quiet scan prints no table
+    from pitchguard.judge.per_cell import cell_findings
 
     counts = Table(title="Findings per layer", title_justify="left", show_edge=False)
     counts.add_column("layer")
@@ -62,10 +63,12 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
     for note in coverage_notes(result.layers):
         console.print(f"[yellow]note:[/] {note}", markup=True, highlight=False)
 
-    if result.findings:
-        shown = result.findings[:top]
+    entries = cell_findings(result)
+    if entries:
+        shown = entries[:top]
         worst = Table(
-            title=f"Worst regions ({len(shown)} of {len(result.findings)})",
+            title=f"Worst findings ({len(shown)} of {len(entries)}; "
+            f"{len(result.findings)} placements)",
             title_justify="left",
             show_edge=False,
         )
@@ -73,36 +76,42 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
             ("#", "right"),
             ("severity", "left"),
             ("layer", "left"),
+            ("cell", "left"),
+            ("placed", "right"),
             ("x, y µm", "right"),
             ("pitch nm", "right"),
             ("w / s nm", "right"),
             ("k1", "right"),
             ("NILS", "right"),
-            ("orders", "left"),
-            ("lines", "right"),
             ("check", "left"),
         ):
             worst.add_column(col, justify=just)
-        for k, f in enumerate(shown, 1):
+        for k, c in enumerate(shown, 1):
+            f = c.finding
             cx, cy = f.centre_um
             worst.add_row(
                 str(k),
                 f"[{SEVERITY_STYLE[f.severity]}]{f.severity}[/]",
-                f.layer,
+                escape(f.layer),
+                escape(c.cell or "-"),
+                f"{c.placements:,}",
                 f"{cx:.3f}, {cy:.3f}",
                 f"{f.pitch_nm:.1f}" if math.isfinite(f.pitch_nm) else "-",
                 f"{f.width_nm:.0f} / "
                 + (f"{f.space_nm:.0f}" if math.isfinite(f.space_nm) else "-"),
                 f"{f.k1:.3f}" if math.isfinite(f.k1) else "-",
                 f"{f.nils:.2f}" if math.isfinite(f.nils) else "-",
-                orders_text(f.orders),
-                str(f.lines),
                 f.check,
             )
         console.print()
         console.print(worst)
-        if len(result.findings) > top:
-            console.print(f"  … {len(result.findings) - top} more (see --json / --markers)")
+        if len(entries) > top:
+            console.print(f"  … {len(entries) - top} more (see --json / --markers)")
+        if any(c.cell for c in shown):
+            console.print(
+                "  [dim]x, y: the first placement, in the top cell; placed: how many times "
+                "the finding occurs[/]"
+            )
     for w in result.warnings[:5]:
         console.print(f"[dim]layout library: {w}[/]")
     console.print()

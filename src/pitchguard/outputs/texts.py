@@ -3,15 +3,9 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator
 
 from pitchguard.deck import SEVERITIES
-from pitchguard.judge.findings import CLIP_KINDS, Finding, FindingSet
-from pitchguard.outputs.rows import (
-    fill_templates,
-    hole,
-    placed_numbers,
-)
+from pitchguard.judge.findings import CLIP_KINDS, Finding, box_um
 
 
 def nm_text(x: float, digits: int = 1) -> str:
@@ -59,15 +53,32 @@ def k1_text(f: Finding) -> str:
     return f", k1 {f.k1:.3f}" if math.isfinite(f.k1) else ""
 
 
-def describe(f: Finding, holes: bool = False) -> str:
-    """One sentence a designer can act on: layer, place, pitch, what tripped, the fix.
-    With ``holes`` the place is left as markers (see outputs.rows.PlacedRows)."""
-    where = hole("where", in_text=True) if holes else where_text_of(f)
-    box = hole("box", in_text=True) if holes else box_text(f.bbox_um)
+def describe(f: Finding) -> str:
+    """One sentence a designer can act on: layer, place, pitch, what tripped, the fix."""
+    where = where_text_of(f)
+    box = box_text(f.bbox_um)
     return (
         f"{f.severity} on layer {f.layer} ({f.source}): region centred at "
         f"{where} (box {box} um), "
         f"{pattern_text(f)}{k1_text(f)}. {f.check}: {f.message}. Fix: {f.hint}."
+    )
+
+
+def cell_sentence(c) -> str:
+    """Where a report entry (judge.per_cell.CellFinding) sits in the hierarchy, as a
+    sentence to append to :func:`describe`; empty when it names no cell."""
+    if not c.cell:
+        return ""
+    n = c.placements
+    return (
+        f" In cell {c.cell} (placed {' > '.join(c.path)}), box {box_text(box_um(c.cell_bbox_nm))} "
+        f"um in the cell's own frame; {n} placement{'s' if n != 1 else ''}."
+        + (
+            " It depends on the placement (shapes of other cells within reach): fix in the "
+            "parent cell."
+            if c.depends_on_placement
+            else ""
+        )
     )
 
 
@@ -105,25 +116,6 @@ def pattern_text(f: Finding) -> str:
     return (
         f"{a.features} features {nm_text(w)} x {nm_text(h)} nm ({shape}, "
         f"{a.columns} x {a.rows}) at {pitch}, a1 at {f.orientation_deg:g} deg"
-    )
-
-
-WHERE_HOLE = "\ue000where\ue000"
-"""Marks the place in a text made once per distinct finding (a private-use
-character: XML holds it as it is, and no layer or message uses it)."""
-
-
-def placed_texts(fs: FindingSet, make) -> Iterator[str]:
-    """``make(f, where)`` for each item of ``fs``: made once per distinct finding with
-    the place marked, then the place of each item put in (the same text as
-    ``make`` of the moved finding and its ``where_text_of``, at a fraction of the cost)."""
-
-    def split(d: int) -> list[str]:
-        texts = make(fs.distinct[d], WHERE_HOLE).split(WHERE_HOLE)
-        return [p for t in texts for p in (t, "where")][:-1]
-
-    return fill_templates(
-        fs, split, lambda k, f, dx, dy: {"where": where_text(placed_numbers(f, dx, dy)[1])}
     )
 
 

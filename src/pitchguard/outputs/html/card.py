@@ -6,7 +6,7 @@ import math
 
 from pitchguard.deck import LayerRule
 from pitchguard.judge.checks import CHECKS
-from pitchguard.judge.findings import CLIP_KINDS, Finding
+from pitchguard.judge.findings import CLIP_KINDS, Finding, box_um
 from pitchguard.outputs.html.groups import LOCATIONS_LISTED, OPEN_GROUPS, Group
 from pitchguard.outputs.html.pictures import FindingPictures
 from pitchguard.outputs.html.style import IMAGE_PX, LAYOUT_PX, degrees_text
@@ -198,29 +198,40 @@ def _violations_html(f: Finding) -> str:
 
 
 def _locations_html(g: Group) -> str:
-    n = len(g.findings)
+    """The group's report entries: each cell holding such a finding, the box in the
+    cell's own frame, its placements and the first one's centre in the top cell."""
+    n = len(g.entries)
     rows = []
-    for k, f in enumerate(g.findings[:LOCATIONS_LISTED], 1):
+    for k, c in enumerate(g.entries[:LOCATIONS_LISTED], 1):
+        f = c.finding
         cx, cy = f.centre_um
-        x0, y0, x1, y1 = f.bbox_um
+        x0, y0, x1, y1 = box_um(c.cell_bbox_nm)
+        note = " <span class='note'>(depends on the placement: fix in the parent cell)</span>"
         rows.append(
-            f"<tr><td class='n'>{k}</td><td class='n'>{cx:.3f}, {cy:.3f}</td>"
+            f"<tr><td class='n'>{k}</td><td>{esc(c.cell or '–')}"
+            f"{note if c.depends_on_placement else ''}</td>"
             f"<td class='n'>{x0:.3f}, {y0:.3f} – {x1:.3f}, {y1:.3f}</td>"
+            f"<td class='n'>{c.placements}</td><td class='n'>{cx:.3f}, {cy:.3f}</td>"
             f"<td class='n'>{f.lines}</td><td class='n'>{f.sites}</td>"
             f"<td class='n'>{html_number(f.pitch_nm)}</td><td>{esc(f.context or '–')}</td></tr>"
         )
     more = (
-        f"<p class='note'>… and {n - LOCATIONS_LISTED} more locations (the JSON output "
-        "lists them all).</p>"
+        f"<p class='note'>… and {n - LOCATIONS_LISTED} more (the JSON output lists them all).</p>"
         if n > LOCATIONS_LISTED
         else ""
     )
-    label = "1 location" if n == 1 else f"all {n} locations"
+    placed = len(g.findings)
+    label = (
+        f"{n} finding{'s' if n != 1 else ''} of cells, placed {placed} "
+        f"time{'s' if placed != 1 else ''}"
+    )
     return (
         f"<details class='locs'{' open' if n <= 12 else ''}><summary>{label} "
-        "(centre and box in µm, as drawn; the pictures show the first)</summary>"
-        "<table><thead><tr><th class='n'>#</th><th class='n'>centre x, y</th>"
-        "<th class='n'>box x0, y0 – x1, y1</th><th class='n'>lines</th><th class='n'>sites</th>"
+        "(boxes in µm in each cell's own frame; the first placement's centre in the top "
+        "cell; the pictures show the first)</summary>"
+        "<table><thead><tr><th class='n'>#</th><th>cell</th>"
+        "<th class='n'>box in the cell x0, y0 – x1, y1</th><th class='n'>placed</th>"
+        "<th class='n'>first at x, y</th><th class='n'>lines</th><th class='n'>sites</th>"
         "<th class='n'>pitch nm</th><th>worst line</th></tr></thead><tbody>"
         + "".join(rows)
         + f"</tbody></table>{more}</details>"
@@ -231,6 +242,8 @@ def _group_title(g: Group, rule: LayerRule | None) -> str:
     f = g.first
     fw = feature_word(rule)
     n = len(g.findings)
+    k = len(g.entries)
+    cells = f" of {k} finding{'s' if k != 1 else ''} of cells" if k and k != n else ""
     cx, cy = f.centre_um
     if f.tip is not None:
         meta = (
@@ -257,7 +270,7 @@ def _group_title(g: Group, rule: LayerRule | None) -> str:
         f'<span class="sev {attr_text(f.severity)}">{esc(f.severity)}</span>'
         f'<span class="what">{esc(f.layer)} · {esc(f.check)}</span>'
         f'<span class="meta">{meta}</span>'
-        f'<span class="count">{n} location{"s" if n != 1 else ""} · '
+        f'<span class="count">{n} placement{"s" if n != 1 else ""}{cells} · '
         f"{'first ' if n > 1 else ''}at ({cx:.3f}, {cy:.3f}) µm</span>"
     )
 

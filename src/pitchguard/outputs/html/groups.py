@@ -11,7 +11,7 @@ import numpy as np
 from pitchguard.judge.findings import Finding, FindingSet
 
 LOCATIONS_LISTED = 1000
-"""Locations listed per group (the JSON output has them all)."""
+"""Entries (findings of a cell) listed per group (the JSON output has them all)."""
 
 
 OPEN_GROUPS = 8
@@ -46,7 +46,8 @@ def group_key(f: Finding) -> tuple:
 @dataclass
 class Group:
     key: tuple
-    findings: Sequence[Finding] = field(default_factory=list)
+    findings: Sequence[Finding] = field(default_factory=list)  # every placement
+    entries: list = field(default_factory=list)  # judge.per_cell.CellFinding s
 
     @property
     def first(self) -> Finding:
@@ -90,3 +91,10 @@ def group_finding_set(findings: FindingSet) -> list[Group]:
     return [
         Group(key_of[int(gid[idx[0]])], findings.select(idx)) for idx in np.split(order, bounds)
     ]
+
+
+def attach_entries(groups: list[Group], entries) -> None:
+    """File each report entry (judge.per_cell.CellFinding) with its group."""
+    by_key = {g.key: g for g in groups}
+    for c in entries:
+        by_key[group_key(c.finding)].entries.append(c)

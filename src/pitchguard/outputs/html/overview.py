@@ -48,7 +48,8 @@ def summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Grou
     facts.append(
         (
             "Findings",
-            f"{len(result.findings)} regions in {len(groups)} groups of identical findings",
+            f"{sum(len(g.entries) for g in groups)} findings of cells, placed "
+            f"{len(result.findings)} times, in {len(groups)} groups of identical findings",
         )
     )
     facts.append(("Gate", f"fail-on <code>{esc(fail_on)}</code>"))
@@ -142,7 +143,7 @@ INDEX_COLUMNS = (
     ("width", "width nm", True),
     ("space", "space nm", True),
     ("k1", "k1", True),
-    ("locations", "locations", True),
+    ("locations", "placed", True),
     ("at", "first at, µm", True),
 )
 """The index's columns: the key a link sorts by (``#sort=pitch``), head, numeric."""

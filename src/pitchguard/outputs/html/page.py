@@ -8,10 +8,11 @@ from pathlib import Path
 
 from pitchguard import __version__
 from pitchguard.deck import Deck
+from pitchguard.judge.per_cell import cell_findings
 from pitchguard.outputs.files import atomic_write
 from pitchguard.outputs.html import PICTURED_GROUPS
 from pitchguard.outputs.html.card import group_card_html
-from pitchguard.outputs.html.groups import group_findings
+from pitchguard.outputs.html.groups import attach_entries, group_findings
 from pitchguard.outputs.html.overview import (
     cap_html,
     filters_html,
@@ -53,6 +54,7 @@ def render_html(
 ) -> str:
     """The whole page as text."""
     groups = group_findings(result.findings)
+    attach_entries(groups, cell_findings(result))
     renderer = FindingPictures(result, deck)
     drawn = groups[: max(0, max_groups)]
     lay = result.layout
@@ -83,8 +85,8 @@ def render_html(
             f"<p class='note'>{len(result.findings)} findings in {len(groups)} groups; "
             f"{len(drawn)} groups ({shown_find} findings) are drawn below. Identical findings "
             "(same layer, check, severity, pitch, width, space, line direction and worst line) "
-            "share one set of pictures; open a group's location list for every place it "
-            "occurs.</p>"
+            "share one set of pictures; a group's list names each cell that holds such a "
+            "finding, where in the cell, and how many times it is placed.</p>"
         )
         parts.append(filters_html(result, groups))
         parts.append(index_html(groups, len(drawn)))
