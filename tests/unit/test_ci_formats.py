@@ -31,7 +31,7 @@ from decks import SAMPLE_GDS as DEMO_GDS
 from pitchguard.deck import SEVERITIES, load_deck
 from pitchguard.errors import OutputError
 from pitchguard.judge.checks import CHECKS
-from pitchguard.judge.per_cell import each_alone
+from pitchguard.judge.per_cell import cell_findings, each_alone
 from pitchguard.outputs.junit import to_junit, write_junit
 from pitchguard.outputs.sarif import (
     FINGERPRINT_KEY,
@@ -405,6 +405,35 @@ def test_a_cell_finding_keeps_its_fingerprint_when_placed_elsewhere_or_again(tmp
     assert [r["properties"]["placements"] for r in b["results"]] == [3] * len(fb)
     assert {r["locations"][0]["logicalLocations"][0]["name"] for r in b["results"]} == {"ARR"}
     assert {r["properties"]["cell_path"][-1] for r in b["results"]} == {"ARR"}
+
+
+@pytest.fixture(scope="module")
+def demo_cells():
+    deck = load_deck(DEMO_DECK)
+    return scan_layout(DEMO_GDS, deck, cells=True), deck
+
+
+def test_reports_per_cell_finding_validate_and_add_up(demo_cells, validator):
+    """The demo scan naming cells (as every scan writing a report does): a SARIF
+    result and, at or above fail_on, a JUnit failure per cell finding; the
+    placements of the results add up to the scan's findings."""
+    result, deck = demo_cells
+    entries = cell_findings(result)
+    assert len(entries) < len(result.findings)  # the demo places one cell finding twice
+    log = to_sarif(result, deck, DEMO_GDS, "fail")
+    assert _errors(validator, log) == []
+    res = log["runs"][0]["results"]
+    assert len(res) == len(entries)
+    assert sum(r["properties"]["placements"] for r in res) == len(result.findings)
+    for r, c in zip(res, entries, strict=True):
+        module, member = r["locations"][0]["logicalLocations"]
+        assert (module["kind"], module["name"]) == ("module", c.cell)
+        assert module["fullyQualifiedName"] == "/".join(c.path)
+        assert member["fullyQualifiedName"] == f"{c.cell}/{c.finding.layer}"
+        assert f"In cell {c.cell} " in r["message"]["text"]
+    root = ET.fromstring(to_junit(result, deck, "fail"))
+    _check_counts(root)
+    assert int(root.get("failures")) == sum(1 for c in entries if c.finding.severity == "fail")
 
 
 def test_junit_has_a_case_per_cell_finding_not_per_placement(tmp_path):
