@@ -14,6 +14,14 @@ cells, or when shapes of other cells are within range.  What the finding
 depends on is all in that cell.  Within a cell the walk depends only on the
 window relative to the cell's frame, so it is memoised on that: the
 placements of a cell repeat the same relative windows over and over.
+
+A finding whose own region (without the range) one placement of a child of
+its cell would hold, but whose window none holds, depends on its context:
+the shapes within range around that placement keep it in the parent, so it
+is the parent (or the placing of the child) that a fix changes.
+
+:class:`Holders` walks one window at a time (the plain version);
+``layout.holders_batch`` walks many at once, a level at a time.
 """
 
 from __future__ import annotations
@@ -27,15 +35,27 @@ from pitchguard.layout.hierarchy import Affine, HierarchyQuery, boxes_meet
 MEMO_ENTRIES = 200_000
 """Memoised walks kept (cleared when full)."""
 
+KEY_SCALE = 1e6
+"""Windows whose coordinates round to the same multiple of 1/KEY_SCALE nm share a
+memoised walk (placements repeat a window up to float noise)."""
+
+
+def window_key(w) -> tuple[int, ...]:
+    """The memo key of a window: its coordinates in 1/KEY_SCALE nm, rounded half to
+    even (what ``np.rint`` gives, so a batch groups windows alike)."""
+    return tuple(round(v * KEY_SCALE) for v in w)
+
 
 class Holder(NamedTuple):
     """Where a window belongs: ``cell``, the names from the top cell down to it,
-    and the cell's placement in the top frame (``p_top = m @ p_cell + t``, nm)."""
+    the cell's placement in the top frame (``p_top = m @ p_cell + t``, nm), and
+    whether the finding depends on its context (see the module's notes)."""
 
     cell: str
     path: tuple[str, ...]
     m: tuple[float, float, float, float]
     t: tuple[float, float]
+    context: bool  # the region alone is held by one placement of a child of ``cell``
 
 
 class Holders:
@@ -45,22 +65,41 @@ class Holders:
         self.q = q
         self._memo: dict = {}
 
-    def of(self, window, ld) -> Holder:
-        """The holder of ``window`` (nm, top frame) for polygons of layer ``ld``."""
+    def of(self, window, ld, region=None) -> Holder:
+        """The holder of ``window`` (nm, top frame) for polygons of layer ``ld``;
+        ``region`` (the finding's box, inside the window) decides ``context``."""
         q = self.q
         w = tuple(float(v) for v in window)
+        r = None if region is None else tuple(float(v) for v in region)
         tops = [n for n in q.tops if q.cells[n].bbox is not None]
         top = next((n for n in tops if boxes_meet(q.cells[n].bbox, w)), q.tops[0])
-        cell, path, m, t = self._walk(top, np.eye(2), w, ld)
-        return Holder(cell, (top, *path), tuple(m.ravel().tolist()), tuple(t.tolist()))
+        cell, path, m, t, ctx = self._walk(top, np.eye(2), w, r, ld)
+        return Holder(cell, (top, *path), tuple(m.ravel().tolist()), tuple(t.tolist()), ctx)
 
-    def _walk(self, name: str, m: np.ndarray, w, ld):
-        """``(cell, path below name, m, t)``: the walk from cell ``name`` placed by
-        ``m`` at the origin, ``w`` in that frame."""
-        key = (name, m.tobytes(), tuple(round(v, 6) + 0.0 for v in w), ld)
+    def _walk(self, name: str, m: np.ndarray, w, r, ld):
+        """``(cell, path below name, m, t, context)``: the walk from cell ``name``
+        placed by ``m`` at the origin, ``w`` and ``r`` in that frame."""
+        key = (name, m.tobytes(), window_key(w), None if r is None else window_key(r), ld)
         hit = self._memo.get(key)
         if hit is not None:
             return hit
+        held = self.held(name, m, w, ld)
+        if held is None:
+            ctx = r is not None and self.held(name, m, r, ld) is not None
+            out = (name, (), m, np.zeros(2), ctx)
+        else:
+            child, cm, ct = held
+            sub = self._walk(child, cm, _moved(w, ct), None if r is None else _moved(r, ct), ld)
+            cell, path, fm, ft, ctx = sub
+            out = (cell, (child, *path), fm, ft + ct, ctx)
+        if len(self._memo) >= MEMO_ENTRIES:
+            self._memo.clear()
+        self._memo[key] = out
+        return out
+
+    def held(self, name: str, m: np.ndarray, w, ld):
+        """``(child, m, t)`` of the one placement of a child of cell ``name`` (placed
+        by ``m`` at the origin) that holds ``w`` (in that frame), or None."""
         q = self.q
         here = Affine(m, np.zeros(2))
         meeting = [
@@ -70,16 +109,14 @@ class Holders:
         ]
         if len(meeting) > 1:  # boxes overlap the window: count those with shapes in it
             meeting = [c for c in meeting if q.meets(c[0], Affine(c[1], c[2]), w, ld)]
-        out = (name, (), m, np.zeros(2))
         if len(meeting) == 1 and not q.meets(name, here, w, ld, own_only=True):
-            child, cm, ct = meeting[0]
-            rel = (w[0] - ct[0], w[1] - ct[1], w[2] - ct[0], w[3] - ct[1])
-            cell, path, fm, ft = self._walk(child, cm, rel, ld)
-            out = (cell, (child, *path), fm, ft + ct)
-        if len(self._memo) >= MEMO_ENTRIES:
-            self._memo.clear()
-        self._memo[key] = out
-        return out
+            return meeting[0]
+        return None
+
+
+def _moved(w, t):
+    """The box ``w`` in a frame whose origin is at ``t``."""
+    return (w[0] - t[0], w[1] - t[1], w[2] - t[0], w[3] - t[1])
 
 
 def in_cell_frame(box, m, t) -> tuple[float, float, float, float]:

@@ -323,11 +323,11 @@ def scan_layout(
         from pitchguard.run.cells import finding_windows
         from pitchguard.run.tasks import holders_task
 
-        windows, lay = finding_windows(findings, deck)
+        windows, regions, lay = finding_windows(findings, deck)
         layers = [(r.layer, r.datatype) for r in deck.layers]
         cmap = run_isolated(
             holders_task,
-            (str(path), cell, layers, windows, lay),
+            (str(path), cell, layers, windows, regions, lay),
             Path(path),
             "finding the cells of findings",
             **({"timeout_s": read_timeout_s} if read_timeout_s else {}),

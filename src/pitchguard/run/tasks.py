@@ -218,10 +218,10 @@ def init_worker() -> None:
     take_grating_passes()
 
 
-def holders_task(path: str, cell: str | None, layers, windows, lay):
-    """The cells of findings (run.cells.holders_of): ``windows`` (n, 4) nm and each
-    one's layer as a number into ``layers``."""
+def holders_task(path: str, cell: str | None, layers, windows, regions, lay):
+    """The cells of findings (run.cells.holders_of): ``windows`` and ``regions``
+    (n, 4) nm and each one's layer as a number into ``layers``."""
     from pitchguard.run.cells import holders_of
 
     q, _ = _open(path, cell, layers)
-    return holders_of(q, windows, [tuple(layers[k]) for k in lay.tolist()])
+    return holders_of(q, windows, regions, [tuple(layers[k]) for k in lay.tolist()])

@@ -51,17 +51,19 @@ def with_hints(findings: FindingSet, keys: list, texts: dict) -> FindingSet:
 
 def preload_for_fork() -> None:
     """Import, before the first fork, what every forked child would otherwise
-    import for itself: the layout library and the hierarchy query (the
-    structure read and each worker), numpy.ma (np.unique imports it on first
-    use, in each worker and again here for the merge), numpy.fft and
-    threadpoolctl (each worker): once here instead of once per process."""
+    import for itself: the layout library, the hierarchy query and the holders
+    of findings' cells (the structure read and each worker), numpy.ma
+    (np.unique imports it on first use, in each worker and again here for the
+    merge), numpy.fft and threadpoolctl (each worker): once here instead of
+    once per process."""
     import gdstk  # noqa: F401
     import numpy.fft
     import numpy.ma  # noqa: F401
     import threadpoolctl  # noqa: F401
 
     import pitchguard.geometry.lattice
-    import pitchguard.layout.hierarchy  # noqa: F401
+    import pitchguard.layout.hierarchy
+    import pitchguard.layout.holders_batch  # noqa: F401
 
 
 def _guarded_structure(path: Path, cell, layers, max_shapes: int, timeout_s: float) -> Structure:
@@ -168,7 +170,7 @@ def scan_tiled(
 
 def _cells(engine, path: str, cell, layers, findings, deck: Deck):
     """The cell of each finding (run.cells), worked out on the workers, a chunk each."""
-    windows, lay = finding_windows(findings, deck)
+    windows, regions, lay = finding_windows(findings, deck)
     parts: dict[int, CellMap] = {}
 
     def arrived(k, part):
@@ -176,7 +178,11 @@ def _cells(engine, path: str, cell, layers, findings, deck: Deck):
         return []
 
     tasks = [
-        (holders_task, (path, cell, layers, windows[k : k + CHUNK], lay[k : k + CHUNK]), k)
+        (
+            holders_task,
+            (path, cell, layers, *(a[k : k + CHUNK] for a in (windows, regions, lay))),
+            k,
+        )
         for k in range(0, len(windows), CHUNK)
     ]
     engine.stream(tasks, arrived, in_flight=2 * engine.workers)
