@@ -163,14 +163,16 @@ def test_demo_report_summary_caution_and_groups(demo):
     assert 'id="more-groups"' not in text and 'id="cap-message"' not in text  # all drawn
     # Every finding of a cell is listed once, with its placements: they add up.
     listed = re.findall(
-        r"<tr><td class='n'>\d+</td><td>([^<]+)(?:<span[^>]*>[^<]*</span>)?</td>"
+        r"<tr><td class='n'>\d+</td><td>([^<]+?)( <span[^>]*>[^<]*</span>)?</td>"
         r"<td class='n'>[^<]+</td><td class='n'>(\d+)</td>",
         text,
     )
     entries = cell_findings(result)
     assert len(listed) == len(entries) < len(result.findings)
-    assert sum(int(n) for _, n in listed) == len(result.findings)
-    assert sorted(c for c, _ in listed) == sorted(html.escape(c.cell) for c in entries)
+    assert sum(int(n) for _, _, n in listed) == len(result.findings)
+    got = sorted((c, "depends on the placement" in note) for c, note, _ in listed)
+    assert got == sorted((html.escape(c.cell), c.depends_on_placement) for c in entries)
+    assert any(c.depends_on_placement for c in entries)  # the demo has such a finding
 
 
 def test_demo_report_pictures_are_png_data_uris(demo):
