@@ -149,10 +149,13 @@ def build_cell_chip(path: Path, rows_target: int = 7500, seed: int = 5) -> dict:
     top.add(gdstk.Reference(block, (0, 0), columns=cols, rows=rws, spacing=(340.0, 170.0)))
     scattered = blocks - cols * rws
     x_base = cols * 340.0 + 500.0
-    for s in range(scattered):  # off the lattice, at random offsets and turns
-        x = x_base + (s % 6) * 400.0 + float(rng.integers(0, 1000)) * 0.013
-        y = (s // 6) * 400.0 + float(rng.integers(0, 1000)) * 0.011
-        top.add(gdstk.Reference(block, (x, y), rotation=math.pi / 2 * float(rng.integers(0, 4))))
+    # The turned block's lower-left corner from its origin, per quarter turn.
+    corner = ((0.0, 0.0), (150.0, 0.0), (320.0, 150.0), (0.0, 320.0))
+    for s in range(scattered):  # off the lattice, in 400 um slots, at random offsets and turns
+        turn = int(rng.integers(0, 4))
+        x = x_base + (s % 6) * 400.0 + corner[turn][0] + float(rng.integers(0, 1000)) * 0.013
+        y = (s // 6) * 400.0 + corner[turn][1] + float(rng.integers(0, 1000)) * 0.011
+        top.add(gdstk.Reference(block, (x, y), rotation=math.pi / 2 * turn))
     y_base = max(rws * 170.0, (scattered // 6 + 1) * 400.0)
     y_alone = y_base + 500.0
     for k in range(10):  # a leaf with a foreign line 200 nm beside its first array
@@ -168,5 +171,5 @@ def build_cell_chip(path: Path, rows_target: int = 7500, seed: int = 5) -> dict:
     return {
         "row_placements": n_rows,
         "leaf_placements": 10 * n_rows + 10,
-        "shapes": 800 * n_rows + 90,
+        "shapes": 800 * n_rows + 810,
     }
