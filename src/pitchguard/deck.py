@@ -247,10 +247,12 @@ class Limits(_Model):
     * ``cd_tolerance_pct = 10.0``: CD window for EL and DOF, and the largest
       CD error at the anchored dose (common practice).
     * ``dof_min_nm``: smallest depth of focus at ``el_min_pct``.  Default
-      0.5 n lambda / NA^2 (Rayleigh form with k2 = 0.5; an order of magnitude,
-      set it from your process).
-    * ``focus_half_range_nm``: focus is sampled over +- this.  Default
-      0.5 n lambda / NA^2.  ``focus_steps = 9`` samples (odd: includes 0).
+      the quarter-wave focus lambda / (4 (n - sqrt(n^2 - NA^2))), which is
+      0.5 n lambda / NA^2 at low NA (an order of magnitude, set it from your
+      process).  It must not exceed the focus span sampled, which is all
+      that can be measured.
+    * ``focus_half_range_nm``: focus is sampled over +- this.  Default the
+      same quarter-wave focus.  ``focus_steps = 9`` samples (odd: includes 0).
     * ``anchor = { pitch_nm, cd_nm }``: the feature printed on size at the
       nominal dose (dose-to-size).  Without it every site is sized at its own
       dose and the through-pitch CD error is not judged.
@@ -302,8 +304,15 @@ MIN_RUN_LAMBDA_NA = 0.5
 INTERACTION_RANGE_LAMBDA_NA = 3.0
 COMPACT_LAMBDA_NA = 1.0
 PULLBACK_LAMBDA_NA = 0.25
-DOF_RAYLEIGH_K2 = 0.5
-"""Default DOF floor and focus half range: 0.5 n lambda / NA^2."""
+
+
+def quarter_wave_focus_nm(exposure) -> float:
+    """The defocus whose path difference at the pupil's edge, n z (1 - cos theta)
+    with sin theta = NA / n, is a quarter wave: lambda / (4 (n - sqrt(n^2 - NA^2))).
+    The default DOF floor and focus half range; 0.5 n lambda / NA^2 at low NA."""
+    n, na = exposure.immersion_index, exposure.na
+    # n - sqrt(n^2 - NA^2) written without cancellation at small NA.
+    return exposure.wavelength_nm * (n + math.sqrt(n * n - na * na)) / (4.0 * na * na)
 
 
 RENAMED_KEYS = {"ambit_nm": "interaction_range_nm"}
@@ -444,10 +453,15 @@ class LayerRule:
             "focus_steps",
         ):
             setattr(self, key, pick(key, LIMIT_DEFAULTS[key]))
-        rayleigh = exposure.immersion_index * exposure.wavelength_nm / exposure.na**2
-        self.dof_min_nm = pick("dof_min_nm", DOF_RAYLEIGH_K2 * rayleigh)
-        self.focus_half_range_nm = pick("focus_half_range_nm", DOF_RAYLEIGH_K2 * rayleigh)
+        quarter_wave = quarter_wave_focus_nm(exposure)
+        self.dof_min_nm = pick("dof_min_nm", quarter_wave)
+        self.focus_half_range_nm = pick("focus_half_range_nm", quarter_wave)
         self.anchor = pick("anchor", None)
+
+    @property
+    def focus_span_nm(self) -> float:
+        """The widest depth of focus the sampled focus values can show."""
+        return 0.0 if len(self.focus_nm) == 1 else 2.0 * self.focus_half_range_nm
 
     @property
     def focus_nm(self) -> tuple[float, ...]:
@@ -487,6 +501,16 @@ class Deck:
                 raise DeckError(
                     f"{self._where()}: {key}.k1_risk_below: {rule.k1_risk_below} must not "
                     f"exceed k1_marginal_below ({rule.k1_marginal_below}) for layer {rule.name!r}"
+                )
+        for i, (rule, entry) in enumerate(zip(self.layers, raw.layers, strict=True)):
+            if rule.image_checks and rule.dof_min_nm > rule.focus_span_nm * (1 + 1e-9):
+                key = f"layers[{i}]" if entry.dof_min_nm is not None else "layer_defaults"
+                raise DeckError(
+                    f"{self._where()}: {key}.dof_min_nm: {rule.dof_min_nm:g} nm cannot be "
+                    f"measured on layer {rule.name!r}: its focus samples span "
+                    f"{rule.focus_span_nm:g} nm (focus_half_range_nm "
+                    f"{rule.focus_half_range_nm:g} x 2, focus_steps {rule.focus_steps}); widen "
+                    "the range or lower the floor"
                 )
         self.markers = {s: parse_layer_spec(getattr(raw.markers, s)) for s in SEVERITIES}
 

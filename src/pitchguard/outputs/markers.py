@@ -10,6 +10,7 @@ placement in the top cell instead.
 
 from __future__ import annotations
 
+import math
 import re
 from pathlib import Path
 
@@ -36,6 +37,8 @@ def marker_label(f: Finding) -> str:
     if f.array is not None and f.context in ("alone", "group"):
         w, h = f.array.feature_nm
         return f"{f.severity} {f.check} {f.layer} {f.context} {w:.1f}x{h:.1f}nm"
+    if not math.isfinite(f.pitch_nm):
+        return f"{f.severity} {f.check} {f.layer} isolated w={f.width_nm:.1f}nm"
     return f"{f.severity} {f.check} {f.layer} p={f.pitch_nm:.1f}nm k1={f.k1:.3f}"
 
 

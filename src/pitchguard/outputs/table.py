@@ -68,7 +68,7 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
         shown = entries[:top]
         worst = Table(
             title=f"Worst findings ({len(shown)} of {len(entries)}; "
-            f"{len(result.findings)} placements)",
+            f"{len(result.findings)} placement{'s' if len(result.findings) != 1 else ''})",
             title_justify="left",
             show_edge=False,
         )
@@ -96,7 +96,7 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
                 escape(c.cell or "-"),
                 f"{c.placements:,}",
                 f"{cx:.3f}, {cy:.3f}",
-                f"{f.pitch_nm:.1f}" if math.isfinite(f.pitch_nm) else "-",
+                f"{f.pitch_nm:.1f}" if math.isfinite(f.pitch_nm) else "isolated",
                 f"{f.width_nm:.0f} / "
                 + (f"{f.space_nm:.0f}" if math.isfinite(f.space_nm) else "-"),
                 f"{f.k1:.3f}" if math.isfinite(f.k1) else "-",

@@ -12,6 +12,20 @@ def nm_text(x: float, digits: int = 1) -> str:
     return f"{x:.{digits}f}" if math.isfinite(x) else "-"
 
 
+ISOLATED = "isolated (no neighbour within the interaction range)"
+"""What a line with no pitch is called in the reports (its pitch is not a number)."""
+
+
+def pitch_text(f: Finding) -> str:
+    """``pitch 80.0 nm``, or :data:`ISOLATED` for a line with no neighbour."""
+    return f"pitch {f.pitch_nm:.1f} nm" if math.isfinite(f.pitch_nm) else ISOLATED
+
+
+def k1_number(f: Finding) -> str:
+    """k1 to three places, ``-`` when there is none (an isolated line, a line end)."""
+    return f"{f.k1:.3f}" if math.isfinite(f.k1) else "-"
+
+
 def orders_text(orders: tuple[int, ...]) -> str:
     """Diffraction orders in a few characters: ``0, ±1..3`` for a full symmetric run
     (``0``, ``0, ±1`` for the shortest), else each order signed, ``-`` for none."""
@@ -100,6 +114,11 @@ def pattern_text(f: Finding) -> str:
     if a is not None and a.lattice in CLIP_KINDS:
         w, h = a.feature_nm
         return f"a feature {nm_text(w)} x {nm_text(h)} nm {CLIP_WHERE[a.lattice]}"
+    if a is None and not math.isfinite(f.pitch_nm):
+        return (
+            f"{f.lines} line{'s' if f.lines != 1 else ''} {nm_text(f.width_nm)} nm wide "
+            f"running at {f.orientation_deg:g} deg, {ISOLATED}"
+        )
     if a is None:
         return (
             f"{f.lines} lines ({f.periodicity}) running at {f.orientation_deg:g} deg, "
@@ -136,6 +155,8 @@ def pattern_brief(f: Finding) -> str:
         return f"feature {nm_text(w)} x {nm_text(h)} nm {where}"
     if f.context == "line-end":
         return f"{f.periodicity} gap {nm_text(f.space_nm)} nm (line {nm_text(f.width_nm)} nm)"
+    if f.array is None and not math.isfinite(f.pitch_nm):
+        return f"isolated line {nm_text(f.width_nm)} nm wide"
     if f.array is None:
         return (
             f"pitch {nm_text(f.pitch_nm)} nm "

@@ -17,7 +17,7 @@ from pitchguard.outputs.html.text import (
     html_number,
     value_vs_limit,
 )
-from pitchguard.outputs.texts import CLIP_WHERE, orders_text
+from pitchguard.outputs.texts import CLIP_WHERE, ISOLATED, k1_number, orders_text, pitch_text
 
 
 def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
@@ -25,7 +25,7 @@ def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
     rows = [
         (
             "pitch (drawn)",
-            f"{f.pitch_nm:.1f} nm"
+            (f"{f.pitch_nm:.1f} nm" if math.isfinite(f.pitch_nm) else esc(ISOLATED))
             + (
                 f" … {f.pitch_max_nm:.1f} nm"
                 if math.isfinite(f.pitch_max_nm) and f.pitch_max_nm - f.pitch_nm > 0.05
@@ -34,7 +34,7 @@ def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
         ),
     ]
     if abs(scale - 1.0) > 1e-12:
-        rows.append(("pitch (wafer)", f"{f.wafer_pitch_nm:.1f} nm"))
+        rows.append(("pitch (wafer)", html_number(f.wafer_pitch_nm, unit=" nm")))
     rows += [
         (
             f"{fw} width / space (drawn)",
@@ -261,8 +261,8 @@ def _group_title(g: Group, rule: LayerRule | None) -> str:
         )
     else:
         meta = (
-            f"pitch {f.pitch_nm:.1f} nm, {fw} {html_number(f.width_nm)} / space "
-            f"{html_number(f.space_nm)} nm, k1 {f.k1:.3f}, lines at "
+            f"{esc(pitch_text(f))}, {fw} {html_number(f.width_nm)} / space "
+            f"{html_number(f.space_nm)} nm, k1 {k1_number(f)}, lines at "
             f"{degrees_text(f.orientation_deg)}"
             f"{', ' + esc(f.context) + ' line' if f.context else ''}"
         )
