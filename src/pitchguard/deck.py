@@ -253,6 +253,9 @@ class Limits(_Model):
       that can be measured.
     * ``focus_half_range_nm``: focus is sampled over +- this.  Default the
       same quarter-wave focus.  ``focus_steps = 9`` samples (odd: includes 0).
+    * ``resist_blur_nm``: standard deviation (wafer nm) of a Gaussian blur of
+      the aerial image before the threshold (acid diffusion in a chemically
+      amplified resist).  Default 0: none.
     * ``anchor = { pitch_nm, cd_nm }``: the feature printed on size at the
       nominal dose (dose-to-size).  Without it every site is sized at its own
       dose and the through-pitch CD error is not judged.
@@ -275,6 +278,8 @@ class Limits(_Model):
     dof_min_nm: Annotated[float, Field(ge=0.0)] | None = None
     focus_half_range_nm: Annotated[float, Field(ge=0.0)] | None = None
     focus_steps: Annotated[int, Field(ge=1, le=41)] | None = None
+    # Resist blur beyond 100 nm would wash out every pitch this tool judges.
+    resist_blur_nm: Annotated[float, Field(ge=0.0, le=100.0)] | None = None
     anchor: Anchor | None = None
 
     @field_validator("focus_steps")
@@ -411,6 +416,7 @@ class LayerRule:
         "dof_min_nm",
         "focus_half_range_nm",
         "focus_steps",
+        "resist_blur_nm",
         "anchor",
         "nils_fail_below",
         "optional",
@@ -456,6 +462,7 @@ class LayerRule:
         quarter_wave = quarter_wave_focus_nm(exposure)
         self.dof_min_nm = pick("dof_min_nm", quarter_wave)
         self.focus_half_range_nm = pick("focus_half_range_nm", quarter_wave)
+        self.resist_blur_nm = float(pick("resist_blur_nm", 0.0))
         self.anchor = pick("anchor", None)
 
     @property

@@ -191,8 +191,10 @@ def test_demo_report_pictures_are_png_data_uris(demo):
         for v in g.first.violations:
             assert f">{v.check}</code>" in sec
         assert "What to change:" in sec and html.escape(g.first.hint, quote=False) in sec
-        if g.first.tip is None:
+        if g.first.tip is None and math.isfinite(g.first.pitch_nm):
             assert html.escape(f"{g.first.pitch_nm:.1f} nm") in sec
+        elif g.first.tip is None:  # a feature with no neighbour: no pitch, never "nan"
+            assert "isolated" in sec and "nan nm" not in sec
         else:  # a line end: its gap, no pitch
             assert f"{g.first.space_nm:.1f} nm, {g.first.tip.kind}" in sec
 

@@ -80,6 +80,20 @@ def pupil(fx: np.ndarray, fy: np.ndarray, optics: Optics, defocus_nm: float) -> 
     return p
 
 
+def blur_factors(df: np.ndarray, blur_nm: float) -> np.ndarray:
+    """What a Gaussian blur of standard deviation ``blur_nm`` leaves of the image's
+    component at frequency ``df`` (1/nm): its Fourier transform,
+    ``exp(-2 pi^2 sigma^2 f^2)``.
+
+    Every image here is a Hopkins sum ``sum_nm c_n conj(c_m) TCC_nm exp(i 2 pi
+    (f_n - f_m) x)``, so blurring the image multiplies ``TCC_nm`` by this
+    factor at ``f_n - f_m``: the blurred TCC stays Hermitian and positive
+    semi-definite (a Hadamard product with a Gaussian kernel matrix, Schur's
+    product theorem), and decomposes into coherent systems as before.
+    """
+    return np.exp(-2.0 * np.pi**2 * blur_nm**2 * df * df)
+
+
 def n_orders(period_nm: float, optics: Optics, sigma_max: float = 1.0) -> int:
     """Largest order index any source point can send through the pupil."""
     return int(math.floor(period_nm * optics.cutoff * (1.0 + sigma_max) + 1e-9))
@@ -220,9 +234,10 @@ class CoherentSystems:
         n_max: int,
         defocus_nm: float = 0.0,
         keep: float = SOCS_KEEP,
+        blur_nm: float = 0.0,
     ):
         self._decompose(
-            PupilFrame(optics, src, period_nm, n_max), period_nm, n_max, defocus_nm, keep
+            PupilFrame(optics, src, period_nm, n_max), period_nm, n_max, defocus_nm, keep, blur_nm
         )
 
     @classmethod
@@ -233,14 +248,21 @@ class CoherentSystems:
         n_max: int,
         defocus_nm: float = 0.0,
         keep: float = SOCS_KEEP,
+        blur_nm: float = 0.0,
     ) -> CoherentSystems:
         """The systems at one focus from a :class:`PupilFrame` kept for several."""
         out = object.__new__(cls)
-        out._decompose(frame, period_nm, n_max, defocus_nm, keep)
+        out._decompose(frame, period_nm, n_max, defocus_nm, keep, blur_nm)
         return out
 
     def _decompose(
-        self, frame: PupilFrame, period_nm: float, n_max: int, defocus_nm: float, keep: float
+        self,
+        frame: PupilFrame,
+        period_nm: float,
+        n_max: int,
+        defocus_nm: float,
+        keep: float,
+        blur_nm: float = 0.0,
     ) -> None:
         self.period_nm = period_nm
         self.n_max = n_max
@@ -249,6 +271,9 @@ class CoherentSystems:
         # rows of V^H (an SVD of A gives the same, far slower on these mostly
         # zero matrices).
         tcc = a.conj().T @ a
+        if blur_nm > 0:
+            fn = np.arange(-n_max, n_max + 1) / period_nm
+            tcc = tcc * blur_factors(fn[:, None] - fn[None, :], blur_nm)
         ev, v = np.linalg.eigh(tcc)
         order = np.argsort(ev)[::-1]
         ev, v = ev[order], v[:, order]
@@ -266,7 +291,7 @@ class CoherentSystems:
         other = object.__new__(CoherentSystems)
         other.period_nm, other.n_max = self.period_nm, self.n_max
         other.eigenvalues = self.eigenvalues
-        other.kernels = self.kernels.conj()
+        other.kernels = self.kernels.conj()  # a blur's factors are real and even: kept
         return other
 
     def field_coefficients(self, spectra: np.ndarray) -> np.ndarray:

@@ -46,6 +46,7 @@ from pitchguard.deck import Exposure
 from pitchguard.optics.aerial import (
     SOCS_KEEP,
     Optics,
+    blur_factors,
     pupil,
     source_is_symmetric,
     source_points,
@@ -363,23 +364,34 @@ class CoherentSystems2D:
         orders: CellOrders,
         defocus_nm: float = 0.0,
         keep: float = SOCS_KEEP,
+        blur_nm: float = 0.0,
     ):
-        self._decompose(PupilFrame2D(optics, src, orders), defocus_nm, keep)
+        self._decompose(PupilFrame2D(optics, src, orders), defocus_nm, keep, blur_nm)
 
     @classmethod
     def from_frame(
-        cls, frame: PupilFrame2D, defocus_nm: float = 0.0, keep: float = SOCS_KEEP
+        cls,
+        frame: PupilFrame2D,
+        defocus_nm: float = 0.0,
+        keep: float = SOCS_KEEP,
+        blur_nm: float = 0.0,
     ) -> CoherentSystems2D:
         """The systems at one focus from a :class:`PupilFrame2D` kept for several."""
         out = object.__new__(cls)
-        out._decompose(frame, defocus_nm, keep)
+        out._decompose(frame, defocus_nm, keep, blur_nm)
         return out
 
-    def _decompose(self, frame: PupilFrame2D, defocus_nm: float, keep: float) -> None:
+    def _decompose(
+        self, frame: PupilFrame2D, defocus_nm: float, keep: float, blur_nm: float = 0.0
+    ) -> None:
         n = len(frame.orders)
         tcc = np.zeros((n, n), dtype=np.complex128)
         for a in frame.blocks(defocus_nm):
             tcc += a.conj().T @ a
+        if blur_nm > 0:  # a blurred image: aerial.blur_factors at each order difference
+            fx, fy = frame.orders.fx, frame.orders.fy
+            dfx, dfy = fx[:, None] - fx[None, :], fy[:, None] - fy[None, :]
+            tcc = tcc * blur_factors(np.sqrt(dfx * dfx + dfy * dfy), blur_nm)
         ev, v = np.linalg.eigh(tcc)
         order = np.argsort(ev)[::-1]
         ev, v = ev[order], v[:, order]
@@ -478,25 +490,45 @@ def source_angle(exposure: Exposure, angle_deg: float) -> float:
 
 
 def coherent_systems_2d(
-    exposure: Exposure, px_nm: float, py_nm: float, focus_nm: float, angle_deg: float = 0.0
+    exposure: Exposure,
+    px_nm: float,
+    py_nm: float,
+    focus_nm: float,
+    angle_deg: float = 0.0,
+    blur_nm: float = 0.0,
 ) -> CoherentSystems2D:
-    """The imaging systems of a ``px x py`` cell at one focus, kept per process.
+    """The imaging systems of a ``px x py`` cell at one focus, of an image blurred by
+    a Gaussian of ``blur_nm`` (the layer's resist blur), kept per process.
 
     The systems at ``-z`` are the conjugates of those at ``+z``
     (:meth:`CoherentSystems2D.through_opposite_focus`): a focus pair costs one TCC.
     """
     return _systems(
-        exposure, float(px_nm), float(py_nm), float(focus_nm), source_angle(exposure, angle_deg)
+        exposure,
+        float(px_nm),
+        float(py_nm),
+        float(focus_nm),
+        source_angle(exposure, angle_deg),
+        float(blur_nm),
     )
 
 
 @lru_cache(maxsize=512)
 def _systems(
-    exposure: Exposure, px_nm: float, py_nm: float, focus_nm: float, angle_deg: float
+    exposure: Exposure,
+    px_nm: float,
+    py_nm: float,
+    focus_nm: float,
+    angle_deg: float,
+    blur_nm: float = 0.0,
 ) -> CoherentSystems2D:
     if focus_nm < 0:
-        return _systems(exposure, px_nm, py_nm, -focus_nm, angle_deg).through_opposite_focus()
-    return CoherentSystems2D.from_frame(_frame(exposure, px_nm, py_nm, angle_deg), focus_nm)
+        return _systems(
+            exposure, px_nm, py_nm, -focus_nm, angle_deg, blur_nm
+        ).through_opposite_focus()
+    return CoherentSystems2D.from_frame(
+        _frame(exposure, px_nm, py_nm, angle_deg), focus_nm, blur_nm=blur_nm
+    )
 
 
 def clear_systems_cache() -> None:

@@ -103,7 +103,9 @@ def alone_metrics(
     n = len(s)
     focus = np.asarray(rule.focus_nm, dtype=np.float64)
     best = int(np.argmin(np.abs(focus)))
-    image = PointImages(e, cell, spec[0], orders, px, py, angle_deg, plain=plain, basis=basis)
+    image = PointImages(
+        e, cell, spec[0], orders, px, py, angle_deg, plain, basis, rule.resist_blur_nm
+    )
     lines = image(float(focus[best]))  # x, y, both diagonals
     tol = rule.cd_tolerance_pct / 100.0
     # A size within tolerance has both edges within (1 + tol) of the larger side
@@ -130,7 +132,11 @@ def alone_metrics(
     i_e, d_x, d_y = image.at(float(focus[best]), ex, ey)
     slopes = np.concatenate([d_x[:2], d_y[2:]])
     anchor = rule.anchor
-    t_nom = anchor_threshold_2d(e, rule.field, anchor) if anchor is not None else None
+    t_nom = (
+        anchor_threshold_2d(e, rule.field, anchor, rule.resist_blur_nm)
+        if anchor is not None
+        else None
+    )
     m = axis_metrics(
         s,
         s,
@@ -200,7 +206,7 @@ def alone_metrics_batch(
     sizes = np.array([f for _, f in clips], dtype=np.float64).reshape(nb, 2)
     focus = np.asarray(rule.focus_nm, dtype=np.float64)
     best = int(np.argmin(np.abs(focus)))
-    images = PointImagesBatch(e, cells[0], spec, orders, angle_deg, basis)
+    images = PointImagesBatch(e, cells[0], spec, orders, angle_deg, basis, rule.resist_blur_nm)
     lines = images(float(focus[best]))  # (B, 4n): x, y, both diagonals
     tol = rule.cd_tolerance_pct / 100.0
     bright = rule.field == "dark"
@@ -228,7 +234,11 @@ def alone_metrics_batch(
     i_e, d_x, d_y = images.at(float(focus[best]), ex, ey)
     slopes = np.concatenate([d_x[:, :2], d_y[:, 2:]], axis=1)
     anchor = rule.anchor
-    t_nom = anchor_threshold_2d(e, rule.field, anchor) if anchor is not None else None
+    t_nom = (
+        anchor_threshold_2d(e, rule.field, anchor, rule.resist_blur_nm)
+        if anchor is not None
+        else None
+    )
     ms = axis_metrics_batch(
         s,
         stack[:, :, :n],

@@ -62,6 +62,7 @@ def _rule_key(rule: LayerRule, scale_to_wafer: float) -> tuple:
         rule.anchor,
         rule.cd_tolerance_pct,
         rule.el_min_pct,
+        rule.resist_blur_nm,
         scale_to_wafer,
     )
 
@@ -113,17 +114,27 @@ def _frame(exposure: Exposure, angle_deg: float, period_nm: float, n_max: int) -
 
 @lru_cache(maxsize=512)
 def coherent_systems(
-    exposure: Exposure, angle_deg: float, period_nm: float, n_max: int, focus_nm: float
+    exposure: Exposure,
+    angle_deg: float,
+    period_nm: float,
+    n_max: int,
+    focus_nm: float,
+    blur_nm: float = 0.0,
 ):
-    """The imaging systems at one focus.  Those at ``-z`` are the conjugates of
+    """The imaging systems at one focus, of an image blurred by a Gaussian of
+    ``blur_nm`` (the layer's resist blur).  Those at ``-z`` are the conjugates of
     those at ``+z`` (:meth:`CoherentSystems.through_opposite_focus`): a deck's
     focus values mostly come in such pairs, and each pair costs one TCC."""
     if focus_nm < 0:
         return coherent_systems(
-            exposure, angle_deg, period_nm, n_max, -focus_nm
+            exposure, angle_deg, period_nm, n_max, -focus_nm, blur_nm
         ).through_opposite_focus()
     return CoherentSystems.from_frame(
-        _frame(exposure, angle_deg, period_nm, n_max), period_nm, n_max, focus_nm
+        _frame(exposure, angle_deg, period_nm, n_max),
+        period_nm,
+        n_max,
+        focus_nm,
+        blur_nm=blur_nm,
     )
 
 
@@ -138,7 +149,9 @@ def anchor_threshold(rule: LayerRule) -> float | None:
     feat, bg = mask_amplitudes(e, rule.field)
     spec = grating_spectrum(p, cd, feat, bg, n_max)
     # Lines along y (pitch along x): angle 0.  Symmetric grating: both edges alike.
-    inten, _ = coherent_systems(e, 0.0, p, n_max, 0.0).at(spec, np.array([cd / 2.0]))
+    inten, _ = coherent_systems(e, 0.0, p, n_max, 0.0, rule.resist_blur_nm).at(
+        spec, np.array([cd / 2.0])
+    )
     return float(inten[0, 0])
 
 
@@ -223,17 +236,17 @@ def measure_one(
             spectra = segment_spectrum(period, edges, values, n_max)
             stack = np.stack(
                 [
-                    coherent_systems(e, angle, period, n_max, float(z)).image(spectra, samples)[
-                        :, order
-                    ]
+                    coherent_systems(e, angle, period, n_max, float(z), rule.resist_blur_nm).image(
+                        spectra, samples
+                    )[:, order]
                     for z in focus
                 ]
             )  # (F, m, X)
             feats = [scaled[k].feature for k in idx]
             pts = np.array([[lft, rgt] for lft, rgt in feats])
-            i_e, d_e = coherent_systems(e, angle, period, n_max, float(focus[best])).at(
-                spectra, pts
-            )
+            i_e, d_e = coherent_systems(
+                e, angle, period, n_max, float(focus[best]), rule.resist_blur_nm
+            ).at(spectra, pts)
             ms = evaluate_batch(
                 x,
                 stack.transpose(1, 0, 2),
@@ -282,14 +295,16 @@ def grating_metrics(
     best = int(np.argmin(np.abs(focus)))
     stack = np.stack(
         [
-            coherent_systems(e, angle_deg, pitch_nm, n_max, float(z)).image(spec, samples)[0, order]
+            coherent_systems(e, angle_deg, pitch_nm, n_max, float(z), rule.resist_blur_nm).image(
+                spec, samples
+            )[0, order]
             for z in focus
         ]
     )
     h = cd_nm / 2.0
-    i_e, d_e = coherent_systems(e, angle_deg, pitch_nm, n_max, float(focus[best])).at(
-        spec, np.array([-h, h])
-    )
+    i_e, d_e = coherent_systems(
+        e, angle_deg, pitch_nm, n_max, float(focus[best]), rule.resist_blur_nm
+    ).at(spec, np.array([-h, h]))
     m = evaluate(
         x,
         stack,
@@ -324,14 +339,16 @@ def grating_metrics_batch(
     best = int(np.argmin(np.abs(focus)))
     stack = np.stack(
         [
-            coherent_systems(e, angle_deg, pitch_nm, n_max, float(z)).image(spectra, samples)[
-                :, order
-            ]
+            coherent_systems(e, angle_deg, pitch_nm, n_max, float(z), rule.resist_blur_nm).image(
+                spectra, samples
+            )[:, order]
             for z in focus
         ]
     )  # (F, m, X)
     pts = np.stack([-h, h], axis=1)
-    i_e, d_e = coherent_systems(e, angle_deg, pitch_nm, n_max, float(focus[best])).at(spectra, pts)
+    i_e, d_e = coherent_systems(
+        e, angle_deg, pitch_nm, n_max, float(focus[best]), rule.resist_blur_nm
+    ).at(spectra, pts)
     return evaluate_batch(
         x,
         stack.transpose(1, 0, 2),
@@ -368,8 +385,8 @@ def cut_image(
         if e.illumination.shape in ("coherent", "conventional", "annular")
         else round(angle_deg, 1) % 180.0
     )
-    inten = coherent_systems(e, angle, period, n_max, float(focus_nm)).image(spec, samples)[
-        0, order
-    ]
+    inten = coherent_systems(e, angle, period, n_max, float(focus_nm), rule.resist_blur_nm).image(
+        spec, samples
+    )[0, order]
     keep = np.abs(x) <= rule.interaction_range_nm
     return x[keep], inten[keep]

@@ -51,8 +51,10 @@ class PointImages:
         angle_deg: float,
         plain: bool = False,
         basis: np.ndarray | None = None,
+        blur_nm: float = 0.0,
     ):
         self.exposure, self.cell, self.spectrum, self.orders = exposure, cell, spectrum, orders
+        self.blur_nm = blur_nm  # the layer's resist blur (wafer nm)
         self.px, self.py, self.angle_deg, self.plain = px, py, angle_deg, plain
         if basis is None and not plain:
             basis = plane_waves(orders, px, py)
@@ -67,7 +69,7 @@ class PointImages:
         """``(lambda, K d, TCC_0n d, |c_0|^2 TCC_00)`` at ``focus_nm``, the systems that the
         bound keeps."""
         sys = coherent_systems_2d(
-            self.exposure, self.cell.px_nm, self.cell.py_nm, focus_nm, self.angle_deg
+            self.exposure, self.cell.px_nm, self.cell.py_nm, focus_nm, self.angle_deg, self.blur_nm
         )
         ev, kern = sys.eigenvalues, sys.kernels  # largest first
         row = sys.dc_row()
@@ -82,6 +84,8 @@ class PointImages:
     def __call__(self, focus_nm: float, points: slice | np.ndarray = slice(None)) -> np.ndarray:
         """Intensities at ``focus_nm`` at the points ``points`` selects (a slice or indices)."""
         e = self.exposure
+        if self.plain and self.blur_nm > 0:  # every system: the Abbe sum cannot blur
+            return self.at(focus_nm, self.px[points], self.py[points])[0]
         if self.plain:
             src = source_points(e, self.angle_deg)
             return abbe_image_2d(
@@ -100,7 +104,12 @@ class PointImages:
         y = np.atleast_1d(np.asarray(y_nm, dtype=np.float64))
         if self.plain:
             sys = coherent_systems_2d(
-                self.exposure, self.cell.px_nm, self.cell.py_nm, focus_nm, self.angle_deg
+                self.exposure,
+                self.cell.px_nm,
+                self.cell.py_nm,
+                focus_nm,
+                self.angle_deg,
+                self.blur_nm,
             )
             inten, d_x, d_y = sys.at(self.spectrum, x, y)
             return inten[0], d_x[0], d_y[0]
@@ -128,8 +137,10 @@ class PointImagesBatch:
         orders: CellOrders,
         angle_deg: float,
         basis: np.ndarray,
+        blur_nm: float = 0.0,
     ):
         self.exposure, self.cell, self.orders, self.angle_deg = exposure, cell, orders, angle_deg
+        self.blur_nm = blur_nm
         self.basis = basis  # (N, P)
         zero = orders.zero
         self.c0 = np.array(spectra[:, zero], dtype=np.complex128)
@@ -143,7 +154,7 @@ class PointImagesBatch:
         image (b,))``.  Products run per cell on these shapes alone, so a cell's image
         does not depend on which cells share the batch."""
         sys = coherent_systems_2d(
-            self.exposure, self.cell.px_nm, self.cell.py_nm, focus_nm, self.angle_deg
+            self.exposure, self.cell.px_nm, self.cell.py_nm, focus_nm, self.angle_deg, self.blur_nm
         )
         ev, kern = sys.eigenvalues, sys.kernels
         row = sys.dc_row()

@@ -347,14 +347,16 @@ def axis_metrics(
 # --------------------------------------------------------------------------- driving the engine
 
 
-def anchor_threshold_2d(exposure: Exposure, field: str, anchor: Anchor) -> float:
+def anchor_threshold_2d(
+    exposure: Exposure, field: str, anchor: Anchor, blur_nm: float = 0.0
+) -> float:
     """Nominal threshold from an anchor square array: ``cd x cd`` features at ``pitch x
-    pitch``, the image at the middle of a drawn edge, best focus."""
+    pitch``, the image (blurred by ``blur_nm``) at the middle of a drawn edge, best focus."""
     p, cd = anchor.pitch_nm, anchor.cd_nm
     orders = exposure_orders(exposure, p, p)
     feat, bg = mask_amplitudes(exposure, field)
     spec = cell_spectra([array_cell(p, p, cd, cd)], orders, feat, bg)
-    inten, _, _ = coherent_systems_2d(exposure, p, p, 0.0).at(spec, [cd / 2.0], [0.0])
+    inten, _, _ = coherent_systems_2d(exposure, p, p, 0.0, 0.0, blur_nm).at(spec, [cd / 2.0], [0.0])
     return float(inten[0, 0])
 
 
@@ -383,9 +385,9 @@ def cell_metrics(
     best = int(np.argmin(np.abs(focus)))
     stack = np.stack(
         [
-            coherent_systems_2d(e, cell.px_nm, cell.py_nm, float(z), angle_deg).image(
-                spec, nx, ny, centre
-            )[0]
+            coherent_systems_2d(
+                e, cell.px_nm, cell.py_nm, float(z), angle_deg, rule.resist_blur_nm
+            ).image(spec, nx, ny, centre)[0]
             for z in focus
         ]
     )
@@ -394,14 +396,18 @@ def cell_metrics(
     px = np.array([x0, x1, centre[0], centre[0]])
     py = np.array([centre[1], centre[1], y0, y1])
     inten, d_x, d_y = coherent_systems_2d(
-        e, cell.px_nm, cell.py_nm, float(focus[best]), angle_deg
+        e, cell.px_nm, cell.py_nm, float(focus[best]), angle_deg, rule.resist_blur_nm
     ).at(spec, px, py)
     slopes = np.concatenate([d_x[0, :2], d_y[0, 2:]])
     others = np.array([cell.centre_of(k) for k in range(len(cell.rects_nm)) if k != index]).reshape(
         -1, 2
     )
     anchor = rule.anchor
-    t_nom = anchor_threshold_2d(e, rule.field, anchor) if anchor is not None else None
+    t_nom = (
+        anchor_threshold_2d(e, rule.field, anchor, rule.resist_blur_nm)
+        if anchor is not None
+        else None
+    )
     m = evaluate_2d(
         x,
         y,

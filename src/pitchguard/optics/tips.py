@@ -113,7 +113,9 @@ def tip_metrics(
     py = np.r_[np.zeros(len(xs)), -h, h] - cy
     focus = np.asarray(rule.focus_nm, dtype=np.float64)
     best = int(np.argmin(np.abs(focus)))
-    images = PointImages(e, cell, spec[0], orders, px, py, angle_deg, plain=plain)
+    images = PointImages(
+        e, cell, spec[0], orders, px, py, angle_deg, plain, blur_nm=rule.resist_blur_nm
+    )
 
     def image(k: int, points: slice = slice(None)) -> np.ndarray:
         return images(float(focus[k]), points)

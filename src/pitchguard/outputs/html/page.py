@@ -45,7 +45,8 @@ def _groups_text(n: int) -> str:
 CAVEATS = (
     "The pictures and numbers below image a 1-D cut through each line region, the periodic "
     "cell of each array and a 2-D clip around each line end, and print them with a constant "
-    "threshold: polarisation, mask 3-D, resist, aberration and OPC are not modelled."
+    "threshold (on the image blurred by the layer's resist_blur_nm, if set): polarisation, "
+    "mask 3-D, resist chemistry beyond that blur, aberration and OPC are not modelled."
 )
 
 

@@ -32,7 +32,7 @@ def tip_picture(f: Finding, rule: LayerRule, scale: float) -> tuple[str | None, 
     nx, ny = default_samples(orders, Optics.of(e))
     feat, bg = mask_amplitudes(e, rule.field)
     spec = cell_spectra([cell], orders, feat, bg)
-    sys = coherent_systems_2d(e, cell.px_nm, cell.py_nm, 0.0, t.angle_deg)
+    sys = coherent_systems_2d(e, cell.px_nm, cell.py_nm, 0.0, t.angle_deg, rule.resist_blur_nm)
     image = sys.image(spec, nx, ny, (0.0, 0.0))[0]
     x, y = image_axes(orders, nx, ny, (0.0, 0.0))
     cx, cy = cell.origin_nm
@@ -96,7 +96,9 @@ def alone_picture(f: Finding, rule: LayerRule, ps, boxes, scale: float) -> tuple
     orders = exposure_orders(e, cell.px_nm, cell.py_nm)
     nx, ny = default_samples(orders, Optics.of(e))
     spec = cell_spectra([cell], orders, *mask_amplitudes(e, rule.field))
-    image = coherent_systems_2d(e, cell.px_nm, cell.py_nm, 0.0, angle).image(spec, nx, ny)[0]
+    image = coherent_systems_2d(e, cell.px_nm, cell.py_nm, 0.0, angle, rule.resist_blur_nm).image(
+        spec, nx, ny
+    )[0]
     x, y = image_axes(orders, nx, ny)
     h = half * scale
     keep_x, keep_y = np.abs(x) <= h, np.abs(y) <= h
