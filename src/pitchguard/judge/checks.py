@@ -28,6 +28,9 @@ CHECKS = {
     "exposure latitude is below dof_min_nm.",
     "cd-error": "At the anchored dose the printed CD is off the drawn CD by more than "
     "cd_tolerance_pct.",
+    "side-lobe-printing": "The image prints in the space beside a feature, apart from any "
+    "feature: at nominal dose and best focus (fail) or within the focus and dose window "
+    "(risk).",
     "line-end-bridged": "The gap in front of a line end (to another line end or a line "
     "side) does not print open: at best focus (fail) or within the focus range (risk).",
     "line-end-pullback": "The printed line end falls short of the drawn one by more than "
@@ -100,6 +103,8 @@ def violations(
     m = metrics
     if m is not None:
         out.extend(printing_violations(m.lost, m.bridged, m.contrast, "runs into its neighbour"))
+        if m.side_lobe:
+            out.append(side_lobe_violation(m))
     if math.isfinite(pitch_wafer):
         v = band_violation(
             rule,
@@ -137,6 +142,24 @@ def violations(
             )
     out.sort(key=lambda v: SEVERITIES.index(v.severity))
     return out
+
+
+def side_lobe_violation(m: Metrics) -> Violation:
+    """A spurious feature printing beside the drawn one (optics.side_lobes)."""
+    nominal = m.side_lobe == 2
+    where = (
+        "at nominal dose and best focus"
+        if nominal
+        else "within the focus range at the edge of the dose window"
+    )
+    return Violation(
+        "side-lobe-printing",
+        "fail" if nominal else "risk",
+        m.side_lobe_depth,
+        1.0,
+        f"a side lobe prints in the space beside the feature {where} (image "
+        f"{m.side_lobe_depth:.2f} x the threshold, counted the way that prints)",
+    )
 
 
 def printing_violations(lost: bool, joined: bool, contrast: float, how: str) -> list[Violation]:
@@ -202,6 +225,7 @@ def worst_severity_code(vs: list[Violation]) -> int:
 IMAGE_CHECKS = (
     "feature-not-printed",
     "features-bridged",
+    "side-lobe-printing",
     "low-nils",
     "low-exposure-latitude",
     "low-depth-of-focus",

@@ -258,6 +258,7 @@ def measure_one(
                 tol,
                 rule.el_min_pct,
                 (i_e, d_e),
+                np.array([scaled[k].reach for k in idx]),
             )
             for k, m in zip(idx, ms, strict=True):
                 out[k] = m

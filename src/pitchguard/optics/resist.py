@@ -8,6 +8,8 @@ from typing import NamedTuple
 
 import numpy as np
 
+from pitchguard.optics.side_lobes import side_lobe_codes
+
 THRESHOLD_SAMPLES = 512
 """Thresholds tried per profile when inverting CD(threshold)."""
 
@@ -26,6 +28,11 @@ class Metrics:
     dof_nm: float  # at el_min_pct
     threshold: float  # nominal threshold (relative to the open frame)
     dose_to_size: float  # relative to the nominal dose (nan when never on size)
+    # Printing in the spaces beside the feature, apart from any feature
+    # (optics.side_lobes codes: 0 none, 1 within the window, 2 at nominal),
+    # and how deep: image over threshold (openings) or threshold over image.
+    side_lobe: int = 0
+    side_lobe_depth: float = 0.0
 
 
 def _edges_for_thresholds(x, g, lo_idx, c_idx, hi_idx, t):
@@ -201,6 +208,7 @@ def evaluate(
     tol: float,
     el_min_pct: float,
     edge_values: tuple[np.ndarray, np.ndarray] | None = None,
+    reach_nm: float = math.inf,
 ) -> Metrics:
     """Metrics of one feature from its images through focus.
 
@@ -223,6 +231,9 @@ def evaluate(
     edge_values
         ``(I, dI/dx)`` at the two drawn edges at best focus (exact values from
         the engine); estimated from the samples when not given.
+    reach_nm
+        How far from the feature the image stands for the layout (a cut's
+        interaction range): side lobes are looked for within it.
     """
     best = int(np.argmin(np.abs(focus_nm)))
     inten0 = images[best]
@@ -263,6 +274,16 @@ def evaluate(
     dof = _dof(focus_nm, windows, t_size, el_min_pct)
     # Dose D prints like threshold t_nom / D, so the dose on size is t_nom / t_size.
     dts = t_nom / t_size if (math.isfinite(t_size) and t_size > 0) else math.nan
+    lobe, depth = side_lobe_codes(
+        x,
+        images[None],
+        np.asarray(focus_nm, dtype=np.float64),
+        *(np.array([v]) for v in (left, right, lo, hi)),
+        bright,
+        np.array([t_nom]),
+        el_min_pct,
+        np.array([reach_nm]),
+    )
     # Python floats, not numpy scalars: metrics travel between processes in
     # every tiled scan, and a numpy scalar pickles to 5x the bytes, slower.
     return Metrics(
@@ -276,6 +297,8 @@ def evaluate(
         dof_nm=float(dof),
         threshold=float(t_nom),
         dose_to_size=float(dts),
+        side_lobe=int(lobe[0]),
+        side_lobe_depth=float(depth[0]),
     )
 
 

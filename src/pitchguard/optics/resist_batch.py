@@ -15,6 +15,7 @@ import numpy as np
 from pitchguard.optics.axis_batch import cds, latitudes, thresholds
 from pitchguard.optics.cd_search import cd_windows
 from pitchguard.optics.resist import Metrics
+from pitchguard.optics.side_lobes import side_lobe_codes
 
 
 def _interp(x: np.ndarray, rows: np.ndarray, at: np.ndarray) -> np.ndarray:
@@ -38,10 +39,12 @@ def evaluate_batch(
     tol: float,
     el_min_pct: float,
     edge_values: tuple[np.ndarray, np.ndarray],
+    reach_nm=math.inf,
 ) -> list[Metrics]:
     """:func:`resist.evaluate` of ``C`` cuts: ``images`` ``(C, F, len(x))``,
     ``features`` and ``searches`` ``(C, 2)``, the drawn CD each feature's width,
-    ``edge_values`` ``(I, dI/dx)`` ``(C, 2)`` at the drawn edges at best focus."""
+    ``edge_values`` ``(I, dI/dx)`` ``(C, 2)`` at the drawn edges at best focus,
+    ``reach_nm`` (scalar or ``(C,)``) how far side lobes are looked for."""
     focus_nm = np.asarray(focus_nm, dtype=np.float64)
     nc, nf, _ = images.shape
     best = int(np.argmin(np.abs(focus_nm)))
@@ -100,6 +103,9 @@ def evaluate_batch(
     dof = np.where(lat >= el_min_pct, span, 0.0).reshape(nc, -1).max(axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
         dts = np.where(usable, t_nom / t_use, np.nan)
+    lobe, depth = side_lobe_codes(
+        x, images, focus_nm, left, right, lo, hi, bright, t_nom, el_min_pct, reach_nm
+    )
     # Python floats: metrics travel between processes (see resist.evaluate).
     return [
         Metrics(
@@ -113,6 +119,8 @@ def evaluate_batch(
             dof_nm=float(dof[c]),
             threshold=float(t_nom[c]),
             dose_to_size=float(dts[c]),
+            side_lobe=int(lobe[c]),
+            side_lobe_depth=float(depth[c]),
         )
         for c in range(nc)
     ]

@@ -126,6 +126,19 @@ _RULE_HELP: dict[str, dict[str, str]] = {
         "change": "Move the pitch or width towards the layer's anchor geometry, or make "
         "sure the fab's mask correction covers this pattern.",
     },
+    "side-lobe-printing": {
+        "worst": "fail",
+        "flags": "Regions where the aerial image prints in the space beside a feature, "
+        "apart from the feature and its neighbour: at nominal dose and best focus (fail), "
+        "or at some focus of the layer's range with the dose el_min_pct / 2 % off nominal "
+        "(risk).",
+        "why": "A spurious feature prints on the wafer: an extra trench or hole between "
+        "openings, typically with attenuated phase-shift masks, whose light interferes "
+        "constructively between neighbouring openings at certain pitches.",
+        "change": "Move the pitch away from the one where the neighbours' side lobes add "
+        "up, widen the space, add assist or dummy features agreed with the fab, or lower "
+        "the mask's transmission.",
+    },
     "line-end-bridged": {
         "worst": "fail",
         "flags": "Line ends whose gap to what they face (another line end, or a line's "
