@@ -69,3 +69,20 @@ def test_the_json_gives_no_pitch_and_no_k1(isolated):
     (entry,) = cell_findings(isolated[0])
     row = entry_to_dict(entry)
     assert row["pitch_nm"] is None and row["k1"] is None and row["space_nm"] is None
+
+
+def test_an_unresolvable_finding_shows_no_contrast_of_its_pitch():
+    """Only the 0th order passes (the demo chip's 70 nm metal1 lines, below the
+    73.3 nm its dipole images): the pitch cannot modulate the image, so the
+    card gives no contrast for it."""
+    from decks import DEMO_DECK, SAMPLE_GDS
+    from pitchguard.outputs.html.card import _contrast_html
+
+    result = scan_layout(SAMPLE_GDS, load_deck(DEMO_DECK))
+    unresolvable = [f for f in result.findings if f.check == "unresolvable-pitch"]
+    resolved = [f for f in result.findings if f.check == "low-nils"]
+    assert unresolvable and resolved
+    for f in unresolvable:
+        assert _contrast_html(f).startswith("none from the pitch")
+    for f in resolved:
+        assert _contrast_html(f) == f"{f.contrast:.3f}"

@@ -20,6 +20,17 @@ from pitchguard.outputs.html.text import (
 from pitchguard.outputs.texts import CLIP_WHERE, ISOLATED, k1_number, orders_text, pitch_text
 
 
+def _contrast_html(f: Finding) -> str:
+    """The image contrast, except where no 1st order passes: the pitch does not image,
+    and what modulation the cut shows comes from the pattern's ends, not its lines."""
+    if f.check == "unresolvable-pitch" or tuple(f.orders) == (0,):
+        return (
+            "none from the pitch <span class='note'>(only the 0th order passes; the cut's "
+            f"{html_number(f.contrast, '.3f')} comes from the pattern's ends)</span>"
+        )
+    return html_number(f.contrast, ".3f")
+
+
 def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
     fw = feature_word(rule)
     rows = [
@@ -51,7 +62,7 @@ def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
             f"<span class='note'>(on axis: {orders_text(f.orders_on_axis)}; two-beam source "
             f"fraction {f.two_beam_fraction:.0%})</span>",
         ),
-        ("image contrast", html_number(f.contrast, ".3f")),
+        ("image contrast", _contrast_html(f)),
         ("NILS at the drawn edges", html_number(f.nils, ".2f")),
         ("exposure latitude (EL)", html_number(f.el_pct, ".1f", " %")),
         ("depth of focus (DOF)", html_number(f.dof_nm, ".0f", " nm")),
