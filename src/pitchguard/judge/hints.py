@@ -230,6 +230,16 @@ def hint_text(rule: LayerRule, key: tuple) -> str:
     return text
 
 
+def width_advice(checks: tuple[str, ...], feature: str) -> str:
+    """Which way to resize the feature: narrower when it runs into its neighbour,
+    wider when it does not print, otherwise either way the deck's limits ask."""
+    if "features-bridged" in checks:
+        return f"narrow the {feature} (widen the space)"
+    if "feature-not-printed" in checks:
+        return f"widen the {feature}"
+    return f"resize the {feature} (try `pitchguard probe` on both sides of this width)"
+
+
 def hint_steps(rule: LayerRule, key: tuple):
     """The generator that works out the hint of ``key`` (see :func:`drive`)."""
     checks, cutoff_pitch_nm, cd_w, pitch_w, angle, scale, real = key
@@ -248,7 +258,7 @@ def hint_steps(rule: LayerRule, key: tuple):
             f"{rule.k1_marginal_below:g}"
         )
     if not math.isfinite(cd_w) or not math.isfinite(pitch_w):
-        return f"widen the {feature} or give it neighbours at a regular pitch"
+        return f"{width_advice(checks, feature)} or give it neighbours at a regular pitch"
     if (yield ("exact", rule, cd_w, pitch_w, angle)):
         # The ideal grating passes at this pitch: the real neighbourhood fails.
         return (
@@ -263,12 +273,14 @@ def hint_steps(rule: LayerRule, key: tuple):
     if math.isnan(ok) and not math.isnan(ideal):
         return (
             f"an even grating of this {feature} width passes at pitch {ideal / scale:.1f} nm, "
-            f"but with this neighbourhood no nearby pitch passes: widen the {feature}, or "
+            f"but with this neighbourhood no nearby pitch passes: "
+            f"{width_advice(checks, feature)}, or "
             "change the exposure (try `pitchguard sweep` for this layer and width)"
         )
     if math.isnan(ok):
         return (
-            f"no nearby pitch passes at this {feature} width: widen the {feature}, or "
+            f"no nearby pitch passes at this {feature} width: "
+            f"{width_advice(checks, feature)}, or "
             "change the exposure (try `pitchguard sweep` for this layer and width)"
         )
     p_d, s_d = ok / scale, (ok - cd_w) / scale
