@@ -9,6 +9,18 @@ from pitchguard.errors import (
 )
 
 
+def _dof_text(*a, **k) -> str:
+    from pitchguard.outputs.texts import dof_text  # here: the command line imports no numpy
+
+    return dof_text(*a, **k)
+
+
+def _dof_limited(*a) -> bool:
+    from pitchguard.outputs.texts import dof_limited
+
+    return dof_limited(*a)
+
+
 def cmd_rules_check(args) -> int:
     from rich.table import Table
 
@@ -60,7 +72,7 @@ def cmd_rules_check(args) -> int:
     return EXIT_OK
 
 
-def _grating_json(r) -> dict:
+def _grating_json(r, rule) -> dict:
     from pitchguard.outputs.json_report import clean_json, violation_to_dict
 
     m = r.metrics
@@ -80,6 +92,7 @@ def _grating_json(r) -> dict:
             "cd_error_pct": m.cd_error_pct if m else None,
             "exposure_latitude_pct": m.el_pct if m else None,
             "depth_of_focus_nm": m.dof_nm if m else None,
+            "depth_of_focus_at_least": _dof_limited(m.dof_nm if m else None, rule.focus_span_nm),
             "threshold": m.threshold if m else None,
             "dose_to_size": m.dose_to_size if m else None,
             "severity": r.severity,
@@ -106,7 +119,7 @@ def cmd_probe(args) -> int:
 
         plot_image(rule, r, args.plot, [args.rules])
     if args.json:
-        out = _grating_json(r)
+        out = _grating_json(r, rule)
         out["focus_nm"] = args.focus
         # The image's own contrast and NILS, at the focus it was taken.
         out["contrast"], out["nils"] = clean_json([r.shown.contrast, r.shown.nils])
@@ -156,7 +169,7 @@ def cmd_probe(args) -> int:
                 number_text(m.cd_error_pct, " %", 1) if rule.anchor else "not judged (no anchor)",
             ),
             ("exposure latitude", number_text(m.el_pct, " %", 1)),
-            ("depth of focus", number_text(m.dof_nm, " nm", 0)),
+            ("depth of focus", _dof_text(m.dof_nm, rule.focus_span_nm)),
             (
                 "threshold / dose-to-size",
                 f"{m.threshold:.3f} / {number_text(m.dose_to_size, '', 3)}",
@@ -209,7 +222,7 @@ def cmd_sweep(args) -> int:
             number_text(m.nils if m else None),
             number_text(m.cd_error_pct if m else None, "", 1),
             number_text(m.el_pct if m else None, "", 1),
-            number_text(m.dof_nm if m else None, "", 0),
+            _dof_text(m.dof_nm if m else None, rule.focus_span_nm, ""),
             r.severity if r.severity == "ok" else f"{r.severity} ({r.violations[0].check})",
         )
     console.print(t)
@@ -229,14 +242,14 @@ def cmd_sweep(args) -> int:
                 "cd_nm": cd,
                 "caution": CAUTION,
                 "bands": [{"from_nm": a, "to_nm": b, "severity": s} for a, b, s in bands(results)],
-                "pitches": [_grating_json(r) for r in results],
+                "pitches": [_grating_json(r, rule) for r in results],
             },
             inputs,
         )
     return EXIT_OK
 
 
-def _array_json(r) -> dict:
+def _array_json(r, rule) -> dict:
     from pitchguard.outputs.json_report import clean_json, violation_to_dict
 
     m, shown, lo = r.metrics, r.shown, r.orders
@@ -268,6 +281,7 @@ def _array_json(r) -> dict:
             "merged": m.merged,
             "exposure_latitude_pct": m.el_pct,
             "depth_of_focus_nm": m.dof_nm,
+            "depth_of_focus_at_least": _dof_limited(m.dof_nm, rule.focus_span_nm),
             "threshold": m.threshold,
             "severity": r.severity,
             "checks": [violation_to_dict(v) for v in r.violations],
@@ -297,7 +311,7 @@ def _probe_array(args, rule) -> int:
 
         plot_array(rule, r, args.plot, [args.rules])
     if args.json:
-        out = _array_json(r)
+        out = _array_json(r, rule)
         out["caution"] = CAUTION
         say(json.dumps(out))
         return EXIT_OK
@@ -337,7 +351,7 @@ def _probe_array(args, rule) -> int:
         ),
         ("printed at nominal dose", printed),
         ("exposure latitude", number_text(m.el_pct, " %", 1)),
-        ("depth of focus", number_text(m.dof_nm, " nm", 0)),
+        ("depth of focus", _dof_text(m.dof_nm, rule.focus_span_nm)),
     ):
         console.print(f"  {k:<28} {v}")
     console.print()

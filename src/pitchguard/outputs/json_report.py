@@ -212,6 +212,8 @@ def to_json(
     lay = result.layout
     entries = cell_findings(result)
     by_layer = {}
+    # A finding's depth_of_focus_nm at its layer's span is "at least" that.
+    spans = {r.name: round(r.focus_span_nm, 3) for r in deck.layers}
     for st in result.layers:
         counts = severity_counts(result.findings, st.name)
         ex = st.extract
@@ -228,6 +230,7 @@ def to_json(
             "edge_um": round(ex.edge_nm / 1000.0, 3),
             "judged_um": round(ex.judged_nm / 1000.0, 3),
             "judged_pct": None if ex.edge_nm <= 0 else round(100.0 * ex.coverage, 1),
+            "focus_span_nm": spans.get(st.name),
             **ex.extra,
             "seconds": round(st.seconds, 3),
         }

@@ -21,6 +21,21 @@ def pitch_text(f: Finding) -> str:
     return f"pitch {f.pitch_nm:.1f} nm" if math.isfinite(f.pitch_nm) else ISOLATED
 
 
+def dof_limited(dof_nm, span_nm: float) -> bool:
+    """True when a depth of focus spans the whole focus range sampled: the range,
+    not the image, limits it, so the true value is at least this."""
+    return dof_nm is not None and span_nm > 0 and dof_nm >= span_nm - 0.5
+
+
+def dof_text(dof_nm, span_nm: float, unit: str = " nm") -> str:
+    """A depth of focus, ``>= X`` when the focus range sampled limits it."""
+    if dof_nm is None or not math.isfinite(dof_nm):
+        return "-"
+    if dof_limited(dof_nm, span_nm):
+        return f">= {dof_nm:.0f}{unit}"
+    return f"{dof_nm:.0f}{unit}"
+
+
 def k1_number(f: Finding) -> str:
     """k1 to three places, ``-`` when there is none (an isolated line, a line end)."""
     return f"{f.k1:.3f}" if math.isfinite(f.k1) else "-"

@@ -17,7 +17,15 @@ from pitchguard.outputs.html.text import (
     html_number,
     value_vs_limit,
 )
-from pitchguard.outputs.texts import CLIP_WHERE, ISOLATED, k1_number, orders_text, pitch_text
+from pitchguard.outputs.texts import (
+    CLIP_WHERE,
+    ISOLATED,
+    dof_limited,
+    dof_text,
+    k1_number,
+    orders_text,
+    pitch_text,
+)
 
 
 def _contrast_html(f: Finding) -> str:
@@ -65,7 +73,17 @@ def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
         ("image contrast", _contrast_html(f)),
         ("NILS at the drawn edges", html_number(f.nils, ".2f")),
         ("exposure latitude (EL)", html_number(f.el_pct, ".1f", " %")),
-        ("depth of focus (DOF)", html_number(f.dof_nm, ".0f", " nm")),
+        (
+            "depth of focus (DOF)",
+            esc(dof_text(f.dof_nm, rule.focus_span_nm))
+            + (
+                " <span class='note'>(the whole focus range sampled: at least this)</span>"
+                if dof_limited(f.dof_nm, rule.focus_span_nm)
+                else ""
+            )
+            if rule is not None
+            else html_number(f.dof_nm, ".0f", " nm"),
+        ),
         ("printed CD (wafer)", _printed_cd(f, scale)),
         (
             "CD error at the anchored dose",
