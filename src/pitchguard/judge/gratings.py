@@ -77,12 +77,20 @@ def grating(
     )
 
 
+def round_step(raw: float) -> float:
+    """The largest of 1, 2, 2.5 and 5 times a power of ten not above ``raw``."""
+    decade = 10.0 ** math.floor(math.log10(raw))
+    return max(m * decade for m in (1.0, 2.0, 2.5, 5.0) if m * decade <= raw * (1 + 1e-12))
+
+
 def default_pitches(rule: LayerRule, cd_nm: float) -> np.ndarray:
-    """From just below the cutoff (or 1.2 CD) to 4 lambda/NA, in lambda/NA / 20 steps."""
+    """From just below the cutoff (or 1.2 CD) to 4 lambda/NA, in round steps of about
+    lambda/NA / 20 (:func:`round_step`), on multiples of the step."""
     lo = max(cd_nm * 1.2, 0.9 * rule.exposure.cutoff_pitch_nm)
     hi = max(4.0 * rule.exposure.lambda_over_na_nm, lo * 1.5)
-    step = rule.exposure.lambda_over_na_nm / 20.0
-    return np.arange(lo, hi + step / 2, step)
+    step = round_step(rule.exposure.lambda_over_na_nm / 20.0)
+    k0, k1 = math.floor(lo / step), math.ceil(hi / step)
+    return np.round(np.arange(k0, k1 + 1) * step, 9)
 
 
 def through_pitch(

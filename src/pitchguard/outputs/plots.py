@@ -145,9 +145,12 @@ def plot_sweep(
     fig, axes = plt.subplots(len(panels), 1, figsize=(8, 9), sharex=True)
     shaded = bands(results)
     step = float(np.median(np.diff(p))) if len(p) > 1 else 1.0
+    cutoff = results[0].orders.cutoff_pitch_nm if results else float("nan")
     for ax, (label, y, limits) in zip(axes, panels, strict=True):
         for a, b, sev in shaded:
             ax.axvspan(a - step / 2, b + step / 2, color=SHADE[sev], alpha=0.18, lw=0)
+        if math.isfinite(cutoff) and p[0] <= cutoff <= p[-1]:
+            ax.axvline(cutoff, color="#b00000", lw=1.0, ls=":")
         ax.plot(p, y, color="#1f77b4", lw=1.6, marker=".", ms=3)
         for value, name in limits:
             ax.axhline(value, color="#555555", ls="--", lw=0.9)
@@ -165,6 +168,28 @@ def plot_sweep(
                 ha="center",
                 fontsize=8,
             )
+    for a, b, sev in shaded:  # each band wide enough for it named on the top panel
+        if b - a < 0.06 * (p[-1] - p[0]):
+            continue
+        axes[0].text(
+            0.5 * (a + b),
+            1.0,
+            sev,
+            transform=axes[0].get_xaxis_transform(),
+            ha="center",
+            va="top",
+            fontsize=7,
+            color=SHADE[sev],
+        )
+    if math.isfinite(cutoff) and p[0] <= cutoff <= p[-1]:
+        axes[-1].text(
+            cutoff,
+            0.02,
+            f" cutoff {cutoff:.1f} nm",
+            transform=axes[-1].get_xaxis_transform(),
+            fontsize=7,
+            color="#b00000",
+        )
     axes[-1].set_xlabel("pitch (nm, wafer)")
     cd = results[0].cd_nm if results else float("nan")
     axes[0].set_title(
