@@ -11,7 +11,6 @@ are then divided by the reduction before any optics is applied.
 
 from __future__ import annotations
 
-import json
 import math
 import re
 import tomllib
@@ -28,6 +27,7 @@ from pydantic import (
     model_validator,
 )
 
+from pitchguard.deck_messages import KeyedError, validation_message
 from pitchguard.errors import DeckError, read_input_text
 
 SEVERITIES = ("fail", "risk", "marginal")
@@ -57,18 +57,6 @@ LayerSpec = Annotated[str, AfterValidator(_layer_spec_text)]
 """A ``"LAYER/DATATYPE"`` string, checked when the deck is read."""
 
 
-class _KeyedError(ValueError):
-    """A cross-field error that knows the key it belongs to.
-
-    ``key`` is relative to the model that raises it (the location pydantic
-    reports is put in front of it).
-    """
-
-    def __init__(self, key: str, message: str):
-        super().__init__(message)
-        self.key = key
-
-
 class _Model(BaseModel):
     model_config = ConfigDict(extra="forbid", strict=True, frozen=True, allow_inf_nan=False)
 
@@ -96,7 +84,7 @@ class _Ring(_Model):
     @model_validator(mode="after")
     def _inner_below_outer(self):
         if self.sigma_inner >= self.sigma_outer:
-            raise _KeyedError(
+            raise KeyedError(
                 "sigma_inner",
                 f"{self.sigma_inner} must be below sigma_outer ({self.sigma_outer})",
             )
@@ -176,7 +164,7 @@ class Exposure(_Model):
     @model_validator(mode="after")
     def _na_below_index(self):
         if self.na >= self.immersion_index:
-            raise _KeyedError(
+            raise KeyedError(
                 "na",
                 f"{self.na} must be below immersion_index ({self.immersion_index}); "
                 "set immersion_index for an immersion scanner",
@@ -206,7 +194,7 @@ class Anchor(_Model):
     @model_validator(mode="after")
     def _cd_inside_pitch(self):
         if self.cd_nm >= self.pitch_nm:
-            raise _KeyedError("cd_nm", f"{self.cd_nm} must be below pitch_nm ({self.pitch_nm})")
+            raise KeyedError("cd_nm", f"{self.cd_nm} must be below pitch_nm ({self.pitch_nm})")
         return self
 
 
@@ -320,10 +308,6 @@ def quarter_wave_focus_nm(exposure) -> float:
     return exposure.wavelength_nm * (n + math.sqrt(n * n - na * na)) / (4.0 * na * na)
 
 
-RENAMED_KEYS = {"ambit_nm": "interaction_range_nm"}
-"""Deck keys that were renamed: an old deck gets an error naming the new key."""
-
-
 class LayerEntry(Limits):
     """One ``[[layers]]`` entry of a deck."""
 
@@ -367,23 +351,23 @@ class DeckFile(_Model):
         for i, layer in enumerate(self.layers):
             if layer.exposure not in self.exposures:
                 known = ", ".join(sorted(self.exposures)) or "none"
-                raise _KeyedError(
+                raise KeyedError(
                     f"layers[{i}].exposure",
                     f"unknown exposure {layer.exposure!r} (defined: {known})",
                 )
             if layer.name in seen_names:
-                raise _KeyedError(f"layers[{i}].name", f"duplicate layer name {layer.name!r}")
+                raise KeyedError(f"layers[{i}].name", f"duplicate layer name {layer.name!r}")
             seen_names.add(layer.name)
             spec = parse_layer_spec(layer.source)
             if spec in seen_sources:
-                raise _KeyedError(
+                raise KeyedError(
                     f"layers[{i}].source",
                     f"{layer.source!r} is already used by layer {seen_sources[spec]!r}",
                 )
             seen_sources[spec] = layer.name
         marks = {s: parse_layer_spec(getattr(self.markers, s)) for s in SEVERITIES}
         if len(set(marks.values())) != len(marks):
-            raise _KeyedError("markers", "each severity needs its own layer/datatype")
+            raise KeyedError("markers", "each severity needs its own layer/datatype")
         return self
 
 
@@ -537,72 +521,6 @@ class Deck:
         raise DeckError(f"{self._where()}: no layer named {name!r} (deck has: {known})")
 
 
-_BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
-
-
-def _format_loc(loc: tuple) -> str:
-    """``('layers', 1, 'source')`` -> ``layers[1].source``; odd keys are quoted."""
-    out = ""
-    for part in loc:
-        if isinstance(part, int):
-            out += f"[{part}]"
-        else:
-            text = str(part)
-            if not _BARE_KEY.match(text):
-                text = json.dumps(text, ensure_ascii=True)
-            out += ("." if out else "") + text
-    return out
-
-
-def _format_validation_error(path: str, err: ValidationError, data: dict) -> str:
-    first = err.errors()[0]
-    loc = tuple(first["loc"])
-    ctx = first.get("ctx") or {}
-    inner = ctx.get("error")
-    keyed = inner if isinstance(inner, _KeyedError) else None
-    # Drop discriminator tags pydantic inserts into the location (e.g. 'conventional').
-    clean = []
-    node = data
-    for part in loc:
-        in_dict = isinstance(node, dict) and part in node
-        in_list = isinstance(node, list) and isinstance(part, int) and part < len(node)
-        if in_dict or in_list:
-            clean.append(part)
-            node = node[part]
-        elif first["type"] in ("extra_forbidden", "missing") and part == loc[-1]:
-            clean.append(part)
-    if keyed is not None:
-        where = _format_loc(tuple(clean))
-        key = (
-            f"{where}.{keyed.key}"
-            if where and not keyed.key.startswith("[")
-            else (where + keyed.key if where else keyed.key)
-        )
-        return f"{path}: {key}: {keyed}"
-    key = _format_loc(tuple(clean)) or "(top level)"
-    msg = first["msg"]
-    kind = first["type"]
-    if kind == "extra_forbidden":
-        renamed = RENAMED_KEYS.get(str(loc[-1]))
-        msg = f"unknown key: it is now called {renamed}" if renamed else "unknown key"
-    elif kind == "missing":
-        msg = "required key is missing"
-    elif kind == "union_tag_invalid":
-        expected = ctx.get("expected_tags", "")
-        msg = f"unknown value {ctx.get('tag')!r} (expected one of {expected})"
-    elif kind == "union_tag_not_found":
-        msg = f"missing {ctx.get('discriminator', 'tag')} key"
-    elif msg.startswith("Value error, "):
-        msg = msg[len("Value error, ") :]
-    elif kind.endswith("_type") and "input" in first:
-        msg = f"{msg}, got {type(first['input']).__name__} {first['input']!r}"
-    elif isinstance(first.get("input"), int | float | str) and not isinstance(
-        first.get("input"), bool
-    ):
-        msg = f"{msg}, got {first['input']!r}"
-    return f"{path}: {key}: {msg}"
-
-
 def parse_deck(text: str, path: Path | None = None) -> Deck:
     """Parse and validate deck text.  Raises DeckError with a one-line message."""
     where = str(path) if path else "<deck>"
@@ -613,7 +531,7 @@ def parse_deck(text: str, path: Path | None = None) -> Deck:
     try:
         raw = DeckFile.model_validate(data)
     except ValidationError as exc:
-        raise DeckError(_format_validation_error(where, exc, data)) from None
+        raise DeckError(validation_message(where, exc, data)) from None
     for name, exp in raw.exposures.items():
         if not math.isfinite(exp.wavelength_nm) or not math.isfinite(exp.na):
             raise DeckError(f"{where}: exposures.{name}: values must be finite")

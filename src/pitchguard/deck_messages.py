@@ -1,0 +1,93 @@
+"""One-line messages for deck errors: the file, the dotted key path
+(``layers[1].source``) and what is wrong, from pydantic's validation errors."""
+
+from __future__ import annotations
+
+import json
+import re
+
+from pydantic import ValidationError
+
+
+class KeyedError(ValueError):
+    """A cross-field error that knows the key it belongs to.
+
+    ``key`` is relative to the model that raises it (the location pydantic
+    reports is put in front of it).
+    """
+
+    def __init__(self, key: str, message: str):
+        super().__init__(message)
+        self.key = key
+
+
+RENAMED_KEYS = {"ambit_nm": "interaction_range_nm"}
+"""Deck keys that were renamed: an old deck gets an error naming the new key."""
+
+
+_BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
+
+
+def _format_loc(loc: tuple) -> str:
+    """``('layers', 1, 'source')`` -> ``layers[1].source``; odd keys are quoted."""
+    out = ""
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            text = str(part)
+            if not _BARE_KEY.match(text):
+                text = json.dumps(text, ensure_ascii=True)
+            out += ("." if out else "") + text
+    return out
+
+
+def validation_message(path: str, err: ValidationError, data: dict) -> str:
+    """The first error of a deck's validation as one line: the file, the dotted key,
+    what is wrong."""
+    first = err.errors()[0]
+    loc = tuple(first["loc"])
+    ctx = first.get("ctx") or {}
+    inner = ctx.get("error")
+    keyed = inner if isinstance(inner, KeyedError) else None
+    # Drop discriminator tags pydantic inserts into the location (e.g. 'conventional').
+    clean = []
+    node = data
+    for part in loc:
+        in_dict = isinstance(node, dict) and part in node
+        in_list = isinstance(node, list) and isinstance(part, int) and part < len(node)
+        if in_dict or in_list:
+            clean.append(part)
+            node = node[part]
+        elif first["type"] in ("extra_forbidden", "missing") and part == loc[-1]:
+            clean.append(part)
+    if keyed is not None:
+        where = _format_loc(tuple(clean))
+        key = (
+            f"{where}.{keyed.key}"
+            if where and not keyed.key.startswith("[")
+            else (where + keyed.key if where else keyed.key)
+        )
+        return f"{path}: {key}: {keyed}"
+    key = _format_loc(tuple(clean)) or "(top level)"
+    msg = first["msg"]
+    kind = first["type"]
+    if kind == "extra_forbidden":
+        renamed = RENAMED_KEYS.get(str(loc[-1]))
+        msg = f"unknown key: it is now called {renamed}" if renamed else "unknown key"
+    elif kind == "missing":
+        msg = "required key is missing"
+    elif kind == "union_tag_invalid":
+        expected = ctx.get("expected_tags", "")
+        msg = f"unknown value {ctx.get('tag')!r} (expected one of {expected})"
+    elif kind == "union_tag_not_found":
+        msg = f"missing {ctx.get('discriminator', 'tag')} key"
+    elif msg.startswith("Value error, "):
+        msg = msg[len("Value error, ") :]
+    elif kind.endswith("_type") and "input" in first:
+        msg = f"{msg}, got {type(first['input']).__name__} {first['input']!r}"
+    elif isinstance(first.get("input"), int | float | str) and not isinstance(
+        first.get("input"), bool
+    ):
+        msg = f"{msg}, got {first['input']!r}"
+    return f"{path}: {key}: {msg}"
