@@ -63,6 +63,16 @@ class _Model(BaseModel):
 
 Sigma = Annotated[float, Field(ge=0.0, le=1.0)]
 
+# Photoresists and top coats at DUV wavelengths lie near 1.5-1.8 (common practice).
+ResistIndex = Annotated[float, Field(ge=1.0, le=2.5)]
+
+
+def resist_index_message(index: float, na: float) -> str:
+    return (
+        f"{index:g} must be above the exposure's NA ({na:g}): light at the pupil's "
+        "edge would not enter the resist"
+    )
+
 
 class Coherent(_Model):
     """A single on-axis source point (sigma = 0)."""
@@ -160,6 +170,10 @@ class Exposure(_Model):
     immersion_index: Annotated[float, Field(ge=1.0, le=2.0)] = 1.0
     illumination: Illumination
     mask: Mask = BinaryMask(kind="binary")
+    # The light's polarisation (optics.polarization): it decides the image above NA ~0.7.
+    polarization: Literal["unpolarized", "x", "y", "tangential", "radial", "scalar"] = "unpolarized"
+    # Index of the medium the image forms in (the resist); None: the immersion medium.
+    resist_index: ResistIndex | None = None
 
     @model_validator(mode="after")
     def _na_below_index(self):
@@ -169,6 +183,8 @@ class Exposure(_Model):
                 f"{self.na} must be below immersion_index ({self.immersion_index}); "
                 "set immersion_index for an immersion scanner",
             )
+        if self.resist_index is not None and self.na >= self.resist_index:
+            raise KeyedError("resist_index", resist_index_message(self.resist_index, self.na))
         return self
 
     @property
@@ -228,7 +244,7 @@ class Limits(_Model):
 
     * ``image_checks = true``: image every site (false: orders and k1 only).
     * ``nils_fail_below = 1.0``, ``nils_risk_below = 1.5``,
-      ``nils_marginal_below = 2.0``: NILS at the drawn edges (common practice:
+      ``nils_marginal_below = 2.0``: NILS at the printed edges (common practice:
       below ~1 the edge is not controllable, ~1.5 is a usual floor, >= 2 is
       comfortable).
     * ``el_min_pct = 5.0``: smallest exposure latitude (common practice).
@@ -244,6 +260,14 @@ class Limits(_Model):
     * ``resist_blur_nm``: standard deviation (wafer nm) of a Gaussian blur of
       the aerial image before the threshold (acid diffusion in a chemically
       amplified resist).  Default 0: none.
+    * ``edge_placement_max_pct``: how far a printed edge may sit from the drawn
+      one, in % of the drawn CD, at best focus and nominal dose.  Default half
+      of ``cd_tolerance_pct``: the CD budget split between the two edges
+      (common practice), so both edges out by this much print the CD at its
+      tolerance.
+    * ``resist_index``: index of the medium the image forms in (the resist),
+      which sets the field components of vector light.  Default the
+      exposure's ``resist_index``, else its immersion index.
     * ``anchor = { pitch_nm, cd_nm }``: the feature printed on size at the
       nominal dose (dose-to-size).  Without it every site is sized at its own
       dose and the through-pitch CD error is not judged.
@@ -268,6 +292,8 @@ class Limits(_Model):
     focus_steps: Annotated[int, Field(ge=1, le=41)] | None = None
     # Resist blur beyond 100 nm would wash out every pitch this tool judges.
     resist_blur_nm: Annotated[float, Field(ge=0.0, le=100.0)] | None = None
+    resist_index: ResistIndex | None = None
+    edge_placement_max_pct: Annotated[float, Field(gt=0.0, lt=100.0)] | None = None
     anchor: Anchor | None = None
 
     @field_validator("focus_steps")
@@ -401,6 +427,7 @@ class LayerRule:
         "focus_half_range_nm",
         "focus_steps",
         "resist_blur_nm",
+        "edge_placement_max_pct",
         "anchor",
         "nils_fail_below",
         "optional",
@@ -410,6 +437,10 @@ class LayerRule:
         self.name = entry.name
         self.layer, self.datatype = parse_layer_spec(entry.source)
         self.exposure_name = entry.exposure
+        own_index = entry.resist_index if entry.resist_index is not None else defaults.resist_index
+        if own_index is not None and own_index != exposure.resist_index:
+            # Every image cache keys on the exposure: the layer's medium is part of it.
+            exposure = exposure.model_copy(update={"resist_index": own_index})
         self.exposure = exposure
         self.field = entry.field
         self.optional = entry.optional
@@ -447,6 +478,9 @@ class LayerRule:
         self.dof_min_nm = pick("dof_min_nm", quarter_wave)
         self.focus_half_range_nm = pick("focus_half_range_nm", quarter_wave)
         self.resist_blur_nm = float(pick("resist_blur_nm", 0.0))
+        self.edge_placement_max_pct = float(
+            pick("edge_placement_max_pct", self.cd_tolerance_pct / 2.0)
+        )
         self.anchor = pick("anchor", None)
 
     @property
@@ -494,6 +528,13 @@ class Deck:
                     f"exceed k1_marginal_below ({rule.k1_marginal_below}) for layer {rule.name!r}"
                 )
         for i, (rule, entry) in enumerate(zip(self.layers, raw.layers, strict=True)):
+            index = rule.exposure.resist_index
+            if index is not None and rule.exposure.na >= index:
+                key = f"layers[{i}]" if entry.resist_index is not None else "layer_defaults"
+                raise DeckError(
+                    f"{self._where()}: {key}.resist_index: "
+                    f"{resist_index_message(index, rule.exposure.na)} (layer {rule.name!r})"
+                )
             if rule.image_checks and rule.dof_min_nm > rule.focus_span_nm * (1 + 1e-9):
                 key = f"layers[{i}]" if entry.dof_min_nm is not None else "layer_defaults"
                 raise DeckError(

@@ -101,8 +101,9 @@ def test_array_probe_agrees_with_an_independent_abbe_sum(name, tmp_path, capsys)
     expo, field, px, py, wx, wy = CASES[name]
     deck = tmp_path / "deck.toml"
     deck.write_text(
-        f'[exposures.e]\n{expo}\n[[layers]]\nname = "a"\nsource = "1/0"\n'
-        f'exposure = "e"\nfield = "{field}"\n'
+        # The reference below is a scalar Abbe sum.
+        f'[exposures.e]\n{expo}\npolarization = "scalar"\n[[layers]]\nname = "a"\n'
+        f'source = "1/0"\nexposure = "e"\nfield = "{field}"\n'
     )
     args = ["probe", "-r", str(deck), "--layer", "a", "--pitch", str(px), "--cd", str(wx)]
     code = main([*args, "--pitch-y", str(py), "--cd-y", str(wy), "--json"])

@@ -169,15 +169,15 @@ def _via1_deck(tmp_path):
 
 
 def test_an_arrays_last_rows_are_judged_on_clips(tmp_path):
-    """64 nm holes at 180 nm, 10 x 10, on the demo via1 exposure.  The unit cell (the
-    array's interior) gives NILS 1.07, a risk.  Holes on the array's outer ring
+    """70 nm holes at 200 nm, 10 x 10, on the demo via1 exposure.  The unit cell (the
+    array's interior) gives NILS 1.12, a risk.  Holes on the array's outer ring
     have fewer neighbours sending light their way and image worse (common
     practice: OPC biases an array's last rows): their clips give NILS below 1, a
     fail, reported once for the array.  The ring is what a clip window (half
     side 214 nm, under 2 pitches) sees: 10^2 - 8^2 = 36 holes.  The reported NILS
     is the smallest of the ring's clips by the full Hopkins sum (every coherent
     system, no truncation; itself held to Abbe in tests/unit/test_image2d.py)."""
-    w, p, n = 0.064, 0.18, 10
+    w, p, n = 0.07, 0.2, 10
     lib = gdstk.Library(unit=1e-6, precision=1e-9)
     hole = lib.new_cell("HOLE")
     hole.add(gdstk.rectangle((-w / 2, -w / 2), (w / 2, w / 2), layer=18))

@@ -13,6 +13,7 @@ within it (the placement's finding belongs to TOP, which holds both), one
 from __future__ import annotations
 
 import json
+import re
 
 import gdstk
 import pytest
@@ -225,11 +226,13 @@ def test_stale_and_fixed_lines_name_the_cell(revs, capsys):
     flat = " ".join(out.split())  # the console wraps at 120 columns
     assert "0 new placement(s) shown above, 1 accepted by 1 entry, 1 stale" in flat
     x, y = B_CELL_CENTRE
-    assert f"prune it): poly low-nils pitch 120.0 nm in cell B120 at ({x:g}, {y:g}) µm" in flat
+    # B120's check (bridged or low NILS) is the imaging's business, its cell the gate's.
+    place = f"pitch 120.0 nm in cell B120 at ({x:g}, {y:g}) µm"
+    assert re.search(r"prune it\): poly [a-z-]+ " + re.escape(place), flat)
     code, out, _ = run_cli(capsys, "diff", revs["r1"], revs["no_b"], "-r", revs["deck"])
     assert code == 0
     flat = " ".join(out.split())
-    assert f"fixed: poly low-nils pitch 120.0 nm in cell B120 at ({x:g}, {y:g}) µm" in flat
+    assert re.search(r"fixed: poly [a-z-]+ " + re.escape(place), flat)
     assert "1 placement, first at (10.69, 1) µm (base)" in flat  # B120 placed at (10, 0)
 
 

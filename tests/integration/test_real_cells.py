@@ -70,16 +70,23 @@ def _table(findings) -> dict:
 
 
 def test_a_capable_scanner_flags_nothing_on_manufactured_cells(cells):
-    """KrF, NA 0.8, annular, 6 % attenuated PSM (decks.SKY130_CAPABLE_DECK): no
-    finding at all on the four line layers, tiled or not."""
+    """KrF, NA 0.8, annular, 6 % attenuated PSM (decks.SKY130_CAPABLE_DECK): nothing
+    fails or is at risk on the four line layers, tiled or not.  Unpolarised light
+    leaves the tightest lines (140 nm at 280-310 nm pitch) NILS 1.64-2.0, in the
+    marginal band ("watch it": NILS 1.5-2, common practice); with the scalar
+    model they image at 2 or more and nothing at all is flagged."""
     deck = parse_deck(SKY130_CAPABLE_DECK)
     whole = scan_layout(cells, deck)
     assert sum(s.shapes for s in whole.layers) == 915  # every shape read
     assert sum(s.extract.sites for s in whole.layers) > 3000  # and judged
     # Line ends facing a shape within lambda/NA, judged on 2-D clips.
     assert sum(s.extract.extra.get("line_ends_judged", 0) for s in whole.layers) > 500
-    assert _table(whole.findings) == {}
-    assert _table(scan_tiled(cells, deck, tile_um=10, jobs=2).findings) == {}
+    table = _table(whole.findings)
+    assert {(check, severity) for _, check, severity in table} == {("low-nils", "marginal")}
+    assert all(f.nils >= 1.6 and f.width_nm >= 140 for f in whole.findings)
+    assert _table(scan_tiled(cells, deck, tile_um=10, jobs=2).findings) == table
+    scalar = parse_deck(SKY130_CAPABLE_DECK.replace("mask =", 'polarization = "scalar"\nmask ='))
+    assert _table(scan_layout(cells, scalar).findings) == {}
 
 
 def test_contact_arrays_of_manufactured_cells_pass(cells):
@@ -97,7 +104,13 @@ def test_contact_arrays_of_manufactured_cells_pass(cells):
 # The weak scanner's findings on these cells, per layer: a regression record, so
 # that a change of verdicts on real cells shows in review.  The NILS findings are
 # the layers' minimum pitch (140 nm line / 140 nm space, 280 nm) or near it, at
-# NA 0.7 with a conventional source: plausible, not false alarms.
+# NA 0.7 with a conventional source: plausible, not false alarms.  The fails
+# are 140 nm lines at 280-310 nm pitch with NILS 0.96-0.97 at their printed
+# edges, just below 1: with unpolarised light, the TM half of the two-beam
+# fringe keeps cos(2 theta) = 0.61 of its modulation at sin(theta) = lambda /
+# (2 p) = 0.44; where the spaces either side differ, the lines also print up to
+# 9.8 nm off their place (edge-placement, listed with them).  This scanner is
+# too weak for the layers' minimum pitch, as the deck means it to be.
 #
 # The line-end pullback risks are the finger ends of the capacitor cells
 # (sky130_fd_pr__cap_vpp_*): 140 nm fingers ending 140 nm from the opposite
@@ -106,13 +119,16 @@ def test_contact_arrays_of_manufactured_cells_pass(cells):
 # correction OPC must make on such a scanner, flagged as risk, never fail.
 WEAK_DECK_FINDINGS = {
     ("li1", "line-end-pullback", "risk"): 39,
-    ("met1", "line-end-pullback", "risk"): 166,
-    ("met2", "line-end-pullback", "risk"): 153,
-    ("li1", "low-nils", "risk"): 1,
-    ("met1", "low-nils", "risk"): 22,
-    ("met1", "low-nils", "marginal"): 1,
-    ("met2", "low-nils", "risk"): 14,
-    ("met2", "low-nils", "marginal"): 1,
+    ("met1", "line-end-pullback", "risk"): 180,
+    ("met2", "line-end-pullback", "risk"): 159,
+    ("li1", "low-nils", "fail"): 1,
+    ("li1", "low-nils", "marginal"): 12,
+    ("met1", "low-nils", "fail"): 22,
+    ("met1", "low-nils", "risk"): 1,
+    ("met1", "low-nils", "marginal"): 8,
+    ("met2", "low-nils", "fail"): 10,
+    ("met2", "low-nils", "risk"): 5,
+    ("poly", "low-nils", "marginal"): 1,
 }
 
 HINT_PITCH = re.compile(r"pitch ([0-9.]+) nm \(space ([0-9.]+) nm\) passes every limit")

@@ -269,8 +269,8 @@ def test_reports_of_repeated_findings_equal_those_of_the_same_findings_listed(tm
 
     lib = gdstk.Library()
     a = line_array_cell(lib, "A100", (7, 0), 100, 50, 30, 2_400)  # fail on this dry ArF deck
-    b = line_array_cell(lib, "B150", (7, 0), 150, 75, 12, 1_800)  # risk
-    c = line_array_cell(lib, "C170", (7, 0), 170, 85, 12, 1_800)  # marginal
+    b = line_array_cell(lib, "B170", (7, 0), 170, 85, 12, 1_800)  # risk
+    c = line_array_cell(lib, "C200", (7, 0), 200, 100, 12, 1_800)  # marginal
     top = lib.new_cell("TOP")
     # One array of each per 10 um tile, at the same place in each: tiles repeat.
     top.add(gdstk.Reference(a, (1.0, 1.0), columns=6, rows=5, spacing=(10.0, 10.0)))

@@ -47,7 +47,7 @@ def test_bisection_finds_what_every_sample_gives():
         ok = np.isfinite(cd) & (np.abs(cd - target[:, None]) <= tol * target[:, None])
         size = size_thresholds(t, cd, target)
         low, high = windows(t, ok, size)
-        got = cd_windows(x, prof, centre, lo, hi, bright, t, target, tol)
+        got = cd_windows(x, prof, centre, lo, hi, bright, t, target, tol, exact=False)
         for want, have in zip((size, low, high), got, strict=True):
             np.testing.assert_array_equal(have, want)
         # Runs of equal distance to size, where the first in sample order counts.
@@ -55,3 +55,38 @@ def test_bisection_finds_what_every_sample_gives():
         best = d.min(axis=1, keepdims=True)
         ties += int(((d == best).sum(axis=1) > 1)[np.isfinite(best[:, 0])].sum())
     assert ties > 20  # the tie-breaking paths were exercised
+
+
+def test_exact_window_ends_are_where_the_cd_meets_the_tolerance():
+    """Between the samples, the window's ends are where the CD (itself measured at any
+    threshold) meets target -+ tolerance: checked against the CD on a grid 4,000
+    times finer than the samples around each end, where the crossing is read off
+    by linear interpolation (the CD is linear in the threshold between kinks)."""
+    rng = np.random.default_rng(SEED + 9)
+    x = np.linspace(-300.0, 300.0, 601)
+    checked = 0
+    for trial in range(40):
+        bright = bool(trial % 2)
+        prof = _profiles(rng, x, 6, bright, False)
+        t = thresholds(prof.min(axis=1), prof.max(axis=1), 64)
+        centre = np.zeros(6)
+        lo, hi = centre - 250.0, centre + 250.0
+        target, tol = rng.uniform(60, 160, 6), 0.1
+        _, low, high = cd_windows(x, prof, centre, lo, hi, bright, t, target, tol)
+        _, s_low, s_high = cd_windows(x, prof, centre, lo, hi, bright, t, target, tol, exact=False)
+        step = t[:, 1] - t[:, 0]
+        for r in range(6):
+            for end, sample, outward in ((low[r], s_low[r], -1), (high[r], s_high[r], 1)):
+                if not np.isfinite(end):
+                    continue
+                assert outward * (end - sample) >= 0  # carried outward, never inward
+                assert abs(end - sample) <= step[r] * (1 + 1e-9)  # and not past the next sample
+                fine = sample + outward * np.linspace(0.0, step[r], 4001)
+                cd = cds(x, prof[r : r + 1], 0.0, lo[r], hi[r], bright, fine[None, :])[0]
+                inside = np.isfinite(cd) & (np.abs(cd - target[r]) <= tol * target[r])
+                k = int(np.argmin(inside)) if not inside.all() else len(fine) - 1
+                # The first fine threshold out of tolerance, and the last in it.
+                assert fine[k - 1] - 1e-12 <= end if outward > 0 else end <= fine[k - 1] + 1e-12
+                assert end <= fine[k] + 1e-12 if outward > 0 else fine[k] - 1e-12 <= end
+                checked += 1
+    assert checked > 200

@@ -98,15 +98,15 @@ def test_a_floor_the_span_reaches_and_one_focus_sample(tmp_path):
 
 def test_a_depth_of_focus_the_focus_range_limits_reads_at_least(capsys):
     """The demo deck's poly layer (dry ArF, NA 0.93: quarter-wave focus 76.3 nm,
-    so 152.6 nm of focus are sampled): at pitch 130 nm every focus sample
-    holds the window, so the depth of focus is at least the span; at 128 nm
-    it is 76 nm, inside the range, and reads as it is."""
+    so 152.6 nm of focus are sampled; unpolarised light): at pitch 150 nm every
+    focus sample holds the window, so the depth of focus is at least the span;
+    at 140 nm it is inside the range and reads as it is."""
     import json
 
     from decks import DEMO_DECK
 
     span = 2 * _naive(193.0, 0.93, 1.0)
-    for pitch, cd, limited in ((130, 65, True), (128, 64, False)):
+    for pitch, cd, limited in ((150, 75, True), (140, 70, False)):
         args = ["probe", "--rules", str(DEMO_DECK), "--layer", "poly"]
         assert main([*args, "--pitch", str(pitch), "--cd", str(cd), "--json"]) in (0, 1)
         d = json.loads(capsys.readouterr().out)

@@ -15,6 +15,12 @@ def _dof_text(*a, **k) -> str:
     return dof_text(*a, **k)
 
 
+def _light(exposure) -> str:
+    from pitchguard.outputs.texts import light_text, medium_text
+
+    return f"{light_text(exposure.polarization)} light {medium_text(exposure)}"
+
+
 def _dof_limited(*a) -> bool:
     from pitchguard.outputs.texts import dof_limited
 
@@ -69,6 +75,9 @@ def cmd_rules_check(args) -> int:
         )
     console.print(t)
     console.print("[dim]pitches at wafer scale; cutoff x is for lines along y (pitch along x)[/]")
+    for r in deck.layers:
+        e = r.exposure
+        console.print(f"{r.name}: {_light(e)}")
     return EXIT_OK
 
 
@@ -93,6 +102,8 @@ def _grating_json(r, rule) -> dict:
             "exposure_latitude_pct": m.el_pct if m else None,
             "depth_of_focus_nm": m.dof_nm if m else None,
             "depth_of_focus_at_least": _dof_limited(m.dof_nm if m else None, rule.focus_span_nm),
+            "polarization": rule.exposure.polarization,
+            "image_index": rule.exposure.resist_index or rule.exposure.immersion_index,
             "threshold": m.threshold if m else None,
             "dose_to_size": m.dose_to_size if m else None,
             "severity": r.severity,
@@ -133,7 +144,7 @@ def cmd_probe(args) -> int:
     console.print(
         f"[bold]{rule.name}[/] ({rule.field} field) on {rule.exposure_name}: "
         f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {ill.shape} σmax {e.sigma_max:g}, "
-        f"{e.mask.kind} mask"
+        f"{e.mask.kind} mask, {_light(e)}"
     )
     feature = "line" if rule.field == "clear" else "opening"
     console.print(
@@ -159,7 +170,7 @@ def cmd_probe(args) -> int:
         at = f" (focus {r.focus_nm:g} nm)" if r.focus_nm else ""
         rows = [
             (f"image contrast{at}", number_text(r.shown.contrast, "", 3)),
-            (f"NILS at the drawn edges{at}", number_text(r.shown.nils, "", 2)),
+            (f"NILS at the printed edges{at}", number_text(r.shown.nils, "", 2)),
             (
                 "printed CD at nominal dose",
                 "lost" if m.lost else "bridged" if m.bridged else number_text(m.cd_nm, " nm", 1),
@@ -282,6 +293,8 @@ def _array_json(r, rule) -> dict:
             "exposure_latitude_pct": m.el_pct,
             "depth_of_focus_nm": m.dof_nm,
             "depth_of_focus_at_least": _dof_limited(m.dof_nm, rule.focus_span_nm),
+            "polarization": rule.exposure.polarization,
+            "image_index": rule.exposure.resist_index or rule.exposure.immersion_index,
             "threshold": m.threshold,
             "severity": r.severity,
             "checks": [violation_to_dict(v) for v in r.violations],
@@ -320,7 +333,8 @@ def _probe_array(args, rule) -> int:
     feature = "posts" if rule.field == "clear" else "holes"
     console.print(
         f"[bold]{rule.name}[/] ({rule.field} field) on {rule.exposure_name}: "
-        f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {e.illumination.shape}, {e.mask.kind} mask"
+        f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {e.illumination.shape}, {e.mask.kind} mask, "
+        f"{_light(e)}"
     )
     console.print(
         f"array: {r.cd_nm[0]:g} x {r.cd_nm[1]:g} nm {feature} at pitch "

@@ -10,13 +10,14 @@ from __future__ import annotations
 
 import math
 
-from pitchguard.deck import SEVERITIES, LayerRule
+from pitchguard.deck import LayerRule
 from pitchguard.judge.checks import (
     K1_BANDS,
     NILS_BANDS,
     Violation,
     band_violation,
     printing_violations,
+    violation_order,
     window_violations,
 )
 from pitchguard.optics.lattice_orders import LatticeOrders
@@ -87,5 +88,5 @@ def array_violations(
                     f"drawn at the anchored dose (tolerance +-{rule.cd_tolerance_pct:g} %)",
                 )
             )
-    out.sort(key=lambda v: SEVERITIES.index(v.severity))
+    out.sort(key=violation_order)
     return out

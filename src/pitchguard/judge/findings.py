@@ -82,6 +82,11 @@ class Finding:
     cd_error_pct: float = math.nan
     el_pct: float = math.nan
     dof_nm: float = math.nan
+    # Printed minus drawn edges along the cut (wafer nm, + towards the cut's +x):
+    # how far the printed feature's centre sits off the drawn one, and the larger
+    # edge displacement (+ outward).  nan where not measured.
+    shift_nm: float = math.nan
+    epe_nm: float = math.nan
     violations: tuple[Violation, ...] = ()
     context: str = ""  # worst site's line: interior | outer (last line of an array) | alone
     # The worst site's cut, for pictures: material boundaries (wafer nm, relative

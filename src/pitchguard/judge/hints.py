@@ -217,9 +217,39 @@ def hint_key(
     angle: float,
     scale: float,
     real: RealCut | None = None,
+    placement: tuple[float, float] | None = None,
 ) -> tuple:
-    """All a finding's hint depends on, besides its layer's rule (plain values)."""
-    return (tuple(v.check for v in vs), cutoff_pitch_nm, cd_w, pitch_w, angle, scale, real)
+    """All a finding's hint depends on, besides its layer's rule (plain values);
+    ``placement`` is ``(shift, epe)`` of the printed feature (wafer nm, see
+    :class:`~pitchguard.judge.findings.Finding`)."""
+    checks = tuple(v.check for v in vs)
+    return (checks, cutoff_pitch_nm, cd_w, pitch_w, angle, scale, real, placement)
+
+
+def direction_text(angle_deg: float) -> str:
+    """A layout direction: ``+x``, ``-y``, ... on the axes, else its angle."""
+    a = angle_deg % 360.0
+    for axis, name in ((0.0, "+x"), (90.0, "+y"), (180.0, "-x"), (270.0, "-y"), (360.0, "+x")):
+        if abs(a - axis) < 0.5:
+            return name
+    return f"{a:.0f}°"
+
+
+def placement_advice(feature: str, angle: float, scale: float, placement) -> str:
+    """Which way to move (or resize) a feature that prints off its drawn edges."""
+    shift, epe = placement
+    if abs(shift) >= 0.5 * abs(epe):
+        towards = direction_text(angle if shift > 0 else angle + 180.0)
+        back = direction_text(angle + 180.0 if shift > 0 else angle)
+        d = abs(shift) / scale
+        return (
+            f"the worst {feature} prints {d:.1f} nm off its drawn place, towards {towards}: "
+            f"move its drawn edges {d:.1f} nm towards {back} (the edge bias OPC would give "
+            f"it), or make its neighbourhood symmetric (at the end of an array: a dummy "
+            f"{feature} beyond the last one)"
+        )
+    way = "narrow" if epe > 0 else "widen"
+    return f"{way} the drawn {feature} by {2 * abs(epe) / scale:.1f} nm: it prints off its size"
 
 
 def hint_text(rule: LayerRule, key: tuple) -> str:
@@ -242,9 +272,12 @@ def width_advice(checks: tuple[str, ...], feature: str) -> str:
 
 def hint_steps(rule: LayerRule, key: tuple):
     """The generator that works out the hint of ``key`` (see :func:`drive`)."""
-    checks, cutoff_pitch_nm, cd_w, pitch_w, angle, scale, real = key
+    checks, cutoff_pitch_nm, cd_w, pitch_w, angle, scale, real, *more = key
     first = checks[0]
     feature = "line" if rule.field == "clear" else "opening"
+    placement = more[0] if more else None
+    if first == "edge-placement" and placement is not None:
+        return placement_advice(feature, angle, scale, placement)
     if first == "unresolvable-pitch":
         need = cutoff_pitch_nm / scale
         return (

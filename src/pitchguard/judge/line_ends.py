@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from pitchguard.deck import SEVERITIES, LayerRule
+from pitchguard.deck import LayerRule
 from pitchguard.geometry.features import Edges
 from pitchguard.geometry.lattice.compact import points_on_features
 from pitchguard.geometry.lattice.records import FeatureColumns
@@ -29,7 +29,7 @@ from pitchguard.geometry.rectangles import (
 )
 from pitchguard.geometry.sites import in_region
 from pitchguard.judge.caches import layer_cache
-from pitchguard.judge.checks import Violation
+from pitchguard.judge.checks import Violation, violation_order
 from pitchguard.judge.findings import Finding, TipShape
 from pitchguard.layout.polygons import PolygonSet
 from pitchguard.optics.aerial2d import source_angle
@@ -186,7 +186,7 @@ def tip_violations(rule: LayerRule, m: TipMetrics, gap_nm: float) -> list[Violat
                 f"(limit {rule.line_end_pullback_max_nm:.1f} nm, line_end_pullback_max_nm)",
             )
         )
-    out.sort(key=lambda v: SEVERITIES.index(v.severity))
+    out.sort(key=violation_order)
     return out
 
 

@@ -183,6 +183,8 @@ def classify_layer(
             pitch_angle,
             scale_to_wafer,
             real,
+            # Only an edge-placement hint reads it: other keys stay shared.
+            (round(m.shift_nm, 2), round(m.epe_nm, 2)) if top.check == "edge-placement" else None,
         )
         mid = mid_all[worst]
         border = (
@@ -227,6 +229,8 @@ def classify_layer(
             cd_error_pct=round(m.cd_error_pct, 2) if m else math.nan,
             el_pct=round(m.el_pct, 2) if m else math.nan,
             dof_nm=round(m.dof_nm, 1) if m else math.nan,
+            shift_nm=round(m.shift_nm, 2) if m else math.nan,
+            epe_nm=round(m.epe_nm, 2) if m else math.nan,
             violations=tuple(vs),
             context=context,
             cut_bounds_nm=tuple(round(b * scale_to_wafer, 3) for b in cut.bounds) if cut else (),

@@ -10,12 +10,23 @@ import numpy as np
 
 from pitchguard.deck import AttenuatedMask, Exposure
 from pitchguard.optics.orders import sample_source
+from pitchguard.optics.polarization import (
+    field_factors,
+    image_index,
+    is_scalar,
+    jones_states,
+    mirror_symmetric,
+    turns_with_frame,
+)
 
 IMAGE_SOURCE_STEP = 0.02
-"""Source sampling step (sigma units) for imaging, edge cells refined
-(``orders.sample_source``).  Refining it to 0.01 changes the image by less
-than 3e-3 of the open frame through pitch (a unit test holds it to that).
-The image cost does not depend on it, only the one-off TCC build does."""
+"""Source sampling step (sigma units) for imaging: cells the source's edge cuts are
+split (``orders.sample_source``), and for 1-D cuts those a pupil rim of an order
+cuts (``source_rims``).  Against a 0.005 step refined alike, 1-D images through
+pitch (k1 0.3-1.2) stay within 2e-3 of the open frame for discs, rings, dipoles
+and quadrupoles in any direction (1.3e-3 worst measured, a dipole across its
+axis; a unit test holds 2e-3).  The image cost does not depend on it, only the
+one-off TCC build does."""
 
 
 SOCS_KEEP = 1e-7
@@ -29,10 +40,28 @@ class Optics:
     wavelength_nm: float
     na: float
     n_medium: float
+    polarization: str = "scalar"  # see optics.polarization.POLARIZATIONS
+    image_index: float | None = None  # the resist's index; None: the immersion medium's
 
     @classmethod
     def of(cls, exposure: Exposure) -> Optics:
-        return cls(exposure.wavelength_nm, exposure.na, exposure.immersion_index)
+        return cls(
+            exposure.wavelength_nm,
+            exposure.na,
+            exposure.immersion_index,
+            exposure.polarization,
+            exposure.resist_index,
+        )
+
+    @property
+    def vector(self) -> bool:
+        return not is_scalar(self.polarization)
+
+    def field_factors(self, fx: np.ndarray, fy: np.ndarray, pts: np.ndarray, angle_deg: float):
+        """Vector factors ``(R * 3, S, ...)`` of :func:`polarization.field_factors` for the
+        source points ``pts`` (frame turned by ``angle_deg``) at frequencies ``(fx, fy)``."""
+        jones, weights = jones_states(self.polarization, pts, angle_deg)
+        return field_factors(fx, fy, jones, weights, self.wavelength_nm, image_index(self))
 
     @property
     def cutoff(self) -> float:
@@ -62,8 +91,10 @@ def source_points(exposure: Exposure, pitch_angle_deg: float, step: float = IMAG
 
 
 def source_is_symmetric(exposure: Exposure) -> bool:
-    """True when turning the source changes nothing (coherent, disc, ring)."""
-    return exposure.illumination.shape in ("coherent", "conventional", "annular")
+    """True when turning the source changes nothing (coherent, disc, ring; light
+    unpolarised or polarised around the pupil centre)."""
+    round_source = exposure.illumination.shape in ("coherent", "conventional", "annular")
+    return round_source and not turns_with_frame(exposure.polarization)
 
 
 def pupil(fx: np.ndarray, fy: np.ndarray, optics: Optics, defocus_nm: float) -> np.ndarray:
@@ -141,11 +172,15 @@ def abbe_image(
     src: tuple[np.ndarray, np.ndarray],
     defocus_nm: float,
     x_nm: np.ndarray,
+    angle_deg: float = 0.0,
 ) -> np.ndarray:
     """Reference image: the incoherent sum of one coherent image per source point.
 
     ``I(x) = sum_s w_s |sum_n c_n P(f_n + s) exp(i 2 pi f_n x)|^2`` with
-    ``f_n = n / period`` and the source point at ``s = sigma NA / lambda``.
+    ``f_n = n / period`` and the source point at ``s = sigma NA / lambda``;
+    with vector light, the sum also runs over each point's polarisation states
+    and field components (:mod:`pitchguard.optics.polarization`; the frame is
+    the layout's turned by ``angle_deg``).
     """
     pts, w = src
     n_max = (len(spectrum) - 1) // 2
@@ -154,18 +189,27 @@ def abbe_image(
     fy = np.broadcast_to(pts[:, 1:2] * optics.cutoff, fx.shape)
     amp = pupil(fx, fy, optics, defocus_nm) * spectrum[None, :]  # (S, N)
     basis = np.exp(2j * np.pi * fn[:, None] * np.asarray(x_nm)[None, :])  # (N, X)
-    field = amp @ basis  # (S, X)
-    return (w[:, None] * np.abs(field) ** 2).sum(axis=0)
+    if not optics.vector:
+        field = amp @ basis  # (S, X)
+        return (w[:, None] * np.abs(field) ** 2).sum(axis=0)
+    rows = optics.field_factors(fx, fy, pts, angle_deg)  # (R, S, N)
+    out = np.zeros(len(np.atleast_1d(x_nm)))
+    for row in rows:
+        field = (amp * row) @ basis
+        out += (w[:, None] * np.abs(field) ** 2).sum(axis=0)
+    return out
 
 
 def merge_mirrored(src: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
     """Source points ``(sx, sy)`` and ``(sx, -sy)`` as one point of their summed weight.
 
-    In the image of a 1-D mask (scalar, as here) a source point acts through
-    the pupil at ``(f_n + sx, sy)``, which depends on ``sy`` only as
-    ``sy^2``: mirror images about the pitch axis give equal rows of the
-    TCC's source-by-order matrix, and one row of weight ``w1 + w2`` gives
-    the same ``A^H A``.  Points are matched to 1e-12 sigma (a turned grid
+    In the image of a 1-D mask a source point acts through the pupil at
+    ``(f_n + sx, sy)``, which depends on ``sy`` only as ``sy^2``: mirror
+    images about the pitch axis give equal rows of the TCC's source-by-order
+    matrix, and one row of weight ``w1 + w2`` gives the same ``A^H A``.
+    Vector light keeps this when its states mirror onto themselves
+    (:func:`polarization.mirror_symmetric`): the mirrored point's field rows
+    differ only in the sign of the y component.  Points are matched to 1e-12 sigma (a turned grid
     carries rounding of that order).  Symmetric sources halve.
     """
     pts, w = src
@@ -190,16 +234,24 @@ _MERGED: dict = {}
 
 class PupilFrame:
     """What the coherent systems of one source, period and order count share
-    through focus: the source merged by mirror images (:func:`merge_mirrored`),
-    where each order of each source point falls in the pupil, and the
-    defocus phase per unit focus there.  :meth:`amplitudes` gives the matrix
-    ``A = sqrt(w_s) P(f_n + s)`` at any focus, costing one complex
-    exponential per passing order."""
+    through focus: the source merged by mirror images (:func:`merge_mirrored`)
+    where the light allows, where each order of each source point falls in the
+    pupil, and the defocus phase per unit focus there.  :meth:`amplitudes`
+    gives the matrix ``A = sqrt(w_s) P(f_n + s)`` at any focus (with vector
+    light one row per source point, state and field component), costing one
+    complex exponential per passing order."""
 
     def __init__(
-        self, optics: Optics, src: tuple[np.ndarray, np.ndarray], period_nm: float, n_max: int
+        self,
+        optics: Optics,
+        src: tuple[np.ndarray, np.ndarray],
+        period_nm: float,
+        n_max: int,
+        angle_deg: float = 0.0,
     ):
-        pts, w = merge_mirrored(src)
+        if mirror_symmetric(optics.polarization, angle_deg):
+            src = merge_mirrored(src)
+        pts, w = src
         fn = np.arange(-n_max, n_max + 1) / period_nm
         fx = fn[None, :] + pts[:, 0:1] * optics.cutoff
         fy = np.broadcast_to(pts[:, 1:2] * optics.cutoff, fx.shape)
@@ -208,15 +260,23 @@ class PupilFrame:
         self.root_w = np.broadcast_to(np.sqrt(w)[:, None], fx.shape)[self.inside]
         n_over_l = optics.n_medium / optics.wavelength_nm
         self.kz = np.sqrt(np.maximum(n_over_l**2 - f2[self.inside], 0.0)) - n_over_l
+        self.rows = None  # vector light: (R, passing orders) factors
+        if optics.vector:
+            self.rows = optics.field_factors(fx, fy, pts, angle_deg)[:, self.inside]
 
     def amplitudes(self, defocus_nm: float) -> np.ndarray:
-        """``A[s, n]`` at ``defocus_nm``: the same values as ``pupil`` gives."""
-        a = np.zeros(self.inside.shape, dtype=np.complex128)
+        """``A[s, n]`` at ``defocus_nm``: the same values as ``pupil`` gives (times the
+        field factors of vector light, rows stacked state by state)."""
+        passing = self.root_w
         if defocus_nm:
-            a[self.inside] = self.root_w * np.exp(2j * np.pi * defocus_nm * self.kz)
-        else:
-            a[self.inside] = self.root_w
-        return a
+            passing = passing * np.exp(2j * np.pi * defocus_nm * self.kz)
+        if self.rows is None:
+            a = np.zeros(self.inside.shape, dtype=np.complex128)
+            a[self.inside] = passing
+            return a
+        a = np.zeros((len(self.rows),) + self.inside.shape, dtype=np.complex128)
+        a[:, self.inside] = self.rows * passing
+        return a.reshape(-1, self.inside.shape[1])
 
 
 class CoherentSystems:
@@ -235,10 +295,10 @@ class CoherentSystems:
         defocus_nm: float = 0.0,
         keep: float = SOCS_KEEP,
         blur_nm: float = 0.0,
+        angle_deg: float = 0.0,
     ):
-        self._decompose(
-            PupilFrame(optics, src, period_nm, n_max), period_nm, n_max, defocus_nm, keep, blur_nm
-        )
+        frame = PupilFrame(optics, src, period_nm, n_max, angle_deg)
+        self._decompose(frame, period_nm, n_max, defocus_nm, keep, blur_nm)
 
     @classmethod
     def from_frame(
@@ -284,7 +344,8 @@ class CoherentSystems:
     def through_opposite_focus(self) -> CoherentSystems:
         """The systems at minus this focus, without a new TCC.
 
-        The defocus phase is odd in focus and the rest of ``A`` is real, so
+        The defocus phase is odd in focus and the rest of ``A`` (with the
+        field factors of vector light) is real, so
         ``A(-z) = conj(A(z))`` and ``TCC(-z) = conj(TCC(z))``: the same
         eigenvalues, conjugate kernels.
         """

@@ -1,7 +1,7 @@
 """2-D aerial images of one periodic cell: the Abbe sum (reference) and the Hopkins sum of
 coherent systems.
 
-Scalar, thin mask, the conventions of ``optics.aerial`` carried to 2-D:
+Thin mask, scalar or vector light, the conventions of ``optics.aerial`` carried to 2-D:
 
 * Lengths in wafer nm, frequencies in 1/nm.  A :class:`Cell` is a
   ``px x py`` rectangle centred on ``(0, 0)`` and repeated along x and y.
@@ -52,6 +52,7 @@ from pitchguard.optics.aerial import (
     source_points,
 )
 from pitchguard.optics.cells2d import Cell
+from pitchguard.optics.source_folding import fold_source, unfold_tcc
 
 SOURCE_CHUNK = 512
 """Source points per block of the Abbe sum (bounds memory: block x orders x points)."""
@@ -250,12 +251,15 @@ def abbe_image_2d(
     defocus_nm: float,
     x_nm,
     y_nm,
+    angle_deg: float = 0.0,
 ) -> np.ndarray:
     """Reference image at points ``(x, y)`` (broadcast together): one coherent image per
     source point, summed.
 
     ``I(r) = sum_s w_s |sum_mn c_mn P(f_mn + s) exp(i 2 pi f_mn . r)|^2`` with
-    the source point at ``s = sigma NA / lambda`` (cell frame).
+    the source point at ``s = sigma NA / lambda`` (cell frame, turned by
+    ``angle_deg`` from the layout's); vector light sums each point's states and
+    field components too (:mod:`pitchguard.optics.polarization`).
     """
     pts, w = src
     spectrum = np.asarray(spectrum, dtype=np.complex128).reshape(len(orders))
@@ -266,19 +270,16 @@ def abbe_image_2d(
     chunk = max(1, FIELD_BUDGET // (len(orders) * SOURCE_CHUNK))  # points per block
     for k in range(0, len(w), SOURCE_CHUNK):
         s = pts[k : k + SOURCE_CHUNK]
-        amp = (
-            pupil(
-                fx[None, :] + s[:, 0:1] * optics.cutoff,
-                fy[None, :] + s[:, 1:2] * optics.cutoff,
-                optics,
-                defocus_nm,
-            )
-            * spectrum[None, :]
-        )
+        sfx = fx[None, :] + s[:, 0:1] * optics.cutoff
+        sfy = fy[None, :] + s[:, 1:2] * optics.cutoff
+        amp = pupil(sfx, sfy, optics, defocus_nm) * spectrum[None, :]
+        rows = optics.field_factors(sfx, sfy, s, angle_deg) if optics.vector else [1.0]
         for p0 in range(0, x.size, chunk):
             arg = fx[:, None] * xf[None, p0 : p0 + chunk] + fy[:, None] * yf[None, p0 : p0 + chunk]
-            field = amp @ np.exp(2j * np.pi * arg)  # (S, P)
-            out[p0 : p0 + chunk] += w[k : k + SOURCE_CHUNK] @ (field.real**2 + field.imag**2)
+            basis = np.exp(2j * np.pi * arg)
+            for row in rows:
+                field = (amp * row) @ basis  # (S, P)
+                out[p0 : p0 + chunk] += w[k : k + SOURCE_CHUNK] @ (field.real**2 + field.imag**2)
     return out.reshape(x.shape)
 
 
@@ -318,13 +319,29 @@ class PupilFrame2D:
     focus there (the 2-D counterpart of ``aerial.PupilFrame``), in blocks of source
     points.  :meth:`blocks` gives ``A = sqrt(w_s) P(f_k + s)`` block by block at any
     focus, the same values as ``aerial.pupil``, for one complex exponential per passing
-    order."""
+    order.  With vector light each source point gives a row per polarisation state and
+    field component (the factors of :mod:`pitchguard.optics.polarization`).
 
-    def __init__(self, optics: Optics, src: tuple[np.ndarray, np.ndarray], orders: CellOrders):
+    A source symmetric about the frame's axes is folded onto them (``fold``;
+    :mod:`pitchguard.optics.source_folding`): the blocks then hold a half or a
+    quarter of the points, and :meth:`CoherentSystems2D` unfolds the TCC."""
+
+    def __init__(
+        self,
+        optics: Optics,
+        src: tuple[np.ndarray, np.ndarray],
+        orders: CellOrders,
+        angle_deg: float = 0.0,
+        fold: bool = True,
+    ):
         pts, w = src
         self.orders = orders
+        self.folds: tuple[int, ...] = ()
+        if fold:
+            pts, w, self.folds = fold_source(pts, w, optics.polarization, angle_deg)
         n_over_l = optics.n_medium / optics.wavelength_nm
-        rows = max(SOURCE_CHUNK, FRAME_ELEMENTS // len(orders))
+        per_point = 6 if optics.vector else 1  # rows of A per source point
+        rows = max(SOURCE_CHUNK // per_point, FRAME_ELEMENTS // (len(orders) * per_point))
         self._blocks = []
         for k in range(0, len(w), rows):
             s = pts[k : k + rows]
@@ -334,13 +351,22 @@ class PupilFrame2D:
             inside = f2 <= optics.cutoff**2 * (1.0 + 1e-12)  # as aerial.pupil decides
             root_w = np.broadcast_to(np.sqrt(w[k : k + rows])[:, None], f2.shape)[inside]
             kz = np.sqrt(np.maximum(n_over_l**2 - f2[inside], 0.0)) - n_over_l
-            self._blocks.append((inside, root_w, kz))
+            factors = None
+            if optics.vector:
+                factors = optics.field_factors(fx, fy, s, angle_deg)[:, inside]
+            self._blocks.append((inside, root_w, kz, factors))
 
     def blocks(self, defocus_nm: float):
         """``A`` at ``defocus_nm``, one block of source points at a time."""
-        for inside, root_w, kz in self._blocks:
-            a = np.zeros(inside.shape, dtype=np.complex128)
-            a[inside] = root_w * np.exp(2j * np.pi * defocus_nm * kz) if defocus_nm else root_w
+        for inside, root_w, kz, factors in self._blocks:
+            passing = root_w * np.exp(2j * np.pi * defocus_nm * kz) if defocus_nm else root_w
+            if factors is None:
+                a = np.zeros(inside.shape, dtype=np.complex128)
+                a[inside] = passing
+            else:
+                a = np.zeros((len(factors),) + inside.shape, dtype=np.complex128)
+                a[:, inside] = factors * passing
+                a = a.reshape(-1, inside.shape[1])
             yield a
 
 
@@ -365,8 +391,10 @@ class CoherentSystems2D:
         defocus_nm: float = 0.0,
         keep: float = SOCS_KEEP,
         blur_nm: float = 0.0,
+        angle_deg: float = 0.0,
     ):
-        self._decompose(PupilFrame2D(optics, src, orders), defocus_nm, keep, blur_nm)
+        frame = PupilFrame2D(optics, src, orders, angle_deg)
+        self._decompose(frame, defocus_nm, keep, blur_nm)
 
     @classmethod
     def from_frame(
@@ -388,6 +416,7 @@ class CoherentSystems2D:
         tcc = np.zeros((n, n), dtype=np.complex128)
         for a in frame.blocks(defocus_nm):
             tcc += a.conj().T @ a
+        tcc = unfold_tcc(tcc, frame.orders.m, frame.orders.n, frame.folds)
         if blur_nm > 0:  # a blurred image: aerial.blur_factors at each order difference
             fx, fy = frame.orders.fx, frame.orders.fy
             dfx, dfy = fx[:, None] - fx[None, :], fy[:, None] - fy[None, :]
@@ -485,7 +514,8 @@ class CoherentSystems2D:
 
 def source_angle(exposure: Exposure, angle_deg: float) -> float:
     """The source turn that matters: none for round sources, else modulo 180 degrees
-    (every source shape here is point-symmetric), to 0.1 degree."""
+    (every source shape here is point-symmetric, and so is linearly polarised light),
+    to 0.1 degree."""
     return 0.0 if source_is_symmetric(exposure) else round(angle_deg, 1) % 180.0
 
 
@@ -543,4 +573,5 @@ def _frame(exposure: Exposure, px_nm: float, py_nm: float, angle_deg: float) -> 
         Optics.of(exposure),
         source_points(exposure, angle_deg),
         exposure_orders(exposure, px_nm, py_nm),
+        angle_deg,
     )

@@ -14,8 +14,10 @@ import math
 import numpy as np
 
 from pitchguard.optics.cd_search import Sides, cd_windows, size_between
+from pitchguard.optics.focus_windows import fine_windows
 from pitchguard.optics.resist import THRESHOLD_SAMPLES
 from pitchguard.optics.resist2d import Metrics2D
+from pitchguard.optics.window_edges import focus_spans
 
 
 def thresholds(lo: np.ndarray, hi: np.ndarray, count: int = THRESHOLD_SAMPLES) -> np.ndarray:
@@ -75,11 +77,18 @@ def cds(x, profiles, centre_nm, lo_nm, hi_nm, bright, t) -> np.ndarray:
     """``resist.cd_of_thresholds`` for profiles ``(R, n)`` on ``x``, each with its own
     thresholds ``t`` ``(R, T)`` and its own (or a shared) centre and search bounds:
     ``(R, T)``."""
+    left, right = edges(x, profiles, centre_nm, lo_nm, hi_nm, bright, t)
+    cd = np.where(np.isnan(right - left), 0.0, right - left)
+    return np.where(np.isinf(left) | np.isinf(right), np.inf, cd)
+
+
+def edges(x, profiles, centre_nm, lo_nm, hi_nm, bright, t) -> tuple[np.ndarray, np.ndarray]:
+    """The printed edges ``(left, right)`` ``(R, T)`` behind :func:`cds` (as
+    ``resist._edges_for_thresholds``: nan where lost, -inf / inf where bridged)."""
     sides = Sides(x, profiles, centre_nm, lo_nm, hi_nm, bright)
     tt = sides.sign * t
     left, right = (_side(part, px, n, tt, beyond) for part, px, n, _, beyond in sides.sides)
-    cd = np.where(np.isnan(right - left), 0.0, right - left)
-    return np.where(np.isinf(left) | np.isinf(right), np.inf, cd)
+    return left, right
 
 
 def size_thresholds(t: np.ndarray, cd: np.ndarray, target: np.ndarray) -> np.ndarray:
@@ -111,25 +120,6 @@ def windows(t: np.ndarray, ok: np.ndarray, t_size: np.ndarray) -> tuple[np.ndarr
     last = n - 1 - members[:, ::-1].argmax(axis=1)
     some = ok.any(axis=1)
     return np.where(some, t[rows, first], np.nan), np.where(some, t[rows, last], np.nan)
-
-
-def focus_spans(fs: np.ndarray, lat: np.ndarray, el_min_pct: float) -> np.ndarray:
-    """``resist2d.focus_span`` per clip: ``lat`` ``(B, F, F)`` over sorted focus ``fs``."""
-    b, n, _ = lat.shape
-    good = lat >= el_min_pct
-    gap = np.diff(fs)
-
-    def beyond(here: np.ndarray, nxt: np.ndarray, step: np.ndarray) -> np.ndarray:
-        with np.errstate(invalid="ignore", divide="ignore"):
-            frac = np.where(nxt < el_min_pct, (here - el_min_pct) / (here - nxt), 0.0)
-        return np.clip(frac, 0.0, 1.0) * step
-
-    right = np.zeros(lat.shape)
-    right[:, :, :-1] = beyond(lat[:, :, :-1], lat[:, :, 1:], gap[None, None, :])
-    left = np.zeros(lat.shape)
-    left[:, 1:, :] = beyond(lat[:, 1:, :], lat[:, :-1, :], gap[None, :, None])
-    span = fs[None, None, :] - fs[None, :, None] + right + left
-    return np.where(good, span, -np.inf).reshape(b, -1).max(axis=1, initial=0.0)
 
 
 def latitudes(lows: np.ndarray, highs: np.ndarray, t_size: np.ndarray) -> np.ndarray:
@@ -215,10 +205,9 @@ def axis_metrics_batch(
             el = np.minimum(
                 el, np.maximum(0.0, 100.0 * (highs[a, :, best] - lows[a, :, best]) * t_a)
             )
-        lo_a = np.where(np.isfinite(lows[a][:, order]), lows[a][:, order], np.inf)
-        hi_a = np.where(np.isfinite(highs[a][:, order]), highs[a][:, order], -np.inf)
+        g, lo_a, hi_a = fine_windows(focus[order], lows[a][:, order], highs[a][:, order])
         t_safe = np.where(np.isfinite(t_a), t_a, 0.0)
-        dof = np.minimum(dof, focus_spans(focus[order], latitudes(lo_a, hi_a, t_safe), el_min_pct))
+        dof = np.minimum(dof, focus_spans(g, latitudes(lo_a, hi_a, t_safe), el_min_pct))
     el = np.where(dead, 0.0, el)
     dof = np.where(dead, 0.0, dof)
     with np.errstate(divide="ignore", invalid="ignore"):

@@ -18,6 +18,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from pitchguard.optics.window_edges import refine_crossing
+
 
 class Sides:
     """Both halves of each profile, walked out from its centre (``-profile`` for bright
@@ -81,11 +83,14 @@ class Sides:
         return np.where(np.isinf(left) | np.isinf(right), np.inf, cd)
 
 
-def cd_windows(x, profiles, centre_nm, lo_nm, hi_nm, bright, t, target, tol):
+def cd_windows(x, profiles, centre_nm, lo_nm, hi_nm, bright, t, target, tol, exact=True):
     """``(size, low, high)`` per row: the threshold printing the drawn ``target``
     (``axis_batch.size_thresholds`` of the CDs at thresholds ``t`` ``(R, T)``,
-    not masked where no sample is in tolerance) and the first and last sample
-    of the run within ``tol * target`` (``axis_batch.windows``; nan for none)."""
+    not masked where no sample is in tolerance) and the ends of the run within
+    ``tol * target``: the first and last sample of it (``axis_batch.windows``;
+    nan for none), carried to where the CD meets the tolerance between those
+    samples and the next ones out with ``exact``
+    (:func:`window_edges.refine_crossing`)."""
     sides = Sides(x, profiles, centre_nm, lo_nm, hi_nm, bright)
     r, n = t.shape
     rows = np.arange(r)
@@ -143,6 +148,8 @@ def cd_windows(x, profiles, centre_nm, lo_nm, hi_nm, bright, t, target, tol):
     j_last = np.where(rising, u_b - 1, n - 1 - u_a)
     low = np.where(some, t[rows, np.clip(j_first, 0, n - 1)], np.nan)
     high = np.where(some, t[rows, np.clip(j_last, 0, n - 1)], np.nan)
+    if exact:
+        low, high = _exact_ends(sides, t, rows, rising, u_a, u_b, some, target * tol, target)
 
     # The sample nearest to size, the first of equals in sample order, as argmin finds it.
     d_lo, f_lo = diff(rows, u_star - 1)
@@ -174,6 +181,33 @@ def cd_windows(x, profiles, centre_nm, lo_nm, hi_nm, bright, t, target, tol):
     out = size_between(t, best, dj(best - 1), dj(best), dj(best + 1))
     size = np.where(np.isfinite(np.minimum(a, b)), out, np.nan)
     return size, low, high
+
+
+def _exact_ends(sides, t, rows, rising, u_a, u_b, some, band, target):
+    """The window's ends between the run's first and last samples (``u_a``,
+    ``u_b - 1`` in the order the CD grows) and the samples next out, where the
+    CD meets ``target -+ band``; a run reaching the first or last sample ends there."""
+    n = t.shape[1]
+
+    def t_of(rr, u):
+        u = np.clip(u, 0, n - 1)
+        return t[rr, np.where(rising[rr], u, n - 1 - u)]
+
+    small = t_of(rows, u_a)  # the end where the CD is smallest
+    big = t_of(rows, u_b - 1)
+    ra = rows[some & (u_a >= 1)]
+    if len(ra):
+        small[ra] = refine_crossing(
+            sides.cd, ra, t_of(ra, u_a[ra]), t_of(ra, u_a[ra] - 1), target[ra] - band[ra]
+        )
+    rb = rows[some & (u_b < n)]
+    if len(rb):
+        big[rb] = refine_crossing(
+            sides.cd, rb, t_of(rb, u_b[rb] - 1), t_of(rb, u_b[rb]), target[rb] + band[rb]
+        )
+    low = np.where(some, np.where(rising, small, big), np.nan)
+    high = np.where(some, np.where(rising, big, small), np.nan)
+    return low, high
 
 
 def size_between(t, best, d_m, d_0, d_p) -> np.ndarray:

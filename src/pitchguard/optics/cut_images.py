@@ -18,10 +18,11 @@ from pitchguard.optics.aerial import (
     mask_amplitudes,
     n_orders,
     segment_spectrum,
-    source_points,
+    source_is_symmetric,
 )
 from pitchguard.optics.resist import Metrics, evaluate
 from pitchguard.optics.resist_batch import evaluate_batch
+from pitchguard.optics.source_rims import line_source
 
 BATCH = 256
 """Cuts imaged per batch (bounds memory: focus x batch x samples x kernels)."""
@@ -109,7 +110,8 @@ def samples_for(period_nm: float, n_max: int, optics: Optics) -> int:
 
 @lru_cache(maxsize=64)
 def _frame(exposure: Exposure, angle_deg: float, period_nm: float, n_max: int) -> PupilFrame:
-    return PupilFrame(Optics.of(exposure), source_points(exposure, angle_deg), period_nm, n_max)
+    src = line_source(exposure, angle_deg, period_nm, n_max)
+    return PupilFrame(Optics.of(exposure), src, period_nm, n_max, angle_deg)
 
 
 @lru_cache(maxsize=512)
@@ -244,9 +246,10 @@ def measure_one(
             )  # (F, m, X)
             feats = [scaled[k].feature for k in idx]
             pts = np.array([[lft, rgt] for lft, rgt in feats])
-            i_e, d_e = coherent_systems(
+            at_best = coherent_systems(
                 e, angle, period, n_max, float(focus[best]), rule.resist_blur_nm
-            ).at(spectra, pts)
+            )
+            i_e, d_e = at_best.at(spectra, pts)
             ms = evaluate_batch(
                 x,
                 stack.transpose(1, 0, 2),
@@ -259,6 +262,7 @@ def measure_one(
                 rule.el_min_pct,
                 (i_e, d_e),
                 np.array([scaled[k].reach for k in idx]),
+                lambda where, sys=at_best, sp=spectra: sys.at(sp, where),
             )
             for k, m in zip(idx, ms, strict=True):
                 out[k] = m
@@ -303,9 +307,10 @@ def grating_metrics(
         ]
     )
     h = cd_nm / 2.0
-    i_e, d_e = coherent_systems(
+    at_best = coherent_systems(
         e, angle_deg, pitch_nm, n_max, float(focus[best]), rule.resist_blur_nm
-    ).at(spec, np.array([-h, h]))
+    )
+    i_e, d_e = at_best.at(spec, np.array([-h, h]))
     m = evaluate(
         x,
         stack,
@@ -318,6 +323,7 @@ def grating_metrics(
         rule.cd_tolerance_pct / 100.0,
         rule.el_min_pct,
         (i_e[0], d_e[0]),
+        values_at=lambda where: at_best.at(spec, where),
     )
     return m, x, stack[best]
 
@@ -347,9 +353,10 @@ def grating_metrics_batch(
         ]
     )  # (F, m, X)
     pts = np.stack([-h, h], axis=1)
-    i_e, d_e = coherent_systems(
+    at_best = coherent_systems(
         e, angle_deg, pitch_nm, n_max, float(focus[best]), rule.resist_blur_nm
-    ).at(spectra, pts)
+    )
+    i_e, d_e = at_best.at(spectra, pts)
     return evaluate_batch(
         x,
         stack.transpose(1, 0, 2),
@@ -361,6 +368,7 @@ def grating_metrics_batch(
         rule.cd_tolerance_pct / 100.0,
         rule.el_min_pct,
         (i_e, d_e),
+        values_at=lambda where: at_best.at(spectra, where),
     )
 
 
@@ -381,11 +389,7 @@ def cut_image(
     feat, bg = mask_amplitudes(e, rule.field)
     edges, mat = cut_segments(Cut(tuple(bounds_nm), rule.interaction_range_nm), period)
     spec = segment_spectrum(period, edges, np.where(mat, feat, bg), n_max)
-    angle = (
-        0.0
-        if e.illumination.shape in ("coherent", "conventional", "annular")
-        else round(angle_deg, 1) % 180.0
-    )
+    angle = 0.0 if source_is_symmetric(e) else round(angle_deg, 1) % 180.0
     inten = coherent_systems(e, angle, period, n_max, float(focus_nm), rule.resist_blur_nm).image(
         spec, samples
     )[0, order]

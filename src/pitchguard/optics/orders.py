@@ -93,17 +93,23 @@ def _boundary(ill: Illumination) -> np.ndarray:
 
 
 @lru_cache(maxsize=64)
-def sample_source(ill: Illumination, step: float = GRID_STEP) -> SourceSampling:
-    """Sample a source shape (cached per shape)."""
-    if isinstance(ill, Coherent):
-        z = np.zeros((1, 2))
-        return SourceSampling(z, z, np.ones(1))
+def cell_step(ill: Illumination, step: float = GRID_STEP) -> float:
+    """The side of :func:`sample_source`'s cells: ``step``, or an eighth of the shape's
+    narrowest extent (ring width, pole opening) where that is smaller."""
     widths = [getattr(ill, "sigma", 1.0)]
     if hasattr(ill, "sigma_inner"):
         widths.append(ill.sigma_outer - ill.sigma_inner)
     if hasattr(ill, "opening_deg"):
         widths.append(ill.sigma_outer * math.radians(ill.opening_deg))
-    h = min(step, min(widths) / 8)
+    return min(step, min(widths) / 8)
+
+
+def sample_source(ill: Illumination, step: float = GRID_STEP) -> SourceSampling:
+    """Sample a source shape (cached per shape)."""
+    if isinstance(ill, Coherent):
+        z = np.zeros((1, 2))
+        return SourceSampling(z, z, np.ones(1))
+    h = cell_step(ill, step)
     n = int(math.ceil(1.0 / h)) + 1
     axis = (np.arange(-n, n + 1)) * h
     cx, cy = np.meshgrid(axis, axis)

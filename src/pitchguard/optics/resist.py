@@ -8,7 +8,9 @@ from typing import NamedTuple
 
 import numpy as np
 
+from pitchguard.optics.focus_windows import fine_windows_plain
 from pitchguard.optics.side_lobes import side_lobe_codes
+from pitchguard.optics.window_edges import focus_span, refine_crossing
 
 THRESHOLD_SAMPLES = 512
 """Thresholds tried per profile when inverting CD(threshold)."""
@@ -33,6 +35,21 @@ class Metrics:
     # and how deep: image over threshold (openings) or threshold over image.
     side_lobe: int = 0
     side_lobe_depth: float = 0.0
+    # Printed minus drawn position of each edge along the cut (nm, best focus,
+    # nominal dose; nan when the feature is lost or bridged).
+    epe_left_nm: float = math.nan
+    epe_right_nm: float = math.nan
+
+    @property
+    def shift_nm(self) -> float:
+        """How far the printed feature's centre sits from the drawn one's (along the cut)."""
+        return 0.5 * (self.epe_left_nm + self.epe_right_nm)
+
+    @property
+    def epe_nm(self) -> float:
+        """The larger edge displacement, signed: + outward (the feature grows there)."""
+        out_left, out_right = -self.epe_left_nm, self.epe_right_nm
+        return out_left if abs(out_left) >= abs(out_right) else out_right
 
 
 def _edges_for_thresholds(x, g, lo_idx, c_idx, hi_idx, t):
@@ -156,13 +173,15 @@ def printed_edges(
     return PrintedEdges(edges[0], edges[1], "printed" if ok else "bridged")
 
 
-def _threshold_window(t, cd, target, tol):
+def _threshold_window(t, cd, target, tol, cd_at=None):
     """(t_size, t_a, t_b): threshold on size, and the range keeping CD in tolerance.
 
     CD grows with the threshold for a dark feature and shrinks for a bright
     one; either way the window is the contiguous threshold range around
     ``t_size`` where ``|cd - target| <= tol target``.  ``nan`` when never in
-    tolerance.
+    tolerance.  With ``cd_at(threshold)`` (the CD at any threshold) the ends are
+    carried from the last samples in tolerance to where the CD meets it
+    (:func:`window_edges.refine_crossing`).
     """
     ok = np.isfinite(cd) & (np.abs(cd - target) <= tol * target)
     if not ok.any():
@@ -193,7 +212,23 @@ def _threshold_window(t, cd, target, tol):
     b = k0
     while b < len(t) - 1 and ok[b + 1]:
         b += 1
-    return size, t[a], t[b]
+    if cd_at is None:
+        return size, t[a], t[b]
+    ends = ((a, a - 1), (b, b + 1))
+    return size, *(exact_end(t, cd, k, out, target, tol, cd_at) for k, out in ends)
+
+
+def exact_end(t, cd, k, out, target, tol, cd_at) -> float:
+    """The window end between sample ``k`` (in tolerance) and ``out`` (beyond it, or
+    off the samples: then ``t[k]``), where the CD meets the bound it crosses."""
+    if not 0 <= out < len(t):
+        return float(t[k])
+    below = np.isfinite(cd[out]) and cd[out] < target
+    bound = target * (1 - tol) if below else target * (1 + tol)
+    one = np.zeros(1, dtype=np.int64)
+    return float(
+        refine_crossing(lambda _, tt: cd_at(tt), one, t[k : k + 1], t[out : out + 1], bound)[0]
+    )
 
 
 def evaluate(
@@ -209,6 +244,7 @@ def evaluate(
     el_min_pct: float,
     edge_values: tuple[np.ndarray, np.ndarray] | None = None,
     reach_nm: float = math.inf,
+    values_at=None,
 ) -> Metrics:
     """Metrics of one feature from its images through focus.
 
@@ -230,10 +266,16 @@ def evaluate(
         The anchored threshold; None to size every feature at its own dose.
     edge_values
         ``(I, dI/dx)`` at the two drawn edges at best focus (exact values from
-        the engine); estimated from the samples when not given.
+        the engine; estimated from the samples when not given): the NILS of a
+        feature that is lost or bridged.  Where it prints, NILS is taken at the
+        printed edges, where the resist sees it.
     reach_nm
         How far from the feature the image stands for the layout (a cut's
         interaction range): side lobes are looked for within it.
+    values_at
+        ``values_at(positions (1, 2)) -> (I, dI/dx)`` exact from the engine at
+        best focus: the printed edges' slope; estimated from the samples
+        when not given.
     """
     best = int(np.argmin(np.abs(focus_nm)))
     inten0 = images[best]
@@ -248,16 +290,17 @@ def evaluate(
         d_e = np.interp([left, right], x, np.gradient(inten0, x))
     else:
         i_e, d_e = edge_values
-    with np.errstate(divide="ignore", invalid="ignore"):
-        nils_each = drawn_cd * np.abs(d_e) / i_e
-    nils = float(np.nanmin(nils_each)) if np.all(i_e > 0) else 0.0
 
     span_lo, span_hi = float(images.min()), float(images.max())
     t = np.linspace(span_lo, span_hi, THRESHOLD_SAMPLES)
     windows = []
     for f in range(len(focus_nm)):
         cd = cd_of_thresholds(x, images[f], centre, lo, hi, bright, t)
-        windows.append(_threshold_window(t, cd, drawn_cd, tol))
+
+        def cd_at(tt, img=images[f]):
+            return cd_of_thresholds(x, img, centre, lo, hi, bright, tt)
+
+        windows.append(_threshold_window(t, cd, drawn_cd, tol, cd_at))
     t_size, ta, tb = windows[best]
     if nominal_threshold is None:
         edge_mean = float(np.interp([left, right], x, inten0).mean())
@@ -267,6 +310,20 @@ def evaluate(
     cd_nom = float(cd_of_thresholds(x, inten0, centre, lo, hi, bright, np.array([t_nom]))[0])
     lost = cd_nom <= 0.0
     bridged = math.isinf(cd_nom)
+    epe = (math.nan, math.nan)
+    if not (lost or bridged):
+        edges = printed_edges(x, inten0, t_nom, bright, centre, (lo, hi))
+        epe = (edges.left - left, edges.right - right)
+        # NILS where the resist sees it: at the printed edges.
+        if values_at is not None:
+            i_p, d_p = values_at(np.array([[edges.left, edges.right]]))
+            i_e, d_e = np.asarray(i_p)[0], np.asarray(d_p)[0]
+        else:
+            i_e = np.array([t_nom, t_nom])
+            d_e = np.interp([edges.left, edges.right], x, np.gradient(inten0, x))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        nils_each = drawn_cd * np.abs(d_e) / i_e
+    nils = float(np.nanmin(nils_each)) if np.all(i_e > 0) else 0.0
     cd_err = math.nan
     if nominal_threshold is not None and not lost and not bridged:
         cd_err = 100.0 * (cd_nom - drawn_cd) / drawn_cd
@@ -299,6 +356,8 @@ def evaluate(
         dose_to_size=float(dts),
         side_lobe=int(lobe[0]),
         side_lobe_depth=float(depth[0]),
+        epe_left_nm=float(epe[0]),
+        epe_right_nm=float(epe[1]),
     )
 
 
@@ -327,15 +386,19 @@ def _el_pct(windows, t_size) -> float:
 
 
 def _dof(focus_nm, windows, t_size, el_min_pct) -> float:
-    """Longest contiguous focus span (containing best focus or not) keeping EL >= el_min."""
+    """Longest contiguous focus span (containing best focus or not) keeping EL >= el_min,
+    the dose windows carried between focus samples (:mod:`focus_windows`)."""
     order = np.argsort(focus_nm)
-    f = np.asarray(focus_nm)[order]
-    w = [windows[k] for k in order]
-    best = 0.0
-    for i in range(len(f)):
-        for j in range(i, len(f)):
-            if _el_pct(w[i : j + 1], t_size) >= el_min_pct:
-                best = max(best, float(f[j] - f[i]))
-            else:
-                break
-    return best
+    f = np.asarray(focus_nm, dtype=np.float64)[order]
+    lows, highs = np.array([_dose_range(windows[k]) for k in order], dtype=np.float64).T
+    g, lo, hi = fine_windows_plain(f, lows, highs)
+    if not (math.isfinite(t_size) and t_size > 0):
+        return 0.0
+    n = len(g)
+    lat = np.full((n, n), -np.inf)
+    for i in range(n):
+        common_lo, common_hi = -np.inf, np.inf
+        for j in range(i, n):
+            common_lo, common_hi = max(common_lo, lo[j]), min(common_hi, hi[j])
+            lat[i, j] = max(0.0, 100.0 * (common_hi - common_lo) * t_size)
+    return focus_span(g, lat, el_min_pct)

@@ -29,7 +29,9 @@ from pitchguard.optics.aerial2d import (
     image_axes,
 )
 from pitchguard.optics.cells2d import Cell, array_cell
-from pitchguard.optics.resist import THRESHOLD_SAMPLES, cd_of_thresholds
+from pitchguard.optics.focus_windows import fine_windows_plain
+from pitchguard.optics.resist import THRESHOLD_SAMPLES, cd_of_thresholds, exact_end
+from pitchguard.optics.window_edges import focus_span
 
 
 @dataclass(frozen=True)
@@ -70,9 +72,12 @@ def _size_threshold(t: np.ndarray, cd: np.ndarray, target: float) -> float:
     return float(t[best])
 
 
-def _window(t: np.ndarray, ok: np.ndarray, t_size: float) -> tuple[float, float]:
+def _window(t: np.ndarray, cd: np.ndarray, target: float, tol: float, t_size: float, cd_at):
     """The contiguous run of in-tolerance thresholds around ``t_size`` (or the nearest
-    in-tolerance one): ``(t_a, t_b)``, nan when none."""
+    in-tolerance one), its ends carried to where the CD meets the tolerance
+    (``resist.exact_end``, the CD at any threshold from ``cd_at``): ``(t_a, t_b)``,
+    nan when none."""
+    ok = np.abs(cd - target) <= tol * target
     if not ok.any():
         return math.nan, math.nan
     k0 = int(np.argmin(np.abs(t - t_size))) if math.isfinite(t_size) else 0
@@ -81,7 +86,11 @@ def _window(t: np.ndarray, ok: np.ndarray, t_size: float) -> tuple[float, float]
         k0 = int(good[np.argmin(np.abs(good - k0))])
     run = np.cumsum(~ok)  # equal within a run of ok thresholds
     members = np.flatnonzero(ok & (run == run[k0]))
-    return float(t[members[0]]), float(t[members[-1]])
+    a, b = int(members[0]), int(members[-1])
+    return (
+        exact_end(t, cd, a, a - 1, target, tol, cd_at),
+        exact_end(t, cd, b, b + 1, target, tol, cd_at),
+    )
 
 
 def _latitudes(lows: np.ndarray, highs: np.ndarray, t_size: float) -> np.ndarray:
@@ -97,33 +106,6 @@ def _latitudes(lows: np.ndarray, highs: np.ndarray, t_size: float) -> np.ndarray
     hi = np.minimum.accumulate(np.where(upper, highs[None, :], np.inf), axis=1)
     el = np.maximum(0.0, 100.0 * (hi - lo) * t_size)
     return np.where(upper, el, -np.inf)
-
-
-def focus_span(fs: np.ndarray, lat: np.ndarray, el_min_pct: float) -> float:
-    """Longest focus span (sorted samples ``fs``) whose common latitude ``lat[i, j]``
-    (:func:`_latitudes`) stays at ``el_min_pct``, each end carried past its last
-    sample by linear interpolation of the latitude towards the next one (the
-    samples alone round the span down by up to two steps)."""
-    n = len(fs)
-    i, j = np.nonzero(lat >= el_min_pct)
-    if not len(i):
-        return 0.0
-    here = lat[i, j]
-    gap = np.diff(fs)
-
-    def beyond(go: np.ndarray, nxt: np.ndarray, step: np.ndarray) -> np.ndarray:
-        out = np.zeros(len(i))
-        h = here[go]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            frac = np.where(nxt < el_min_pct, (h - el_min_pct) / (h - nxt), 0.0)
-        out[go] = np.clip(frac, 0.0, 1.0) * step
-        return out
-
-    r = j + 1 < n
-    right = beyond(r, lat[i[r], j[r] + 1], gap[j[r]])
-    left_go = i >= 1
-    left = beyond(left_go, lat[i[left_go] - 1, j[left_go]], gap[i[left_go] - 1])
-    return float((fs[j] - fs[i] + right + left).max())
 
 
 def _joined(printed, x, y, centre, others) -> bool:
@@ -291,11 +273,17 @@ def axis_metrics(
         cd_of_thresholds(x, rows[first], xc, xlo, xhi, bright, t),
         cd_of_thresholds(y, cols[first], yc, ylo, yhi, bright, t),
     )
+    lines = ((x, rows, xc, xlo, xhi), (y, cols, yc, ylo, yhi))
     for u in range(len(first)):
         for a, w in enumerate((wx, wy)):
             cd = cds[a][u]
             size = _size_threshold(t, cd, w)
-            ta, tb = _window(t, np.abs(cd - w) <= tol * w, size)
+            s_ax, prof, c_ax, lo_ax, hi_ax = lines[a]
+
+            def cd_at(tt, s_ax=s_ax, img=prof[first[u]], c=c_ax, lo_=lo_ax, hi_=hi_ax):
+                return cd_of_thresholds(s_ax, img, c, lo_, hi_, bright, tt)
+
+            ta, tb = _window(t, cd, w, tol, size, cd_at)
             at = back == u
             sizes[a, at] = size
             if math.isfinite(ta) and ta > 0:
@@ -322,9 +310,8 @@ def axis_metrics(
             el = dof = 0.0
             break
         el = min(el, float(max(0.0, 100.0 * (highs[a, best] - lows[a, best]) * t_a)))
-        lo = np.where(np.isfinite(lows[a, order]), lows[a, order], np.inf)
-        hi = np.where(np.isfinite(highs[a, order]), highs[a, order], -np.inf)
-        dof = min(dof, focus_span(focus[order], _latitudes(lo, hi, t_a), el_min_pct))
+        g, lo, hi = fine_windows_plain(focus[order], lows[a, order], highs[a, order])
+        dof = min(dof, focus_span(g, _latitudes(lo, hi, t_a), el_min_pct))
     dts = t_nom / t_size if (math.isfinite(t_size) and t_size > 0) else math.nan
     # Python floats: metrics travel between processes (see resist.evaluate).
     return Metrics2D(

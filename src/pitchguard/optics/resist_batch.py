@@ -12,10 +12,12 @@ import math
 
 import numpy as np
 
-from pitchguard.optics.axis_batch import cds, latitudes, thresholds
+from pitchguard.optics.axis_batch import edges, latitudes, thresholds
 from pitchguard.optics.cd_search import cd_windows
+from pitchguard.optics.focus_windows import fine_windows
 from pitchguard.optics.resist import Metrics
 from pitchguard.optics.side_lobes import side_lobe_codes
+from pitchguard.optics.window_edges import focus_spans
 
 
 def _interp(x: np.ndarray, rows: np.ndarray, at: np.ndarray) -> np.ndarray:
@@ -40,11 +42,14 @@ def evaluate_batch(
     el_min_pct: float,
     edge_values: tuple[np.ndarray, np.ndarray],
     reach_nm=math.inf,
+    values_at=None,
 ) -> list[Metrics]:
     """:func:`resist.evaluate` of ``C`` cuts: ``images`` ``(C, F, len(x))``,
     ``features`` and ``searches`` ``(C, 2)``, the drawn CD each feature's width,
     ``edge_values`` ``(I, dI/dx)`` ``(C, 2)`` at the drawn edges at best focus,
-    ``reach_nm`` (scalar or ``(C,)``) how far side lobes are looked for."""
+    ``reach_nm`` (scalar or ``(C,)``) how far side lobes are looked for,
+    ``values_at(positions (C, 2)) -> (I, dI/dx)`` exact at best focus (the
+    printed edges' slope; estimated from the samples without it)."""
     focus_nm = np.asarray(focus_nm, dtype=np.float64)
     nc, nf, _ = images.shape
     best = int(np.argmin(np.abs(focus_nm)))
@@ -60,9 +65,7 @@ def evaluate_batch(
     imin = np.where(region, inten0, np.inf).min(axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
         contrast = np.where(imax + imin > 0, (imax - imin) / (imax + imin), 0.0)
-        i_e, d_e = edge_values
-        nils_each = drawn[:, None] * np.abs(d_e) / i_e
-    nils = np.where(np.all(i_e > 0, axis=1), np.fmin.reduce(nils_each, axis=1), 0.0)
+    i_e, d_e = (np.array(v, dtype=np.float64) for v in edge_values)
 
     t = thresholds(images.min(axis=(1, 2)), images.max(axis=(1, 2)))  # (C, T)
     tf = np.repeat(t, nf, axis=0)  # (C F, T)
@@ -79,9 +82,26 @@ def evaluate_batch(
         t_nom = np.where(np.isfinite(t_size), t_size, edge_mean)
     else:
         t_nom = np.full(nc, float(nominal_threshold))
-    cd_nom = cds(x, inten0, centre, lo, hi, bright, t_nom[:, None])[:, 0]
+    e_left, e_right = (v[:, 0] for v in edges(x, inten0, centre, lo, hi, bright, t_nom[:, None]))
+    cd_nom = np.where(np.isnan(e_right - e_left), 0.0, e_right - e_left)
+    cd_nom = np.where(np.isinf(e_left) | np.isinf(e_right), np.inf, cd_nom)
     lost = cd_nom <= 0.0
     bridged = np.isinf(cd_nom)
+    # NILS where the resist sees it: at the printed edges where the feature prints.
+    printed = ~(lost | bridged)
+    where = np.stack([np.where(printed, e_left, left), np.where(printed, e_right, right)], axis=1)
+    if values_at is not None:
+        i_p, d_p = (np.asarray(v, dtype=np.float64) for v in values_at(where))
+    else:
+        i_p = np.broadcast_to(t_nom[:, None], where.shape)
+        d_p = _interp(x, np.gradient(inten0, x, axis=1), where)
+    i_e = np.where(printed[:, None], i_p, i_e)
+    d_e = np.where(printed[:, None], d_p, d_e)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        nils_each = drawn[:, None] * np.abs(d_e) / i_e
+    nils = np.where(np.all(i_e > 0, axis=1), np.fmin.reduce(nils_each, axis=1), 0.0)
+    epe_l = np.where(printed, e_left - left, np.nan)
+    epe_r = np.where(printed, e_right - right, np.nan)
     cd_err = np.full(nc, math.nan)
     if nominal_threshold is not None:
         cd_err = np.where(lost | bridged, math.nan, 100.0 * (cd_nom - drawn) / drawn)
@@ -98,9 +118,10 @@ def evaluate_batch(
     el = np.where(usable & valid[:, best], el, 0.0)
     order = np.argsort(focus_nm)
     fs = focus_nm[order]
-    lat = latitudes(d_lo[:, order], d_hi[:, order], t_use)  # -inf below the diagonal
-    span = fs[None, None, :] - fs[None, :, None]
-    dof = np.where(lat >= el_min_pct, span, 0.0).reshape(nc, -1).max(axis=1)
+    g, lo_g, hi_g = fine_windows(
+        fs, np.where(valid, d_lo, np.nan)[:, order], np.where(valid, d_hi, np.nan)[:, order]
+    )
+    dof = focus_spans(g, latitudes(lo_g, hi_g, t_use), el_min_pct)  # -inf below the diagonal
     with np.errstate(divide="ignore", invalid="ignore"):
         dts = np.where(usable, t_nom / t_use, np.nan)
     lobe, depth = side_lobe_codes(
@@ -121,6 +142,8 @@ def evaluate_batch(
             dose_to_size=float(dts[c]),
             side_lobe=int(lobe[c]),
             side_lobe_depth=float(depth[c]),
+            epe_left_nm=float(epe_l[c]),
+            epe_right_nm=float(epe_r[c]),
         )
         for c in range(nc)
     ]

@@ -35,6 +35,14 @@ def json_numbers(xs) -> list:
     return [json_number(x) for x in xs]
 
 
+def _light(exposure) -> dict:
+    """The light a layer is imaged with: its polarisation and the medium's index."""
+    return {
+        "polarization": exposure.polarization,
+        "image_index": exposure.resist_index or exposure.immersion_index,
+    }
+
+
 def clean_json(obj):
     """JSON-safe copy: non-finite floats become null, numpy scalars plain numbers."""
     if isinstance(obj, dict):
@@ -113,6 +121,8 @@ def finding_to_dict(f: Finding, texts: TextTable | None = None) -> dict:
         "cd_error_pct": json_number(f.cd_error_pct),
         "exposure_latitude_pct": json_number(f.el_pct),
         "depth_of_focus_nm": json_number(f.dof_nm),
+        "edge_placement_nm": json_number(f.epe_nm),
+        "shift_nm": json_number(f.shift_nm),
         "worst_line": f.context or None,
         "cut": {
             "bounds_nm": json_numbers(f.cut_bounds_nm),
@@ -214,6 +224,7 @@ def to_json(
     by_layer = {}
     # A finding's depth_of_focus_nm at its layer's span is "at least" that.
     spans = {r.name: round(r.focus_span_nm, 3) for r in deck.layers}
+    lights = {r.name: _light(r.exposure) for r in deck.layers}
     for st in result.layers:
         counts = severity_counts(result.findings, st.name)
         ex = st.extract
@@ -231,6 +242,7 @@ def to_json(
             "judged_um": round(ex.judged_nm / 1000.0, 3),
             "judged_pct": None if ex.edge_nm <= 0 else round(100.0 * ex.coverage, 1),
             "focus_span_nm": spans.get(st.name),
+            **lights.get(st.name, {}),
             **ex.extra,
             "seconds": round(st.seconds, 3),
         }

@@ -85,7 +85,7 @@ _RULE_HELP: dict[str, dict[str, str]] = {
     },
     "low-nils": {
         "worst": "fail",
-        "flags": "Regions where the normalised image log-slope (NILS) at the drawn edges "
+        "flags": "Regions where the normalised image log-slope (NILS) at the printed edges "
         "is below the layer's bands (defaults: fail below 1.0, risk below 1.5, marginal "
         "below 2.0).",
         "why": "NILS measures how sharply the image switches from dark to bright at the "
@@ -125,6 +125,18 @@ _RULE_HELP: dict[str, dict[str, str]] = {
         "corrections cost process margin and may not be possible at all.",
         "change": "Move the pitch or width towards the layer's anchor geometry, or make "
         "sure the fab's mask correction covers this pattern.",
+    },
+    "edge-placement": {
+        "worst": "risk",
+        "flags": "Regions where a printed edge, at best focus and nominal dose, sits "
+        "further from the drawn edge than edge_placement_max_pct of the drawn width "
+        "(default half of cd_tolerance_pct): the feature prints shifted, or off its size.",
+        "why": "A feature printed off its place misses what it must connect to or comes "
+        "too close to its neighbour; it typically happens where the neighbourhood is "
+        "not symmetric, such as the last line of an array.",
+        "change": "Move the drawn edges the other way by the shift in the hint (the bias "
+        "OPC would give them), or make the neighbourhood symmetric, for example with a "
+        "dummy feature beyond the last line of an array.",
     },
     "side-lobe-printing": {
         "worst": "fail",

@@ -183,3 +183,25 @@ def pattern_brief(f: Finding) -> str:
         f"{f.array.lattice} lattice {nm_text(f.pitch_nm)} x {nm_text(f.pitch_max_nm)} nm "
         f"({nm_text(w)} x {nm_text(h)} nm features, k1 {f.k1:.3f}, {f.array.features} features)"
     )
+
+
+LIGHTS = {
+    "unpolarized": "unpolarised",
+    "x": "x-polarised (E along x)",
+    "y": "y-polarised (E along y)",
+    "tangential": "tangentially polarised",
+    "radial": "radially polarised",
+    "scalar": "scalar (no polarisation)",
+}
+
+
+def light_text(polarization: str) -> str:
+    """An exposure's ``polarization`` in words."""
+    return LIGHTS.get(polarization, polarization)
+
+
+def medium_text(exposure) -> str:
+    """Where the image forms: ``in resist n 1.7`` or ``in n 1.44``."""
+    if exposure.resist_index:
+        return f"in resist n {exposure.resist_index:g}"
+    return f"in n {exposure.immersion_index:g}"

@@ -10,7 +10,7 @@ from pitchguard.errors import EXIT_FINDINGS, EXIT_OK
 from pitchguard.judge.findings import Finding, FindingSet
 
 CAUTION = (
-    "pitchguard is a screening aid built on a scalar thin-mask optical model; "
+    "pitchguard is a screening aid built on a thin-mask optical model; "
     "sign-off stays with the fab's calibrated models and processes."
 )
 

@@ -71,7 +71,7 @@ def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
             f"fraction {f.two_beam_fraction:.0%})</span>",
         ),
         ("image contrast", _contrast_html(f)),
-        ("NILS at the drawn edges", html_number(f.nils, ".2f")),
+        ("NILS at the printed edges", html_number(f.nils, ".2f")),
         ("exposure latitude (EL)", html_number(f.el_pct, ".1f", " %")),
         (
             "depth of focus (DOF)",
@@ -160,7 +160,7 @@ _TIP_DROPS = _LINE_ROWS + (
     "pitch (wafer)",
     "smallest imageable pitch",
     "k1",
-    "NILS at the drawn edges",
+    "NILS at the printed edges",
     "exposure latitude (EL)",
     "depth of focus (DOF)",
     "printed CD (wafer)",
