@@ -27,7 +27,7 @@ from pydantic import (
     model_validator,
 )
 
-from pitchguard.deck_messages import KeyedError, validation_message
+from pitchguard.deck_messages import KeyedError, resist_index_message, validation_message
 from pitchguard.errors import DeckError, read_input_text
 
 SEVERITIES = ("fail", "risk", "marginal")
@@ -65,13 +65,6 @@ Sigma = Annotated[float, Field(ge=0.0, le=1.0)]
 
 # Photoresists and top coats at DUV wavelengths lie near 1.5-1.8 (common practice).
 ResistIndex = Annotated[float, Field(ge=1.0, le=2.5)]
-
-
-def resist_index_message(index: float, na: float) -> str:
-    return (
-        f"{index:g} must be above the exposure's NA ({na:g}): light at the pupil's "
-        "edge would not enter the resist"
-    )
 
 
 class Coherent(_Model):
@@ -265,6 +258,9 @@ class Limits(_Model):
       of ``cd_tolerance_pct``: the CD budget split between the two edges
       (common practice), so both edges out by this much print the CD at its
       tolerance.
+    * ``sizing = "drawn"``; ``"retarget"`` judges each cut's mask biased to print on
+      size at the anchored dose (optics.sizing), ``bias_max_nm`` (default 0.1
+      lambda/NA, an order of magnitude) the largest bias per edge.
     * ``resist_index``: index of the medium the image forms in (the resist),
       which sets the field components of vector light.  Default the
       exposure's ``resist_index``, else its immersion index.
@@ -294,6 +290,8 @@ class Limits(_Model):
     resist_blur_nm: Annotated[float, Field(ge=0.0, le=100.0)] | None = None
     resist_index: ResistIndex | None = None
     edge_placement_max_pct: Annotated[float, Field(gt=0.0, lt=100.0)] | None = None
+    sizing: Literal["drawn", "retarget"] | None = None
+    bias_max_nm: Annotated[float, Field(gt=0.0, le=1000.0)] | None = None
     anchor: Anchor | None = None
 
     @field_validator("focus_steps")
@@ -323,6 +321,7 @@ MIN_RUN_LAMBDA_NA = 0.5
 INTERACTION_RANGE_LAMBDA_NA = 3.0
 COMPACT_LAMBDA_NA = 1.0
 PULLBACK_LAMBDA_NA = 0.25
+BIAS_LAMBDA_NA = 0.1
 
 
 def quarter_wave_focus_nm(exposure) -> float:
@@ -428,6 +427,8 @@ class LayerRule:
         "focus_steps",
         "resist_blur_nm",
         "edge_placement_max_pct",
+        "sizing",
+        "bias_max_nm",
         "anchor",
         "nils_fail_below",
         "optional",
@@ -482,6 +483,8 @@ class LayerRule:
             pick("edge_placement_max_pct", self.cd_tolerance_pct / 2.0)
         )
         self.anchor = pick("anchor", None)
+        self.sizing = pick("sizing", "drawn")
+        self.bias_max_nm = float(pick("bias_max_nm", BIAS_LAMBDA_NA * exposure.lambda_over_na_nm))
 
     @property
     def focus_span_nm(self) -> float:
@@ -528,6 +531,12 @@ class Deck:
                     f"exceed k1_marginal_below ({rule.k1_marginal_below}) for layer {rule.name!r}"
                 )
         for i, (rule, entry) in enumerate(zip(self.layers, raw.layers, strict=True)):
+            if rule.sizing == "retarget" and rule.anchor is None:
+                key = f"layers[{i}]" if entry.sizing is not None else "layer_defaults"
+                raise DeckError(
+                    f'{self._where()}: {key}.sizing: "retarget" sizes each feature to print '
+                    f"on size at the anchored dose; layer {rule.name!r} has no anchor"
+                )
             index = rule.exposure.resist_index
             if index is not None and rule.exposure.na >= index:
                 key = f"layers[{i}]" if entry.resist_index is not None else "layer_defaults"

@@ -91,3 +91,11 @@ def validation_message(path: str, err: ValidationError, data: dict) -> str:
     ):
         msg = f"{msg}, got {first['input']!r}"
     return f"{path}: {key}: {msg}"
+
+
+def resist_index_message(index: float, na: float) -> str:
+    """Why a resist index at or below the NA is refused."""
+    return (
+        f"{index:g} must be above the exposure's NA ({na:g}): light at the pupil's "
+        "edge would not enter the resist"
+    )

@@ -15,6 +15,26 @@ def _dof_text(*a, **k) -> str:
     return dof_text(*a, **k)
 
 
+def _as_drawn(rule):
+    """The layer judged as drawn, when the deck judges it as sized; else None."""
+    if rule.sizing != "retarget":
+        return None
+    import copy
+
+    drawn = copy.copy(rule)
+    drawn.sizing = "drawn"
+    return drawn
+
+
+def _sized_text(m) -> str:
+    from pitchguard.optics.resist import UNSIZED
+
+    if m is None or m.sizing == 0:
+        return ""
+    reach = " (no bias reaches size)" if m.sizing == UNSIZED else ""
+    return f"{m.bias_nm:+.1f} nm per edge{reach}"
+
+
 def _light(exposure) -> str:
     from pitchguard.outputs.texts import light_text, medium_text
 
@@ -104,6 +124,9 @@ def _grating_json(r, rule) -> dict:
             "depth_of_focus_at_least": _dof_limited(m.dof_nm if m else None, rule.focus_span_nm),
             "polarization": rule.exposure.polarization,
             "image_index": rule.exposure.resist_index or rule.exposure.immersion_index,
+            "edge_placement_nm": m.epe_nm if m else None,
+            "sizing": rule.sizing,
+            "bias_nm": m.bias_nm if m and m.sizing else None,
             "threshold": m.threshold if m else None,
             "dose_to_size": m.dose_to_size if m else None,
             "severity": r.severity,
@@ -125,12 +148,18 @@ def cmd_probe(args) -> int:
     if args.pitch_y is not None or args.cd_y is not None:
         return _probe_array(args, rule)
     r = grating(rule, args.pitch, args.cd, args.orientation, args.focus)
+    drawn_rule = _as_drawn(rule)
+    drawn = (
+        None if drawn_rule is None else grating(drawn_rule, args.pitch, args.cd, args.orientation)
+    )
     if args.plot is not None:
         from pitchguard.outputs.plots import plot_image
 
         plot_image(rule, r, args.plot, [args.rules])
     if args.json:
         out = _grating_json(r, rule)
+        if drawn is not None:
+            out["as_drawn"] = _grating_json(drawn, drawn_rule)
         out["focus_nm"] = args.focus
         # The image's own contrast and NILS, at the focus it was taken.
         out["contrast"], out["nils"] = clean_json([r.shown.contrast, r.shown.nils])
@@ -186,9 +215,20 @@ def cmd_probe(args) -> int:
                 f"{m.threshold:.3f} / {number_text(m.dose_to_size, '', 3)}",
             ),
         ]
+        if m.sizing:
+            rows.insert(0, ("mask bias (sized)", _sized_text(m)))
         for k, v in rows:
             console.print(f"  {k:<28} {v}")
     console.print()
+    if drawn is not None:
+        dm = drawn.metrics
+        top = drawn.violations[0].check if drawn.violations else ""
+        console.print(
+            f"  as drawn (no bias): {drawn.severity}{f' ({top})' if top else ''}; printed CD "
+            f"{'lost' if dm.lost else 'bridged' if dm.bridged else number_text(dm.cd_nm, ' nm', 1)}"
+            f", NILS {number_text(dm.nils, '', 2)}, EL {number_text(dm.el_pct, ' %', 1)}"
+        )
+        console.print('  judged as sized (sizing = "retarget"):')
     return _print_verdict(console, r.violations)
 
 
@@ -222,11 +262,21 @@ def cmd_sweep(args) -> int:
     t = Table(
         title=f"{rule.name}: CD {cd:g} nm through pitch", title_justify="left", show_edge=False
     )
-    for col in ("pitch nm", "k1", "contrast", "NILS", "CD err %", "EL %", "DOF nm", "verdict"):
-        t.add_column(col, justify="right" if col != "verdict" else "left")
-    for r in results:
+    drawn_rule = _as_drawn(rule)
+    drawn = None if drawn_rule is None else through_pitch(drawn_rule, cd, pitches, args.orientation)
+    cols = ["pitch nm", "k1", "contrast", "NILS", "CD err %", "EL %", "DOF nm", "verdict"]
+    if drawn is not None:
+        cols[4:5] = ["bias nm"]
+        cols += ["as drawn"]
+    for col in cols:
+        t.add_column(col, justify="left" if col in ("verdict", "as drawn") else "right")
+
+    def verdict(r) -> str:
+        return r.severity if r.severity == "ok" else f"{r.severity} ({r.violations[0].check})"
+
+    for k, r in enumerate(results):
         m = r.metrics
-        t.add_row(
+        row = [
             f"{r.pitch_nm:.1f}",
             f"{r.orders.k1:.3f}",
             number_text(m.contrast if m else None, "", 3),
@@ -234,8 +284,12 @@ def cmd_sweep(args) -> int:
             number_text(m.cd_error_pct if m else None, "", 1),
             number_text(m.el_pct if m else None, "", 1),
             _dof_text(m.dof_nm if m else None, rule.focus_span_nm, ""),
-            r.severity if r.severity == "ok" else f"{r.severity} ({r.violations[0].check})",
-        )
+            verdict(r),
+        ]
+        if drawn is not None:
+            row[4] = number_text(m.bias_nm if m and m.sizing else None, "", 1)
+            row.append(verdict(drawn[k]))
+        t.add_row(*row)
     console.print(t)
     for a, b, sev in bands(results):
         console.print(f"  {sev:<8} pitch {a:.1f} - {b:.1f} nm")
@@ -254,6 +308,14 @@ def cmd_sweep(args) -> int:
                 "caution": CAUTION,
                 "bands": [{"from_nm": a, "to_nm": b, "severity": s} for a, b, s in bands(results)],
                 "pitches": [_grating_json(r, rule) for r in results],
+                "as_drawn": None
+                if drawn is None
+                else {
+                    "bands": [
+                        {"from_nm": a, "to_nm": b, "severity": s} for a, b, s in bands(drawn)
+                    ],
+                    "pitches": [_grating_json(r, drawn_rule) for r in drawn],
+                },
             },
             inputs,
         )

@@ -8,7 +8,7 @@ from dataclasses import dataclass
 
 from pitchguard.deck import SEVERITIES, LayerRule
 from pitchguard.optics.orders import OrderResult
-from pitchguard.optics.resist import Metrics
+from pitchguard.optics.resist import SIZED, UNSIZED, Metrics
 
 OK = len(SEVERITIES)
 """Severity code of a site that passes (codes 0.. are indexes into SEVERITIES)."""
@@ -32,6 +32,9 @@ CHECKS = {
     "edge-placement": "At best focus and nominal dose a printed edge sits further from the "
     "drawn one than edge_placement_max_pct of the drawn CD: the feature prints shifted "
     "or sized.",
+    "sizing-bias": 'Judged as OPC would size it (sizing = "retarget"): the mask bias that '
+    "prints the feature on size at the anchored dose exceeds bias_max_nm (risk), or no "
+    "bias does before a space closes or the feature vanishes (fail).",
     "side-lobe-printing": "The image prints in the space beside a feature, apart from any "
     "feature: at nominal dose and best focus (fail) or within the focus and dose window "
     "(risk).",
@@ -107,6 +110,9 @@ def violations(
     m = metrics
     if m is not None:
         out.extend(printing_violations(m.lost, m.bridged, m.contrast, "runs into its neighbour"))
+        v = sizing_violation(rule, m)
+        if v is not None:
+            out.append(v)
         if m.side_lobe:
             out.append(side_lobe_violation(m))
     if math.isfinite(pitch_wafer):
@@ -151,7 +157,13 @@ def violations(
     return out
 
 
-OVER_LIMIT = ("edge-placement", "cd-error", "side-lobe-printing", "line-end-pullback")
+OVER_LIMIT = (
+    "edge-placement",
+    "cd-error",
+    "side-lobe-printing",
+    "line-end-pullback",
+    "sizing-bias",
+)
 """Checks whose value breaks its limit by exceeding it (the others by falling below)."""
 
 
@@ -169,6 +181,30 @@ def violation_order(v: Violation) -> tuple[int, float]:
     """Worst first: by severity, then the limit broken furthest (a feature printed
     20 nm off place leads with that, not with a NILS just under its band)."""
     return SEVERITIES.index(v.severity), -excess(v)
+
+
+def sizing_violation(rule: LayerRule, m: Metrics) -> Violation | None:
+    """The mask bias a feature judged as sized needs (optics.sizing): none reaches
+    size (fail), or more than the layer allows (risk)."""
+    if m.sizing == UNSIZED:
+        return Violation(
+            "sizing-bias",
+            "fail",
+            abs(m.bias_nm),
+            rule.bias_max_nm,
+            f"no bias of the mask prints the drawn CD at the anchored dose before a space "
+            f"closes or the feature vanishes (stopped at {m.bias_nm:+.1f} nm per edge)",
+        )
+    if m.sizing == SIZED and abs(m.bias_nm) > rule.bias_max_nm:
+        return Violation(
+            "sizing-bias",
+            "risk",
+            abs(m.bias_nm),
+            rule.bias_max_nm,
+            f"the mask needs {m.bias_nm:+.1f} nm per edge to print on size at the anchored "
+            f"dose, beyond bias_max_nm ({rule.bias_max_nm:.1f} nm)",
+        )
+    return None
 
 
 def edge_placement_violation(rule: LayerRule, m: Metrics) -> Violation | None:
@@ -281,6 +317,7 @@ IMAGE_CHECKS = (
     "side-lobe-printing",
     "low-nils",
     "edge-placement",
+    "sizing-bias",
     "low-exposure-latitude",
     "low-depth-of-focus",
     "cd-error",

@@ -87,6 +87,7 @@ class Finding:
     # edge displacement (+ outward).  nan where not measured.
     shift_nm: float = math.nan
     epe_nm: float = math.nan
+    bias_nm: float = math.nan  # mask bias per edge judged as sized (sizing = "retarget")
     violations: tuple[Violation, ...] = ()
     context: str = ""  # worst site's line: interior | outer (last line of an array) | alone
     # The worst site's cut, for pictures: material boundaries (wafer nm, relative

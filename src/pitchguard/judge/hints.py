@@ -278,6 +278,12 @@ def hint_steps(rule: LayerRule, key: tuple):
     placement = more[0] if more else None
     if first == "edge-placement" and placement is not None:
         return placement_advice(feature, angle, scale, placement)
+    if first == "sizing-bias":
+        return (
+            f"move the pitch or the {feature} width towards the layer's anchor geometry, "
+            "where the mask needs less bias; or check with the fab's OPC whether this bias "
+            "is allowed (bias_max_nm)"
+        )
     if first == "unresolvable-pitch":
         need = cutoff_pitch_nm / scale
         return (

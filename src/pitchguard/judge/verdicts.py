@@ -231,6 +231,7 @@ def classify_layer(
             dof_nm=round(m.dof_nm, 1) if m else math.nan,
             shift_nm=round(m.shift_nm, 2) if m else math.nan,
             epe_nm=round(m.epe_nm, 2) if m else math.nan,
+            bias_nm=round(m.bias_nm, 2) if m and m.sizing else math.nan,
             violations=tuple(vs),
             context=context,
             cut_bounds_nm=tuple(round(b * scale_to_wafer, 3) for b in cut.bounds) if cut else (),

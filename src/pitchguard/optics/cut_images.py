@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from functools import lru_cache
 from typing import NamedTuple
 
@@ -20,8 +21,10 @@ from pitchguard.optics.aerial import (
     segment_spectrum,
     source_is_symmetric,
 )
-from pitchguard.optics.resist import Metrics, evaluate
+from pitchguard.optics.axis_batch import cds
+from pitchguard.optics.resist import SIZED, UNSIZED, Metrics, evaluate
 from pitchguard.optics.resist_batch import evaluate_batch
+from pitchguard.optics.sizing import bias_limits, biased_edges, solve_bias
 from pitchguard.optics.source_rims import line_source
 
 BATCH = 256
@@ -64,6 +67,7 @@ def _rule_key(rule: LayerRule, scale_to_wafer: float) -> tuple:
         rule.cd_tolerance_pct,
         rule.el_min_pct,
         rule.resist_blur_nm,
+        rule.sizing,
         scale_to_wafer,
     )
 
@@ -166,6 +170,44 @@ def _centred_grid(period_nm: float, samples: int) -> tuple[np.ndarray, np.ndarra
     return xs, order
 
 
+def _sized_spectra(
+    rule: LayerRule,
+    period: float,
+    n_max: int,
+    geometry: tuple[np.ndarray, np.ndarray, np.ndarray],
+    drawn: np.ndarray,
+    searches: np.ndarray,
+    imaging: tuple,
+    t_nom: float,
+):
+    """Spectra of cuts retargeted as OPC would size them (:mod:`optics.sizing`):
+    ``(spectra, bias, state)``.  ``geometry`` is ``(edges, material, reach)`` of the
+    cuts' segments; ``imaging`` ``(systems at best focus, samples, order, x)``."""
+    edges, material, reach = geometry
+    best_sys, samples, order, x = imaging
+    feat, bg = mask_amplitudes(rule.exposure, rule.field)
+    values = np.where(material, feat, bg)
+    bright = rule.field == "dark"
+    at = np.full((len(drawn), 1), float(t_nom))
+
+    def printed_cd(bias: np.ndarray) -> np.ndarray:
+        spec = segment_spectrum(period, biased_edges(edges, material, bias, reach), values, n_max)
+        img = best_sys.image(spec, samples)[:, order]
+        return cds(x, img, 0.0, searches[:, 0], searches[:, 1], bright, at)[:, 0]
+
+    lo, hi = bias_limits(edges, material, reach)
+    bias, reached = solve_bias(printed_cd, drawn, printed_cd(np.zeros(len(drawn))), lo, hi)
+    spectra = segment_spectrum(period, biased_edges(edges, material, bias, reach), values, n_max)
+    return spectra, bias, np.where(reached, SIZED, UNSIZED)
+
+
+def _with_sizing(ms: list[Metrics], bias: np.ndarray, state: np.ndarray) -> list[Metrics]:
+    return [
+        replace(m, bias_nm=float(b), sizing=int(st))
+        for m, b, st in zip(ms, bias, state, strict=True)
+    ]
+
+
 def measure_cuts(
     cuts: list[Cut], angles_deg: list[float], rule: LayerRule, scale_to_wafer: float
 ) -> list[Metrics]:
@@ -231,11 +273,24 @@ def measure_one(
             segs = [cut_segments(scaled[k], period) for k in idx]
             width = max(len(s[0]) for s in segs)
             edges = np.full((len(idx), width), period / 2)
-            values = np.zeros((len(idx), width - 1), dtype=np.complex128)
+            material = np.zeros((len(idx), width - 1), dtype=bool)
             for r, (ed, mat) in enumerate(segs):
                 edges[r, : len(ed)] = ed
-                values[r, : len(mat)] = np.where(mat, feat, bg)
-            spectra = segment_spectrum(period, edges, values, n_max)
+                material[r, : len(mat)] = mat
+            spectra = segment_spectrum(period, edges, np.where(material, feat, bg), n_max)
+            feats = [scaled[k].feature for k in idx]
+            pts = np.array([[lft, rgt] for lft, rgt in feats])
+            searches = np.array([scaled[k].search for k in idx], dtype=np.float64)
+            at_best = coherent_systems(
+                e, angle, period, n_max, float(focus[best]), rule.resist_blur_nm
+            )
+            sizing = None
+            if rule.sizing == "retarget" and t_nom is not None:
+                reach_c = np.array([scaled[k].reach for k in idx])
+                spectra, *sizing = _sized_spectra(
+                    rule, period, n_max, (edges, material, reach_c), pts[:, 1] - pts[:, 0],
+                    searches, (at_best, samples, order, x), t_nom,
+                )  # fmt: skip
             stack = np.stack(
                 [
                     coherent_systems(e, angle, period, n_max, float(z), rule.resist_blur_nm).image(
@@ -244,18 +299,13 @@ def measure_one(
                     for z in focus
                 ]
             )  # (F, m, X)
-            feats = [scaled[k].feature for k in idx]
-            pts = np.array([[lft, rgt] for lft, rgt in feats])
-            at_best = coherent_systems(
-                e, angle, period, n_max, float(focus[best]), rule.resist_blur_nm
-            )
             i_e, d_e = at_best.at(spectra, pts)
             ms = evaluate_batch(
                 x,
                 stack.transpose(1, 0, 2),
                 focus,
                 pts,
-                np.array([scaled[k].search for k in idx], dtype=np.float64),
+                searches,
                 bright,
                 t_nom,
                 tol,
@@ -264,6 +314,8 @@ def measure_one(
                 np.array([scaled[k].reach for k in idx]),
                 lambda where, sys=at_best, sp=spectra: sys.at(sp, where),
             )
+            if sizing is not None:
+                ms = _with_sizing(ms, *sizing)
             for k, m in zip(idx, ms, strict=True):
                 out[k] = m
     return out  # type: ignore[return-value]
@@ -298,6 +350,9 @@ def grating_metrics(
     spec = grating_spectrum(pitch_nm, cd_nm, feat, bg, n_max)
     focus = np.array(focus_nm if focus_nm is not None else rule.focus_nm)
     best = int(np.argmin(np.abs(focus)))
+    sizing = _sized_gratings(rule, pitch_nm, np.array([cd_nm]), angle_deg, focus[best])
+    if sizing is not None:
+        spec = sizing[0][0]
     stack = np.stack(
         [
             coherent_systems(e, angle_deg, pitch_nm, n_max, float(z), rule.resist_blur_nm).image(
@@ -325,6 +380,8 @@ def grating_metrics(
         (i_e[0], d_e[0]),
         values_at=lambda where: at_best.at(spec, where),
     )
+    if sizing is not None:
+        m = _with_sizing([m], *sizing[1:])[0]
     return m, x, stack[best]
 
 
@@ -344,6 +401,9 @@ def grating_metrics_batch(
     spectra = segment_spectrum(pitch_nm, edges, values, n_max)
     focus = np.array(rule.focus_nm)
     best = int(np.argmin(np.abs(focus)))
+    sizing = _sized_gratings(rule, pitch_nm, cds, angle_deg, focus[best])
+    if sizing is not None:
+        spectra = sizing[0]
     stack = np.stack(
         [
             coherent_systems(e, angle_deg, pitch_nm, n_max, float(z), rule.resist_blur_nm).image(
@@ -357,7 +417,7 @@ def grating_metrics_batch(
         e, angle_deg, pitch_nm, n_max, float(focus[best]), rule.resist_blur_nm
     )
     i_e, d_e = at_best.at(spectra, pts)
-    return evaluate_batch(
+    ms = evaluate_batch(
         x,
         stack.transpose(1, 0, 2),
         focus,
@@ -370,6 +430,25 @@ def grating_metrics_batch(
         (i_e, d_e),
         values_at=lambda where: at_best.at(spectra, where),
     )
+    return ms if sizing is None else _with_sizing(ms, *sizing[1:])
+
+
+def _sized_gratings(rule: LayerRule, pitch_nm: float, cds_nm: np.ndarray, angle_deg, focus_nm):
+    """:func:`_sized_spectra` of ideal gratings of one pitch, or None when the layer
+    is judged as drawn (or has no anchored dose to size at)."""
+    t_nom = anchor_threshold(rule)
+    if rule.sizing != "retarget" or t_nom is None:
+        return None
+    e, n_max, samples, x, order, _, _ = _grating_frame(rule, pitch_nm)
+    h = np.asarray(cds_nm, dtype=np.float64) / 2.0
+    half = np.full_like(h, pitch_nm / 2)
+    edges = np.stack([-half, -h, h, half], axis=1)
+    material = np.broadcast_to(np.array([False, True, False]), (len(h), 3))
+    best_sys = coherent_systems(e, angle_deg, pitch_nm, n_max, float(focus_nm), rule.resist_blur_nm)
+    return _sized_spectra(
+        rule, pitch_nm, n_max, (edges, material, half), 2.0 * h,
+        np.stack([-half, half], axis=1), (best_sys, samples, order, x), t_nom,
+    )  # fmt: skip
 
 
 def cut_image(

@@ -12,6 +12,9 @@ from pitchguard.optics.focus_windows import fine_windows_plain
 from pitchguard.optics.side_lobes import side_lobe_codes
 from pitchguard.optics.window_edges import focus_span, refine_crossing
 
+NOT_SIZED, SIZED, UNSIZED = 0, 1, 2
+"""``Metrics.sizing`` codes."""
+
 THRESHOLD_SAMPLES = 512
 """Thresholds tried per profile when inverting CD(threshold)."""
 
@@ -39,6 +42,11 @@ class Metrics:
     # nominal dose; nan when the feature is lost or bridged).
     epe_left_nm: float = math.nan
     epe_right_nm: float = math.nan
+    # Judged as sized (deck key sizing = "retarget"): the bias each edge of the
+    # mask got (nm, + grows the feature), and whether it prints on size with it
+    # (SIZED) or no bias within the space's room does (UNSIZED); NOT_SIZED as drawn.
+    bias_nm: float = math.nan
+    sizing: int = 0
 
     @property
     def shift_nm(self) -> float:

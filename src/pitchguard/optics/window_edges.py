@@ -34,6 +34,7 @@ def refine_crossing(
     t_in: np.ndarray,
     t_out: np.ndarray,
     bound: np.ndarray,
+    rel_tol: float = CD_TOL,
 ) -> np.ndarray:
     """The threshold between ``t_in`` (CD within tolerance) and ``t_out`` (beyond it)
     where the CD of each of ``rows`` meets ``bound`` (the tolerance's edge it
@@ -41,7 +42,7 @@ def refine_crossing(
 
     ``cd_at(rows, t)`` gives the CD of rows ``rows`` at one threshold each.
     Illinois false position, bisection where the CD is not finite; rows leave the
-    loop once within ``CD_TOL`` of the bound.
+    loop once within ``rel_tol`` of the bound.
     """
     a = np.asarray(t_in, float).copy()
     b = np.asarray(t_out, float).copy()
@@ -51,7 +52,8 @@ def refine_crossing(
     fb = cd_at(rows, b) - bound
     last = np.zeros(len(a), dtype=np.int8)  # which end the previous step kept
     found = np.full(len(a), np.nan)  # where the CD met the bound, either side of it
-    live = np.flatnonzero(np.abs(fa) > CD_TOL * np.abs(bound))
+    tol = np.broadcast_to(np.asarray(rel_tol, float), a.shape)
+    live = np.flatnonzero(np.abs(fa) > tol * np.abs(bound))
     for _ in range(MAX_STEPS):
         if not len(live):
             break
@@ -71,7 +73,7 @@ def refine_crossing(
         b[live] = np.where(keep_b, lb, guess)
         fb[live] = np.where(keep_b, lfb, fg)
         last[live] = np.where(keep_b, 1, -1)
-        met = np.abs(fg) <= CD_TOL * np.abs(bound[live])
+        met = np.abs(fg) <= tol[live] * np.abs(bound[live])
         found[live[met]] = guess[met]
         done = met | (np.abs(b[live] - a[live]) <= 1e-15 * np.abs(a[live]))
         live = live[~done]

@@ -123,6 +123,7 @@ def finding_to_dict(f: Finding, texts: TextTable | None = None) -> dict:
         "depth_of_focus_nm": json_number(f.dof_nm),
         "edge_placement_nm": json_number(f.epe_nm),
         "shift_nm": json_number(f.shift_nm),
+        "mask_bias_nm": json_number(f.bias_nm),
         "worst_line": f.context or None,
         "cut": {
             "bounds_nm": json_numbers(f.cut_bounds_nm),

@@ -138,6 +138,17 @@ _RULE_HELP: dict[str, dict[str, str]] = {
         "OPC would give them), or make the neighbourhood symmetric, for example with a "
         "dummy feature beyond the last line of an array.",
     },
+    "sizing-bias": {
+        "worst": "fail",
+        "flags": 'On layers judged as OPC would size them (sizing = "retarget"): regions '
+        "whose mask needs a bias beyond bias_max_nm per edge to print the drawn width at "
+        "the anchored dose (risk), or where no bias does before a space closes or the "
+        "feature vanishes (fail).",
+        "why": "Every correction costs mask and process margin, and some cannot be made: "
+        "the feature cannot print on size at the layer's dose whatever its mask.",
+        "change": "Move the pitch or width towards the layer's anchor geometry, or agree "
+        "the bias with the fab's OPC.",
+    },
     "side-lobe-printing": {
         "worst": "fail",
         "flags": "Regions where the aerial image prints in the space beside a feature, "

@@ -91,6 +91,18 @@ def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
             if math.isfinite(f.cd_error_pct)
             else "not judged (no dose anchor, or not printed)",
         ),
+        (
+            "edge placement (wafer)",
+            f"{html_number(f.epe_nm, '+.1f')} nm at the worse edge (+ outward), centre "
+            f"{html_number(f.shift_nm, '+.1f')} nm along the cut"
+            if math.isfinite(f.epe_nm)
+            else "not measured",
+        ),
+        *(
+            [("mask bias (judged as sized)", f"{html_number(f.bias_nm, '+.1f')} nm per edge")]
+            if math.isfinite(f.bias_nm)
+            else []
+        ),
         ("lines, sites", f"{f.lines} lines ({esc(f.periodicity)}), {f.sites} sites"),
         ("line direction", f"{degrees_text(f.orientation_deg)} (0° = along x)"),
         (
@@ -115,6 +127,7 @@ def _numbers_html(f: Finding, rule: LayerRule | None, scale: float) -> str:
 _LINE_ROWS = (
     "width / space (drawn)",
     "diffraction orders captured",
+    "edge placement (wafer)",
     "lines, sites",
     "line direction",
     "worst line",

@@ -44,9 +44,11 @@ def _groups_text(n: int) -> str:
 
 CAVEATS = (
     "The pictures and numbers below image a 1-D cut through each line region, the periodic "
-    "cell of each array and a 2-D clip around each line end, and print them with a constant "
-    "threshold (on the image blurred by the layer's resist_blur_nm, if set): polarisation, "
-    "mask 3-D, resist chemistry beyond that blur, aberration and OPC are not modelled."
+    "cell of each array and a 2-D clip around each line end, with each exposure's light as "
+    "the deck states it, and print them with a constant threshold (on the image blurred by "
+    "the layer's resist_blur_nm, if set): film-stack reflections, mask 3-D, resist chemistry "
+    "beyond that blur and aberrations are not modelled, and the mask is judged as drawn "
+    "unless the layer asks for a 1-D sizing (sizing = \"retarget\")."
 )
 
 
