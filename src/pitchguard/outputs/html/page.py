@@ -48,7 +48,7 @@ CAVEATS = (
     "the deck states it, and print them with a constant threshold (on the image blurred by "
     "the layer's resist_blur_nm, if set): film-stack reflections, mask 3-D, resist chemistry "
     "beyond that blur and aberrations are not modelled, and the mask is judged as drawn "
-    "unless the layer asks for a 1-D sizing (sizing = \"retarget\")."
+    'unless the layer asks for a 1-D sizing (sizing = "retarget").'
 )
 
 
