@@ -147,3 +147,16 @@ def test_a_real_mask_images_alike_at_plus_and_minus_focus():
     plain_minus = abbe_image_2d(spec, orders, Optics.of(e), src, -z, xx, yy)
     np.testing.assert_allclose(plain_plus, plain_minus, atol=1e-12)
     assert np.ptp(plain_plus) > 0.1  # a real image, not a flat field
+
+
+@pytest.mark.parametrize("gap", [120.0, 160.0])
+def test_a_printed_gap_between_two_tips_opens_by_both_pullbacks(gap):
+    # Geometry: two equal lines end to end, mirror images about the gap's middle,
+    # pull back equally, so the gap prints its drawn width plus twice one tip's
+    # pullback (to the sampling step along the axis, lambda/NA / 32).
+    rule = _rule("clear")
+    rects = np.array([(-600, -45, 0, 45), (gap, -45, gap + 600, 45)], dtype=np.float64)
+    m = tip_metrics(rule, rects, 90.0, gap, 600.0, 0.0)
+    assert not m.closed_at_best and m.pullback_nm > 1.0
+    step = rule.exposure.lambda_over_na_nm / 32
+    assert m.gap_printed_nm == pytest.approx(gap + 2 * m.pullback_nm, abs=step)

@@ -34,7 +34,7 @@ class TipShape(NamedTuple):
 
     kind: str  # tip-to-tip | tip-to-side
     pullback_nm: float  # drawn minus printed tip at best focus, wafer (+ = short; nan: closed)
-    gap_printed_nm: float  # unprinted length in front of the tip at best focus, wafer
+    gap_printed_nm: float  # printed tip to what it faces as printed, best focus, wafer
     closes_at_focus_nm: float  # least defocus at which the gap closes (nan: never in range)
     angle_deg: float  # the tip's outward direction in the layout (the clip frame's x axis)
     rects_nm: tuple[tuple[float, float, float, float], ...]  # the clip, tip frame, drawn

@@ -49,7 +49,7 @@ class TipMetrics:
     threshold: float
     body_printed: bool  # the line prints where it is sized; else nothing is judged
     pullback_nm: float  # drawn tip minus printed tip at best focus (+ = short)
-    gap_printed_nm: float  # the unprinted length in front of the tip at best focus
+    gap_printed_nm: float  # the printed gap: from the printed tip to what it faces, best focus
     closed_at_best: bool  # the printed line runs into the facing shape
     closes_at_focus_nm: float  # least |focus| in the range at which it does; nan: never
     nils: float  # at the drawn tip along the axis, normalised by the line's width
@@ -106,11 +106,14 @@ def tip_metrics(
     bright = rule.field == "dark"
     x_body = -min(BODY_LAMBDA_NA * lam_na, 0.5 * side_nm)
     step = lam_na / ROW_STEPS_PER_LAMBDA_NA
-    xs = np.arange(x_body, gap_nm, step)
+    # Along the axis from inside the line, across the gap and as far into what it
+    # faces: the far side's own pullback opens the gap too.
+    xs_all = np.arange(x_body, gap_nm - x_body, step)
+    xs = xs_all[xs_all < gap_nm]  # the tip and the gap: what is judged
     h = 0.5 * width_nm
     # The axis, the two body edge points, and the tip.
-    px = np.r_[xs, x_body, x_body] - cx
-    py = np.r_[np.zeros(len(xs)), -h, h] - cy
+    px = np.r_[xs, x_body, x_body, xs_all[len(xs) :]] - cx
+    py = np.r_[np.zeros(len(xs)), -h, h, np.zeros(len(xs_all) - len(xs))] - cy
     focus = np.asarray(rule.focus_nm, dtype=np.float64)
     best = int(np.argmin(np.abs(focus)))
     images = PointImages(
@@ -122,7 +125,7 @@ def tip_metrics(
 
     inten = image(best)
     t_anchor = anchor_threshold(rule)
-    t = float(np.mean(inten[-2:])) if t_anchor is None else t_anchor
+    t = float(np.mean(inten[len(xs) : len(xs) + 2])) if t_anchor is None else t_anchor
     sign = 1.0 if bright else -1.0
 
     def margin(row: np.ndarray) -> np.ndarray:
@@ -130,6 +133,7 @@ def tip_metrics(
 
     row = inten[: len(xs)]
     m = margin(row)
+    m_all = np.r_[m, margin(inten[len(xs) + 2 :])]
     i_tip, d_tip, _ = images.at(float(focus[best]), [-cx], [-cy])
     nils = width_nm * abs(float(d_tip[0])) / float(i_tip[0]) if i_tip[0] > 0 else 0.0
     lo, hi = float(row.min()), float(row.max())
@@ -139,6 +143,12 @@ def tip_metrics(
     off = np.flatnonzero(m <= 0)
     closed = not len(off)
     pullback = math.nan if closed else -_crossing(xs, m, int(off[0]))
+    gap_printed = math.nan
+    if not closed:
+        # The unprinted run that starts at the tip, to where printing starts again.
+        after = np.flatnonzero(m_all[off[0] :] > 0)
+        far = _crossing(xs_all, m_all, int(off[0] + after[0])) if len(after) else xs_all[-1]
+        gap_printed = float(far) + pullback
     closes_at = 0.0 if closed else math.nan
     if not closed:
         # A real mask under a point-symmetric source images alike at +z and -z
@@ -156,7 +166,7 @@ def tip_metrics(
         threshold=t,
         body_printed=True,
         pullback_nm=pullback,
-        gap_printed_nm=float(len(off) * step),
+        gap_printed_nm=float(gap_printed),
         closed_at_best=closed,
         closes_at_focus_nm=closes_at,
         nils=nils,
