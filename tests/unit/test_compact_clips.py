@@ -35,6 +35,7 @@ from pitchguard.judge.compact_clips import judge_alone
 from pitchguard.layout.polygons import PolygonSet
 from pitchguard.optics.cells2d import array_cell
 from pitchguard.optics.compact_clips import alone_metrics, alone_metrics_batch, feature_cell
+from pitchguard.optics.point_images import KERNEL_TOL
 from pitchguard.optics.resist2d import cell_metrics
 
 DIRS = ((-1, -1), (1, -1), (1, 1), (-1, 1))
@@ -84,7 +85,12 @@ def test_the_clip_turns_the_source_with_the_feature():
     a = alone_metrics(m1, rects, (w, w), 0.0)
     b = alone_metrics(m1, rects, (w, w), 90.0)
     pa = alone_metrics(m1, rects, (w, w), 90.0, plain=True)
-    assert (b.size_x_nm, b.missing) == pytest.approx((pa.size_x_nm, pa.missing), abs=0.5)
+    # The fast path holds the image to KERNEL_TOL, which moves a printed edge by at
+    # most KERNEL_TOL / slope = KERNEL_TOL w / (NILS T): up to about 1 nm on this
+    # dim clip (the x dipole turned across a 90 nm hole; threshold 0.028).
+    bound = 2 * KERNEL_TOL * w / (pa.nils_x * pa.threshold)
+    assert b.missing == pa.missing
+    assert b.size_x_nm == pa.size_x_nm or abs(b.size_x_nm - pa.size_x_nm) <= bound
     assert not math.isclose(a.contrast, b.contrast, abs_tol=1e-3)
 
 

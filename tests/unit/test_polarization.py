@@ -311,3 +311,26 @@ def test_turning_the_frame_turns_linear_light_with_it():
     b = abbe_image(spec, pitch, Optics.of(e_y), source_points(e_y, 0.0), 0.0, x, 0.0)
     assert np.max(np.abs(a - b)) < 1e-9
     assert math.isfinite(a.sum())
+
+
+@pytest.mark.parametrize(
+    ("shape", "light", "angle"), [("dipole", "y", 0.0), ("annular", "x", 90.0)]
+)
+def test_a_1d_source_folded_about_the_pitch_normal_images_as_the_whole(shape, light, angle):
+    from pitchguard.optics.aerial import PupilFrame
+    from pitchguard.optics.source_rims import line_source
+
+    e = _exposure(shape, light)
+    optics, pitch = Optics.of(e), 160.0
+    n_max = n_orders(pitch, optics, e.sigma_max)
+    src = line_source(e, angle, pitch, n_max)
+    folded = PupilFrame(optics, src, pitch, n_max, angle)
+    whole = PupilFrame(optics, src, pitch, n_max, angle, fold=False)
+    assert folded.folds == (0,) and whole.folds == ()
+    spec = segment_spectrum(
+        pitch, np.array([-80.0, -50.0, 10.0, 30.0, 80.0]), np.array([0, 1, 0, 1j]), n_max
+    )
+    for z in (0.0, 45.0):
+        a = CoherentSystems.from_frame(folded, pitch, n_max, z).image(spec, 64)
+        b = CoherentSystems.from_frame(whole, pitch, n_max, z).image(spec, 64)
+        assert np.max(np.abs(a - b)) < 1e-12

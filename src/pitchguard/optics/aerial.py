@@ -18,6 +18,7 @@ from pitchguard.optics.polarization import (
     mirror_symmetric,
     turns_with_frame,
 )
+from pitchguard.optics.source_folding import fold_source, unfold_tcc
 
 IMAGE_SOURCE_STEP = 0.02
 """Source sampling step (sigma units) for imaging: cells the source's edge cuts are
@@ -248,10 +249,14 @@ class PupilFrame:
         period_nm: float,
         n_max: int,
         angle_deg: float = 0.0,
+        fold: bool = True,
     ):
         if mirror_symmetric(optics.polarization, angle_deg):
             src = merge_mirrored(src)
-        pts, w = src
+        # A source symmetric about the pitch's normal too keeps half its points
+        # (source_folding; the orders n and -n swap).
+        pts, w, self.folds = fold_source(*src, optics.polarization, angle_deg, fold)
+        self.n_max = n_max
         fn = np.arange(-n_max, n_max + 1) / period_nm
         fx = fn[None, :] + pts[:, 0:1] * optics.cutoff
         fy = np.broadcast_to(pts[:, 1:2] * optics.cutoff, fx.shape)
@@ -331,6 +336,9 @@ class CoherentSystems:
         # rows of V^H (an SVD of A gives the same, far slower on these mostly
         # zero matrices).
         tcc = a.conj().T @ a
+        if frame.folds:
+            n = np.arange(-n_max, n_max + 1)
+            tcc = unfold_tcc(tcc, n, np.zeros_like(n), frame.folds)
         if blur_nm > 0:
             fn = np.arange(-n_max, n_max + 1) / period_nm
             tcc = tcc * blur_factors(fn[:, None] - fn[None, :], blur_nm)

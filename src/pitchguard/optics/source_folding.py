@@ -45,12 +45,12 @@ def _mirrors_onto_itself(pts: np.ndarray, w: np.ndarray, axis: int) -> bool:
 
 
 def fold_source(
-    pts: np.ndarray, w: np.ndarray, polarization: str, angle_deg: float
+    pts: np.ndarray, w: np.ndarray, polarization: str, angle_deg: float, fold: bool = True
 ) -> tuple[np.ndarray, np.ndarray, tuple[int, ...]]:
     """``(points, weights, axes)``: the source folded about each frame axis it is
     mirror-symmetric about (``1``: ``sy -> -sy``, ``0``: ``sx -> -sx``); points on a
     fold line keep half their weight.  ``axes`` is empty when nothing folds."""
-    if len(w) < 2 or not mirror_symmetric(polarization, angle_deg):
+    if not fold or len(w) < 2 or not mirror_symmetric(polarization, angle_deg):
         return pts, w, ()
     axes = []
     for axis in (1, 0):
