@@ -67,7 +67,7 @@ def scan(layout: Path, deck_text: str, work: Path, name: str) -> dict:
     deck.write_text(deck_text)
     report = work / f"{name}.json"
     cmd = [sys.executable, "-m", "pitchguard", "scan", str(layout), "--rules", str(deck)]
-    subprocess.run([*cmd, "-q", "--json", str(report)], check=False)
+    subprocess.run([*cmd, "-q", "--json", str(report), "--json-inline-texts"], check=False)
     return json.loads(report.read_text())
 
 
