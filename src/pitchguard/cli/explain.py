@@ -35,6 +35,12 @@ def _sized_text(m) -> str:
     return f"{m.bias_nm:+.1f} nm per edge{reach}"
 
 
+def markup_safe(text) -> str:
+    from pitchguard.outputs.texts import markup_safe as safe
+
+    return safe(text)
+
+
 def _light(exposure) -> str:
     from pitchguard.outputs.texts import light_text, medium_text
 
@@ -61,7 +67,10 @@ def cmd_rules_check(args) -> int:
         if deck.drawn_scale == "mask"
         else "drawn at wafer scale"
     )
-    console.print(f"{args.deck}: valid deck '{deck.name}', {len(deck.layers)} layers, {scale}")
+    console.print(
+        f"{markup_safe(args.deck)}: valid deck '{markup_safe(deck.name)}', "
+        f"{len(deck.layers)} layers, {scale}"
+    )
     t = Table(show_edge=False)
     for col in (
         "layer",
@@ -85,7 +94,7 @@ def cmd_rules_check(args) -> int:
             r.name,
             r.source,
             r.field,
-            r.exposure_name,
+            markup_safe(r.exposure_name),
             f"{e.wavelength_nm:g}",
             f"{e.na:g}",
             f"{e.sigma_max:g}",
@@ -171,7 +180,7 @@ def cmd_probe(args) -> int:
     e = rule.exposure
     ill = e.illumination
     console.print(
-        f"[bold]{rule.name}[/] ({rule.field} field) on {rule.exposure_name}: "
+        f"[bold]{rule.name}[/] ({rule.field} field) on {markup_safe(rule.exposure_name)}: "
         f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {ill.shape} σmax {e.sigma_max:g}, "
         f"{e.mask.kind} mask, {_light(e)}"
     )
@@ -394,7 +403,7 @@ def _probe_array(args, rule) -> int:
     e = rule.exposure
     feature = "posts" if rule.field == "clear" else "holes"
     console.print(
-        f"[bold]{rule.name}[/] ({rule.field} field) on {rule.exposure_name}: "
+        f"[bold]{rule.name}[/] ({rule.field} field) on {markup_safe(rule.exposure_name)}: "
         f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {e.illumination.shape}, {e.mask.kind} mask, "
         f"{_light(e)}"
     )

@@ -159,6 +159,7 @@ def cmd_scan(args) -> int:
     _check_outputs(args, inputs)
     entries = load_baseline(args.baseline) if args.baseline else None
     from pitchguard.outputs.baseline import accepted_to_dict, entry_text
+    from pitchguard.outputs.texts import printable
 
     result = _run_scan(args, deck, args.layout)
     gate = None
@@ -204,14 +205,17 @@ def cmd_scan(args) -> int:
         print_table(out, shown, args.fail_on, top=args.top)
         if gate is not None:
             out.print(
-                f"baseline {args.baseline}: {len(gate.new)} new placement(s) shown above, "
+                f"baseline {printable(args.baseline)}: {len(gate.new)} new placement(s) "
+                "shown above, "
                 f"{gate.accepted_placements} accepted by {len(gate.accepted)} "
                 f"entr{'y' if len(gate.accepted) == 1 else 'ies'}, "
                 f"{len(gate.stale)} stale",
                 markup=False,
             )
             for e in gate.stale[:20]:  # cell names are the user's: no markup
-                out.print(f"  stale (fixed since, prune it): {entry_text(e)}", markup=False)
+                out.print(
+                    f"  stale (fixed since, prune it): {printable(entry_text(e))}", markup=False
+                )
     return code
 
 
@@ -222,6 +226,7 @@ def cmd_diff(args) -> int:
     from pitchguard.outputs.baseline import diff, unit_text
     from pitchguard.outputs.json_report import entry_to_dict
     from pitchguard.outputs.table import one_line_summary, print_table
+    from pitchguard.outputs.texts import printable
     from pitchguard.outputs.verdict import exit_code
 
     deck = load_deck(args.rules)
@@ -253,7 +258,7 @@ def cmd_diff(args) -> int:
 
     _write_outputs(args, shown, deck, inputs, extra)
     line = (
-        f"diff {args.base} -> {args.new}: {len(d.introduced)} introduced, "
+        f"diff {printable(args.base)} -> {printable(args.new)}: {len(d.introduced)} introduced, "
         f"{d.fixed_placements} fixed, {d.unchanged_placements} unchanged"
     )
     if args.quiet:
@@ -263,5 +268,5 @@ def cmd_diff(args) -> int:
         print_table(out, shown, args.fail_on, top=args.top)
         out.print(line, markup=False)
         for c in d.fixed[:20]:  # cell names are the user's: no markup
-            out.print(f"  fixed: {unit_text(c)} (base)", markup=False)
+            out.print(f"  fixed: {printable(unit_text(c))} (base)", markup=False)
     return exit_code(d.introduced, args.fail_on)

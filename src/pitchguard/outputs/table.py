@@ -31,10 +31,10 @@ def one_line_summary(result: ScanResult, fail_on: str) -> str:
 
 def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> None:
     """Counts per layer and severity, then the worst regions."""
-    from rich.markup import escape
     from rich.table import Table
 
     from pitchguard.judge.per_cell import cell_findings
+    from pitchguard.outputs.texts import markup_safe
 
     counts = Table(title="Findings per layer", title_justify="left", show_edge=False)
     counts.add_column("layer")
@@ -92,8 +92,8 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
             worst.add_row(
                 str(k),
                 f"[{SEVERITY_STYLE[f.severity]}]{f.severity}[/]",
-                escape(f.layer),
-                escape(c.cell or "-"),
+                markup_safe(f.layer),
+                markup_safe(c.cell or "-"),
                 f"{c.placements:,}",
                 f"{cx:.3f}, {cy:.3f}",
                 f"{f.pitch_nm:.1f}" if math.isfinite(f.pitch_nm) else "isolated",

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 
 from pitchguard.deck import SEVERITIES
 from pitchguard.judge.findings import CLIP_KINDS, Finding, box_um
@@ -205,3 +206,25 @@ def medium_text(exposure) -> str:
     if exposure.resist_index:
         return f"in resist n {exposure.resist_index:g}"
     return f"in n {exposure.immersion_index:g}"
+
+
+_CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u200e\u200f\u202a-\u202e\u2066-\u2069]")
+
+
+def printable(text: object) -> str:
+    """Text from a user's files (deck and cell names, paths, baseline entries) as a
+    terminal may show it: control characters (escape sequences, bidi overrides)
+    written as ``\\xNN`` / ``\\uNNNN``, so they cannot move the cursor or recolour."""
+
+    def code(m: re.Match) -> str:
+        n = ord(m.group())
+        return f"\\x{n:02x}" if n < 0x100 else f"\\u{n:04x}"
+
+    return _CONTROL.sub(code, str(text))
+
+
+def markup_safe(text: object) -> str:
+    """:func:`printable` with rich's markup escaped too (``[/]`` shows as itself)."""
+    from rich.markup import escape
+
+    return escape(printable(text))
