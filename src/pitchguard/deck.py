@@ -181,6 +181,11 @@ class Exposure(_Model):
         return self
 
     @property
+    def image_index(self) -> float:
+        """Index of the medium the image forms in: the resist's, else the immersion's."""
+        return self.resist_index or self.immersion_index
+
+    @property
     def lambda_over_na_nm(self) -> float:
         return self.wavelength_nm / self.na
 

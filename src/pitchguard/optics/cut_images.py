@@ -190,10 +190,13 @@ def _sized_spectra(
     bright = rule.field == "dark"
     at = np.full((len(drawn), 1), float(t_nom))
 
-    def printed_cd(bias: np.ndarray) -> np.ndarray:
-        spec = segment_spectrum(period, biased_edges(edges, material, bias, reach), values, n_max)
-        img = best_sys.image(spec, samples)[:, order]
-        return cds(x, img, 0.0, searches[:, 0], searches[:, 1], bright, at)[:, 0]
+    def printed_cd(bias: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
+        """The CD each cut (or each of ``rows``, one bias each) prints with ``bias``."""
+        r = slice(None) if rows is None else rows
+        moved = biased_edges(edges[r], material[r], bias, reach[r])
+        img = best_sys.image(segment_spectrum(period, moved, values[r], n_max), samples)
+        lo_hi = searches[r]
+        return cds(x, img[:, order], 0.0, lo_hi[:, 0], lo_hi[:, 1], bright, at[r])[:, 0]
 
     lo, hi = bias_limits(edges, material, reach)
     bias, reached = solve_bias(printed_cd, drawn, printed_cd(np.zeros(len(drawn))), lo, hi)

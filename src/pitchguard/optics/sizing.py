@@ -80,7 +80,8 @@ def bias_limits(
 
 def solve_bias(printed_cd, drawn: np.ndarray, cd0: np.ndarray, lo: np.ndarray, hi: np.ndarray):
     """The bias per cut (``lo <= b <= hi``) at which ``printed_cd(b)`` ``(C,)`` meets
-    ``drawn``; ``cd0`` is the printed CD without bias.  Returns ``(bias, reached)``:
+    ``drawn`` (``printed_cd(b, rows)``: the CD of ``rows`` alone, one bias each);
+    ``cd0`` is the printed CD without bias.  Returns ``(bias, reached)``:
     ``reached`` is False where no bias within the bounds prints within
     ``REACH_NM`` of size (a space would close, a feature vanish, or the CD
     never gets there); the bias is then the bound tried.
@@ -92,11 +93,7 @@ def solve_bias(printed_cd, drawn: np.ndarray, cd0: np.ndarray, lo: np.ndarray, h
     rows = np.arange(len(drawn))
 
     def cd_at(rr, b):
-        out = np.full(len(drawn), np.nan)
-        full = np.zeros(len(drawn))
-        full[rr] = b
-        out[rr] = printed_cd(full)[rr]
-        return out[rr]
+        return printed_cd(np.asarray(b, dtype=np.float64), rr)
 
     f0 = _residual(cd0, drawn)
     grow = f0 < 0

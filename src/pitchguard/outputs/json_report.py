@@ -39,7 +39,7 @@ def _light(exposure) -> dict:
     """The light a layer is imaged with: its polarisation and the medium's index."""
     return {
         "polarization": exposure.polarization,
-        "image_index": exposure.resist_index or exposure.immersion_index,
+        "image_index": exposure.image_index,
     }
 
 
