@@ -27,6 +27,28 @@ DRY_ARF_DECK = textwrap.dedent(
     field = "clear"
     """
 )
+DRY_ARF_METAL1_DECK = DRY_ARF_DECK.replace(
+    'name = "poly"\nsource = "7/0"', 'name = "metal1"\nsource = "17/0"'
+)
+"""The same exposure judging metal1 (17/0): 35/35 nm lines there fail."""
+
+POLY_ORDERS_DECK = textwrap.dedent(
+    """
+    [exposures.a]
+    wavelength_nm = 193.0
+    na = 0.93
+    illumination = { shape = "conventional", sigma = 0.8 }
+    [layer_defaults]
+    image_checks = false
+    [[layers]]
+    name = "poly"
+    source = "7/0"
+    exposure = "a"
+    field = "clear"
+    """
+)
+"""Dry ArF, poly (7/0) judged by orders and k1 only: fast scans of test layouts."""
+
 DRY_ARF_CUTOFF_NM = 193.0 / (0.93 * 1.8)
 
 # The benchmark chip's deck (tests/benchmarks/, chips.py): ArF immersion, annular

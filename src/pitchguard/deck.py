@@ -11,8 +11,6 @@ are then divided by the reduction before any optics is applied.
 
 from __future__ import annotations
 
-import math
-import re
 import tomllib
 from pathlib import Path
 from typing import Annotated, Literal
@@ -27,25 +25,39 @@ from pydantic import (
     model_validator,
 )
 
-from pitchguard.deck_messages import KeyedError, resist_index_message, validation_message
-from pitchguard.errors import DeckError, read_input_text
+from pitchguard.deck_bounds import (
+    MAX_ANGLE_DEG,
+    MAX_DENSE_LINES,
+    MAX_LENGTH_NM,
+    MAX_NESTING,
+    MIN_NA,
+    MIN_SOURCE_WIDTH,
+    bounded,
+    layer_problems,
+    length,
+    source_width_problem,
+)
+from pitchguard.deck_messages import (
+    KeyedError,
+    deck_error,
+    resist_index_message,
+    validation_messages,
+)
+from pitchguard.errors import DeckError, nesting_depth, read_input_text
+from pitchguard.layer_rule import (  # noqa: F401  (re-exported: the deck's public names)
+    BIAS_LAMBDA_NA,
+    COMPACT_LAMBDA_NA,
+    INTERACTION_RANGE_LAMBDA_NA,
+    LIMIT_DEFAULTS,
+    MIN_RUN_LAMBDA_NA,
+    PULLBACK_LAMBDA_NA,
+    LayerRule,
+    parse_layer_spec,
+    quarter_wave_focus_nm,
+)
 
 SEVERITIES = ("fail", "risk", "marginal")
 """Finding severities, worst first."""
-
-_LAYER_SPEC = re.compile(r"^\s*(\d+)\s*/\s*(\d+)\s*$")
-_MAX_GDS_LAYER = 65535
-
-
-def parse_layer_spec(text: str) -> tuple[int, int]:
-    """Parse ``"L/D"`` into ``(layer, datatype)``; raise ValueError otherwise."""
-    m = _LAYER_SPEC.match(text)
-    if not m:
-        raise ValueError(f'expected "LAYER/DATATYPE" such as "7/0", got {text!r}')
-    layer, datatype = int(m.group(1)), int(m.group(2))
-    if layer > _MAX_GDS_LAYER or datatype > _MAX_GDS_LAYER:
-        raise ValueError(f"layer and datatype must be 0..{_MAX_GDS_LAYER}, got {text!r}")
-    return layer, datatype
 
 
 def _layer_spec_text(v: str) -> str:
@@ -61,10 +73,14 @@ class _Model(BaseModel):
     model_config = ConfigDict(extra="forbid", strict=True, frozen=True, allow_inf_nan=False)
 
 
-Sigma = Annotated[float, Field(ge=0.0, le=1.0)]
+_PUPIL = "sigma is a fraction of the pupil's radius"
+Sigma = Annotated[float, bounded(0.0, 1.0, why=_PUPIL, hi_open=True)]
+SigmaOuter = Annotated[float, bounded(MIN_SOURCE_WIDTH, 1.0, why=_PUPIL)]
 
 # Photoresists and top coats at DUV wavelengths lie near 1.5-1.8 (common practice).
-ResistIndex = Annotated[float, Field(ge=1.0, le=2.5)]
+ResistIndex = Annotated[
+    float, bounded(1.0, 2.5, why="resists and top coats lie near 1.5-1.8 (common practice)")
+]
 
 
 class Coherent(_Model):
@@ -77,12 +93,20 @@ class Conventional(_Model):
     """A uniform disc of radius ``sigma`` (in units of NA)."""
 
     shape: Literal["conventional"]
-    sigma: Annotated[float, Field(gt=0.0, le=1.0)]
+    sigma: Annotated[
+        float,
+        bounded(
+            MIN_SOURCE_WIDTH,
+            1.0,
+            why=f"{_PUPIL}, and the source sampling resolves discs of radius "
+            f'{MIN_SOURCE_WIDTH:g} and more (use shape = "coherent" for a point source)',
+        ),
+    ]
 
 
 class _Ring(_Model):
     sigma_inner: Sigma
-    sigma_outer: Annotated[float, Field(gt=0.0, le=1.0)]
+    sigma_outer: SigmaOuter
 
     @model_validator(mode="after")
     def _inner_below_outer(self):
@@ -91,7 +115,25 @@ class _Ring(_Model):
                 "sigma_inner",
                 f"{self.sigma_inner} must be below sigma_outer ({self.sigma_outer})",
             )
+        width = source_width_problem(
+            "the ring (sigma_outer - sigma_inner)", self.sigma_outer - self.sigma_inner
+        )
+        if width:
+            raise KeyedError("sigma_inner", width)
         return self
+
+    def _pole_width(self):
+        # The pole's arc at the outer rim, the width optics.orders.cell_step samples.
+        import math
+
+        arc = self.sigma_outer * math.radians(self.opening_deg)
+        problem = source_width_problem("each pole's arc (sigma_outer x opening)", arc)
+        if problem:
+            raise KeyedError("opening_deg", problem)
+        return self
+
+
+_OPENING = "a pole is a sector of the ring"
 
 
 class Annular(_Ring):
@@ -108,8 +150,12 @@ class Dipole(_Ring):
     """
 
     shape: Literal["dipole"]
-    opening_deg: Annotated[float, Field(gt=0.0, le=180.0)]
+    opening_deg: Annotated[float, bounded(0.0, 180.0, why=_OPENING, lo_open=True)]
     axis: Literal["x", "y"]
+
+    @model_validator(mode="after")
+    def _poles_sampled(self):
+        return self._pole_width()
 
 
 class Quadrupole(_Ring):
@@ -121,8 +167,21 @@ class Quadrupole(_Ring):
     """
 
     shape: Literal["quadrupole"]
-    opening_deg: Annotated[float, Field(gt=0.0, le=90.0)]
-    rotation_deg: float = 45.0
+    opening_deg: Annotated[
+        float, bounded(0.0, 90.0, why=f"{_OPENING}, four to a turn", lo_open=True)
+    ]
+    rotation_deg: Annotated[
+        float,
+        bounded(
+            -MAX_ANGLE_DEG,
+            MAX_ANGLE_DEG,
+            why="an angle of at most a turn either way (a larger one keeps no precision)",
+        ),
+    ] = 45.0
+
+    @model_validator(mode="after")
+    def _poles_sampled(self):
+        return self._pole_width()
 
 
 Illumination = Annotated[
@@ -149,7 +208,16 @@ class AttenuatedMask(_Model):
     """Attenuated phase shift: dark areas pass ``transmission`` (intensity) at 180 degrees."""
 
     kind: Literal["attenuated"]
-    transmission: Annotated[float, Field(gt=0.0, lt=1.0)]
+    transmission: Annotated[
+        float,
+        bounded(
+            0.0,
+            1.0,
+            why="a fraction of the clear area's intensity (1 would make dark areas clear)",
+            lo_open=True,
+            hi_open=True,
+        ),
+    ]
 
 
 Mask = Annotated[BinaryMask | AttenuatedMask, Field(discriminator="kind")]
@@ -158,9 +226,27 @@ Mask = Annotated[BinaryMask | AttenuatedMask, Field(discriminator="kind")]
 class Exposure(_Model):
     """One scanner set-up: wavelength, numerical aperture, source and mask."""
 
-    wavelength_nm: Annotated[float, Field(gt=1.0, le=1000.0)]
-    na: Annotated[float, Field(gt=0.0, le=2.0)]
-    immersion_index: Annotated[float, Field(ge=1.0, le=2.0)] = 1.0
+    wavelength_nm: Annotated[
+        float,
+        bounded(
+            1.0,
+            1000.0,
+            why="lithography uses light from soft X-rays to the near UV",
+            lo_open=True,
+        ),
+    ]
+    na: Annotated[
+        float,
+        bounded(
+            MIN_NA,
+            2.0,
+            why="projection lenses for lithography start near NA 0.1, and every window "
+            "imaged is sized in lambda/NA",
+        ),
+    ]
+    immersion_index: Annotated[
+        float, bounded(1.0, 2.0, why="air is 1, water 1.44 at 193 nm; no fluid in use reaches 2")
+    ] = 1.0
     illumination: Illumination
     mask: Mask = BinaryMask(kind="binary")
     # The light's polarisation (optics.polarization): it decides the image above NA ~0.7.
@@ -202,14 +288,39 @@ class Exposure(_Model):
 class Anchor(_Model):
     """The feature printed on size at the nominal dose: a grating of this pitch and CD."""
 
-    pitch_nm: Annotated[float, Field(gt=0.0)]
-    cd_nm: Annotated[float, Field(gt=0.0)]
+    pitch_nm: Annotated[float, length()]
+    cd_nm: Annotated[float, length()]
 
     @model_validator(mode="after")
     def _cd_inside_pitch(self):
         if self.cd_nm >= self.pitch_nm:
             raise KeyedError("cd_nm", f"{self.cd_nm} must be below pitch_nm ({self.pitch_nm})")
         return self
+
+
+_NM = "a length in nm at wafer scale, at most a centimetre (beyond any exposure field)"
+Length = Annotated[float, length()]
+K1 = Annotated[
+    float,
+    bounded(
+        0.0,
+        2.0,
+        why="k1 = pitch NA / (2 lambda): no pitch images below 0.25, and 2 is a pitch of "
+        "4 lambda/NA",
+        lo_open=True,
+        hi_open=True,
+    ),
+]
+Nils = Annotated[
+    float,
+    bounded(
+        0.0, 20.0, why="NILS of printable edges lies below 20 (2 is comfortable)", hi_open=True
+    ),
+]
+_DOSE_PCT = "a percentage of the dose"
+CdPct = Annotated[
+    float, bounded(0.0, 100.0, why="a percentage of the CD", lo_open=True, hi_open=True)
+]
 
 
 class Limits(_Model):
@@ -274,29 +385,52 @@ class Limits(_Model):
       dose and the through-pitch CD error is not judged.
     """
 
-    k1_risk_below: Annotated[float, Field(gt=0.0, lt=2.0)] | None = None
-    k1_marginal_below: Annotated[float, Field(gt=0.0, lt=2.0)] | None = None
-    min_run_nm: Annotated[float, Field(gt=0.0)] | None = None
-    interaction_range_nm: Annotated[float, Field(gt=0.0)] | None = None
-    compact_max_nm: Annotated[float, Field(gt=0.0)] | None = None
-    line_end_pullback_max_nm: Annotated[float, Field(ge=0.0)] | None = None
-    pitch_tolerance_nm: Annotated[float, Field(gt=0.0)] | None = None
-    dense_min_lines: Annotated[int, Field(ge=2)] | None = None
+    k1_risk_below: K1 | None = None
+    k1_marginal_below: K1 | None = None
+    min_run_nm: Length | None = None
+    interaction_range_nm: Length | None = None
+    compact_max_nm: Length | None = None
+    line_end_pullback_max_nm: Annotated[float, bounded(0.0, MAX_LENGTH_NM, why=_NM)] | None = None
+    pitch_tolerance_nm: Length | None = None
+    dense_min_lines: (
+        Annotated[
+            int,
+            bounded(
+                2,
+                MAX_DENSE_LINES,
+                why="the lines that make a region a dense array; more would leave none dense",
+            ),
+        ]
+        | None
+    ) = None
     image_checks: bool | None = None
-    nils_fail_below: Annotated[float, Field(ge=0.0, lt=20.0)] | None = None
-    nils_risk_below: Annotated[float, Field(ge=0.0, lt=20.0)] | None = None
-    nils_marginal_below: Annotated[float, Field(ge=0.0, lt=20.0)] | None = None
-    el_min_pct: Annotated[float, Field(ge=0.0, lt=100.0)] | None = None
-    cd_tolerance_pct: Annotated[float, Field(gt=0.0, lt=100.0)] | None = None
-    dof_min_nm: Annotated[float, Field(ge=0.0)] | None = None
-    focus_half_range_nm: Annotated[float, Field(ge=0.0)] | None = None
-    focus_steps: Annotated[int, Field(ge=1, le=41)] | None = None
-    # Resist blur beyond 100 nm would wash out every pitch this tool judges.
-    resist_blur_nm: Annotated[float, Field(ge=0.0, le=100.0)] | None = None
+    nils_fail_below: Nils | None = None
+    nils_risk_below: Nils | None = None
+    nils_marginal_below: Nils | None = None
+    el_min_pct: Annotated[float, bounded(0.0, 100.0, why=_DOSE_PCT, hi_open=True)] | None = None
+    cd_tolerance_pct: CdPct | None = None
+    dof_min_nm: Annotated[float, bounded(0.0, MAX_LENGTH_NM, why=_NM)] | None = None
+    focus_half_range_nm: Annotated[float, bounded(0.0, MAX_LENGTH_NM, why=_NM)] | None = None
+    focus_steps: (
+        Annotated[int, bounded(1, 41, why="focus samples, each a full set of images")] | None
+    ) = None
+    resist_blur_nm: (
+        Annotated[
+            float,
+            bounded(0.0, 100.0, why="a blur that wide would wash out every pitch this tool judges"),
+        ]
+        | None
+    ) = None
     resist_index: ResistIndex | None = None
-    edge_placement_max_pct: Annotated[float, Field(gt=0.0, lt=100.0)] | None = None
+    edge_placement_max_pct: CdPct | None = None
     sizing: Literal["drawn", "retarget"] | None = None
-    bias_max_nm: Annotated[float, Field(gt=0.0, le=1000.0)] | None = None
+    bias_max_nm: (
+        Annotated[
+            float,
+            bounded(0.0, 1000.0, why="a mask bias per edge, in nm at wafer scale", lo_open=True),
+        ]
+        | None
+    ) = None
     anchor: Anchor | None = None
 
     @field_validator("focus_steps")
@@ -305,37 +439,6 @@ class Limits(_Model):
         if v is not None and v % 2 == 0:
             raise ValueError(f"{v} must be odd (the samples include best focus)")
         return v
-
-
-LIMIT_DEFAULTS = {
-    "k1_risk_below": 0.30,
-    "k1_marginal_below": 0.40,
-    "pitch_tolerance_nm": 1.0,
-    "dense_min_lines": 5,
-    "image_checks": True,
-    "nils_fail_below": 1.0,
-    "nils_risk_below": 1.5,
-    "nils_marginal_below": 2.0,
-    "el_min_pct": 5.0,
-    "cd_tolerance_pct": 10.0,
-    "focus_steps": 9,
-}
-"""Limit defaults that do not depend on the exposure (single source of truth)."""
-
-MIN_RUN_LAMBDA_NA = 0.5
-INTERACTION_RANGE_LAMBDA_NA = 3.0
-COMPACT_LAMBDA_NA = 1.0
-PULLBACK_LAMBDA_NA = 0.25
-BIAS_LAMBDA_NA = 0.1
-
-
-def quarter_wave_focus_nm(exposure) -> float:
-    """The defocus whose path difference at the pupil's edge, n z (1 - cos theta)
-    with sin theta = NA / n, is a quarter wave: lambda / (4 (n - sqrt(n^2 - NA^2))).
-    The default DOF floor and focus half range; 0.5 n lambda / NA^2 at low NA."""
-    n, na = exposure.immersion_index, exposure.na
-    # n - sqrt(n^2 - NA^2) written without cancellation at small NA.
-    return exposure.wavelength_nm * (n + math.sqrt(n * n - na * na)) / (4.0 * na * na)
 
 
 class LayerEntry(Limits):
@@ -362,7 +465,9 @@ class DeckInfo(_Model):
     name: str = ""
     description: str = ""
     drawn_scale: Literal["wafer", "mask"] = "wafer"
-    reduction: Annotated[float, Field(ge=1.0, le=10.0)] = 4.0
+    reduction: Annotated[
+        float, bounded(1.0, 10.0, why="projection optics reduce 1x to 5x (common practice)")
+    ] = 4.0
 
 
 class DeckFile(_Model):
@@ -401,118 +506,6 @@ class DeckFile(_Model):
         return self
 
 
-# --------------------------------------------------------------------------- resolved deck
-
-
-class LayerRule:
-    """A deck layer with its exposure and every limit resolved to a number."""
-
-    __slots__ = (
-        "name",
-        "layer",
-        "datatype",
-        "exposure_name",
-        "exposure",
-        "field",
-        "k1_risk_below",
-        "k1_marginal_below",
-        "min_run_nm",
-        "interaction_range_nm",
-        "compact_max_nm",
-        "line_end_pullback_max_nm",
-        "pitch_tolerance_nm",
-        "dense_min_lines",
-        "image_checks",
-        "nils_risk_below",
-        "nils_marginal_below",
-        "el_min_pct",
-        "cd_tolerance_pct",
-        "dof_min_nm",
-        "focus_half_range_nm",
-        "focus_steps",
-        "resist_blur_nm",
-        "edge_placement_max_pct",
-        "sizing",
-        "bias_max_nm",
-        "anchor",
-        "nils_fail_below",
-        "optional",
-    )
-
-    def __init__(self, entry: LayerEntry, exposure: Exposure, defaults: Limits):
-        self.name = entry.name
-        self.layer, self.datatype = parse_layer_spec(entry.source)
-        self.exposure_name = entry.exposure
-        own_index = entry.resist_index if entry.resist_index is not None else defaults.resist_index
-        if own_index is not None and own_index != exposure.resist_index:
-            # Every image cache keys on the exposure: the layer's medium is part of it.
-            exposure = exposure.model_copy(update={"resist_index": own_index})
-        self.exposure = exposure
-        self.field = entry.field
-        self.optional = entry.optional
-
-        def pick(key: str, fallback: float) -> float:
-            own = getattr(entry, key)
-            if own is not None:
-                return own
-            shared = getattr(defaults, key)
-            return shared if shared is not None else fallback
-
-        self.k1_risk_below = pick("k1_risk_below", LIMIT_DEFAULTS["k1_risk_below"])
-        self.k1_marginal_below = pick("k1_marginal_below", LIMIT_DEFAULTS["k1_marginal_below"])
-        self.min_run_nm = pick("min_run_nm", MIN_RUN_LAMBDA_NA * exposure.lambda_over_na_nm)
-        self.interaction_range_nm = pick(
-            "interaction_range_nm", INTERACTION_RANGE_LAMBDA_NA * exposure.lambda_over_na_nm
-        )
-        self.compact_max_nm = pick("compact_max_nm", COMPACT_LAMBDA_NA * exposure.lambda_over_na_nm)
-        self.line_end_pullback_max_nm = pick(
-            "line_end_pullback_max_nm", PULLBACK_LAMBDA_NA * exposure.lambda_over_na_nm
-        )
-        self.pitch_tolerance_nm = pick("pitch_tolerance_nm", LIMIT_DEFAULTS["pitch_tolerance_nm"])
-        self.dense_min_lines = int(pick("dense_min_lines", LIMIT_DEFAULTS["dense_min_lines"]))
-        for key in (
-            "image_checks",
-            "nils_fail_below",
-            "nils_risk_below",
-            "nils_marginal_below",
-            "el_min_pct",
-            "cd_tolerance_pct",
-            "focus_steps",
-        ):
-            setattr(self, key, pick(key, LIMIT_DEFAULTS[key]))
-        quarter_wave = quarter_wave_focus_nm(exposure)
-        self.dof_min_nm = pick("dof_min_nm", quarter_wave)
-        self.focus_half_range_nm = pick("focus_half_range_nm", quarter_wave)
-        self.resist_blur_nm = float(pick("resist_blur_nm", 0.0))
-        self.edge_placement_max_pct = float(
-            pick("edge_placement_max_pct", self.cd_tolerance_pct / 2.0)
-        )
-        self.anchor = pick("anchor", None)
-        self.sizing = pick("sizing", "drawn")
-        self.bias_max_nm = float(pick("bias_max_nm", BIAS_LAMBDA_NA * exposure.lambda_over_na_nm))
-
-    @property
-    def focus_span_nm(self) -> float:
-        """The widest depth of focus the sampled focus values can show."""
-        return 0.0 if len(self.focus_nm) == 1 else 2.0 * self.focus_half_range_nm
-
-    @property
-    def focus_nm(self) -> tuple[float, ...]:
-        """Focus values sampled for the image checks (nm, symmetric, includes 0)."""
-        n = self.focus_steps
-        if n == 1 or self.focus_half_range_nm == 0:
-            return (0.0,)
-        h = self.focus_half_range_nm
-        return tuple(-h + 2 * h * k / (n - 1) for k in range(n))
-
-    @property
-    def source(self) -> str:
-        return f"{self.layer}/{self.datatype}"
-
-    def __repr__(self) -> str:
-        return f"LayerRule({self.name!r}, {self.source}, exposure={self.exposure_name!r})"
-
-
 class Deck:
     """A validated deck: layers with resolved limits, markers, scale."""
 
@@ -527,37 +520,14 @@ class Deck:
         self.layers = [
             LayerRule(e, raw.exposures[e.exposure], raw.layer_defaults) for e in raw.layers
         ]
-        for i, (rule, entry) in enumerate(zip(self.layers, raw.layers, strict=True)):
-            if rule.k1_risk_below > rule.k1_marginal_below:
-                own = entry.k1_risk_below is not None or entry.k1_marginal_below is not None
-                key = f"layers[{i}]" if own else "layer_defaults"
-                raise DeckError(
-                    f"{self._where()}: {key}.k1_risk_below: {rule.k1_risk_below} must not "
-                    f"exceed k1_marginal_below ({rule.k1_marginal_below}) for layer {rule.name!r}"
-                )
-        for i, (rule, entry) in enumerate(zip(self.layers, raw.layers, strict=True)):
-            if rule.sizing == "retarget" and rule.anchor is None:
-                key = f"layers[{i}]" if entry.sizing is not None else "layer_defaults"
-                raise DeckError(
-                    f'{self._where()}: {key}.sizing: "retarget" sizes each feature to print '
-                    f"on size at the anchored dose; layer {rule.name!r} has no anchor"
-                )
-            index = rule.exposure.resist_index
-            if index is not None and rule.exposure.na >= index:
-                key = f"layers[{i}]" if entry.resist_index is not None else "layer_defaults"
-                raise DeckError(
-                    f"{self._where()}: {key}.resist_index: "
-                    f"{resist_index_message(index, rule.exposure.na)} (layer {rule.name!r})"
-                )
-            if rule.image_checks and rule.dof_min_nm > rule.focus_span_nm * (1 + 1e-9):
-                key = f"layers[{i}]" if entry.dof_min_nm is not None else "layer_defaults"
-                raise DeckError(
-                    f"{self._where()}: {key}.dof_min_nm: {rule.dof_min_nm:g} nm cannot be "
-                    f"measured on layer {rule.name!r}: its focus samples span "
-                    f"{rule.focus_span_nm:g} nm (focus_half_range_nm "
-                    f"{rule.focus_half_range_nm:g} x 2, focus_steps {rule.focus_steps}); widen "
-                    "the range or lower the floor"
-                )
+        problems = [
+            problem
+            for i, (rule, entry) in enumerate(zip(self.layers, raw.layers, strict=True))
+            for problem in layer_problems(i, rule, entry, raw.layer_defaults)
+        ]
+        if problems:
+            # A problem of [layer_defaults] is found once per layer: said once.
+            raise deck_error(self._where(), list(dict.fromkeys(problems)))
         self.markers = {s: parse_layer_spec(getattr(raw.markers, s)) for s in SEVERITIES}
 
     def _where(self) -> str:
@@ -583,13 +553,20 @@ def parse_deck(text: str, path: Path | None = None) -> Deck:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise DeckError(f"{where}: not valid TOML: {exc}") from None
+    except RecursionError:  # the parser recurses once per level of nesting
+        raise DeckError(
+            f"{where}: not a deck: arrays or tables nest deeper than the TOML parser "
+            f"follows (a deck nests at most {MAX_NESTING} levels)"
+        ) from None
+    if nesting_depth(data, MAX_NESTING) > MAX_NESTING:
+        raise DeckError(
+            f"{where}: not a deck: arrays or tables nest deeper than {MAX_NESTING} levels "
+            "(a deck needs four)"
+        )
     try:
         raw = DeckFile.model_validate(data)
     except ValidationError as exc:
-        raise DeckError(validation_message(where, exc, data)) from None
-    for name, exp in raw.exposures.items():
-        if not math.isfinite(exp.wavelength_nm) or not math.isfinite(exp.na):
-            raise DeckError(f"{where}: exposures.{name}: values must be finite")
+        raise deck_error(where, validation_messages(exc, data)) from None
     return Deck(raw, path, text)
 
 

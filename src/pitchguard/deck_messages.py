@@ -42,10 +42,37 @@ def _format_loc(loc: tuple) -> str:
     return out
 
 
-def validation_message(path: str, err: ValidationError, data: dict) -> str:
-    """The first error of a deck's validation as one line: the file, the dotted key,
-    what is wrong."""
-    first = err.errors()[0]
+MAX_ERROR_LINES = 20
+"""Most deck errors reported one per line; the rest are counted on one more."""
+
+
+def deck_error(where: str, problems: list[tuple[str, str]]):
+    """A DeckError of ``(key, what is wrong)`` problems: a line each (``file: key:
+    what``), the first MAX_ERROR_LINES of them, then how many more there are."""
+    from pitchguard.errors import DeckError
+
+    lines = [f"{where}: {key}: {what}" for key, what in problems[:MAX_ERROR_LINES]]
+    if len(problems) > MAX_ERROR_LINES:
+        more = len(problems) - MAX_ERROR_LINES
+        lines.append(f"{where}: and {more} more error{'s' if more != 1 else ''}")
+    return DeckError(*lines)
+
+
+def validation_messages(err: ValidationError, data: dict) -> list[tuple[str, str]]:
+    """Every error of a deck's validation as ``(dotted key, what is wrong)``."""
+    return [_one(e, data) for e in err.errors()]
+
+
+SHOWN_INPUT_CHARS = 80
+"""How much of a value a message quotes."""
+
+
+def _quoted(v) -> str:
+    text = repr(v)
+    return text if len(text) <= SHOWN_INPUT_CHARS else text[: SHOWN_INPUT_CHARS - 1] + "…"
+
+
+def _one(first: dict, data: dict) -> tuple[str, str]:
     loc = tuple(first["loc"])
     ctx = first.get("ctx") or {}
     inner = ctx.get("error")
@@ -68,7 +95,7 @@ def validation_message(path: str, err: ValidationError, data: dict) -> str:
             if where and not keyed.key.startswith("[")
             else (where + keyed.key if where else keyed.key)
         )
-        return f"{path}: {key}: {keyed}"
+        return key, str(keyed)
     key = _format_loc(tuple(clean)) or "(top level)"
     msg = first["msg"]
     kind = first["type"]
@@ -85,12 +112,12 @@ def validation_message(path: str, err: ValidationError, data: dict) -> str:
     elif msg.startswith("Value error, "):
         msg = msg[len("Value error, ") :]
     elif kind.endswith("_type") and "input" in first:
-        msg = f"{msg}, got {type(first['input']).__name__} {first['input']!r}"
+        msg = f"{msg}, got {type(first['input']).__name__} {_quoted(first['input'])}"
     elif isinstance(first.get("input"), int | float | str) and not isinstance(
         first.get("input"), bool
     ):
-        msg = f"{msg}, got {first['input']!r}"
-    return f"{path}: {key}: {msg}"
+        msg = f"{msg}, got {_quoted(first['input'])}"
+    return key, msg
 
 
 def resist_index_message(index: float, na: float) -> str:

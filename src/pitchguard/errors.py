@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import os
+import stat
 from pathlib import Path
 
 EXIT_OK = 0
@@ -17,9 +19,22 @@ class PitchguardError(Exception):
 
     exit_code = EXIT_USAGE
 
+    @property
+    def lines(self) -> tuple[str, ...]:
+        """What the command line prints, a ``pitchguard: error:`` line each."""
+        return (str(self),)
+
 
 class DeckError(PitchguardError):
-    """The rule deck cannot be read or is invalid."""
+    """The rule deck cannot be read or is invalid: one line per problem found."""
+
+    def __init__(self, *lines: str):
+        super().__init__("\n".join(lines))
+        self._lines = lines
+
+    @property
+    def lines(self) -> tuple[str, ...]:
+        return self._lines
 
 
 class LayoutError(PitchguardError):
@@ -30,18 +45,92 @@ class OutputError(PitchguardError):
     """An output file cannot be written (or would overwrite an input)."""
 
 
-def read_input(path: Path, what: str, error: type[PitchguardError], size: int = -1) -> bytes:
-    """The first ``size`` bytes (all: -1) of an input file, or ``error`` with one
-    line naming the file and what it was to be (``what``: "layout", "deck")."""
+MIB = 1 << 20
+
+INPUT_LIMITS = {"deck": 4 * MIB, "baseline": 256 * MIB, "settings": MIB}
+"""The largest input file read whole, per kind: a deck is a few kB (4 MiB is
+hundreds of times more); a baseline entry is under 1 kB, so 256 MiB holds
+some 300,000 (and parses to a few GB); project settings are a few lines."""
+
+
+def _not_regular(mode: int) -> str | None:
+    """What a file that is not a regular file is, in words (None: a regular file)."""
+    for test, name in (
+        (stat.S_ISFIFO, "a named pipe (FIFO)"),
+        (stat.S_ISCHR, "a character device"),
+        (stat.S_ISBLK, "a block device"),
+        (stat.S_ISSOCK, "a socket"),
+        (stat.S_ISDIR, "a directory"),
+    ):
+        if test(mode):
+            return name
+    return None if stat.S_ISREG(mode) else "not a regular file"
+
+
+def open_regular(path: Path, what: str, error: type[PitchguardError]) -> tuple[int, int]:
+    """An input file opened for reading (its descriptor and size), or ``error`` with
+    one line naming the file and what it was to be (``what``: "layout", "deck").
+
+    Only a regular file is opened: a pipe with no writer would block a reader,
+    a device never end.  Opened without blocking, so neither is waited on."""
     try:
-        with Path(path).open("rb") as fh:
-            return fh.read(size)
+        fd = os.open(path, os.O_RDONLY | os.O_NONBLOCK | getattr(os, "O_CLOEXEC", 0))
     except FileNotFoundError:
         raise error(f"{path}: {what} file not found") from None
     except IsADirectoryError:
         raise error(f"{path}: is a directory, not a {what} file") from None
     except OSError as exc:
         raise error(f"{path}: cannot read {what}: {exc.strerror or exc}") from None
+    try:
+        st = os.fstat(fd)
+    except OSError as exc:
+        os.close(fd)
+        raise error(f"{path}: cannot read {what}: {exc.strerror or exc}") from None
+    kind = _not_regular(st.st_mode)
+    if kind is not None:
+        os.close(fd)
+        if stat.S_ISDIR(st.st_mode):
+            raise error(f"{path}: is a directory, not a {what} file")
+        raise error(f"{path}: is {kind}, not a {what} file (a regular file is needed)")
+    return fd, st.st_size
+
+
+def read_input(path: Path, what: str, error: type[PitchguardError], size: int = -1) -> bytes:
+    """The first ``size`` bytes (all: -1) of a regular input file (see
+    :func:`open_regular`), at most ``INPUT_LIMITS[what]`` of them."""
+    limit = INPUT_LIMITS.get(what)
+    fd, st_size = open_regular(path, what, error)
+    with os.fdopen(fd, "rb") as fh:
+        try:
+            if limit is not None and (size < 0 or size > limit):
+                if st_size > limit:
+                    raise error(_too_big(path, what, limit))
+                data = fh.read(limit + 1)  # the file may have grown since
+                if len(data) > limit:
+                    raise error(_too_big(path, what, limit))
+                return data if size < 0 else data[:size]
+            return fh.read(size)
+        except OSError as exc:
+            raise error(f"{path}: cannot read {what}: {exc.strerror or exc}") from None
+
+
+def nesting_depth(data, limit: int) -> int:
+    """How deep parsed TOML or JSON ``data`` nests (lists and tables), counted up to
+    ``limit`` + 1 (without recursion: a hostile file may nest 100,000 deep)."""
+    deepest, level = 0, [data]
+    while level and deepest <= limit:
+        deepest += 1
+        level = [
+            v
+            for node in level
+            for v in (node.values() if isinstance(node, dict) else node)
+            if isinstance(v, dict | list)
+        ]
+    return deepest
+
+
+def _too_big(path: Path, what: str, limit: int) -> str:
+    return f"{path}: larger than {limit // MIB} MiB, the most a {what} file may be"
 
 
 def read_input_text(path: Path, what: str, error: type[PitchguardError]) -> str:

@@ -353,7 +353,7 @@ def test_rules_check_ok_and_bad(tmp_path, capsys):
     code, out, _ = run_cli(capsys, "rules", "check", DEMO_DECK)
     assert code == 0 and "valid deck" in out
     deck = tmp_path / "bad.toml"
-    deck.write_text(DEMO_DECK.read_text().replace("na = 1.35", "na = 1.50"))
+    deck.write_text(DEMO_DECK.read_text().replace("na = 1.35", "na = 1.50", 1))  # one error
     code, _, err = run_cli(capsys, "rules", "check", deck)
     _one_line_error(code, err, "exposures.arf_imm_dipole_x", "immersion_index")
 
@@ -399,9 +399,14 @@ def test_too_many_shapes_is_refused(capsys):
 
 def test_usage_error_exit_2(capsys):
     with pytest.raises(SystemExit) as exc:
-        run_cli(capsys, "scan", SAMPLE_GDS)  # --rules missing
+        run_cli(capsys, "scan", SAMPLE_GDS, "--no-such-option")
     assert exc.value.code == 2
-    assert "--rules" in capsys.readouterr().err
+    assert "--no-such-option" in capsys.readouterr().err
+
+
+def test_no_deck_given_or_set_is_one_line(capsys):
+    code, _, err = run_cli(capsys, "scan", SAMPLE_GDS)  # --rules missing, no settings file
+    _one_line_error(code, err, "--rules")
 
 
 def test_console_script_runs_without_traceback(tmp_path):

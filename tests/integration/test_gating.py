@@ -56,7 +56,7 @@ def test_baseline_passes_its_own_revision(revs, capsys):
     code, _, _ = run_cli(
         capsys, "scan", revs["r1"], "-r", revs["deck"], "-q", "--write-baseline", revs["base"]
     )
-    assert code == 1  # the revision itself has a fail finding
+    assert code == 0  # the revision has a fail finding, recorded: the write succeeded
     data = json.loads(revs["base"].read_text())
     assert data["pitchguard_baseline"] == 1 and len(data["entries"]) == 2
     code, out, _ = run_cli(

@@ -246,25 +246,53 @@ def test_no_empty_arrays_outside_results_and_property_bags(demo):
     walk(_demo_sarif(demo), ())
 
 
-def test_uri_relative_inside_cwd_file_uri_outside(demo, validator, tmp_path, monkeypatch):
-    result, deck = demo
-    monkeypatch.chdir(REPO)
-    log = to_sarif(result, deck, DEMO_GDS, "fail")
-    uri = log["runs"][0]["results"][0]["locations"][0]["physicalLocation"]["artifactLocation"]
-    assert uri["uri"] == "sample_layouts/demo_chip.gds"
+def _location(log) -> tuple[dict, dict | None]:
+    run = log["runs"][0]
+    loc = run["results"][0]["locations"][0]["physicalLocation"]["artifactLocation"]
+    return loc, run.get("originalUriBaseIds")
 
-    spaced = tmp_path / "my chip#1.gds"
-    spaced.write_bytes(DEMO_GDS.read_bytes())
-    monkeypatch.chdir(tmp_path)
-    log = to_sarif(result, deck, Path("my chip#1.gds"), "fail")
-    uri = log["runs"][0]["results"][0]["locations"][0]["physicalLocation"]["artifactLocation"]
-    assert uri["uri"] == "my%20chip%231.gds"
+
+def test_uri_relative_to_the_repository_with_its_base(demo, validator, tmp_path, monkeypatch):
+    """SARIF 2.1.0 §3.4.4 (uriBaseId) and §3.14.14 (originalUriBaseIds, each base
+    URI ending in a slash): a code-scanning service resolves the layout against
+    its own checkout, so the location is relative to the repository root."""
+    result, deck = demo
+    # An explicit root.
+    log = to_sarif(result, deck, DEMO_GDS, "fail", root=REPO)
+    loc, bases = _location(log)
+    assert loc == {"uri": "sample_layouts/demo_chip.gds", "uriBaseId": "REPOROOT"}
+    assert bases == {"REPOROOT": {"uri": REPO.resolve().as_uri() + "/"}}
     assert _errors(validator, log) == []
 
-    log = to_sarif(result, deck, DEMO_GDS, "fail")  # outside tmp_path
-    uri = log["runs"][0]["results"][0]["locations"][0]["physicalLocation"]["artifactLocation"]
-    assert uri["uri"] == DEMO_GDS.resolve().as_uri()
-    assert uri["uri"].startswith("file:///")
+    # Found: the nearest folder above the layout holding .git, wherever the command runs.
+    design = tmp_path / "design"
+    (design / ".git").mkdir(parents=True)
+    (design / "chips").mkdir()
+    spaced = design / "chips" / "my chip#1.gds"
+    spaced.write_bytes(DEMO_GDS.read_bytes())
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    monkeypatch.chdir(elsewhere)
+    log = to_sarif(result, deck, spaced, "fail")
+    loc, bases = _location(log)
+    assert loc == {"uri": "chips/my%20chip%231.gds", "uriBaseId": "REPOROOT"}
+    assert bases["REPOROOT"]["uri"] == design.resolve().as_uri() + "/"
+    assert _errors(validator, log) == []
+
+    # No repository: relative to the current folder when the layout is inside it ...
+    plain = tmp_path / "plain"
+    plain.mkdir()
+    (plain / "top.gds").write_bytes(DEMO_GDS.read_bytes())
+    monkeypatch.chdir(plain)
+    loc, bases = _location(to_sarif(result, deck, Path("top.gds"), "fail"))
+    assert loc == {"uri": "top.gds", "uriBaseId": "REPOROOT"}
+    assert bases["REPOROOT"]["uri"] == plain.resolve().as_uri() + "/"
+
+    # ... and a layout outside the base is named by its absolute file URI, no base.
+    log = to_sarif(result, deck, spaced, "fail", root=plain)
+    loc, bases = _location(log)
+    assert loc == {"uri": spaced.resolve().as_uri()} and bases is None
+    assert loc["uri"].startswith("file:///")
     assert _errors(validator, log) == []
 
 

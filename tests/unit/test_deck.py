@@ -293,13 +293,13 @@ BAD_DECKS = [
     pytest.param(
         replace_once(VALID_DECK, "sigma_outer = 0.9 }", "sigma_outer = 1.2 }"),
         "exposures.arf_imm.illumination.sigma_outer",
-        "less than or equal to 1",
+        "at most 1",
         id="sigma-outer-above-1",
     ),
     pytest.param(
         replace_once(VALID_DECK, "sigma_inner = 0.6", "sigma_inner = -0.1"),
         "exposures.arf_imm.illumination.sigma_inner",
-        "greater than or equal to 0",
+        "at least 0",
         id="sigma-inner-negative",
     ),
     pytest.param(
@@ -309,7 +309,7 @@ BAD_DECKS = [
             '{ shape = "conventional", sigma = 1.5 }',
         ),
         "exposures.arf_imm.illumination.sigma",
-        "less than or equal to 1",
+        "at most 1",
         id="conventional-sigma-above-1",
     ),
     pytest.param(
@@ -381,7 +381,7 @@ BAD_DECKS = [
     pytest.param(
         replace_once(VALID_DECK, "transmission = 0.06", "transmission = 1.5"),
         "exposures.arf_dry.mask.transmission",
-        "less than 1",
+        "below 1",
         id="mask-transmission-above-1",
     ),
     pytest.param(

@@ -97,8 +97,26 @@ def _stopped(code: int) -> int:
     return code
 
 
+def _settings(argv: list[str] | None):
+    """The project's settings, for a command that takes them and was not told
+    ``--no-config``; None otherwise."""
+    from pitchguard.cli.config import find_settings
+    from pitchguard.cli.parser import SETTINGS_COMMANDS
+
+    words = list(sys.argv[1:] if argv is None else argv)
+    command = next((w for w in words if not w.startswith("-")), None)
+    if command not in SETTINGS_COMMANDS or "--no-config" in words:
+        return None
+    return find_settings()
+
+
 def _main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
+    try:  # the project's settings file, and its values through the options' converters
+        settings = _settings(argv)
+        parser = build_parser(settings)
+    except PitchguardError as exc:
+        tell(f"pitchguard: error: {exc}")
+        return exc.exit_code
     args = parser.parse_args(argv)
     if args.command is None:
         parser.print_help(sys.stderr)
@@ -111,6 +129,15 @@ def _main(argv: list[str] | None = None) -> int:
     if handler not in (cmd_scan, cmd_diff):  # those resume it when their scans start
         resume_gc()
     try:
+        if getattr(args, "rules", "") is None:
+            raise PitchguardError(
+                "no rule deck: give --rules DECK, or set `rules` in .pitchguard.toml or in "
+                "[tool.pitchguard] of pyproject.toml"
+            )
+        if settings is not None and not getattr(args, "quiet", False):
+            from pitchguard.outputs.texts import printable
+
+            tell(f"pitchguard: settings from {printable(settings.path)}")
         return handler(args)
     except KeyboardInterrupt:
         return _stopped(130)
@@ -124,7 +151,8 @@ def _main(argv: list[str] | None = None) -> int:
         if getattr(args, "debug", False):
             raise
         if isinstance(exc, PitchguardError):
-            tell(f"pitchguard: error: {exc}")
+            for line in exc.lines:  # one per problem: a deck's are all reported at once
+                tell(f"pitchguard: error: {line}")
             return exc.exit_code
         # A bug, not the user's fault.
         tell(

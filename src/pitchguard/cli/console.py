@@ -27,9 +27,24 @@ def progress_callback(console):
     return bar, update
 
 
+MESSAGE_CHARS = 2000
+"""The longest line a note or an error shows (the user text in it cut in the middle)."""
+
+
+def one_line(text: str) -> str:
+    """``text`` as one line a terminal shows as text: control characters (newlines,
+    escape sequences) written out, very long text cut in the middle."""
+    from pitchguard.outputs.user_text import clipped, printable
+
+    line = printable(clipped(text, MESSAGE_CHARS, middle=True))
+    return line.replace("\n", "\\x0a").replace("\t", "\\x09")
+
+
 def show_note(console, text: str) -> None:
     """Advice on stderr, one line (above a progress bar, if one is shown)."""
-    console.print(f"pitchguard: note: {text}", soft_wrap=True, markup=False, highlight=False)
+    console.print(
+        f"pitchguard: note: {one_line(text)}", soft_wrap=True, markup=False, highlight=False
+    )
 
 
 def reader_gone(stream) -> None:
@@ -43,9 +58,9 @@ def reader_gone(stream) -> None:
 
 
 def tell(text: str) -> None:
-    """A line on stderr (see :func:`reader_gone`)."""
+    """A line on stderr (see :func:`reader_gone`), as :func:`one_line` shows it."""
     try:
-        print(text, file=sys.stderr, flush=True)
+        print(one_line(text), file=sys.stderr, flush=True)
     except BrokenPipeError:
         reader_gone(sys.stderr)
 

@@ -7,6 +7,7 @@ from pitchguard.errors import (
     EXIT_OK,
     PitchguardError,
 )
+from pitchguard.outputs.user_text import markup_safe, markup_safe_path, shown
 
 
 def _dof_text(*a, **k) -> str:
@@ -16,14 +17,9 @@ def _dof_text(*a, **k) -> str:
 
 
 def _as_drawn(rule):
-    """The layer judged as drawn, when the deck judges it as sized; else None."""
-    if rule.sizing != "retarget":
-        return None
-    import copy
+    from pitchguard.api.probing import as_drawn
 
-    drawn = copy.copy(rule)
-    drawn.sizing = "drawn"
-    return drawn
+    return as_drawn(rule)
 
 
 def _sized_text(m) -> str:
@@ -33,12 +29,6 @@ def _sized_text(m) -> str:
         return ""
     reach = " (no bias reaches size)" if m.sizing == UNSIZED else ""
     return f"{m.bias_nm:+.1f} nm per edge{reach}"
-
-
-def markup_safe(text) -> str:
-    from pitchguard.outputs.texts import markup_safe as safe
-
-    return safe(text)
 
 
 def _light(exposure) -> str:
@@ -68,7 +58,7 @@ def cmd_rules_check(args) -> int:
         else "drawn at wafer scale"
     )
     console.print(
-        f"{markup_safe(args.deck)}: valid deck '{markup_safe(deck.name)}', "
+        f"{markup_safe_path(args.deck)}: valid deck '{markup_safe(deck.name)}', "
         f"{len(deck.layers)} layers, {scale}"
     )
     t = Table(show_edge=False)
@@ -91,9 +81,9 @@ def cmd_rules_check(args) -> int:
         pr = 2 * r.k1_risk_below * e.wavelength_nm / e.na
         pm = 2 * r.k1_marginal_below * e.wavelength_nm / e.na
         t.add_row(
-            r.name,
-            r.source,
-            r.field,
+            markup_safe(r.name),
+            markup_safe(r.source),
+            markup_safe(r.field),
             markup_safe(r.exposure_name),
             f"{e.wavelength_nm:g}",
             f"{e.na:g}",
@@ -106,83 +96,51 @@ def cmd_rules_check(args) -> int:
     console.print("[dim]pitches at wafer scale; cutoff x is for lines along y (pitch along x)[/]")
     for r in deck.layers:
         e = r.exposure
-        console.print(f"{r.name}: {_light(e)}")
+        console.print(f"{markup_safe(r.name)}: {markup_safe(_light(e), None)}")
     return EXIT_OK
 
 
 def _grating_json(r, rule) -> dict:
-    from pitchguard.outputs.json_report import clean_json, violation_to_dict
+    from pitchguard.api.probing import grating_dict
 
-    m = r.metrics
-    return clean_json(
-        {
-            "pitch_nm": r.pitch_nm,
-            "cd_nm": r.cd_nm,
-            "orientation_deg": r.orientation_deg,
-            "k1": r.orders.k1,
-            "orders": list(r.orders.orders),
-            "orders_on_axis": list(r.orders.orders_on_axis),
-            "two_beam_fraction": r.orders.two_beam_fraction,
-            "cutoff_pitch_nm": r.orders.cutoff_pitch_nm,
-            "contrast": m.contrast if m else None,
-            "nils": m.nils if m else None,
-            "printed_cd_nm": m.cd_nm if m else None,
-            "cd_error_pct": m.cd_error_pct if m else None,
-            "exposure_latitude_pct": m.el_pct if m else None,
-            "depth_of_focus_nm": m.dof_nm if m else None,
-            "depth_of_focus_at_least": _dof_limited(m.dof_nm if m else None, rule.focus_span_nm),
-            "polarization": rule.exposure.polarization,
-            "image_index": rule.exposure.image_index,
-            "edge_placement_nm": m.epe_nm if m else None,
-            "sizing": rule.sizing,
-            "bias_nm": m.bias_nm if m and m.sizing else None,
-            "threshold": m.threshold if m else None,
-            "dose_to_size": m.dose_to_size if m else None,
-            "severity": r.severity,
-            "checks": [violation_to_dict(v) for v in r.violations],
-        }
-    )
+    return grating_dict(r, rule)
 
 
 def cmd_probe(args) -> int:
     import json
 
-    from pitchguard.deck import load_deck
-    from pitchguard.judge.gratings import grating, pupil_picture
-    from pitchguard.outputs.json_report import clean_json
-    from pitchguard.outputs.verdict import CAUTION
+    from pitchguard.api.probing import probe
+    from pitchguard.judge.gratings import pupil_picture
 
-    deck = load_deck(args.rules)
-    rule = deck.layer(args.layer)
-    if args.pitch_y is not None or args.cd_y is not None:
-        return _probe_array(args, rule)
-    r = grating(rule, args.pitch, args.cd, args.orientation, args.focus)
-    drawn_rule = _as_drawn(rule)
-    drawn = (
-        None if drawn_rule is None else grating(drawn_rule, args.pitch, args.cd, args.orientation)
+    p = probe(
+        args.rules,
+        args.layer,
+        args.pitch,
+        args.cd,
+        orientation_deg=args.orientation,
+        focus_nm=args.focus,
+        pitch_y_nm=args.pitch_y,
+        cd_y_nm=args.cd_y,
     )
+    if p.kind == "array":
+        return _probe_array(args, p)
+    rule, r = p.rule, p.raw
+    drawn = p.as_drawn.raw if p.as_drawn is not None else None
     if args.plot is not None:
         from pitchguard.outputs.plots import plot_image
 
         plot_image(rule, r, args.plot, [args.rules])
     if args.json:
-        out = _grating_json(r, rule)
-        if drawn is not None:
-            out["as_drawn"] = _grating_json(drawn, drawn_rule)
-        out["focus_nm"] = args.focus
-        # The image's own contrast and NILS, at the focus it was taken.
-        out["contrast"], out["nils"] = clean_json([r.shown.contrast, r.shown.nils])
-        out["image"] = clean_json({"x_nm": r.x_nm.tolist(), "intensity": r.intensity.tolist()})
-        out["caution"] = CAUTION
-        say(json.dumps(out))
+        say(json.dumps(p.to_dict()))
         return EXIT_OK
     console = make_console()
     e = rule.exposure
     ill = e.illumination
     console.print(
-        f"[bold]{rule.name}[/] ({rule.field} field) on {markup_safe(rule.exposure_name)}: "
-        f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {ill.shape} σmax {e.sigma_max:g}, "
-        f"{e.mask.kind} mask, {_light(e)}"
+        f"[bold]{markup_safe(rule.name)}[/] ({markup_safe(rule.field)} field) on "
+        f"{markup_safe(rule.exposure_name)}: "
+        f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {markup_safe(ill.shape)} σmax {e.sigma_max:g}, "
+        f"{markup_safe(e.mask.kind)} mask, {markup_safe(_light(e), None)}"
     )
     feature = "line" if rule.field == "clear" else "opening"
     console.print(
@@ -255,7 +213,9 @@ def cmd_sweep(args) -> int:
     cd = args.cd
     if cd is None:
         if rule.anchor is None:
-            raise PitchguardError(f"layer {rule.name!r} has no anchor in the deck: give --cd NM")
+            raise PitchguardError(
+                f"layer '{shown(rule.name)}' has no anchor in the deck: give --cd NM"
+            )
         cd = rule.anchor.cd_nm
     if args.pitches:
         lo, hi, step = args.pitches
@@ -269,7 +229,9 @@ def cmd_sweep(args) -> int:
     if not results:
         raise PitchguardError(f"no pitch in the range is larger than the CD ({cd:g} nm)")
     t = Table(
-        title=f"{rule.name}: CD {cd:g} nm through pitch", title_justify="left", show_edge=False
+        title=f"{markup_safe(rule.name)}: CD {cd:g} nm through pitch",
+        title_justify="left",
+        show_edge=False,
     )
     drawn_rule = _as_drawn(rule)
     drawn = None if drawn_rule is None else through_pitch(drawn_rule, cd, pitches, args.orientation)
@@ -331,81 +293,26 @@ def cmd_sweep(args) -> int:
     return EXIT_OK
 
 
-def _array_json(r, rule) -> dict:
-    from pitchguard.outputs.json_report import clean_json, violation_to_dict
-
-    m, shown, lo = r.metrics, r.shown, r.orders
-    row = r.intensity[r.intensity.shape[0] // 2]  # the cut along x through the feature centre
-    return clean_json(
-        {
-            "pitch_nm": r.pitch_nm[0],
-            "pitch_y_nm": r.pitch_nm[1],
-            "cd_nm": r.cd_nm[0],
-            "cd_y_nm": r.cd_nm[1],
-            "k1": lo.k1,
-            "rank": lo.rank,
-            "directions": [
-                {
-                    "order": list(d.order),
-                    "pitch_nm": d.pitch_nm,
-                    "angle_deg": d.angle_deg,
-                    "cutoff_pitch_nm": d.cutoff_pitch_nm,
-                    "resolved": d.resolved,
-                    "two_beam_fraction": d.two_beam_fraction,
-                }
-                for d in lo.first
-            ],
-            "contrast": shown.contrast,
-            "nils": shown.nils_x,
-            "nils_y": shown.nils_y,
-            "printed_nm": [m.size_x_nm, m.size_y_nm],
-            "missing": m.missing,
-            "merged": m.merged,
-            "exposure_latitude_pct": m.el_pct,
-            "depth_of_focus_nm": m.dof_nm,
-            "depth_of_focus_at_least": _dof_limited(m.dof_nm, rule.focus_span_nm),
-            "polarization": rule.exposure.polarization,
-            "image_index": rule.exposure.image_index,
-            "threshold": m.threshold,
-            "severity": r.severity,
-            "checks": [violation_to_dict(v) for v in r.violations],
-            "focus_nm": r.focus_nm,
-            "image": {"x_nm": r.x_nm.tolist(), "intensity": row.tolist()},
-            "image_2d": {
-                "x_nm": r.x_nm.tolist(),
-                "y_nm": r.y_nm.tolist(),
-                "intensity": r.intensity.tolist(),
-            },
-        }
-    )
-
-
-def _probe_array(args, rule) -> int:
+def _probe_array(args, p) -> int:
     """``probe`` of a rectangular array of compact features."""
     import json
 
-    from pitchguard.judge.gratings import array_probe
-    from pitchguard.outputs.verdict import CAUTION
-
-    pitch_y = args.pitch_y if args.pitch_y is not None else args.pitch
-    cd_y = args.cd_y if args.cd_y is not None else args.cd
-    r = array_probe(rule, args.pitch, args.cd, pitch_y, cd_y, args.focus)
+    rule, r = p.rule, p.raw
     if args.plot is not None:
         from pitchguard.outputs.plots import plot_array
 
         plot_array(rule, r, args.plot, [args.rules])
     if args.json:
-        out = _array_json(r, rule)
-        out["caution"] = CAUTION
-        say(json.dumps(out))
+        say(json.dumps(p.to_dict()))
         return EXIT_OK
     console = make_console()
     e = rule.exposure
     feature = "posts" if rule.field == "clear" else "holes"
     console.print(
-        f"[bold]{rule.name}[/] ({rule.field} field) on {markup_safe(rule.exposure_name)}: "
-        f"λ {e.wavelength_nm:g} nm, NA {e.na:g}, {e.illumination.shape}, {e.mask.kind} mask, "
-        f"{_light(e)}"
+        f"[bold]{markup_safe(rule.name)}[/] ({markup_safe(rule.field)} field) on "
+        f"{markup_safe(rule.exposure_name)}: λ {e.wavelength_nm:g} nm, NA {e.na:g}, "
+        f"{markup_safe(e.illumination.shape)}, {markup_safe(e.mask.kind)} mask, "
+        f"{markup_safe(_light(e), None)}"
     )
     console.print(
         f"array: {r.cd_nm[0]:g} x {r.cd_nm[1]:g} nm {feature} at pitch "
@@ -449,7 +356,7 @@ def _print_verdict(console, violations) -> int:
 
     if violations:
         for v in violations:
-            console.print(f"  [bold]{v.severity}[/] {v.check}: {v.message}")
+            console.print(f"  [bold]{v.severity}[/] {v.check}: {markup_safe(v.message, None)}")
     else:
         console.print("  ok: no limit of this layer is broken")
     console.print(f"[dim]{CAUTION}[/]")

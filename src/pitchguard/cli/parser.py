@@ -7,6 +7,7 @@ import sys
 from pathlib import Path
 
 from pitchguard import __version__
+from pitchguard.cli import numbers
 from pitchguard.errors import (
     EXIT_USAGE,
 )
@@ -18,58 +19,14 @@ class Parser(argparse.ArgumentParser):
         self.exit(EXIT_USAGE, f"pitchguard: error: {message}\n")
 
 
-def _region(text: str) -> tuple[float, float, float, float]:
-    try:
-        vals = tuple(float(v) for v in text.split(","))
-    except ValueError:
-        vals = ()
-    if len(vals) != 4 or not (vals[0] < vals[2] and vals[1] < vals[3]):
-        raise argparse.ArgumentTypeError("expected X0,Y0,X1,Y1 in µm with X0 < X1 and Y0 < Y1")
-    return vals  # type: ignore[return-value]
+RULES_HELP = "rule deck (TOML); default: `rules` of the project's settings"
+
+SETTINGS_COMMANDS = ("scan", "diff", "probe", "sweep")
+"""Commands that take defaults from the project's settings (cli.config)."""
 
 
-def _positive_float(text: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not (v > 0 and v < 1e7):
-        raise argparse.ArgumentTypeError(f"expected a positive length in nm, got {text!r}")
-    return v
-
-
-def _pitch_range(text: str) -> tuple[float, float, float]:
-    try:
-        lo, hi, step = (float(v) for v in text.split(":"))
-    except ValueError:
-        raise argparse.ArgumentTypeError("expected FROM:TO:STEP in nm, e.g. 80:400:5") from None
-    if not (0 < lo < hi and step > 0) or (hi - lo) / step > 2000:
-        raise argparse.ArgumentTypeError("need 0 < FROM < TO, STEP > 0 and at most 2000 pitches")
-    return lo, hi, step
-
-
-def _whole(text: str) -> int:
-    try:
-        return int(float(text))
-    except (ValueError, OverflowError):
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-
-
-def _positive_int(text: str) -> int:
-    v = _whole(text)
-    if v < 1:
-        raise argparse.ArgumentTypeError("must be at least 1")
-    return v
-
-
-def _nonnegative_int(text: str) -> int:
-    v = _whole(text)
-    if v < 0:
-        raise argparse.ArgumentTypeError("must be at least 0")
-    return v
-
-
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(settings=None) -> argparse.ArgumentParser:
+    """The command line; ``settings`` (cli.config.Settings) give option defaults."""
 
     p = Parser(
         prog="pitchguard",
@@ -81,12 +38,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     scan = sub.add_parser("scan", help="scan a GDSII/OASIS layout with a rule deck")
     scan.add_argument("layout", type=Path, help="GDSII (.gds) or OASIS (.oas) file")
-    scan.add_argument(
-        "--rules", "-r", type=Path, required=True, metavar="DECK", help="rule deck (TOML)"
-    )
+    scan.add_argument("--rules", "-r", type=Path, metavar="DECK", help=RULES_HELP)
     scan.add_argument(
         "--region",
-        type=_region,
+        type=numbers.region_um,
         metavar="X0,Y0,X1,Y1",
         help="scan only sites inside this window (µm, as drawn)",
     )
@@ -107,49 +62,49 @@ def build_parser() -> argparse.ArgumentParser:
     dif = sub.add_parser("diff", help="scan two revisions; report introduced, fixed, unchanged")
     dif.add_argument("base", type=Path, help="the earlier revision (GDSII or OASIS)")
     dif.add_argument("new", type=Path, help="the revision to gate")
-    dif.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK")
+    dif.add_argument("--rules", "-r", type=Path, metavar="DECK", help=RULES_HELP)
     add_output_options(dif)
 
     probe = sub.add_parser("probe", help="explain one pitch: orders, k1, aerial image, metrics")
-    probe.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK")
+    probe.add_argument("--rules", "-r", type=Path, metavar="DECK", help=RULES_HELP)
     probe.add_argument("--layer", required=True, metavar="NAME", help="deck layer")
     probe.add_argument(
         "--pitch",
-        type=_positive_float,
+        type=numbers.length_nm,
         required=True,
         metavar="NM",
         help="pitch, nm at wafer scale",
     )
     probe.add_argument(
         "--cd",
-        type=_positive_float,
+        type=numbers.length_nm,
         required=True,
         metavar="NM",
         help="feature width: line on a clear field, opening on a dark one",
     )
     probe.add_argument(
         "--pitch-y",
-        type=_positive_float,
+        type=numbers.length_nm,
         metavar="NM",
         help="an array of compact features instead of lines: the pitch along y "
         "(default: --pitch when --cd-y is given)",
     )
     probe.add_argument(
         "--cd-y",
-        type=_positive_float,
+        type=numbers.length_nm,
         metavar="NM",
         help="the features' size along y (default: --cd when --pitch-y is given)",
     )
     probe.add_argument(
         "--focus",
-        type=float,
+        type=numbers.focus_nm,
         default=0.0,
         metavar="NM",
         help="focus of the image shown (metrics use the deck's focus range)",
     )
     probe.add_argument(
         "--orientation",
-        type=float,
+        type=numbers.angle_deg,
         default=90.0,
         metavar="DEG",
         help="direction the lines run (default 90: along y, pitch along x)",
@@ -161,23 +116,23 @@ def build_parser() -> argparse.ArgumentParser:
     probe.add_argument("--debug", action="store_true", help="show tracebacks")
 
     sweep = sub.add_parser("sweep", help="through-pitch sweep for one CD: forbidden pitches")
-    sweep.add_argument("--rules", "-r", type=Path, required=True, metavar="DECK")
+    sweep.add_argument("--rules", "-r", type=Path, metavar="DECK", help=RULES_HELP)
     sweep.add_argument("--layer", required=True, metavar="NAME", help="deck layer")
     sweep.add_argument(
         "--cd",
-        type=_positive_float,
+        type=numbers.length_nm,
         metavar="NM",
         help="feature width, nm (default: the layer's anchor CD)",
     )
     sweep.add_argument(
         "--pitches",
-        type=_pitch_range,
+        type=numbers.pitch_range,
         metavar="FROM:TO:STEP",
         help="pitch range, nm (default: from the cutoff to 4 lambda/NA)",
     )
     sweep.add_argument(
         "--orientation",
-        type=float,
+        type=numbers.angle_deg,
         default=90.0,
         metavar="DEG",
         help="direction the lines run (default 90)",
@@ -193,6 +148,17 @@ def build_parser() -> argparse.ArgumentParser:
     check = rsub.add_parser("check", help="validate a deck and show what it sets")
     check.add_argument("deck", type=Path)
     check.add_argument("--debug", action="store_true", help="show tracebacks")
+    for name, sp in sub.choices.items():
+        if name in SETTINGS_COMMANDS:
+            sp.add_argument(
+                "--no-config",
+                action="store_true",
+                help="ignore .pitchguard.toml and [tool.pitchguard] of pyproject.toml",
+            )
+            if settings is not None:
+                from pitchguard.cli.config import defaults_for
+
+                sp.set_defaults(**defaults_for(settings, name, sp))
     return p
 
 
@@ -221,13 +187,20 @@ def add_output_options(p) -> None:
         "to the top-level list `texts`, which holds each text once)",
     )
     p.add_argument("--sarif", type=Path, metavar="PATH", help="write SARIF 2.1.0 for code scanning")
+    p.add_argument(
+        "--sarif-root",
+        type=Path,
+        metavar="DIR",
+        help="SARIF names the layout relative to this folder (default: the git work tree "
+        "holding the layout)",
+    )
     p.add_argument("--junit", type=Path, metavar="PATH", help="write JUnit XML for CI dashboards")
     p.add_argument(
         "--html", type=Path, metavar="PATH", help="write a self-contained HTML report with pictures"
     )
     p.add_argument(
         "--html-pictures",
-        type=_nonnegative_int,
+        type=numbers.pictured,
         default=PICTURED_GROUPS,
         metavar="N",
         help=f"groups of findings drawn with pictures in the HTML report, worst first "
@@ -242,14 +215,14 @@ def add_output_options(p) -> None:
     p.add_argument("--cell", metavar="NAME", help="top cell to scan (default: all top cells)")
     p.add_argument(
         "--top",
-        type=_positive_int,
+        type=numbers.top_rows,
         default=20,
         metavar="N",
         help="worst regions listed in the terminal (default: 20)",
     )
     p.add_argument(
         "--max-shapes",
-        type=_positive_int,
+        type=numbers.shape_count,
         default=None,
         metavar="N",
         help="refuse layouts that flatten to more shapes (default: 2 billion tiled, "
@@ -257,7 +230,7 @@ def add_output_options(p) -> None:
     )
     p.add_argument(
         "--read-timeout",
-        type=_positive_float,
+        type=numbers.seconds,
         default=None,
         metavar="S",
         help="stop reading a layout after S seconds (default: 3600)",
@@ -265,14 +238,15 @@ def add_output_options(p) -> None:
     p.add_argument(
         "--jobs",
         "-j",
-        type=_positive_int,
+        type=numbers.jobs,
         default=None,
         metavar="N",
-        help="local worker processes for the tiles (default: all cores)",
+        help="local worker processes for the tiles (default: one per usable core; at most 4 "
+        "per core and one per tile)",
     )
     p.add_argument(
         "--tile-um",
-        type=_positive_float,
+        type=numbers.tile_um,
         default=None,
         metavar="UM",
         help="tile size, rounded up to a multiple of 10 (default: chosen from the "
@@ -280,7 +254,7 @@ def add_output_options(p) -> None:
     )
     p.add_argument(
         "--max-memory-mb",
-        type=_positive_int,
+        type=numbers.memory_mb,
         default=None,
         metavar="MB",
         help="memory for the scan's processes together; picks the tile size "

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from pitchguard.cli.console import make_console, progress_callback, say, show_note
+from pitchguard.cli.console import make_console, progress_callback, say, show_note, tell
 from pitchguard.cli.stops import resume_gc
 from pitchguard.errors import (
     PitchguardError,
@@ -39,8 +39,7 @@ def _run_scan(args, deck, layout: Path, label: str = "", cells: bool | None = No
     the cell of every finding too: every report lists findings per cell."""
     from functools import partial
 
-    from pitchguard.layout.reader import DEFAULT_MAX_SHAPES
-    from pitchguard.run.scan import scan_layout
+    from pitchguard.api.scanning import run_scan
 
     err = bar = update = None
     if not args.quiet:  # quiet: no bar, no notes, and no rich to import
@@ -55,43 +54,25 @@ def _run_scan(args, deck, layout: Path, label: str = "", cells: bool | None = No
     resume_gc()
     if cells is None:
         cells = not only_counts(args)
-    tiled = not args.untiled
-    if not tiled and (args.jobs or args.tile_um or args.scheduler or args.max_memory_mb):
-        raise PitchguardError(
-            "--untiled cannot be combined with --jobs, --tile-um, --max-memory-mb or --scheduler"
-        )
     try:
         if bar:
             bar.start()
-        if tiled:
-            from pitchguard.run.plan import DEFAULT_TILED_MAX_SHAPES
-            from pitchguard.run.tiled import scan_tiled
-
-            return scan_tiled(
-                layout,
-                deck,
-                tile_um=args.tile_um,
-                jobs=args.jobs,
-                scheduler=args.scheduler,
-                cell=args.cell,
-                progress=update,
-                region_um=getattr(args, "region", None),
-                max_shapes=args.max_shapes or DEFAULT_TILED_MAX_SHAPES,
-                read_timeout_s=args.read_timeout,
-                max_memory_mb=args.max_memory_mb,
-                note=None if args.quiet else partial(show_note, err),
-                ordered=not (args.command == "scan" and only_counts(args)),
-                cells=cells,
-            )
-        return scan_layout(
+        return run_scan(
             layout,
             deck,
             cell=args.cell,
             region_um=getattr(args, "region", None),
-            max_shapes=args.max_shapes or DEFAULT_MAX_SHAPES,
-            progress=update,
+            untiled=args.untiled,
+            jobs=args.jobs,
+            tile_um=args.tile_um,
+            max_memory_mb=args.max_memory_mb,
+            scheduler=args.scheduler,
+            max_shapes=args.max_shapes,
             read_timeout_s=args.read_timeout,
             cells=cells,
+            ordered=not (args.command == "scan" and only_counts(args)),
+            progress=update,
+            note=None if args.quiet else partial(show_note, err),
         )
     finally:
         if bar:
@@ -99,21 +80,24 @@ def _run_scan(args, deck, layout: Path, label: str = "", cells: bool | None = No
 
 
 def _write_outputs(args, result, deck, inputs, extra_json=None) -> None:
-    from pitchguard.outputs.json_report import TextTable, to_json, write_json
-    from pitchguard.outputs.markers import write_markers
+    from pitchguard.api.scanning import ScanReport
 
+    report = ScanReport(
+        result,
+        deck,
+        fail_on=args.fail_on,
+        inputs=inputs,
+        cell=args.cell,
+        read_timeout_s=args.read_timeout,
+    )
     if args.json is not None:
-        texts = None if args.json_inline_texts else TextTable()
-        payload = to_json(result, deck, args.fail_on, lazy=True, texts=texts)
-        if extra_json:  # a dict, or a function of the text table
-            payload.update(extra_json(texts) if callable(extra_json) else extra_json)
-        write_json(args.json, payload, inputs)
+        report.write_json(args.json, inline_texts=args.json_inline_texts, extra=extra_json)
     if args.markers is not None:
-        write_markers(args.markers, result, deck, inputs, flat=args.flat_markers)
+        report.write_markers(args.markers, flat=args.flat_markers)
     if args.sarif is not None:
-        from pitchguard.outputs.sarif import SERVICE_RESULTS_MAX, write_sarif
+        from pitchguard.outputs.sarif import SERVICE_RESULTS_MAX
 
-        results = write_sarif(args.sarif, result, deck, result.layout.path, args.fail_on, inputs)
+        results = report.write_sarif(args.sarif, root=args.sarif_root)
         if results > SERVICE_RESULTS_MAX:  # also with --quiet: CI logs need it
             show_note(
                 make_console(stderr=True),
@@ -125,25 +109,23 @@ def _write_outputs(args, result, deck, inputs, extra_json=None) -> None:
                 ),
             )
     if args.junit is not None:
-        from pitchguard.outputs.junit import write_junit
-
-        write_junit(args.junit, result, deck, args.fail_on, inputs)
+        report.write_junit(args.junit)
     if args.html is not None:
-        from pitchguard.outputs.html.clips import add_clip_geometry
-        from pitchguard.outputs.html.page import write_html
-
-        if result.tiling is not None:  # tiled scans keep no geometry: read the pictures' part
-            result = add_clip_geometry(
-                result, deck, args.cell, args.html_pictures, timeout_s=args.read_timeout
-            )
-        write_html(args.html, result, deck, inputs, args.fail_on, args.html_pictures)
+        report.write_html(args.html, pictures=args.html_pictures)
 
 
 def cmd_scan(args) -> int:
     import dataclasses
 
     from pitchguard.deck import load_deck
-    from pitchguard.outputs.baseline import apply_baseline, load_baseline, write_baseline
+    from pitchguard.errors import EXIT_OK
+    from pitchguard.outputs.baseline import (
+        apply_baseline,
+        deck_note,
+        expired_note,
+        load_baseline_file,
+        write_baseline,
+    )
     from pitchguard.outputs.table import one_line_summary, print_table
     from pitchguard.outputs.verdict import exit_code
 
@@ -157,14 +139,18 @@ def cmd_scan(args) -> int:
     if same:
         inputs = inputs[:-1]  # updating a baseline in place keeps its reasons and owners
     _check_outputs(args, inputs)
-    entries = load_baseline(args.baseline) if args.baseline else None
+    base = load_baseline_file(args.baseline) if args.baseline else None
     from pitchguard.outputs.baseline import accepted_to_dict, entry_text
     from pitchguard.outputs.texts import printable
 
+    if base is not None and (mismatch := deck_note(base, args.baseline, deck.name)):
+        tell(f"pitchguard: note: {mismatch}")  # also when quiet: a gate that may not hold
     result = _run_scan(args, deck, args.layout)
     gate = None
-    if entries is not None:
-        gate = apply_baseline(result.findings, entries, args.baseline, cells=result.cells)
+    if base is not None:
+        gate = apply_baseline(result.findings, base.entries, args.baseline, cells=result.cells)
+        if lapsed := expired_note(gate, args.baseline):
+            tell(f"pitchguard: note: {lapsed}")
     extra = None
     shown = result
     if gate is not None:
@@ -176,13 +162,18 @@ def cmd_scan(args) -> int:
                 "stale": len(gate.stale),
                 "stale_entries": gate.stale,
                 "accepted_entries": [accepted_to_dict(a) for a in gate.accepted],
+                "expired": len(gate.expired),
+                "expired_entries": gate.expired,
+                "deck": base.deck,
+                "deck_matches": base.deck is None or base.deck == deck.name,
             }
         }
         cells = result.cells.take(gate.new_index) if result.cells is not None else None
         shown = dataclasses.replace(result, findings=gate.new, cells=cells)
     _write_outputs(args, result if gate is None else shown, deck, inputs, extra)
+    written = None
     if args.write_baseline is not None:
-        write_baseline(
+        written = write_baseline(
             args.write_baseline,
             result.findings,
             deck.name,
@@ -191,13 +182,16 @@ def cmd_scan(args) -> int:
             cells=result.cells,
         )
     gated = gate.new if gate is not None else result.findings
-    code = exit_code(gated, args.fail_on)
+    # Writing a baseline accepts what the scan found: the job succeeded once it is written.
+    code = EXIT_OK if written is not None else exit_code(gated, args.fail_on)
     note = ""
     if gate is not None:
         note = (
             f" [baseline: {len(gate.new)} new, {gate.accepted_placements} accepted, "
-            f"{len(gate.stale)} stale]"
+            f"{len(gate.stale)} stale{f', {len(gate.expired)} expired' if gate.expired else ''}]"
         )
+    if written is not None:
+        note += f" [baseline written: {written} entr{'y' if written == 1 else 'ies'}]"
     if args.quiet:
         say(one_line_summary(shown, args.fail_on) + note)
     else:
@@ -209,13 +203,20 @@ def cmd_scan(args) -> int:
                 "shown above, "
                 f"{gate.accepted_placements} accepted by {len(gate.accepted)} "
                 f"entr{'y' if len(gate.accepted) == 1 else 'ies'}, "
-                f"{len(gate.stale)} stale",
+                f"{len(gate.stale)} stale"
+                + (f", {len(gate.expired)} expired (see the note)" if gate.expired else ""),
                 markup=False,
             )
             for e in gate.stale[:20]:  # cell names are the user's: no markup
                 out.print(
                     f"  stale (fixed since, prune it): {printable(entry_text(e))}", markup=False
                 )
+        if written is not None:
+            out.print(
+                f"baseline written to {printable(args.write_baseline)}: {written} "
+                f"entr{'y' if written == 1 else 'ies'} (exit 0: the findings are recorded)",
+                markup=False,
+            )
     return code
 
 

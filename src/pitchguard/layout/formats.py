@@ -8,7 +8,7 @@ import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
-from pitchguard.errors import LayoutError, read_input
+from pitchguard.errors import LayoutError, open_regular, read_input
 
 GDS_MAGIC = b"\x00\x06\x00\x02"
 
@@ -16,8 +16,21 @@ GDS_MAGIC = b"\x00\x06\x00\x02"
 OASIS_MAGIC = b"%SEMI-OASIS\r\n"
 
 
+def require_regular_file(path: Path) -> None:
+    """Refuse (LayoutError) a layout path that is not a regular file.
+
+    The layout library reads a file more than once and by name; a named pipe
+    or a device would block it (a reader that never comes back) or feed it an
+    endless stream.  Opened without blocking, so a pipe with no writer is
+    refused at once rather than waited on.
+    """
+    fd, _ = open_regular(path, "layout", LayoutError)
+    os.close(fd)
+
+
 def sniff_format(path: Path) -> str:
-    """Return "gds" or "oas" from the file's first bytes."""
+    """Return "gds" or "oas" from the file's first bytes (a regular file's only)."""
+    require_regular_file(path)
     head = read_input(path, "layout", LayoutError, len(OASIS_MAGIC))
     if head.startswith(OASIS_MAGIC):
         return "oas"

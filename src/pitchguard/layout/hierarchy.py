@@ -8,68 +8,31 @@ whose content keys are equal hold the same polygons up to a shift.
 from __future__ import annotations
 
 import hashlib
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from pitchguard.layout.box_grid import BoxGrid
+from pitchguard.layout.flat_counts import EDGE_PIECE_NM
+from pitchguard.layout.placement import (  # noqa: F401  (the names tests and holders use)
+    COUNT_EXACT_ABOVE,
+    FEW_INSTANCES,
+    GRID_INSTANCES,
+    Affine,
+    Box,
+    _boxes_meeting,
+    _matrix,
+    _moved_box_hits,
+    _OffsetList,
+    _ref_affine,
+    _selected,
+    boxes_meet,
+    offsets_in,
+)
 from pitchguard.layout.polygons import PolygonSet
-
-Box = tuple[float, float, float, float]
-
-
-COUNT_EXACT_ABOVE = 4096
-"""Cells with more own polygons are counted per window by their polygons' boxes
-(:meth:`HierarchyQuery.count`); smaller ones whole (an upper bound, cheaper)."""
-
-FEW_INSTANCES = 64
-"""Array instances a window may meet below which they are found in plain floats."""
-
+from pitchguard.layout.walks import children_first, run_nested
 
 PLACEMENT_MEMO_ENTRIES = 100_000
 """Memoised placement lists kept per query object (cleared when full)."""
-
-
-@dataclass(frozen=True)
-class Affine:
-    """p' = m @ p + t (2x2 matrix, translation)."""
-
-    m: np.ndarray
-    t: np.ndarray
-
-    @classmethod
-    def identity(cls) -> Affine:
-        return cls(np.eye(2), np.zeros(2))
-
-    def then(self, inner: Affine) -> Affine:
-        """The transform of ``inner`` followed by this one."""
-        return Affine(self.m @ inner.m, self.m @ inner.t + self.t)
-
-    def box(self, b: Box) -> Box:
-        """Bounding box of the transformed box ``b`` (plain floats: called per tile)."""
-        x0, y0, x1, y1 = (float(v) for v in b)
-        (a, b_), (c, d) = self.m.tolist()
-        tx, ty = self.t.tolist()
-        xs = (a * x0 + b_ * y0, a * x1 + b_ * y0, a * x1 + b_ * y1, a * x0 + b_ * y1)
-        ys = (c * x0 + d * y0, c * x1 + d * y0, c * x1 + d * y1, c * x0 + d * y1)
-        return (min(xs) + tx, min(ys) + ty, max(xs) + tx, max(ys) + ty)
-
-
-def _matrix(rotation: float, magnification: float, x_reflection: bool) -> np.ndarray:
-    """A reference's 2x2 placement matrix."""
-    mag = magnification or 1.0
-    c, s = math.cos(rotation), math.sin(rotation)
-    m = np.array([[c, -s], [s, c]]) * mag
-    if x_reflection:
-        m = m @ np.array([[1.0, 0.0], [0.0, -1.0]])
-    return m
-
-
-def _ref_affine(ref, scale: float) -> Affine:
-    """Reference placement (without repetition) in nm."""
-    m = _matrix(ref.rotation, ref.magnification, ref.x_reflection)
-    return Affine(m, np.asarray(ref.origin, dtype=np.float64) * scale)
 
 
 def _canonical(a: np.ndarray) -> bytes:
@@ -79,48 +42,6 @@ def _canonical(a: np.ndarray) -> bytes:
     a[:, 5:] = np.round(a[:, 5:], 3)
     a += 0.0  # no negative zeros
     return a[np.lexsort(a.T[::-1])].tobytes()
-
-
-def boxes_meet(b: Box, w: Box) -> bool:
-    """Whether two boxes meet (touching counts)."""
-    return b[0] <= w[2] and b[2] >= w[0] and b[1] <= w[3] and b[3] >= w[1]
-
-
-def _moved_box_hits(box, offsets: np.ndarray, w: Box) -> np.ndarray:
-    """Which copies of ``box`` moved by ``offsets`` (n, 2) meet ``w``."""
-    return (
-        (box[0] + offsets[:, 0] <= w[2])
-        & (box[2] + offsets[:, 0] >= w[0])
-        & (box[1] + offsets[:, 1] <= w[3])
-        & (box[3] + offsets[:, 1] >= w[1])
-    )
-
-
-class _OffsetList:
-    """Explicit instance offsets (n, 2) of one reference, sorted by x so that a
-    window meets a slice of them: a cell placed one by one many thousand times
-    (vias, fill) costs a search per window, not a loop."""
-
-    def __init__(self, xy: np.ndarray):
-        xy = np.asarray(xy, dtype=np.float64).reshape(-1, 2)
-        self.xy = xy[np.argsort(xy[:, 0], kind="stable")]
-        self.x = np.ascontiguousarray(self.xy[:, 0])
-
-    def __len__(self) -> int:
-        return len(self.xy)
-
-    def extremes(self) -> list[np.ndarray]:
-        """The lower-left and upper-right corners of the offsets' box."""
-        if not len(self.xy):
-            return [np.zeros(2)]
-        return [self.xy.min(axis=0), self.xy.max(axis=0)]
-
-    def within(self, x0: float, y0: float, x1: float, y1: float) -> np.ndarray:
-        """The offsets inside the box (x0, y0, x1, y1), in x order."""
-        a = int(np.searchsorted(self.x, x0, side="left"))
-        b = int(np.searchsorted(self.x, x1, side="right"))
-        o = self.xy[a:b]
-        return o[(o[:, 1] >= y0) & (o[:, 1] <= y1)]
 
 
 GROUP_SINGLE_REFS = 8
@@ -136,6 +57,18 @@ class _CellData:
     own_bbox: Box | None = None  # of the cell's own polygons (asked-for layers)
     index: int = 0  # the cell's number in content keys
     grids: dict = field(default_factory=dict)  # layer -> BoxGrid, for many own polygons
+    # layer -> (vertices, perimeter nm) of each own polygon: a scan's work grows with both
+    edges: dict = field(default_factory=dict)
+
+
+def _edge_sizes(ps: PolygonSet) -> tuple[np.ndarray, np.ndarray]:
+    """Vertices and perimeter (nm) of each polygon of ``ps``."""
+    if not len(ps):
+        return np.zeros(0, np.int64), np.zeros(0)
+    nxt = np.arange(1, len(ps.points) + 1)
+    nxt[ps.starts[1:] - 1] = ps.starts[:-1]  # each polygon's last vertex joins its first
+    seg = np.hypot(*(ps.points[nxt] - ps.points).T)
+    return np.diff(ps.starts), np.add.reduceat(seg, ps.starts[:-1])
 
 
 class HierarchyQuery:
@@ -149,21 +82,34 @@ class HierarchyQuery:
         self._memo: dict = {}  # content-key placements per (cell, frame, relative window)
         self._keys: dict = {}  # content keys by the quick digest (see content_key)
         by_name = {c.name: c for c in lib.cells if hasattr(c, "references")}
-        for name in self.tops:
-            self._load(by_name[name], by_name)
-        for name in self.tops:
-            self._bbox(name)
+
+        def child_of(ref):
+            child = ref.cell if not isinstance(ref.cell, str) else by_name.get(ref.cell)
+            return child if child is not None and hasattr(child, "references") else None
+
+        # Children before parents, without recursion (chains may be thousands deep).
+        for cell in children_first([by_name[name] for name in self.tops], child_of):
+            self._load(cell, child_of)
+        for cd in self.cells.values():
+            cd.bbox = self._bbox(cd)
         # Own polygons per cell (asked-for layers), by the cell's number.
         self.own_counts = np.array(
             [sum(len(ps) for ps, _ in cd.polys.values()) for cd in self.cells.values()],
             dtype=np.int64,
         )
+        self.own_vertices = np.array(
+            [sum(int(v.sum()) for v, _ in cd.edges.values()) for cd in self.cells.values()],
+            dtype=np.int64,
+        )
+        self.own_perimeters = np.array(
+            [sum(float(e.sum()) for _, e in cd.edges.values()) for cd in self.cells.values()],
+            dtype=np.float64,
+        )
         self._by_index = list(self.cells.values())
 
     # -- preparation ---------------------------------------------------------
-    def _load(self, cell, by_name) -> None:
-        if cell.name in self.cells:
-            return
+    def _load(self, cell, child_of) -> None:
+        """The data of ``cell``, whose children are loaded already."""
         polys = {}
         for ld in self.layers:
             own = cell.get_polygons(
@@ -171,17 +117,17 @@ class HierarchyQuery:
             )
             ps = PolygonSet.from_arrays((q.points for q in own), self.scale)
             polys[ld] = (ps, ps.bounding_boxes())
+        edges = {ld: _edge_sizes(ps) for ld, (ps, _) in polys.items()}
         refs = []
         singles: dict[tuple, list] = {}  # (child, orientation) -> [origins]
         for ref in cell.references:
-            child = ref.cell if not isinstance(ref.cell, str) else by_name.get(ref.cell)
-            if child is None or not hasattr(child, "references"):
+            child = child_of(ref)
+            if child is None:
                 continue  # unresolved reference: nothing to place
             rep = ref.repetition
             if not rep.size:
                 key = (child.name, ref.rotation, ref.magnification, ref.x_reflection)
                 singles.setdefault(key, []).append(ref.origin)
-                self._load(child, by_name)
                 continue
             aff = _ref_affine(ref, self.scale)
             if rep.columns and rep.rows and rep.v1 is not None and rep.v2 is not None:
@@ -208,7 +154,6 @@ class HierarchyQuery:
             else:
                 offs = ("list", _OffsetList(np.asarray(rep.get_offsets()) * self.scale))
             refs.append((child.name, aff, offs))
-            self._load(child, by_name)
         for (child, *orientation), origins in singles.items():
             m = _matrix(*orientation)
             t = np.array(origins, dtype=np.float64).reshape(-1, 2) * self.scale
@@ -221,30 +166,28 @@ class HierarchyQuery:
         if own:
             a = np.concatenate(own)
             own_bbox = (a[:, 0].min(), a[:, 1].min(), a[:, 2].max(), a[:, 3].max())
-        self.cells[cell.name] = _CellData(polys, refs, own_bbox=own_bbox, index=len(self.cells))
+        self.cells[cell.name] = _CellData(
+            polys, refs, own_bbox=own_bbox, index=len(self.cells), edges=edges
+        )
 
-    def _bbox(self, name: str) -> Box | None:
-        cd = self.cells[name]
-        if cd.bbox is not None:
-            return cd.bbox
+    def _bbox(self, cd: _CellData) -> Box | None:
+        """The box of everything in ``cd`` (its children's boxes known already)."""
         boxes = [
             np.hstack([bb[:, :2].min(axis=0), bb[:, 2:].max(axis=0)])
             for _, bb in cd.polys.values()
             if len(bb)
         ]
         for child, aff, offs in cd.refs:
-            cb = self._bbox(child)
+            cb = self.cells[child].bbox
             if cb is None:
                 continue
             tb = np.array(aff.box(cb))
             for o in self._offset_extremes(offs):
                 boxes.append(tb + np.array([o[0], o[1], o[0], o[1]]))
-        if boxes:
-            arr = np.array(boxes)
-            cd.bbox = (arr[:, 0].min(), arr[:, 1].min(), arr[:, 2].max(), arr[:, 3].max())
-        else:
-            cd.bbox = None
-        return cd.bbox
+        if not boxes:
+            return None
+        arr = np.array(boxes)
+        return (arr[:, 0].min(), arr[:, 1].min(), arr[:, 2].max(), arr[:, 3].max())
 
     @staticmethod
     def _offset_extremes(offs) -> list[np.ndarray]:
@@ -255,6 +198,8 @@ class HierarchyQuery:
             cols, rows, v1, v2 = data
             return [i * v1 + j * v2 for i in (0, cols - 1) for j in (0, rows - 1)]
         return data.extremes()
+
+    _offsets_in = staticmethod(offsets_in)  # as layout.holders_batch calls it
 
     # -- queries -------------------------------------------------------------
     def bounding_box(self) -> Box | None:
@@ -268,21 +213,31 @@ class HierarchyQuery:
         """Polygons (nm) whose bounding box intersects ``window`` (nm), per layer."""
         out: dict[tuple[int, int], list[PolygonSet]] = {ld: [] for ld in self.layers}
         for name in self.tops:
-            self._visit(name, Affine.identity(), window, out)
+            run_nested(self._visit(name, Affine.identity(), window, out))
         return {ld: PolygonSet.joined(v) for ld, v in out.items()}
 
     def count(self, window: Box) -> int:
         """An upper bound of the polygons :meth:`query` returns for ``window``: the own
         polygons of every placed cell whose own polygons may meet it (cheap: no
         polygon is touched)."""
+        return self.work(window)[0]
+
+    def work(self, window: Box) -> tuple[int, float]:
+        """Upper bounds of what :meth:`query` returns for ``window``: polygons (see
+        :meth:`count`), and the site pieces of their edges (vertices plus
+        perimeter over ``EDGE_PIECE_NM``; a magnified placement's edges are
+        longer), which a scan's work and memory grow with."""
         rows: list[np.ndarray] = []
         for name in self.tops:
             self._placements(name, Affine.identity(), window, rows)
         if not rows:
-            return 0
+            return 0, 0.0
         placed = np.concatenate(rows)
         cells = placed[:, 0].astype(np.int64)
         counts = self.own_counts[cells]
+        mags = np.sqrt(np.abs(placed[:, 1] * placed[:, 4] - placed[:, 2] * placed[:, 3]))
+        vertices = self.own_vertices[cells].astype(np.float64)
+        perimeters = self.own_perimeters[cells]
         # A cell with many polygons of its own (a flat layout's top cell) is counted
         # by the polygons meeting the window, not whole: otherwise every tile of a
         # flat layout would count all of it.
@@ -290,19 +245,24 @@ class HierarchyQuery:
         for k in big.tolist():
             cd = self._by_index[int(cells[k])]
             m = placed[k, 1:5].reshape(2, 2)
-            counts[k] = self._count_in(cd, m, placed[k, 5:], window)
-        return int(counts.sum())
+            counts[k], vertices[k], perimeters[k] = self._count_in(cd, m, placed[k, 5:], window)
+        pieces = float((vertices + mags * perimeters / EDGE_PIECE_NM).sum())
+        return int(counts.sum()), pieces
 
     @staticmethod
-    def _count_in(cd: _CellData, m: np.ndarray, t: np.ndarray, window: Box) -> int:
+    def _count_in(cd: _CellData, m: np.ndarray, t: np.ndarray, window: Box):
         """The own polygons of ``cd`` placed by ``m`` and ``t`` whose box meets
-        ``window`` (as :meth:`_place` selects them)."""
+        ``window`` (as :meth:`_place` selects them): their number, vertices and
+        perimeter (nm, unplaced)."""
         shifts = np.asarray(t, dtype=np.float64).reshape(1, 2)
-        return sum(
-            len(_selected(cd, ld, bb, m, shifts, window)[1])
-            for ld, (ps, bb) in cd.polys.items()
-            if len(ps)
-        )
+        n, vertices, perimeter = 0, 0, 0.0
+        for ld, (ps, bb) in cd.polys.items():
+            if len(ps):
+                k = _selected(cd, ld, bb, m, shifts, window)[1]
+                n += len(k)
+                vertices += int(cd.edges[ld][0][k].sum())
+                perimeter += float(cd.edges[ld][1][k].sum())
+        return n, vertices, perimeter
 
     def content_key(self, window: Box, origin: tuple[float, float]) -> bytes:
         """A digest of what :meth:`query` would return for ``window``, relative to ``origin``.
@@ -363,6 +323,11 @@ class HierarchyQuery:
         of its rows in its own frame, its position, those rows)`` instead of by
         its rows.
         """
+        run_nested(self._placement_steps(name, aff, window, rows, tokens))
+
+    def _placement_steps(self, name: str, aff: Affine, window: Box, rows, tokens=None):
+        """:meth:`_placements` as steps for :func:`run_nested` (it yields its nested
+        calls)."""
         cd = self.cells[name]
         if cd.bbox is None or not boxes_meet(aff.box(cd.bbox), window):
             return
@@ -383,7 +348,7 @@ class HierarchyQuery:
                 continue
             for off in o:
                 t = placed.t + off
-                local, digest = self._local(child, placed.m, t, window, tokens is not None)
+                local, digest = yield self._local(child, placed.m, t, window, tokens is not None)
                 if not len(local):
                     continue
                 if tokens is None:
@@ -397,7 +362,7 @@ class HierarchyQuery:
         """:meth:`_placements` of a cell placed by ``m`` and ``t``, in a frame moved by
         ``-t``, and (if ``digest``) a digest of them; memoised by the frame and the
         window relative to it: arrays of blocks see the same relative windows
-        over and over."""
+        over and over.  Steps for :func:`run_nested`."""
         tx, ty = float(t[0]), float(t[1])
         rel = (
             round(window[0] - tx, 6) + 0.0,
@@ -411,7 +376,7 @@ class HierarchyQuery:
             if len(self._memo) >= PLACEMENT_MEMO_ENTRIES:
                 self._memo.clear()
             found: list[np.ndarray] = []
-            self._placements(name, Affine(m, np.zeros(2)), rel, found)
+            yield self._placement_steps(name, Affine(m, np.zeros(2)), rel, found)
             entry = [np.concatenate(found) if found else np.empty((0, 7)), None]
             self._memo[key] = entry
         if digest and entry[1] is None:
@@ -426,7 +391,7 @@ class HierarchyQuery:
             if ccd.bbox is None:
                 continue
             placed = aff.then(ref_aff)
-            o = self._offsets_in(offs, aff, np.array(placed.box(ccd.bbox)), window)
+            o = offsets_in(offs, aff, np.array(placed.box(ccd.bbox)), window)
             if len(o):
                 yield child, ccd, placed, o
 
@@ -438,10 +403,12 @@ class HierarchyQuery:
             bb = cd.polys[ld][1] if ld in cd.polys else np.zeros((0, 4))
             return bool(len(bb)) and bool(len(_selected(cd, ld, bb, aff.m, aff.t[None], window)[1]))
         out: dict = {k: [] for k in self.layers}
-        self._visit(name, aff, window, out)
+        run_nested(self._visit(name, aff, window, out))
         return any(len(ps) for ps in out.get(ld, ()))
 
-    def _visit(self, name: str, aff: Affine, window: Box, out) -> None:
+    def _visit(self, name: str, aff: Affine, window: Box, out):
+        """Add to ``out`` the polygons of cell ``name`` placed by ``aff`` that meet
+        ``window``, depth first; steps for :func:`run_nested`."""
         cd = self.cells[name]
         if cd.bbox is None or not boxes_meet(aff.box(cd.bbox), window):
             return
@@ -451,7 +418,7 @@ class HierarchyQuery:
                 self._place(ccd, placed.m, placed.t, o, window, out)
                 continue
             for off in o:
-                self._visit(child, Affine(placed.m, placed.t + off), window, out)
+                yield self._visit(child, Affine(placed.m, placed.t + off), window, out)
 
     @staticmethod
     def _place(
@@ -476,121 +443,3 @@ class HierarchyQuery:
             pts = ps.points[rows] @ m.T
             pts += np.repeat(shifts[inst], np.diff(starts), axis=0)
             out[ld].append(PolygonSet(pts, starts))
-
-    @staticmethod
-    def _offsets_in(offs, aff: Affine, base: np.ndarray, window: Box):
-        """Instance offsets (in the query frame) whose box intersects the window."""
-        kind, data = offs
-        if kind == "one":
-            return np.zeros((1, 2)) if boxes_meet(tuple(base), window) else np.zeros((0, 2))
-        if kind == "list":
-            # Copies of ``base`` moved by m @ o meet the window only for m @ o in
-            # the box below; its preimage's box (a little wider) bounds o.
-            wx0, wy0, wx1, wy1 = window
-            bx0, by0, bx1, by1 = (float(v) for v in base)
-            lo, hi = np.array([wx0 - bx1, wy0 - by1]), np.array([wx1 - bx0, wy1 - by0])
-            if (lo > hi).any():
-                return np.zeros((0, 2))
-            if not np.array_equal(aff.m, np.eye(2)):
-                c = np.array([lo, [hi[0], lo[1]], hi, [lo[0], hi[1]]]) @ np.linalg.inv(aff.m).T
-                lo, hi = c.min(axis=0), c.max(axis=0)
-            slack = 1e-6 * (1.0 + np.abs(lo).max() + np.abs(hi).max())
-            o = data.within(lo[0] - slack, lo[1] - slack, hi[0] + slack, hi[1] + slack) @ aff.m.T
-            return o[_moved_box_hits(base, o, window)]
-        cols, rows, v1, v2 = data
-        a1, a2 = aff.m @ v1, aff.m @ v2
-        # Lattice coordinates (i, j) of the window's corners, widened by the
-        # instance box: only that index range can hit.  (Plain floats: this
-        # runs for every tile.)
-        (p, q), (r, s) = a1.tolist(), a2.tolist()
-        det = p * s - r * q
-        if abs(det) <= 1e-12 * (abs(p * s) + abs(r * q) + 1e-300):
-            # Degenerate lattice (collinear or zero vectors): test every instance,
-            # once the whole array's box is known to meet the window.
-            ext = np.array([i * a1 + j * a2 for i in (0, cols - 1) for j in (0, rows - 1)])
-            if not _moved_box_hits(base, ext, window).any() and not boxes_meet(
-                (
-                    base[0] + ext[:, 0].min(),
-                    base[1] + ext[:, 1].min(),
-                    base[2] + ext[:, 0].max(),
-                    base[3] + ext[:, 1].max(),
-                ),
-                window,
-            ):
-                return np.zeros((0, 2))
-            i0, i1, j0, j1 = 0, cols - 1, 0, rows - 1
-        else:
-            wx0, wy0, wx1, wy1 = window
-            bx0, by0, bx1, by1 = (float(v) for v in base)
-            corners = (
-                (wx0 - bx1, wy0 - by1),
-                (wx1 - bx0, wy0 - by1),
-                (wx1 - bx0, wy1 - by0),
-                (wx0 - bx1, wy1 - by0),
-            )
-            ii = [(s * x - r * y) / det for x, y in corners]
-            jj = [(p * y - q * x) / det for x, y in corners]
-            i0, i1 = max(0, math.floor(min(ii))), min(cols - 1, math.ceil(max(ii)))
-            j0, j1 = max(0, math.floor(min(jj))), min(rows - 1, math.ceil(max(jj)))
-        if i1 < i0 or j1 < j0:
-            return np.zeros((0, 2))
-        if (i1 - i0 + 1) * (j1 - j0 + 1) <= FEW_INSTANCES:
-            # The same sums and tests as below, in plain floats (a tile meets a
-            # few instances of a large array: numpy's per-call cost dominates).
-            bx0, by0, bx1, by1 = (float(v) for v in base)
-            wx0, wy0, wx1, wy1 = window
-            found = []
-            for ii in range(i0, i1 + 1):
-                for jj in range(j0, j1 + 1):
-                    ox, oy = ii * p + jj * r, ii * q + jj * s
-                    if bx0 + ox <= wx1 and bx1 + ox >= wx0 and by0 + oy <= wy1 and by1 + oy >= wy0:
-                        found.append((ox, oy))
-            return np.array(found, dtype=np.float64).reshape(-1, 2)
-        i = np.arange(i0, i1 + 1, dtype=np.float64)
-        j = np.arange(j0, j1 + 1, dtype=np.float64)
-        o = (i[:, None, None] * a1 + j[None, :, None] * a2).reshape(-1, 2)
-        return o[_moved_box_hits(base, o, window)]
-
-
-GRID_INSTANCES = 8
-"""A cell's bucket grid serves placements of at most this many instances at once
-(more: every box is checked, as for small cells)."""
-
-
-def _selected(cd: _CellData, ld, bb: np.ndarray, m: np.ndarray, shifts: np.ndarray, window):
-    """``(instance, polygon)`` indices, instance-major and in polygon order, of the
-    boxes ``bb`` of layer ``ld`` of ``cd`` whose box placed by ``m`` and each of
-    ``shifts`` meets ``window``.  A cell with many polygons checks only those its
-    bucket grid (:class:`BoxGrid`) puts near the window: the same selection."""
-    if (
-        len(bb) <= COUNT_EXACT_ABOVE
-        or len(shifts) > GRID_INSTANCES
-        or abs(float(np.linalg.det(m))) < 1e-12  # a degenerate placement: no inverse
-    ):
-        return _boxes_meeting(bb, m, shifts, window)
-    grid = cd.grids.get(ld)
-    if grid is None:
-        grid = cd.grids[ld] = BoxGrid(bb)
-    insts, ks = [], []
-    for i, shift in enumerate(shifts):
-        cand = grid.candidates(m, shift, window)
-        _, k = _boxes_meeting(bb[cand], m, shift[None, :], window)
-        insts.append(np.full(len(k), i, dtype=np.int64))
-        ks.append(cand[k])
-    return np.concatenate(insts), np.concatenate(ks)
-
-
-def _boxes_meeting(bb: np.ndarray, m: np.ndarray, shifts: np.ndarray, window):
-    """``np.nonzero`` of the boxes ``bb`` placed by ``m`` and each of ``shifts`` (the
-    box of the placed corners) that meet ``window``: ``(instance, box)``."""
-    corners = np.stack([bb[:, [0, 1]], bb[:, [2, 1]], bb[:, [2, 3]], bb[:, [0, 3]]], axis=1)
-    tc = corners @ m.T
-    lo = tc.min(axis=1)[None, :, :] + shifts[:, None, :]  # (n, polygons, 2)
-    hi = tc.max(axis=1)[None, :, :] + shifts[:, None, :]
-    keep = (
-        (lo[..., 0] <= window[2])
-        & (hi[..., 0] >= window[0])
-        & (lo[..., 1] <= window[3])
-        & (hi[..., 1] >= window[1])
-    )
-    return np.nonzero(keep)

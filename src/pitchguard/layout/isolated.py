@@ -9,14 +9,21 @@ from pathlib import Path
 from pitchguard.errors import STOP_POLL_S, LayoutError, check_stop
 from pitchguard.layout.formats import sniff_format
 from pitchguard.layout.reader import DEFAULT_MAX_SHAPES, Layout, read_layout
+from pitchguard.processes import death_message, die_with_parent, prepare_parent_death
 
 READ_TIMEOUT_S = 3600.0
 """A reader child that runs longer than this is stopped (a hung parse)."""
 
+READER_MEMORY_HINT = (
+    "the kernel's out-of-memory killer ends processes so when memory runs out: free memory, "
+    "or scan tiled (without --untiled), which never flattens the whole layout"
+)
 
-def _child(conn, fn, args, path) -> None:  # runs in the child process
+
+def _child(conn, fn, args, path, parent: int) -> None:  # runs in the child process
     import faulthandler
 
+    die_with_parent(parent)
     faulthandler.disable()  # a crash here is expected and reported by the parent
     try:
         conn.send(("ok", fn(*args)))
@@ -39,11 +46,12 @@ def run_isolated(fn, args: tuple, path: Path, what: str, timeout_s: float = READ
     being done.  The result must pickle.
     """
     import multiprocessing as mp
-    import signal
+    import os
 
     ctx = mp.get_context("fork")
     recv, send = ctx.Pipe(duplex=False)
-    child = ctx.Process(target=_child, args=(send, fn, args, path))
+    prepare_parent_death()
+    child = ctx.Process(target=_child, args=(send, fn, args, path, os.getpid()))
     child.start()
     send.close()
     try:
@@ -56,19 +64,8 @@ def run_isolated(fn, args: tuple, path: Path, what: str, timeout_s: float = READ
             status, payload = recv.recv()
         except EOFError:
             child.join()
-            code = child.exitcode
-            if code is not None and code < 0:
-                try:
-                    name = signal.Signals(-code).name
-                except ValueError:
-                    name = f"signal {-code}"
-                raise LayoutError(
-                    f"{path}: the layout reader crashed ({name}) while {what}: the file is "
-                    "corrupt or not a valid GDSII/OASIS file"
-                ) from None
-            raise LayoutError(
-                f"{path}: the layout reader stopped unexpectedly (exit {code})"
-            ) from None
+            why = death_message("the layout reader", child.exitcode, what, READER_MEMORY_HINT)
+            raise LayoutError(f"{path}: {why}") from None
     finally:
         if child.is_alive():
             child.kill()

@@ -7,6 +7,13 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from pitchguard.errors import LayoutError
+from pitchguard.layout.flat_counts import (
+    PIECES_PER_SHAPE,
+    FlatCounts,
+    blame,
+    check_pieces,
+    flat_counts,
+)
 from pitchguard.layout.formats import captured_stderr, sniff_format
 from pitchguard.layout.polygons import PolygonSet, snap_to_grid
 
@@ -38,74 +45,56 @@ class Layout:
 
 
 def _find_cycle(cells) -> list[str] | None:
-    """A reference cycle among ``cells`` as a list of names, or None."""
+    """A reference cycle among ``cells`` as a list of names, or None (a depth-first
+    walk with its own stack: a reference chain may be thousands deep)."""
     graph = {c.name: [d.name for d in c.dependencies(False) if hasattr(d, "name")] for c in cells}
-    state: dict[str, int] = {}
-    stack: list[str] = []
-
-    def visit(name: str) -> list[str] | None:
-        state[name] = 1
-        stack.append(name)
-        for nxt in graph.get(name, ()):
-            if state.get(nxt) == 1:
-                return stack[stack.index(nxt) :] + [nxt]
-            if nxt not in state:
-                found = visit(nxt)
-                if found:
-                    return found
-        stack.pop()
-        state[name] = 2
-        return None
-
-    for name in graph:
-        if name not in state:
-            found = visit(name)
-            if found:
-                return found
+    state: dict[str, int] = {}  # 1: on the current path, 2: done
+    for root in graph:
+        if root in state:
+            continue
+        state[root] = 1
+        path = [root]
+        stack = [iter(graph[root])]
+        while stack:
+            for nxt in stack[-1]:
+                if state.get(nxt) == 1:
+                    return path[path.index(nxt) :] + [nxt]
+                if nxt not in state:
+                    state[nxt] = 1
+                    path.append(nxt)
+                    stack.append(iter(graph.get(nxt, ())))
+                    break
+            else:
+                stack.pop()
+                state[path.pop()] = 2
     return None
 
 
-def _count_shapes(cell, wanted: set[tuple[int, int]], memo: dict) -> dict:
-    """Polygons ``cell`` flattens to per ``wanted`` layer, without flattening."""
-    key = cell.name
-    if key in memo:
-        return memo[key]
-    n: dict = {}
-    for p in list(cell.polygons) + list(cell.paths):
-        layers = (
-            zip(p.layers, p.datatypes, strict=True)
-            if hasattr(p, "layers")
-            else [(p.layer, p.datatype)]
-        )
-        rep = p.repetition.size if p.repetition.size else 1
-        for ld in layers:
-            if ld in wanted:
-                n[ld] = n.get(ld, 0) + rep
-    for ref in cell.references:
-        if isinstance(ref.cell, str) or ref.cell is None:
-            continue  # an unresolved reference (rawcell or missing): nothing to flatten
-        rep = ref.repetition.size if ref.repetition.size else 1
-        for ld, k in _count_shapes(ref.cell, wanted, memo).items():
-            n[ld] = n.get(ld, 0) + rep * k
-    memo[key] = n
-    return n
+def count_shapes_within(
+    path: Path, tops, wanted: set, max_shapes: int, scale_nm: float = 1000.0
+) -> FlatCounts:
+    """What ``tops`` flatten to on the ``wanted`` layers, from the hierarchy
+    (:func:`layout.flat_counts.flat_counts`; ``scale_nm``: nm per user unit).
 
-
-def count_shapes_within(path: Path, tops, wanted: set, max_shapes: int) -> dict:
-    """Flat shape count of ``tops`` per ``wanted`` layer (absent layers: 0), from
-    the hierarchy; refuse (LayoutError) more than ``max_shapes`` in all."""
-    memo: dict = {}
-    by_layer = dict.fromkeys(wanted, 0)
-    for c in tops:
-        for ld, k in _count_shapes(c, wanted, memo).items():
-            by_layer[ld] += k
-    total = sum(by_layer.values())
+    Refused (LayoutError): more than ``max_shapes`` shapes in all, or edges making
+    more than ``PIECES_PER_SHAPE * max_shapes`` site pieces (a magnified
+    reference can turn a few shapes into kilometres of edge), or a repetition
+    count out of range.
+    """
+    counts = flat_counts(path, tops, wanted, scale_nm)
+    total = counts.total
     if total > max_shapes:
         raise LayoutError(
             f"{path}: deck layers flatten to {total:,} shapes, over the limit of {max_shapes:,} "
-            "(raise --max-shapes or scan a --region)"
+            f"(raise --max-shapes or scan a --region){blame(counts, pieces=False)}"
         )
-    return by_layer
+    check_pieces(
+        path,
+        counts,
+        PIECES_PER_SHAPE * max_shapes,
+        f"{PIECES_PER_SHAPE} pieces for each of the {max_shapes:,} shapes --max-shapes allows",
+    )
+    return counts
 
 
 def layers_in_file(lib, fmt: str, path: Path) -> tuple[tuple[int, int], ...]:
@@ -209,7 +198,7 @@ def read_layout(
     if warnings is not None:
         warnings.extend(noise)
 
-    by_layer = count_shapes_within(p, tops, wanted, max_shapes)
+    by_layer = count_shapes_within(p, tops, wanted, max_shapes, lib.unit * 1e9).shapes
     present = layers_in_file(lib, fmt, p) if not all(by_layer.values()) else ()
 
     scale = lib.unit * 1e9

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 from collections import Counter
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -29,15 +30,17 @@ from typing import NamedTuple
 
 import numpy as np
 
-from pitchguard.errors import PitchguardError, read_input_text
+from pitchguard.errors import PitchguardError
 from pitchguard.judge.findings import Finding, box_um, centre_um
 from pitchguard.judge.per_cell import CellFinding, each_alone, group_by_cell
+from pitchguard.outputs.baseline_entries import (
+    EXPIRES,
+    FORMAT_VERSION,
+    BaselineFile,
+    expired,
+    read_baseline,
+)
 from pitchguard.outputs.files import atomic_write
-
-FORMAT_VERSION = 1
-"""Entries with a cell add keys to version 1 (a reader that ignores them gates
-per placement: stricter, never looser)."""
-
 
 PITCH_TOL_NM = 1.0
 
@@ -296,6 +299,7 @@ class Gate:
     path: Path | None = None
     extra: dict = field(default_factory=dict)
     new_index: list[int] = field(default_factory=list)  # of ``new`` in the findings given
+    expired: list[dict] = field(default_factory=list)  # entries past their date: match nothing
 
     @property
     def accepted_placements(self) -> int:
@@ -316,9 +320,17 @@ def _unit_of(units: list[CellFinding], n: int) -> np.ndarray:
     return out
 
 
-def apply_baseline(findings, entries: list[dict], path: Path | None = None, cells=None) -> Gate:
+def apply_baseline(
+    findings, entries: list[dict], path: Path | None = None, cells=None, today=None
+) -> Gate:
     """Split ``findings`` (with their ``cells``, a ``run.cells.CellMap``, or None)
-    by the baseline ``entries``."""
+    by the baseline ``entries``; those whose ``expires`` date is ``today`` (default:
+    the local date) or earlier accept nothing."""
+    import datetime as dt
+
+    day = today or dt.date.today()
+    gone = [e for e in entries if expired(e, day)]
+    entries = [e for e in entries if not expired(e, day)]
     p = pair_entries(entries, findings, cells, str(path))
     new = np.ones(len(findings), dtype=bool)
     accepted: list[Accepted] = []
@@ -339,6 +351,7 @@ def apply_baseline(findings, entries: list[dict], path: Path | None = None, cell
         stale=[e for i, e in enumerate(entries) if i not in matched],
         path=path,
         new_index=new_index,
+        expired=gone,
     )
 
 
@@ -390,12 +403,14 @@ def accepted_to_dict(a: Accepted) -> dict:
         "matched": "cell" if a.per_cell else "placement",
         "reason": a.entry.get("reason", ""),
         "owner": a.entry.get("owner", ""),
+        EXPIRES: a.entry.get(EXPIRES),
     }
 
 
-def entry_of(c: CellFinding, reason: str = "", owner: str = "") -> dict:
+def entry_of(c: CellFinding, reason: str = "", owner: str = "", expires: str | None = None) -> dict:
     """A baseline entry: a cell finding (its first placement's place in the top
-    frame for people), or a finding with no cell named."""
+    frame for people), or a finding with no cell named; ``expires`` (an ISO date)
+    only when given."""
     f = c.finding
     e = {
         "layer": f.layer,
@@ -419,29 +434,58 @@ def entry_of(c: CellFinding, reason: str = "", owner: str = "") -> dict:
     e["bbox_um"] = list(f.bbox_um)
     e["reason"] = reason
     e["owner"] = owner
+    if expires is not None:
+        e[EXPIRES] = expires
     return e
 
 
+def load_baseline_file(path: Path) -> BaselineFile:
+    """A baseline file, every entry checked (see ``baseline_entries``)."""
+    base = read_baseline(path)
+    for e in base.entries:  # whatever the scan names: per cell and per placement
+        Signature.from_entry(e, str(path))
+        Signature.from_entry(e, str(path), per_cell=False)
+    return base
+
+
 def load_baseline(path: Path) -> list[dict]:
-    where = str(path)
-    text = read_input_text(Path(path), "baseline", PitchguardError)
-    try:
-        data = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise PitchguardError(
-            f"{where}: not a JSON baseline: {exc.msg} at line {exc.lineno}"
-        ) from None
-    if not isinstance(data, dict) or data.get("pitchguard_baseline") != FORMAT_VERSION:
-        raise PitchguardError(
-            f'{where}: not a pitchguard baseline (expected "pitchguard_baseline": {FORMAT_VERSION})'
-        )
-    entries = data.get("entries")
-    if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries):
-        raise PitchguardError(f'{where}: baseline "entries" must be a list of objects')
-    for e in entries:
-        Signature.from_entry(e, where)  # validate early: one clear error
-        Signature.from_entry(e, where, per_cell=False)
-    return entries
+    """A baseline file's entries, every one checked."""
+    return load_baseline_file(path).entries
+
+
+def deck_note(base: BaselineFile, path: Path, deck_name: str) -> str | None:
+    """Why a baseline written with another deck may not fit this one, or None."""
+    if base.deck is None or base.deck == deck_name:
+        return None
+    return (
+        f"baseline {shown(path, 200)} was written with deck {shown(base.deck)!r}, not with "
+        f"{shown(deck_name)!r}: its entries may not match this deck's findings"
+    )
+
+
+def expired_note(gate: Gate, path: Path, first: int = 3) -> str | None:
+    """The entries past their expiry date (count and the first few), or None."""
+    n = len(gate.expired)
+    if not n:
+        return None
+    some = "; ".join(
+        f"{shown(entry_text(e), 120)} (expired {e[EXPIRES]})" for e in gate.expired[:first]
+    )
+    more = f"; and {n - first} more" if n > first else ""
+    return (
+        f"baseline {shown(path, 200)}: {n} entr{'y' if n == 1 else 'ies'} past "
+        f"{'its' if n == 1 else 'their'} expiry date accept{'s' if n == 1 else ''} "
+        f"nothing: {some}{more}"
+    )
+
+
+def shown(text, limit: int = 80) -> str:
+    """A user's text as a message shows it: cut to ``limit`` characters, control
+    characters escaped."""
+    from pitchguard.outputs.texts import printable
+
+    text = str(text)
+    return printable(text if len(text) <= limit else text[: limit - 1] + "…")
 
 
 def write_baseline(
@@ -451,11 +495,12 @@ def write_baseline(
     layout: str,
     inputs: list[Path],
     cells=None,
-) -> None:
+) -> int:
     """Record ``findings`` (per cell finding with their ``cells``, else one entry
-    each); reasons and owners of an existing baseline at ``path`` are kept."""
+    each); reasons, owners and expiry dates of an existing baseline at ``path``
+    are kept.  Returns the number of entries written."""
     previous: list[dict] = []
-    if Path(path).exists():
+    if os.path.isfile(path):  # only a regular file can hold one (False on any OS error)
         try:
             previous = load_baseline(path)
         except PitchguardError:
@@ -471,7 +516,7 @@ def write_baseline(
     entries = []
     for j, u in enumerate(p.units):
         e = notes.get(j, {})
-        entries.append(entry_of(u, e.get("reason", ""), e.get("owner", "")))
+        entries.append(entry_of(u, e.get("reason", ""), e.get("owner", ""), e.get(EXPIRES)))
     payload = {
         "pitchguard_baseline": FORMAT_VERSION,
         "deck": deck_name,
@@ -484,6 +529,7 @@ def write_baseline(
         tmp.write_text(json.dumps(payload, indent=2, allow_nan=False) + "\n", encoding="utf-8")
 
     atomic_write(Path(path), w, inputs)
+    return len(entries)
 
 
 @dataclass

@@ -333,7 +333,9 @@ def write_json(out: Path, payload: dict, inputs: list[Path], ensure_ascii: bool 
     """Write ``payload`` (see :func:`dump_json`) to ``out`` atomically."""
 
     def w(tmp: Path) -> None:
-        with open(tmp, "w", encoding="utf-8") as fh:
+        # A name's undecodable bytes (lone surrogates, e.g. from a path) become JSON's
+        # own \\udcXX escapes: valid JSON, and UTF-8 throughout.
+        with open(tmp, "w", encoding="utf-8", errors="backslashreplace") as fh:
             dump_json(payload, fh, ensure_ascii)
             fh.write("\n")
 

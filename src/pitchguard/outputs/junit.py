@@ -12,16 +12,22 @@ from pitchguard.deck import SEVERITIES, Deck
 from pitchguard.judge.checks import CHECKS
 from pitchguard.judge.per_cell import CellFinding, cell_findings
 from pitchguard.outputs.files import atomic_write
-from pitchguard.outputs.texts import cell_sentence, finding_line, where_text_of
+from pitchguard.outputs.texts import cell_sentence, clipped, finding_line, where_text_of
 from pitchguard.outputs.verdict import CAUTION
 from pitchguard.run.scan import ScanResult
 
-_XML_BAD = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ufffe\uffff]")
+_XML_BAD = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff\ufffe\uffff]")
+
+
+def _code(m: re.Match) -> str:
+    n = ord(m.group())
+    return f"\\x{n:02x}" if n < 0x100 else f"\\u{n:04x}"
 
 
 def _x(text: str) -> str:
-    """Drop characters XML 1.0 cannot hold (a deck may name a layer with anything)."""
-    return _XML_BAD.sub("", str(text))
+    """Characters XML 1.0 cannot hold written as ``\\xNN`` / ``\\uNNNN`` (a deck or a
+    layout may name a layer or a cell with anything)."""
+    return _XML_BAD.sub(_code, str(text))
 
 
 def _entry_line(c: CellFinding) -> str:
@@ -81,10 +87,10 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
 
         def failing_case(c: CellFinding, name=name) -> ET.Element:
             f = c.finding
-            place = f"in {c.cell} " if c.cell else ""
+            place = f"in {clipped(c.cell)} " if c.cell else ""
             case = ET.Element(
                 "testcase",
-                classname=_x(f"pitchguard.{name}.{f.check}"),
+                classname=_x(f"pitchguard.{clipped(name)}.{f.check}"),
                 name=_x(f"{f.check} {place}at {where_text_of(f)}"),
                 time="0",
             )
@@ -100,7 +106,10 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
                         yield _piece(failing_case(c), 2) if texts else failing_case(c)
                 else:
                     case = ET.Element(
-                        "testcase", classname=_x(f"pitchguard.{name}"), name=check, time="0"
+                        "testcase",
+                        classname=_x(f"pitchguard.{clipped(name)}"),
+                        name=check,
+                        time="0",
                     )
                     if below:
                         out = ET.SubElement(case, "system-out")
@@ -108,7 +117,7 @@ def _junit_suites(result: ScanResult, deck: Deck, fail_on: str) -> list[tuple]:
                     yield _piece(case, 2) if texts else case
 
         attrs = {
-            "name": _x(f"pitchguard.{name}"),
+            "name": _x(f"pitchguard.{clipped(name)}"),
             "tests": str(tests),
             "failures": str(failures),
             "errors": "0",

@@ -22,6 +22,7 @@ from pitchguard.judge.findings import Finding
 from pitchguard.judge.per_cell import CellFinding, cell_findings, orientations
 from pitchguard.outputs.files import atomic_write
 from pitchguard.outputs.marker_arrays import pack
+from pitchguard.outputs.texts import clipped, shown_path
 from pitchguard.run.scan import ScanResult
 
 MARKER_CELL = "PITCHGUARD_MARKERS"
@@ -32,14 +33,15 @@ _EXTENSIONS = (".gds", ".gds2", ".gdsii", ".oas", ".oasis")
 
 
 def marker_label(f: Finding) -> str:
+    layer = clipped(f.layer)  # a label is read in a layout viewer; the JSON has the name
     if f.context == "line-end":
-        return f"{f.severity} {f.check} {f.layer} gap={f.space_nm:.1f}nm w={f.width_nm:.1f}nm"
+        return f"{f.severity} {f.check} {layer} gap={f.space_nm:.1f}nm w={f.width_nm:.1f}nm"
     if f.array is not None and f.context in ("alone", "group"):
         w, h = f.array.feature_nm
-        return f"{f.severity} {f.check} {f.layer} {f.context} {w:.1f}x{h:.1f}nm"
+        return f"{f.severity} {f.check} {layer} {f.context} {w:.1f}x{h:.1f}nm"
     if not math.isfinite(f.pitch_nm):
-        return f"{f.severity} {f.check} {f.layer} isolated w={f.width_nm:.1f}nm"
-    return f"{f.severity} {f.check} {f.layer} p={f.pitch_nm:.1f}nm k1={f.k1:.3f}"
+        return f"{f.severity} {f.check} {layer} isolated w={f.width_nm:.1f}nm"
+    return f"{f.severity} {f.check} {layer} p={f.pitch_nm:.1f}nm k1={f.k1:.3f}"
 
 
 def marker_cell_name(k: int, cell: str) -> str:
@@ -60,7 +62,9 @@ class _Units:
 
     def check(self, nm) -> None:
         if np.abs(np.asarray(nm, dtype=np.float64)).max(initial=0.0) > _INT32 * self.grid_nm:
-            raise OutputError(f"{self.out}: marker coordinates exceed the 32-bit range of the grid")
+            raise OutputError(
+                f"{shown_path(self.out)}: marker coordinates exceed the 32-bit range of the grid"
+            )
 
     def points(self, nm) -> list[tuple[float, float]]:
         self.check(nm)
@@ -155,13 +159,56 @@ def write_markers(
     out = Path(out)
     ext = out.suffix.lower()
     if ext not in _EXTENSIONS:
-        raise OutputError(f"{out}: marker file must end in .gds or .oas")
+        raise OutputError(f"{shown_path(out)}: marker file must end in .gds or .oas")
     lib = build_markers(result, deck, out, flat)
 
+    oasis = ext in (".oas", ".oasis")
+
     def w(tmp: Path) -> None:
-        if ext in (".oas", ".oasis"):
-            lib.write_oas(str(tmp))
+        if oasis:
+            lib.write_oas(str(tmp), validation="crc32")
         else:
             lib.write_gds(str(tmp))
 
-    atomic_write(out, w, inputs)
+    atomic_write(out, w, inputs, check=oasis_problem if oasis else gds_problem)
+
+
+_ENDLIB = b"\x00\x04\x04\x00"
+"""A GDSII stream's last record (4 bytes, ENDLIB)."""
+
+
+def gds_problem(path: Path) -> str | None:
+    """Why the GDSII file at ``path`` is not whole, or None: the layout library does
+    not report its write errors (a full disk leaves a short file)."""
+    with open(path, "rb") as fh:
+        size = fh.seek(0, 2)
+        if size >= 4:
+            fh.seek(size - 4)
+            if fh.read(4) == _ENDLIB:
+                return None
+    return f"the layout library wrote {size:,} bytes and no end of library (disk full?)"
+
+
+def oasis_problem(path: Path) -> str | None:
+    """:func:`gds_problem` for OASIS, written with a CRC-32 signature: the file's END
+    record ends with validation scheme 1 and the CRC-32 (little-endian) of every
+    byte before the signature (OASIS, SEMI P39, validation)."""
+    import zlib
+
+    crc, last = 0, -1
+    with open(path, "rb") as fh:
+        size = fh.seek(0, 2)
+        if size >= 5:
+            fh.seek(0)
+            left = size - 4
+            while left:
+                block = fh.read(min(left, 1 << 20))
+                if not block:
+                    break
+                crc = zlib.crc32(block, crc)
+                left -= len(block)
+                last = block[-1]
+            signature = fh.read(4)
+            if not left and last == 1 and int.from_bytes(signature, "little") == crc:
+                return None
+    return f"the layout library wrote {size:,} bytes that do not check (disk full?)"

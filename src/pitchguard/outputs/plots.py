@@ -11,6 +11,7 @@ from pitchguard.deck import LayerRule
 from pitchguard.errors import OutputError
 from pitchguard.judge.gratings import GratingResult, bands
 from pitchguard.outputs.files import atomic_write
+from pitchguard.outputs.user_text import figure_text, shown_path
 from pitchguard.outputs.verdict import CAUTION
 
 SHADE = {"fail": "#d62728", "risk": "#ff7f0e", "marginal": "#bcbd22"}
@@ -30,7 +31,7 @@ def _figure_module():
 
 def _save(fig, out: Path, inputs: list[Path]) -> None:
     if out.suffix.lower() not in FORMATS:
-        raise OutputError(f"{out}: plot file must end in .png or .svg")
+        raise OutputError(f"{shown_path(out)}: plot file must end in .png or .svg")
 
     def w(tmp: Path) -> None:
         fig.savefig(str(tmp), dpi=110, bbox_inches="tight", format=out.suffix.lower()[1:])
@@ -65,7 +66,8 @@ def plot_image(rule: LayerRule, r: GratingResult, out: Path, inputs: list[Path])
     ax.set_xlim(r.x_nm[0], r.x_nm[-1])
     ax.set_ylim(0, max(1.05, float(np.max(r.intensity)) * 1.05))
     title = (
-        f"{rule.name}: pitch {r.pitch_nm:g} nm, CD {r.cd_nm:g} nm, focus {r.focus_nm:g} nm "
+        f"{figure_text(rule.name)}: pitch {r.pitch_nm:g} nm, CD {r.cd_nm:g} nm, "
+        f"focus {r.focus_nm:g} nm "
         f"- {r.severity}"
     )
     ax.set_title(title, fontsize=10)
@@ -107,7 +109,7 @@ def plot_array(rule: LayerRule, r, out: Path, inputs: list[Path]) -> None:
     ax.set_ylabel("y (nm, wafer)")
     feature = "posts" if rule.field == "clear" else "holes"
     ax.set_title(
-        f"{rule.name}: {w:g} x {h:g} nm {feature} at {px:g} x {py:g} nm, focus "
+        f"{figure_text(rule.name)}: {w:g} x {h:g} nm {feature} at {px:g} x {py:g} nm, focus "
         f"{r.focus_nm:g} nm - {r.severity}",
         fontsize=10,
     )
@@ -193,7 +195,8 @@ def plot_sweep(
     axes[-1].set_xlabel("pitch (nm, wafer)")
     cd = results[0].cd_nm if results else float("nan")
     axes[0].set_title(
-        f"{rule.name} through pitch at CD {cd:g} nm ({rule.exposure_name}); shaded: "
+        f"{figure_text(rule.name)} through pitch at CD {cd:g} nm "
+        f"({figure_text(rule.exposure_name)}); shaded: "
         "fail (red), risk (orange), marginal (olive)",
         fontsize=9,
     )

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import hashlib
 import math
-import urllib.parse
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -14,6 +13,7 @@ from pitchguard.judge.checks import CHECKS
 from pitchguard.judge.findings import Finding, FindingSet
 from pitchguard.judge.per_cell import CellFinding, cell_findings
 from pitchguard.outputs.json_report import entry_to_dict, finding_to_dict, write_json
+from pitchguard.outputs.locations import artifact_location
 from pitchguard.outputs.rows import Rows
 from pitchguard.outputs.texts import cell_sentence, describe, reaches_fail_on
 from pitchguard.outputs.verdict import CAUTION, exit_code
@@ -232,20 +232,6 @@ def sarif_rule(check: str) -> dict:
     }
 
 
-def _artifact_uri(layout_path: Path) -> str:
-    """The layout relative to the current directory when it lies inside it, else a file URI."""
-    p = Path(layout_path)
-    cwd = Path.cwd()
-    for a, b in ((p.absolute(), cwd.absolute()), (p.resolve(), cwd.resolve())):
-        try:
-            rel = a.relative_to(b)
-        except ValueError:
-            continue
-        # Percent-encode (spaces, '%', '#', and ':' which would read as a scheme).
-        return urllib.parse.quote(rel.as_posix(), safe="/")
-    return p.resolve().as_uri()
-
-
 def _fp_value(x: float) -> str:
     if not math.isfinite(x):
         return "inf" if x > 0 else "nan"
@@ -316,20 +302,26 @@ def _capped(row: dict) -> dict:
 
 
 def to_sarif(
-    result: ScanResult, deck: Deck, layout_path: Path, fail_on: str, lazy: bool = False
+    result: ScanResult,
+    deck: Deck,
+    layout_path: Path,
+    fail_on: str,
+    lazy: bool = False,
+    root: str | Path | None = None,
 ) -> dict:
     """A SARIF 2.1.0 log of a scan: one run, one rule per check, one result per report
     entry (a distinct finding of a cell, with its placements).
 
     With ``lazy`` the results are :class:`~pitchguard.outputs.rows.Rows`, made as
-    they are written (for :func:`write_sarif`).
+    they are written (for :func:`write_sarif`).  The layout's location is
+    relative to ``root`` (see :func:`~pitchguard.outputs.locations.artifact_location`).
     """
     # A check missing from CHECKS (not expected) still gets a rule, after the known ones.
     fs = FindingSet.of(result.findings)
     present = {f.check for f, n in zip(fs.distinct, fs.counts().tolist(), strict=True) if n}
     checks = list(CHECKS) + sorted(present - set(CHECKS))
     rules = [sarif_rule(c) for c in checks]
-    uri = _artifact_uri(layout_path)
+    location, bases = artifact_location(Path(layout_path), root)
     cells = list(result.layout.cells) if result.layout else []
     entries = cell_findings(result)
     fps = entry_fingerprints(entries)
@@ -367,7 +359,7 @@ def to_sarif(
             "message": {"text": describe(f) + cell_sentence(c)},
             "locations": [
                 {
-                    "physicalLocation": {"artifactLocation": {"uri": uri}},
+                    "physicalLocation": {"artifactLocation": dict(location)},
                     "logicalLocations": logical,
                 }
             ],
@@ -410,6 +402,7 @@ def to_sarif(
                 "rules": rules,
             }
         },
+        **({"originalUriBaseIds": bases} if bases else {}),
         "invocations": [invocation],
         "results": results,  # present even when empty: "scanned, nothing found"
         "properties": run_props,
@@ -428,10 +421,11 @@ def write_sarif(
     layout_path: Path,
     fail_on: str,
     inputs: list[Path] | None = None,
+    root: str | Path | None = None,
 ) -> int:
     """Write :func:`to_sarif` to ``out`` atomically (never over an input file);
     the number of results written."""
-    log = to_sarif(result, deck, layout_path, fail_on, lazy=True)
+    log = to_sarif(result, deck, layout_path, fail_on, lazy=True, root=root)
     write_json(
         out,
         log,

@@ -34,7 +34,7 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
     from rich.table import Table
 
     from pitchguard.judge.per_cell import cell_findings
-    from pitchguard.outputs.texts import markup_safe
+    from pitchguard.outputs.texts import SHOWN_PATH_CHARS, markup_safe
 
     counts = Table(title="Findings per layer", title_justify="left", show_edge=False)
     counts.add_column("layer")
@@ -50,8 +50,8 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
         c = severity_counts(result.findings, st.name)
         ex = st.extract
         counts.add_row(
-            st.name,
-            st.source,
+            markup_safe(st.name),
+            markup_safe(st.source),
             *(str(c[s]) for s in SEVERITIES),
             f"{ex.sites:,}",
             f"{ex.isolated_sites:,}",
@@ -61,6 +61,7 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
         )
     console.print(counts)
     for note in coverage_notes(result.layers):
+        note = markup_safe(note, 2 * SHOWN_PATH_CHARS)
         console.print(f"[yellow]note:[/] {note}", markup=True, highlight=False)
 
     entries = cell_findings(result)
@@ -113,7 +114,7 @@ def print_table(console, result: ScanResult, fail_on: str, top: int = 20) -> Non
                 "the finding occurs[/]"
             )
     for w in result.warnings[:5]:
-        console.print(f"[dim]layout library: {w}[/]")
+        console.print(f"[dim]layout library: {markup_safe(w, 2 * SHOWN_PATH_CHARS)}[/]")
     console.print()
     console.print(one_line_summary(result, fail_on))
     console.print(f"[dim]{CAUTION}[/]")

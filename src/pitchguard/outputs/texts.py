@@ -3,10 +3,19 @@
 from __future__ import annotations
 
 import math
-import re
 
 from pitchguard.deck import SEVERITIES
 from pitchguard.judge.findings import CLIP_KINDS, Finding, box_um
+from pitchguard.outputs.user_text import (  # noqa: F401  (the reports' names for them)
+    SHOWN_CHARS,
+    SHOWN_PATH_CHARS,
+    clipped,
+    markup_safe,
+    markup_safe_path,
+    printable,
+    shown,
+    shown_path,
+)
 
 
 def nm_text(x: float, digits: int = 1) -> str:
@@ -88,7 +97,7 @@ def describe(f: Finding) -> str:
     where = where_text_of(f)
     box = box_text(f.bbox_um)
     return (
-        f"{f.severity} on layer {f.layer} ({f.source}): region centred at "
+        f"{f.severity} on layer {clipped(f.layer)} ({f.source}): region centred at "
         f"{where} (box {box} um), "
         f"{pattern_text(f)}{k1_text(f)}. {f.check}: {f.message}. Fix: {f.hint}."
     )
@@ -100,8 +109,9 @@ def cell_sentence(c) -> str:
     if not c.cell:
         return ""
     n = c.placements
+    path = clipped(" > ".join(map(clipped, c.path)), SHOWN_PATH_CHARS, middle=True)
     return (
-        f" In cell {c.cell} (placed {' > '.join(c.path)}), box {box_text(box_um(c.cell_bbox_nm))} "
+        f" In cell {clipped(c.cell)} (placed {path}), box {box_text(box_um(c.cell_bbox_nm))} "
         f"um in the cell's own frame; {n} placement{'s' if n != 1 else ''}."
         + (
             " It depends on the placement (shapes of other cells within reach): fix in the "
@@ -157,7 +167,7 @@ def pattern_text(f: Finding) -> str:
 def finding_line(f: Finding, where: str | None = None) -> str:
     """One line per finding: severity, location, pitch, message, hint."""
     return (
-        f"{f.severity} | {f.layer} ({f.source}) at {where or where_text_of(f)} | "
+        f"{f.severity} | {clipped(f.layer)} ({f.source}) at {where or where_text_of(f)} | "
         f"{pattern_brief(f)} "
         f"| {f.message} | fix: {f.hint}"
     )
@@ -206,25 +216,3 @@ def medium_text(exposure) -> str:
     if exposure.resist_index:
         return f"in resist n {exposure.resist_index:g}"
     return f"in n {exposure.immersion_index:g}"
-
-
-_CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u200e\u200f\u202a-\u202e\u2066-\u2069]")
-
-
-def printable(text: object) -> str:
-    """Text from a user's files (deck and cell names, paths, baseline entries) as a
-    terminal may show it: control characters (escape sequences, bidi overrides)
-    written as ``\\xNN`` / ``\\uNNNN``, so they cannot move the cursor or recolour."""
-
-    def code(m: re.Match) -> str:
-        n = ord(m.group())
-        return f"\\x{n:02x}" if n < 0x100 else f"\\u{n:04x}"
-
-    return _CONTROL.sub(code, str(text))
-
-
-def markup_safe(text: object) -> str:
-    """:func:`printable` with rich's markup escaped too (``[/]`` shows as itself)."""
-    from rich.markup import escape
-
-    return escape(printable(text))

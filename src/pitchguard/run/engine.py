@@ -2,17 +2,57 @@
 
 from __future__ import annotations
 
+import os
+import time
+
 from pitchguard.errors import STOP_POLL_S, LayoutError, check_stop
+from pitchguard.processes import (
+    JOBS_PER_CORE,
+    death_message,
+    die_with_parent,
+    prepare_parent_death,
+    usable_cores,
+    worker_count,
+)
 from pitchguard.run.tasks import init_worker
+
+DEATH_WAIT_S = 2.0
+"""How long a broken pool's workers are given to be reaped, to tell what ended one."""
+
+
+def init_local_worker(parent: int) -> None:
+    """Set up a local worker: tied to the command's life (processes.die_with_parent),
+    then as :func:`init_worker`."""
+    die_with_parent(parent)
+    init_worker()
+
+
+def planned_jobs(jobs: int | None, scheduler: str | None, note=None) -> int:
+    """Local workers to plan the tiles for (processes.worker_count); ``note``
+    hears when an explicit ``jobs`` is more than the cores can use."""
+    n = worker_count(jobs)
+    if jobs is not None and n < jobs and not scheduler and note is not None:
+        note(
+            f"--jobs {jobs}: at most {JOBS_PER_CORE} workers per usable core "
+            f"({usable_cores()} here) run at a time; using {n}"
+        )
+    return n
 
 
 class WorkerPool:
     """Local worker processes, or a dask.distributed cluster, for the tile tasks."""
 
-    def __init__(self, path: str, jobs: int, scheduler: str | None, progress):
+    def __init__(
+        self, path: str, jobs: int, scheduler: str | None, progress, tasks: int | None = None
+    ):
+        """``jobs`` local workers, no more than ``tasks`` can keep busy; ``path``
+        names the layout in messages."""
         self.path, self.scheduler, self.progress = path, scheduler, progress
-        self.jobs = jobs
+        self.jobs = min(jobs, max(1, tasks)) if tasks is not None else jobs
+        # Cluster workers run in folders of their own: they get the layout's full path.
+        self.task_path = os.path.abspath(path) if scheduler else path
         self.client = self.pool = None
+        self.started: dict = {}  # pid -> Process: the local workers, kept to tell how one ended
 
     def __enter__(self) -> WorkerPool:
         if self.scheduler:
@@ -27,8 +67,12 @@ class WorkerPool:
             from concurrent.futures import ProcessPoolExecutor
             from multiprocessing import get_context
 
+            prepare_parent_death()
             self.pool = ProcessPoolExecutor(
-                self.jobs, mp_context=get_context("fork"), initializer=init_worker
+                self.jobs,
+                mp_context=get_context("fork"),
+                initializer=init_local_worker,
+                initargs=(os.getpid(),),
             )
         return self
 
@@ -64,6 +108,7 @@ class WorkerPool:
         """
         import queue
         from collections import deque
+        from concurrent.futures.process import BrokenProcessPool
 
         waiting = deque(tasks)
         arrived: queue.SimpleQueue = queue.SimpleQueue()
@@ -77,7 +122,11 @@ class WorkerPool:
             if self.client is not None:
                 fut = self.client.submit(fn, *args, pure=False)
             else:
-                fut = self.pool.submit(fn, *args)
+                try:
+                    fut = self.pool.submit(fn, *args)
+                except BrokenProcessPool:  # a worker died since the last result
+                    raise self._broken() from None
+                self.started.update(getattr(self.pool, "_processes", None) or {})
             fut.add_done_callback(lambda f: arrived.put((tag, f)))
 
         while waiting or running:
@@ -99,9 +148,7 @@ class WorkerPool:
         try:
             return fut.result()
         except BrokenProcessPool:
-            raise LayoutError(
-                f"{self.path}: the layout reader crashed in a tile worker: the file is corrupt"
-            ) from None
+            raise self._broken() from None
         except Exception as exc:
             if self.client is None:
                 raise
@@ -109,3 +156,30 @@ class WorkerPool:
             raise LayoutError(
                 f"{self.path}: a tile failed on the cluster: {type(exc).__name__}: {exc}"
             ) from None
+
+    def _broken(self) -> LayoutError:
+        why = death_message("a tile worker", self._ended(), "reading and scanning tiles")
+        return LayoutError(f"{self.path}: {why}")
+
+    def _ended(self) -> int | None:
+        """The exit code that best tells why the pool broke: a signal other than
+        the SIGTERM the pool sends the survivors once one worker is gone, else
+        SIGTERM (sent from outside), else an exit status."""
+        import signal
+
+        deadline = time.monotonic() + DEATH_WAIT_S
+        codes = []
+        for proc in self.started.values():
+            while proc.exitcode is None and time.monotonic() < deadline:
+                time.sleep(0.01)
+            if proc.exitcode is not None:
+                codes.append(proc.exitcode)
+        for pick in (
+            lambda c: c < 0 and c != -signal.SIGTERM,
+            lambda c: c < 0,
+            lambda c: c != 0,
+        ):
+            found = [c for c in codes if pick(c)]
+            if found:
+                return found[0]
+        return None

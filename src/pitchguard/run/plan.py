@@ -9,6 +9,7 @@ from typing import NamedTuple
 from pitchguard.deck import Deck
 from pitchguard.errors import LayoutError
 from pitchguard.geometry.sites import SITE_CELL_NM
+from pitchguard.layout.flat_counts import PIECES_PER_SHAPE, edge_text
 
 SPARSE_TILES_MIN = 10_000
 
@@ -61,6 +62,9 @@ class Structure:
     tops_brief: tuple[int, ...] = ()
     shapes_by_layer: tuple[tuple[tuple[int, int], int], ...] = ()  # flat shapes per deck layer
     present: tuple[tuple[int, int], ...] = ()  # layers in the file, when a deck layer has none
+    pieces: float = 0.0  # site pieces of every flat shape's edges (layout.flat_counts)
+    largest_pieces: float = 0.0  # site pieces of the largest flat shape (a bound)
+    largest_why: str = ""  # what makes shapes large (the most magnified reference), for messages
 
 
 def tile_halo_nm(deck: Deck) -> float:
@@ -153,10 +157,34 @@ def _per_worker_mb(max_memory_mb: float | None, jobs: int, distributed: bool) ->
     return (max_memory_mb - (0 if distributed else PARENT_BASE_MB)) / max(1, jobs)
 
 
+def worker_share_mb(max_memory_mb: float | None, jobs: int, distributed: bool = False):
+    """Each local worker's share of a memory cap (MB; run.budget enforces it), or
+    None: no cap, or workers on a cluster (their own machines' business)."""
+    if max_memory_mb is None or distributed:
+        return None
+    return _per_worker_mb(max_memory_mb, jobs, distributed)
+
+
 def tile_shape_limit(max_memory_mb: float | None, jobs: int, distributed: bool = False) -> int:
     """The most shapes one tile may hold within a worker's budget (the memory model)."""
     per_worker = _per_worker_mb(max_memory_mb, jobs, distributed)
     return max(1, int((per_worker - WORKER_BASE_MB) * 1024.0 / KB_PER_TILE_SHAPE))
+
+
+def tile_piece_limit(max_memory_mb: float | None, jobs: int, distributed: bool = False) -> float:
+    """The most edge pieces (layout.flat_counts) one tile may hold within a worker's
+    budget: the shape limit at PIECES_PER_SHAPE pieces a shape."""
+    return float(PIECES_PER_SHAPE) * tile_shape_limit(max_memory_mb, jobs, distributed)
+
+
+def check_largest_shape(path, st: Structure, limit: float, budget: str) -> None:
+    """Refuse a layout whose largest shape alone is more work than a tile may hold
+    (``limit`` edge pieces): every tile it meets reads all of it."""
+    if not st.largest_pieces <= limit:  # also refuses nan
+        raise LayoutError(
+            f"{path}: one shape alone, once placed, is {edge_text(st.largest_pieces)}, over "
+            f"the {limit:,.0f} pieces a tile may hold within {budget}{st.largest_why}"
+        )
 
 
 def plan_tiles(
@@ -166,13 +194,28 @@ def plan_tiles(
     max_memory_mb: float | None,
     tile_um: float | None,
     distributed: bool = False,
+    path=None,
 ) -> tuple[float, int]:
     """Tile size (nm) and local worker count for a memory cap (MB, all processes).
 
     Without a cap each worker may use about 2 GB.  With one, the parent's share
     is set aside and the rest split between the workers; workers are dropped
-    while even the smallest tile does not fit.
+    while even the smallest tile does not fit.  A layout whose largest shape
+    alone is more than a tile may hold is refused (LayoutError).
     """
+    t, n = _plan_tiles(st, halo_nm, jobs, max_memory_mb, tile_um, distributed)
+    budget = (
+        f"--max-memory-mb {max_memory_mb:g} for {n} worker{'s' if n > 1 else ''}"
+        if max_memory_mb is not None
+        else f"a worker's {DEFAULT_WORKER_MB:g} MB"
+    )
+    check_largest_shape(
+        path or "layout", st, tile_piece_limit(max_memory_mb, n, distributed), budget
+    )
+    return t, n
+
+
+def _plan_tiles(st, halo_nm, jobs, max_memory_mb, tile_um, distributed):
     if st.extent_nm:
         x0, y0, x1, y1 = st.extent_nm
         area = max((x1 - x0) * (y1 - y0), 1.0)

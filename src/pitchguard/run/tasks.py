@@ -14,8 +14,10 @@ from pitchguard.geometry.sites import SITE_CELL_NM
 from pitchguard.judge.hint_batch import hint_texts
 from pitchguard.judge.hints import give_grating_passes, take_grating_passes
 from pitchguard.judge.regions import Region
+from pitchguard.layout.flat_counts import PIECES_PER_SHAPE, edge_text
 from pitchguard.layout.polygons import PolygonSet, snap_to_grid
 from pitchguard.optics.cut_images import give_imaged, take_imaged
+from pitchguard.run.budget import apply_worker_budget, out_of_budget
 from pitchguard.run.plan import CellBrief, RefBrief, Structure
 from pitchguard.run.scan import LayerStats, scan_polygons
 
@@ -53,10 +55,12 @@ def _deck(text: str) -> Deck:
 
 def structure_task(path: str, cell: str | None, layers, max_shapes: int) -> Structure:
     """Open the layout, count its flat shapes from the hierarchy and refuse too many."""
+    from pitchguard.layout.flat_counts import blame
     from pitchguard.layout.reader import count_shapes_within, layers_in_file, open_layout
 
     lib, fmt, tops = open_layout(Path(path), set(layers), cell)
-    by_layer = count_shapes_within(Path(path), tops, set(layers), max_shapes)
+    counts = count_shapes_within(Path(path), tops, set(layers), max_shapes, lib.unit * 1e9)
+    by_layer = counts.shapes
     present = layers_in_file(lib, fmt, Path(path)) if not all(by_layer.values()) else ()
     q, st = _index(lib, fmt, tops, layers)
     cells, tops = _brief(q)
@@ -67,6 +71,9 @@ def structure_task(path: str, cell: str | None, layers, max_shapes: int) -> Stru
         tops_brief=tops,
         shapes_by_layer=tuple(sorted(by_layer.items())),
         present=present,
+        pieces=counts.pieces,
+        largest_pieces=counts.largest_pieces,
+        largest_why=blame(counts, pieces=True),
     )
 
 
@@ -95,6 +102,7 @@ def _brief(q) -> tuple[tuple, tuple]:
     return tuple(cells), tuple(number[name] for name in q.tops)
 
 
+@out_of_budget
 def keys_task(path: str, cell: str | None, layers, tiles, halo: float) -> list[bytes]:
     """Content keys of ``tiles`` (see :meth:`HierarchyQuery.content_key`)."""
     import faulthandler
@@ -123,6 +131,7 @@ class TileResult(NamedTuple):
     imaged: list
 
 
+@out_of_budget
 def tile_task(
     path: str,
     deck_text: str,
@@ -134,9 +143,11 @@ def tile_task(
 ):
     """Scan one tile (see :class:`TileResult`).
 
-    A tile holding more than ``max_shapes`` shapes (counted from the hierarchy
-    before any is read: a corrupt or extreme array can pile millions into one
-    tile) is refused with a LayoutError rather than run out of memory.
+    A tile holding more than ``max_shapes`` shapes, or edges making more than
+    ``PIECES_PER_SHAPE * max_shapes`` site pieces (counted from the hierarchy
+    before any is read: a corrupt or extreme array can pile millions of shapes
+    into one tile, a magnified reference kilometres of edge) is refused with a
+    LayoutError rather than run out of memory.
     ``imaged``: cuts other workers imaged (see optics.cut_images.take_imaged); the cuts
     this worker imaged since its last tile are returned for the others.
     """
@@ -149,12 +160,18 @@ def tile_task(
     x0, y0, x1, y1 = tile
     window = (x0 - halo, y0 - halo, x1 + halo, y1 + halo)
     if max_shapes is not None:
-        n = q.count(window)
+        n, pieces = q.work(window)
         if n > max_shapes:
             raise LayoutError(
                 f"{path}: the tile at ({x0 / 1000:g}, {y0 / 1000:g}) um holds up to {n:,} shapes, "
                 f"more than a worker's memory budget allows ({max_shapes:,}): use a smaller "
                 "--tile-um or a larger --max-memory-mb"
+            )
+        if not pieces <= PIECES_PER_SHAPE * max_shapes:
+            raise LayoutError(
+                f"{path}: the tile at ({x0 / 1000:g}, {y0 / 1000:g}) um reads shapes of "
+                f"{edge_text(pieces)}, more than a worker's memory budget allows "
+                f"({PIECES_PER_SHAPE * max_shapes:,}): use a larger --max-memory-mb or a --region"
             )
     polys = q.query(window)
     for ps in polys.values():  # onto the database grid, exactly as read_layout does
@@ -185,6 +202,7 @@ def hints_task(deck_text: str, keys: list[tuple], judged=()) -> tuple[dict, list
     return texts, take_grating_passes()
 
 
+@out_of_budget
 def clips_task(path: str, cell: str | None, layers, grid_nm: float, windows):
     """Polygons (nm, on the grid) meeting any of ``windows``, per layer, each once."""
     q, _ = _open(path, cell, layers)
@@ -213,15 +231,19 @@ def init_worker() -> None:
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     threadpool_limits(1)
+    apply_worker_budget()
     # What the parent imaged or judged before the fork is not this scan's to share.
     take_imaged()
     take_grating_passes()
 
 
+@out_of_budget
 def holders_task(path: str, cell: str | None, layers, windows, regions, lay):
     """The cells of findings (run.cells.holders_of): ``windows`` and ``regions``
     (n, 4) nm and each one's layer as a number into ``layers``."""
+    from pitchguard.layout.walks import deep_enough
     from pitchguard.run.cells import holders_of
 
     q, _ = _open(path, cell, layers)
-    return holders_of(q, windows, regions, [tuple(layers[k]) for k in lay.tolist()])
+    with deep_enough():  # the holders' walk recurses a level at a time
+        return holders_of(q, windows, regions, [tuple(layers[k]) for k in lay.tolist()])

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import math
-import os
 from pathlib import Path
 
 from pitchguard.deck import Deck
@@ -13,7 +12,7 @@ from pitchguard.judge.order import sort_findings
 from pitchguard.layout.reader import Layout
 from pitchguard.run.arrays import settled, tiled_arrays, with_findings
 from pitchguard.run.cells import CHUNK, CellMap, finding_windows
-from pitchguard.run.engine import WorkerPool
+from pitchguard.run.engine import WorkerPool, planned_jobs
 from pitchguard.run.merge import TileAssembly
 from pitchguard.run.plan import (
     DEFAULT_TILED_MAX_SHAPES,
@@ -122,7 +121,13 @@ def scan_tiled(
     require_layers(deck, p, st.cells, dict(st.shapes_by_layer), st.present)
     halo = tile_halo_nm(deck)
     tile_nm, jobs = plan_tiles(
-        st, halo, jobs or os.cpu_count() or 1, max_memory_mb, tile_um, distributed=bool(scheduler)
+        st,
+        halo,
+        planned_jobs(jobs, scheduler, note),
+        max_memory_mb,
+        tile_um,
+        distributed=bool(scheduler),
+        path=p,
     )
     region = tuple(v * 1000.0 for v in region_um) if region_um else None
     check_tile_count(p, st.extent_nm, region, tile_nm, st.shapes)
@@ -131,10 +136,16 @@ def scan_tiled(
         if advice:
             note(advice)
     tiles = tiles_for(st.extent_nm, tile_nm, region) if st.extent_nm else []
-    with WorkerPool(str(p), jobs, scheduler, progress) as engine:
+    from pitchguard.run.budget import set_worker_budget
+    from pitchguard.run.plan import worker_share_mb
+
+    set_worker_budget(worker_share_mb(max_memory_mb, jobs, bool(scheduler)))
+    with WorkerPool(str(p), jobs, scheduler, progress, tasks=len(tiles)) as engine:
         assembly = TileAssembly(tiles)
         limit = tile_shape_limit(max_memory_mb, jobs, bool(scheduler))
-        run = TileScheduler(engine, assembly, str(p), deck, cell, layers, tiles, halo, limit)
+        run = TileScheduler(
+            engine, assembly, engine.task_path, deck, cell, layers, tiles, halo, limit
+        )
         if reuse and len(tiles) > 1:
             # Content keys, a chunk at a time in tile order; each distinct tile is
             # scanned as soon as the chunks up to it are in, while the keys of the
@@ -163,7 +174,7 @@ def scan_tiled(
         findings = with_findings(findings, [f for _, v in found for f in v.findings])
         if ordered:
             findings = sort_findings(findings)
-        cmap = _cells(engine, str(p), cell, layers, findings, deck) if cells else None
+        cmap = _cells(engine, engine.task_path, cell, layers, findings, deck) if cells else None
     layout = Layout(p, st.fmt, st.unit_m, st.grid_nm, st.cells, {})
     return ScanResult(findings, stats, layout, [], time.perf_counter() - t0, tiling, cmap)
 

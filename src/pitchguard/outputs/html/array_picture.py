@@ -8,7 +8,13 @@ import numpy as np
 
 from pitchguard.deck import LayerRule
 from pitchguard.judge.findings import Finding
-from pitchguard.outputs.html.style import IMAGE_PX, PRINTED_COLOUR, new_figure, png_base64
+from pitchguard.outputs.html.style import (
+    IMAGE_PX,
+    PRINTED_COLOUR,
+    figure_text,
+    new_figure,
+    png_base64,
+)
 from pitchguard.outputs.html.text import feature_word
 
 SNAP_TOL_NM = 3.0
@@ -70,7 +76,7 @@ def array_picture(f: Finding, rule: LayerRule, scale: float) -> tuple[str | None
         m.threshold,
         boxes,
         "x (nm, wafer, the features' frame)",
-        f"Aerial image of the unit cell ({rule.exposure_name})",
+        f"Aerial image of the unit cell ({figure_text(rule.exposure_name)})",
     )
     fw = feature_word(rule)
     printed = (

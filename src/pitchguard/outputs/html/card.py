@@ -14,7 +14,9 @@ from pitchguard.outputs.html.text import (
     attr_text,
     esc,
     feature_word,
+    filter_key,
     html_number,
+    name_html,
     value_vs_limit,
 )
 from pitchguard.outputs.texts import (
@@ -25,6 +27,7 @@ from pitchguard.outputs.texts import (
     k1_number,
     orders_text,
     pitch_text,
+    shown,
 )
 
 
@@ -250,7 +253,7 @@ def _locations_html(g: Group) -> str:
         x0, y0, x1, y1 = box_um(c.cell_bbox_nm)
         note = " <span class='note'>(depends on the placement: fix in the parent cell)</span>"
         rows.append(
-            f"<tr><td class='n'>{k}</td><td>{esc(c.cell or '–')}"
+            f"<tr><td class='n'>{k}</td><td>{name_html(c.cell or '–')}"
             f"{note if c.depends_on_placement else ''}</td>"
             f"<td class='n'>{x0:.3f}, {y0:.3f} – {x1:.3f}, {y1:.3f}</td>"
             f"<td class='n'>{c.placements}</td><td class='n'>{cx:.3f}, {cy:.3f}</td>"
@@ -310,7 +313,7 @@ def _group_title(g: Group, rule: LayerRule | None) -> str:
         )
     return (
         f'<span class="sev {attr_text(f.severity)}">{esc(f.severity)}</span>'
-        f'<span class="what">{esc(f.layer)} · {esc(f.check)}</span>'
+        f'<span class="what">{name_html(f.layer)} · {esc(f.check)}</span>'
         f'<span class="meta">{meta}</span>'
         f'<span class="count">{n} placement{"s" if n != 1 else ""}{cells} · '
         f"{'first ' if n > 1 else ''}at ({cx:.3f}, {cy:.3f}) µm</span>"
@@ -325,8 +328,8 @@ def group_card_html(idx: int, g: Group, renderer: FindingPictures) -> str:
     img_png, img_cap = renderer.image_picture(f, info.mirrored)
     figs = []
     for png, cap, alt, px in (
-        (lay_png, lay_cap, f"layout of {f.layer} around the region", LAYOUT_PX),
-        (img_png, img_cap, f"aerial image across the cut on {f.layer}", IMAGE_PX),
+        (lay_png, lay_cap, f"layout of {shown(f.layer)} around the region", LAYOUT_PX),
+        (img_png, img_cap, f"aerial image across the cut on {shown(f.layer)}", IMAGE_PX),
     ):
         if png is None:
             figs.append(f"<figure><p class='note'>{esc(cap)}</p></figure>")
@@ -340,7 +343,7 @@ def group_card_html(idx: int, g: Group, renderer: FindingPictures) -> str:
     opened = " open" if idx < OPEN_GROUPS else ""
     return (
         f'<details class="group {attr_text(f.severity)}" id="g{idx + 1}" '
-        f'data-severity="{attr_text(f.severity)}" data-layer="{attr_text(f.layer)}" '
+        f'data-severity="{attr_text(f.severity)}" data-layer="{attr_text(filter_key(f.layer))}" '
         f'data-count="{len(g.findings)}"{opened}>'
         f"<summary>{_group_title(g, rule)}</summary><div class='body'>"
         f"<p class='message'>{esc(f.message.rstrip('.'))}.</p>"

@@ -15,6 +15,7 @@ from pitchguard.outputs.html.style import (
     IMAGE_PX,
     PRINTED_COLOUR,
     THRESHOLD_COLOUR,
+    figure_text,
     new_figure,
     png_base64,
 )
@@ -137,7 +138,9 @@ def draw_image(
         labelpad=1,
     )
     ax.set_ylabel("intensity (clear = 1)", fontsize=7, labelpad=1)
-    ax.set_title(f"Aerial image across the cut ({rule.exposure_name})", fontsize=8.5, pad=3)
+    ax.set_title(
+        f"Aerial image across the cut ({figure_text(rule.exposure_name)})", fontsize=8.5, pad=3
+    )
     ax.legend(
         fontsize=7,
         loc="upper center",

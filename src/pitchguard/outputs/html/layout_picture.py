@@ -20,6 +20,7 @@ from pitchguard.outputs.html.style import (
     NEIGHBOUR_SHAPES,
     OWN_SHAPES,
     SEVERITY_COLOUR,
+    figure_text,
     length_text,
     new_figure,
     nice_length,
@@ -165,7 +166,7 @@ def draw_layout(
         fontsize=7.5,
         path_effects=white_halo(),
     )
-    ax.set_title(f"{f.layer} ({f.source}) around the region", fontsize=8.5, pad=3)
+    ax.set_title(f"{figure_text(f.layer)} ({f.source}) around the region", fontsize=8.5, pad=3)
     png = png_base64(fig)
     fw = feature_word(rule)
     cap = (

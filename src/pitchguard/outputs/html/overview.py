@@ -6,10 +6,21 @@ from pathlib import Path
 
 from pitchguard.deck import SEVERITIES, Deck
 from pitchguard.outputs.html.groups import Group
-from pitchguard.outputs.html.text import attr_text, esc, html_number
+from pitchguard.outputs.html.text import (
+    attr_text,
+    esc,
+    filter_key,
+    html_number,
+    name_html,
+    path_html,
+)
 from pitchguard.outputs.table import one_line_summary
+from pitchguard.outputs.texts import SHOWN_PATH_CHARS, clipped
 from pitchguard.outputs.verdict import coverage_notes, coverage_text, exit_code, severity_counts
 from pitchguard.run.scan import ScanResult
+
+CELLS_SHOWN = 20
+"""Top cells named in the summary (a layout may have thousands)."""
 
 
 def summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Group]) -> str:
@@ -22,21 +33,23 @@ def summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Grou
     parts.append(f'<p class="verdict {"bad" if bad else "good"}" id="one-line">{esc(line)}</p>')
     facts = []
     if lay is not None:
-        cells = ", ".join(lay.cells) or "–"
+        cells = ", ".join(name_html(c) for c in lay.cells[:CELLS_SHOWN]) or "–"
+        if len(lay.cells) > CELLS_SHOWN:
+            cells += f" and {len(lay.cells) - CELLS_SHOWN} more"
         facts.append(
             (
                 "Layout",
-                f"<strong>{esc(Path(lay.path).name)}</strong> "
-                f"<span class='note'>({esc(lay.path)})</span>",
+                f"<strong>{name_html(Path(lay.path).name)}</strong> "
+                f"<span class='note'>({path_html(lay.path)})</span>",
             )
         )
-        facts.append(("Format, top cells", f"{esc(lay.format.upper())}, {esc(cells)}"))
+        facts.append(("Format, top cells", f"{esc(lay.format.upper())}, {cells}"))
         facts.append(("Database grid", f"{lay.grid_nm:g} nm"))
     facts.append(
         (
             "Rule deck",
-            f"<strong>{esc(deck.name)}</strong>"
-            + (f" <span class='note'>({esc(deck.path)})</span>" if deck.path else ""),
+            f"<strong>{name_html(deck.name)}</strong>"
+            + (f" <span class='note'>({path_html(deck.path)})</span>" if deck.path else ""),
         )
     )
     scale = (
@@ -66,7 +79,7 @@ def summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Grou
         if rule is not None:
             e = rule.exposure
             expo = (
-                f"{esc(rule.exposure_name)}: {e.wavelength_nm:g} nm, NA {e.na:g}, "
+                f"{name_html(rule.exposure_name)}: {e.wavelength_nm:g} nm, NA {e.na:g}, "
                 f"{esc(e.illumination.shape)}; {esc(rule.field)} field"
             )
         else:
@@ -76,7 +89,7 @@ def summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Grou
             f'<td class="n {"c-" + s if c[s] else "zero"}">{c[s]}</td>' for s in SEVERITIES
         )
         rows.append(
-            f"<tr><td><strong>{esc(st.name)}</strong></td><td>{esc(st.source)}</td>"
+            f"<tr><td><strong>{name_html(st.name)}</strong></td><td>{esc(st.source)}</td>"
             f"<td>{expo}</td>{cells}<td class='n'>{ex.sites:,}</td>"
             f"<td class='n'>{ex.isolated_sites:,}</td>"
             f"<td class='n'>{ex.short_edges + ex.pieces_2d:,}</td>"
@@ -97,10 +110,12 @@ def summary_html(result: ScanResult, deck: Deck, fail_on: str, groups: list[Grou
     )
     notes = coverage_notes(result.layers)
     if notes:
-        items = "".join(f"<li>{esc(n)}</li>" for n in notes)
+        items = "".join(f"<li>{esc(clipped(n, SHOWN_PATH_CHARS))}</li>" for n in notes)
         parts.append(f"<h3>Not judged</h3><ul class='note'>{items}</ul>")
     if result.warnings:
-        items = "".join(f"<li>{esc(w)}</li>" for w in result.warnings[:20])
+        items = "".join(
+            f"<li>{esc(clipped(w, SHOWN_PATH_CHARS))}</li>" for w in result.warnings[:20]
+        )
         more = f"<li>… {len(result.warnings) - 20} more</li>" if len(result.warnings) > 20 else ""
         parts.append(f"<h3>Layout reader warnings</h3><ul class='note'>{items}{more}</ul>")
     parts.append("</section>")
@@ -121,8 +136,8 @@ def filters_html(result: ScanResult, groups: list[Group]) -> str:
         if g.first.layer not in layers:
             layers.append(g.first.layer)
     lay = "".join(
-        f'<label><input type="checkbox" name="layer" value="{attr_text(n)}" checked> '
-        f"{esc(n)}</label>"
+        f'<label><input type="checkbox" name="layer" value="{attr_text(filter_key(n))}" '
+        f"checked> {name_html(n)}</label>"
         for n in layers
     )
     return (
@@ -158,9 +173,10 @@ def index_html(groups: list[Group], drawn: int) -> str:
         cx, cy = f.centre_um
         n = f"<a href='#g{k}'>{k}</a>" if k <= drawn else str(k)
         rows.append(
-            f'<tr data-severity="{attr_text(f.severity)}" data-layer="{attr_text(f.layer)}">'
+            f'<tr data-severity="{attr_text(f.severity)}" '
+            f'data-layer="{attr_text(filter_key(f.layer))}">'
             f"<td class='n'>{n}</td><td data-v='{f.severity_rank}'><span class='sev "
-            f"{attr_text(f.severity)}'>{esc(f.severity)}</span></td><td>{esc(f.layer)}</td>"
+            f"{attr_text(f.severity)}'>{esc(f.severity)}</span></td><td>{name_html(f.layer)}</td>"
             f"<td>{esc(f.check)}</td>"
             f"<td class='n'>{html_number(f.pitch_nm)}</td>"
             f"<td class='n'>{html_number(f.width_nm)}</td>"

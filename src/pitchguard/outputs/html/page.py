@@ -21,7 +21,8 @@ from pitchguard.outputs.html.overview import (
 )
 from pitchguard.outputs.html.pictures import FindingPictures
 from pitchguard.outputs.html.style import SEVERITY_COLOUR
-from pitchguard.outputs.html.text import esc
+from pitchguard.outputs.html.text import esc, name_html
+from pitchguard.outputs.texts import shown
 from pitchguard.outputs.verdict import CAUTION
 from pitchguard.run.scan import ScanResult
 
@@ -61,7 +62,11 @@ def render_html(
     renderer = FindingPictures(result, deck)
     drawn = groups[: max(0, max_groups)]
     lay = result.layout
-    title = f"pitchguard report: {Path(lay.path).name}" if lay is not None else "pitchguard report"
+    title = (
+        f"pitchguard report: {shown(Path(lay.path).name)}"
+        if lay is not None
+        else "pitchguard report"
+    )
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
         "<meta name='viewport' content='width=device-width, initial-scale=1'>",
@@ -71,7 +76,7 @@ def render_html(
         f"<title>{esc(title)}</title><style>{severity_colours_css()}</style>",
         f"<style>{asset_text('report.css')}</style></head><body><main>",
         f"<h1>{esc(title)}</h1>",
-        f"<p class='sub'>Line/space pitch screening with deck <strong>{esc(deck.name)}"
+        f"<p class='sub'>Line/space pitch screening with deck <strong>{name_html(deck.name)}"
         f"</strong> · pitchguard {esc(__version__)}</p>",
         f'<p class="caution" id="caution"><strong>Screening aid.</strong> {esc(CAUTION)} '
         f"{esc(CAVEATS)}</p>",
@@ -116,6 +121,6 @@ def write_html(
     text = render_html(result, deck, fail_on, max_groups)
 
     def w(tmp: Path) -> None:
-        tmp.write_text(text, encoding="utf-8")
+        tmp.write_text(text, encoding="utf-8", errors="backslashreplace")
 
     atomic_write(Path(path), w, inputs)  # gives the file the umask's mode

@@ -6,6 +6,8 @@ import base64
 import io
 import math
 
+from pitchguard.outputs.user_text import figure_text  # noqa: F401  (the pictures use it)
+
 DPI = 90
 
 

@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import hashlib
 import html
 import math
 
 from pitchguard.deck import LayerRule
+from pitchguard.outputs.texts import SHOWN_CHARS, shown, shown_path
 
 
 def esc(text) -> str:
@@ -16,6 +18,27 @@ def esc(text) -> str:
 def attr_text(text) -> str:
     """An attribute value (quotes escaped too)."""
     return html.escape(str(text), quote=True)
+
+
+def name_html(text) -> str:
+    """A user's name (cell, layer, exposure, deck) as the page shows it: cut to
+    :data:`~pitchguard.outputs.texts.SHOWN_CHARS`, control characters written out."""
+    return esc(shown(text))
+
+
+def path_html(path) -> str:
+    """A path as the page shows it (cut in the middle when very long)."""
+    return esc(shown_path(path))
+
+
+def filter_key(name: str) -> str:
+    """The value that stands for a layer in the filter bar and its links: the name
+    itself, or for a very long name its start and a hash (equal names, equal keys)."""
+    name = str(name)
+    if len(name) <= SHOWN_CHARS:
+        return name
+    digest = hashlib.blake2b(name.encode("utf-8", "surrogatepass"), digest_size=6).hexdigest()
+    return f"{name[: SHOWN_CHARS - 14]}…{digest}"
 
 
 def html_number(v: float, fmt: str = ".1f", unit: str = "") -> str:

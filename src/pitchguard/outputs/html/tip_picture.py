@@ -8,6 +8,7 @@ import numpy as np
 from pitchguard.deck import LayerRule
 from pitchguard.judge.findings import Finding
 from pitchguard.outputs.html.array_picture import image_2d_png
+from pitchguard.outputs.html.style import figure_text
 from pitchguard.outputs.html.text import feature_word
 
 
@@ -48,7 +49,7 @@ def tip_picture(f: Finding, rule: LayerRule, scale: float) -> tuple[str | None, 
         f.threshold,
         rects,
         "x (nm, wafer; the tip at 0, the gap towards +x)",
-        f"Aerial image around the line end ({rule.exposure_name})",
+        f"Aerial image around the line end ({figure_text(rule.exposure_name)})",
     )
     fw = feature_word(rule)
     cap = (
@@ -109,7 +110,7 @@ def alone_picture(f: Finding, rule: LayerRule, ps, boxes, scale: float) -> tuple
         f.threshold,
         rects,
         "x (nm, wafer; the feature's frame)",
-        f"Aerial image around the feature ({rule.exposure_name})",
+        f"Aerial image around the feature ({figure_text(rule.exposure_name)})",
     )
     fw = feature_word(rule)
     cap = (
