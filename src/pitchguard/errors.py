@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import errno
 import os
 import stat
 from pathlib import Path
@@ -67,6 +68,13 @@ def _not_regular(mode: int) -> str | None:
     return None if stat.S_ISREG(mode) else "not a regular file"
 
 
+def _kind_of(path: Path) -> str | None:
+    try:
+        return _not_regular(os.stat(path).st_mode)
+    except OSError:
+        return None
+
+
 def open_regular(path: Path, what: str, error: type[PitchguardError]) -> tuple[int, int]:
     """An input file opened for reading (its descriptor and size), or ``error`` with
     one line naming the file and what it was to be (``what``: "layout", "deck").
@@ -80,6 +88,11 @@ def open_regular(path: Path, what: str, error: type[PitchguardError]) -> tuple[i
     except IsADirectoryError:
         raise error(f"{path}: is a directory, not a {what} file") from None
     except OSError as exc:
+        kind = _kind_of(path) if exc.errno == errno.ENXIO else None  # a socket, say
+        if kind is not None:
+            raise error(
+                f"{path}: is {kind}, not a {what} file (a regular file is needed)"
+            ) from None
         raise error(f"{path}: cannot read {what}: {exc.strerror or exc}") from None
     try:
         st = os.fstat(fd)

@@ -401,7 +401,8 @@ def test_usage_error_exit_2(capsys):
     with pytest.raises(SystemExit) as exc:
         run_cli(capsys, "scan", SAMPLE_GDS, "--no-such-option")
     assert exc.value.code == 2
-    assert "--no-such-option" in capsys.readouterr().err
+    (line,) = capsys.readouterr().err.splitlines()  # one line, no usage text
+    assert line.startswith("pitchguard: error: ") and "--no-such-option" in line
 
 
 def test_no_deck_given_or_set_is_one_line(capsys):

@@ -13,7 +13,6 @@ from typing import Any
 from pitchguard.api.records import CheckRecord
 from pitchguard.api.scanning import as_deck
 from pitchguard.deck import Deck, LayerRule
-from pitchguard.errors import PitchguardError
 
 
 def _dof_limited(dof, span) -> bool:
@@ -174,11 +173,16 @@ def probe(
     along ``orientation_deg``; the image shown at ``focus_nm``, the metrics over
     the deck's focus range).  With ``pitch_y_nm`` or ``cd_y_nm``: a rectangular
     array of compact features instead (the other defaults to its x twin)."""
-    import math
+    from pitchguard.option_bounds import ANGLE_DEG, FOCUS_NM, LENGTH_NM, checked
 
-    for name, v in (("pitch_nm", pitch_nm), ("cd_nm", cd_nm), ("focus_nm", focus_nm)):
-        if not isinstance(v, int | float) or not math.isfinite(v):
-            raise PitchguardError(f"{name} must be a finite number, got {v!r}")
+    pitch_nm = checked("pitch_nm", pitch_nm, LENGTH_NM)
+    cd_nm = checked("cd_nm", cd_nm, LENGTH_NM)
+    if pitch_y_nm is not None:
+        pitch_y_nm = checked("pitch_y_nm", pitch_y_nm, LENGTH_NM)
+    if cd_y_nm is not None:
+        cd_y_nm = checked("cd_y_nm", cd_y_nm, LENGTH_NM)
+    orientation_deg = checked("orientation_deg", orientation_deg, ANGLE_DEG)
+    focus_nm = checked("focus_nm", focus_nm, FOCUS_NM)
     deck = as_deck(rules)
     rule = deck.layer(layer)
     if pitch_y_nm is not None or cd_y_nm is not None:

@@ -12,6 +12,7 @@ from collections.abc import Callable, Iterable
 from functools import cached_property
 from pathlib import Path
 
+from pitchguard import option_bounds as bounds
 from pitchguard.api.records import FindingRecord, LayerCoverage
 from pitchguard.deck import Deck, load_deck
 from pitchguard.errors import PitchguardError
@@ -23,6 +24,20 @@ Progress = Callable[[str, int, int], None]
 def as_deck(rules: str | Path | Deck) -> Deck:
     """A deck given as a path or already loaded."""
     return rules if isinstance(rules, Deck) else load_deck(rules)
+
+
+def optional(name: str, value, bound: bounds.Bound):
+    """``value`` of the argument ``name`` checked against ``bound``; None stays None."""
+    return None if value is None else bounds.checked(name, value, bound)
+
+
+def checked_fail_on(fail_on: str) -> str:
+    """``fail_on`` if it is a severity or "never"."""
+    from pitchguard.outputs.verdict import FAIL_ON_CHOICES
+
+    if fail_on not in FAIL_ON_CHOICES:
+        raise PitchguardError(f"fail_on must be one of {', '.join(FAIL_ON_CHOICES)}")
+    return fail_on
 
 
 def run_scan(
@@ -47,6 +62,16 @@ def run_scan(
     scheduler, or (``untiled``) flattened in this process.  ``cells`` names the
     cell of every finding (every report lists findings per cell); without
     ``ordered`` the findings come in no set order (enough for counting)."""
+    jobs = optional("jobs", jobs, bounds.JOBS)
+    tile_um = optional("tile_um", tile_um, bounds.TILE_UM)
+    max_memory_mb = optional("max_memory_mb", max_memory_mb, bounds.MEMORY_MB)
+    max_shapes = optional("max_shapes", max_shapes, bounds.SHAPE_COUNT)
+    read_timeout_s = optional("read_timeout_s", read_timeout_s, bounds.SECONDS)
+    if region_um is not None:
+        region_um = bounds.checked_region("region_um", region_um)
+    scheduler = bounds.checked_scheduler("scheduler", scheduler)
+    if cell is not None and not isinstance(cell, str):
+        raise TypeError(f"cell must be a string, got {type(cell).__name__}")
     if untiled and (jobs or tile_um or scheduler or max_memory_mb):
         raise PitchguardError(
             "--untiled cannot be combined with --jobs, --tile-um, --max-memory-mb or --scheduler"
@@ -104,10 +129,8 @@ class ScanReport:
         cell: str | None = None,
         read_timeout_s: float | None = None,
     ):
-        from pitchguard.outputs.verdict import FAIL_ON_CHOICES
-
-        if fail_on not in FAIL_ON_CHOICES:
-            raise PitchguardError(f"fail_on must be one of {', '.join(FAIL_ON_CHOICES)}")
+        checked_fail_on(fail_on)
+        read_timeout_s = optional("read_timeout_s", read_timeout_s, bounds.SECONDS)
         self.result = result
         self.deck = deck
         self.fail_on = fail_on
@@ -252,7 +275,11 @@ class ScanReport:
         from pitchguard.outputs.html.clips import add_clip_geometry
         from pitchguard.outputs.html.page import write_html
 
-        groups = PICTURED_GROUPS if pictures is None else pictures
+        groups = (
+            PICTURED_GROUPS
+            if pictures is None
+            else bounds.checked("pictures", pictures, bounds.PICTURED)
+        )
         result = self.result
         if result.tiling is not None:  # tiled scans keep no geometry: read the pictures' part
             result = add_clip_geometry(
@@ -284,6 +311,7 @@ def scan(
     ``region_um``, ...).  Bad input raises a
     :class:`~pitchguard.errors.PitchguardError` with a one-line message.
     """
+    checked_fail_on(fail_on)  # before the scan, not after it
     deck = as_deck(rules)
     result = run_scan(
         layout,

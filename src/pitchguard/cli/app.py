@@ -117,12 +117,7 @@ def _main(argv: list[str] | None = None) -> int:
     except PitchguardError as exc:
         tell(f"pitchguard: error: {exc}")
         return exc.exit_code
-    args = parser.parse_args(argv)
-    if args.command is None:
-        parser.print_help(sys.stderr)
-        return EXIT_USAGE
-    if args.command == "rules" and args.rules_command is None:
-        parser.parse_args(["rules", "--help"])
+    args = parser.parse_args(argv)  # a command is required: argparse says so in one line
     handler = {"scan": cmd_scan, "probe": cmd_probe, "sweep": cmd_sweep, "diff": cmd_diff}.get(
         args.command, cmd_rules_check
     )
@@ -134,11 +129,11 @@ def _main(argv: list[str] | None = None) -> int:
                 "no rule deck: give --rules DECK, or set `rules` in .pitchguard.toml or in "
                 "[tool.pitchguard] of pyproject.toml"
             )
+        code = handler(args)
         if settings is not None and not getattr(args, "quiet", False):
-            from pitchguard.outputs.texts import printable
-
-            tell(f"pitchguard: settings from {printable(settings.path)}")
-        return handler(args)
+            # Last: a run that fails says only why (one line).
+            tell(f"pitchguard: note: settings from {settings.path}")
+        return code
     except KeyboardInterrupt:
         return _stopped(130)
     except Terminated:
@@ -154,6 +149,12 @@ def _main(argv: list[str] | None = None) -> int:
             for line in exc.lines:  # one per problem: a deck's are all reported at once
                 tell(f"pitchguard: error: {line}")
             return exc.exit_code
+        if isinstance(exc, MemoryError):  # the machine's limit, not a bug
+            tell(
+                "pitchguard: error: out of memory: scan tiled (without --untiled), give "
+                "--max-memory-mb, use fewer --jobs or a --region"
+            )
+            return EXIT_USAGE
         # A bug, not the user's fault.
         tell(
             f"pitchguard: internal error: {type(exc).__name__}: {exc} "

@@ -10,6 +10,7 @@ command line win; ``--no-config`` ignores the file.
 from __future__ import annotations
 
 import argparse
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -77,10 +78,10 @@ def find_settings(start: Path | None = None) -> Settings | None:
     here = (start or Path.cwd()).resolve()
     for folder in (here, *here.parents):
         own = folder / OWN_FILE
-        if own.exists():
+        if os.path.lexists(own):  # a broken or looping link is reported, not skipped
             return Settings(own, OWN_FILE, _read_toml(own))
         project = folder / "pyproject.toml"
-        if project.exists():
+        if os.path.lexists(project):
             data = _read_toml(project)
             tool = data.get("tool", {})
             table = tool.get("pitchguard") if isinstance(tool, dict) else None

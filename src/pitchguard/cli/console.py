@@ -36,8 +36,7 @@ def one_line(text: str) -> str:
     escape sequences) written out, very long text cut in the middle."""
     from pitchguard.outputs.user_text import clipped, printable
 
-    line = printable(clipped(text, MESSAGE_CHARS, middle=True))
-    return line.replace("\n", "\\x0a").replace("\t", "\\x09")
+    return printable(clipped(text, MESSAGE_CHARS, middle=True))
 
 
 def show_note(console, text: str) -> None:

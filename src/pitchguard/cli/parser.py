@@ -11,12 +11,86 @@ from pitchguard.cli import numbers
 from pitchguard.errors import (
     EXIT_USAGE,
 )
+from pitchguard.option_bounds import SCHEDULER_TIMEOUT_S
+
+SHOWN_ERROR = 300
+"""Characters of an argparse message shown: it may repeat every unknown argument."""
 
 
 class Parser(argparse.ArgumentParser):
-    def error(self, message: str):  # one line, exit 2
-        self.print_usage(sys.stderr)
-        self.exit(EXIT_USAGE, f"pitchguard: error: {message}\n")
+    """argparse with one error line (exit 2), and numbers that start with '-'
+    read as an option's value."""
+
+    def error(self, message: str):
+        from pitchguard.outputs.user_text import shown
+
+        self.exit(
+            EXIT_USAGE,
+            f"pitchguard: error: {shown(message, SHOWN_ERROR)} (see: {self.prog} --help)\n",
+        )
+
+    def parse_args(self, args=None, namespace=None):
+        ns, extra = self.parse_known_args(args, namespace)
+        if extra:  # the help to see is the command's, not the top level's
+            self._command_parser(ns).error(f"unrecognized arguments: {' '.join(extra)}")
+        return ns
+
+    def parse_known_args(self, args=None, namespace=None):
+        args = sys.argv[1:] if args is None else list(args)
+        return super().parse_known_args(self._values_joined(args), namespace)
+
+    def _command_parser(self, ns) -> argparse.ArgumentParser:
+        """The (sub)parser of the deepest command named in ``ns``."""
+        parser = self
+        while True:
+            subs = [a for a in parser._actions if isinstance(a, argparse._SubParsersAction)]
+            name = getattr(ns, subs[0].dest, None) if subs else None
+            if name not in (subs[0].choices if subs else {}):
+                return parser
+            parser = subs[0].choices[name]
+
+    def _values_joined(self, args: list[str]) -> list[str]:
+        """``args`` with ``--option VALUE`` written ``--option=VALUE`` where the
+        option takes a number and VALUE starts with '-' (argparse would take
+        ``-5,-5,5,5`` or ``-1e3`` for an option) but names no option."""
+        numeric = {
+            s
+            for a in self._actions
+            if a.nargs is None and getattr(a.type, "number_text", False)
+            for s in a.option_strings
+        }
+        out: list[str] = []
+        i = 0
+        while i < len(args):
+            word = args[i]
+            if word == "--":  # the rest are positional
+                return out + args[i:]
+            option = self._long_option(word) if word not in numeric else word
+            if option in numeric and i + 1 < len(args) and self._is_value(args[i + 1]):
+                out.append(f"{option}={args[i + 1]}")
+                i += 2
+                continue
+            out.append(word)
+            i += 1
+        return out
+
+    def _long_option(self, word: str) -> str | None:
+        """The long option ``word`` abbreviates, if one (argparse takes unique prefixes)."""
+        if not word.startswith("--") or "=" in word or not self.allow_abbrev:
+            return None
+        found = {s for s in self._option_string_actions if s.startswith(word)}
+        return found.pop() if len(found) == 1 else None
+
+    def _is_value(self, word: str) -> bool:
+        """Whether ``word``, starting with '-', is a value rather than an option."""
+        if not word.startswith("-") or word in ("-", "--"):
+            return False
+        if word[1].isdigit() or word[1] == ".":
+            return True
+        name = word.split("=", 1)[0]
+        if name in self._option_string_actions or self._long_option(name):
+            return False
+        return word.startswith("--") or word[:2] not in self._option_string_actions
 
 
 RULES_HELP = "rule deck (TOML); default: `rules` of the project's settings"
@@ -34,7 +108,7 @@ def build_parser(settings=None) -> argparse.ArgumentParser:
         "resolve. A screening aid: sign-off stays with the fab's calibrated models.",
     )
     p.add_argument("--version", action="version", version=f"pitchguard {__version__}")
-    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=Parser)
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=Parser, required=True)
 
     scan = sub.add_parser("scan", help="scan a GDSII/OASIS layout with a rule deck")
     scan.add_argument("layout", type=Path, help="GDSII (.gds) or OASIS (.oas) file")
@@ -144,7 +218,9 @@ def build_parser(settings=None) -> argparse.ArgumentParser:
     sweep.add_argument("--debug", action="store_true", help="show tracebacks")
 
     rules = sub.add_parser("rules", help="work with rule decks")
-    rsub = rules.add_subparsers(dest="rules_command", metavar="ACTION", parser_class=Parser)
+    rsub = rules.add_subparsers(
+        dest="rules_command", metavar="ACTION", parser_class=Parser, required=True
+    )
     check = rsub.add_parser("check", help="validate a deck and show what it sets")
     check.add_argument("deck", type=Path)
     check.add_argument("--debug", action="store_true", help="show tracebacks")
@@ -258,10 +334,14 @@ def add_output_options(p) -> None:
         default=None,
         metavar="MB",
         help="memory for the scan's processes together; picks the tile size "
-        "and may use fewer workers (default: 2048 per worker)",
+        "and may use fewer workers (default: 2048 per worker, less where the machine's "
+        "memory is less)",
     )
     p.add_argument(
-        "--scheduler", metavar="ADDRESS", help="run the tiles on this dask.distributed scheduler"
+        "--scheduler",
+        metavar="ADDRESS",
+        help="run the tiles on the dask.distributed scheduler at [tcp://]HOST:PORT or "
+        f"ws://HOST:PORT (waiting at most {SCHEDULER_TIMEOUT_S:g} s for it to answer)",
     )
     p.add_argument(
         "--untiled", action="store_true", help="flatten the layout and scan it in this one process"

@@ -16,12 +16,16 @@ def _outputs(args) -> list[Path]:
 
 
 def _check_outputs(args, inputs: list[Path]) -> None:
-    from pitchguard.outputs.files import check_not_input
+    from pitchguard.outputs.files import check_not_input, resolved
+    from pitchguard.outputs.locations import check_root
+
+    if getattr(args, "sarif_root", None) is not None:
+        check_root(args.sarif_root)
 
     outs = _outputs(args) + [p for p in (getattr(args, "write_baseline", None),) if p]
     for out in outs:
         check_not_input(out, inputs)
-    if len({str(p.resolve()) for p in outs}) != len(outs):
+    if len({str(resolved(p)) for p in outs}) != len(outs):
         raise PitchguardError("two outputs name the same file")
     if args.markers is not None and args.markers.suffix.lower() not in (".gds", ".oas"):
         raise PitchguardError(f"{args.markers}: marker file must end in .gds or .oas")
@@ -126,6 +130,7 @@ def cmd_scan(args) -> int:
         load_baseline_file,
         write_baseline,
     )
+    from pitchguard.outputs.files import resolved
     from pitchguard.outputs.table import one_line_summary, print_table
     from pitchguard.outputs.verdict import exit_code
 
@@ -134,14 +139,15 @@ def cmd_scan(args) -> int:
     same = (
         args.write_baseline
         and args.baseline
-        and args.write_baseline.resolve() == args.baseline.resolve()
+        and resolved(args.write_baseline, strict=False) == resolved(args.baseline, strict=False)
     )
     if same:
         inputs = inputs[:-1]  # updating a baseline in place keeps its reasons and owners
     _check_outputs(args, inputs)
     base = load_baseline_file(args.baseline) if args.baseline else None
     from pitchguard.outputs.baseline import accepted_to_dict, entry_text
-    from pitchguard.outputs.texts import printable
+    from pitchguard.outputs.user_text import shown as shown_text
+    from pitchguard.outputs.user_text import shown_path
 
     if base is not None and (mismatch := deck_note(base, args.baseline, deck.name)):
         tell(f"pitchguard: note: {mismatch}")  # also when quiet: a gate that may not hold
@@ -199,23 +205,27 @@ def cmd_scan(args) -> int:
         print_table(out, shown, args.fail_on, top=args.top)
         if gate is not None:
             out.print(
-                f"baseline {printable(args.baseline)}: {len(gate.new)} new placement(s) "
+                f"baseline {shown_path(args.baseline)}: {len(gate.new)} new placement(s) "
                 "shown above, "
                 f"{gate.accepted_placements} accepted by {len(gate.accepted)} "
                 f"entr{'y' if len(gate.accepted) == 1 else 'ies'}, "
                 f"{len(gate.stale)} stale"
                 + (f", {len(gate.expired)} expired (see the note)" if gate.expired else ""),
                 markup=False,
+                highlight=False,
             )
-            for e in gate.stale[:20]:  # cell names are the user's: no markup
+            for e in gate.stale[:20]:  # cell names are the user's: no markup, cut short
                 out.print(
-                    f"  stale (fixed since, prune it): {printable(entry_text(e))}", markup=False
+                    f"  stale (fixed since, prune it): {shown_text(entry_text(e), 200)}",
+                    markup=False,
+                    highlight=False,
                 )
         if written is not None:
             out.print(
-                f"baseline written to {printable(args.write_baseline)}: {written} "
+                f"baseline written to {shown_path(args.write_baseline)}: {written} "
                 f"entr{'y' if written == 1 else 'ies'} (exit 0: the findings are recorded)",
                 markup=False,
+                highlight=False,
             )
     return code
 
@@ -227,7 +237,8 @@ def cmd_diff(args) -> int:
     from pitchguard.outputs.baseline import diff, unit_text
     from pitchguard.outputs.json_report import entry_to_dict
     from pitchguard.outputs.table import one_line_summary, print_table
-    from pitchguard.outputs.texts import printable
+    from pitchguard.outputs.user_text import shown as shown_text
+    from pitchguard.outputs.user_text import shown_path
     from pitchguard.outputs.verdict import exit_code
 
     deck = load_deck(args.rules)
@@ -259,7 +270,7 @@ def cmd_diff(args) -> int:
 
     _write_outputs(args, shown, deck, inputs, extra)
     line = (
-        f"diff {printable(args.base)} -> {printable(args.new)}: {len(d.introduced)} introduced, "
+        f"diff {shown_path(args.base)} -> {shown_path(args.new)}: {len(d.introduced)} introduced, "
         f"{d.fixed_placements} fixed, {d.unchanged_placements} unchanged"
     )
     if args.quiet:
@@ -267,7 +278,9 @@ def cmd_diff(args) -> int:
     else:
         out = make_console()
         print_table(out, shown, args.fail_on, top=args.top)
-        out.print(line, markup=False)
-        for c in d.fixed[:20]:  # cell names are the user's: no markup
-            out.print(f"  fixed: {printable(unit_text(c))} (base)", markup=False)
+        out.print(line, markup=False, highlight=False)
+        for c in d.fixed[:20]:  # cell names are the user's: no markup, cut short
+            out.print(
+                f"  fixed: {shown_text(unit_text(c), 200)} (base)", markup=False, highlight=False
+            )
     return exit_code(d.introduced, args.fail_on)

@@ -93,7 +93,14 @@ def count_lines(points: np.ndarray, normal: np.ndarray, grid_nm: float) -> int:
 
 HULL_FLAT = 1e-9
 """Points whose spread across their widest direction is below this share of
-their extent count as collinear (see :func:`convex_hull`)."""
+their extent count as collinear: all come back (the extremes are among them)."""
+
+HULL_THIN = 1e-3
+"""Points whose spread across their widest direction is below this share of their
+extent are hulled exactly in Python (geometry.lattice.common.convex_hull), not by
+Qhull: Qhull prints a precision warning on stderr for so narrow an initial hull
+(its narrowness bound is an angle of about 1.4e-4 rad), and stops on collinear
+points."""
 
 
 def convex_hull(points: np.ndarray) -> np.ndarray:
@@ -102,10 +109,12 @@ def convex_hull(points: np.ndarray) -> np.ndarray:
 
     gdstk's hull (the layout reader, loaded in every tile worker already; it
     runs Qhull), not scipy.spatial's, whose import in every tile worker would
-    cost more than the hulls.  Qhull prints an error on collinear input, so
-    that is caught first.
+    cost more than the hulls.  Thin or collinear sets go to an exact monotone
+    chain instead (see HULL_THIN): a sliver's sites would make Qhull warn.
     """
     import gdstk
+
+    from pitchguard.geometry.lattice.common import convex_hull as exact_hull
 
     pts = np.unique(points, axis=0)
     if len(pts) < 3:
@@ -117,6 +126,8 @@ def convex_hull(points: np.ndarray) -> np.ndarray:
     across = np.abs(rel[:, 0] * far[1] - rel[:, 1] * far[0]) / max(span, 1e-300)
     if span == 0.0 or across.max() <= HULL_FLAT * span:
         return pts
+    if across.max() <= HULL_THIN * span:
+        return exact_hull(pts)
     cell = gdstk.Cell("hull")
     cell.add(gdstk.Polygon(pts))
     return np.asarray(cell.convex_hull(), dtype=np.float64)

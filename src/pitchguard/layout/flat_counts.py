@@ -89,6 +89,35 @@ def _check_side(path, n: int, what: str, child: str, parent: str) -> None:
         )
 
 
+def check_placement(path, ref, child: str, parent: str) -> None:
+    """Refuse (LayoutError) a reference whose rotation, magnification or offsets are
+    not finite numbers, or whose magnification is not above 0: no drawing places
+    a cell so, and no geometry follows from it (a corrupt file)."""
+    import numpy as np
+
+    rep = ref.repetition
+    values = [("rotation", ref.rotation), ("magnification", ref.magnification)]
+    values.append(("origin", ref.origin))
+    for name in ("spacing", "v1", "v2", "offsets", "x_offsets", "y_offsets"):
+        values.append((f"repetition {name.replace('_', ' ')}", getattr(rep, name, None)))
+    for what, v in values:
+        if v is None:
+            continue
+        a = np.asarray(v, dtype=np.float64).ravel()
+        if not np.isfinite(a).all():
+            bad = f"a {what} of {a[~np.isfinite(a)][0]}"
+            break
+    else:
+        if float(ref.magnification) > 0.0:
+            return
+        bad = f"a magnification of {float(ref.magnification):g}"
+    raise LayoutError(
+        f"{path}: cell {_name(child)} is placed in cell {_name(parent)} with {bad}: a corrupt "
+        "file (a placement's rotation, magnification and offsets are finite numbers, the "
+        "magnification above 0)"
+    )
+
+
 def _repeats(path, rep, cell: str) -> int:
     """Copies a shape's repetition makes (checked: see MAX_REPEAT_SIDE)."""
     n, cols, rows = repetition_count(rep)
@@ -146,6 +175,7 @@ def flat_counts(path, tops, wanted: set, scale_nm: float) -> FlatCounts:
             if not _is_cell(ref.cell):
                 continue  # an unresolved reference (rawcell or missing): nothing to flatten
             child = ref.cell.name
+            check_placement(path, ref, child, cell.name)
             n, cols, rows = repetition_count(ref.repetition)
             for side in (cols, rows):
                 _check_side(path, side, "a reference", child, cell.name)

@@ -20,6 +20,20 @@ READER_MEMORY_HINT = (
 )
 
 
+NOT_TEXT = "Unable to convert value to string"
+"""What the layout library raises for a name whose bytes are not UTF-8."""
+
+
+def reader_failure(exc: Exception) -> str:
+    """Why the layout library failed, in words a user can act on."""
+    if isinstance(exc, TypeError) and NOT_TEXT in str(exc):
+        return (
+            "a cell, label or property name is not UTF-8 text (GDSII names are ASCII; "
+            "the layout library reads no other bytes)"
+        )
+    return f"{type(exc).__name__}: {exc}"
+
+
 def _child(conn, fn, args, path, parent: int) -> None:  # runs in the child process
     import faulthandler
 
@@ -32,7 +46,7 @@ def _child(conn, fn, args, path, parent: int) -> None:  # runs in the child proc
     except MemoryError:
         conn.send(("error", f"{path}: out of memory while reading the layout"))
     except Exception as exc:  # any reader failure is a bad-input error here
-        conn.send(("error", f"{path}: cannot read layout: {type(exc).__name__}: {exc}"))
+        conn.send(("error", f"{path}: cannot read layout: {reader_failure(exc)}"))
     finally:
         conn.close()
 

@@ -75,14 +75,28 @@ def remove_stale_temporaries(folder: Path) -> list[str]:
 
 
 def check_not_input(out: Path, inputs: list[Path]) -> None:
+    target = resolved(out)
     for p in inputs:
         try:
             if out.exists() and p.exists() and out.samefile(p):
                 raise OutputError(f"{shown_path(out)}: refusing to overwrite an input file")
         except OSError:
             continue
-        if out.resolve() == p.resolve():
+        if target == resolved(p, strict=False):
             raise OutputError(f"{shown_path(out)}: refusing to overwrite an input file")
+
+
+def resolved(path: Path, strict: bool = True) -> Path:
+    """``path`` absolute with its symbolic links followed.  A loop of links is an
+    :class:`OutputError` (``strict``) or leaves the path as given, made absolute."""
+    try:
+        return Path(path).resolve()
+    except (OSError, RuntimeError):  # RuntimeError: a loop, before Python 3.13
+        if not strict:
+            return Path(path).absolute()
+        raise OutputError(
+            f"{shown_path(path)}: cannot follow its symbolic links (they form a loop)"
+        ) from None
 
 
 def _reason(exc: OSError) -> str:

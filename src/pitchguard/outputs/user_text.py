@@ -7,15 +7,14 @@ from __future__ import annotations
 
 import re
 
-_CONTROL = re.compile(
-    r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u200e\u200f\u202a-\u202e\u2066-\u2069\ud800-\udfff]"
-)
+_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f\u200e\u200f\u2028-\u202e\u2066-\u2069\ud800-\udfff]")
 
 
 def printable(text: object) -> str:
     """Text from a user's files (deck and cell names, paths, baseline entries) as a
-    terminal may show it: control characters (escape sequences, bidi overrides)
-    written as ``\\xNN`` / ``\\uNNNN``, so they cannot move the cursor or recolour (and
+    terminal may show it, on one line: control characters (escape sequences, line
+    and paragraph breaks, tabs, bidi overrides) written as ``\\xNN`` / ``\\uNNNN``,
+    so they cannot move the cursor, recolour or add rows (and
     a name's undecodable bytes, kept as lone surrogates, cannot stop a UTF-8 writer)."""
 
     def code(m: re.Match) -> str:

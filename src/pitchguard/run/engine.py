@@ -6,6 +6,7 @@ import os
 import time
 
 from pitchguard.errors import STOP_POLL_S, LayoutError, check_stop
+from pitchguard.option_bounds import SCHEDULER_TIMEOUT_S
 from pitchguard.processes import (
     JOBS_PER_CORE,
     death_message,
@@ -18,6 +19,66 @@ from pitchguard.run.tasks import init_worker
 
 DEATH_WAIT_S = 2.0
 """How long a broken pool's workers are given to be reaped, to tell what ended one."""
+
+CONNECT_TIMEOUT_S = SCHEDULER_TIMEOUT_S
+
+
+def connect(address: str):
+    """A dask.distributed client of the scheduler at ``address``, or a
+    PitchguardError with one line saying why there is none."""
+    from pitchguard.option_bounds import checked_scheduler, unreachable
+
+    checked_scheduler("scheduler", address)
+    try:
+        from distributed import Client
+    except ImportError:
+        raise unreachable(
+            address, "this needs dask.distributed: pip install 'pitchguard[cluster]'"
+        ) from None
+    try:
+        if not address.startswith("inproc://"):  # in this process: nothing to wait for
+            _handshake(address, CONNECT_TIMEOUT_S)
+        return Client(address, timeout=CONNECT_TIMEOUT_S)
+    except Exception as exc:  # the library's errors for what it cannot reach or parse
+        check_stop()
+        raise unreachable(address, str(exc).strip() or type(exc).__name__) from None
+
+
+def _handshake(address: str, timeout: float) -> None:
+    """Greet the scheduler at ``address`` and part, or raise why not within
+    ``timeout`` s.  The library bounds the connection but not the wait for the
+    greeting, so a port that accepts and never speaks would hold a client for
+    ever; this runs on a thread of its own, which the command need not wait for."""
+    import asyncio
+    import threading
+
+    from distributed.comm import connect as open_comm
+
+    outcome: dict = {}
+    quiet = TimeoutError(f"no answer within {timeout:g} s")
+
+    async def greet() -> None:
+        comm = await asyncio.wait_for(open_comm(address, timeout=timeout), timeout)
+        await comm.close()
+
+    def run() -> None:
+        try:
+            asyncio.run(greet())
+        except TimeoutError:
+            outcome["error"] = quiet
+        except Exception as exc:
+            outcome["error"] = exc
+
+    greeter = threading.Thread(target=run, name="pitchguard-scheduler-greeting", daemon=True)
+    greeter.start()
+    deadline = time.monotonic() + timeout + 1.0  # the greeting gives up at ``timeout``
+    while greeter.is_alive() and time.monotonic() < deadline:
+        greeter.join(STOP_POLL_S)
+        check_stop()
+    if greeter.is_alive():
+        raise quiet
+    if "error" in outcome:
+        raise outcome["error"]
 
 
 def init_local_worker(parent: int) -> None:
@@ -56,13 +117,7 @@ class WorkerPool:
 
     def __enter__(self) -> WorkerPool:
         if self.scheduler:
-            try:
-                from distributed import Client
-            except ImportError:
-                raise LayoutError(
-                    "--scheduler needs dask.distributed: pip install 'pitchguard[cluster]'"
-                ) from None
-            self.client = Client(self.scheduler)
+            self.client = connect(self.scheduler)
         else:
             from concurrent.futures import ProcessPoolExecutor
             from multiprocessing import get_context

@@ -7,7 +7,7 @@ from dataclasses import dataclass
 from typing import NamedTuple
 
 from pitchguard.deck import Deck
-from pitchguard.errors import LayoutError
+from pitchguard.errors import DeckError, LayoutError
 from pitchguard.geometry.sites import SITE_CELL_NM
 from pitchguard.layout.flat_counts import PIECES_PER_SHAPE, edge_text
 
@@ -83,6 +83,25 @@ def tile_halo_nm(deck: Deck) -> float:
     )
 
 
+def halo_words(deck: Deck) -> str:
+    """What sets the halo (:func:`tile_halo_nm`), for messages: the layer whose
+    interaction range, in the exposure's lambda/NA, reaches furthest."""
+    scale = deck.scale_to_wafer
+    rule = max(deck.layers, key=lambda r: r.interaction_range_nm / scale)
+    lna = rule.exposure.lambda_over_na_nm
+    return (
+        f"set by the interaction range of layer {printable_name(rule.name)}, "
+        f"{rule.interaction_range_nm / 1000:,.4g} um: {rule.interaction_range_nm / lna:.3g} "
+        f"x its lambda/NA of {lna / 1000:,.4g} um"
+    )
+
+
+def printable_name(name: str) -> str:
+    """A deck name for a message: quoted, control characters escaped, cut to 80."""
+    shown = repr(str(name))
+    return shown if len(shown) <= 80 else shown[:80] + "…"
+
+
 def clip_extent(extent, region):
     """``extent`` within ``region`` (None: all of it)."""
     if region is None:
@@ -148,21 +167,106 @@ TILE_COST_SHAPES = 340.0
 
 
 DEFAULT_WORKER_MB = 2048.0
-"""A worker's memory budget when no --max-memory-mb is given."""
+"""A worker's memory budget when no --max-memory-mb is given, or its share of
+the machine's memory where that is less (:func:`machine_worker_mb`)."""
+
+
+def machine_worker_mb(jobs: int) -> tuple[float | None, str]:
+    """Each of ``jobs`` local workers' share (MB) of what the machine allows a scan
+    given no --max-memory-mb (run.budget.machine_budget): the parent's base set
+    aside from the total and the rest split, at most what one process may add;
+    None where the machine does not say.  Also the budget in words."""
+    from pitchguard.run.budget import machine_budget
+
+    total, room, words = machine_budget()
+    share = None if total is None else (total - PARENT_BASE_MB) / max(1, jobs)
+    if room is not None:
+        share = room if share is None else min(share, room)
+    return share, words
 
 
 def _per_worker_mb(max_memory_mb: float | None, jobs: int, distributed: bool) -> float:
     if max_memory_mb is None:
-        return DEFAULT_WORKER_MB
+        share = None if distributed else machine_worker_mb(jobs)[0]
+        return DEFAULT_WORKER_MB if share is None else min(DEFAULT_WORKER_MB, share)
     return (max_memory_mb - (0 if distributed else PARENT_BASE_MB)) / max(1, jobs)
 
 
 def worker_share_mb(max_memory_mb: float | None, jobs: int, distributed: bool = False):
-    """Each local worker's share of a memory cap (MB; run.budget enforces it), or
-    None: no cap, or workers on a cluster (their own machines' business)."""
-    if max_memory_mb is None or distributed:
+    """Each local worker's share of the memory (MB; run.budget enforces it): of
+    --max-memory-mb, or without it of the machine's (:func:`machine_worker_mb`);
+    None: workers on a cluster (their own machines' business), or a machine
+    that does not say."""
+    if distributed:
         return None
+    if max_memory_mb is None:
+        return machine_worker_mb(jobs)[0]
     return _per_worker_mb(max_memory_mb, jobs, distributed)
+
+
+def budget_words(max_memory_mb: float | None, jobs: int, distributed: bool = False) -> str:
+    """The memory a scan plans within, in words for a message."""
+    if max_memory_mb is not None:
+        return f"--max-memory-mb {max_memory_mb:g} for {jobs} worker{'s' if jobs > 1 else ''}"
+    share, words = (None, "") if distributed else machine_worker_mb(jobs)
+    if share is None or share >= DEFAULT_WORKER_MB:
+        return f"a worker's {DEFAULT_WORKER_MB:g} MB (no --max-memory-mb was given)"
+    return f"a worker's {share:,.0f} MB share of {words} (no --max-memory-mb was given)"
+
+
+def share_words(max_memory_mb: float | None, jobs: int, share: float | None) -> str:
+    """A worker's enforced share (:func:`worker_share_mb`) in words for a message."""
+    if share is None:
+        return "no bound"
+    if max_memory_mb is not None:
+        return f"a worker's {share:,.0f} MB share of --max-memory-mb {max_memory_mb:g}"
+    words = machine_worker_mb(jobs)[1]
+    return f"a worker's {share:,.0f} MB share of {words} (no --max-memory-mb was given)"
+
+
+ANCHOR_MATRICES = 3
+"""A layer's anchor is imaged as a 2-D square array (optics.resist2d.anchor_threshold_2d)
+through the n x n cross coefficients of its n diffraction orders (complex, 16
+bytes an entry): the matrix, its eigenvectors and the eigen-solver's
+workspace hold about this many such matrices at once."""
+
+
+def deck_memory_mb(deck: Deck) -> tuple[float, str]:
+    """The memory (MB) one process needs for the deck's largest image that does not
+    depend on the layout, and what it is (empty: none worth naming): an anchor's
+    2-D cell grows with the square of its orders, i.e. with (pitch / (lambda/NA))^4."""
+    from pitchguard.optics.aerial2d import exposure_orders
+
+    worst, why = 0.0, ""
+    for rule in deck.layers:
+        anchor = rule.anchor
+        if anchor is None:
+            continue
+        p = anchor.pitch_nm
+        n = len(exposure_orders(rule.exposure, p, p))
+        mb = ANCHOR_MATRICES * 16.0 * n * n / 2**20
+        if mb > worst:
+            lna = rule.exposure.lambda_over_na_nm
+            worst = mb
+            why = (
+                f"layer {printable_name(rule.name)}: its anchor pitch of {p:,.6g} nm is "
+                f"{p / lna:.3g} lambda/NA ({lna:,.6g} nm), imaged as a 2-D cell of {n:,} "
+                "diffraction orders"
+            )
+    return worst, why
+
+
+def check_deck_memory(deck: Deck, per_process_mb: float | None, budget: str) -> None:
+    """Refuse (DeckError) a deck whose layout-independent images alone need more than
+    a process may use (``per_process_mb``; None: no bound), before any work."""
+    if per_process_mb is None:
+        return
+    mb, why = deck_memory_mb(deck)
+    if mb > per_process_mb:
+        raise DeckError(
+            f"{deck.path or '<deck>'}: {why}, about {mb:,.0f} MB of imaging matrices, over "
+            f"{budget}: give the anchor at the layer's dense minimum pitch (a few lambda/NA)"
+        )
 
 
 def tile_shape_limit(max_memory_mb: float | None, jobs: int, distributed: bool = False) -> int:
@@ -195,27 +299,63 @@ def plan_tiles(
     tile_um: float | None,
     distributed: bool = False,
     path=None,
+    halo_why: str = "",
 ) -> tuple[float, int]:
     """Tile size (nm) and local worker count for a memory cap (MB, all processes).
 
-    Without a cap each worker may use about 2 GB.  With one, the parent's share
-    is set aside and the rest split between the workers; workers are dropped
-    while even the smallest tile does not fit.  A layout whose largest shape
-    alone is more than a tile may hold is refused (LayoutError).
+    Without a cap each worker may use about 2 GB, less where the machine's
+    share (:func:`machine_worker_mb`) is less.  With one, the parent's share
+    is set aside and the rest split between the workers.  Either way workers
+    are dropped while even the smallest tile does not fit, and a layout whose
+    smallest tile does not fit one worker is refused (LayoutError), as is one
+    whose largest shape alone is more than a tile may hold.  ``halo_why``:
+    what sets the halo (:func:`halo_words`), for those messages.
     """
-    t, n = _plan_tiles(st, halo_nm, jobs, max_memory_mb, tile_um, distributed)
-    budget = (
-        f"--max-memory-mb {max_memory_mb:g} for {n} worker{'s' if n > 1 else ''}"
-        if max_memory_mb is not None
-        else f"a worker's {DEFAULT_WORKER_MB:g} MB"
-    )
+    t, n = _plan_tiles(st, halo_nm, jobs, max_memory_mb, tile_um, distributed, path, halo_why)
     check_largest_shape(
-        path or "layout", st, tile_piece_limit(max_memory_mb, n, distributed), budget
+        path or "layout",
+        st,
+        tile_piece_limit(max_memory_mb, n, distributed),
+        budget_words(max_memory_mb, n, distributed),
     )
     return t, n
 
 
-def _plan_tiles(st, halo_nm, jobs, max_memory_mb, tile_um, distributed):
+SMALLER_TILE_SAVES = 0.5
+"""A smaller --tile-um is advice only where the smallest tile's window is less than
+this share of the planned tile's (the halo around each tile is read whatever
+its size)."""
+
+
+def tile_memory_words(tile_nm: float, halo_nm: float, halo_why: str = "") -> str:
+    """What drives a tile's memory where a smaller tile cannot help much, in words
+    (empty where it can): the tile is the smallest, or its halo dominates."""
+    why = f" ({halo_why})" if halo_why else ""
+    if tile_nm <= SITE_CELL_NM:
+        return (
+            f"tiles are already the smallest, {SITE_CELL_NM / 1000:g} um, each read with a "
+            f"halo of {halo_nm / 1000:,.4g} um{why}"
+        )
+    if ((SITE_CELL_NM + 2 * halo_nm) / (tile_nm + 2 * halo_nm)) ** 2 > SMALLER_TILE_SAVES:
+        return (
+            f"each {tile_nm / 1000:g} um tile is read with a halo of {halo_nm / 1000:,.4g} um"
+            f"{why}, so smaller tiles save little"
+        )
+    return ""
+
+
+def _window_words(st: Structure, halo_nm: float, shapes: float, halo_why: str) -> str:
+    """Why even the smallest tile needs the memory it does: its window."""
+    w = (SITE_CELL_NM + 2 * halo_nm) / 1000.0
+    why = f" ({halo_why})" if halo_why else ""
+    return (
+        f": even a {SITE_CELL_NM / 1000:g} um tile is read with a halo of "
+        f"{halo_nm / 1000:,.4g} um{why}, a window of {w:,.4g} um holding up to about "
+        f"{shapes:,.0f} of the layout's {st.shapes:,} shapes"
+    )
+
+
+def _plan_tiles(st, halo_nm, jobs, max_memory_mb, tile_um, distributed, path=None, halo_why=""):
     if st.extent_nm:
         x0, y0, x1, y1 = st.extent_nm
         area = max((x1 - x0) * (y1 - y0), 1.0)
@@ -223,23 +363,40 @@ def _plan_tiles(st, halo_nm, jobs, max_memory_mb, tile_um, distributed):
     else:
         density = 0.0
 
-    def worker_mb(t_nm: float) -> float:
-        return WORKER_BASE_MB + KB_PER_TILE_SHAPE / 1024.0 * density * (t_nm + 2 * halo_nm) ** 2
+    def window_shapes(t_nm: float) -> float:
+        # A window holds no more than the whole layout, however dense its shapes.
+        return min(density * (t_nm + 2 * halo_nm) ** 2, float(st.shapes))
 
+    def worker_mb(t_nm: float) -> float:
+        return WORKER_BASE_MB + KB_PER_TILE_SHAPE / 1024.0 * window_shapes(t_nm)
+
+    smallest = worker_mb(SITE_CELL_NM)
+    n = jobs
     if max_memory_mb is None:
-        per_worker = DEFAULT_WORKER_MB
+        if not distributed:
+            while n > 1 and (machine_worker_mb(n)[0] or math.inf) < smallest:
+                n -= 1
+            share, words = machine_worker_mb(n)
+            if share is not None and share < smallest:
+                raise LayoutError(
+                    f"{path or 'layout'}: this scan needs about "
+                    f"{math.ceil(PARENT_BASE_MB + smallest):,} MB or more, over {words}"
+                    f"{_window_words(st, halo_nm, window_shapes(SITE_CELL_NM), halo_why)}; "
+                    "scan a --region at a time, or on a machine with more memory"
+                )
     else:
         n = 1 if distributed else jobs
-        while n > 1 and PARENT_BASE_MB + n * worker_mb(SITE_CELL_NM) > max_memory_mb:
+        while n > 1 and PARENT_BASE_MB + n * smallest > max_memory_mb:
             n -= 1
-        per_worker = _per_worker_mb(max_memory_mb, n, distributed)
-        if per_worker < worker_mb(SITE_CELL_NM):
-            need = PARENT_BASE_MB + worker_mb(SITE_CELL_NM)
+        if _per_worker_mb(max_memory_mb, n, distributed) < smallest:
+            need = PARENT_BASE_MB + smallest
             raise LayoutError(
                 f"--max-memory-mb {max_memory_mb:g} is too small for this layout: "
                 f"a scan needs about {math.ceil(need)} MB or more"
+                f"{_window_words(st, halo_nm, window_shapes(SITE_CELL_NM), halo_why)}"
             )
-        jobs = n
+    per_worker = _per_worker_mb(max_memory_mb, n, distributed)
+    jobs = n
     if tile_um is not None:
         t = max(SITE_CELL_NM, math.ceil(tile_um * 1000.0 / SITE_CELL_NM) * SITE_CELL_NM)
         return t, jobs

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -285,6 +286,12 @@ def require_layers(
     )
 
 
+UNTILED_ADVICE = (
+    "scan it tiled (without --untiled: tiles never hold the whole layout; "
+    "--max-memory-mb and fewer --jobs bound them), or a --region at a time"
+)
+
+
 def scan_layout(
     path: str | Path,
     deck: Deck,
@@ -296,27 +303,37 @@ def scan_layout(
     cells: bool = False,
 ) -> ScanResult:
     """Read ``path`` (in a child process) and scan it with ``deck``; with ``cells``
-    name the cell of every finding too (run.cells, in another child process)."""
+    name the cell of every finding too (run.cells, in another child process).
+
+    Memory running out is one line (LayoutError): a deck whose own images need
+    more than this process may use is refused before the layout is read."""
+    from pitchguard.run.budget import machine_budget, memory_guard
+    from pitchguard.run.plan import check_deck_memory
+
     t0 = time.perf_counter()
+    total, room, words = machine_budget()
+    check_deck_memory(deck, min(v for v in (total, room, math.inf) if v is not None), words)
     warnings: list[str] = []
     if progress:
         progress("reading layout", 0, 3 * len(deck.layers))
-    layout = read_layout_isolated(
-        path,
-        [(r.layer, r.datatype) for r in deck.layers],
-        cell=cell,
-        max_shapes=max_shapes,
-        warnings=warnings,
-        **({"timeout_s": read_timeout_s} if read_timeout_s else {}),
-    )
+    with memory_guard(path, "reading the layout untiled", UNTILED_ADVICE):
+        layout = read_layout_isolated(
+            path,
+            [(r.layer, r.datatype) for r in deck.layers],
+            cell=cell,
+            max_shapes=max_shapes,
+            warnings=warnings,
+            **({"timeout_s": read_timeout_s} if read_timeout_s else {}),
+        )
     require_layers(deck, Path(path), layout.cells, layout.shapes_by_layer, layout.present)
     region_nm = tuple(v * 1000.0 for v in region_um) if region_um else None
     # Linear algebra on one thread, as in a tiled scan's workers: the products are
     # small (threads cost more than they give), and the same thread count rounds
     # alike, so the whole scan's numbers equal a tiled scan's bit for bit.
-    with threadpool_limits(1):
+    what = f"scanning {layout.shape_count:,} shapes untiled, in one process"
+    with memory_guard(path, what, UNTILED_ADVICE), threadpool_limits(1):
         regions, stats = scan_polygons(layout.layers, deck, layout.grid_nm, region_nm, progress)
-    findings = sort_findings([r.finding for r in regions])
+        findings = sort_findings([r.finding for r in regions])
     cmap = None
     if cells:
         from pitchguard.layout.isolated import run_isolated

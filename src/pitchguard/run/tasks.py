@@ -17,7 +17,7 @@ from pitchguard.judge.regions import Region
 from pitchguard.layout.flat_counts import PIECES_PER_SHAPE, edge_text
 from pitchguard.layout.polygons import PolygonSet, snap_to_grid
 from pitchguard.optics.cut_images import give_imaged, take_imaged
-from pitchguard.run.budget import apply_worker_budget, out_of_budget
+from pitchguard.run.budget import apply_worker_budget, out_of_budget, tile_advice_words
 from pitchguard.run.plan import CellBrief, RefBrief, Structure
 from pitchguard.run.scan import LayerStats, scan_polygons
 
@@ -164,8 +164,8 @@ def tile_task(
         if n > max_shapes:
             raise LayoutError(
                 f"{path}: the tile at ({x0 / 1000:g}, {y0 / 1000:g}) um holds up to {n:,} shapes, "
-                f"more than a worker's memory budget allows ({max_shapes:,}): use a smaller "
-                "--tile-um or a larger --max-memory-mb"
+                f"more than a worker's memory budget allows ({max_shapes:,})"
+                f"{tile_advice_words(_densest(q, n))}"
             )
         if not pieces <= PIECES_PER_SHAPE * max_shapes:
             raise LayoutError(
@@ -185,6 +185,18 @@ def tile_task(
     # needs is dropped before they travel (half the bytes of such regions).
     regions = [r if r.on_border else r.finished() for r in regions]
     return TileResult(regions, stats, take_imaged())
+
+
+def _densest(q, n: int) -> str:
+    """The cell holding the most shapes of its own on the deck layers, in words, where
+    they are at least half of the ``n`` a tile holds (else the tile's shapes come
+    from placements: no one cell to name)."""
+    if not len(q.own_counts) or 2 * int(q.own_counts.max()) < n:
+        return ""
+    k = int(q.own_counts.argmax())
+    name = repr(list(q.cells)[k])
+    name = name if len(name) <= 80 else name[:80] + "…"
+    return f"the layout's densest cell, {name}, holds {int(q.own_counts[k]):,} shapes of its own"
 
 
 def hints_task(deck_text: str, keys: list[tuple], judged=()) -> tuple[dict, list]:

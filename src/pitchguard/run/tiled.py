@@ -17,12 +17,17 @@ from pitchguard.run.merge import TileAssembly
 from pitchguard.run.plan import (
     DEFAULT_TILED_MAX_SHAPES,
     Structure,
+    check_deck_memory,
     check_tile_count,
+    halo_words,
     plan_tiles,
+    share_words,
     tile_advice,
     tile_halo_nm,
+    tile_memory_words,
     tile_shape_limit,
     tiles_for,
+    worker_share_mb,
 )
 from pitchguard.run.scan import LayerStats, ScanResult, add_array_counts, require_layers
 from pitchguard.run.tasks import hints_task, holders_task, keys_task, structure_task, tile_task
@@ -32,6 +37,9 @@ KEY_CHUNKS = 16
 
 KEY_CHUNK_MIN = 64
 """Content keys are worked out in about KEY_CHUNKS chunks of at least KEY_CHUNK_MIN tiles."""
+
+
+ADVICE = "scan a --region at a time, or on a machine with more memory"
 
 
 CUTS_SHARED = 2000
@@ -120,6 +128,7 @@ def scan_tiled(
     st = _guarded_structure(p, cell, layers, max_shapes, read_timeout_s or READ_TIMEOUT_S)
     require_layers(deck, p, st.cells, dict(st.shapes_by_layer), st.present)
     halo = tile_halo_nm(deck)
+    halo_why = halo_words(deck)
     tile_nm, jobs = plan_tiles(
         st,
         halo,
@@ -128,7 +137,10 @@ def scan_tiled(
         tile_um,
         distributed=bool(scheduler),
         path=p,
+        halo_why=halo_why,
     )
+    share = worker_share_mb(max_memory_mb, jobs, bool(scheduler))
+    check_deck_memory(deck, share, share_words(max_memory_mb, jobs, share))
     region = tuple(v * 1000.0 for v in region_um) if region_um else None
     check_tile_count(p, st.extent_nm, region, tile_nm, st.shapes)
     if note is not None and tile_um is not None and reuse and region is None:
@@ -136,11 +148,13 @@ def scan_tiled(
         if advice:
             note(advice)
     tiles = tiles_for(st.extent_nm, tile_nm, region) if st.extent_nm else []
-    from pitchguard.run.budget import set_worker_budget
-    from pitchguard.run.plan import worker_share_mb
+    from pitchguard.run.budget import memory_guard, set_worker_budget
 
-    set_worker_budget(worker_share_mb(max_memory_mb, jobs, bool(scheduler)))
-    with WorkerPool(str(p), jobs, scheduler, progress, tasks=len(tiles)) as engine:
+    set_worker_budget(share, max_memory_mb is not None, tile_memory_words(tile_nm, halo, halo_why))
+    with (
+        memory_guard(p, "in the main process, assembling the tiles' findings", ADVICE),
+        WorkerPool(str(p), jobs, scheduler, progress, tasks=len(tiles)) as engine,
+    ):
         assembly = TileAssembly(tiles)
         limit = tile_shape_limit(max_memory_mb, jobs, bool(scheduler))
         run = TileScheduler(
