@@ -4,6 +4,9 @@ A baseline is edited by people and may come from anywhere: a value of the
 wrong type, not finite, out of range or nested without end, a file that is
 not a regular file or is too large, each ends in exit 2 with one line naming
 the file (and the entry and key), never exit 3, a hang or unbounded memory.
+
+Reference: the README's error contract and docs/gating.md (the baseline format,
+`expires` as an ISO 8601 date); RFC 8259 (JSON has no NaN or infinities).
 """
 
 from __future__ import annotations

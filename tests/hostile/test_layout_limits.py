@@ -4,6 +4,9 @@ counts, very deep reference chains, a reference magnified a billion times.
 
 Each scan runs in a subprocess with a timeout and an address-space cap, so a
 regression fails the test instead of hanging or exhausting the machine.
+
+Reference: the README's error contract and docs/limits.md; a flat layout of the
+same shapes as the check of a deep chain's findings.
 """
 
 from __future__ import annotations

@@ -9,6 +9,9 @@ stderr.
 * A placement's rotation, magnification or offsets that are not finite numbers,
   or a magnification not above 0, is a corrupt file.
 * Qhull prints nothing for a 1 m sliver.
+
+Reference: the README's error contract and docs/limits.md "Memory and processes";
+the hulls of normal input as the plain Qhull path gives them.
 """
 
 from __future__ import annotations

@@ -4,6 +4,10 @@ A child killed from outside (``kill -9``, the kernel's out-of-memory killer)
 is reported as such, not as a corrupt file; children die with the command;
 the pool starts no more workers than it can use; cluster workers get paths
 they can open from their own folder.
+
+Reference: the README's error contract; prctl(2) PR_SET_PDEATHSIG and signal(7)
+(SIGKILL 9, what the kernel's out-of-memory killer sends); a local scan's
+findings as the check of a cluster scan's.
 """
 
 from __future__ import annotations

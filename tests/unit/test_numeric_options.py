@@ -1,6 +1,9 @@
 """Every numeric option of every command refuses non-finite, overflowing, huge
 and malformed values with exit 2 and one error line naming the option; good
-values still parse."""
+values still parse.
+
+Reference: the README's error contract (exit 2, one line) and the bounds stated
+in docs/limits.md; IEEE 754 (inf, nan, overflow past 1.8e308)."""
 
 from __future__ import annotations
 
